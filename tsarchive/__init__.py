@@ -1,0 +1,50 @@
+"""tsarchive: error-bounded archives of data-logger recordings.
+
+A small autoencoder learned from the recording turns each window into a
+short integer code; residuals on a 2ε grid keep every sample within the
+budget ε set per channel.  Archives are Parquet + zstd.
+
+    >>> import tsarchive                                   # doctest: +SKIP
+    >>> tsarchive.pack("run.csv", "run.tsa", budget="0.1%")  # doctest: +SKIP
+    >>> arc = tsarchive.open("run.tsa")                    # doctest: +SKIP
+    >>> arc.read("temp", start=60, end=120)                # doctest: +SKIP
+
+Importing this package loads numpy and pyarrow only; torch is imported
+when a pack trains its model, textual when the app starts.
+"""
+
+__version__ = "0.1.0"
+
+from .budget import DEFAULT_SPEC, Budget, BudgetSpec, parse_budget_spec
+from .errors import (ArchiveCorrupt, ArchiveExists, ArchiveNotFound, BadInput, BoundViolation, BudgetError,
+                     Cancelled, FormatVersionError, SourceNotFound, TsArchiveError, UnknownCodec)
+from .ingest import read_recording
+from .pipeline import pack
+from .recording import ChannelInfo, Recording
+from .results import ChannelCheck, ChannelSummary, PackResult, Progress, VerifyReport
+from .store.reader import Archive, ChannelMeta, WindowTable, open_archive
+
+
+def open(path) -> Archive:  # noqa: A001 - the natural name for the API
+    """Open an archive directory for reading (numpy + pyarrow only)."""
+    return open_archive(path)
+
+
+def verify(archive, against=None, progress=None) -> VerifyReport:
+    """Verify an archive alone (checksums) or against its source recording."""
+    from .verify import verify_archive
+    return verify_archive(archive, against=against, progress=progress)
+
+
+def inspect_source(path, rate: float | None = None) -> Recording:
+    """Read a recording's channels, units, rate and detected resolution (no packing)."""
+    return read_recording(path, rate=rate)
+
+
+__all__ = [
+    "__version__", "pack", "open", "verify", "inspect_source", "read_recording",
+    "Archive", "ChannelMeta", "WindowTable", "Budget", "BudgetSpec", "DEFAULT_SPEC", "parse_budget_spec",
+    "ChannelInfo", "Recording", "Progress", "PackResult", "ChannelSummary", "VerifyReport", "ChannelCheck",
+    "TsArchiveError", "BadInput", "BudgetError", "SourceNotFound", "ArchiveNotFound", "ArchiveExists",
+    "ArchiveCorrupt", "FormatVersionError", "UnknownCodec", "BoundViolation", "Cancelled",
+]

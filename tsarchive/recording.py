@@ -1,0 +1,72 @@
+"""What ingest hands to the pipeline: a recording and its channels.
+
+A :class:`Recording` is a 2-D array (samples x channels, possibly a
+read-only memory map so that large files stream), a sample rate and one
+:class:`ChannelInfo` per column.  Readers live in :mod:`tsarchive.ingest`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from datetime import datetime
+from pathlib import Path
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class ChannelInfo:
+    """One logged channel as found in the source.
+
+    ``decimals`` is the detected logging resolution: ``0`` for an
+    integer-valued column, ``2`` for a logger writing two decimals, and
+    ``None`` when the column is on no decimal grid (then ``lossless`` is
+    not available for it).
+    """
+
+    name: str
+    unit: str = ""
+    dtype: str = "float64"
+    decimals: int | None = None
+
+    @property
+    def resolution(self) -> float | None:
+        return None if self.decimals is None else 10.0 ** (-self.decimals)
+
+    def to_dict(self) -> dict:
+        return {"name": self.name, "unit": self.unit, "dtype": self.dtype, "decimals": self.decimals}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "ChannelInfo":
+        return cls(name=str(d["name"]), unit=str(d.get("unit", "")), dtype=str(d.get("dtype", "float64")),
+                   decimals=None if d.get("decimals") is None else int(d["decimals"]))
+
+
+@dataclass(frozen=True)
+class Recording:
+    """A multi-channel recording sampled at one regular rate.
+
+    ``data`` has shape ``(n_samples, n_channels)``; column ``j`` holds
+    channel ``channels[j]`` in that channel's source dtype (a float64 array
+    when the columns' dtypes differ).  ``shape`` is the array shape of the
+    source (``(n,)`` for a 1-D ``.npy``) so that unpack can give it back.
+    """
+
+    data: np.ndarray
+    rate: float
+    channels: tuple[ChannelInfo, ...]
+    start: datetime | None = None
+    source: Path | None = None
+    shape: tuple[int, ...] = field(default=())
+
+    @property
+    def n_samples(self) -> int:
+        return int(self.data.shape[0])
+
+    @property
+    def duration(self) -> float:
+        return self.n_samples / self.rate if self.rate > 0 else 0.0
+
+    def column(self, j: int) -> np.ndarray:
+        """Channel ``j`` as a 1-D array (a view where possible)."""
+        return self.data[:, j]

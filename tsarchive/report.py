@@ -1,0 +1,80 @@
+"""Plain-text and JSON renderings of pack results, archives and verify reports."""
+
+from __future__ import annotations
+
+import math
+
+from .results import PackResult, VerifyReport
+
+
+def _fmt(x: float) -> str:
+    if x is None:
+        return "-"
+    if isinstance(x, float) and (math.isinf(x) or math.isnan(x)):
+        return str(x)
+    return f"{x:.4g}"
+
+
+def _table(header: list[str], rows: list[list[str]]) -> str:
+    widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)]
+    line = lambda cells: "  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(cells, widths)))
+    return "\n".join([line(header), line(["-" * w for w in widths]), *(line(r) for r in rows)])
+
+
+HEADER = ["channel", "unit", "budget", "eps", "worst error", "% used", "ratio", "bits/sample"]
+
+
+def pack_table(res: PackResult) -> str:
+    rows = [[c.name, c.unit or "-", c.budget, _fmt(c.eps), _fmt(c.worst_error), f"{c.used_pct:.1f}",
+             f"{c.ratio:.2f}", f"{c.bits_per_sample:.3f}"] for c in res.channels]
+    state = "all samples within budget" if res.within_budget else "OVER BUDGET"
+    return "\n".join([
+        _table(HEADER, rows), "",
+        f"archive {res.archive}: {res.archive_bytes} bytes; raw samples {res.raw_bytes} bytes; "
+        f"ratio {res.ratio:.2f}; source file {res.source_bytes} bytes; {res.elapsed_s:.1f} s; {state} "
+        f"(checked by decoding the archive)"])
+
+
+def archive_dict(arc) -> dict:
+    return {
+        "archive": str(arc.path), "source": arc.manifest.get("source", {}),
+        "created_utc": arc.manifest.get("created_utc"), "tool_version": arc.manifest.get("tool_version"),
+        "format_version": arc.manifest.get("format_version"), "window": arc.window,
+        "archive_bytes": arc.archive_bytes, "raw_bytes": arc.raw_bytes, "ratio": arc.ratio,
+        "within_budget": all(c.worst_error <= c.eps for c in arc.channels),
+        "channels": [{"name": c.name, "unit": c.unit, "rate": c.rate, "n_samples": c.n_samples,
+                      "duration_s": c.duration, "dtype": c.dtype, "budget": c.budget, "eps": c.eps,
+                      "decimals": c.decimals, "worst_error": c.worst_error, "used_pct": c.used_pct,
+                      "ratio": c.ratio, "bits_per_sample": c.bits_per_sample, "exceptions": c.n_exceptions,
+                      "predictors": dict(c.modes)} for c in arc.channels],
+    }
+
+
+def archive_table(arc) -> str:
+    d = archive_dict(arc)
+    rows = [[c["name"], c["unit"] or "-", c["budget"], _fmt(c["eps"]), _fmt(c["worst_error"]),
+             f"{c['used_pct']:.1f}", f"{c['ratio']:.2f}", f"{c['bits_per_sample']:.3f}"] for c in d["channels"]]
+    src = d["source"]
+    first = arc.channels[0] if arc.channels else None
+    return "\n".join([
+        f"archive {d['archive']} (format {d['format_version']}, written {d['created_utc']} by tsarchive "
+        f"{d['tool_version']})",
+        f"source {src.get('name', '?')}: {src.get('bytes', 0)} bytes, sha256 {src.get('sha256', '')[:16]}…",
+        f"{len(rows)} channel(s)" + (f" at {first.rate:g} Hz, {first.duration:g} s" if first else ""),
+        "", _table(HEADER, rows), "",
+        f"ratio {d['ratio']:.2f} ({d['raw_bytes']} raw bytes -> {d['archive_bytes']} archive bytes); "
+        + ("within budget" if d["within_budget"] else "OVER BUDGET")])
+
+
+def verify_text(rep: VerifyReport) -> str:
+    lines = []
+    for c in rep.channels:
+        state = "ok" if not (c.n_bad or c.bad_checksums) else "FAILED"
+        err = "" if c.worst_error is None else f", worst error {_fmt(c.worst_error)} of ±{_fmt(c.eps)}"
+        lines.append(f"{c.name}: {state}{err}")
+    lines.extend(f"problem: {p}" for p in rep.problems)
+    what = "every sample within budget and every checksum matches" if rep.compared else "every checksum matches"
+    lines.append(("VERIFIED: " + what) if rep.ok else "FAILED: see the problems above")
+    if not rep.compared and rep.ok:
+        lines.append("(checksums only; pass --against SOURCE to compare every sample with the original)")
+    return "\n".join(lines)

@@ -1,0 +1,338 @@
+"""Open an archive and decode any time range (numpy + pyarrow only).
+
+Reading reverses packing: Parquet rows -> entropy decode -> predictor
+inverse (integer) -> grid -> samples, with every window's CRC-32 checked.
+Nothing here imports torch or textual, and nothing is unpickled: the
+manifest is JSON, the model is plain integer arrays.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from datetime import datetime
+from functools import cached_property
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+
+from .. import checksum, entropy
+from ..codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, reconstruct
+from ..errors import ArchiveCorrupt, ArchiveNotFound, BadInput, FormatVersionError
+from ..predict import mode_name
+from ..quantize import Grid
+from . import schema as S
+
+
+@dataclass(frozen=True)
+class ChannelMeta:
+    """A channel as the manifest describes it."""
+
+    name: str
+    unit: str
+    rate: float
+    start: datetime | None
+    dtype: str
+    n_samples: int
+    budget: str
+    eps: float
+    decimals: int | None
+    window: int
+    grid: Grid
+    scale: int
+    worst_error: float
+    used_pct: float
+    ratio: float
+    bits_per_sample: float
+    n_exceptions: int
+    modes: tuple[tuple[str, int], ...]
+
+    @property
+    def duration(self) -> float:
+        return self.n_samples / self.rate if self.rate > 0 else 0.0
+
+    @property
+    def n_windows(self) -> int:
+        return -(-self.n_samples // self.window) if self.n_samples else 0
+
+
+@dataclass(frozen=True)
+class WindowTable:
+    """Per-window facts of one channel, time-ordered (no residual payloads)."""
+
+    index: np.ndarray
+    start_sample: np.ndarray
+    n: np.ndarray
+    mode: tuple[str, ...]
+    worst_error: np.ndarray
+    score: np.ndarray
+    codes: np.ndarray
+
+
+def _channel_meta(d: dict, window: int) -> ChannelMeta:
+    try:
+        s = d["summary"]
+        start = d.get("start")
+        return ChannelMeta(
+            name=d["name"], unit=d.get("unit", ""), rate=float(d["rate"]),
+            start=None if not start else datetime.fromisoformat(start.replace("Z", "+00:00")),
+            dtype=d["dtype"], n_samples=int(d["n_samples"]), budget=d["budget"], eps=float(d["eps"]),
+            decimals=d.get("decimals"), window=window, grid=Grid.from_dict(d["grid"]), scale=int(d["scale"]),
+            worst_error=float(s["worst_error"]), used_pct=float(s["used_pct"]), ratio=float(s["ratio"]),
+            bits_per_sample=float(s["bits_per_sample"]), n_exceptions=int(s.get("n_exceptions", 0)),
+            modes=tuple(sorted(s.get("modes", {}).items())))
+    except (KeyError, TypeError, ValueError) as exc:
+        raise ArchiveCorrupt(f"manifest channel entry is incomplete ({exc}); the archive is damaged") from None
+
+
+class Archive:
+    """A read-only view of one archive directory; see :func:`open_archive`."""
+
+    def __init__(self, path: str | Path) -> None:
+        self.path = Path(path)
+        mpath = self.path / S.MANIFEST
+        if not self.path.exists():
+            raise ArchiveNotFound(f"archive {self.path} does not exist; check the path")
+        if not mpath.is_file():
+            raise ArchiveCorrupt(f"{self.path} is not a tsarchive archive (no {S.MANIFEST}); pass an archive folder")
+        try:
+            self.manifest = json.loads(mpath.read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+            raise ArchiveCorrupt(f"{mpath} cannot be read ({exc}); the archive is damaged") from None
+        if self.manifest.get("format") != S.FORMAT_NAME:
+            raise ArchiveCorrupt(f"{self.path} is not a tsarchive archive; pass an archive folder")
+        if self.manifest.get("format_version") != S.FORMAT_VERSION:
+            raise FormatVersionError(f"archive format version {self.manifest.get('format_version')} is not "
+                                     f"{S.FORMAT_VERSION}; use the tsarchive version that wrote it")
+        for name in S.MEMBERS:
+            if not (self.path / name).is_file():
+                raise ArchiveCorrupt(f"archive member {name} is missing; the archive is incomplete")
+        self.window = int(self.manifest["window"])
+        self.channels = tuple(_channel_meta(c, self.window) for c in self.manifest["channels"])
+        self._by_name = {c.name: c for c in self.channels}
+
+    # -- facts -------------------------------------------------------------------
+    @property
+    def source_name(self) -> str:
+        return self.manifest.get("source", {}).get("name", "")
+
+    @property
+    def archive_bytes(self) -> int:
+        return sum(p.stat().st_size for p in self.path.iterdir() if p.is_file())
+
+    @property
+    def raw_bytes(self) -> int:
+        return int(self.manifest["summary"]["raw_bytes"])
+
+    @property
+    def ratio(self) -> float:
+        return self.raw_bytes / self.archive_bytes if self.archive_bytes else math.inf
+
+    def channel(self, name: str) -> ChannelMeta:
+        try:
+            return self._by_name[name]
+        except KeyError:
+            raise BadInput(f"no channel {name!r} in the archive; channels are: {', '.join(self._by_name)}") from None
+
+    # -- members -----------------------------------------------------------------
+    @cached_property
+    def _windows_file(self) -> pq.ParquetFile:
+        try:
+            return pq.ParquetFile(self.path / S.WINDOWS)
+        except (OSError, pa.ArrowException) as exc:
+            raise ArchiveCorrupt(f"windows.parquet cannot be read ({exc}); the archive is damaged") from None
+
+    @cached_property
+    def _row_groups(self) -> dict[str, list[tuple[int, int, int]]]:
+        """channel -> [(row group, first window, last window)] from Parquet statistics."""
+        md = self._windows_file.metadata
+        names = md.schema.to_arrow_schema().names
+        ci, wi = names.index("channel"), names.index("window")
+        out: dict[str, list[tuple[int, int, int]]] = {}
+        for g in range(md.num_row_groups):
+            rg = md.row_group(g)
+            cs, ws = rg.column(ci).statistics, rg.column(wi).statistics
+            if cs is None or ws is None or not cs.has_min_max or cs.min != cs.max:
+                raise ArchiveCorrupt("windows.parquet row groups lack per-channel statistics; the archive is damaged")
+            out.setdefault(cs.min, []).append((g, int(ws.min), int(ws.max)))
+        return out
+
+    @cached_property
+    def _tables(self) -> dict[tuple[str, int], entropy.FreqTable]:
+        t = pq.read_table(self.path / S.TABLES)
+        return {(c, int(m)): entropy.FreqTable.from_bytes(b)
+                for c, m, b in zip(t["channel"].to_pylist(), t["mode"].to_pylist(), t["table"].to_pylist())}
+
+    @cached_property
+    def decoder(self):
+        """The integer decoder (numpy), or None for an archive packed without a model."""
+        if self.manifest.get("model") is None:
+            return None
+        from ..model.intnet import IntDecoder
+        t = pq.read_table(self.path / S.MODEL)
+        arrays = {n: np.asarray(v, dtype=np.int64).reshape(s)
+                  for n, s, v in zip(t["name"].to_pylist(), t["shape"].to_pylist(), t["values"].to_pylist())}
+        return IntDecoder.from_arrays(arrays)
+
+    def _rows(self, channel: str, w0: int, w1: int, columns: list[str] | None = None) -> pa.Table:
+        """Window rows ``w0 <= window < w1`` of a channel, reading only overlapping row groups."""
+        groups = [g for g, a, b in self._row_groups.get(channel, []) if b >= w0 and a < w1]
+        if not groups:
+            return S.WINDOWS_SCHEMA.empty_table() if columns is None else \
+                pa.schema([S.WINDOWS_SCHEMA.field(c) for c in columns]).empty_table()
+        cols = None if columns is None else sorted(set(columns) | {"channel", "window"},
+                                                   key=S.WINDOWS_SCHEMA.names.index)
+        t = self._windows_file.read_row_groups(groups, columns=cols)
+        mask = pc.and_(pc.and_(pc.equal(t["channel"], channel), pc.greater_equal(t["window"], w0)),
+                       pc.less(t["window"], w1))
+        t = t.filter(mask)
+        return t.take(pc.sort_indices(t["window"]))
+
+    # -- decoding ----------------------------------------------------------------
+    def decode_windows(self, channel: str, w0: int, w1: int, *, check: bool = True):
+        """Decode windows ``w0..w1-1``; returns ``(values, window numbers, bad-crc windows)``.
+
+        With ``check`` a CRC mismatch raises :class:`ArchiveCorrupt`;
+        without, the mismatching windows are returned for reporting.
+        """
+        meta = self.channel(channel)
+        t = self._rows(channel, w0, w1)
+        nrow = t.num_rows
+        windows = t["window"].to_numpy()
+        if nrow != max(0, min(w1, meta.n_windows) - max(w0, 0)) or \
+                (nrow and not np.array_equal(windows, np.arange(windows[0], windows[0] + nrow))):
+            raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} are missing rows; the archive is damaged")
+        lens = t["n"].to_numpy().astype(np.int64)
+        modes = t["mode"].to_numpy()
+        level = t["level"].to_numpy()
+        payload = t["residual"].to_pylist()
+        coders = t["coder"].to_pylist()
+        codes = _codes(t["code"], nrow)
+        crcs = t["crc32"].to_numpy()
+        exc_pos = t["exc_pos"].to_pylist()
+        exc_bits = t["exc_bits"].to_pylist()
+        out = np.empty(int(lens.sum()), dtype=np.dtype(meta.grid.out_dtype))
+        offs = np.concatenate([[0], np.cumsum(lens)])
+        bad = []
+        for L in np.unique(lens):
+            sel = np.flatnonzero(lens == L)
+            res = np.empty((len(sel), int(L)), dtype=np.int64)
+            for k, i in enumerate(sel):
+                if coders[i] != CODER_ID:
+                    raise ArchiveCorrupt(f"channel {channel} window {windows[i]}: unknown coder {coders[i]!r}; "
+                                         "upgrade tsarchive")
+                table = self._table(channel, int(modes[i]))
+                res[k] = entropy.decode(payload[i], int(L), table)
+            ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
+            q = reconstruct(modes[sel], level[sel], res, ae)
+            for k, i in enumerate(sel):
+                x = meta.grid.dequantize(q[k], np.asarray(exc_pos[i], np.int64), np.asarray(exc_bits[i], np.int64))
+                if checksum.window_crc(x) != int(crcs[i]):
+                    if check:
+                        raise ArchiveCorrupt(f"channel {channel} window {windows[i]}: checksum mismatch; "
+                                             "the archive is damaged — restore it from a copy")
+                    bad.append(int(windows[i]))
+                out[offs[i]:offs[i + 1]] = x
+        return out, windows, bad
+
+    def _table(self, channel: str, mode: int) -> entropy.FreqTable:
+        try:
+            return self._tables[(channel, mode)]
+        except KeyError:
+            raise ArchiveCorrupt(f"channel {channel}: no entropy table for predictor {mode_name(mode)}; "
+                                 "the archive is damaged") from None
+
+    def _ae(self, meta: ChannelMeta, codes: np.ndarray, level: np.ndarray, L: int):
+        if meta.scale > FRAC_SAFE_SCALE or codes.shape[1] == 0:
+            return None
+        return ae_prediction(self.decoder, codes, level, meta.scale, L)
+
+    def _span(self, meta: ChannelMeta, start: float | None, end: float | None) -> tuple[int, int]:
+        a = 0 if start is None else int(math.floor(float(start) * meta.rate + 1e-9))
+        b = meta.n_samples if end is None else int(math.ceil(float(end) * meta.rate - 1e-9))
+        a, b = max(0, a), min(meta.n_samples, b)
+        if start is not None and end is not None and float(end) <= float(start):
+            raise BadInput(f"end {end} s is not after start {start} s; give a later end")
+        if a >= meta.n_samples and meta.n_samples:
+            raise BadInput(f"start {start} s is past the end of the recording ({meta.duration:g} s)")
+        return a, max(a, b)
+
+    def read(self, channel: str, start: float | None = None, end: float | None = None) -> np.ndarray:
+        """Samples of ``channel`` between ``start`` and ``end`` seconds (from the recording start)."""
+        meta = self.channel(channel)
+        a, b = self._span(meta, start, end)
+        if b <= a:
+            return np.zeros(0, dtype=np.dtype(meta.grid.out_dtype))
+        W = meta.window
+        w0, w1 = a // W, -(-b // W)
+        x, _, _ = self.decode_windows(channel, w0, w1)
+        return x[a - w0 * W:b - w0 * W]
+
+    def preview(self, channel: str, start: float | None = None, end: float | None = None) -> np.ndarray:
+        """Code-only reconstruction (no residuals), float64: what the codes alone say."""
+        meta = self.channel(channel)
+        a, b = self._span(meta, start, end)
+        W = meta.window
+        w0, w1 = a // W, -(-b // W)
+        t = self._rows(channel, w0, w1, ["n", "level", "code"])
+        lens = t["n"].to_numpy().astype(np.int64)
+        level = t["level"].to_numpy()
+        codes = _codes(t["code"], t.num_rows)
+        parts = []
+        for i in range(t.num_rows):
+            L = int(lens[i])
+            ae = self._ae(meta, codes[i:i + 1], level[i:i + 1], L) if self.decoder is not None else None
+            q = np.full((1, L), level[i], np.int64) if ae is None else ae
+            parts.append(meta.grid.values(q[0]))
+        x = np.concatenate(parts) if parts else np.zeros(0)
+        return x[a - w0 * W:b - w0 * W]
+
+    def windows(self, channel: str) -> WindowTable:
+        meta = self.channel(channel)
+        t = self._rows(channel, 0, meta.n_windows, ["start", "n", "mode", "worst_error", "score", "code"])
+        return WindowTable(index=t["window"].to_numpy().astype(np.int64), start_sample=t["start"].to_numpy(),
+                           n=t["n"].to_numpy(), mode=tuple(mode_name(m) for m in t["mode"].to_numpy()),
+                           worst_error=t["worst_error"].to_numpy(), score=t["score"].to_numpy(),
+                           codes=_codes(t["code"], t.num_rows))
+
+    def outliers(self, channel: str, k: int = 20) -> list[int]:
+        """Window numbers with the highest outlier score (code-only reconstruction error), highest first."""
+        w = self.windows(channel)
+        order = np.lexsort((w.index, -w.score))
+        return [int(w.index[i]) for i in order[:k]]
+
+    def similar(self, channel: str, window_index: int, k: int = 10) -> list[tuple[int, float]]:
+        """The ``k`` windows whose codes are nearest (Euclidean) to window ``window_index``'s."""
+        w = self.windows(channel)
+        if not 0 <= window_index < len(w.index):
+            raise BadInput(f"window {window_index} is out of range 0..{len(w.index) - 1}")
+        c = w.codes.astype(np.float64)
+        d = np.sqrt(((c - c[window_index]) ** 2).sum(axis=1))
+        d[window_index] = np.inf
+        order = np.lexsort((w.index, d))
+        return [(int(w.index[i]), float(d[i])) for i in order[:k] if np.isfinite(d[i])]
+
+    def verify(self, against=None, progress=None):
+        from ..verify import verify_archive
+        return verify_archive(self, against=against, progress=progress)
+
+    def export(self, out_path, channels=None, start=None, end=None) -> Path:
+        from ..export_range import export_range
+        return export_range(self, out_path, channels=channels, start=start, end=end)
+
+
+def _codes(col: pa.ChunkedArray, nrow: int) -> np.ndarray:
+    flat = pc.list_flatten(col).to_numpy(zero_copy_only=False).astype(np.int8) if nrow else np.zeros(0, np.int8)
+    k = len(flat) // nrow if nrow else 0
+    if k * nrow != len(flat):
+        raise ArchiveCorrupt("code column has rows of different lengths; the archive is damaged")
+    return flat.reshape(nrow, k)
+
+
+def open_archive(path: str | Path) -> Archive:
+    """Open an archive directory for reading (no torch, no pickle)."""
+    return Archive(path)

@@ -1,0 +1,64 @@
+"""The archive's on-disk layout (format ``tsarchive`` version 1).
+
+An archive is a directory, by convention ``NAME.tsa``::
+
+    manifest.json     format, tool version, channels, budgets, grids, summary,
+                      SHA-256 of every member file
+    windows.parquet   one row per channel window (codes, residual payloads, checksums)
+    tables.parquet    one row per (channel, predictor): the entropy coder's integer table
+    model.parquet     one row per decoder array (plain integers, no pickle)
+
+Why a directory: every member is a plain Parquet or JSON file that any
+reader opens on its own; ``windows.parquet`` keeps each channel in its own
+row groups ordered by time, so a time range is read through row-group
+statistics without touching the rest; and the whole directory is built
+aside and renamed into place, which is atomic on one file system.
+
+The column list below is the format: changing it is a format change (bump
+``FORMAT_VERSION`` and regenerate the golden archive in ``tests/golden``).
+"""
+
+from __future__ import annotations
+
+import pyarrow as pa
+
+FORMAT_NAME = "tsarchive"
+FORMAT_VERSION = 1
+
+MANIFEST = "manifest.json"
+WINDOWS = "windows.parquet"
+TABLES = "tables.parquet"
+MODEL = "model.parquet"
+MEMBERS = (WINDOWS, TABLES, MODEL)
+
+WINDOWS_SCHEMA = pa.schema([
+    pa.field("channel", pa.string()),        # channel name
+    pa.field("window", pa.int32()),          # window number within the channel, from 0
+    pa.field("start", pa.int64()),           # index of the window's first sample
+    pa.field("n", pa.int32()),               # samples in the window (the last may be short)
+    pa.field("mode", pa.int8()),             # predictor id (tsarchive.predict)
+    pa.field("level", pa.int64()),           # rounded mean of the window on the integer grid
+    pa.field("code", pa.list_(pa.int8())),   # autoencoder code (code_size int8 values; empty without a model)
+    pa.field("coder", pa.string()),          # entropy coder id of the residual payload
+    pa.field("residual", pa.binary()),       # entropy-coded residual integers
+    pa.field("exc_pos", pa.list_(pa.int32())),   # positions (within the window) stored verbatim
+    pa.field("exc_bits", pa.list_(pa.int64())),  # their raw bits (floats) or values (ints)
+    pa.field("crc32", pa.int64()),           # CRC-32 of the decoded samples (little-endian bytes)
+    pa.field("worst_error", pa.float64()),   # max |x̂ - x| in the window, channel units
+    pa.field("score", pa.float64()),         # RMS error of the code-only reconstruction (outlier score)
+])
+
+TABLES_SCHEMA = pa.schema([
+    pa.field("channel", pa.string()),
+    pa.field("mode", pa.int8()),
+    pa.field("coder", pa.string()),
+    pa.field("table", pa.binary()),
+])
+
+MODEL_SCHEMA = pa.schema([
+    pa.field("name", pa.string()),
+    pa.field("shape", pa.list_(pa.int64())),
+    pa.field("values", pa.list_(pa.int64())),
+])
+
+ROW_GROUP_WINDOWS = 256  # windows per row group: the unit of random access

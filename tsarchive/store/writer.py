@@ -1,0 +1,122 @@
+"""Write an archive atomically: build it in a hidden sibling folder, then rename.
+
+Nothing half-written is ever left at the target path: on any error (or
+cancellation) the staging folder is removed, and an existing archive is
+only replaced (with ``force``) once the new one is complete.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import uuid
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from ..checksum import file_sha256
+from ..errors import ArchiveExists, BadInput
+from . import schema as S
+
+_PARQUET_OPTS = dict(compression="zstd", compression_level=9, write_statistics=["channel", "window", "start"],
+                     use_dictionary=["channel", "coder"])
+
+
+def is_archive_dir(path: Path) -> bool:
+    return path.is_dir() and (path / S.MANIFEST).is_file()
+
+
+def check_target(path: Path, force: bool) -> None:
+    """Refuse a target that exists (unless ``force`` and it is an archive)."""
+    if path.exists() or path.is_symlink():
+        if not force:
+            raise ArchiveExists(f"{path} already exists; pass --force to replace it or choose another name")
+        if not is_archive_dir(path):
+            raise ArchiveExists(f"{path} exists and is not a tsarchive archive; refusing to replace it even with --force")
+    if not path.parent.exists():
+        raise BadInput(f"folder {path.parent} does not exist; create it or choose another output path")
+
+
+class ArchiveWriter:
+    """Stage an archive; use as a context manager and call :meth:`commit` last."""
+
+    def __init__(self, path: str | os.PathLike, *, force: bool = False) -> None:
+        self.path = Path(path)
+        check_target(self.path, force)
+        self.force = force
+        self.stage = self.path.parent / f".{self.path.name}.staging-{uuid.uuid4().hex[:8]}"
+        self.stage.mkdir()
+        self._windows: pq.ParquetWriter | None = None
+        self._committed = False
+
+    def __enter__(self) -> "ArchiveWriter":
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if self._windows is not None:
+            self._windows.close()
+            self._windows = None
+        if not self._committed:
+            shutil.rmtree(self.stage, ignore_errors=True)
+
+    # -- members ---------------------------------------------------------------
+    def add_windows(self, rows: pa.Table) -> None:
+        """Append window rows of one channel; each call starts new row groups."""
+        if self._windows is None:
+            self._windows = pq.ParquetWriter(self.stage / S.WINDOWS, S.WINDOWS_SCHEMA, **_PARQUET_OPTS)
+        self._windows.write_table(rows.cast(S.WINDOWS_SCHEMA), row_group_size=S.ROW_GROUP_WINDOWS)
+
+    def write_tables(self, rows: pa.Table) -> None:
+        pq.write_table(rows.cast(S.TABLES_SCHEMA), self.stage / S.TABLES, compression="zstd")
+
+    def write_model(self, arrays: dict[str, np.ndarray]) -> None:
+        names = sorted(arrays)
+        table = pa.table({
+            "name": names,
+            "shape": [list(np.shape(arrays[n])) for n in names],
+            "values": [np.asarray(arrays[n], dtype=np.int64).ravel() for n in names],
+        }, schema=S.MODEL_SCHEMA)
+        pq.write_table(table, self.stage / S.MODEL, compression="zstd", compression_level=19)
+
+    def staged_bytes(self) -> int:
+        if self._windows is not None:
+            self._windows.close()
+            self._windows = None
+        return sum(p.stat().st_size for p in self.stage.iterdir())
+
+    def finalize(self, manifest: dict) -> Path:
+        """Write the manifest (with member checksums) into the staging folder.
+
+        Returns the staging folder, which is a complete archive that can be
+        opened and checked before :meth:`commit` moves it into place.
+        """
+        if self._windows is None and not (self.stage / S.WINDOWS).exists():
+            self.add_windows(S.WINDOWS_SCHEMA.empty_table())
+        self.staged_bytes()  # closes the windows writer
+        members = {}
+        for name in S.MEMBERS:
+            p = self.stage / name
+            members[name] = {"bytes": p.stat().st_size, "sha256": file_sha256(p)}
+        manifest = dict(manifest, members=members)
+        with open(self.stage / S.MANIFEST, "w", encoding="utf-8") as fh:
+            json.dump(manifest, fh, indent=1, sort_keys=False)
+            fh.write("\n")
+        for p in self.stage.iterdir():
+            with open(p, "rb") as fh:
+                os.fsync(fh.fileno())
+        return self.stage
+
+    def commit(self) -> Path:
+        """Move the finalized archive into place (replacing an old one with ``force``)."""
+        old = None
+        if self.path.exists():
+            old = self.path.parent / f".{self.path.name}.replaced-{uuid.uuid4().hex[:8]}"
+            os.rename(self.path, old)
+        os.rename(self.stage, self.path)
+        self._committed = True
+        if old is not None:
+            shutil.rmtree(old, ignore_errors=True)
+        return self.path

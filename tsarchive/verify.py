@@ -1,0 +1,114 @@
+"""Verify an archive: member checksums, per-window CRCs, and (given the
+source) every sample against its channel's budget.
+
+Used by ``tsarchive verify``, by :meth:`Archive.verify`, and by ``pack``
+itself, which checks its staged archive this way before moving it into
+place.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from . import checksum
+from .errors import BadInput
+from .recording import Recording
+from .results import ChannelCheck, Progress, VerifyReport
+from .store import schema as S
+
+CHUNK_SAMPLES = 1 << 20
+MAX_LISTED = 50  # failing windows listed per channel
+
+
+def verify_archive(archive, against=None, progress=None) -> VerifyReport:
+    """Check ``archive`` (a path or an open Archive); compare with ``against`` when given."""
+    from .store.reader import Archive, open_archive
+
+    arc = archive if isinstance(archive, Archive) else open_archive(archive)
+    problems: list[str] = []
+    for name, info in arc.manifest.get("members", {}).items():
+        p = arc.path / name
+        if not p.is_file() or checksum.file_sha256(p) != info.get("sha256"):
+            problems.append(f"member {name}: SHA-256 differs from the manifest (file damaged or replaced)")
+    rec = _source(arc, against)
+    checks = []
+    total = sum(c.n_windows for c in arc.channels)
+    done = 0
+    for j, meta in enumerate(arc.channels):
+        col = None
+        if rec is not None:
+            col = _column(rec, meta, j)
+        per = max(1, CHUNK_SAMPLES // meta.window)
+        bad_crc: list[int] = []
+        bad_windows: list[int] = []
+        n_bad, worst = 0, 0.0
+        for w0 in range(0, meta.n_windows, per):
+            w1 = min(meta.n_windows, w0 + per)
+            xh, windows, bad = arc.decode_windows(meta.name, w0, w1, check=False)
+            bad_crc.extend(bad)
+            if col is not None:
+                a = w0 * meta.window
+                x = np.asarray(col[a:a + len(xh)])
+                bad_mask, err = _out_of_budget(x, xh, meta.eps)
+                worst = max(worst, float(err.max()) if len(err) else 0.0)
+                if bad_mask.any():
+                    n_bad += int(bad_mask.sum())
+                    bad_windows.extend(int(w) for w in np.unique(a // meta.window + np.flatnonzero(bad_mask)
+                                                                 // meta.window))
+            done += w1 - w0
+            if progress is not None:
+                progress(Progress("verify", done, total, f"{meta.name}: window {w1}/{meta.n_windows}"))
+        if bad_crc:
+            problems.append(f"channel {meta.name}: checksum mismatch in window(s) {_list(bad_crc)}")
+        if n_bad:
+            problems.append(f"channel {meta.name}: {n_bad} sample(s) outside ±{meta.eps:g} {meta.unit} "
+                            f"in window(s) {_list(bad_windows)}")
+        checks.append(ChannelCheck(name=meta.name, eps=meta.eps, worst_error=worst if col is not None else None,
+                                   n_bad=n_bad, bad_windows=tuple(bad_windows[:MAX_LISTED]),
+                                   bad_checksums=tuple(bad_crc[:MAX_LISTED])))
+    checksums_ok = not any(c.bad_checksums for c in checks) and not any(p.startswith("member") for p in problems)
+    return VerifyReport(ok=not problems, checksums_ok=checksums_ok, compared=rec is not None,
+                        channels=tuple(checks), problems=tuple(problems))
+
+
+def _list(ws: list[int]) -> str:
+    s = ", ".join(str(w) for w in ws[:10])
+    return s + (f" and {len(ws) - 10} more" if len(ws) > 10 else "")
+
+
+def _source(arc, against) -> Recording | None:
+    if against is None or isinstance(against, Recording):
+        return against
+    from .ingest import read_recording
+    rate = arc.channels[0].rate if arc.channels else None
+    path = Path(against)
+    rec = read_recording(path, rate=rate if path.suffix.lower() == ".npy" else None)
+    if rec.n_samples != (arc.channels[0].n_samples if arc.channels else 0):
+        raise BadInput(f"{path.name} has {rec.n_samples} samples but the archive has "
+                       f"{arc.channels[0].n_samples}; pass the recording the archive was packed from")
+    return rec
+
+
+def _column(rec: Recording, meta, j: int) -> np.ndarray:
+    names = [c.name for c in rec.channels]
+    if meta.name in names:
+        return rec.column(names.index(meta.name))
+    if j < len(names):
+        return rec.column(j)
+    raise BadInput(f"the source has no channel {meta.name!r}; pass the recording the archive was packed from")
+
+
+def _out_of_budget(x: np.ndarray, xh: np.ndarray, eps: float) -> tuple[np.ndarray, np.ndarray]:
+    """Per-sample failure mask and |error| (0 where both are the same non-finite value)."""
+    x64, xh64 = x.astype(np.float64), xh.astype(np.float64)
+    with np.errstate(invalid="ignore", over="ignore"):
+        err = np.abs(xh64 - x64)
+    finite = np.isfinite(x64)
+    same_nonfinite = ~finite & ((np.isnan(x64) & np.isnan(xh64)) | (x64 == xh64))
+    err = np.where(finite, err, np.where(same_nonfinite, 0.0, np.inf))
+    if eps == 0:  # lossless: the very same values (compare in the decoded dtype)
+        same = (x.astype(xh.dtype) == xh) | (np.isnan(x64) & np.isnan(xh64))
+        return ~same | (err > 0), err
+    return ~(err <= eps), err

@@ -1,0 +1,66 @@
+"""Recording <-> fixed windows.
+
+A channel of ``n`` samples is cut into windows of ``W`` samples starting at
+``0, W, 2W, …``; the last window is short when ``W`` does not divide ``n``.
+Each window carries a *level* (its rounded mean on the integer grid) and is
+normalised for the autoencoder by a per-channel integer *scale*.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+DEFAULT_WINDOW = 512
+MIN_WINDOW, MAX_WINDOW = 8, 65536
+
+
+def n_windows(n: int, window: int) -> int:
+    return -(-n // window) if n else 0
+
+
+def window_bounds(n: int, window: int, first: int = 0, last: int | None = None) -> list[tuple[int, int]]:
+    """``(start, stop)`` sample ranges of windows ``first .. last-1``."""
+    last = n_windows(n, window) if last is None else last
+    return [(w * window, min(n, (w + 1) * window)) for w in range(first, last)]
+
+
+def batches(n: int, window: int, first: int, last: int) -> list[tuple[int, int, int]]:
+    """Group windows ``first..last-1`` into batches of equal length.
+
+    Returns ``(w0, w1, length)``: windows ``w0..w1-1`` all have ``length``
+    samples (only the channel's last window can be shorter).
+    """
+    full_last = min(last, n // window)
+    out = []
+    if full_last > first:
+        out.append((first, full_last, window))
+    if last > full_last and full_last * window < n:
+        out.append((full_last, full_last + 1, n - full_last * window))
+    return out
+
+
+def levels(q: np.ndarray) -> np.ndarray:
+    """Rounded (half away from zero) integer mean of each row, exactly in integers."""
+    n = q.shape[1]
+    s = q.sum(axis=1)
+    return np.where(s >= 0, (2 * s + n) // (2 * n), -((-2 * s + n) // (2 * n))).astype(np.int64)
+
+
+def pad_to(q: np.ndarray, window: int) -> np.ndarray:
+    """Pad rows on the right to ``window`` samples by repeating the last sample."""
+    if q.shape[1] >= window:
+        return q
+    return np.concatenate([q, np.repeat(q[:, -1:], window - q.shape[1], axis=1)], axis=1)
+
+
+def normalise(q: np.ndarray, level: np.ndarray, scale: int, window: int) -> np.ndarray:
+    """Autoencoder input: ``(q - level) / scale`` as float32, padded to ``window``."""
+    return (pad_to(q, window) - level[:, None]).astype(np.float32) / np.float32(scale)
+
+
+def channel_scale(q_sample: np.ndarray, level: np.ndarray) -> int:
+    """Integer normalisation scale: RMS deviation from the window level (>= 1)."""
+    if q_sample.size == 0:
+        return 1
+    dev = (q_sample - level[:, None]).astype(np.float64)
+    return max(1, int(round(float(np.sqrt(np.mean(dev * dev))))))
