@@ -35,7 +35,7 @@ def _parser() -> argparse.ArgumentParser:
     pk.add_argument("-o", "--output", required=True, metavar="ARCHIVE", help="archive folder to write (e.g. run.tsa)")
     pk.add_argument("--budget", default=DEFAULT_SPEC, metavar="SPEC",
                     help=f"error budget per channel: 0.02 (absolute, channel units), 0.1%% (of the channel's "
-                         f"range), lossless, or per channel temp=0.05,accel=0.1%% (default: {DEFAULT_SPEC})")
+                         f"range), lossless, or per channel temp=0.05,accel=0.1%% (default: {DEFAULT_SPEC.replace('%', '%%')})")
     pk.add_argument("--rate", type=float, metavar="HZ", help="sample rate (required for .npy)")
     pk.add_argument("--window", type=int, metavar="N", help="samples per window (default 512)")
     pk.add_argument("--code-size", type=int, metavar="K", help="autoencoder code length per window (default 8; 0 = none)")
@@ -58,6 +58,12 @@ def _parser() -> argparse.ArgumentParser:
     rp.add_argument("archive")
     rp.add_argument("--json", action="store_true", help="print the report as JSON")
 
+    dm = sub.add_parser("demo", help="pack and verify the bundled sample streams, then open the app on them")
+    dm.add_argument("--out", default="demo_archives", metavar="DIR", help="folder for the archives (default demo_archives)")
+    dm.add_argument("--samples", metavar="DIR", help="folder of recordings (default: sample_streams/)")
+    dm.add_argument("--budget", default=DEFAULT_SPEC, metavar="SPEC", help=f"budget (default {DEFAULT_SPEC.replace('%', '%%')})")
+    dm.add_argument("--no-app", action="store_true", help="do not open the app afterwards")
+
     br = sub.add_parser("browse", help="open the terminal app on an archive or a folder")
     br.add_argument("path", nargs="?", default=".")
     return p
@@ -69,7 +75,7 @@ def main(argv: list[str] | None = None) -> int:
         args = _parser().parse_args(argv)
         if args.command is None:
             return _app(Path("."))
-        return {"pack": _pack, "unpack": _unpack, "verify": _verify, "report": _report,
+        return {"pack": _pack, "unpack": _unpack, "verify": _verify, "report": _report, "demo": _demo,
                 "browse": lambda a: _app(Path(a.path))}[args.command](args)
     except TsArchiveError as exc:
         print(f"tsarchive: error: {exc}", file=sys.stderr)
@@ -109,7 +115,7 @@ def _unpack(args) -> int:
 
 
 def _verify(args) -> int:
-    from .verify import verify_archive
+    from .verifier import verify_archive
     rep = verify_archive(args.archive, against=args.against)
     if args.json:
         print(json.dumps(rep.to_dict(), indent=1))
@@ -125,6 +131,17 @@ def _report(args) -> int:
     arc = open_archive(args.archive)
     print(json.dumps(archive_dict(arc), indent=1) if args.json else archive_table(arc))
     return 0
+
+
+def _demo(args) -> int:
+    from .demo import run_demo
+    print(CAUTION)
+    results = run_demo(args.out, args.samples, args.budget)
+    ok = all(rep.ok for _, rep in results)
+    print(f"\n{len(results)} archive(s) in {args.out}/: " + ("all verified against their sources" if ok else "SOME FAILED"))
+    if ok and not args.no_app and sys.stdout.isatty() and sys.stdin.isatty():
+        return _app(Path(args.out))
+    return 0 if ok else 1
 
 
 def _app(path: Path) -> int:

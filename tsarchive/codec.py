@@ -18,7 +18,8 @@ from __future__ import annotations
 import numpy as np
 
 from . import entropy
-from .predict import PREDICTORS, get_predictor
+from .predict import PREDICTORS, Context, get_predictor
+from .predict import lpc as lpc_mod
 
 CODER_ID = "rans"        # entropy coder id stored with every residual payload
 FRAC_SAFE_SCALE = 2**36  # largest channel scale the autoencoder path accepts
@@ -32,8 +33,8 @@ def ae_prediction(decoder, codes: np.ndarray, level: np.ndarray, scale: int, n: 
     return level[:, None] + ((y * np.int64(scale)) >> np.int64(decoder.frac_bits))
 
 
-def candidate_modes(has_ae: bool) -> list[int]:
-    return [m for m, p in PREDICTORS.items() if has_ae or not p.uses_ae]
+def candidate_modes(ctx: Context) -> list[int]:
+    return [m for m, p in PREDICTORS.items() if p.available(ctx)]
 
 
 def proxy_bits(r: np.ndarray) -> np.ndarray:
@@ -58,22 +59,25 @@ def sample_costs(r: np.ndarray, table) -> np.ndarray:
     return cost.reshape(r.shape)
 
 
-def choose_modes(q: np.ndarray, level: np.ndarray, ae: np.ndarray | None,
-                 tables: dict[int, object] | None) -> tuple[np.ndarray, np.ndarray]:
+def choose_modes(q: np.ndarray, ctx: Context, tables: dict[int, object] | None) -> tuple[np.ndarray, np.ndarray]:
     """Pick the cheapest predictor per window.
 
     Returns ``(modes int8[N], residuals int64[N, n])``.  With ``tables``
     given, only predictors that have a table are considered.
     """
-    modes = candidate_modes(ae is not None)
+    modes = candidate_modes(ctx)
     if tables is not None:
         modes = [m for m in modes if m in tables] or [0]
     best_bits = None
     best_mode = np.zeros(q.shape[0], dtype=np.int8)
     best_res = None
+    lpc_ok = lpc_mod.usable(q, ctx.level) if any(PREDICTORS[m].uses_lpc for m in modes) else None
     for m in modes:
-        r = get_predictor(m).residuals(q, level, ae)
+        p = get_predictor(m)
+        r = p.residuals(q, ctx)
         bits = window_bits(r, None if tables is None else tables.get(m))
+        if p.uses_lpc:
+            bits = np.where(lpc_ok, bits, np.inf)
         if best_bits is None:
             best_bits, best_res = bits, r.copy()
             best_mode[:] = m
@@ -85,12 +89,10 @@ def choose_modes(q: np.ndarray, level: np.ndarray, ae: np.ndarray | None,
     return best_mode, best_res
 
 
-def reconstruct(modes: np.ndarray, level: np.ndarray, residuals: np.ndarray,
-                ae: np.ndarray | None) -> np.ndarray:
+def reconstruct(modes: np.ndarray, ctx: Context, residuals: np.ndarray) -> np.ndarray:
     """Inverse of :func:`choose_modes` given the chosen modes."""
     q = np.empty_like(residuals)
     for m in np.unique(modes):
         sel = modes == m
-        p = get_predictor(int(m))
-        q[sel] = p.reconstruct(residuals[sel], level[sel], None if ae is None else ae[sel])
+        q[sel] = get_predictor(int(m)).reconstruct(residuals[sel], ctx.take(sel))
     return q

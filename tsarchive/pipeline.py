@@ -26,16 +26,18 @@ import pyarrow as pa
 
 from . import __version__, checksum, entropy
 from .budget import parse_budget_spec
-from .codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, choose_modes
+from .codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, choose_modes, proxy_bits
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .ingest import read_recording
-from .predict import PREDICTORS
+from .predict import PREDICTORS, Context
+from .predict import lpc as lpc_mod
 from .quantize import Grid, make_grid, quantize
 from .recording import Recording
 from .results import ChannelSummary, PackResult, Progress, ProgressFn
 from .store import schema as S
 from .store.writer import ArchiveWriter, check_target
-from .windows import DEFAULT_WINDOW, MAX_WINDOW, MIN_WINDOW, channel_scale, levels, n_windows, normalise
+from .windows import (DEFAULT_WINDOW, MAX_WINDOW, MIN_WINDOW, batches, channel_scale, levels, n_windows,
+                      normalise)
 
 DEFAULT_CODE_SIZE = 8
 MAX_CODE_SIZE = 64
@@ -78,25 +80,27 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
         summaries, table_rows = [], []
         total_windows = sum(n_windows(rec.n_samples, W) for _ in names)
         done = [0]
+        lpcs = []
         for j, ch in enumerate(rec.channels):
-            tables = _build_tables(rec.column(j), grids[j], W, model, scales[j])
+            lpc, tables = _plan_channel(rec.column(j), grids[j], W, model, scales[j])
+            lpcs.append(lpc)
             for mode, table in sorted(tables.items()):
                 table_rows.append({"channel": ch.name, "mode": mode, "coder": CODER_ID,
                                    "table": table.to_bytes()})
-            stats = _encode_channel(writer, rec.column(j), ch.name, grids[j], W, model, scales[j], tables,
+            stats = _encode_channel(writer, rec.column(j), ch.name, grids[j], W, model, scales[j], lpc, tables,
                                     emit, done, total_windows)
             summaries.append(stats)
         emit("write", 0, 1, "writing tables and model")
         writer.write_tables(pa.Table.from_pylist(table_rows, schema=S.TABLES_SCHEMA))
         writer.write_model({} if decoder is None else decoder.to_arrays())
         archive_bytes = writer.staged_bytes()
-        manifest = _manifest(rec, spec, grids, scales, W, K, decoder, summaries, archive_bytes)
+        manifest = _manifest(rec, spec, grids, scales, lpcs, W, K, decoder, summaries, archive_bytes)
         stage = writer.finalize(manifest)
         emit("write", 1, 1, "staged")
 
         # decode our own output through the reader before it may replace anything
         emit("check", 0, 1, "decoding the archive to check every sample")
-        from .verify import verify_archive
+        from .verifier import verify_archive
         report = verify_archive(stage, against=rec, progress=progress)
         if not report.ok:
             raise BoundViolation("self-check failed, nothing written: " + "; ".join(report.problems[:3]))
@@ -188,25 +192,31 @@ def _predict_batch(x: np.ndarray, grid: Grid, W: int, model, scale: int):
     return q, pos, bits, lv, codes, ae
 
 
-def _build_tables(col: np.ndarray, grid: Grid, W: int, model, scale: int) -> dict:
-    """One entropy table per predictor, from a bounded sample of windows."""
+def _plan_channel(col: np.ndarray, grid: Grid, W: int, model, scale: int):
+    """LPC coefficients and one entropy table per predictor, from a bounded sample of windows."""
     n = len(col)
     idx = _sample_windows(n, W, max(1, TABLE_SAMPLES // W))
-    chosen: dict[int, list[np.ndarray]] = {}
+    batches_ = []
     for part in np.array_split(idx, max(1, len(idx) // 512)) if len(idx) else []:
         q, _, _, lv, _, ae = _predict_batch(_gather(col, part * W, W), grid, W, model, scale)
-        modes, res = choose_modes(q, lv, ae, None)
-        for m in np.unique(modes):
-            chosen.setdefault(int(m), []).append(res[modes == m].ravel())
+        batches_.append((q, Context(lv, ae)))
     tail = n - (n // W) * W
     if tail:  # the short last window must be codable too
         q, _, _, lv, _, ae = _predict_batch(np.asarray(col[n - tail:])[None, :], grid, W, model, scale)
-        modes, res = choose_modes(q, lv, ae, None)
-        chosen.setdefault(int(modes[0]), []).append(res.ravel())
-    return {m: entropy.build_table(np.concatenate(v)) for m, v in chosen.items()}
+        batches_.append((q, Context(lv, ae)))
+    full = [(q, c) for q, c in batches_ if q.shape[1] == W]
+    lpc = lpc_mod.fit(np.concatenate([q for q, _ in full]), np.concatenate([c.level for _, c in full]),
+                      proxy_bits) if full else lpc_mod.LpcCoefs(())
+    chosen: dict[int, list[np.ndarray]] = {}
+    for q, c in batches_:
+        ctx = Context(c.level, c.ae, lpc)
+        modes, res = choose_modes(q, ctx, None)
+        for m in np.unique(modes):
+            chosen.setdefault(int(m), []).append(res[modes == m].ravel())
+    return lpc, {m: entropy.build_table(np.concatenate(v)) for m, v in chosen.items()}
 
 
-def _encode_channel(writer, col, name, grid: Grid, W, model, scale, tables, emit, done, total) -> dict:
+def _encode_channel(writer, col, name, grid: Grid, W, model, scale, lpc, tables, emit, done, total) -> dict:
     n = len(col)
     nw = n_windows(n, W)
     worst, bytes_est, n_exc = 0.0, 0, 0
@@ -215,13 +225,9 @@ def _encode_channel(writer, col, name, grid: Grid, W, model, scale, tables, emit
     for w0 in range(0, nw, per_chunk):
         rows = []
         w1 = min(nw, w0 + per_chunk)
-        full_end = min(w1, n // W)
-        parts = [(w0, full_end, W)] if full_end > w0 else []
-        if w1 > full_end:
-            parts.append((full_end, w1, n - full_end * W))
-        for a, b, L in parts:
+        for a, b, L in batches(n, W, w0, w1):
             x = np.asarray(col[a * W:a * W + (b - a) * L]).reshape(b - a, L)
-            rows.append(_encode_batch(x, a, name, grid, W, model, scale, tables))
+            rows.append(_encode_batch(x, a, name, grid, W, model, scale, lpc, tables))
         table = pa.concat_tables(rows)
         for m, c in zip(*np.unique(table.column("mode").to_numpy(), return_counts=True)):
             mode_counts[PREDICTORS[int(m)].name] += int(c)
@@ -236,10 +242,10 @@ def _encode_channel(writer, col, name, grid: Grid, W, model, scale, tables, emit
     return {"worst_error": worst, "bytes_est": bytes_est + 12 * n_exc, "n_exceptions": n_exc, "modes": mode_counts}
 
 
-def _encode_batch(x, first_window, name, grid: Grid, W, model, scale, tables) -> pa.Table:
+def _encode_batch(x, first_window, name, grid: Grid, W, model, scale, lpc, tables) -> pa.Table:
     nb, L = x.shape
     q, pos, bits, lv, codes, ae = _predict_batch(x, grid, W, model, scale)
-    modes, res = choose_modes(q, lv, ae, tables)
+    modes, res = choose_modes(q, Context(lv, ae, lpc), tables)
     payloads = [entropy.encode(res[i], tables[int(modes[i])]) for i in range(nb)]
     xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
     x64, xh64 = x.astype(np.float64), xh.astype(np.float64)
@@ -268,7 +274,7 @@ def _encode_batch(x, first_window, name, grid: Grid, W, model, scale, tables) ->
 
 
 # -- manifest ------------------------------------------------------------------
-def _manifest(rec: Recording, spec, grids, scales, W, K, decoder, summaries, archive_bytes) -> dict:
+def _manifest(rec: Recording, spec, grids, scales, lpcs, W, K, decoder, summaries, archive_bytes) -> dict:
     src = rec.source
     src_bytes = src.stat().st_size if src is not None and src.is_file() else int(rec.data.nbytes)
     raw_bytes = sum(rec.n_samples * np.dtype(c.dtype).itemsize for c in rec.channels)
@@ -282,6 +288,7 @@ def _manifest(rec: Recording, spec, grids, scales, W, K, decoder, summaries, arc
         channels.append({
             **ch.to_dict(), "rate": rec.rate, "start": _iso(rec.start), "n_samples": rec.n_samples,
             "budget": budget.spec, "eps": g.eps, "grid": g.to_dict(), "scale": int(scales[j]),
+            "lpc": lpcs[j].to_dict(),
             "summary": {"worst_error": s["worst_error"], "used_pct": _used(s["worst_error"], g.eps),
                         "ratio": raw / share if share else math.inf,
                         "bits_per_sample": 8 * share / max(rec.n_samples, 1),

@@ -1,10 +1,11 @@
 """Per-window predictors on the integer grid, and their registry.
 
-Contract (every predictor): ``residuals(q, level, ae) -> r`` and
-``reconstruct(r, level, ae) -> q`` are exact inverses on int64 arrays of
-shape ``(n_windows, n)``; ``level`` is each window's rounded mean (stored per
-window) and ``ae`` the autoencoder's integer prediction (``None`` when the
-predictor does not use it).  Each predictor has a stable integer ``id``
+Contract (every predictor): ``residuals(q, ctx) -> r`` and
+``reconstruct(r, ctx) -> q`` are exact inverses on int64 arrays of shape
+``(n_windows, n)``.  ``ctx`` (:class:`Context`) carries each window's
+``level`` (its rounded mean, stored per window), the autoencoder's integer
+prediction ``ae`` (``None`` without a model) and the channel's integer LPC
+coefficients.  Each predictor has a stable integer ``id``
 stored in the archive's ``mode`` column and a short ``name`` shown to users.
 Only integer arithmetic is used, so decoding is bit-exact everywhere.
 
@@ -12,6 +13,7 @@ Only integer arithmetic is used, so decoding is bit-exact everywhere.
 * ``prev2``  linear extrapolation from the two previous samples (order 2)
 * ``ae``     the autoencoder's reconstruction from the window's code
 * ``ae+prev`` previous-sample prediction of the autoencoder's error
+* ``lpc``    linear prediction with the channel's integer coefficients (:mod:`.lpc`)
 """
 
 from __future__ import annotations
@@ -22,49 +24,70 @@ from typing import Callable
 import numpy as np
 
 from ..errors import UnknownCodec
+from . import lpc as _lpc
+
+
+@dataclass(frozen=True)
+class Context:
+    """What a predictor may use besides the window's own integers."""
+
+    level: np.ndarray
+    ae: np.ndarray | None = None
+    lpc: _lpc.LpcCoefs | None = None
+
+    def take(self, sel) -> "Context":
+        return Context(self.level[sel], None if self.ae is None else self.ae[sel], self.lpc)
 
 
 def _first(q: np.ndarray, level: np.ndarray) -> np.ndarray:
     return q[:, :1] - level[:, None]
 
 
-def _prev_res(q, level, ae):
-    return np.concatenate([_first(q, level), np.diff(q, axis=1)], axis=1)
+def _prev_res(q, c):
+    return np.concatenate([_first(q, c.level), np.diff(q, axis=1)], axis=1)
 
 
-def _prev_rec(r, level, ae):
-    return level[:, None] + np.cumsum(r, axis=1)
+def _prev_rec(r, c):
+    return c.level[:, None] + np.cumsum(r, axis=1)
 
 
-def _prev2_res(q, level, ae):
+def _prev2_res(q, c):
     d = np.diff(q, axis=1)
-    return np.concatenate([_first(q, level), d[:, :1], np.diff(d, axis=1)], axis=1)
+    return np.concatenate([_first(q, c.level), d[:, :1], np.diff(d, axis=1)], axis=1)
 
 
-def _prev2_rec(r, level, ae):
+def _prev2_rec(r, c):
     q = np.empty_like(r)
-    q[:, :1] = level[:, None] + r[:, :1]
+    q[:, :1] = c.level[:, None] + r[:, :1]
     if r.shape[1] > 1:
         d = np.cumsum(r[:, 1:], axis=1)
         q[:, 1:] = q[:, :1] + np.cumsum(d, axis=1)
     return q
 
 
-def _ae_res(q, level, ae):
-    return q - ae
+def _ae_res(q, c):
+    return q - c.ae
 
 
-def _ae_rec(r, level, ae):
-    return ae + r
+def _ae_rec(r, c):
+    return c.ae + r
 
 
-def _aeprev_res(q, level, ae):
-    e = q - ae
+def _aeprev_res(q, c):
+    e = q - c.ae
     return np.concatenate([e[:, :1], np.diff(e, axis=1)], axis=1)
 
 
-def _aeprev_rec(r, level, ae):
-    return ae + np.cumsum(r, axis=1)
+def _aeprev_rec(r, c):
+    return c.ae + np.cumsum(r, axis=1)
+
+
+def _lpc_res(q, c):
+    return _lpc.residuals(q, c.level, c.lpc)
+
+
+def _lpc_rec(r, c):
+    return _lpc.reconstruct(r, c.level, c.lpc)
 
 
 @dataclass(frozen=True)
@@ -72,8 +95,12 @@ class Predictor:
     id: int
     name: str
     uses_ae: bool
-    residuals: Callable[[np.ndarray, np.ndarray, np.ndarray | None], np.ndarray]
-    reconstruct: Callable[[np.ndarray, np.ndarray, np.ndarray | None], np.ndarray]
+    residuals: Callable[[np.ndarray, Context], np.ndarray]
+    reconstruct: Callable[[np.ndarray, Context], np.ndarray]
+    uses_lpc: bool = False
+
+    def available(self, ctx: Context) -> bool:
+        return (ctx.ae is not None or not self.uses_ae) and (not self.uses_lpc or bool(ctx.lpc and ctx.lpc.order))
 
 
 PREDICTORS: dict[int, Predictor] = {p.id: p for p in (
@@ -81,6 +108,7 @@ PREDICTORS: dict[int, Predictor] = {p.id: p for p in (
     Predictor(1, "prev2", False, _prev2_res, _prev2_rec),
     Predictor(2, "ae", True, _ae_res, _ae_rec),
     Predictor(3, "ae+prev", True, _aeprev_res, _aeprev_rec),
+    Predictor(4, "lpc", False, _lpc_res, _lpc_rec, uses_lpc=True),
 )}
 BY_NAME = {p.name: p for p in PREDICTORS.values()}
 

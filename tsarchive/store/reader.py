@@ -23,7 +23,8 @@ import pyarrow.parquet as pq
 from .. import checksum, entropy
 from ..codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, reconstruct
 from ..errors import ArchiveCorrupt, ArchiveNotFound, BadInput, FormatVersionError
-from ..predict import mode_name
+from ..predict import Context, mode_name
+from ..predict.lpc import LpcCoefs
 from ..quantize import Grid
 from . import schema as S
 
@@ -44,6 +45,7 @@ class ChannelMeta:
     window: int
     grid: Grid
     scale: int
+    lpc: LpcCoefs
     worst_error: float
     used_pct: float
     ratio: float
@@ -82,6 +84,7 @@ def _channel_meta(d: dict, window: int) -> ChannelMeta:
             start=None if not start else datetime.fromisoformat(start.replace("Z", "+00:00")),
             dtype=d["dtype"], n_samples=int(d["n_samples"]), budget=d["budget"], eps=float(d["eps"]),
             decimals=d.get("decimals"), window=window, grid=Grid.from_dict(d["grid"]), scale=int(d["scale"]),
+            lpc=LpcCoefs.from_dict(d.get("lpc")),
             worst_error=float(s["worst_error"]), used_pct=float(s["used_pct"]), ratio=float(s["ratio"]),
             bits_per_sample=float(s["bits_per_sample"]), n_exceptions=int(s.get("n_exceptions", 0)),
             modes=tuple(sorted(s.get("modes", {}).items())))
@@ -228,7 +231,7 @@ class Archive:
                 table = self._table(channel, int(modes[i]))
                 res[k] = entropy.decode(payload[i], int(L), table)
             ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
-            q = reconstruct(modes[sel], level[sel], res, ae)
+            q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc), res)
             for k, i in enumerate(sel):
                 x = meta.grid.dequantize(q[k], np.asarray(exc_pos[i], np.int64), np.asarray(exc_bits[i], np.int64))
                 if checksum.window_crc(x) != int(crcs[i]):
@@ -317,7 +320,7 @@ class Archive:
         return [(int(w.index[i]), float(d[i])) for i in order[:k] if np.isfinite(d[i])]
 
     def verify(self, against=None, progress=None):
-        from ..verify import verify_archive
+        from ..verifier import verify_archive
         return verify_archive(self, against=against, progress=progress)
 
     def export(self, out_path, channels=None, start=None, end=None) -> Path:

@@ -1,0 +1,101 @@
+"""The error bound is made in prequantization; these tests attack it.
+
+Reference for the bound: a uniform quantizer with step Δ has maximum error
+Δ/2 (textbook, e.g. Gersho & Gray, *Vector Quantization and Signal
+Compression*, ch. 5 — from memory); with Δ = 2ε the bound is ε.  The code
+must keep it *including float rounding*, which the textbook ignores.
+"""
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+from hypothesis.extra import numpy as hnp
+
+from tsarchive.quantize import Grid, make_grid, quantize, values_to_bits
+
+floats64 = st.floats(allow_nan=True, allow_infinity=True, width=64)
+floats32 = st.floats(allow_nan=True, allow_infinity=True, width=32)
+eps_st = st.floats(min_value=1e-12, max_value=1e6, allow_nan=False, allow_infinity=False)
+
+
+def _check_bound(x: np.ndarray, grid: Grid) -> None:
+    q, pos, bits = quantize(x, grid)
+    xh = grid.dequantize(q, pos, bits)
+    assert xh.dtype == x.dtype
+    x64, xh64 = x.astype(np.float64), xh.astype(np.float64)
+    fin = np.isfinite(x64)
+    # in float64 and in the output dtype (xh is already in it)
+    assert np.all(np.abs(xh64[fin] - x64[fin]) <= grid.eps)
+    # NaN and ±Inf come back exactly, at their positions
+    assert np.array_equal(values_to_bits(xh[~fin]), values_to_bits(x[~fin]))
+
+
+@given(hnp.arrays(np.float64, st.integers(1, 300), elements=floats64), eps_st)
+def test_bound_float64(x, eps):
+    _check_bound(x, make_grid(eps, None, x.dtype, anchor=float(np.nan_to_num(x[0], posinf=0, neginf=0))))
+
+
+@given(hnp.arrays(np.float32, st.integers(1, 300), elements=floats32), eps_st)
+def test_bound_float32(x, eps):
+    _check_bound(x, make_grid(eps, None, x.dtype, anchor=0.0))
+
+
+@given(hnp.arrays(np.float64, st.integers(1, 200), elements=st.floats(-1e300, 1e300)),
+       st.floats(1e-300, 1e-200))
+def test_huge_values_with_tiny_budget_become_exact_exceptions(x, eps):
+    _check_bound(x, make_grid(eps, None, x.dtype))
+
+
+@given(hnp.arrays(np.int16, st.integers(1, 200)), st.floats(0.1, 1000))
+def test_integer_channels_lossy(x, eps):
+    _check_bound(x, make_grid(eps, 0, x.dtype))
+
+
+@given(hnp.arrays(np.int64, st.integers(1, 200), elements=st.integers(-2**62, 2**62)))
+def test_integer_channels_lossless(x):
+    g = make_grid(0.0, 0, x.dtype)
+    q, pos, bits = quantize(x, g)
+    assert np.array_equal(g.dequantize(q, pos, bits), x)
+
+
+@given(st.lists(st.integers(-10**7, 10**7), min_size=1, max_size=200), st.integers(0, 6))
+def test_decimal_grid_lossless_is_bit_exact(ints, d):
+    # Values as a logger writes them: the correctly rounded double of a decimal string
+    # (Python's float() of "%.{d}f" text; IEEE-754 round-to-nearest).
+    x = np.array([float(f"{i / 10**d:.{d}f}") for i in ints])
+    g = make_grid(0.0, d, x.dtype)
+    q, pos, bits = quantize(x, g)
+    assert len(pos) == 0 or np.all(x[pos] == 0)  # only -0.0/+0.0 sign issues may need exceptions
+    assert np.array_equal(values_to_bits(g.dequantize(q, pos, bits)), values_to_bits(x))
+
+
+def test_constant_channel_without_grid_is_exact():
+    x = np.full(1000, np.pi)
+    g = make_grid(0.0, None, x.dtype, anchor=np.pi)
+    q, pos, bits = quantize(x, g)
+    assert len(pos) == 0 and np.all(q == 0)
+    assert np.array_equal(g.dequantize(q, pos, bits), x)
+
+
+def test_exceptions_keep_integer_sequence_smooth():
+    x = np.array([1.0, 2.0, np.nan, np.inf, 5.0])
+    g = make_grid(0.5, None, x.dtype)
+    q, pos, _ = quantize(x, g)
+    assert list(pos) == [2, 3]
+    assert q[2] == q[1] and q[3] == q[1]
+
+
+def test_grid_dict_round_trip():
+    g = make_grid(0.01, None, np.dtype("float32"), anchor=3.0)
+    assert Grid.from_dict(g.to_dict()) == g
+
+
+@pytest.mark.parametrize("eps", [1e-3, 0.1])
+def test_error_is_actually_used(eps):
+    # the quantizer is not secretly lossless: errors spread over (-eps, eps]
+    x = np.random.default_rng(1).uniform(-1, 1, 10000)
+    g = make_grid(eps, None, x.dtype)
+    q, pos, bits = quantize(x, g)
+    err = g.dequantize(q, pos, bits) - x
+    assert np.abs(err).max() > 0.9 * eps

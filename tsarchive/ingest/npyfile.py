@@ -1,0 +1,55 @@
+"""Read a NumPy ``.npy`` array as a :class:`~tsarchive.recording.Recording`.
+
+The file is opened as a read-only memory map (``mmap_mode="r"``) and never
+with ``allow_pickle``, so a multi-gigabyte array streams from disk and an
+object array is refused.  A ``.npy`` file carries no sample rate, so the
+caller must give one.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import BadInput
+from ..recording import ChannelInfo, Recording
+from .grid import detect_decimals
+from .tabular import check_rate
+
+
+def read_npy(path: Path, rate: float | None) -> Recording:
+    """Memory-map a 1-D or 2-D (samples x channels) numeric array.
+
+    Channels are named ``ch0``, ``ch1``, ... with no unit.  A 1-D array
+    becomes an ``(n, 1)`` view; ``Recording.shape`` keeps the original shape.
+    Raises :class:`BadInput` without ``rate``, for a non-numeric dtype
+    (object, complex, bool, structured), a 0-d or 3-D+ array, or no samples.
+    """
+    path = Path(path)
+    if rate is None:
+        raise BadInput(f"{path.name}: a .npy file has no time axis; it needs --rate HZ")
+    rate = check_rate(rate)
+    try:
+        arr = np.load(path, mmap_mode="r", allow_pickle=False)
+    except ValueError as exc:  # object arrays need pickle; bad headers
+        raise BadInput(f"{path.name}: not a plain numeric .npy array ({exc}); save a float or int array with numpy.save") from exc
+    except (OSError, EOFError) as exc:
+        raise BadInput(f"{path.name}: cannot read as .npy ({exc}); check the file is a complete NumPy array") from exc
+    if not isinstance(arr, np.ndarray):
+        raise BadInput(f"{path.name}: holds no single array; save one array with numpy.save")
+    kind = arr.dtype.kind
+    if kind not in "fiu" or arr.dtype.fields is not None:
+        raise BadInput(f"{path.name}: dtype {arr.dtype} is not supported; use a float or integer array")
+    if arr.ndim not in (1, 2):
+        raise BadInput(f"{path.name}: array has {arr.ndim} dimensions; use 1-D or 2-D (samples x channels)")
+    shape = tuple(int(s) for s in arr.shape)
+    if arr.size == 0:
+        raise BadInput(f"{path.name}: array of shape {shape} has no samples; give a non-empty recording")
+    data = arr.reshape(shape[0], 1) if arr.ndim == 1 else arr
+    dtype_name = arr.dtype.name
+    channels = tuple(
+        ChannelInfo(name=f"ch{j}", unit="", dtype=dtype_name, decimals=detect_decimals(data[:, j], arr.dtype))
+        for j in range(data.shape[1])
+    )
+    return Recording(data=data, rate=float(rate), channels=channels, start=None, source=path, shape=shape)
