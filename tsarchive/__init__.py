@@ -32,7 +32,7 @@ def open(path) -> Archive:  # noqa: A001 - the natural name for the API
 
 def verify(archive, against=None, progress=None) -> VerifyReport:
     """Verify an archive alone (checksums) or against its source recording."""
-    from .verify import verify_archive
+    from .verifier import verify_archive
     return verify_archive(archive, against=against, progress=progress)
 
 

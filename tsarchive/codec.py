@@ -21,7 +21,7 @@ from . import entropy
 from .predict import PREDICTORS, Context, get_predictor
 from .predict import lpc as lpc_mod
 
-CODER_ID = "rans"        # entropy coder id stored with every residual payload
+CODER_ID = "range"       # entropy coder id stored with every residual payload (tsarchive.entropy.CODERS)
 FRAC_SAFE_SCALE = 2**36  # largest channel scale the autoencoder path accepts
 Y_CLIP = 2**24           # bound on the decoder's fixed-point output before scaling
 

@@ -227,11 +227,12 @@ def _encode_channel(writer, col, name, grid: Grid, W, model, scale, lpc, tables,
         w1 = min(nw, w0 + per_chunk)
         for a, b, L in batches(n, W, w0, w1):
             x = np.asarray(col[a * W:a * W + (b - a) * L]).reshape(b - a, L)
-            rows.append(_encode_batch(x, a, name, grid, W, model, scale, lpc, tables))
+            t, w64 = _encode_batch(x, a, name, grid, W, model, scale, lpc, tables)
+            rows.append(t)
+            worst = max(worst, w64)
         table = pa.concat_tables(rows)
         for m, c in zip(*np.unique(table.column("mode").to_numpy(), return_counts=True)):
             mode_counts[PREDICTORS[int(m)].name] += int(c)
-        worst = max(worst, float(pa.compute.max(table.column("worst_error")).as_py() or 0.0))
         bytes_est += int(pa.compute.sum(pa.compute.binary_length(table.column("residual"))).as_py() or 0)
         bytes_est += table.num_rows * (8 + (model.code_size if model is not None else 0))
         exc = pa.compute.list_value_length(table.column("exc_pos")).to_numpy(zero_copy_only=False)
@@ -242,11 +243,16 @@ def _encode_channel(writer, col, name, grid: Grid, W, model, scale, lpc, tables,
     return {"worst_error": worst, "bytes_est": bytes_est + 12 * n_exc, "n_exceptions": n_exc, "modes": mode_counts}
 
 
-def _encode_batch(x, first_window, name, grid: Grid, W, model, scale, lpc, tables) -> pa.Table:
+def _encode_batch(x, first_window, name, grid: Grid, W, model, scale, lpc, tables) -> tuple[pa.Table, float]:
+    """Rows for a batch of equal-length windows, and their worst error in float64."""
     nb, L = x.shape
     q, pos, bits, lv, codes, ae = _predict_batch(x, grid, W, model, scale)
     modes, res = choose_modes(q, Context(lv, ae, lpc), tables)
-    payloads = [entropy.encode(res[i], tables[int(modes[i])]) for i in range(nb)]
+    payloads: list[bytes] = [b""] * nb
+    for m in np.unique(modes):
+        sel = np.flatnonzero(modes == m)
+        for i, p in zip(sel, entropy.encode_many(res[sel], tables[int(m)])):
+            payloads[i] = p
     xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
     x64, xh64 = x.astype(np.float64), xh.astype(np.float64)
     with np.errstate(invalid="ignore"):
@@ -255,6 +261,7 @@ def _encode_batch(x, first_window, name, grid: Grid, W, model, scale, lpc, table
         dev = np.where(np.isfinite(x64), x64 - preview.astype(np.float64), np.nan)
         score = np.sqrt(np.nanmean(dev * dev, axis=1)) if L else np.zeros(nb)
     wpos = pos // L
+    worst = err.max(axis=1) if L else np.zeros(nb)
     return pa.table({
         "channel": [name] * nb,
         "window": np.arange(first_window, first_window + nb, dtype=np.int32),
@@ -268,9 +275,17 @@ def _encode_batch(x, first_window, name, grid: Grid, W, model, scale, lpc, table
         "exc_pos": [(pos[wpos == i] % L).astype(np.int32) for i in range(nb)],
         "exc_bits": [bits[wpos == i] for i in range(nb)],
         "crc32": np.array([checksum.window_crc(xh[i]) for i in range(nb)], dtype=np.int64),
-        "worst_error": err.max(axis=1) if L else np.zeros(nb),
-        "score": np.nan_to_num(score, nan=0.0),
-    }, schema=S.WINDOWS_SCHEMA)
+        "worst_error": _round_up32(worst),
+        "score": np.nan_to_num(score, nan=0.0).astype(np.float32),
+    }, schema=S.WINDOWS_SCHEMA), float(worst.max(initial=0.0))
+
+
+def _round_up32(x: np.ndarray) -> np.ndarray:
+    """float32 values never below ``x`` (so a stored worst error never understates)."""
+    y = x.astype(np.float32)
+    low = y.astype(np.float64) < x
+    y[low] = np.nextafter(y[low], np.float32(np.inf))
+    return y
 
 
 # -- manifest ------------------------------------------------------------------

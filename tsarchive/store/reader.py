@@ -224,12 +224,16 @@ class Archive:
         for L in np.unique(lens):
             sel = np.flatnonzero(lens == L)
             res = np.empty((len(sel), int(L)), dtype=np.int64)
-            for k, i in enumerate(sel):
-                if coders[i] != CODER_ID:
-                    raise ArchiveCorrupt(f"channel {channel} window {windows[i]}: unknown coder {coders[i]!r}; "
+            for k in sel:
+                if coders[k] != CODER_ID:
+                    raise ArchiveCorrupt(f"channel {channel} window {windows[k]}: unknown coder {coders[k]!r}; "
                                          "upgrade tsarchive")
-                table = self._table(channel, int(modes[i]))
-                res[k] = entropy.decode(payload[i], int(L), table)
+            for m in np.unique(modes[sel]):
+                pick = np.flatnonzero(modes[sel] == m)
+                # strict=False: the per-window CRC below catches what a range code cannot
+                dec = entropy.decode_many([payload[sel[k]] for k in pick], int(L), self._table(channel, int(m)),
+                                          strict=False)
+                res[pick] = np.stack(dec) if dec else res[pick]
             ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
             q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc), res)
             for k, i in enumerate(sel):

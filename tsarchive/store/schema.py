@@ -44,8 +44,8 @@ WINDOWS_SCHEMA = pa.schema([
     pa.field("exc_pos", pa.list_(pa.int32())),   # positions (within the window) stored verbatim
     pa.field("exc_bits", pa.list_(pa.int64())),  # their raw bits (floats) or values (ints)
     pa.field("crc32", pa.int64()),           # CRC-32 of the decoded samples (little-endian bytes)
-    pa.field("worst_error", pa.float64()),   # max |x̂ - x| in the window, channel units
-    pa.field("score", pa.float64()),         # RMS error of the code-only reconstruction (outlier score)
+    pa.field("worst_error", pa.float32()),   # max |x̂ - x| in the window, channel units, rounded up
+    pa.field("score", pa.float32()),         # RMS error of the code-only reconstruction (outlier score)
 ])
 
 TABLES_SCHEMA = pa.schema([

@@ -1,0 +1,194 @@
+"""End to end through the library API: pack -> archive -> read / verify."""
+
+import json
+import os
+import subprocess
+import sys
+
+import numpy as np
+import pyarrow.parquet as pq
+import pytest
+
+import tsarchive
+from tsarchive.errors import ArchiveExists, BadInput, BoundViolation, BudgetError, SourceNotFound
+from tsarchive.quantize import values_to_bits
+
+from conftest import make_signal
+
+
+def _pack(tmp_path, x, budget="0.5%", name="a", **kw):
+    src = tmp_path / f"{name}.npy"
+    np.save(src, x)
+    kw.setdefault("rate", 100.0)
+    kw.setdefault("window", 32)
+    kw.setdefault("code_size", 0)
+    out = tmp_path / f"{name}.tsa"
+    res = tsarchive.pack(src, out, budget, train_seconds=3, **kw)
+    return src, out, res
+
+
+def _assert_within(x, arc, channels=None):
+    for j, meta in enumerate(arc.channels):
+        xh = arc.read(meta.name)
+        col = x if x.ndim == 1 else x[:, j]
+        assert xh.dtype == col.dtype and xh.shape == col.shape
+        fin = np.isfinite(col.astype(np.float64))
+        err = np.abs(xh.astype(np.float64)[fin] - col.astype(np.float64)[fin])
+        assert (err <= meta.eps).all() if meta.eps > 0 else (err == 0).all()
+        assert np.array_equal(values_to_bits(xh[~fin]), values_to_bits(col[~fin]))
+
+
+def test_round_trip_with_autoencoder(small_archive, small_npy):
+    arc = tsarchive.open(small_archive)
+    x = np.load(small_npy)
+    _assert_within(x, arc)
+    assert arc.manifest["model"] is not None or arc.manifest["code_size"] == 0
+    rep = arc.verify(against=small_npy)
+    assert rep.ok and rep.compared and rep.checksums_ok
+
+
+def test_nan_inf_constant_and_short_tail(tmp_path):
+    x = make_signal(1000).astype(np.float64)
+    x[5, 0], x[17, 0], x[999, 1] = np.nan, np.inf, -np.inf
+    x = np.concatenate([x, np.full((1000, 1), 7.25)], axis=1)  # a constant channel
+    src, out, res = _pack(tmp_path, x[:997], budget="0.1%")  # 997 = 31 windows of 32 + a short one
+    arc = tsarchive.open(out)
+    _assert_within(x[:997], arc)
+    assert arc.channels[2].worst_error == 0.0
+    assert tsarchive.verify(out, against=src).ok
+
+
+def test_very_short_recording(tmp_path):
+    for n in (1, 2, 5):
+        x = np.linspace(0, 1, n).astype(np.float32)
+        src, out, res = _pack(tmp_path, x, name=f"s{n}", code_size=8)
+        arc = tsarchive.open(out)
+        assert arc.manifest["model"] is None  # a model would swamp a tiny archive
+        _assert_within(x, arc)
+
+
+def test_budget_forms_and_lossless_decimal_csv(tmp_path):
+    src = tmp_path / "soak.csv"
+    rng = np.random.default_rng(2)
+    temp = np.round(20 + np.cumsum(rng.standard_normal(3000)) * 0.05, 2)
+    hum = np.round(45 + np.cumsum(rng.standard_normal(3000)) * 0.1, 1)
+    lines = ["time [s],temp [degC],hum [%RH]"] + [f"{i},{t:.2f},{h:.1f}" for i, (t, h) in enumerate(zip(temp, hum))]
+    src.write_text("\n".join(lines) + "\n")
+    out = tmp_path / "soak.tsa"
+    res = tsarchive.pack(src, out, "lossless,hum=0.5", window=64, code_size=0)
+    arc = tsarchive.open(out)
+    assert [c.unit for c in arc.channels] == ["degC", "%RH"]
+    assert arc.channel("temp").eps == 0 and arc.channel("temp").decimals == 2
+    np.testing.assert_array_equal(arc.read("temp"), temp)  # bit-exact at the logged resolution
+    assert np.abs(arc.read("hum") - hum).max() <= 0.5
+    assert res.channels[0].worst_error == 0.0
+
+
+def test_lossless_needs_a_grid(tmp_path):
+    x = np.random.default_rng(0).standard_normal(500)
+    with pytest.raises(BudgetError, match="lossless"):
+        _pack(tmp_path, x, budget="lossless")
+    assert not (tmp_path / "a.tsa").exists()
+
+
+def test_refuses_overwrite_and_force_replaces(tmp_path):
+    x = make_signal(500)
+    src, out, _ = _pack(tmp_path, x)
+    with pytest.raises(ArchiveExists):
+        tsarchive.pack(src, out, rate=100.0, code_size=0)
+    tsarchive.pack(src, out, "1%", rate=100.0, code_size=0, window=32, force=True)
+    assert tsarchive.open(out).channels[0].budget == "1%"
+    (tmp_path / "plain").mkdir()
+    with pytest.raises(ArchiveExists):  # never replace a folder that is not an archive
+        tsarchive.pack(src, tmp_path / "plain", rate=100.0, force=True)
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]
+
+
+def test_self_check_refuses_to_finish(tmp_path, monkeypatch):
+    # Corrupt the decoder's view of the grid: pack must notice through the reader and write nothing.
+    import tsarchive.store.reader as reader
+    real = reader._channel_meta
+
+    def skewed(d, window):
+        m = real(d, window)
+        g = m.grid.__class__(**{**m.grid.to_dict(), "offset": m.grid.offset + 3 * m.grid.eps + 1.0})
+        return m.__class__(**{**m.__dict__, "grid": g})
+
+    monkeypatch.setattr(reader, "_channel_meta", skewed)
+    with pytest.raises(BoundViolation):
+        _pack(tmp_path, make_signal(400))
+    assert not (tmp_path / "a.tsa").exists()
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]
+
+
+def test_bad_inputs(tmp_path):
+    with pytest.raises(SourceNotFound):
+        tsarchive.pack(tmp_path / "missing.npy", tmp_path / "x.tsa", rate=1.0)
+    np.save(tmp_path / "x.npy", np.zeros(10))
+    with pytest.raises(BadInput, match="rate"):
+        tsarchive.pack(tmp_path / "x.npy", tmp_path / "x.tsa")
+    with pytest.raises(BadInput, match="window"):
+        tsarchive.pack(tmp_path / "x.npy", tmp_path / "x.tsa", rate=1.0, window=3)
+    assert not (tmp_path / "x.tsa").exists()
+
+
+def test_time_range_read_and_random_access(small_archive, small_npy):
+    arc = tsarchive.open(small_archive)
+    x = np.load(small_npy)
+    part = arc.read("ch0", start=10.0, end=12.5)
+    full = arc.read("ch0")
+    np.testing.assert_array_equal(part, full[2000:2500])
+    assert np.abs(part.astype(float) - x[2000:2500, 0]).max() <= arc.channels[0].eps
+
+
+def test_plain_pyarrow_can_read_the_codes(small_archive):
+    # Any Parquet reader: pyarrow alone, no tsarchive code.
+    t = pq.read_table(small_archive / "windows.parquet")
+    assert {"channel", "window", "start", "code", "residual", "crc32"} <= set(t.column_names)
+    codes = np.stack(t.filter(t["channel"] == "ch0" if False else None).column("code").to_pylist()
+                     if False else t.column("code").to_pylist())
+    assert codes.dtype.kind == "i" and codes.shape[0] == t.num_rows
+    m = pq.read_table(small_archive / "model.parquet").to_pydict()
+    assert set(m) == {"name", "shape", "values"}
+    manifest = json.loads((small_archive / "manifest.json").read_text())
+    assert manifest["format"] == "tsarchive" and manifest["channels"][0]["unit"] == ""
+    assert pq.ParquetFile(small_archive / "windows.parquet").metadata.row_group(0).column(0).compression == "ZSTD"
+
+
+def test_reading_imports_neither_torch_nor_textual(small_archive):
+    code = ("import sys, tsarchive; a = tsarchive.open(sys.argv[1]); a.read('ch0'); a.verify(); "
+            "a.windows('ch0'); a.preview('ch0'); a.similar('ch0', 0); "
+            "print('torch' in sys.modules, 'textual' in sys.modules, 'pickle' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code, str(small_archive)], capture_output=True, text=True, check=True)
+    assert out.stdout.split()[:2] == ["False", "False"]
+
+
+@pytest.mark.parametrize("threads", ["1", "2"])
+def test_decoding_is_identical_across_thread_counts(small_archive, threads, tmp_path):
+    code = ("import sys, hashlib, tsarchive; a = tsarchive.open(sys.argv[1]); "
+            "print(hashlib.sha256(b''.join(a.read(c.name).tobytes() for c in a.channels)).hexdigest())")
+    env = dict(os.environ, OMP_NUM_THREADS=threads, OPENBLAS_NUM_THREADS=threads, MKL_NUM_THREADS=threads)
+    out = subprocess.run([sys.executable, "-c", code, str(small_archive)], capture_output=True, text=True,
+                         env=env, check=True).stdout.strip()
+    ref = tsarchive.open(small_archive)
+    import hashlib
+    assert out == hashlib.sha256(b"".join(ref.read(c.name).tobytes() for c in ref.channels)).hexdigest()
+
+
+def test_torch_and_numpy_inference_paths_agree(small_archive):
+    arc = tsarchive.open(small_archive)
+    if arc.decoder is None:
+        pytest.skip("archive has no model")
+    from tsarchive.model.torch_infer import predict_torch
+    codes = arc.windows("ch0").codes
+    np.testing.assert_array_equal(arc.decoder.predict(codes), predict_torch(arc.decoder, codes))
+
+
+def test_outliers_and_similar(small_archive):
+    arc = tsarchive.open(small_archive)
+    w = arc.windows("ch0")
+    top = arc.outliers("ch0", k=3)
+    assert w.score[top[0]] == w.score.max()
+    sim = arc.similar("ch0", 5, k=4)
+    assert len(sim) == 4 and 5 not in [i for i, _ in sim]
+    assert all(a[1] <= b[1] for a, b in zip(sim, sim[1:]))

@@ -1,0 +1,345 @@
+"""Entropy coding of integer residual windows: range coding (``constriction``) or zstd.
+
+Batch API (use it in loops): :func:`encode_many` / :func:`decode_many`.
+
+Every window (a 1-D int64 array) is coded on its own, so any window decodes
+without the others, given one per-channel :class:`FreqTable`.
+
+Values become tokens plus raw bits and tables are integer frequencies summing
+to 2**24: see :mod:`tsarchive.entropy_table` (its API is re-exported here).
+
+Payload ("range" coder).  Tokens, then raw bits in <=16-bit uniform chunks, are range coded
+(constriction's RangeEncoder: 32-bit words, 64-bit state); the words are
+written big-endian and the stream is terminated by the shortest byte string
+that selects a point of the final interval, trailing zero bytes dropped (the
+decoder reads zeros past the end).  Framing is about 3-4 bits per window; a
+window of values all equal to ``center`` is ``b""``.  Decoding raises
+:class:`ArchiveCorrupt` on structural damage and, by default (``strict``), on
+any payload that is not the canonical encoding of what it decodes to; the
+code has no redundancy, so callers keep a per-window CRC
+(:mod:`tsarchive.checksum`) to catch the rest.
+
+Coder registry.  ``CODERS`` maps a stable id (stored in archives) to a
+frozen dataclass with ``id``, ``encode(values) -> bytes``,
+``decode(payload, n) -> int64 array`` (ArchiveCorrupt on damage), the batch
+forms ``encode_many(windows)`` / ``decode_many(payloads, lengths)``,
+``cost_bits(values) -> float``, ``get_config() -> dict`` (JSON-safe) and the
+classmethods ``from_config(dict)`` and ``fit(samples)``.
+:func:`coder_from_config` raises :class:`UnknownCodec` for unknown ids.
+"""
+
+from __future__ import annotations
+
+import functools
+from dataclasses import dataclass
+from typing import ClassVar, Sequence
+
+import numpy as np
+
+from tsarchive.entropy_table import (  # noqa: F401  (re-exported: the coding API lives here)
+    PRECISION, TOTAL, FreqTable, _as_int64, _corrupt, _unzigzag, _zigzag, build_table, n_tokens,
+    order0_entropy_bits, tokenize)
+from tsarchive.errors import UnknownCodec
+
+CHUNK_BITS = 16
+_MAX_N = (1 << 31) - 1
+_M64 = (1 << 64) - 1
+_U64 = np.uint64
+
+
+def model_for(table: FreqTable):
+    """The verified constriction model of ``table`` (cached on the table)."""
+    return table.model
+
+
+def _chunk_layout(nbits: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Raw fields -> <=16-bit chunks: (owning field, bit shift, uniform size)."""
+    if not len(nbits) or nbits.max() <= CHUNK_BITS:  # common case: at most one chunk per field
+        owner = np.flatnonzero(nbits)
+        return owner, np.zeros(len(owner), _U64), (np.int64(1) << nbits[owner]).astype(np.int32)
+    nch = (nbits + CHUNK_BITS - 1) // CHUNK_BITS
+    owner = np.repeat(np.arange(len(nbits)), nch)
+    shift = (np.arange(len(owner)) - np.repeat(np.cumsum(nch) - nch, nch)) * CHUNK_BITS
+    sizes = np.int64(1) << np.minimum(CHUNK_BITS, nbits[owner] - shift)
+    return owner, shift.astype(_U64), sizes.astype(np.int32)
+
+
+# ---------------------------------------------------------------- range coding
+
+def _seal(enc) -> bytes:
+    """Words big-endian + the shortest bytes that pick a point of the final interval."""
+    words = enc.get_compressed()
+    if not len(words):
+        return b""
+    pos, (lower, size) = enc.pos()
+    head = words[:pos].astype(">u4").tobytes()
+    if lower + 0xFFFFFFFF > _M64:  # constriction's own seal point carried: keep its words
+        return (head + words[pos:].astype(">u4").tobytes()).rstrip(b"\0")
+    hi = min(lower + size - 1, _M64)
+    k = 0
+    while True:  # k = 8 (q = lower) always fits
+        s = 64 - 8 * k
+        q = -((-lower) >> s) << s  # lower rounded up to a multiple of 2**s
+        if q <= hi:
+            return (head + (q >> s).to_bytes(k, "big")).rstrip(b"\0")
+        k += 1
+
+
+def _flatten(windows) -> tuple[np.ndarray, np.ndarray]:
+    """(all values int64, window bounds [0, n0, n0+n1, ...]) of a 2-D array or a list."""
+    if isinstance(windows, np.ndarray) and windows.ndim == 2:
+        return _as_int64(windows.reshape(-1)), np.arange(windows.shape[0] + 1) * windows.shape[1]
+    parts = [_as_int64(w) for w in windows]
+    bounds = np.concatenate(([0], np.cumsum([len(p) for p in parts], dtype=np.int64)))
+    return (np.concatenate(parts) if parts else np.zeros(0, np.int64)), bounds
+
+
+def _chunk_bounds(tok, bounds, nbits, table):
+    """Per window, the range of its raw chunks in the flat chunk arrays."""
+    nbig = np.concatenate(([0], np.cumsum(tok >= (1 << table.direct_bits))))[bounds]
+    nch = np.concatenate(([0], np.cumsum((nbits + CHUNK_BITS - 1) // CHUNK_BITS)))
+    return nch[nbig]
+
+
+def _code(tok, raw, nbits, bounds, table) -> list[bytes]:
+    import constriction
+
+    cb = None
+    if len(nbits):
+        owner, shift, sizes = _chunk_layout(nbits)
+        chunks = ((raw[owner] >> shift) & _U64(0xFFFF)).astype(np.int32)
+        cb = _chunk_bounds(tok, bounds, nbits, table).tolist()
+    model, uniform, out = table.model, constriction.stream.model.Uniform(), []
+    new_encoder = constriction.stream.queue.RangeEncoder
+    b = bounds.tolist()
+    for i in range(len(b) - 1):
+        enc = new_encoder()
+        if b[i + 1] > b[i]:
+            enc.encode(tok[b[i]:b[i + 1]], model)
+        if cb is not None and cb[i + 1] > cb[i]:
+            enc.encode(chunks[cb[i]:cb[i + 1]], uniform, sizes[cb[i]:cb[i + 1]])
+        out.append(_seal(enc))
+    return out
+
+
+def encode_many(windows, table: FreqTable) -> list[bytes]:
+    """Code each window (rows of a 2-D array, or a list of 1-D arrays) on its own.
+
+    Same bytes as :func:`encode` per window, much faster per window.
+    """
+    values, bounds = _flatten(windows)
+    return _code(*tokenize(values, table), bounds, table)
+
+
+def encode(values, table: FreqTable) -> bytes:
+    """Code one window (1-D integer array, any int64 values) under ``table``."""
+    return encode_many([values], table)[0]
+
+
+def decode_many(payloads: Sequence[bytes], lengths, table: FreqTable, strict: bool = True) -> list[np.ndarray]:
+    """Inverse of :func:`encode_many`; ``lengths`` is one int or one per payload.
+
+    Never crashes or hangs on garbage: it raises ArchiveCorrupt (naming the
+    first bad window's index) or returns values.  ``strict`` (+30..60 %
+    time) re-encodes the result and requires the identical payload, which
+    catches most truncation, extension, wrong lengths and wrong tables.  A
+    range-coded payload has no redundancy, so damage that keeps the length
+    usually decodes to other values: the per-window CRC must catch that.
+    """
+    import constriction
+
+    lengths = np.broadcast_to(np.asarray(lengths, dtype=np.int64), (len(payloads),))
+    if len(lengths) and not (lengths.min() >= 0 and lengths.max() <= _MAX_N):
+        raise _corrupt(f"window lengths {lengths.min()}..{lengths.max()} are out of range")
+    bounds = np.concatenate(([0], np.cumsum(lengths)))
+    tok = np.zeros(int(bounds[-1]), np.int32)
+    payloads = [bytes(p) for p in payloads]
+    if any(p.endswith(b"\0") for p in payloads):
+        raise _corrupt("a range-coded window ends in a zero byte")
+    nw = [(len(p) + 3) // 4 for p in payloads]
+    wb = np.concatenate(([0], np.cumsum(nw, dtype=np.int64))).tolist()
+    words = np.frombuffer(b"".join(p + b"\0" * (-len(p) % 4) for p in payloads), ">u4").astype(np.uint32)
+    model, decoders, b = table.model, [], bounds.tolist()
+    new_decoder = constriction.stream.queue.RangeDecoder
+    for i in range(len(payloads)):
+        try:
+            decoders.append(new_decoder(words[wb[i]:wb[i + 1]]))
+            if b[i + 1] > b[i]:
+                tok[b[i]:b[i + 1]] = decoders[-1].decode(model, b[i + 1] - b[i])
+        except Exception as exc:  # constriction raises ValueError/AssertionError on bad data
+            raise _corrupt(f"range-coded window {i} cannot be decoded ({exc})") from None
+    d, m = table.direct_bits, table.mantissa_bits
+    big = tok >= (1 << d)
+    t = tok[big].astype(np.int64) - (1 << d)
+    e = (t >> m) + d
+    nbits = e - m
+    raw = np.zeros(len(nbits), _U64)
+    if len(nbits):
+        owner, shift, sizes = _chunk_layout(nbits)
+        chunks = np.zeros(len(sizes), np.int32)
+        cb = _chunk_bounds(tok, bounds, nbits, table)
+        uniform = constriction.stream.model.Uniform()
+        for i in np.flatnonzero(cb[1:] > cb[:-1]).tolist():
+            try:
+                chunks[cb[i]:cb[i + 1]] = decoders[i].decode(uniform, sizes[cb[i]:cb[i + 1]])
+            except Exception as exc:  # constriction raises ValueError/AssertionError on bad data
+                raise _corrupt(f"range-coded window {i} cannot be decoded ({exc})") from None
+        if shift.any():  # some field spans several chunks
+            np.add.at(raw, owner, chunks.astype(_U64) << shift)
+        else:
+            raw[owner] = chunks
+        u = tok.astype(_U64)
+        u[big] = (_U64(1) << e.astype(_U64)) | ((t & ((1 << m) - 1)).astype(_U64) << nbits.astype(_U64)) | raw
+        values = _unzigzag(u, table.center)
+    else:
+        values = table.direct_values[tok]
+    if strict:
+        for i, (a, b) in enumerate(zip(_code(tok, raw, nbits, bounds, table), payloads)):
+            if a != b:
+                raise _corrupt(f"range-coded window {i} is not a valid payload for its table and length")
+    return np.split(values, bounds[1:-1])
+
+
+def decode(payload: bytes, n: int, table: FreqTable, strict: bool = True) -> np.ndarray:
+    """Inverse of :func:`encode`: ``n`` int64 values, or ArchiveCorrupt (see :func:`decode_many`)."""
+    return decode_many([payload], n, table, strict)[0]
+
+
+def cost_bits(values, table: FreqTable) -> float:
+    """Ideal code length of ``values`` under ``table`` in bits (no framing)."""
+    tok, _, nbits = tokenize(values, table)
+    return float(table.token_cost[tok].sum() + nbits.sum())
+
+
+# ---------------------------------------------------------------- coder registry
+
+@dataclass(frozen=True)
+class RangeCoder:
+    """Range coding under a per-channel :class:`FreqTable` (see module docstring)."""
+
+    table: FreqTable
+    id: ClassVar[str] = "range"
+
+    def encode(self, values) -> bytes:
+        return encode(values, self.table)
+
+    def decode(self, payload: bytes, n: int) -> np.ndarray:
+        return decode(payload, n, self.table)
+
+    def encode_many(self, windows) -> list[bytes]:
+        return encode_many(windows, self.table)
+
+    def decode_many(self, payloads: Sequence[bytes], lengths) -> list[np.ndarray]:
+        return decode_many(payloads, lengths, self.table)
+
+    def cost_bits(self, values) -> float:
+        return cost_bits(values, self.table)
+
+    def get_config(self) -> dict:
+        return {"table": self.table.to_dict()}
+
+    @classmethod
+    def from_config(cls, config: dict) -> "RangeCoder":
+        if not isinstance(config, dict) or not isinstance(config.get("table"), dict):
+            raise _corrupt("range coder config has no table")
+        return cls(FreqTable.from_dict(config["table"]))
+
+    @classmethod
+    def fit(cls, samples) -> "RangeCoder":
+        return cls(build_table(samples))
+
+
+@functools.lru_cache(maxsize=8)
+def _zstd_pair(level: int):
+    import zstandard as zstd
+
+    params = zstd.ZstdCompressionParameters.from_level(
+        level, format=zstd.FORMAT_ZSTD1_MAGICLESS, write_content_size=False,
+        write_checksum=False, write_dict_id=False)
+    return zstd.ZstdCompressor(compression_params=params), zstd.ZstdDecompressor(format=zstd.FORMAT_ZSTD1_MAGICLESS)
+
+
+@dataclass(frozen=True)
+class ZstdCoder:
+    """zstd (magicless frame) over zigzag values, fixed width 1/2/4/8 bytes,
+    byte planes shuffled.  Payload: u8 log2(width) + frame; all-zero -> b""."""
+
+    level: int = 19
+    id: ClassVar[str] = "zstd"
+
+    def encode(self, values) -> bytes:
+        a = _as_int64(values)
+        if not a.any():
+            return b""
+        u = _zigzag(a, 0)
+        code = int(np.searchsorted([0xFF, 0xFFFF, 0xFFFFFFFF], int(u.max())))
+        w = 1 << code
+        planes = u.astype(f"<u{w}").view(np.uint8).reshape(-1, w).T.tobytes()
+        return bytes([code]) + _zstd_pair(self.level)[0].compress(planes)
+
+    def decode(self, payload: bytes, n: int) -> np.ndarray:
+        if not 0 <= n <= _MAX_N:
+            raise _corrupt(f"window length {n} is out of range")
+        payload = bytes(payload)
+        if not payload:
+            return np.zeros(n, np.int64)
+        w = 1 << payload[0] if payload[0] <= 3 else 0
+        try:
+            raw = _zstd_pair(self.level)[1].decompress(payload[1:], max_output_size=max(n * w, 1)) if w else b""
+        except Exception as exc:  # zstandard raises its own ZstdError
+            raise _corrupt(f"zstd window cannot be decoded ({exc})") from None
+        if not w or len(raw) != n * w:
+            raise _corrupt("zstd window has the wrong size or width code")
+        u = np.frombuffer(raw, np.uint8).reshape(w, n).T.copy().view(f"<u{w}").ravel().astype(_U64)
+        return _unzigzag(u, 0)
+
+    def encode_many(self, windows) -> list[bytes]:
+        return [self.encode(w) for w in windows]
+
+    def decode_many(self, payloads: Sequence[bytes], lengths) -> list[np.ndarray]:
+        lengths = np.broadcast_to(np.asarray(lengths, dtype=np.int64), (len(payloads),))
+        return [self.decode(p, int(n)) for p, n in zip(payloads, lengths)]
+
+    def cost_bits(self, values) -> float:
+        return 8.0 * len(self.encode(values))
+
+    def get_config(self) -> dict:
+        return {"level": self.level}
+
+    @classmethod
+    def from_config(cls, config: dict) -> "ZstdCoder":
+        try:
+            return cls(int(config.get("level", 19)))
+        except (AttributeError, TypeError, ValueError):
+            raise _corrupt("zstd coder config is malformed") from None
+
+    @classmethod
+    def fit(cls, samples) -> "ZstdCoder":
+        return cls()
+
+
+CODERS: dict[str, type] = {RangeCoder.id: RangeCoder, ZstdCoder.id: ZstdCoder}
+
+
+def coder_from_config(coder_id: str, config: dict):
+    """Rebuild a stored coder; UnknownCodec if ``coder_id`` is not registered."""
+    cls = CODERS.get(coder_id)
+    if cls is None:
+        raise UnknownCodec(f"entropy coder {coder_id!r} is unknown to this tsarchive version; upgrade tsarchive to read it")
+    return cls.from_config(config)
+
+
+def choose_coder(windows: Sequence[np.ndarray], max_probe: int = 64):
+    """Fit every registered coder to ``windows`` and return the one whose
+    payloads are smallest on up to ``max_probe`` evenly spaced windows."""
+    if not len(windows):
+        return RangeCoder(build_table(np.zeros(0, np.int64)))
+    samples = np.concatenate([_as_int64(w) for w in windows])
+    pick = np.unique(np.linspace(0, len(windows) - 1, min(max_probe, len(windows))).astype(int))
+    best = None
+    for cls in CODERS.values():
+        coder = cls.fit(samples)
+        size = sum(len(coder.encode(windows[i])) for i in pick)
+        if best is None or size < best[0]:
+            best = (size, coder)
+    return best[1]
