@@ -1,0 +1,109 @@
+"""The tsarchive terminal app: Shelf -> Pack bench / Ledger -> Strip -> Finder, Export.
+
+The App gets its one input, a path, through its constructor:
+
+* a folder: the Shelf lists it;
+* an archive (``NAME.tsa``): the Shelf lists its folder and the Ledger opens on it;
+* a recording file: the Shelf lists its folder with that file selected.
+
+Session state kept here: the verification state of each archive checked in this
+session (:attr:`TsArchiveApp.checks`). The app drives the library only through
+``tsarchive.pack``, ``tsarchive.open``, ``tsarchive.inspect_source`` and the
+``Archive`` methods; it holds no codec logic.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from textual.app import App
+from textual.binding import Binding
+from textual.screen import Screen
+from textual.theme import Theme
+
+from tsarchive.app.locate import is_archive_path
+from tsarchive.app.screens.shelf import ShelfScreen
+
+WORKBENCH_THEME = Theme(
+    name="tsarchive-workbench",
+    primary="#4F8A8B",
+    secondary="#9C7A54",
+    accent="#D9B44A",
+    warning="#E0913A",
+    error="#D0534A",
+    success="#5E9E6E",
+    foreground="#E4E1D8",
+    background="#15191C",
+    surface="#1D2327",
+    panel="#27323A",
+    dark=True,
+)
+
+
+class TsArchiveApp(App):
+    """Keyboard-first app for lab technicians: pack, inspect, browse, verify, export."""
+
+    CSS_PATH = Path(__file__).with_name("app.tcss")  # absolute: subclasses elsewhere keep it
+    TITLE = "tsarchive"
+    ENABLE_COMMAND_PALETTE = False
+    BINDINGS = [
+        Binding("f1", "keys", "Keys"),
+        Binding("question_mark", "keys", "Keys", key_display="?", show=False),
+        Binding("ctrl+q", "quit", "Quit", priority=True),
+    ]
+
+    def __init__(self, path: str | Path | None = None) -> None:
+        super().__init__()
+        target = Path(path).expanduser() if path is not None else Path.cwd()
+        self.start_path = target.resolve() if target.exists() else target
+        if is_archive_path(self.start_path) or self.start_path.is_file():
+            self.folder = self.start_path.parent
+        elif self.start_path.is_dir():
+            self.folder = self.start_path
+        else:
+            self.folder = Path.cwd()
+        self.checks: dict[Path, str] = {}
+        """Verification state of archives checked this session: ``verified ok`` or ``failed``."""
+
+    def get_default_screen(self) -> Screen:
+        return ShelfScreen(self.folder)
+
+    def on_mount(self) -> None:
+        self.register_theme(WORKBENCH_THEME)
+        self.theme = WORKBENCH_THEME.name
+        if not self.start_path.exists():
+            self.notify(f"{self.start_path} does not exist; showing {self.folder} instead",
+                        severity="error", timeout=8)
+        elif is_archive_path(self.start_path):
+            self.open_archive(self.start_path)
+        elif self.start_path.is_file():
+            self.call_after_refresh(self._select_start_file)
+
+    def _select_start_file(self) -> None:
+        shelf = self.screen
+        if isinstance(shelf, ShelfScreen):
+            shelf.select_path(self.start_path)
+
+    def notify(self, message: str, *, title: str = "", severity="information", timeout: float | None = None,
+               markup: bool = False) -> None:
+        """Show a notification; text is never read as markup (names and units hold brackets)."""
+        super().notify(message, title=title, severity=severity, timeout=timeout, markup=False)
+
+    # -- navigation used by the screens -------------------------------------
+    def open_archive(self, path: Path) -> None:
+        """Show ``path`` in the Ledger."""
+        from tsarchive.app.screens.ledger import LedgerScreen
+
+        self.push_screen(LedgerScreen(Path(path)))
+
+    def open_bench(self, source: Path) -> None:
+        """Show ``source`` on the Pack bench."""
+        from tsarchive.app.screens.bench import PackBenchScreen
+
+        self.push_screen(PackBenchScreen(Path(source)))
+
+    def action_keys(self) -> None:
+        from tsarchive.app.screens.keys import KeysScreen
+
+        if not isinstance(self.screen, KeysScreen):
+            self.push_screen(KeysScreen())

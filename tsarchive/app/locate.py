@@ -1,0 +1,186 @@
+"""Finding things on disk and reading what the user typed (no Textual, no codec logic).
+
+* :func:`scan_folder` lists the recordings and archives of one folder (cheap: names
+  and sizes only; details are loaded later by the Shelf's worker).
+* :func:`find_source` looks for an archive's original recording next to it.
+* :func:`parse_seconds`, :func:`parse_optional_int` and :func:`combine_budgets`
+  turn text fields into the arguments the library expects, raising
+  :class:`tsarchive.errors.BadInput` with a one-line message when they cannot.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Iterable, Sequence
+
+from tsarchive.errors import BadInput
+
+RECORDING_SUFFIXES = (".npy", ".csv", ".parquet")
+ARCHIVE_SUFFIX = ".tsa"
+EXPORT_SUFFIXES = (".csv", ".parquet", ".npy")
+
+
+@dataclass(frozen=True)
+class ShelfEntry:
+    """One row of the Shelf: a recording file or an archive directory."""
+
+    path: Path
+    kind: str  # "recording" or "archive"
+    size: int
+
+    @property
+    def is_archive(self) -> bool:
+        return self.kind == "archive"
+
+
+def tree_size(path: Path) -> int:
+    """Bytes of a file, or of every file below a directory."""
+    if path.is_file():
+        return path.stat().st_size
+    total = 0
+    for root, _dirs, files in os.walk(path):
+        for name in files:
+            try:
+                total += (Path(root) / name).stat().st_size
+            except OSError:
+                continue  # a file vanished while walking: leave it out of the total
+    return total
+
+
+def is_archive_path(path: Path) -> bool:
+    return path.suffix == ARCHIVE_SUFFIX and path.is_dir()
+
+
+def scan_folder(folder: Path) -> list[ShelfEntry]:
+    """Archives first, then recordings, each group sorted by name.
+
+    Raises :class:`BadInput` when ``folder`` is not a readable directory.
+    """
+    try:
+        children = sorted(folder.iterdir(), key=lambda p: p.name.lower())
+    except OSError as exc:
+        raise BadInput(f"cannot list folder {folder}: {exc.strerror or exc}; pick a readable folder") from exc
+    archives = [ShelfEntry(p, "archive", 0) for p in children if is_archive_path(p)]
+    recordings = [ShelfEntry(p, "recording", p.stat().st_size) for p in children
+                  if p.is_file() and p.suffix.lower() in RECORDING_SUFFIXES]
+    return archives + recordings
+
+
+def find_source(archive_path: Path, source_name: str | None, folders: Iterable[Path] = ()) -> Path | None:
+    """The original recording named ``source_name`` next to the archive or in ``folders``."""
+    if not source_name:
+        return None
+    name = Path(source_name).name
+    seen: set[Path] = set()
+    for folder in (archive_path.parent, *folders):
+        folder = Path(folder)
+        if folder in seen:
+            continue
+        seen.add(folder)
+        candidate = folder / name
+        if candidate.is_file():
+            return candidate
+    return None
+
+
+_CLOCK = re.compile(r"^\s*(?:(\d+):)?(?:(\d+):)?(\d+(?:\.\d*)?)\s*s?\s*$")
+
+
+def parse_seconds(text: str, what: str = "time") -> float | None:
+    """``""`` -> None; ``"75"``, ``"75.5 s"``, ``"1:15.5"``, ``"1:01:15"`` -> seconds."""
+    text = text.strip()
+    if not text:
+        return None
+    m = _CLOCK.match(text)
+    if not m:
+        raise BadInput(f"{what} {text!r} is not a time; type seconds (75.5) or minutes:seconds (1:15.5)")
+    a, b, sec = m.groups()
+    if a is not None and b is not None:
+        return int(a) * 3600 + int(b) * 60 + float(sec)
+    if a is not None:
+        return int(a) * 60 + float(sec)
+    return float(sec)
+
+
+def parse_optional_int(text: str, what: str, minimum: int = 1) -> int | None:
+    """``""``/``"auto"`` -> None; ``"64"`` -> 64; anything else raises :class:`BadInput`."""
+    text = text.strip().lower()
+    if text in ("", "auto"):
+        return None
+    if not text.isdigit() or int(text) < minimum:
+        raise BadInput(f"{what} {text!r} is not a whole number of at least {minimum}; "
+                       "type one or leave it empty for auto")
+    return int(text)
+
+
+def parse_optional_float(text: str, what: str) -> float | None:
+    """``""`` -> None; ``"2.5"`` -> 2.5 (must be a positive number) or :class:`BadInput`."""
+    text = text.strip()
+    if not text:
+        return None
+    try:
+        value = float(text)
+    except ValueError:
+        value = -1.0
+    if not value > 0 or value == float("inf"):
+        raise BadInput(f"{what} {text!r} is not a positive number; type one or leave it empty for the default")
+    return value
+
+
+def combine_budgets(names: Sequence[str], specs: Sequence[str], default: str = "0.1%") -> str:
+    """One budget spec for the library from one text field per channel.
+
+    Empty fields take ``default``. When every channel has the same spec the bare spec is
+    returned, otherwise ``"name=spec,..."`` for all channels. The library parses and
+    checks the spec itself.
+    """
+    cleaned = [(s.strip() or default) for s in specs]
+    for name, spec in zip(names, cleaned):
+        if "," in spec or "=" in spec:
+            raise BadInput(f"budget for {name!r} must be one value such as 0.02, 0.1% or lossless")
+    if len(set(cleaned)) <= 1:
+        return cleaned[0] if cleaned else default
+    return ",".join(f"{n}={s}" for n, s in zip(names, cleaned))
+
+
+def export_target(text: str, folder: Path) -> Path:
+    """The export file a typed name stands for (relative names land in ``folder``)."""
+    text = text.strip()
+    if not text:
+        raise BadInput("type a file name ending in .csv, .parquet or .npy for the export")
+    path = Path(text).expanduser()
+    if not path.is_absolute():
+        path = folder / path
+    if path.suffix.lower() not in EXPORT_SUFFIXES:
+        raise BadInput(f"export name {path.name!r} must end in .csv, .parquet or .npy")
+    return path
+
+
+def read_time(text: str, start=None, what: str = "time") -> float | None:
+    """A typed time in seconds from the recording start, or None for an empty field.
+
+    ``minutes:seconds`` (as the app displays times, e.g. ``1:15.5``) is read here; every
+    other form (``12.5``, ``90s``, ``5min``, ISO 8601 datetimes) by the library's
+    :func:`tsarchive.timespec.parse_time`, as on the command line.
+    """
+    from tsarchive.timespec import parse_time
+
+    text = text.strip()
+    if not text:
+        return None
+    if _CLOCK.match(text) and ":" in text:
+        return parse_seconds(text, what)
+    return parse_time(text, start)
+
+
+def free_archive_name(folder: Path, stem: str) -> str:
+    """``stem.tsa``, or ``stem-2.tsa``, ``stem-3.tsa``... whichever is not taken in ``folder``."""
+    name = stem + ARCHIVE_SUFFIX
+    n = 2
+    while (folder / name).exists():
+        name = f"{stem}-{n}{ARCHIVE_SUFFIX}"
+        n += 1
+    return name

@@ -1,0 +1,121 @@
+"""The Finder: windows worth a look, ranked; choosing one moves the Strip there.
+
+Three rankings, each straight from the library's figures:
+
+* ``unusual`` -- ``Archive.outliers``: highest outlier score first (the RMS error of
+  the code-only preview: windows the learned codes describe worst);
+* ``alike`` -- ``Archive.similar``: windows whose codes are nearest to the selected one;
+* ``worst`` -- the windows with the largest stored worst error.
+
+The Finder is a modal screen that returns the chosen window number (or None).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from textual import work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Vertical
+from textual.screen import ModalScreen
+from textual.widgets import DataTable, Footer, Static
+
+from tsarchive.app import fmt
+from tsarchive.app.guard import archive_lock
+from tsarchive.app.messages import FinderFilled, WorkFailed
+from tsarchive.app.screens.base import Notices
+from tsarchive.app.widgets.pick_table import PickTable
+from tsarchive.errors import TsArchiveError
+
+TOP_K = 20
+TITLES = {
+    "unusual": ("Finder · unusual windows", "Ranked by outlier score: how far the code-only preview is from the "
+                "stored samples. High scores mark shapes the model rarely saw.", "Score"),
+    "alike": ("Finder · look-alikes of window #{w}", "Windows whose codes lie nearest to window #{w}'s "
+              "(Euclidean distance between codes).", "Distance"),
+    "worst": ("Finder · largest errors", "Windows whose worst error uses most of the budget.", "Worst err"),
+}
+
+
+class FinderScreen(Notices, ModalScreen[int | None]):
+    """Ranked windows of one channel; Enter returns the chosen window number."""
+
+    BINDINGS = [
+        Binding("escape", "close", "Close"),
+        Binding("u", "rank('unusual')", "Unusual"),
+        Binding("l", "rank('alike')", "Alike"),
+        Binding("w", "rank('worst')", "Worst"),
+    ]
+
+    def __init__(self, archive, meta, table, mode: str, current: int) -> None:
+        super().__init__(id="finder")
+        self.archive, self.meta, self.table = archive, meta, table
+        self.mode = mode
+        self.window = int(table.index[current]) if 0 <= current < len(table.index) else 0
+        self.rows: list[tuple[int, float]] = []
+        self.starts = np.asarray(table.start_sample, dtype=np.float64) / meta.rate
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="finder-box"):
+            yield Static("", id="finder-title", classes="title", markup=False)
+            yield Static("", id="finder-about", markup=False)
+            yield PickTable(id="finder-table")
+            yield Static("Enter shows the window in the Strip · u / l / w switch ranking · Esc closes",
+                         classes="note", markup=False)
+        yield Footer(compact=True)
+
+    def on_mount(self) -> None:
+        self.action_rank(self.mode)
+
+    def action_rank(self, mode: str) -> None:
+        self.mode = mode
+        title, about, figure = TITLES[mode]
+        self.query_one("#finder-title", Static).update(title.format(w=self.window))
+        self.query_one("#finder-about", Static).update(about.format(w=self.window))
+        dt = self.query_one(DataTable)
+        dt.clear(columns=True)
+        dt.add_columns("Rank", "Window", "Start", figure, "Worst err", "Mode")
+        self.rank(mode)
+
+    @work(thread=True, exclusive=True, group="finder", exit_on_error=False)
+    def rank(self, mode: str) -> None:
+        name = self.meta.name
+        try:
+            with archive_lock(self.archive):
+                rows = self._ranking(mode, name)
+        except TsArchiveError as exc:
+            self.post_message(WorkFailed(str(exc), title="Finder"))
+            return
+        self.post_message(FinderFilled(rows))
+
+    def _ranking(self, mode: str, name: str) -> list[tuple[int, float]]:
+        """``(window, figure)`` pairs for ``mode``, best first (library calls only)."""
+        if mode == "unusual":
+            ids = self.archive.outliers(name, k=TOP_K)
+            return [(int(w), float(self.table.score[p])) for w, p in zip(ids, self._positions(ids))]
+        if mode == "alike":
+            return [(int(w), float(d)) for w, d in self.archive.similar(name, self.window, k=TOP_K)]
+        order = np.lexsort((np.asarray(self.table.index), -np.asarray(self.table.worst_error)))[:TOP_K]
+        return [(int(self.table.index[p]), float(self.table.worst_error[p])) for p in order]
+
+    def _positions(self, ids) -> list[int]:
+        where = {int(w): p for p, w in enumerate(np.asarray(self.table.index))}
+        return [where[int(w)] for w in ids]
+
+    def on_finder_filled(self, message: FinderFilled) -> None:
+        self.rows = message.rows
+        dt = self.query_one(DataTable)
+        dt.clear()
+        positions = self._positions([w for w, _ in self.rows])
+        for rank, ((w, figure), p) in enumerate(zip(self.rows, positions), start=1):
+            dt.add_row(str(rank), f"#{w}", fmt.clock(self.starts[p]), fmt.num(figure, 3),
+                       fmt.num(self.table.worst_error[p], 3), str(self.table.mode[p]), key=str(w))
+        dt.focus()
+
+    def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
+        event.stop()
+        if 0 <= event.cursor_row < len(self.rows):
+            self.dismiss(self.rows[event.cursor_row][0])
+
+    def action_close(self) -> None:
+        self.dismiss(None)

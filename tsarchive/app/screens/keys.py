@@ -1,0 +1,70 @@
+"""The Keys screen: every key of every screen, read from the screens' own BINDINGS."""
+
+from __future__ import annotations
+
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Vertical
+from textual.screen import ModalScreen
+from textual.widgets import DataTable, Footer, Static
+
+from tsarchive.app.screens.base import Notices
+
+
+def key_table() -> list[tuple[str, str, str]]:
+    """``(where, key, what)`` rows for the app and each screen, in the order a user meets them."""
+    from tsarchive.app.app import TsArchiveApp
+    from tsarchive.app.screens.bench import PackBenchScreen
+    from tsarchive.app.screens.export import ExportScreen
+    from tsarchive.app.screens.finder import FinderScreen
+    from tsarchive.app.screens.ledger import LedgerScreen
+    from tsarchive.app.screens.shelf import ShelfScreen
+    from tsarchive.app.screens.strip import StripScreen
+
+    places = [("Anywhere", TsArchiveApp), ("Shelf", ShelfScreen), ("Pack bench", PackBenchScreen),
+              ("Ledger", LedgerScreen), ("Strip", StripScreen), ("Finder", FinderScreen), ("Export", ExportScreen)]
+    enter = {"Shelf": "pack the recording, or open the archive in the Ledger",
+             "Ledger": "open the channel in the Strip", "Finder": "show the window in the Strip"}
+    rows = []
+    for where, cls in places:
+        if where in enter:
+            rows.append((where, "Enter", enter[where]))
+        for b in cls.BINDINGS:
+            if not isinstance(b, Binding):
+                continue
+            keys = b.key_display or " / ".join(_pretty(k) for k in b.key.split(","))
+            rows.append((where, keys, b.tooltip or b.description))
+    rows.append(("Tables", "↑ / ↓ / PgUp / PgDn", "move the cursor"))
+    rows.append(("Mouse", "click, click again", "a click puts the cursor on a row, a second click opens it"))
+    rows.append(("Fields", "Tab / Shift+Tab", "next / previous field"))
+    return rows
+
+
+def _pretty(key: str) -> str:
+    names = {"equals_sign": "=", "plus": "+", "minus": "-", "left_square_bracket": "[",
+             "right_square_bracket": "]", "question_mark": "?", "escape": "Esc", "enter": "Enter"}
+    if key in names:
+        return names[key]
+    return "+".join(part.capitalize() if len(part) > 1 else part for part in key.split("+"))
+
+
+class KeysScreen(Notices, ModalScreen[None]):
+    """A table of all keys; Escape or ? closes it."""
+
+    BINDINGS = [Binding("escape,question_mark,f1", "close", "Close")]
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="keys-box"):
+            yield Static("Keys", classes="title", markup=False)
+            yield DataTable(id="keys-table", cursor_type="row", zebra_stripes=True)
+        yield Footer(compact=True)
+
+    def on_mount(self) -> None:
+        table = self.query_one(DataTable)
+        table.add_columns("Where", "Key", "Does")
+        for row in key_table():
+            table.add_row(*row)
+        table.focus()
+
+    def action_close(self) -> None:
+        self.dismiss(None)

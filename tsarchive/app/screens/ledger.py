@@ -1,0 +1,199 @@
+"""The Ledger: one archive's channels, its overall state, the caution, and verification.
+
+The archive is opened by ``tsarchive.open`` in a worker. ``v`` runs
+``Archive.verify`` (against the original when it is found next to the archive or
+in the Shelf's folder) in a thread worker with progress; the check panel names any
+failing window. Enter on a channel opens it in the Strip; ``e`` exports a range.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from textual import work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.reactive import reactive
+from textual.screen import Screen
+from textual.widgets import DataTable, Footer, Static
+
+import tsarchive
+from tsarchive.app import fmt
+from tsarchive.app.guard import archive_lock
+from tsarchive.app.locate import find_source
+from tsarchive.app.messages import ArchiveReady, CheckDone, CheckStep, WorkFailed
+from tsarchive.app.screens.base import Notices
+from tsarchive.app.widgets.pick_table import PickTable
+from tsarchive.app.summary import FAILED, UNVERIFIED, archive_duration, check_lines, over_budget
+from tsarchive.app.widgets.caution import Caution
+from tsarchive.app.widgets.stage_progress import StageProgress
+from tsarchive.errors import ArchiveCorrupt, TsArchiveError
+
+COLUMNS = ("Channel", "Unit", "Rate", "Length", "Budget", "Worst error", "Used", "Ratio", "Bits/sample")
+
+
+class LedgerScreen(Notices, Screen):
+    """Channels table, state line, caution and check panel of the archive at ``path``."""
+
+    BINDINGS = [
+        Binding("s", "strip", "Strip"),
+        Binding("v", "verify", "Verify"),
+        Binding("e", "export", "Export"),
+        Binding("escape", "back", "Back"),
+    ]
+
+    check_state: reactive[str] = reactive(UNVERIFIED, init=False)
+    checking: reactive[bool] = reactive(False, init=False)
+
+    def __init__(self, path: Path) -> None:
+        super().__init__(id="ledger")
+        self.path = Path(path)
+        self.archive = None
+        self.source: Path | None = None
+
+    def compose(self) -> ComposeResult:
+        yield Static(f"Ledger · {self.path.name}", id="ledger-title", classes="title", markup=False)
+        yield Caution(id="ledger-caution")
+        yield Static("opening…", id="ledger-state", markup=False)
+        yield PickTable(id="ledger-table")
+        yield StageProgress(("verify",), id="ledger-progress")
+        yield Static("", id="ledger-check", markup=False)
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.query_one(DataTable).add_columns(*COLUMNS)
+        self.query_one("#ledger-progress").display = False
+        self.check_state = self.app.checks.get(self.path, UNVERIFIED)  # type: ignore[attr-defined]
+        self.load(self.path, getattr(self.app, "folder", self.path.parent))
+
+    @work(thread=True, exclusive=True, group="ledger-open", exit_on_error=False)
+    def load(self, path: Path, folder: Path) -> None:
+        try:
+            arc = tsarchive.open(path)
+        except TsArchiveError as exc:
+            self.post_message(WorkFailed(str(exc), title="Cannot open the archive"))
+            return
+        self.post_message(ArchiveReady(arc, find_source(path, arc.source_name, [folder])))
+
+    def on_archive_ready(self, message: ArchiveReady) -> None:
+        arc = self.archive = message.archive
+        self.source = message.source
+        table = self.query_one(DataTable)
+        table.clear()
+        for ch in arc.channels:
+            unit = ch.unit or "—"
+            bound = "lossless" if ch.eps == 0 else f"±{fmt.num(ch.eps)}"
+            table.add_row(ch.name, unit, fmt.rate(ch.rate), fmt.duration(ch.duration), f"{ch.budget} ({bound})",
+                          fmt.num(ch.worst_error), fmt.pct(ch.used_pct), fmt.ratio(ch.ratio),
+                          f"{ch.bits_per_sample:.2f}", key=ch.name)
+        self._show_state()
+        table.focus()
+
+    def _show_state(self) -> None:
+        arc = self.archive
+        if arc is None:
+            return
+        over = over_budget(arc.channels)
+        budget = ("Within budget: every channel's worst error is inside its budget" if not over
+                  else f"OVER BUDGET: {', '.join(over)}")
+        if self.source is not None:
+            original = f"original {self.source.name} found"
+        else:
+            original = f"original {arc.source_name or '(unnamed)'} not found (verify checks checksums only)"
+        self.query_one("#ledger-state", Static).update(
+            f"{budget}.\nCheck: {self.check_state} · {len(arc.channels)} channels · "
+            f"{fmt.duration(archive_duration(arc.channels))} · {fmt.size(arc.archive_bytes)} · "
+            f"ratio {fmt.ratio(arc.ratio)} · {original}")
+
+    def watch_check_state(self, state: str) -> None:
+        self.app.checks[self.path] = state  # type: ignore[attr-defined]
+        self._show_state()
+
+    def watch_checking(self, checking: bool) -> None:
+        if checking:
+            progress = self.query_one("#ledger-progress", StageProgress)
+            progress.display = True
+            progress.reset()
+            self.query_one("#ledger-check", Static).update("verifying… every window is decoded and checked")
+        self.refresh_bindings()
+
+    # -- verification ----------------------------------------------------------
+    def action_verify(self) -> None:
+        if self.archive is None or self.checking:
+            return
+        self.checking = True
+        self.run_verify(self.archive, self.source)
+
+    @work(thread=True, exclusive=True, group="ledger-verify", exit_on_error=False)
+    def run_verify(self, arc, source: Path | None) -> None:
+        try:
+            with archive_lock(arc):
+                report = arc.verify(against=source, progress=lambda p: self.post_message(CheckStep(p)))
+                starts = {ch.name: arc.windows(ch.name).start_sample / arc.channel(ch.name).rate
+                          for ch in report.channels if ch.bad_windows or ch.bad_checksums}
+        except ArchiveCorrupt as exc:
+            self.post_message(CheckDone(None, source, {}, problem=str(exc), damaged=True))
+            return
+        except TsArchiveError as exc:
+            self.post_message(CheckDone(None, source, {}, problem=str(exc)))
+            return
+        self.post_message(CheckDone(report, source, starts))
+
+    def on_check_step(self, message: CheckStep) -> None:
+        self.query_one("#ledger-progress", StageProgress).advance(message.progress)
+
+    def on_check_done(self, message: CheckDone) -> None:
+        self.checking = False
+        progress = self.query_one("#ledger-progress", StageProgress)
+        panel = self.query_one("#ledger-check", Static)
+        if message.report is None:
+            if message.damaged:
+                progress.halt("verification FAILED: the archive is damaged")
+                panel.update(f"Verification FAILED: {message.problem}\nKeep the original recording.")
+                self.check_state = FAILED
+            else:
+                progress.halt("verification did not finish")
+                panel.update(f"Verification did not finish: {message.problem}\nThe archive stays {self.check_state}.")
+            self.notify(message.problem or "verification stopped", title="Verification", severity="error", timeout=8)
+            return
+        lines = check_lines(message.report, message.against.name if message.against else None, message.starts)
+        progress.finish("done" if message.report.ok else "done: problems found, see below")
+        panel.update("\n".join((lines.headline, *lines.details)))
+        self.check_state = lines.state
+        if not message.report.ok:
+            self.notify(lines.headline, title="Verification failed", severity="error", timeout=8)
+
+    def work_stopped(self, worker) -> None:
+        if worker.group == "ledger-verify":
+            self.checking = False
+
+    # -- navigation --------------------------------------------------------------
+    def action_strip(self) -> None:
+        if self.archive is None or not self.archive.channels:
+            return
+        from tsarchive.app.screens.strip import StripScreen
+
+        row = self.query_one(DataTable).cursor_row
+        channel = self.archive.channels[min(max(row, 0), len(self.archive.channels) - 1)].name
+        self.app.push_screen(StripScreen(self.archive, channel, self.source))
+
+    def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
+        event.stop()
+        self.action_strip()
+
+    def action_export(self) -> None:
+        if self.archive is None:
+            return
+        from tsarchive.app.screens.export import ExportScreen
+
+        self.app.push_screen(ExportScreen(self.archive))
+
+    def action_back(self) -> None:
+        self.app.pop_screen()
+
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        if action in ("strip", "export", "verify") and self.archive is None:
+            return None
+        if action == "verify" and self.checking:
+            return None
+        return True

@@ -1,0 +1,203 @@
+"""The Shelf: the recordings and archives of one folder (the app's start screen).
+
+Names and sizes are listed at once; durations, channel counts and ratios are read
+by a worker one file at a time (``tsarchive.inspect_source`` / ``tsarchive.open``)
+so a big folder stays responsive. The check column shows this session's
+verification state of each archive (kept in the App, not on disk).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from textual import work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.screen import Screen
+from textual.widgets import DataTable, Footer, Static
+
+import tsarchive
+from tsarchive.app import fmt
+from tsarchive.app.locate import ShelfEntry, scan_folder, tree_size
+from tsarchive.app.messages import ShelfDetailsLoaded, WorkFailed
+from tsarchive.app.screens.base import Notices
+from tsarchive.app.widgets.pick_table import PickTable
+from tsarchive.app.summary import UNVERIFIED, archive_duration
+from tsarchive.errors import TsArchiveError
+
+COLUMNS = ("Name", "Kind", "Size", "Length", "Ch", "Ratio", "Check")
+WAITING = "…"
+
+
+def _count(n: int, noun: str) -> str:
+    return f"{n} {noun}" + ("" if n == 1 else "s")
+
+
+class ShelfScreen(Notices, Screen):
+    """Lists ``folder``; Enter packs a recording or opens an archive in the Ledger."""
+
+    BINDINGS = [
+        Binding("p", "pack", "Pack"),
+        Binding("r", "rescan", "Rescan"),
+    ]
+
+    def __init__(self, folder: Path) -> None:
+        super().__init__(id="shelf")
+        self.folder = Path(folder)
+        self.entries: list[ShelfEntry] = []
+        self.details: dict[Path, ShelfDetailsLoaded] = {}
+        self.pending: Path | None = None
+
+    def compose(self) -> ComposeResult:
+        yield Static("", id="shelf-title", classes="title", markup=False)
+        yield PickTable(id="shelf-table")
+        yield Static("", id="shelf-note", classes="note", markup=False)
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.query_one(DataTable).add_columns(*COLUMNS)
+
+    def on_screen_resume(self) -> None:
+        """Rescan whenever the Shelf comes back (a pack may have added an archive)."""
+        self.rescan()
+
+    # -- listing ---------------------------------------------------------
+    def rescan(self) -> None:
+        """List the folder again; details already read are reused unless the size changed."""
+        try:
+            found = scan_folder(self.folder)
+        except TsArchiveError as exc:
+            self.notify(str(exc), severity="error")
+            found = []
+        found = [ShelfEntry(e.path, e.kind, tree_size(e.path)) if e.is_archive else e for e in found]
+        old_sizes = {e.path: e.size for e in self.entries}
+        for e in found:
+            if old_sizes.get(e.path) != e.size:
+                self.details.pop(e.path, None)
+        self.entries = found
+        table = self.query_one(DataTable)
+        keep = table.cursor_row
+        table.clear()
+        for e in found:
+            table.add_row(*self._cells(e), key=str(e.path))
+        if found:
+            table.move_cursor(row=min(keep, len(found) - 1))
+        if self.pending is not None:
+            self.select_path(self.pending)
+        n_arc = sum(e.is_archive for e in found)
+        self.query_one("#shelf-title", Static).update(
+            f"Shelf · {self.folder} — {_count(len(found) - n_arc, 'recording')}, {_count(n_arc, 'archive')}")
+        self._update_note()
+        missing = [e for e in found if e.path not in self.details]
+        if missing:
+            self.load_details(missing)
+
+    def _cells(self, e: ShelfEntry) -> tuple[str, ...]:
+        d = self.details.get(e.path)
+        if e.is_archive:
+            check = self.app.checks.get(e.path, UNVERIFIED)  # type: ignore[attr-defined]
+        else:
+            check = "—"
+        if d is None:
+            return (e.path.name, e.kind, fmt.size(e.size), WAITING, WAITING, WAITING if e.is_archive else "—", check)
+        if d.problem:
+            return (e.path.name, e.kind, fmt.size(e.size), "unreadable", "—", "—", check)
+        n = "—" if d.n_channels is None else str(d.n_channels)
+        return (e.path.name, e.kind, fmt.size(e.size), fmt.duration(d.duration), n,
+                fmt.ratio(d.ratio) if e.is_archive else "—", check)
+
+    @work(thread=True, exclusive=True, group="shelf-details", exit_on_error=False)
+    def load_details(self, entries: list[ShelfEntry]) -> None:
+        """Read each entry's header in a thread; post one message per entry."""
+        from textual.worker import get_current_worker
+
+        worker = get_current_worker()
+        for e in entries:
+            if worker.is_cancelled:
+                return
+            try:
+                if e.is_archive:
+                    arc = tsarchive.open(e.path)
+                    chans = arc.channels
+                    msg = ShelfDetailsLoaded(e.path, archive_duration(chans), len(chans),
+                                             chans[0].rate if chans else None, arc.ratio)
+                else:
+                    rec = tsarchive.inspect_source(e.path)
+                    msg = ShelfDetailsLoaded(e.path, rec.duration, len(rec.channels), rec.rate)
+            except TsArchiveError as exc:
+                msg = ShelfDetailsLoaded(e.path, problem=str(exc))
+            except OSError as exc:
+                msg = ShelfDetailsLoaded(e.path, problem=f"cannot read {e.path.name}: {exc.strerror or exc}")
+            except ValueError as exc:  # e.g. a malformed table the reader did not anticipate
+                msg = ShelfDetailsLoaded(e.path, problem=f"{e.path.name} cannot be read as a recording ({exc})")
+            self.post_message(msg)
+
+    def on_shelf_details_loaded(self, message: ShelfDetailsLoaded) -> None:
+        self.details[message.path] = message
+        entry = next((e for e in self.entries if e.path == message.path), None)
+        if entry is None:
+            return
+        table = self.query_one(DataTable)
+        for col, value in zip(table.columns, self._cells(entry)):
+            table.update_cell(str(entry.path), col, value, update_width=True)
+        self._update_note()
+
+    # -- selection ---------------------------------------------------------
+    @property
+    def selected(self) -> ShelfEntry | None:
+        table = self.query_one(DataTable)
+        if not self.entries or table.cursor_row < 0:
+            return None
+        return self.entries[min(table.cursor_row, len(self.entries) - 1)]
+
+    def select_path(self, path: Path) -> None:
+        """Put the cursor on ``path`` (now, or after the next scan lists it)."""
+        rows = [e.path for e in self.entries]
+        if path in rows:
+            self.query_one(DataTable).move_cursor(row=rows.index(path))
+            self.pending = None
+        else:
+            self.pending = path
+
+    def on_data_table_row_highlighted(self, _event: DataTable.RowHighlighted) -> None:
+        self._update_note()
+
+    def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
+        event.stop()
+        self.action_open_row()
+
+    def _update_note(self) -> None:
+        note = self.query_one("#shelf-note", Static)
+        e = self.selected
+        if e is None:
+            note.update("Nothing to show here: put recordings (.npy, .csv, .parquet) or archives (.tsa) "
+                        "in this folder, or start tsarchive in another one. Press r to look again.")
+            return
+        d = self.details.get(e.path)
+        what = "Enter opens it in the Ledger." if e.is_archive else "Enter or p takes it to the Pack bench."
+        line = f"{e.path.name}: {what}"
+        if d is not None and d.problem:
+            line += f"\n{d.problem}"
+        elif d is not None and d.rate:
+            line += f"  {fmt.rate(d.rate)}, {d.n_channels} channels, {fmt.duration(d.duration)}."
+        note.update(line)
+
+    def action_open_row(self) -> None:
+        e = self.selected
+        if e is None:
+            return
+        if e.is_archive:
+            self.app.open_archive(e.path)  # type: ignore[attr-defined]
+        else:
+            self.app.open_bench(e.path)  # type: ignore[attr-defined]
+
+    def action_pack(self) -> None:
+        e = self.selected
+        if e is None or e.is_archive:
+            self.post_message(WorkFailed("pick a recording (.npy, .csv, .parquet) to pack", title="Pack"))
+            return
+        self.app.open_bench(e.path)  # type: ignore[attr-defined]
+
+    def action_rescan(self) -> None:
+        self.details.clear()
+        self.rescan()

@@ -1,0 +1,38 @@
+"""One channel on the Pack bench: its name, unit and resolution, and a budget field."""
+
+from __future__ import annotations
+
+from textual.app import ComposeResult
+from textual.containers import Horizontal
+from textual.widgets import Input, Label
+
+DEFAULT_BUDGET = "0.1%"
+
+
+def resolution_text(decimals: int | None) -> str:
+    """The detected logging step in words (``None``: no grid, so no lossless)."""
+    if decimals is None:
+        return "no fixed step (lossless not offered)"
+    return f"step {10.0 ** (-decimals):g}"
+
+
+class BudgetRow(Horizontal):
+    """Budget field for one channel; ``spec`` is what the user typed (default 0.1%)."""
+
+    def __init__(self, index: int, channel, *, spec: str = DEFAULT_BUDGET) -> None:
+        super().__init__(classes="budget-row", id=f"budget-row-{index}")
+        self.index = index
+        self.channel = channel
+        self._spec = spec
+
+    def compose(self) -> ComposeResult:
+        unit = f" [{self.channel.unit}]" if self.channel.unit else ""
+        yield Label(f"{self.channel.name}{unit}", classes="budget-name", markup=False)
+        yield Input(value=self._spec, placeholder=DEFAULT_BUDGET, id=f"budget-{self.index}",
+                    classes="budget-input", compact=True,
+                    tooltip="error budget: 0.02 (channel units), 0.1% (of range) or lossless")
+        yield Label(resolution_text(self.channel.decimals), classes="budget-step", markup=False)
+
+    @property
+    def spec(self) -> str:
+        return self.query_one(Input).value
