@@ -45,6 +45,8 @@ TRAIN_WINDOWS = 20000        # bound on the training sample, whatever the record
 TABLE_SAMPLES = 4_000_000    # bound on the samples used to build each channel's tables
 CHUNK_SAMPLES = 1 << 20      # samples encoded per step (bounds memory)
 MIN_MODEL_WINDOWS = 8        # fewer full windows than this: no autoencoder
+DECODER_SHARE = 0.01         # decoder parameters per sample of the whole recording (sizing rule)
+MAX_MODEL_SHARE = 0.05       # the stored decoder may cost at most this share of the raw sample bytes
 
 
 def pack(source, archive, budget=None, *, rate: float | None = None, window: int | None = None,
@@ -125,6 +127,16 @@ def _grid_for(rec: Recording, j: int, budget) -> Grid:
     return make_grid(eps, ch.decimals, np.dtype(ch.dtype), anchor)
 
 
+def _grid_note(budget, grid: Grid, decimals: int | None) -> str:
+    """Why a lossy budget ended up exact, in words for reports."""
+    if budget.kind == "lossless" or grid.eps > 0:
+        return ""
+    if grid.kind == "decimal":
+        return (f"budget {budget.spec} is finer than half the logged resolution {10.0 ** -grid.decimals:g}, "
+                "so the channel is stored exactly")
+    return f"budget {budget.spec} of a zero range is 0, so the channel is stored exactly"
+
+
 def _finite_range(col: np.ndarray) -> tuple[float, float, float]:
     lo, hi, anchor = math.inf, -math.inf, math.nan
     for s in range(0, len(col), CHUNK_SAMPLES):
@@ -164,8 +176,14 @@ def _train(rec: Recording, grids: list[Grid], W: int, K: int, emit, seconds: flo
         scales.append(scale)
         if len(q) and scale <= FRAC_SAFE_SCALE:
             xs.append(normalise(q, lv, scale, W))
-    if K == 0 or sum(len(x) for x in xs) < MIN_MODEL_WINDOWS:
-        emit("train", 1, 1, "recording too short for an autoencoder; using sample predictors only")
+    from .model.spec import choose_hidden, decoder_params
+    total_windows = sum(rec.n_samples // W for _ in range(C))
+    hidden = choose_hidden(max(total_windows, 1), W, max(K, 1), budget=DECODER_SHARE)
+    raw_bytes = sum(rec.n_samples * np.dtype(c.dtype).itemsize for c in rec.channels)
+    too_big = 2 * decoder_params(max(K, 1), hidden, W) > MAX_MODEL_SHARE * raw_bytes
+    if K == 0 or sum(len(x) for x in xs) < MIN_MODEL_WINDOWS or too_big:
+        why = "no code requested" if K == 0 else "recording too short for an autoencoder to pay for its weights"
+        emit("train", 1, 1, f"{why}; using the sample-based predictors only")
         return scales, None
     from .model.train import TrainProgress, train_autoencoder  # torch is imported only here
 
@@ -174,7 +192,7 @@ def _train(rec: Recording, grids: list[Grid], W: int, K: int, emit, seconds: flo
 
     X = np.concatenate(xs)
     emit("train", 0, 1, f"training on {len(X)} windows")
-    model = train_autoencoder(X, K, time_limit_s=seconds, seed=seed, progress=on_epoch,
+    model = train_autoencoder(X, K, hidden=hidden, time_limit_s=seconds, seed=seed, progress=on_epoch,
                               cancel=emit.cancel, max_windows=TRAIN_WINDOWS)
     return scales, model
 
@@ -303,7 +321,7 @@ def _manifest(rec: Recording, spec, grids, scales, lpcs, W, K, decoder, summarie
         channels.append({
             **ch.to_dict(), "rate": rec.rate, "start": _iso(rec.start), "n_samples": rec.n_samples,
             "budget": budget.spec, "eps": g.eps, "grid": g.to_dict(), "scale": int(scales[j]),
-            "lpc": lpcs[j].to_dict(),
+            "lpc": lpcs[j].to_dict(), "note": _grid_note(budget, g, ch.decimals),
             "summary": {"worst_error": s["worst_error"], "used_pct": _used(s["worst_error"], g.eps),
                         "ratio": raw / share if share else math.inf,
                         "bits_per_sample": 8 * share / max(rec.n_samples, 1),

@@ -46,7 +46,7 @@ def archive_dict(arc) -> dict:
                       "duration_s": c.duration, "dtype": c.dtype, "budget": c.budget, "eps": c.eps,
                       "decimals": c.decimals, "worst_error": c.worst_error, "used_pct": c.used_pct,
                       "ratio": c.ratio, "bits_per_sample": c.bits_per_sample, "exceptions": c.n_exceptions,
-                      "predictors": dict(c.modes)} for c in arc.channels],
+                      "predictors": dict(c.modes), "note": c.note} for c in arc.channels],
     }
 
 
@@ -61,7 +61,7 @@ def archive_table(arc) -> str:
         f"{d['tool_version']})",
         f"source {src.get('name', '?')}: {src.get('bytes', 0)} bytes, sha256 {src.get('sha256', '')[:16]}…",
         f"{len(rows)} channel(s)" + (f" at {first.rate:g} Hz, {first.duration:g} s" if first else ""),
-        "", _table(HEADER, rows), "",
+        "", _table(HEADER, rows), *[f"note: {c['name']}: {c['note']}" for c in d["channels"] if c["note"]], "",
         f"ratio {d['ratio']:.2f} ({d['raw_bytes']} raw bytes -> {d['archive_bytes']} archive bytes); "
         + ("within budget" if d["within_budget"] else "OVER BUDGET")])
 

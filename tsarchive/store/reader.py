@@ -52,6 +52,7 @@ class ChannelMeta:
     bits_per_sample: float
     n_exceptions: int
     modes: tuple[tuple[str, int], ...]
+    note: str = ""
 
     @property
     def duration(self) -> float:
@@ -87,13 +88,18 @@ def _channel_meta(d: dict, window: int) -> ChannelMeta:
             lpc=LpcCoefs.from_dict(d.get("lpc")),
             worst_error=float(s["worst_error"]), used_pct=float(s["used_pct"]), ratio=float(s["ratio"]),
             bits_per_sample=float(s["bits_per_sample"]), n_exceptions=int(s.get("n_exceptions", 0)),
-            modes=tuple(sorted(s.get("modes", {}).items())))
+            modes=tuple(sorted(s.get("modes", {}).items())), note=str(d.get("note", "")))
     except (KeyError, TypeError, ValueError) as exc:
         raise ArchiveCorrupt(f"manifest channel entry is incomplete ({exc}); the archive is damaged") from None
 
 
 class Archive:
-    """A read-only view of one archive directory; see :func:`open_archive`."""
+    """A read-only view of one archive directory; see :func:`open_archive`.
+
+    Not thread-safe: it caches open Parquet files and tables lazily.  Give
+    each thread its own ``Archive`` (opening one only reads the manifest) or
+    serialise access.
+    """
 
     def __init__(self, path: str | Path) -> None:
         self.path = Path(path)
