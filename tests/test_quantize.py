@@ -99,3 +99,12 @@ def test_error_is_actually_used(eps):
     q, pos, bits = quantize(x, g)
     err = g.dequantize(q, pos, bits) - x
     assert np.abs(err).max() > 0.9 * eps
+
+
+def test_int_channel_held_in_a_float64_table_is_lossless():
+    # CSV tables with mixed columns are held as float64; an int64 channel must still be exact.
+    x = np.array([501.0, 504.0, -3.0, 2.0**40])
+    g = make_grid(0.0, 0, np.dtype("int64"))
+    q, pos, bits = quantize(x, g)
+    assert len(pos) == 0
+    assert g.dequantize(q, pos, bits).tolist() == [501, 504, -3, 2**40]

@@ -147,9 +147,9 @@ def quantize(x: np.ndarray, grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndar
     """
     x = np.asarray(x)
     x64 = x.astype(np.float64)
+    # The source column may be held wider than its own dtype (a float64 table with an int column):
+    # exactness is judged on the value in the channel's dtype.
     raw_bits = values_to_bits(x.astype(grid.out_dtype)) if grid.eps == 0 else None
-    if grid.eps == 0 and np.dtype(grid.out_dtype) != x.dtype:
-        raw_bits = values_to_bits(x)
     with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
         scaled = x64 * float(10**grid.decimals) if grid.kind == "decimal" else (x64 - grid.offset) / grid.step
         finite = np.isfinite(scaled) & (np.abs(scaled) < _MAX_Q)

@@ -22,7 +22,11 @@ from ..errors import ArchiveExists, BadInput
 from . import schema as S
 
 _PARQUET_OPTS = dict(compression="zstd", compression_level=9, write_statistics=["channel", "window", "start"],
-                     use_dictionary=["channel", "coder"])
+                     use_dictionary=["channel", "coder", "mode"],
+                     column_encoding={"window": "DELTA_BINARY_PACKED", "start": "DELTA_BINARY_PACKED",
+                                      "level": "DELTA_BINARY_PACKED", "n": "DELTA_BINARY_PACKED",
+                                      "crc32": "PLAIN", "worst_error": "BYTE_STREAM_SPLIT",
+                                      "score": "BYTE_STREAM_SPLIT"})
 
 
 def is_archive_dir(path: Path) -> bool:

@@ -1,0 +1,47 @@
+"""The committed golden archive freezes format version 1.
+
+If a change to the code makes this fail, the archive format changed: that
+must be deliberate (bump FORMAT_VERSION, keep a reader for version 1, or
+regenerate with ``python tests/golden/make_golden.py`` and say so).
+"""
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pyarrow.parquet as pq
+
+import tsarchive
+from tsarchive.quantize import values_to_bits
+from tsarchive.store import schema as S
+
+HERE = Path(__file__).resolve().parent / "golden"
+ARC = HERE / "golden.tsa"
+
+
+def test_golden_decodes_bit_for_bit():
+    arc = tsarchive.open(ARC)
+    expected = np.load(HERE / "expected.npz")
+    assert [c.name for c in arc.channels] == ["strain", "temp", "counts"]
+    for c in arc.channels:
+        got = arc.read(c.name)
+        assert got.dtype == expected[c.name].dtype
+        np.testing.assert_array_equal(values_to_bits(got), values_to_bits(expected[c.name]))
+
+
+def test_golden_is_within_budget_of_its_source():
+    rep = tsarchive.verify(ARC, against=HERE / "source.csv")
+    assert rep.ok and rep.checksums_ok and rep.compared, rep.problems
+    arc = tsarchive.open(ARC)
+    assert arc.channel("strain").eps == 0.5 and arc.channel("temp").eps == 0.0
+    assert arc.manifest["model"] is not None  # the golden archive exercises the integer decoder
+
+
+def test_golden_schema_and_manifest_are_version_1():
+    manifest = json.loads((ARC / "manifest.json").read_text())
+    assert manifest["format"] == "tsarchive" and manifest["format_version"] == 1 == S.FORMAT_VERSION
+    assert pq.read_schema(ARC / "windows.parquet").remove_metadata().equals(S.WINDOWS_SCHEMA)
+    assert pq.read_schema(ARC / "tables.parquet").remove_metadata().equals(S.TABLES_SCHEMA)
+    assert pq.read_schema(ARC / "model.parquet").remove_metadata().equals(S.MODEL_SCHEMA)
+    modes = set(pq.read_table(ARC / "windows.parquet", columns=["mode"])["mode"].to_pylist())
+    assert len(modes) >= 2  # more than one predictor is frozen here
