@@ -273,11 +273,12 @@ def _encode_batch(x, first_window, name, grid: Grid, W, model, scale, lpc, table
             payloads[i] = p
     xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
     x64, xh64 = x.astype(np.float64), xh.astype(np.float64)
-    with np.errstate(invalid="ignore"):
+    with np.errstate(invalid="ignore", over="ignore"):
         err = np.where(np.isfinite(x64), np.abs(xh64 - x64), 0.0)
         preview = grid.to_out(grid.values(lv[:, None] + np.zeros((1, L), np.int64) if ae is None else ae))
-        dev = np.where(np.isfinite(x64), x64 - preview.astype(np.float64), np.nan)
-        score = np.sqrt(np.nanmean(dev * dev, axis=1)) if L else np.zeros(nb)
+        fin = np.isfinite(x64)
+        dev = np.where(fin, x64 - preview.astype(np.float64), 0.0)
+        score = np.sqrt((dev * dev).sum(axis=1) / np.maximum(fin.sum(axis=1), 1))
     wpos = pos // L
     worst = err.max(axis=1) if L else np.zeros(nb)
     return pa.table({
@@ -294,13 +295,15 @@ def _encode_batch(x, first_window, name, grid: Grid, W, model, scale, lpc, table
         "exc_bits": [bits[wpos == i] for i in range(nb)],
         "crc32": np.array([checksum.window_crc(xh[i]) for i in range(nb)], dtype=np.int64),
         "worst_error": _round_up32(worst),
-        "score": np.nan_to_num(score, nan=0.0).astype(np.float32),
+        "score": np.nan_to_num(score, nan=0.0, posinf=np.finfo(np.float32).max).clip(0, np.finfo(np.float32).max)
+        .astype(np.float32),
     }, schema=S.WINDOWS_SCHEMA), float(worst.max(initial=0.0))
 
 
 def _round_up32(x: np.ndarray) -> np.ndarray:
     """float32 values never below ``x`` (so a stored worst error never understates)."""
-    y = x.astype(np.float32)
+    with np.errstate(over="ignore"):
+        y = x.astype(np.float32)
     low = y.astype(np.float64) < x
     y[low] = np.nextafter(y[low], np.float32(np.inf))
     return y
