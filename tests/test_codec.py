@@ -53,11 +53,11 @@ def test_choose_modes_picks_cheapest_and_inverts():
     q = smooth + noise
     ae = smooth.copy()  # a perfect autoencoder for the smooth part
     ctx = Context(levels(q), ae)
-    modes, res = choose_modes(q, ctx, None)
+    modes, _, res = choose_modes(q, ctx, None)
     assert set(modes.tolist()) <= {2, 3}
     np.testing.assert_array_equal(reconstruct(modes, ctx, res), q)
     ctx = Context(levels(q))
-    modes, res = choose_modes(q, ctx, None)
+    modes, _, res = choose_modes(q, ctx, None)
     assert set(modes.tolist()) <= {0, 1}
     np.testing.assert_array_equal(reconstruct(modes, ctx, res), q)
 

@@ -7,10 +7,11 @@ whatever the machine, thread count or inference path.
 
 Predictor choice is per window, by estimated coded bits: the ideal code
 length of the window's residuals under the channel's entropy table for
-that predictor, plus the side cost of nothing else (codes and levels are
+that predictor and the window's activity class (codes and levels are
 stored for every window, whatever its predictor, because browsing uses
 them).  Before tables exist a Laplace-style proxy ``sum log2(1 + 2|r|)``
-stands in.
+stands in.  Classes let quiet and busy stretches of one channel use
+different tables, so a quiet window is not charged for the busy ones.
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ from .predict import PREDICTORS, Context, get_predictor
 from .predict import lpc as lpc_mod
 
 CODER_ID = "range"       # entropy coder id stored with every residual payload (tsarchive.entropy.CODERS)
+N_CLASSES = 16           # residual activity classes, each may have its own table
 FRAC_SAFE_SCALE = 2**36  # largest channel scale the autoencoder path accepts
 Y_CLIP = 2**24           # bound on the decoder's fixed-point output before scaling
 
@@ -43,11 +45,10 @@ def proxy_bits(r: np.ndarray) -> np.ndarray:
     return np.log2(1.0 + 2.0 * a).sum(axis=1) + r.shape[1]
 
 
-def window_bits(r: np.ndarray, table) -> np.ndarray:
-    """Ideal coded bits per window under ``table`` (or the proxy when ``table`` is None)."""
-    if table is None:
-        return proxy_bits(r)
-    return sample_costs(r, table).sum(axis=1)
+def spread_class(r: np.ndarray) -> np.ndarray:
+    """Activity class of each window's residuals: ``floor(1.5 log2(1 + mean|r|))`` in 0..15."""
+    m = np.abs(r).mean(axis=1) if r.shape[1] else np.zeros(r.shape[0])
+    return np.clip(np.floor(1.5 * np.log2(1.0 + m)), 0, N_CLASSES - 1).astype(np.int8)
 
 
 def sample_costs(r: np.ndarray, table) -> np.ndarray:
@@ -59,34 +60,81 @@ def sample_costs(r: np.ndarray, table) -> np.ndarray:
     return cost.reshape(r.shape)
 
 
-def choose_modes(q: np.ndarray, ctx: Context, tables: dict[int, object] | None) -> tuple[np.ndarray, np.ndarray]:
-    """Pick the cheapest predictor per window.
+class TableSet:
+    """A channel's entropy tables, keyed ``(predictor, class)``.
 
-    Returns ``(modes int8[N], residuals int64[N, n])``.  With ``tables``
-    given, only predictors that have a table are considered.
+    A window coded with predictor ``m`` uses the table of ``m`` whose class
+    is nearest to the window's own :func:`spread_class`; the class used is
+    stored per window, so decoding never recomputes it.
+    """
+
+    def __init__(self, tables: dict[tuple[int, int], object]) -> None:
+        self.tables = dict(tables)
+        self._classes = {}
+        for m, c in self.tables:
+            self._classes.setdefault(m, []).append(c)
+        self._classes = {m: np.array(sorted(cs), dtype=np.int8) for m, cs in self._classes.items()}
+
+    @property
+    def modes(self) -> list[int]:
+        return sorted(self._classes)
+
+    def nearest(self, mode: int, cls: np.ndarray) -> np.ndarray:
+        have = self._classes[mode]
+        i = np.clip(np.searchsorted(have, cls), 1, len(have) - 1) if len(have) > 1 else np.zeros(len(cls), int)
+        if len(have) == 1:
+            return np.full(len(cls), have[0], dtype=np.int8)
+        lo, hi = have[i - 1], have[i]
+        return np.where(np.abs(cls - lo) <= np.abs(hi - cls), lo, hi).astype(np.int8)
+
+    def bits(self, mode: int, r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Per-window bits of residuals ``r`` under predictor ``mode``'s best-matching tables, and the classes."""
+        cls = self.nearest(mode, spread_class(r))
+        bits = np.empty(r.shape[0])
+        for c in np.unique(cls):
+            sel = cls == c
+            bits[sel] = sample_costs(r[sel], self.tables[(mode, int(c))]).sum(axis=1)
+        return bits, cls
+
+    def __getitem__(self, key: tuple[int, int]):
+        return self.tables[key]
+
+
+def choose_modes(q: np.ndarray, ctx: Context, tables: TableSet | None
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Pick the cheapest predictor (and table class) per window.
+
+    Returns ``(modes int8[N], classes int8[N], residuals int64[N, n])``.
+    Without ``tables`` the proxy decides and classes are the windows' own
+    spread classes; with them, only predictors that have tables compete.
     """
     modes = candidate_modes(ctx)
     if tables is not None:
-        modes = [m for m in modes if m in tables] or [0]
+        modes = [m for m in modes if m in tables.modes] or tables.modes[:1]
     best_bits = None
     best_mode = np.zeros(q.shape[0], dtype=np.int8)
+    best_cls = np.zeros(q.shape[0], dtype=np.int8)
     best_res = None
     lpc_ok = lpc_mod.usable(q, ctx.level) if any(PREDICTORS[m].uses_lpc for m in modes) else None
     for m in modes:
         p = get_predictor(m)
         r = p.residuals(q, ctx)
-        bits = window_bits(r, None if tables is None else tables.get(m))
+        if tables is None:
+            bits, cls = proxy_bits(r), spread_class(r)
+        else:
+            bits, cls = tables.bits(m, r)
         if p.uses_lpc:
             bits = np.where(lpc_ok, bits, np.inf)
         if best_bits is None:
             best_bits, best_res = bits, r.copy()
-            best_mode[:] = m
+            best_mode[:], best_cls[:] = m, cls
             continue
         better = bits < best_bits
         best_bits = np.where(better, bits, best_bits)
         best_mode[better] = m
+        best_cls[better] = cls[better]
         best_res[better] = r[better]
-    return best_mode, best_res
+    return best_mode, best_cls, best_res
 
 
 def reconstruct(modes: np.ndarray, ctx: Context, residuals: np.ndarray) -> np.ndarray:

@@ -7,7 +7,7 @@ Packing::
     windows -> fixed windows of W samples with a level each          (windows.py)
     codes   -> a small autoencoder learned from a bounded sample      (model/)
     residuals -> per window the cheapest integer predictor            (codec.py, predict/)
-    entropy -> rANS with one integer table per channel and predictor  (entropy.py)
+    entropy -> range coding, integer tables per channel/predictor/class (entropy.py)
     Parquet -> staged archive, checked through the reader, renamed    (store/)
 
 Reading reverses it in :mod:`tsarchive.store.reader` (numpy + pyarrow only).
@@ -26,7 +26,7 @@ import pyarrow as pa
 
 from . import __version__, checksum, entropy
 from .budget import parse_budget_spec
-from .codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, choose_modes, proxy_bits
+from .codec import CODER_ID, FRAC_SAFE_SCALE, TableSet, ae_prediction, choose_modes, proxy_bits
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .ingest import read_recording
 from .predict import PREDICTORS, Context
@@ -43,6 +43,7 @@ DEFAULT_CODE_SIZE = 8
 MAX_CODE_SIZE = 64
 TRAIN_WINDOWS = 20000        # bound on the training sample, whatever the recording's length
 TABLE_SAMPLES = 4_000_000    # bound on the samples used to build each channel's tables
+MIN_TABLE_SAMPLES = 8192     # a table class with fewer samples is merged into its neighbour
 CHUNK_SAMPLES = 1 << 20      # samples encoded per step (bounds memory)
 MIN_MODEL_WINDOWS = 8        # fewer full windows than this: no autoencoder
 DECODER_SHARE = 0.01         # decoder parameters per sample of the whole recording (sizing rule)
@@ -86,9 +87,9 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
         for j, ch in enumerate(rec.channels):
             lpc, tables = _plan_channel(rec.column(j), grids[j], W, model, scales[j])
             lpcs.append(lpc)
-            for mode, table in sorted(tables.items()):
-                table_rows.append({"channel": ch.name, "mode": mode, "coder": CODER_ID,
-                                   "table": table.to_bytes()})
+            for (mode, cls), table in sorted(tables.tables.items()):
+                table_rows.append({"channel": ch.name, "mode": mode, "table": cls, "coder": CODER_ID,
+                                   "freqs": table.to_bytes()})
             stats = _encode_channel(writer, rec.column(j), ch.name, grids[j], W, model, scales[j], lpc, tables,
                                     emit, done, total_windows)
             summaries.append(stats)
@@ -211,7 +212,7 @@ def _predict_batch(x: np.ndarray, grid: Grid, W: int, model, scale: int):
 
 
 def _plan_channel(col: np.ndarray, grid: Grid, W: int, model, scale: int):
-    """LPC coefficients and one entropy table per predictor, from a bounded sample of windows."""
+    """LPC coefficients and entropy tables per (predictor, activity class), from a bounded sample of windows."""
     n = len(col)
     idx = _sample_windows(n, W, max(1, TABLE_SAMPLES // W))
     batches_ = []
@@ -225,13 +226,39 @@ def _plan_channel(col: np.ndarray, grid: Grid, W: int, model, scale: int):
     full = [(q, c) for q, c in batches_ if q.shape[1] == W]
     lpc = lpc_mod.fit(np.concatenate([q for q, _ in full]), np.concatenate([c.level for _, c in full]),
                       proxy_bits) if full else lpc_mod.LpcCoefs(())
-    chosen: dict[int, list[np.ndarray]] = {}
+    groups: dict[int, dict[int, list[np.ndarray]]] = {}
     for q, c in batches_:
-        ctx = Context(c.level, c.ae, lpc)
-        modes, res = choose_modes(q, ctx, None)
-        for m in np.unique(modes):
-            chosen.setdefault(int(m), []).append(res[modes == m].ravel())
-    return lpc, {m: entropy.build_table(np.concatenate(v)) for m, v in chosen.items()}
+        modes, classes, res = choose_modes(q, Context(c.level, c.ae, lpc), None)
+        for m, k in set(zip(modes.tolist(), classes.tolist())):
+            groups.setdefault(m, {}).setdefault(k, []).append(res[(modes == m) & (classes == k)].ravel())
+    tables = {}
+    for m, by_class in groups.items():
+        for cls, parts in _merge_classes(by_class):
+            tables[(m, cls)] = entropy.build_table(np.concatenate(parts))
+    return lpc, TableSet(tables)
+
+
+def _merge_classes(by_class: dict[int, list[np.ndarray]]) -> list[tuple[int, list[np.ndarray]]]:
+    """Merge neighbouring activity classes until each has enough samples for its table to pay."""
+    total = sum(sum(len(a) for a in v) for v in by_class.values())
+    need = max(MIN_TABLE_SAMPLES, total // 32)
+    out: list[tuple[int, list[np.ndarray]]] = []
+    cur, cur_n, weighted = [], 0, 0.0
+    for cls in sorted(by_class):
+        n = sum(len(a) for a in by_class[cls])
+        cur += by_class[cls]
+        cur_n += n
+        weighted += cls * n
+        if cur_n >= need:
+            out.append((int(round(weighted / cur_n)), cur))
+            cur, cur_n, weighted = [], 0, 0.0
+    if cur:
+        if out:  # a thin top end joins the last table
+            rep, parts = out.pop()
+            out.append((rep, parts + cur))
+        else:
+            out.append((int(round(weighted / max(cur_n, 1))), cur))
+    return out
 
 
 def _encode_channel(writer, col, name, grid: Grid, W, model, scale, lpc, tables, emit, done, total) -> dict:
@@ -265,11 +292,11 @@ def _encode_batch(x, first_window, name, grid: Grid, W, model, scale, lpc, table
     """Rows for a batch of equal-length windows, and their worst error in float64."""
     nb, L = x.shape
     q, pos, bits, lv, codes, ae = _predict_batch(x, grid, W, model, scale)
-    modes, res = choose_modes(q, Context(lv, ae, lpc), tables)
+    modes, classes, res = choose_modes(q, Context(lv, ae, lpc), tables)
     payloads: list[bytes] = [b""] * nb
-    for m in np.unique(modes):
-        sel = np.flatnonzero(modes == m)
-        for i, p in zip(sel, entropy.encode_many(res[sel], tables[int(m)])):
+    for m, k in set(zip(modes.tolist(), classes.tolist())):
+        sel = np.flatnonzero((modes == m) & (classes == k))
+        for i, p in zip(sel, entropy.encode_many(res[sel], tables[(m, k)])):
             payloads[i] = p
     xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
     x64, xh64 = x.astype(np.float64), xh.astype(np.float64)
@@ -287,6 +314,7 @@ def _encode_batch(x, first_window, name, grid: Grid, W, model, scale, lpc, table
         "start": (np.arange(first_window, first_window + nb, dtype=np.int64) * W),
         "n": np.full(nb, L, dtype=np.int32),
         "mode": modes.astype(np.int8),
+        "table": classes.astype(np.int8),
         "level": lv,
         "code": list(codes.astype(np.int8)),
         "coder": [CODER_ID] * nb,

@@ -171,10 +171,11 @@ class Archive:
         return out
 
     @cached_property
-    def _tables(self) -> dict[tuple[str, int], entropy.FreqTable]:
+    def _tables(self) -> dict[tuple[str, int, int], entropy.FreqTable]:
         t = pq.read_table(self.path / S.TABLES)
-        return {(c, int(m)): entropy.FreqTable.from_bytes(b)
-                for c, m, b in zip(t["channel"].to_pylist(), t["mode"].to_pylist(), t["table"].to_pylist())}
+        return {(c, int(m), int(k)): entropy.FreqTable.from_bytes(b)
+                for c, m, k, b in zip(t["channel"].to_pylist(), t["mode"].to_pylist(), t["table"].to_pylist(),
+                                      t["freqs"].to_pylist())}
 
     @cached_property
     def decoder(self):
@@ -217,6 +218,7 @@ class Archive:
             raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} are missing rows; the archive is damaged")
         lens = t["n"].to_numpy().astype(np.int64)
         modes = t["mode"].to_numpy()
+        classes = t["table"].to_numpy()
         level = t["level"].to_numpy()
         payload = t["residual"].to_pylist()
         coders = t["coder"].to_pylist()
@@ -234,10 +236,10 @@ class Archive:
                 if coders[k] != CODER_ID:
                     raise ArchiveCorrupt(f"channel {channel} window {windows[k]}: unknown coder {coders[k]!r}; "
                                          "upgrade tsarchive")
-            for m in np.unique(modes[sel]):
-                pick = np.flatnonzero(modes[sel] == m)
+            for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
+                pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
                 # strict=False: the per-window CRC below catches what a range code cannot
-                dec = entropy.decode_many([payload[sel[k]] for k in pick], int(L), self._table(channel, int(m)),
+                dec = entropy.decode_many([payload[sel[k]] for k in pick], int(L), self._table(channel, m, c),
                                           strict=False)
                 res[pick] = np.stack(dec) if dec else res[pick]
             ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
@@ -252,11 +254,11 @@ class Archive:
                 out[offs[i]:offs[i + 1]] = x
         return out, windows, bad
 
-    def _table(self, channel: str, mode: int) -> entropy.FreqTable:
+    def _table(self, channel: str, mode: int, cls: int) -> entropy.FreqTable:
         try:
-            return self._tables[(channel, mode)]
+            return self._tables[(channel, mode, cls)]
         except KeyError:
-            raise ArchiveCorrupt(f"channel {channel}: no entropy table for predictor {mode_name(mode)}; "
+            raise ArchiveCorrupt(f"channel {channel}: no entropy table for predictor {mode_name(mode)} class {cls}; "
                                  "the archive is damaged") from None
 
     def _ae(self, meta: ChannelMeta, codes: np.ndarray, level: np.ndarray, L: int):

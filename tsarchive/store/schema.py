@@ -5,7 +5,7 @@ An archive is a directory, by convention ``NAME.tsa``::
     manifest.json     format, tool version, channels, budgets, grids, summary,
                       SHA-256 of every member file
     windows.parquet   one row per channel window (codes, residual payloads, checksums)
-    tables.parquet    one row per (channel, predictor): the entropy coder's integer table
+    tables.parquet    one row per (channel, predictor, class): the entropy coder's integer table
     model.parquet     one row per decoder array (plain integers, no pickle)
 
 Why a directory: every member is a plain Parquet or JSON file that any
@@ -37,6 +37,7 @@ WINDOWS_SCHEMA = pa.schema([
     pa.field("start", pa.int64()),           # index of the window's first sample
     pa.field("n", pa.int32()),               # samples in the window (the last may be short)
     pa.field("mode", pa.int8()),             # predictor id (tsarchive.predict)
+    pa.field("table", pa.int8()),            # activity class of the entropy table used (with channel, mode)
     pa.field("level", pa.int64()),           # rounded mean of the window on the integer grid
     pa.field("code", pa.list_(pa.int8())),   # autoencoder code (code_size int8 values; empty without a model)
     pa.field("coder", pa.string()),          # entropy coder id of the residual payload
@@ -51,8 +52,9 @@ WINDOWS_SCHEMA = pa.schema([
 TABLES_SCHEMA = pa.schema([
     pa.field("channel", pa.string()),
     pa.field("mode", pa.int8()),
+    pa.field("table", pa.int8()),            # activity class
     pa.field("coder", pa.string()),
-    pa.field("table", pa.binary()),
+    pa.field("freqs", pa.binary()),          # the coder's integer frequency table (tsarchive.entropy.FreqTable)
 ])
 
 MODEL_SCHEMA = pa.schema([

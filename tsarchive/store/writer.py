@@ -21,8 +21,8 @@ from ..checksum import file_sha256
 from ..errors import ArchiveExists, BadInput
 from . import schema as S
 
-_PARQUET_OPTS = dict(compression="zstd", compression_level=9, write_statistics=["channel", "window", "start"],
-                     use_dictionary=["channel", "coder", "mode"],
+_PARQUET_OPTS = dict(compression="zstd", compression_level=9, store_schema=False, write_statistics=["channel", "window", "start"],
+                     use_dictionary=["channel", "coder", "mode", "table"],
                      column_encoding={"window": "DELTA_BINARY_PACKED", "start": "DELTA_BINARY_PACKED",
                                       "level": "DELTA_BINARY_PACKED", "n": "DELTA_BINARY_PACKED",
                                       "crc32": "PLAIN", "worst_error": "BYTE_STREAM_SPLIT",
@@ -74,7 +74,7 @@ class ArchiveWriter:
         self._windows.write_table(rows.cast(S.WINDOWS_SCHEMA), row_group_size=S.ROW_GROUP_WINDOWS)
 
     def write_tables(self, rows: pa.Table) -> None:
-        pq.write_table(rows.cast(S.TABLES_SCHEMA), self.stage / S.TABLES, compression="zstd")
+        pq.write_table(rows.cast(S.TABLES_SCHEMA), self.stage / S.TABLES, compression="zstd", store_schema=False)
 
     def write_model(self, arrays: dict[str, np.ndarray]) -> None:
         names = sorted(arrays)
@@ -83,7 +83,9 @@ class ArchiveWriter:
             "shape": [list(np.shape(arrays[n])) for n in names],
             "values": [np.asarray(arrays[n], dtype=np.int64).ravel() for n in names],
         }, schema=S.MODEL_SCHEMA)
-        pq.write_table(table, self.stage / S.MODEL, compression="zstd", compression_level=19)
+        pq.write_table(table, self.stage / S.MODEL, compression="zstd", compression_level=19, store_schema=False,
+                       use_dictionary=False, column_encoding={"name": "PLAIN", "shape": "PLAIN",
+                                                              "values": "BYTE_STREAM_SPLIT"})
 
     def staged_bytes(self) -> int:
         if self._windows is not None:
@@ -106,7 +108,7 @@ class ArchiveWriter:
             members[name] = {"bytes": p.stat().st_size, "sha256": file_sha256(p)}
         manifest = dict(manifest, members=members)
         with open(self.stage / S.MANIFEST, "w", encoding="utf-8") as fh:
-            json.dump(manifest, fh, indent=1, sort_keys=False)
+            json.dump(manifest, fh, separators=(",", ":"))
             fh.write("\n")
         for p in self.stage.iterdir():
             with open(p, "rb") as fh:
