@@ -192,3 +192,15 @@ def test_outliers_and_similar(small_archive):
     sim = arc.similar("ch0", 5, k=4)
     assert len(sim) == 4 and 5 not in [i for i, _ in sim]
     assert all(a[1] <= b[1] for a, b in zip(sim, sim[1:]))
+
+
+def test_model_left_out_when_it_does_not_pay(tmp_path):
+    # White noise has no shape to learn: the autoencoder cannot save what its weights cost.
+    x = np.random.default_rng(4).standard_normal(40000).astype(np.float32)
+    src, out, res = _pack(tmp_path, x, budget="1%", window=256, code_size=None)
+    arc = tsarchive.open(out)
+    assert arc.manifest["model"] is None and "left out" in arc.manifest["model_note"]
+    assert arc.windows("ch0").codes.shape[1] == 0
+    sim = arc.similar("ch0", 3, k=2)  # falls back to decoded window shapes
+    assert len(sim) == 2 and all(np.isfinite(d) for _, d in sim)
+    _assert_within(x, arc)

@@ -70,3 +70,20 @@ class Recording:
     def column(self, j: int) -> np.ndarray:
         """Channel ``j`` as a 1-D array (a view where possible)."""
         return self.data[:, j]
+
+    def rows(self, a: int, b: int) -> np.ndarray:
+        """Samples ``a..b-1`` of every channel as an in-memory 2-D array.
+
+        For a memory-mapped ``.npy`` the file is mapped afresh for each call
+        and unmapped afterwards, so streaming through a file larger than
+        memory does not pile its pages up in this process.
+        """
+        a, b = max(0, a), min(self.n_samples, b)
+        if isinstance(self.data, np.memmap) and self.source is not None and self.source.suffix.lower() == ".npy":
+            m = np.load(self.source, mmap_mode="r")
+            try:
+                block = np.array(m[a:b])
+            finally:
+                del m
+            return block.reshape(b - a, -1)
+        return np.asarray(self.data[a:b])

@@ -22,7 +22,7 @@ MAX_COEF = 1 << 18         # |A_k| bound
 MAX_Y = 1 << 36            # windows with larger deviations do not use this predictor (int64 headroom)
 MAX_ORDER = 32
 ORDERS = (2, 4, 8, 16, 32)
-FIT_ROWS = 400_000
+FIT_ROWS = 200_000
 
 
 @dataclass(frozen=True)
@@ -56,34 +56,46 @@ def usable(q: np.ndarray, level: np.ndarray) -> np.ndarray:
     return np.abs(q - level[:, None]).max(axis=1, initial=0) < MAX_Y
 
 
-def _fit_order(y: np.ndarray, order: int) -> LpcCoefs:
-    rows = y.shape[1] - order
-    X = np.stack([y[:, order - k:order - k + rows] for k in range(1, order + 1)], axis=2).reshape(-1, order)
-    t = y[:, order:].reshape(-1)
-    if len(t) > FIT_ROWS:
-        pick = np.linspace(0, len(t) - 1, FIT_ROWS).astype(np.int64)
-        X, t = X[pick], t[pick]
-    a, *_ = np.linalg.lstsq(X, t, rcond=None)
+def _design(y: np.ndarray, order: int, rows: int) -> tuple[np.ndarray, np.ndarray]:
+    """Regression rows: the ``order`` previous deviations of up to ``rows`` evenly chosen samples."""
+    n = y.shape[1] - order
+    starts = np.arange(n)
+    pick = np.linspace(0, y.shape[0] * n - 1, min(rows, y.shape[0] * n)).astype(np.int64)
+    w, i = pick // n, starts[pick % n] + order
+    X = np.stack([y[w, i - k] for k in range(1, order + 1)], axis=1)
+    return X, y[w, i]
+
+
+def _coefs(a: np.ndarray) -> LpcCoefs:
     A = np.clip(np.rint(a * (1 << SHIFT)), -MAX_COEF, MAX_COEF).astype(np.int64)
     return LpcCoefs(tuple(int(v) for v in A))
 
 
 def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
-    """The cheapest of the candidate orders on windows ``q`` under ``cost(residuals) -> bits``."""
+    """The cheapest of the candidate orders on windows ``q`` under ``cost(residuals) -> bits``.
+
+    Least squares by the covariance method: one Gram matrix of the largest
+    order serves every order (its leading block), solved with
+    numpy.linalg.lstsq; each order is then scored on up to 256 windows.
+    """
     ok = usable(q, level)
     q, level = q[ok], level[ok]
-    if len(q) == 0:
+    orders = [p for p in ORDERS if q.shape[1] > 2 * p]
+    if len(q) == 0 or not orders:
         return LpcCoefs(())
     y = (q - level[:, None]).astype(np.float64)
-    best, best_bits = None, np.inf
-    for order in ORDERS:
-        if q.shape[1] <= 2 * order:
-            break
-        c = _fit_order(y, order)
-        bits = float(cost(residuals(q, level, c)).sum()) + 32 * order
+    X, t = _design(y, orders[-1], FIT_ROWS)
+    G, g = X.T @ X, X.T @ t
+    score = np.unique(np.linspace(0, len(q) - 1, min(len(q), 256)).astype(np.int64))
+    qs, ls = q[score], level[score]
+    best, best_bits = LpcCoefs(()), float(cost(residuals(qs, ls, LpcCoefs(()))).sum())
+    for p in orders:
+        a, *_ = np.linalg.lstsq(G[:p, :p], g[:p], rcond=None)
+        c = _coefs(a)
+        bits = float(cost(residuals(qs, ls, c)).sum()) + 32 * p
         if bits < best_bits:
             best, best_bits = c, bits
-    return best or LpcCoefs(())
+    return best
 
 
 def residuals(q: np.ndarray, level: np.ndarray, lpc: LpcCoefs) -> np.ndarray:

