@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-DEFAULT_WINDOW = 512
+DEFAULT_WINDOW = 1024
 MIN_WINDOW, MAX_WINDOW = 8, 65536
 
 

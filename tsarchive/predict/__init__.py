@@ -100,7 +100,8 @@ class Predictor:
     uses_lpc: bool = False
 
     def available(self, ctx: Context) -> bool:
-        return (ctx.ae is not None or not self.uses_ae) and (not self.uses_lpc or bool(ctx.lpc and ctx.lpc.order))
+        # an LPC of order 0 is still a predictor: the window's level (right for white noise)
+        return (ctx.ae is not None or not self.uses_ae) and (not self.uses_lpc or ctx.lpc is not None)
 
 
 PREDICTORS: dict[int, Predictor] = {p.id: p for p in (
