@@ -16,7 +16,6 @@ from . import checksum
 from .errors import BadInput
 from .recording import Recording
 from .results import ChannelCheck, Progress, VerifyReport
-from .store import schema as S
 
 CHUNK_SAMPLES = 1 << 20
 MAX_LISTED = 50  # failing windows listed per channel

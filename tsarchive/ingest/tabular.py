@@ -19,7 +19,6 @@ from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
-import pyarrow.compute as pc
 
 from ..errors import BadInput
 from ..recording import ChannelInfo, Recording
