@@ -36,9 +36,7 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
     total = sum(c.n_windows for c in arc.channels)
     done = 0
     for j, meta in enumerate(arc.channels):
-        col = None
-        if rec is not None:
-            col = _column(rec, meta, j)
+        col = None if rec is None else _column_index(rec, meta, j)
         per = max(1, CHUNK_SAMPLES // meta.window)
         bad_crc: list[int] = []
         bad_windows: list[int] = []
@@ -49,7 +47,7 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
             bad_crc.extend(bad)
             if col is not None:
                 a = w0 * meta.window
-                x = np.asarray(col[a:a + len(xh)])
+                x = rec.rows(a, a + len(xh))[:, col]  # a fresh block: a memory-mapped source stays unmapped
                 bad_mask, err = _out_of_budget(x, xh, meta.eps)
                 worst = max(worst, float(err.max()) if len(err) else 0.0)
                 if bad_mask.any():
@@ -90,12 +88,12 @@ def _source(arc, against) -> Recording | None:
     return rec
 
 
-def _column(rec: Recording, meta, j: int) -> np.ndarray:
+def _column_index(rec: Recording, meta, j: int) -> int:
     names = [c.name for c in rec.channels]
     if meta.name in names:
-        return rec.column(names.index(meta.name))
+        return names.index(meta.name)
     if j < len(names):
-        return rec.column(j)
+        return j
     raise BadInput(f"the source has no channel {meta.name!r}; pass the recording the archive was packed from")
 
 

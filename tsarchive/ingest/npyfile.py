@@ -46,10 +46,15 @@ def read_npy(path: Path, rate: float | None) -> Recording:
     shape = tuple(int(s) for s in arr.shape)
     if arr.size == 0:
         raise BadInput(f"{path.name}: array of shape {shape} has no samples; give a non-empty recording")
-    data = arr.reshape(shape[0], 1) if arr.ndim == 1 else arr
     dtype_name = arr.dtype.name
+    # Grid detection reads a strided sample of the whole file: do it through its own
+    # memory map and drop that map afterwards, so the pages it touched are released.
+    probe = np.load(path, mmap_mode="r", allow_pickle=False)
+    probe = probe.reshape(shape[0], 1) if probe.ndim == 1 else probe
     channels = tuple(
-        ChannelInfo(name=f"ch{j}", unit="", dtype=dtype_name, decimals=detect_decimals(data[:, j], arr.dtype))
-        for j in range(data.shape[1])
+        ChannelInfo(name=f"ch{j}", unit="", dtype=dtype_name, decimals=detect_decimals(probe[:, j], arr.dtype))
+        for j in range(probe.shape[1])
     )
+    del probe
+    data = arr.reshape(shape[0], 1) if arr.ndim == 1 else arr
     return Recording(data=data, rate=float(rate), channels=channels, start=None, source=path, shape=shape)
