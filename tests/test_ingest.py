@@ -146,6 +146,7 @@ def test_npy_rejects(tmp_path, arr):
 
 def test_npy_object_array_is_refused_without_unpickling(tmp_path):
     p = tmp_path / "e.npy"
+    # write a pickled .npy on purpose: the reader must refuse it without unpickling
     np.save(p, np.array([1, "x"], dtype=object), allow_pickle=True)
     with pytest.raises(BadInput, match="not a plain numeric"):
         read_recording(p, rate=10)

@@ -18,12 +18,6 @@ def n_windows(n: int, window: int) -> int:
     return -(-n // window) if n else 0
 
 
-def window_bounds(n: int, window: int, first: int = 0, last: int | None = None) -> list[tuple[int, int]]:
-    """``(start, stop)`` sample ranges of windows ``first .. last-1``."""
-    last = n_windows(n, window) if last is None else last
-    return [(w * window, min(n, (w + 1) * window)) for w in range(first, last)]
-
-
 def batches(n: int, window: int, first: int, last: int) -> list[tuple[int, int, int]]:
     """Group windows ``first..last-1`` into batches of equal length.
 
