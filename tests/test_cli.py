@@ -106,3 +106,25 @@ def test_help_states_default_budget(capsys):
     with pytest.raises(SystemExit):
         main(["pack", "--help"])
     assert "default: 0.1%" in capsys.readouterr().out
+
+
+def test_verify_alone_catches_a_damaged_window(tmp_path, src, capsys):
+    # Flip one byte of one window's residual payload and rewrite the table: the member's
+    # SHA-256 and that window's CRC-32 must both fail, and verify must name the window.
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    arc = tmp_path / "d.tsa"
+    assert _run(capsys, "pack", src, "-o", arc, "--rate", 200, "--window", 64, "--code-size", 0)[0] == 0
+    t = pq.read_table(arc / "windows.parquet")
+    rows = t.to_pylist()
+    target = next(i for i, r in enumerate(rows) if r["channel"] == "ch1" and len(r["residual"]) > 4)
+    payload = bytearray(rows[target]["residual"])
+    payload[1] ^= 0x5A
+    rows[target]["residual"] = bytes(payload)
+    with pq.ParquetWriter(arc / "windows.parquet", t.schema, compression="zstd") as w:
+        for ch in ("ch0", "ch1"):  # keep one channel per row group, as the writer does
+            w.write_table(pa.Table.from_pylist([r for r in rows if r["channel"] == ch], schema=t.schema))
+    code, out, _ = _run(capsys, "verify", arc)
+    assert code == 1 and "FAILED" in out
+    assert "windows.parquet" in out and "ch1" in out and f"window(s) {rows[target]['window']}" in out

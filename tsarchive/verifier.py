@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from . import checksum
-from .errors import BadInput
+from .errors import ArchiveCorrupt, BadInput
 from .recording import Recording
 from .results import ChannelCheck, Progress, VerifyReport
 
@@ -43,12 +43,18 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
         n_bad, worst = 0, 0.0
         for w0 in range(0, meta.n_windows, per):
             w1 = min(meta.n_windows, w0 + per)
-            xh, windows, bad = arc.decode_windows(meta.name, w0, w1, check=False)
+            xh, bad, undecodable = _decode(arc, meta, w0, w1)
             bad_crc.extend(bad)
+            if undecodable:
+                problems.append(f"channel {meta.name}: window(s) {_list(undecodable)} cannot be decoded "
+                                "(damaged payload)")
             if col is not None:
                 a = w0 * meta.window
                 x = rec.rows(a, a + len(xh))[:, col]  # a fresh block: a memory-mapped source stays unmapped
                 bad_mask, err = _out_of_budget(x, xh, meta.eps)
+                for w in undecodable:  # already reported; do not count their placeholder samples
+                    lo = (w - w0) * meta.window
+                    bad_mask[lo:lo + meta.window], err[lo:lo + meta.window] = False, 0.0
                 worst = max(worst, float(err.max()) if len(err) else 0.0)
                 if bad_mask.any():
                     n_bad += int(bad_mask.sum())
@@ -65,9 +71,33 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
         checks.append(ChannelCheck(name=meta.name, eps=meta.eps, worst_error=worst if col is not None else None,
                                    n_bad=n_bad, bad_windows=tuple(bad_windows[:MAX_LISTED]),
                                    bad_checksums=tuple(bad_crc[:MAX_LISTED])))
-    checksums_ok = not any(c.bad_checksums for c in checks) and not any(p.startswith("member") for p in problems)
+    checksums_ok = not any(c.bad_checksums for c in checks) and \
+        not any(p.startswith("member") or "cannot be decoded" in p for p in problems)
     return VerifyReport(ok=not problems, checksums_ok=checksums_ok, compared=rec is not None,
                         channels=tuple(checks), problems=tuple(problems))
+
+
+def _decode(arc, meta, w0: int, w1: int):
+    """Decode windows ``w0..w1-1`` without stopping at damage.
+
+    Returns ``(samples, CRC-mismatch windows, undecodable windows)``; an
+    undecodable window's samples are left as the reader's zeros.
+    """
+    try:
+        xh, _, bad = arc.decode_windows(meta.name, w0, w1, check=False)
+        return xh, bad, []
+    except ArchiveCorrupt:
+        parts, bad, broken = [], [], []
+        for w in range(w0, w1):
+            try:
+                x, _, b = arc.decode_windows(meta.name, w, w + 1, check=False)
+                bad.extend(b)
+            except ArchiveCorrupt:
+                n = min(meta.window, meta.n_samples - w * meta.window)
+                x = np.zeros(n, dtype=np.dtype(meta.grid.out_dtype))
+                broken.append(w)
+            parts.append(x)
+        return np.concatenate(parts), bad, broken
 
 
 def _list(ws: list[int]) -> str:
