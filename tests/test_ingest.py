@@ -328,4 +328,10 @@ def test_sample_streams_regenerate_identically(tmp_path):
     spec.loader.exec_module(mod)
     for p in mod.generate(tmp_path):
         committed = STREAMS / p.name
+        if p.suffix == ".parquet":
+            # Parquet bytes carry the writer's version string: compare content, not bytes,
+            # so a newer pyarrow from the registry does not fail this test.
+            import pyarrow.parquet as pq
+            assert pq.read_table(p).equals(pq.read_table(committed)), p.name
+            continue
         assert hashlib.sha256(p.read_bytes()).hexdigest() == hashlib.sha256(committed.read_bytes()).hexdigest(), p.name
