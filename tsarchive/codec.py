@@ -81,9 +81,9 @@ class TableSet:
 
     def nearest(self, mode: int, cls: np.ndarray) -> np.ndarray:
         have = self._classes[mode]
-        i = np.clip(np.searchsorted(have, cls), 1, len(have) - 1) if len(have) > 1 else np.zeros(len(cls), int)
         if len(have) == 1:
             return np.full(len(cls), have[0], dtype=np.int8)
+        i = np.clip(np.searchsorted(have, cls), 1, len(have) - 1)
         lo, hi = have[i - 1], have[i]
         return np.where(np.abs(cls - lo) <= np.abs(hi - cls), lo, hi).astype(np.int8)
 

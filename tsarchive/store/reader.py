@@ -297,13 +297,14 @@ class Archive:
         lens = t["n"].to_numpy().astype(np.int64)
         level = t["level"].to_numpy()
         codes = _codes(t["code"], t.num_rows)
-        parts = []
-        for i in range(t.num_rows):
-            L = int(lens[i])
-            ae = self._ae(meta, codes[i:i + 1], level[i:i + 1], L) if self.decoder is not None else None
-            q = np.full((1, L), level[i], np.int64) if ae is None else ae
-            parts.append(meta.grid.values(q[0]))
-        x = np.concatenate(parts) if parts else np.zeros(0)
+        x = np.empty(int(lens.sum()), dtype=np.float64)
+        offs = np.concatenate([[0], np.cumsum(lens)])
+        for L in np.unique(lens):  # one decoder call per window length (the last window may be short)
+            sel = np.flatnonzero(lens == L)
+            ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
+            q = np.repeat(level[sel, None], int(L), axis=1) if ae is None else ae
+            for k, i in enumerate(sel):
+                x[offs[i]:offs[i + 1]] = meta.grid.values(q[k])
         return x[a - w0 * W:b - w0 * W]
 
     def windows(self, channel: str) -> WindowTable:
