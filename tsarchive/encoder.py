@@ -133,8 +133,8 @@ def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int
         fin = np.isfinite(x64)
         err = np.where(fin, np.abs(xh64 - x64), 0.0)
         preview = grid.to_out(grid.values(lv[:, None] + np.zeros((1, L), np.int64) if ae is None else ae))
-        dev = np.where(fin, x64 - preview.astype(np.float64), 0.0)
-        score = np.sqrt((dev * dev).sum(axis=1) / np.maximum(fin.sum(axis=1), 1))
+        # peak, not RMS: a short transient must not be diluted by the rest of its window
+        score = np.where(fin, np.abs(x64 - preview.astype(np.float64)), 0.0).max(axis=1, initial=0.0)
     wpos = pos // L
     worst = err.max(axis=1) if L else np.zeros(nb)
     f32max = np.finfo(np.float32).max

@@ -46,7 +46,7 @@ WINDOWS_SCHEMA = pa.schema([
     pa.field("exc_bits", pa.list_(pa.int64())),  # their raw bits (floats) or values (ints)
     pa.field("crc32", pa.int64()),           # CRC-32 of the decoded samples (little-endian bytes)
     pa.field("worst_error", pa.float32()),   # max |x̂ - x| in the window, channel units, rounded up
-    pa.field("score", pa.float32()),         # RMS error of the code-only reconstruction (outlier score)
+    pa.field("score", pa.float32()),         # peak |x - code-only reconstruction| (outlier score)
 ])
 
 TABLES_SCHEMA = pa.schema([

@@ -2,7 +2,7 @@
 
 Three rankings, each straight from the library's figures:
 
-* ``unusual`` -- ``Archive.outliers``: highest outlier score first (the RMS error of
+* ``unusual`` -- ``Archive.outliers``: highest outlier score first (the peak error of
   the code-only preview: windows the learned codes describe worst);
 * ``alike`` -- ``Archive.similar``: windows whose codes are nearest to the selected one;
 * ``worst`` -- the windows with the largest stored worst error.
