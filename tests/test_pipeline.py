@@ -10,6 +10,7 @@ import pyarrow.parquet as pq
 import pytest
 
 import tsarchive
+from tsarchive import pipeline
 from tsarchive.errors import ArchiveExists, BadInput, BoundViolation, BudgetError, SourceNotFound
 from tsarchive.quantize import values_to_bits
 
@@ -204,3 +205,17 @@ def test_model_left_out_when_it_does_not_pay(tmp_path):
     sim = arc.similar("ch0", 3, k=2)  # falls back to decoded window shapes
     assert len(sim) == 2 and all(np.isfinite(d) for _, d in sim)
     _assert_within(x, arc)
+
+
+def test_probe_model_decides_before_a_long_training(tmp_path):
+    # With a long training budget and no explicit code size, only the probe run trains on white noise.
+    x = np.random.default_rng(5).standard_normal(40000).astype(np.float32)
+    src = tmp_path / "x.npy"
+    np.save(src, x[:, None])
+    events = []
+    tsarchive.pack(src, tmp_path / "x.tsa", "1%", rate=100.0, window=256, train_seconds=600,
+                   progress=events.append)
+    arc = tsarchive.open(tmp_path / "x.tsa")
+    assert arc.manifest["model"] is None
+    assert f"after a {pipeline.PROBE_SECONDS:g} s probe" in arc.manifest["model_note"]
+    assert not any("training it fully" in e.message for e in events)

@@ -46,6 +46,8 @@ DECODER_SHARE = 0.01         # decoder parameters per sample of the whole record
 MAX_MODEL_SHARE = 0.05       # the stored decoder may cost at most this share of the raw sample bytes
 BYTES_PER_PARAM = 2.4        # measured size of a stored decoder parameter (int16 in Parquet + zstd)
 BITS_PER_CODE = 10.0         # measured size of one stored code value (list<int8> in Parquet + zstd)
+PROBE_SECONDS = 6.0          # training time of the probe model that decides whether to train longer
+PROBE_SHARE = 0.25           # train fully only if the probe already saves this share of the model's bytes
 
 
 def pack(source, archive, budget=None, *, rate: float | None = None, window: int | None = None,
@@ -60,7 +62,11 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     ``code_size=None`` trains an autoencoder with the default code size and
     keeps it only where its estimated saving exceeds the bytes of its weights
     and codes; an explicit ``code_size > 0`` always keeps it (for browsing
-    by codes); ``0`` packs without one.
+    by codes); ``0`` packs without one.  Training never takes longer than
+    ``train_seconds`` whatever the recording's length; without an explicit
+    code size a probe model is trained for ``PROBE_SECONDS`` first and the
+    full run happens only if the probe already saves ``PROBE_SHARE`` of the
+    model's own bytes.
     """
     t0 = time.perf_counter()
     emit = _emitter(progress, cancel)
@@ -81,15 +87,28 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     # windows -> a bounded training sample -> the autoencoder
     sample = sample_windows(rec.n_samples, W, max(1, TABLE_SAMPLES // W))
     sampled = _gather(rec, sample, W)
-    scales, model = _train(rec, sampled, grids, W, K, emit, train_seconds, seed)
+    # unless a code size was asked for, a short probe run decides whether the model is worth training
+    explicit = code_size is not None
+    probe = not explicit and train_seconds > PROBE_SECONDS
+    scales, model = _train(rec, sampled, grids, W, K, emit, PROBE_SECONDS if probe else train_seconds, seed)
 
     # plan: LPC, tables, and whether the model pays for itself
-    emit("encode", 0, 1, "choosing predictors and entropy tables")
     tail = _tail(rec, W)
     nwin = n_windows(rec.n_samples, W)
-    plans = [plan_channel(sampled[:, :, j], None if tail is None else tail[:, j], nwin, grids[j], W, model,
-                          scales[j]) for j in range(len(names))]
-    model, model_note = _keep_model(model, plans, nwin, K, explicit=code_size is not None)
+
+    def plan(model):
+        emit("encode", 0, 1, "choosing predictors and entropy tables")
+        return [plan_channel(sampled[:, :, j], None if tail is None else tail[:, j], nwin, grids[j], W, model,
+                             scales[j]) for j in range(len(names))]
+
+    plans = plan(model)
+    gain, cost = _model_account(model, plans, nwin, K)
+    if probe and model is not None and gain > PROBE_SHARE * cost:
+        emit("train", 0, 1, f"the probe model saves {gain:.0f} B against {cost:.0f} B: training it fully")
+        scales, model = _train(rec, sampled, grids, W, K, emit, train_seconds, seed)
+        plans = plan(model)
+        gain, cost = _model_account(model, plans, nwin, K)
+    model, model_note = _keep_model(model, gain, cost, explicit, probed=probe)
     decoder = None if model is None else model.int_decoder
     tables = [p.tables if model is not None else p.tables_plain for p in plans]
 
@@ -214,16 +233,24 @@ def _train(rec: Recording, sampled: np.ndarray, grids: list[Grid], W: int, K: in
     return scales, model
 
 
-def _keep_model(model, plans: list[ChannelPlan], nwin: int, K: int, explicit: bool):
+def _model_account(model, plans: list[ChannelPlan], nwin: int, K: int) -> tuple[float, float]:
+    """(estimated bytes the autoencoder saves, bytes of its weights and codes); (0, 0) without one."""
+    if model is None:
+        return 0.0, 0.0
+    gain = sum(p.ae_gain_bits for p in plans) / 8
+    cost = BYTES_PER_PARAM * model.int_decoder.n_params + BITS_PER_CODE / 8 * K * nwin * len(plans)
+    return gain, cost
+
+
+def _keep_model(model, gain: float, cost: float, explicit: bool, probed: bool = False):
     """Keep the autoencoder only where its estimated saving beats its own bytes (unless asked for)."""
     if model is None:
         return None, "no autoencoder (too short a recording, or code size 0)"
-    gain = sum(p.ae_gain_bits for p in plans) / 8
-    cost = BYTES_PER_PARAM * model.int_decoder.n_params + BITS_PER_CODE / 8 * K * nwin * len(plans)
     if explicit:
         return model, f"autoencoder kept as asked (estimated saving {gain:.0f} B, cost {cost:.0f} B)"
     if gain <= cost:
-        return None, (f"autoencoder left out: its estimated saving ({gain:.0f} B) is below the bytes of its "
+        how = f" after a {PROBE_SECONDS:g} s probe" if probed and gain <= PROBE_SHARE * cost else ""
+        return None, (f"autoencoder left out{how}: its estimated saving ({gain:.0f} B) is below the bytes of its "
                       f"weights and codes ({cost:.0f} B)")
     return model, f"autoencoder kept: estimated saving {gain:.0f} B against a cost of {cost:.0f} B"
 
