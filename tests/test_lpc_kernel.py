@@ -1,0 +1,155 @@
+"""The numba LPC decoder gives the numpy reference's bits, on any int64 input.
+
+``lpc.reconstruct`` runs a compiled kernel; ``lpc._reconstruct_numpy`` is the
+former vectorised decoder, kept as the reference and as the fallback without
+numba.  Random residuals (not only ones made by ``residuals``) reach the
+decoder from a damaged archive, so agreement is checked there too, overflow
+(int64 wrap-around) included.
+"""
+
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+from hypothesis.extra import numpy as hnp
+
+from tsarchive.predict import lpc
+
+ORDERS = (0, 1, 2, 5, 32)
+LENGTHS = (1, 3, 1024)
+
+
+def _coefs(rng, order: int) -> lpc.LpcCoefs:
+    """Random coefficients over the full range, with some zeros and the bounds themselves."""
+    a = rng.integers(-lpc.MAX_COEF, lpc.MAX_COEF + 1, size=order)
+    a[rng.random(order) < 0.2] = 0
+    a[rng.random(order) < 0.1] = lpc.MAX_COEF
+    a[rng.random(order) < 0.1] = -lpc.MAX_COEF
+    return lpc.LpcCoefs(tuple(int(v) for v in a))
+
+
+def _residuals(rng, windows: int, n: int) -> np.ndarray:
+    """Small, huge (|r| near MAX_Y) and zero residuals of both signs, mixed."""
+    small = rng.integers(-100, 101, size=(windows, n))
+    huge = rng.integers(-lpc.MAX_Y + 1, lpc.MAX_Y, size=(windows, n))
+    edge = rng.choice([-lpc.MAX_Y + 1, lpc.MAX_Y - 1], size=(windows, n))
+    pick = rng.integers(0, 4, size=(windows, n))
+    return np.choose(pick, [small, huge, edge, np.zeros_like(small)]).astype(np.int64)
+
+
+def _same(a: np.ndarray, b: np.ndarray) -> None:
+    assert a.dtype == b.dtype == np.int64 and a.shape == b.shape
+    np.testing.assert_array_equal(a, b)
+
+
+def test_numba_kernel_is_used():
+    kernel = lpc._kernel()
+    assert kernel is not None, "numba is a dependency: the compiled decoder must be available"
+    assert hasattr(kernel, "signatures")  # a numba dispatcher, not the plain Python function
+
+
+def test_importing_tsarchive_does_not_import_numba():
+    code = "import sys, tsarchive, tsarchive.codec, tsarchive.predict.lpc; print('numba' in sys.modules)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "False"
+
+
+def test_hand_worked_recursions():
+    level = np.array([10])
+    # A_1 = 1.0 exactly: the recursion is a running sum
+    r = np.array([[3, -1, 4, -1, -5, 9]])
+    _same(lpc.reconstruct(r, level, lpc.LpcCoefs((1 << lpc.SHIFT,))), 10 + np.cumsum(r, axis=1))
+    # A_1 = 0.5: y[i] = r[i] + floor((y[i-1] + 1) / 2), rounding half up and flooring negatives
+    r = np.array([[5, 0, 0, 0, -7, 0]])
+    _same(lpc.reconstruct(r, level, lpc.LpcCoefs((1 << (lpc.SHIFT - 1),))),
+          np.array([[15, 13, 12, 11, 4, 7]]))
+    # A_1 = 2**-14: P = floor(y / 2**14 + 1/2) exactly at the rounding boundaries (halves go up)
+    r = np.array([[8191, 0], [8192, 0], [-8192, 0], [-8193, 0], [24575, 0], [24576, 0]])
+    got = lpc.reconstruct(r, np.zeros(6, dtype=np.int64), lpc.LpcCoefs((1,)))
+    assert got[:, 1].tolist() == [0, 1, 0, -1, 1, 2]
+    # A_2 = 1.0 only (A_1 = 0): two interleaved running sums, and y[1] sees no y[-1]
+    r = np.array([[1, 2, 3, 4, 5]])
+    _same(lpc.reconstruct(r, level, lpc.LpcCoefs((0, 1 << lpc.SHIFT))), np.array([[11, 12, 14, 16, 19]]))
+
+
+@pytest.mark.parametrize("n", LENGTHS)
+@pytest.mark.parametrize("order", ORDERS)
+def test_numba_matches_numpy_on_random_residuals(order, n):
+    rng = np.random.default_rng(1000 * order + n)
+    windows = 5 if n == 1024 else 40
+    r = _residuals(rng, windows, n)
+    level = rng.integers(-lpc.MAX_Y, lpc.MAX_Y, size=windows)
+    c = _coefs(rng, order)
+    _same(lpc.reconstruct(r, level, c), lpc._reconstruct_numpy(r, level, c))
+
+
+@pytest.mark.parametrize("n", LENGTHS)
+@pytest.mark.parametrize("order", ORDERS)
+def test_round_trip_at_the_bounds(order, n):
+    # deviations anywhere below MAX_Y (where `usable` admits the window) decode exactly
+    rng = np.random.default_rng(7 + 1000 * order + n)
+    windows = 5 if n == 1024 else 40
+    level = rng.integers(-2**40, 2**40, size=windows)
+    q = level[:, None] + _residuals(rng, windows, n)
+    assert lpc.usable(q, level).all()
+    c = _coefs(rng, order)
+    r = lpc.residuals(q, level, c)
+    _same(lpc.reconstruct(r, level, c), q)
+    _same(lpc._reconstruct_numpy(r, level, c), q)
+
+
+@given(y=hnp.arrays(np.int64, hnp.array_shapes(min_dims=2, max_dims=2, max_side=40),
+                    elements=st.integers(-lpc.MAX_Y + 1, lpc.MAX_Y - 1)),
+       coefs=st.lists(st.integers(-lpc.MAX_COEF, lpc.MAX_COEF), max_size=lpc.MAX_ORDER),
+       base=st.integers(-2**40, 2**40))
+def test_round_trip_random(y, coefs, base):
+    level = np.arange(y.shape[0], dtype=np.int64) + base
+    q = level[:, None] + y
+    c = lpc.LpcCoefs(tuple(coefs))
+    r = lpc.residuals(q, level, c)
+    _same(lpc.reconstruct(r, level, c), q)
+    _same(lpc.reconstruct(r, level, c), lpc._reconstruct_numpy(r, level, c))
+
+
+@given(seed=st.integers(0, 2**32 - 1), order=st.sampled_from(ORDERS),
+       n=st.sampled_from((1, 2, 3, 5, 31, 33, 64)))
+def test_numba_matches_numpy_random(seed, order, n):
+    rng = np.random.default_rng(seed)
+    r = _residuals(rng, 4, n)
+    level = rng.integers(-lpc.MAX_Y, lpc.MAX_Y, size=4)
+    c = _coefs(rng, order)
+    _same(lpc.reconstruct(r, level, c), lpc._reconstruct_numpy(r, level, c))
+
+
+@pytest.mark.parametrize("shape", [(0, 8), (3, 0), (0, 0)])
+@pytest.mark.parametrize("order", ORDERS)
+def test_empty(shape, order):
+    c = _coefs(np.random.default_rng(order), order)
+    r = np.zeros(shape, dtype=np.int64)
+    level = np.ones(shape[0], dtype=np.int64)
+    _same(lpc.reconstruct(r, level, c), lpc._reconstruct_numpy(r, level, c))
+
+
+def test_layouts_and_dtypes_share_one_compiled_kernel():
+    rng = np.random.default_rng(3)
+    c = _coefs(rng, 5)
+    r = rng.integers(-1000, 1000, size=(16, 20))
+    level = rng.integers(-1000, 1000, size=16)
+    want = lpc._reconstruct_numpy(r, level, c)
+    for rr in (r, np.asfortranarray(r), r.astype(np.int32), r.astype(np.int16)):
+        _same(lpc.reconstruct(rr, level, c), want)
+    _same(lpc.reconstruct(r[:, ::2], level, c), lpc._reconstruct_numpy(np.ascontiguousarray(r[:, ::2]), level, c))
+    assert len(lpc._kernel().signatures) == 1
+
+
+def test_fallback_without_numba(monkeypatch):
+    rng = np.random.default_rng(4)
+    c = _coefs(rng, 5)
+    r = _residuals(rng, 6, 50)
+    level = rng.integers(-1000, 1000, size=6)
+    want = lpc.reconstruct(r, level, c)
+    monkeypatch.setattr(lpc, "_kernel", lambda: None)
+    _same(lpc.reconstruct(r, level, c), want)
