@@ -415,7 +415,9 @@ async def test_new_user_journey_by_keys_only(tmp_path):
         assert strip.current == int(np.argmax(worst))
         plot = strip.query_one(StripPlot)
         assert "error" in plot.drawn and plot.band == pytest.approx(arc.channel("accel").eps)
-        assert np.max(np.abs(strip.stretch.error)) == pytest.approx(worst.max())  # the plotted peak is the worst
+        # the plotted peak is the window's worst error, which the archive stores rounded up to 1/250 of eps
+        peak, eps = np.max(np.abs(strip.stretch.error)), arc.channel("accel").eps
+        assert worst.max() - eps / 250 <= peak <= worst.max()
         await pilot.press("escape", "v")  # back to the Ledger, verify
         await settle(app, pilot)
         assert "verified ok" in str(app.screen.query_one("#ledger-state").render())

@@ -54,3 +54,30 @@ def test_pack_read_within_budget(tmp_path_factory, x, budget, window):
         assert np.all(np.abs(xh64[fin] - x64[fin]) <= eps)
     assert np.array_equal(values_to_bits(xh[~fin]), values_to_bits(x[~fin]))
     assert arc.verify(against=rec).ok
+
+
+@settings(max_examples=200, deadline=None)
+@given(eps=st.floats(1e-30, 1e30), frac=st.lists(st.floats(0.0, 1.0), min_size=1, max_size=50))
+def test_stored_window_worst_never_understates(eps, frac):
+    # The per-window worst error is stored in 1/250ths of eps, rounded up: the stored bound is >= the true error
+    # and at most one step above it.
+    from tsarchive.encoder import worst_steps
+    worst = np.asarray(frac) * eps
+    k = worst_steps(worst, eps)
+    assert k.dtype == np.uint8 and (k <= 250).all()
+    assert (k.astype(np.float64) * (eps / 250) >= worst * (1 - 1e-15)).all()
+    assert (k.astype(np.float64) * (eps / 250) <= worst + eps / 250 * 1.000001).all()
+
+
+@settings(max_examples=200, deadline=None)
+@given(hnp.arrays(np.float64, st.integers(1, 50),
+                  elements=st.one_of(st.just(0.0), st.floats(float(np.finfo(np.float32).tiny), 1e30))))
+def test_stored_score_keeps_eight_significant_bits_and_order(score):
+    # bfloat16 precision: relative rounding error <= 2**-8 (IEEE 754 round-half-up on the magnitude), order kept.
+    # Normal float32 magnitudes only: subnormal scores (< 1.2e-38) keep fewer bits, which no ranking notices.
+    from tsarchive.encoder import score_bf16
+    s = score_bf16(score)
+    ref = score.astype(np.float32).astype(np.float64)
+    assert (np.abs(s - ref) <= ref * 2.0 ** -8).all()
+    order = np.argsort(ref, kind="stable")
+    assert (np.diff(s[order]) >= 0).all()

@@ -37,9 +37,16 @@ def test_golden_is_within_budget_of_its_source():
     assert arc.manifest["model"] is not None  # the golden archive exercises the integer decoder
 
 
-def test_golden_schema_and_manifest_are_version_1():
+# The version-2 windows columns, spelled out so that a schema edit without a version bump fails here.
+V2_WINDOWS = [("channel", "string"), ("window", "int32"), ("mode", "int8"), ("table", "int8"), ("level", "int64"),
+              ("code", "list<item: int8>"), ("residual", "binary"), ("exc_pos", "list<item: int32>"),
+              ("exc_bits", "list<item: int64>"), ("crc32", "uint32"), ("worst", "uint8"), ("score", "float")]
+
+
+def test_golden_schema_and_manifest_are_version_2():
     manifest = json.loads((ARC / "manifest.json").read_text())
-    assert manifest["format"] == "tsarchive" and manifest["format_version"] == 1 == S.FORMAT_VERSION
+    assert manifest["format"] == "tsarchive" and manifest["format_version"] == 2 == S.FORMAT_VERSION
+    assert [(f.name, str(f.type)) for f in S.WINDOWS_SCHEMA] == V2_WINDOWS
     assert pq.read_schema(ARC / "windows.parquet").remove_metadata().equals(S.WINDOWS_SCHEMA)
     assert pq.read_schema(ARC / "tables.parquet").remove_metadata().equals(S.TABLES_SCHEMA)
     assert pq.read_schema(ARC / "model.parquet").remove_metadata().equals(S.MODEL_SCHEMA)

@@ -6,6 +6,8 @@ import subprocess
 import sys
 
 import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import pytest
 
@@ -145,10 +147,10 @@ def test_time_range_read_and_random_access(small_archive, small_npy):
 def test_plain_pyarrow_can_read_the_codes(small_archive):
     # Any Parquet reader: pyarrow alone, no tsarchive code.
     t = pq.read_table(small_archive / "windows.parquet")
-    assert {"channel", "window", "start", "code", "residual", "crc32"} <= set(t.column_names)
-    codes = np.stack(t.filter(t["channel"] == "ch0" if False else None).column("code").to_pylist()
-                     if False else t.column("code").to_pylist())
+    assert {"channel", "window", "code", "residual", "crc32", "worst", "score"} <= set(t.column_names)
+    codes = np.stack(t.column("code").to_pylist())
     assert codes.dtype.kind == "i" and codes.shape[0] == t.num_rows
+    assert t["worst"].type == pa.uint8() and int(pc.max(t["worst"]).as_py()) <= 250  # 1/250ths of eps
     m = pq.read_table(small_archive / "model.parquet").to_pydict()
     assert set(m) == {"name", "shape", "values"}
     manifest = json.loads((small_archive / "manifest.json").read_text())

@@ -18,7 +18,7 @@ import numpy as np
 import pyarrow as pa
 
 from . import checksum, entropy
-from .codec import CODER_ID, FRAC_SAFE_SCALE, TableSet, ae_prediction, choose_modes, proxy_bits
+from .codec import FRAC_SAFE_SCALE, TableSet, ae_prediction, choose_modes, proxy_bits
 from .predict import Context
 from .predict import lpc as lpc_mod
 from .quantize import Grid, quantize
@@ -137,30 +137,35 @@ def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int
         score = np.where(fin, np.abs(x64 - preview.astype(np.float64)), 0.0).max(axis=1, initial=0.0)
     wpos = pos // L
     worst = err.max(axis=1) if L else np.zeros(nb)
-    f32max = np.finfo(np.float32).max
     return pa.table({
         "channel": [name] * nb,
         "window": np.arange(first_window, first_window + nb, dtype=np.int32),
-        "start": (np.arange(first_window, first_window + nb, dtype=np.int64) * W),
-        "n": np.full(nb, L, dtype=np.int32),
         "mode": modes.astype(np.int8),
         "table": classes.astype(np.int8),
         "level": lv,
         "code": list(codes.astype(np.int8)),
-        "coder": [CODER_ID] * nb,
         "residual": payloads,
         "exc_pos": [(pos[wpos == i] % L).astype(np.int32) for i in range(nb)],
         "exc_bits": [bits[wpos == i] for i in range(nb)],
-        "crc32": np.array([checksum.window_crc(xh[i]) for i in range(nb)], dtype=np.int64),
-        "worst_error": round_up32(worst),
-        "score": np.nan_to_num(score, nan=0.0, posinf=f32max).clip(0, f32max).astype(np.float32),
+        "crc32": np.array([checksum.window_crc(xh[i]) for i in range(nb)], dtype=np.uint32),
+        "worst": worst_steps(worst, grid.eps),
+        "score": score_bf16(score),
     }, schema=S.WINDOWS_SCHEMA), float(worst.max(initial=0.0))
 
 
-def round_up32(x: np.ndarray) -> np.ndarray:
-    """float32 values never below ``x`` (so a stored worst error never understates)."""
-    with np.errstate(over="ignore"):
-        y = x.astype(np.float32)
-    low = y.astype(np.float64) < x
-    y[low] = np.nextafter(y[low], np.float32(np.inf))
-    return y
+def worst_steps(worst: np.ndarray, eps: float) -> np.ndarray:
+    """Per-window worst errors in 1/WORST_STEPS of ``eps``, rounded up (never understating), as uint8."""
+    if eps <= 0:
+        return np.zeros(len(worst), np.uint8)
+    k = np.ceil(worst / eps * S.WORST_STEPS * (1 + 1e-12))
+    k = np.where(worst <= eps, np.minimum(k, S.WORST_STEPS), k)  # within budget: at most eps itself
+    return np.clip(k, 0, 255).astype(np.uint8)
+
+
+def score_bf16(score: np.ndarray) -> np.ndarray:
+    """Scores as float32 rounded to 8 significant bits (bfloat16 precision, 0.4 %): enough to rank
+    windows, and the two zero low bytes cost nothing after byte-stream split + zstd."""
+    big = float(np.finfo(np.float32).max) / 2
+    s = np.nan_to_num(score, nan=0.0, posinf=big).clip(0, big).astype(np.float32)
+    u = (s.view(np.uint32) + np.uint32(0x8000)) & np.uint32(0xFFFF0000)
+    return u.view(np.float32)

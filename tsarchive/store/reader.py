@@ -71,7 +71,7 @@ class WindowTable:
     start_sample: np.ndarray
     n: np.ndarray
     mode: tuple[str, ...]
-    worst_error: np.ndarray
+    worst_error: np.ndarray      # per window, an upper bound (stored in 1/250ths of ε, rounded up)
     score: np.ndarray
     codes: np.ndarray
 
@@ -117,7 +117,8 @@ class Archive:
         if self.manifest.get("format_version") != S.FORMAT_VERSION:
             raise FormatVersionError(f"archive format version {self.manifest.get('format_version')} is not "
                                      f"{S.FORMAT_VERSION}; use the tsarchive version that wrote it")
-        for name in S.MEMBERS:
+        needed = S.REQUIRED_MEMBERS + ((S.MODEL,) if self.manifest.get("model") is not None else ())
+        for name in needed:
             if not (self.path / name).is_file():
                 raise ArchiveCorrupt(f"archive member {name} is missing; the archive is incomplete")
         self.window = int(self.manifest["window"])
@@ -173,6 +174,10 @@ class Archive:
     @cached_property
     def _tables(self) -> dict[tuple[str, int, int], entropy.FreqTable]:
         t = pq.read_table(self.path / S.TABLES)
+        for coder in set(t["coder"].to_pylist()):
+            if coder != CODER_ID:
+                raise ArchiveCorrupt(f"entropy coder {coder!r} is unknown to this tsarchive version; upgrade tsarchive "
+                                     "to read the archive")
         return {(c, int(m), int(k)): entropy.FreqTable.from_bytes(b)
                 for c, m, k, b in zip(t["channel"].to_pylist(), t["mode"].to_pylist(), t["table"].to_pylist(),
                                       t["freqs"].to_pylist())}
@@ -216,12 +221,11 @@ class Archive:
         if nrow != max(0, min(w1, meta.n_windows) - max(w0, 0)) or \
                 (nrow and not np.array_equal(windows, np.arange(windows[0], windows[0] + nrow))):
             raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} are missing rows; the archive is damaged")
-        lens = t["n"].to_numpy().astype(np.int64)
+        lens = _lengths(meta, windows)
         modes = t["mode"].to_numpy()
         classes = t["table"].to_numpy()
         level = t["level"].to_numpy()
         payload = t["residual"].to_pylist()
-        coders = t["coder"].to_pylist()
         codes = _codes(t["code"], nrow)
         crcs = t["crc32"].to_numpy()
         exc_pos = t["exc_pos"].to_pylist()
@@ -232,10 +236,6 @@ class Archive:
         for L in np.unique(lens):
             sel = np.flatnonzero(lens == L)
             res = np.empty((len(sel), int(L)), dtype=np.int64)
-            for k in sel:
-                if coders[k] != CODER_ID:
-                    raise ArchiveCorrupt(f"channel {channel} window {windows[k]}: unknown coder {coders[k]!r}; "
-                                         "upgrade tsarchive")
             for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
                 pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
                 # strict=False: the per-window CRC below catches what a range code cannot
@@ -293,8 +293,8 @@ class Archive:
         a, b = self._span(meta, start, end)
         W = meta.window
         w0, w1 = a // W, -(-b // W)
-        t = self._rows(channel, w0, w1, ["n", "level", "code"])
-        lens = t["n"].to_numpy().astype(np.int64)
+        t = self._rows(channel, w0, w1, ["level", "code"])
+        lens = _lengths(meta, t["window"].to_numpy())
         level = t["level"].to_numpy()
         codes = _codes(t["code"], t.num_rows)
         x = np.empty(int(lens.sum()), dtype=np.float64)
@@ -309,11 +309,12 @@ class Archive:
 
     def windows(self, channel: str) -> WindowTable:
         meta = self.channel(channel)
-        t = self._rows(channel, 0, meta.n_windows, ["start", "n", "mode", "worst_error", "score", "code"])
-        return WindowTable(index=t["window"].to_numpy().astype(np.int64), start_sample=t["start"].to_numpy(),
-                           n=t["n"].to_numpy(), mode=tuple(mode_name(m) for m in t["mode"].to_numpy()),
-                           worst_error=t["worst_error"].to_numpy(), score=t["score"].to_numpy(),
-                           codes=_codes(t["code"], t.num_rows))
+        t = self._rows(channel, 0, meta.n_windows, ["mode", "worst", "score", "code"])
+        index = t["window"].to_numpy().astype(np.int64)
+        worst = t["worst"].to_numpy().astype(np.float64) * (meta.eps / S.WORST_STEPS)
+        return WindowTable(index=index, start_sample=index * meta.window, n=_lengths(meta, index),
+                           mode=tuple(mode_name(m) for m in t["mode"].to_numpy()),
+                           worst_error=worst, score=t["score"].to_numpy(), codes=_codes(t["code"], t.num_rows))
 
     def outliers(self, channel: str, k: int = 20) -> list[int]:
         """Window numbers with the highest outlier score (code-only reconstruction error), highest first."""
@@ -360,6 +361,12 @@ class Archive:
     def export(self, out_path, channels=None, start=None, end=None) -> Path:
         from ..export_range import export_range
         return export_range(self, out_path, channels=channels, start=start, end=end)
+
+
+def _lengths(meta: ChannelMeta, windows: np.ndarray) -> np.ndarray:
+    """Samples in each of the given windows (every window is full but the channel's last)."""
+    w = np.asarray(windows, dtype=np.int64)
+    return np.clip(meta.n_samples - w * meta.window, 0, meta.window)
 
 
 def _codes(col: pa.ChunkedArray, nrow: int) -> np.ndarray:

@@ -1,4 +1,4 @@
-"""The archive's on-disk layout (format ``tsarchive`` version 1).
+"""The archive's on-disk layout (format ``tsarchive`` version 2).
 
 An archive is a directory, by convention ``NAME.tsa``::
 
@@ -6,7 +6,8 @@ An archive is a directory, by convention ``NAME.tsa``::
                       SHA-256 of every member file
     windows.parquet   one row per channel window (codes, residual payloads, checksums)
     tables.parquet    one row per (channel, predictor, class): the entropy coder's integer table
-    model.parquet     one row per decoder array (plain integers, no pickle)
+    model.parquet     one row per decoder array (plain integers, no pickle);
+                      present only when the manifest names a model
 
 Why a directory: every member is a plain Parquet or JSON file that any
 reader opens on its own; ``windows.parquet`` keeps each channel in its own
@@ -23,30 +24,29 @@ from __future__ import annotations
 import pyarrow as pa
 
 FORMAT_NAME = "tsarchive"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
 
 MANIFEST = "manifest.json"
 WINDOWS = "windows.parquet"
 TABLES = "tables.parquet"
 MODEL = "model.parquet"
 MEMBERS = (WINDOWS, TABLES, MODEL)
+REQUIRED_MEMBERS = (WINDOWS, TABLES)   # model.parquet only when the manifest has a model
+WORST_STEPS = 250                      # per-window worst error is stored in 1/250ths of ε, rounded up
 
 WINDOWS_SCHEMA = pa.schema([
     pa.field("channel", pa.string()),        # channel name
-    pa.field("window", pa.int32()),          # window number within the channel, from 0
-    pa.field("start", pa.int64()),           # index of the window's first sample
-    pa.field("n", pa.int32()),               # samples in the window (the last may be short)
+    pa.field("window", pa.int32()),          # window number within the channel, from 0 (starts at window x W)
     pa.field("mode", pa.int8()),             # predictor id (tsarchive.predict)
     pa.field("table", pa.int8()),            # activity class of the entropy table used (with channel, mode)
     pa.field("level", pa.int64()),           # rounded mean of the window on the integer grid
     pa.field("code", pa.list_(pa.int8())),   # autoencoder code (code_size int8 values; empty without a model)
-    pa.field("coder", pa.string()),          # entropy coder id of the residual payload
-    pa.field("residual", pa.binary()),       # entropy-coded residual integers
+    pa.field("residual", pa.binary()),       # residual integers, coded by the table's coder
     pa.field("exc_pos", pa.list_(pa.int32())),   # positions (within the window) stored verbatim
     pa.field("exc_bits", pa.list_(pa.int64())),  # their raw bits (floats) or values (ints)
-    pa.field("crc32", pa.int64()),           # CRC-32 of the decoded samples (little-endian bytes)
-    pa.field("worst_error", pa.float32()),   # max |x̂ - x| in the window, channel units, rounded up
-    pa.field("score", pa.float32()),         # peak |x - code-only reconstruction| (outlier score)
+    pa.field("crc32", pa.uint32()),          # CRC-32 of the decoded samples (little-endian bytes)
+    pa.field("worst", pa.uint8()),           # max |x̂ - x| in the window in 1/WORST_STEPS of ε, rounded up
+    pa.field("score", pa.float32()),         # peak |x - code-only reconstruction|, channel units, 8 significant bits
 ])
 
 TABLES_SCHEMA = pa.schema([

@@ -21,12 +21,13 @@ from ..checksum import file_sha256
 from ..errors import ArchiveExists, BadInput
 from . import schema as S
 
-_PARQUET_OPTS = dict(compression="zstd", compression_level=9, store_schema=False, write_statistics=["channel", "window", "start"],
-                     use_dictionary=["channel", "coder", "mode", "table"],
-                     column_encoding={"window": "DELTA_BINARY_PACKED", "start": "DELTA_BINARY_PACKED",
-                                      "level": "DELTA_BINARY_PACKED", "n": "DELTA_BINARY_PACKED",
-                                      "crc32": "PLAIN", "worst_error": "BYTE_STREAM_SPLIT",
-                                      "score": "BYTE_STREAM_SPLIT"})
+# Statistics only where the reader uses them (channel/window ranges per row group): statistics of the
+# payload columns would only add footer bytes.
+_PARQUET_OPTS = dict(compression="zstd", compression_level=9, store_schema=False, write_statistics=["channel", "window"],
+                     use_dictionary=["channel", "mode", "table"],
+                     column_encoding={"window": "DELTA_BINARY_PACKED", "level": "DELTA_BINARY_PACKED",
+                                      "crc32": "PLAIN", "worst": "PLAIN", "score": "BYTE_STREAM_SPLIT",
+                                      "residual": "DELTA_LENGTH_BYTE_ARRAY"})
 
 
 def is_archive_dir(path: Path) -> bool:
@@ -74,9 +75,13 @@ class ArchiveWriter:
         self._windows.write_table(rows.cast(S.WINDOWS_SCHEMA), row_group_size=S.ROW_GROUP_WINDOWS)
 
     def write_tables(self, rows: pa.Table) -> None:
-        pq.write_table(rows.cast(S.TABLES_SCHEMA), self.stage / S.TABLES, compression="zstd", store_schema=False)
+        pq.write_table(rows.cast(S.TABLES_SCHEMA), self.stage / S.TABLES, compression="zstd", store_schema=False,
+                       write_statistics=False)
 
     def write_model(self, arrays: dict[str, np.ndarray]) -> None:
+        """The decoder's arrays; nothing is written for an archive without a model."""
+        if not arrays:
+            return
         names = sorted(arrays)
         table = pa.table({
             "name": names,
@@ -84,7 +89,7 @@ class ArchiveWriter:
             "values": [np.asarray(arrays[n], dtype=np.int64).ravel() for n in names],
         }, schema=S.MODEL_SCHEMA)
         pq.write_table(table, self.stage / S.MODEL, compression="zstd", compression_level=19, store_schema=False,
-                       use_dictionary=False, column_encoding={"name": "PLAIN", "shape": "PLAIN",
+                       use_dictionary=False, write_statistics=False, column_encoding={"name": "PLAIN", "shape": "PLAIN",
                                                               "values": "BYTE_STREAM_SPLIT"})
 
     def staged_bytes(self) -> int:
@@ -105,7 +110,8 @@ class ArchiveWriter:
         members = {}
         for name in S.MEMBERS:
             p = self.stage / name
-            members[name] = {"bytes": p.stat().st_size, "sha256": file_sha256(p)}
+            if p.exists():
+                members[name] = {"bytes": p.stat().st_size, "sha256": file_sha256(p)}
         manifest = dict(manifest, members=members)
         with open(self.stage / S.MANIFEST, "w", encoding="utf-8") as fh:
             json.dump(manifest, fh, separators=(",", ":"))
