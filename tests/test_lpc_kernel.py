@@ -46,9 +46,9 @@ def _same(a: np.ndarray, b: np.ndarray) -> None:
 
 
 def test_numba_kernel_is_used():
-    kernel = lpc._kernel()
-    assert kernel is not None, "numba is a dependency: the compiled decoder must be available"
-    assert hasattr(kernel, "signatures")  # a numba dispatcher, not the plain Python function
+    kernels = lpc._kernels()
+    assert kernels is not None, "numba is a dependency: the compiled kernels must be available"
+    assert all(hasattr(k, "signatures") for k in kernels)  # numba dispatchers, not the plain Python functions
 
 
 def test_importing_tsarchive_does_not_import_numba():
@@ -142,7 +142,7 @@ def test_layouts_and_dtypes_share_one_compiled_kernel():
     for rr in (r, np.asfortranarray(r), r.astype(np.int32), r.astype(np.int16)):
         _same(lpc.reconstruct(rr, level, c), want)
     _same(lpc.reconstruct(r[:, ::2], level, c), lpc._reconstruct_numpy(np.ascontiguousarray(r[:, ::2]), level, c))
-    assert len(lpc._kernel().signatures) == 1
+    assert len(lpc._kernels()[0].signatures) == 1
 
 
 def test_fallback_without_numba(monkeypatch):
@@ -151,5 +151,15 @@ def test_fallback_without_numba(monkeypatch):
     r = _residuals(rng, 6, 50)
     level = rng.integers(-1000, 1000, size=6)
     want = lpc.reconstruct(r, level, c)
-    monkeypatch.setattr(lpc, "_kernel", lambda: None)
+    monkeypatch.setattr(lpc, "_kernels", lambda: None)
     _same(lpc.reconstruct(r, level, c), want)
+
+
+@pytest.mark.parametrize("order", [1, 2, 5, 32])
+@pytest.mark.parametrize("n", [1, 3, 1024])
+def test_numba_residuals_equal_the_numpy_reference(order, n):
+    rng = np.random.default_rng(order * 7919 + n)
+    c = _coefs(rng, order)
+    q = _residuals(rng, 9, n)   # any int64 windows within the predictor's bounds
+    level = rng.integers(-1000, 1000, size=9)
+    _same(lpc.residuals(q, level, c), lpc._residuals_numpy(q - level[:, None], c))

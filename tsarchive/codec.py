@@ -41,8 +41,8 @@ def candidate_modes(ctx: Context) -> list[int]:
 
 def proxy_bits(r: np.ndarray) -> np.ndarray:
     """Per-window bit estimate without a table: sum of log2(1 + 2|r|) + 1 per sample."""
-    a = np.abs(r.astype(np.float64))
-    return np.log2(1.0 + 2.0 * a).sum(axis=1) + r.shape[1]
+    a = np.abs(r).astype(np.float32)          # an estimate: float32 is plenty, and twice as fast
+    return np.log2(1.0 + 2.0 * a).sum(axis=1, dtype=np.float64) + r.shape[1]
 
 
 def spread_class(r: np.ndarray) -> np.ndarray:

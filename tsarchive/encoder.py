@@ -25,7 +25,7 @@ from .quantize import Grid, quantize
 from .store import schema as S
 from .windows import levels, normalise
 
-TABLE_SAMPLES = 4_000_000    # bound on the samples used to plan each channel
+TABLE_SAMPLES = 1 << 20      # bound on the samples used to plan each channel (and to sample training windows)
 MIN_TABLE_SAMPLES = 8192     # a table class with fewer samples is merged into its neighbour
 
 

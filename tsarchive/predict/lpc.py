@@ -24,7 +24,7 @@ MAX_COEF = 1 << 18         # |A_k| bound
 MAX_Y = 1 << 36            # windows with larger deviations do not use this predictor (int64 headroom)
 MAX_ORDER = 32
 ORDERS = (2, 4, 8, 16, 32)
-FIT_ROWS = 200_000
+FIT_ROWS = 50_000          # regression rows: plenty for at most 32 coefficients
 
 
 @dataclass(frozen=True)
@@ -64,7 +64,7 @@ def _design(y: np.ndarray, order: int, rows: int) -> tuple[np.ndarray, np.ndarra
     starts = np.arange(n)
     pick = np.linspace(0, y.shape[0] * n - 1, min(rows, y.shape[0] * n)).astype(np.int64)
     w, i = pick // n, starts[pick % n] + order
-    X = np.stack([y[w, i - k] for k in range(1, order + 1)], axis=1)
+    X = y[w[:, None], i[:, None] - np.arange(1, order + 1)]   # one gather: row j holds y[w_j, i_j - k]
     return X, y[w, i]
 
 
@@ -78,7 +78,7 @@ def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
 
     Least squares by the covariance method: one Gram matrix of the largest
     order serves every order (its leading block), solved with
-    numpy.linalg.lstsq; each order is then scored on up to 256 windows.
+    numpy.linalg.lstsq; each order is then scored on up to 128 windows.
     """
     ok = usable(q, level)
     q, level = q[ok], level[ok]
@@ -88,7 +88,7 @@ def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
     y = (q - level[:, None]).astype(np.float64)
     X, t = _design(y, orders[-1], FIT_ROWS)
     G, g = X.T @ X, X.T @ t
-    score = np.unique(np.linspace(0, len(q) - 1, min(len(q), 256)).astype(np.int64))
+    score = np.unique(np.linspace(0, len(q) - 1, min(len(q), 128)).astype(np.int64))
     qs, ls = q[score], level[score]
     best, best_bits = LpcCoefs(()), float(cost(residuals(qs, ls, LpcCoefs(()))).sum())
     for p in orders:
@@ -101,7 +101,20 @@ def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
 
 
 def residuals(q: np.ndarray, level: np.ndarray, lpc: LpcCoefs) -> np.ndarray:
+    """``r = y - P(y[i-1], …)`` with ``y = q - level``: the encoder's side of :func:`reconstruct`."""
     y = q - level[:, None]
+    if y.size == 0 or not any(lpc.coefs):
+        return y
+    kernels = _kernels()
+    if kernels is None:
+        return _residuals_numpy(y, lpc)
+    r = np.empty(y.shape, dtype=np.int64)
+    kernels[1](np.ascontiguousarray(y, dtype=np.int64), np.array(lpc.coefs[::-1], dtype=np.int64), lpc.shift, r)
+    return r
+
+
+def _residuals_numpy(y: np.ndarray, lpc: LpcCoefs) -> np.ndarray:
+    """Reference encoder (and fallback without numba), vectorised across windows and lags."""
     acc = np.full_like(y, 1 << (lpc.shift - 1))
     for k, a in enumerate(lpc.coefs, start=1):
         if a and k < y.shape[1]:
@@ -113,12 +126,12 @@ def reconstruct(r: np.ndarray, level: np.ndarray, lpc: LpcCoefs) -> np.ndarray:
     """Inverse of :func:`residuals`: ``y[i] = r[i] + P(y[i-1], …)``, then ``q = level + y``."""
     if r.size == 0 or not any(lpc.coefs):
         return level[:, None] + r            # P = half >> SHIFT = 0 throughout: y = r
-    kernel = _kernel()
-    if kernel is None:
+    kernels = _kernels()
+    if kernels is None:
         return _reconstruct_numpy(r, level, lpc)
     y = np.empty(r.shape, dtype=np.int64)
     # int64 and C order always, so numba compiles (or loads) one specialisation only
-    kernel(np.ascontiguousarray(r, dtype=np.int64), np.array(lpc.coefs[::-1], dtype=np.int64), lpc.shift, y)
+    kernels[0](np.ascontiguousarray(r, dtype=np.int64), np.array(lpc.coefs[::-1], dtype=np.int64), lpc.shift, y)
     return level[:, None] + y
 
 
@@ -168,17 +181,36 @@ def _reconstruct_kernel(r, rev, shift, y):
             y[w, i] = h[p + i]
 
 
-@cache
-def _kernel():
-    """The numba-compiled :func:`_reconstruct_kernel`, or ``None`` without numba.
+def _residuals_kernel(y, rev, shift, r):
+    """``r[w, i] = y[w, i] - ((half + Σ_{k<=min(p,i)} A_k y[w, i-k]) >> shift)`` (numba; same bits as numpy).
 
-    numba is imported here, on the first LPC decode, not with tsarchive.
+    As in :func:`_reconstruct_kernel`, a history with ``p`` leading zeros gives
+    every sample the same fixed-length (vectorisable) sum.
+    """
+    p = rev.shape[0]
+    n = y.shape[1]
+    half = np.int64(1) << (shift - 1)
+    h = np.zeros(p + n, dtype=np.int64)
+    for w in range(y.shape[0]):
+        h[p:] = y[w]
+        for i in range(n):
+            acc = half
+            for j in range(p):                     # lag p - j
+                acc += rev[j] * h[i + j]
+            r[w, i] = h[p + i] - (acc >> shift)
+
+
+@cache
+def _kernels():
+    """The numba-compiled (:func:`_reconstruct_kernel`, :func:`_residuals_kernel`), or ``None`` without numba.
+
+    numba is imported here, on the first LPC use, not with tsarchive.
     """
     try:
         from numba import njit
     except ImportError:
         return None
     try:
-        return njit(cache=True, nogil=True)(_reconstruct_kernel)
+        return tuple(njit(cache=True, nogil=True)(f) for f in (_reconstruct_kernel, _residuals_kernel))
     except RuntimeError:                     # no writable cache directory anywhere: compile once per process
-        return njit(nogil=True)(_reconstruct_kernel)
+        return tuple(njit(nogil=True)(f) for f in (_reconstruct_kernel, _residuals_kernel))
