@@ -25,7 +25,7 @@ from ..codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, reconstruct
 from ..errors import ArchiveCorrupt, ArchiveNotFound, BadInput, FormatVersionError
 from ..predict import Context, mode_name
 from ..predict.lpc import LpcCoefs
-from ..quantize import Grid
+from ..quantize import Grid, bits_to_values
 from . import schema as S
 
 
@@ -228,8 +228,9 @@ class Archive:
         payload = t["residual"].to_pylist()
         codes = _codes(t["code"], nrow)
         crcs = t["crc32"].to_numpy()
-        exc_pos = t["exc_pos"].to_pylist()
-        exc_bits = t["exc_bits"].to_pylist()
+        n_exc = pc.list_value_length(t["exc_pos"]).to_numpy(zero_copy_only=False)
+        exc_pos = t["exc_pos"].to_pylist() if n_exc.any() else None
+        exc_bits = t["exc_bits"].to_pylist() if n_exc.any() else None
         out = np.empty(int(lens.sum()), dtype=np.dtype(meta.grid.out_dtype))
         offs = np.concatenate([[0], np.cumsum(lens)])
         bad = []
@@ -244,14 +245,25 @@ class Archive:
                 res[pick] = np.stack(dec) if dec else res[pick]
             ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
             q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc), res)
-            for k, i in enumerate(sel):
-                x = meta.grid.dequantize(q[k], np.asarray(exc_pos[i], np.int64), np.asarray(exc_bits[i], np.int64))
-                if checksum.window_crc(x) != int(crcs[i]):
-                    if check:
-                        raise ArchiveCorrupt(f"channel {channel} window {windows[i]}: checksum mismatch; "
-                                             "the archive is damaged — restore it from a copy")
-                    bad.append(int(windows[i]))
-                out[offs[i]:offs[i + 1]] = x
+            x = meta.grid.to_out(meta.grid.values(q))                  # (windows, L), all at once
+            for k in np.flatnonzero(n_exc[sel]):                        # samples stored verbatim
+                i = sel[k]
+                x[k, np.asarray(exc_pos[i], np.int64)] = bits_to_values(np.asarray(exc_bits[i], np.int64), x.dtype)
+            x = np.ascontiguousarray(x, dtype=x.dtype.newbyteorder("<"))
+            view = memoryview(x).cast("B")
+            row = x.shape[1] * x.dtype.itemsize
+            got = [checksum.bytes_crc(view[k * row:(k + 1) * row]) for k in range(len(sel))]
+            for k in np.flatnonzero(np.asarray(got, dtype=np.int64) != crcs[sel].astype(np.int64)):
+                if check:
+                    raise ArchiveCorrupt(f"channel {channel} window {windows[sel[k]]}: checksum mismatch; "
+                                         "the archive is damaged — restore it from a copy")
+                bad.append(int(windows[sel[k]]))
+            if len(sel) == nrow or np.array_equal(sel, np.arange(sel[0], sel[0] + len(sel))):
+                out[offs[sel[0]]:offs[sel[-1] + 1]] = x.ravel()          # consecutive windows: one copy
+            else:
+                for k, i in enumerate(sel):
+                    out[offs[i]:offs[i + 1]] = x[k]
+        bad.sort()
         return out, windows, bad
 
     def _table(self, channel: str, mode: int, cls: int) -> entropy.FreqTable:
