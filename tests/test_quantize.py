@@ -108,3 +108,20 @@ def test_int_channel_held_in_a_float64_table_is_lossless():
     q, pos, bits = quantize(x, g)
     assert len(pos) == 0
     assert g.dequantize(q, pos, bits).tolist() == [501, 504, -3, 2**40]
+
+
+@given(hnp.arrays(np.int32, st.integers(1, 300), elements=st.integers(-10**6, 10**6)),
+       st.floats(0.0, 50.0))
+def test_integer_channels_decode_to_integers_within_budget_without_exceptions(x, eps):
+    # Integers grouped in bins of 2m+1 consecutive values (m = floor(eps)) centred on an integer: the largest
+    # distance to the centre is m <= eps (arithmetic), so nothing needs storing verbatim.
+    g = make_grid(eps, 0, np.dtype(np.int32), anchor=float(x[0]))
+    q, pos, bits = quantize(x, g)
+    xh = g.dequantize(q, pos, bits)
+    assert len(pos) == 0 and xh.dtype == np.int32
+    err = np.abs(xh.astype(np.int64) - x.astype(np.int64))
+    assert err.max() <= np.floor(eps)
+    if eps < 1:
+        assert g.kind == "decimal" and err.max() == 0       # no two integers can share a value: exact
+    else:
+        assert g.step == 2 * np.floor(eps) + 1

@@ -161,7 +161,7 @@ def _grid_note(budget, grid: Grid) -> str:
     if budget.kind == "lossless" or grid.eps > 0:
         return ""
     if grid.kind == "decimal":
-        return (f"budget {budget.spec} is finer than half the logged resolution {10.0 ** -grid.decimals:g}, "
+        return (f"budget {budget.spec} cannot merge distinct logged values (resolution {10.0 ** -grid.decimals:g}), "
                 "so the channel is stored exactly")
     return f"budget {budget.spec} of a zero range is 0, so the channel is stored exactly"
 

@@ -124,6 +124,14 @@ def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float =
     if eps == 0:
         return Grid("step", 0.0, out, step=1.0, offset=float(anchor) if math.isfinite(anchor) else 0.0)
     off = float(anchor) if math.isfinite(anchor) else 0.0
+    if dt.kind in "iu":
+        # Integer samples: bins of 2m+1 consecutive integers (m = floor(eps)) centred on an integer, so
+        # every decoded value is itself an integer at most m <= eps away, exactly, and no sample needs to
+        # be stored verbatim (a 2*eps step would decode to fractions that the integer output rounds off).
+        m = int(math.floor(float(eps)))
+        if m == 0:
+            return Grid("decimal", 0.0, out, decimals=0)
+        return Grid("step", float(eps), out, step=float(2 * m + 1), offset=float(round(off)))
     return Grid("step", float(eps), out, step=2.0 * float(eps), offset=off)
 
 
