@@ -19,14 +19,15 @@ def test_predictors_round_trip(mode, n):
     rng = np.random.default_rng(mode * 10 + n)
     q = int_windows(rng, 7, n)
     ae = q + rng.integers(-5, 5, size=q.shape)
-    coefs = lpc.LpcCoefs((20000, -5000, 1234))
-    check_predictor_round_trip(PREDICTORS[mode], q, Context(levels(q), ae, coefs))
+    coefs = (lpc.LpcCoefs((20000, -5000, 1234)), lpc.LpcCoefs((8000,)))
+    sets = rng.integers(0, 2, size=len(q)).astype(np.int8)
+    check_predictor_round_trip(PREDICTORS[mode], q, Context(levels(q), ae, coefs, sets))
 
 
 @given(st.lists(st.integers(-2**40, 2**40), min_size=1, max_size=50))
 def test_predictors_round_trip_extremes(values):
     q = np.array([values], dtype=np.int64)
-    ctx = Context(levels(q), q[::-1].copy(), lpc.LpcCoefs((lpc.MAX_COEF, -lpc.MAX_COEF, 7)))
+    ctx = Context(levels(q), q[::-1].copy(), (lpc.LpcCoefs((lpc.MAX_COEF, -lpc.MAX_COEF, 7)),))
     for p in PREDICTORS.values():
         check_predictor_round_trip(p, q, ctx)
 
@@ -53,11 +54,11 @@ def test_choose_modes_picks_cheapest_and_inverts():
     q = smooth + noise
     ae = smooth.copy()  # a perfect autoencoder for the smooth part
     ctx = Context(levels(q), ae)
-    modes, _, res = choose_modes(q, ctx, None)
+    modes, _, res, _ = choose_modes(q, ctx, None)
     assert set(modes.tolist()) <= {2, 3}
     np.testing.assert_array_equal(reconstruct(modes, ctx, res), q)
     ctx = Context(levels(q))
-    modes, _, res = choose_modes(q, ctx, None)
+    modes, _, res, _ = choose_modes(q, ctx, None)
     assert set(modes.tolist()) <= {0, 1}
     np.testing.assert_array_equal(reconstruct(modes, ctx, res), q)
 
@@ -77,8 +78,42 @@ def test_lpc_fit_beats_previous_sample_on_a_resonance():
     assert c.order >= 2
     a = np.array(c.coefs[:2]) / 2**lpc.SHIFT
     assert abs(a[0] - 2 * r_ * np.cos(w)) < 0.1 and abs(a[1] + r_ * r_) < 0.1
-    ctx = Context(lv, None, c)
+    ctx = Context(lv, None, (c,))
     assert proxy_bits(get_predictor(4).residuals(q, ctx)).sum() < proxy_bits(get_predictor(0).residuals(q, ctx)).sum()
+
+
+def _ar2(rng, n, r_, w, sigma=20.0):
+    x = np.zeros(n)
+    e = rng.standard_normal(n) * sigma
+    for i in range(2, n):
+        x[i] = 2 * r_ * np.cos(w) * x[i - 1] - r_ * r_ * x[i - 2] + e[i]
+    return x
+
+
+def test_lpc_sets_follow_a_change_of_character():
+    # A linear chirp sin(2 pi (f0 t + (f1 - f0) t^2 / 2T)), f from 0.002 to 0.2 cycles/sample, plus N(0, 1):
+    # no single short predictor fits every frequency of the sweep, several sets (each serving a stretch) do
+    # better; windows pick their own set and still invert exactly.
+    rng = np.random.default_rng(6)
+    n = 64 * 400
+    t = np.arange(n)
+    x = 1000 * np.sin(2 * np.pi * (0.002 * t + (0.2 - 0.002) * t * t / (2 * n))) + rng.standard_normal(n)
+    q = np.round(x).astype(np.int64).reshape(400, 64)
+    lv = levels(q)
+    sets = lpc.fit_sets(q, lv, proxy_bits)
+    assert 2 <= len(sets) <= lpc.MAX_SETS
+    _, _, res1, _ = choose_modes(q, Context(lv, None, sets[:1]), None)
+    modes, _, res, chosen = choose_modes(q, Context(lv, None, sets), None)
+    assert proxy_bits(res).sum() < 0.95 * proxy_bits(res1).sum()
+    early, late = chosen[:100][modes[:100] == 4], chosen[300:][modes[300:] == 4]
+    assert len(early) and len(late) and np.bincount(early).argmax() != np.bincount(late).argmax()
+    np.testing.assert_array_equal(reconstruct(modes, Context(lv, None, sets, chosen), res), q)
+
+
+def test_stationary_signal_keeps_one_lpc_set():
+    rng = np.random.default_rng(7)
+    q = np.round(_ar2(rng, 64 * 300, 0.99, 0.2)).astype(np.int64).reshape(300, 64)
+    assert len(lpc.fit_sets(q, levels(q), proxy_bits)) == 1
 
 
 def test_unknown_mode():

@@ -11,6 +11,8 @@ from pathlib import Path
 import numpy as np
 import pyarrow.parquet as pq
 
+from tsarchive.predict import PREDICTORS
+
 import tsarchive
 from tsarchive.quantize import values_to_bits
 from tsarchive.store import schema as S
@@ -38,7 +40,8 @@ def test_golden_is_within_budget_of_its_source():
 
 
 # The version-2 windows columns, spelled out so that a schema edit without a version bump fails here.
-V2_WINDOWS = [("channel", "string"), ("window", "int32"), ("mode", "int8"), ("table", "int8"), ("level", "int64"),
+V2_WINDOWS = [("channel", "string"), ("window", "int32"), ("mode", "int8"), ("lpc_set", "int8"), ("table", "int8"),
+              ("level", "int64"),
               ("code", "list<item: int8>"), ("residual", "binary"), ("exc_pos", "list<item: int32>"),
               ("exc_bits", "list<item: int64>"), ("crc32", "uint32"), ("worst", "uint8"), ("score", "float")]
 
@@ -50,5 +53,6 @@ def test_golden_schema_and_manifest_are_version_2():
     assert pq.read_schema(ARC / "windows.parquet").remove_metadata().equals(S.WINDOWS_SCHEMA)
     assert pq.read_schema(ARC / "tables.parquet").remove_metadata().equals(S.TABLES_SCHEMA)
     assert pq.read_schema(ARC / "model.parquet").remove_metadata().equals(S.MODEL_SCHEMA)
-    modes = set(pq.read_table(ARC / "windows.parquet", columns=["mode"])["mode"].to_pylist())
-    assert len(modes) >= 2  # more than one predictor is frozen here
+    t = pq.read_table(ARC / "windows.parquet", columns=["mode", "lpc_set"])
+    assert set(t["mode"].to_pylist()) == set(PREDICTORS)  # every predictor is frozen here
+    assert len(set(t["lpc_set"].to_pylist())) >= 2         # and more than one LPC coefficient set

@@ -101,12 +101,14 @@ class TableSet:
 
 
 def choose_modes(q: np.ndarray, ctx: Context, tables: TableSet | None
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Pick the cheapest predictor (and table class) per window.
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Pick the cheapest predictor (and table class, and LPC set) per window.
 
-    Returns ``(modes int8[N], classes int8[N], residuals int64[N, n])``.
+    Returns ``(modes int8[N], classes int8[N], residuals int64[N, n], lpc sets int8[N])``.
     Without ``tables`` the proxy decides and classes are the windows' own
     spread classes; with them, only predictors that have tables compete.
+    Every LPC set of the channel is a candidate of the ``lpc`` predictor;
+    the set is 0 for windows of other predictors.
     """
     modes = candidate_modes(ctx)
     if tables is not None:
@@ -114,31 +116,39 @@ def choose_modes(q: np.ndarray, ctx: Context, tables: TableSet | None
     best_bits = None
     best_mode = np.zeros(q.shape[0], dtype=np.int8)
     best_cls = np.zeros(q.shape[0], dtype=np.int8)
+    best_set = np.zeros(q.shape[0], dtype=np.int8)
     best_res = None
     lpc_ok = lpc_mod.usable(q, ctx.level) if any(PREDICTORS[m].uses_lpc for m in modes) else None
     for m in modes:
         p = get_predictor(m)
-        r = p.residuals(q, ctx)
-        if tables is None:
-            bits, cls = proxy_bits(r), spread_class(r)
-        else:
-            bits, cls = tables.bits(m, r)
-        if p.uses_lpc:
-            bits = np.where(lpc_ok, bits, np.inf)
-        if best_bits is None:
-            best_bits, best_res = bits, r.copy()
-            best_mode[:], best_cls[:] = m, cls
-            continue
-        better = bits < best_bits
-        best_bits = np.where(better, bits, best_bits)
-        best_mode[better] = m
-        best_cls[better] = cls[better]
-        best_res[better] = r[better]
-    return best_mode, best_cls, best_res
+        for k in range(len(ctx.lpc)) if p.uses_lpc else (0,):
+            r = p.residuals(q, ctx.with_set(k) if p.uses_lpc else ctx)
+            if tables is None:
+                bits, cls = proxy_bits(r), spread_class(r)
+            else:
+                bits, cls = tables.bits(m, r)
+            if p.uses_lpc:
+                bits = np.where(lpc_ok, bits + _set_bits(len(ctx.lpc)), np.inf)
+            if best_bits is None:
+                best_bits, best_res = bits, r.copy()
+                best_mode[:], best_cls[:], best_set[:] = m, cls, k
+                continue
+            better = bits < best_bits
+            best_bits = np.where(better, bits, best_bits)
+            best_mode[better] = m
+            best_cls[better] = cls[better]
+            best_set[better] = k
+            best_res[better] = r[better]
+    return best_mode, best_cls, best_res, best_set
+
+
+def _set_bits(n_sets: int) -> float:
+    """Rough cost of naming one of ``n_sets`` LPC sets in a window's row."""
+    return float(np.log2(n_sets)) if n_sets > 1 else 0.0
 
 
 def reconstruct(modes: np.ndarray, ctx: Context, residuals: np.ndarray) -> np.ndarray:
-    """Inverse of :func:`choose_modes` given the chosen modes."""
+    """Inverse of :func:`choose_modes` given the chosen modes (and ``ctx.lpc_set``)."""
     q = np.empty_like(residuals)
     for m in np.unique(modes):
         sel = modes == m

@@ -31,7 +31,7 @@ MIN_TABLE_SAMPLES = 8192     # a table class with fewer samples is merged into i
 
 @dataclass(frozen=True)
 class ChannelPlan:
-    lpc: lpc_mod.LpcCoefs
+    lpc: tuple[lpc_mod.LpcCoefs, ...]   # the channel's LPC coefficient sets
     tables: TableSet            # tables when the autoencoder is used (or the only set without a model)
     tables_plain: TableSet      # tables without the autoencoder
     ae_gain_bits: float         # estimated bits the autoencoder saves on the whole channel
@@ -67,8 +67,8 @@ def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: 
         q, _, _, lv, _, ae = predict_batch(tail[None, :], grid, W, model, scale)
         batches.append((q, lv, ae))
     full = [(q, lv) for q, lv, _ in batches if q.shape[1] == W]
-    lpc = lpc_mod.fit(np.concatenate([q for q, _ in full]), np.concatenate([lv for _, lv in full]),
-                      proxy_bits) if full else lpc_mod.LpcCoefs(())
+    lpc = lpc_mod.fit_sets(np.concatenate([q for q, _ in full]), np.concatenate([lv for _, lv in full]),
+                           proxy_bits) if full else (lpc_mod.LpcCoefs(()),)
     plain, plain_bits = _tables(batches, lpc, use_ae=False)
     if model is None:
         return ChannelPlan(lpc, plain, plain, 0.0)
@@ -82,7 +82,7 @@ def _tables(batches, lpc, use_ae: bool) -> tuple[TableSet, float]:
     groups: dict[int, dict[int, list[np.ndarray]]] = {}
     bits = 0.0
     for q, lv, ae in batches:
-        modes, classes, res = choose_modes(q, Context(lv, ae if use_ae else None, lpc), None)
+        modes, classes, res, _ = choose_modes(q, Context(lv, ae if use_ae else None, lpc), None)
         bits += float(proxy_bits(res).sum())
         for m, k in set(zip(modes.tolist(), classes.tolist())):
             groups.setdefault(m, {}).setdefault(k, []).append(res[(modes == m) & (classes == k)].ravel())
@@ -121,7 +121,7 @@ def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int
     """Rows for a batch of equal-length windows, and their worst error in float64."""
     nb, L = x.shape
     q, pos, bits, lv, codes, ae = predict_batch(x, grid, W, model, scale)
-    modes, classes, res = choose_modes(q, Context(lv, ae, lpc), tables)
+    modes, classes, res, sets = choose_modes(q, Context(lv, ae, lpc), tables)
     payloads: list[bytes] = [b""] * nb
     for m, k in set(zip(modes.tolist(), classes.tolist())):
         sel = np.flatnonzero((modes == m) & (classes == k))
@@ -141,6 +141,7 @@ def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int
         "channel": [name] * nb,
         "window": np.arange(first_window, first_window + nb, dtype=np.int32),
         "mode": modes.astype(np.int8),
+        "lpc_set": sets.astype(np.int8),
         "table": classes.astype(np.int8),
         "level": lv,
         "code": list(codes.astype(np.int8)),

@@ -4,8 +4,8 @@ Contract (every predictor): ``residuals(q, ctx) -> r`` and
 ``reconstruct(r, ctx) -> q`` are exact inverses on int64 arrays of shape
 ``(n_windows, n)``.  ``ctx`` (:class:`Context`) carries each window's
 ``level`` (its rounded mean, stored per window), the autoencoder's integer
-prediction ``ae`` (``None`` without a model) and the channel's integer LPC
-coefficients.  Each predictor has a stable integer ``id``
+prediction ``ae`` (``None`` without a model), the channel's sets of integer
+LPC coefficients ``lpc`` and, per window, which set it uses (``lpc_set``).  Each predictor has a stable integer ``id``
 stored in the archive's ``mode`` column and a short ``name`` shown to users.
 Only integer arithmetic is used, so decoding is bit-exact everywhere.
 
@@ -13,7 +13,7 @@ Only integer arithmetic is used, so decoding is bit-exact everywhere.
 * ``prev2``  linear extrapolation from the two previous samples (order 2)
 * ``ae``     the autoencoder's reconstruction from the window's code
 * ``ae+prev`` previous-sample prediction of the autoencoder's error
-* ``lpc``    linear prediction with the channel's integer coefficients (:mod:`.lpc`)
+* ``lpc``    linear prediction with one of the channel's integer coefficient sets (:mod:`.lpc`)
 """
 
 from __future__ import annotations
@@ -33,10 +33,16 @@ class Context:
 
     level: np.ndarray
     ae: np.ndarray | None = None
-    lpc: _lpc.LpcCoefs | None = None
+    lpc: tuple[_lpc.LpcCoefs, ...] = ()
+    lpc_set: np.ndarray | None = None        # per window: index into ``lpc`` (None: set 0 everywhere)
 
     def take(self, sel) -> "Context":
-        return Context(self.level[sel], None if self.ae is None else self.ae[sel], self.lpc)
+        return Context(self.level[sel], None if self.ae is None else self.ae[sel], self.lpc,
+                       None if self.lpc_set is None else self.lpc_set[sel])
+
+    def with_set(self, k: int) -> "Context":
+        """The same windows, all predicted with LPC set ``k``."""
+        return Context(self.level, self.ae, self.lpc, np.full(len(self.level), k, dtype=np.int8))
 
 
 def _first(q: np.ndarray, level: np.ndarray) -> np.ndarray:
@@ -82,12 +88,24 @@ def _aeprev_rec(r, c):
     return c.ae + np.cumsum(r, axis=1)
 
 
+def _by_set(fn, a, c):
+    sets = np.zeros(len(a), np.int8) if c.lpc_set is None else c.lpc_set
+    out = np.empty_like(a, dtype=np.int64)
+    for k in np.unique(sets):
+        sel = sets == k
+        if not 0 <= k < len(c.lpc):
+            raise UnknownCodec(f"linear-prediction set {k} is not among the channel's {len(c.lpc)}; "
+                               "the archive is damaged or from a newer tsarchive")
+        out[sel] = fn(a[sel], c.level[sel], c.lpc[int(k)])
+    return out
+
+
 def _lpc_res(q, c):
-    return _lpc.residuals(q, c.level, c.lpc)
+    return _by_set(_lpc.residuals, q, c)
 
 
 def _lpc_rec(r, c):
-    return _lpc.reconstruct(r, c.level, c.lpc)
+    return _by_set(_lpc.reconstruct, r, c)
 
 
 @dataclass(frozen=True)
@@ -101,7 +119,7 @@ class Predictor:
 
     def available(self, ctx: Context) -> bool:
         # an LPC of order 0 is still a predictor: the window's level (right for white noise)
-        return (ctx.ae is not None or not self.uses_ae) and (not self.uses_lpc or ctx.lpc is not None)
+        return (ctx.ae is not None or not self.uses_ae) and (not self.uses_lpc or len(ctx.lpc) > 0)
 
 
 PREDICTORS: dict[int, Predictor] = {p.id: p for p in (

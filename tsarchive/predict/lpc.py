@@ -100,6 +100,68 @@ def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
     return best
 
 
+MAX_SETS = 4               # coefficient sets per channel (a window names the one it uses)
+MIN_SET_WINDOWS = 8        # a set is refitted only on at least this many windows
+SET_EVAL_WINDOWS = 512     # windows on which sets are compared
+COEF_BITS = 40             # what one stored coefficient costs (JSON in the manifest), for the decision
+
+
+def _fit_order(q: np.ndarray, level: np.ndarray, order: int) -> LpcCoefs:
+    """Least-squares coefficients of one given order on windows ``q``."""
+    y = (q - level[:, None]).astype(np.float64)
+    X, t = _design(y, order, FIT_ROWS)
+    a, *_ = np.linalg.lstsq(X, t, rcond=None)
+    return _coefs(a)
+
+
+def fit_sets(q: np.ndarray, level: np.ndarray, cost) -> tuple[LpcCoefs, ...]:
+    """Up to :data:`MAX_SETS` coefficient sets for the channel's windows ``q``.
+
+    The first set is :func:`fit`'s.  Then, while it pays, a set is added:
+    seeded on the windows that the current sets (and the previous-sample
+    predictor, which competes for every window anyway) serve worst, then
+    refined by two rounds of assigning each window to its cheapest set and
+    refitting each set on its windows (Lloyd's algorithm, with least squares
+    in place of means).  "Pays" means the estimated bits of the windows, plus
+    the coefficients and ``log2(sets)`` bits per window, drop by 0.5 %.
+    Signals whose character changes over the recording (a sweep, a shock,
+    then random vibration) gain most; stationary ones keep one set.
+    """
+    first = fit(q, level, cost)
+    ok = usable(q, level)
+    q, level = q[ok], level[ok]
+    if not first.coefs or len(q) < 4 * MIN_SET_WINDOWS:
+        return (first,)
+    ev = np.unique(np.linspace(0, len(q) - 1, min(len(q), SET_EVAL_WINDOWS)).astype(np.int64))
+    q, level = q[ev], level[ev]
+    prev = cost(np.concatenate([q[:, :1] - level[:, None], np.diff(q, axis=1)], axis=1))
+    order = max(first.order, 2)
+
+    def costs(sets):
+        return np.stack([cost(residuals(q, level, c)) for c in sets] + [prev])
+
+    def total(c, sets):
+        k = len(sets)
+        return float(c.min(axis=0).sum()) + COEF_BITS * sum(s.order for s in sets) + np.log2(k) * len(q)
+
+    sets = [first]
+    c = costs(sets)
+    best = total(c, sets)
+    while len(sets) < MAX_SETS:
+        worst = np.argsort(-c.min(axis=0), kind="stable")[:max(MIN_SET_WINDOWS, len(q) // (2 * (len(sets) + 1)))]
+        cand = sets + [_fit_order(q[worst], level[worst], order)]
+        for _ in range(2):
+            a = costs(cand)[:-1].argmin(axis=0)
+            cand = [_fit_order(q[a == k], level[a == k], order) if (a == k).sum() >= MIN_SET_WINDOWS and k else s
+                    for k, s in enumerate(cand)]
+        cc = costs(cand)
+        t = total(cc, cand)
+        if t >= best * 0.995:
+            break
+        sets, c, best = cand, cc, t
+    return tuple(sets)
+
+
 def residuals(q: np.ndarray, level: np.ndarray, lpc: LpcCoefs) -> np.ndarray:
     """``r = y - P(y[i-1], …)`` with ``y = q - level``: the encoder's side of :func:`reconstruct`."""
     y = q - level[:, None]

@@ -35,7 +35,7 @@ def build_manifest(rec: Recording, spec, grids, scales, lpcs, notes, W: int, K: 
         channels.append({
             **ch.to_dict(), "rate": rec.rate, "start": iso(rec.start), "n_samples": rec.n_samples,
             "budget": spec.for_channel(ch.name).spec, "eps": g.eps, "grid": g.to_dict(), "scale": int(scales[j]),
-            "lpc": lpcs[j].to_dict(), "note": notes[j],
+            "lpc": [c.to_dict() for c in lpcs[j]], "note": notes[j],
             "summary": {"worst_error": s["worst_error"], "used_pct": used_pct(s["worst_error"], g.eps),
                         "ratio": raw / share if share else math.inf,
                         "bits_per_sample": 8 * share / max(rec.n_samples, 1),

@@ -45,7 +45,7 @@ class ChannelMeta:
     window: int
     grid: Grid
     scale: int
-    lpc: LpcCoefs
+    lpc: tuple[LpcCoefs, ...]
     worst_error: float
     used_pct: float
     ratio: float
@@ -85,7 +85,7 @@ def _channel_meta(d: dict, window: int) -> ChannelMeta:
             start=None if not start else datetime.fromisoformat(start.replace("Z", "+00:00")),
             dtype=d["dtype"], n_samples=int(d["n_samples"]), budget=d["budget"], eps=float(d["eps"]),
             decimals=d.get("decimals"), window=window, grid=Grid.from_dict(d["grid"]), scale=int(d["scale"]),
-            lpc=LpcCoefs.from_dict(d.get("lpc")),
+            lpc=_lpc_sets(d.get("lpc")),
             worst_error=float(s["worst_error"]), used_pct=float(s["used_pct"]), ratio=float(s["ratio"]),
             bits_per_sample=float(s["bits_per_sample"]), n_exceptions=int(s.get("n_exceptions", 0)),
             modes=tuple(sorted(s.get("modes", {}).items())), note=str(d.get("note", "")))
@@ -223,6 +223,7 @@ class Archive:
             raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} are missing rows; the archive is damaged")
         lens = _lengths(meta, windows)
         modes = t["mode"].to_numpy()
+        lpc_set = t["lpc_set"].to_numpy()
         classes = t["table"].to_numpy()
         level = t["level"].to_numpy()
         payload = t["residual"].to_pylist()
@@ -244,7 +245,7 @@ class Archive:
                                           strict=False)
                 res[pick] = np.stack(dec) if dec else res[pick]
             ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
-            q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc), res)
+            q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc, lpc_set[sel]), res)
             x = meta.grid.to_out(meta.grid.values(q))                  # (windows, L), all at once
             for k in np.flatnonzero(n_exc[sel]):                        # samples stored verbatim
                 i = sel[k]
@@ -373,6 +374,12 @@ class Archive:
     def export(self, out_path, channels=None, start=None, end=None) -> Path:
         from ..export_range import export_range
         return export_range(self, out_path, channels=channels, start=start, end=end)
+
+
+def _lpc_sets(d) -> tuple[LpcCoefs, ...]:
+    if not isinstance(d, list) or not d or len(d) > 127:
+        raise ArchiveCorrupt("linear-prediction sets are missing or malformed; the archive is damaged")
+    return tuple(LpcCoefs.from_dict(c) for c in d)
 
 
 def _lengths(meta: ChannelMeta, windows: np.ndarray) -> np.ndarray:

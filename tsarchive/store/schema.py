@@ -38,6 +38,7 @@ WINDOWS_SCHEMA = pa.schema([
     pa.field("channel", pa.string()),        # channel name
     pa.field("window", pa.int32()),          # window number within the channel, from 0 (starts at window x W)
     pa.field("mode", pa.int8()),             # predictor id (tsarchive.predict)
+    pa.field("lpc_set", pa.int8()),          # which of the channel's LPC coefficient sets (mode lpc; else 0)
     pa.field("table", pa.int8()),            # activity class of the entropy table used (with channel, mode)
     pa.field("level", pa.int64()),           # rounded mean of the window on the integer grid
     pa.field("code", pa.list_(pa.int8())),   # autoencoder code (code_size int8 values; empty without a model)

@@ -24,7 +24,7 @@ from . import schema as S
 # Statistics only where the reader uses them (channel/window ranges per row group): statistics of the
 # payload columns would only add footer bytes.
 _PARQUET_OPTS = dict(compression="zstd", compression_level=9, store_schema=False, write_statistics=["channel", "window"],
-                     use_dictionary=["channel", "mode", "table"],
+                     use_dictionary=["channel", "mode", "lpc_set", "table"],
                      column_encoding={"window": "DELTA_BINARY_PACKED", "level": "DELTA_BINARY_PACKED",
                                       "crc32": "PLAIN", "worst": "PLAIN", "score": "BYTE_STREAM_SPLIT",
                                       "residual": "DELTA_LENGTH_BYTE_ARRAY"})
