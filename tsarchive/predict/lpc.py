@@ -102,15 +102,16 @@ def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
 
 MAX_SETS = 4               # coefficient sets per channel (a window names the one it uses)
 MIN_SET_WINDOWS = 8        # a set is refitted only on at least this many windows
-SET_EVAL_WINDOWS = 512     # windows on which sets are compared
+SET_EVAL_WINDOWS = 256     # windows on which sets are compared
+SET_FIT_ROWS = 20_000      # regression rows when refitting a set
 COEF_BITS = 40             # what one stored coefficient costs (JSON in the manifest), for the decision
 
 
 def _fit_order(q: np.ndarray, level: np.ndarray, order: int) -> LpcCoefs:
     """Least-squares coefficients of one given order on windows ``q``."""
     y = (q - level[:, None]).astype(np.float64)
-    X, t = _design(y, order, FIT_ROWS)
-    a, *_ = np.linalg.lstsq(X, t, rcond=None)
+    X, t = _design(y, order, SET_FIT_ROWS)
+    a, *_ = np.linalg.lstsq(X.T @ X, X.T @ t, rcond=None)   # normal equations: order x order
     return _coefs(a)
 
 
