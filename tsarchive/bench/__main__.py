@@ -26,7 +26,8 @@ from pathlib import Path
 from tsarchive.errors import TsArchiveError
 
 from . import modes, runner
-from .tables import LEGEND, limit_table, main_table
+from . import coder
+from .tables import LEGEND, limit_table, main_table, summary_table
 
 
 def _floats(text: str) -> tuple[float, ...]:
@@ -109,10 +110,17 @@ def main(argv: list[str] | None = None) -> int:
                 out(f"  {line}")
             out("\n" + main_table(rows))
             out("\n" + LEGEND)
+            out("\ntarget 1, ratio against the best classic baseline (quant, prev, prev2 + zstd-19):")
+            out(summary_table(rows))
             if any(r.entropy_bits is not None for r in rows):
                 out("\nGaussian-noise limit: H = entropy of N(0, sigma^2) quantized with step 2 eps "
                     "(mean over channels); a reference, not a bound on every coder")
                 out(limit_table(rows))
+            out("\nentropy coder alone (range coding, one table, windows of 1024) against the order-0 entropy of the "
+                "values it codes:")
+            crows = coder.run()
+            out(coder.coder_table(crows))
+            report["coder"] = [c.to_dict() for c in crows]
             for r in rows:
                 for n in r.notes:
                     out(f"note {r.case} {r.budget:g}: {n}")

@@ -138,7 +138,16 @@ def run_pack(job: Job) -> JobResult:
     return JobResult(True, channels=names, eps=eps, max_err=errs, nbytes=int(res.archive_bytes),
                      step_s=pack_s, read_s=read_s, rss_import_mb=rss0, rss_step_mb=rss1, rss_end_mb=rss_mb(),
                      extra={"ratio_reported": float(res.ratio), "raw_bytes": int(getattr(res, "raw_bytes", 0)),
-                            "torch_import_s": torch_s})
+                            "torch_import_s": torch_s, "payload_bytes": payload_bytes(Path(job.archive))})
+
+
+def payload_bytes(archive: Path) -> int:
+    """Bytes of the entropy-coded residuals alone (the rest of the archive is metadata and framing)."""
+    import pyarrow.compute as pc
+    import pyarrow.parquet as pq
+
+    col = pq.read_table(archive / "windows.parquet", columns=["residual"])["residual"]
+    return int(pc.sum(pc.binary_length(col)).as_py() or 0)
 
 
 def run_parquet(job: Job) -> JobResult:

@@ -238,6 +238,7 @@ def run_case(case: Case, cfg: BenchConfig, workdir: Path, log: Callable[[str], N
             baseline_bytes=tuple((k, results[k].nbytes) for k in (bl.id for bl in baselines.BASELINES)),
             baseline_worst=worst_base,
             ours_bytes=res.nbytes if res.ok else None,
+            payload_bytes=int(res.extra.get("payload_bytes", 0)) if res.ok and res.extra else None,
             err_over_eps=worst,
             pack_s=res.step_s if res.ok else None, unpack_s=res.read_s if res.ok else None,
             peak_rss_mb=res.rss_step_mb if res.ok else None, entropy_bits=entropy, noise_sigma=case.noise_sigma,

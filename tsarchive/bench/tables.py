@@ -37,6 +37,7 @@ class CaseRow:
     baseline_bytes: tuple[tuple[str, int], ...]
     baseline_worst: float
     ours_bytes: int | None = None
+    payload_bytes: int | None = None      # the entropy-coded residuals alone
     err_over_eps: float | None = None
     pack_s: float | None = None
     unpack_s: float | None = None
@@ -115,13 +116,14 @@ def render(headers: list[str], rows: list[list[str]]) -> str:
 def main_table(rows: list[CaseRow]) -> str:
     """The comparison table: one line per (case, budget)."""
     ids = [b.id for b in BASELINES]
-    headers = (["case", "budget", "samples", "ours", "bits/s"] + ids
+    headers = (["case", "budget", "samples", "ours", "bits/s", "coded b/s"] + ids
                + ["vs best", "err/eps", "pack MB/s", "unpack MB/s", "RSS MiB"])
     body = []
     for r in rows:
         sizes = dict(r.baseline_bytes)
         body.append([r.case, f"{r.budget:g}", f"{r.n_samples}x{r.n_channels}",
-                     fmt(r.ours_ratio) if not r.failure else "FAIL", fmt(r.bits(r.ours_bytes))]
+                     fmt(r.ours_ratio) if not r.failure else "FAIL", fmt(r.bits(r.ours_bytes)),
+                     fmt(r.bits(r.payload_bytes), ".3f")]
                     + [fmt(r.ratio(sizes[i])) for i in ids]
                     + [fmt(r.vs_best), fmt(r.err_over_eps, ".3f") + ("!" if (r.err_over_eps or 0) > 1 else ""), fmt(r.mbps(r.pack_s), ".3g"),
                        fmt(r.mbps(r.unpack_s), ".3g"), fmt(r.peak_rss_mb, ".0f")])
@@ -130,21 +132,27 @@ def main_table(rows: list[CaseRow]) -> str:
 
 def limit_table(rows: list[CaseRow]) -> str:
     """Gaussian-noise limit rows: our bits/sample and the best classic's against H."""
-    headers = ["case", "budget", "sigma", "eps/sigma", "H bits", "ours bits", "ours - H", "best classic bits"]
+    headers = ["case", "budget", "sigma", "eps/sigma", "H bits", "ours bits", "ours - H", "coded bits", "coded / H",
+               "overhead bits", "best classic bits"]
     body = []
     for r in rows:
         if r.entropy_bits is None or r.noise_sigma is None:
             continue
         ours = r.bits(r.ours_bytes)
+        coded = r.bits(r.payload_bytes)
         body.append([r.case, f"{r.budget:g}", f"{r.noise_sigma:g}", fmt(min(r.eps) / r.noise_sigma, ".4g"),
                      fmt(r.entropy_bits, ".3f"), fmt(ours, ".3f"),
                      fmt(None if ours is None else ours - r.entropy_bits, "+.3f"),
+                     fmt(coded, ".3f"), fmt(None if coded is None else coded / r.entropy_bits, ".4f"),
+                     fmt(None if coded is None or ours is None else ours - coded, ".3f"),
                      fmt(r.bits(r.best_classic_bytes), ".3f")])
     return render(headers, body)
 
 
 LEGEND = (
     "ratios = raw float32 size (4 B x samples x channels) / compressed size; bits/s = compressed bits per sample;\n"
+    "coded b/s = the entropy-coded residuals alone (bits/s minus coded b/s = checksums, levels, scores, tables,\n"
+    "manifest and Parquet framing);\n"
     "baselines: " + "; ".join(f"{b.id} = {b.describe}" for b in BASELINES) + ";\n"
     "quant/prev/prev2 quantize on the channel's logging grid when tsarchive detects one (integers, fixed decimals);\n"
     "vs best = our ratio / best of quant, prev, prev2; err/eps = max over channels of max|x_hat - x| / eps;\n"
@@ -152,3 +160,18 @@ LEGEND = (
     "training and pack's own read-back check but not the torch import, unpack = open + read every channel;\n"
     "RSS MiB = peak ru_maxrss of the child process that packs (includes interpreter and torch)."
 )
+
+
+def summary_table(rows: list[CaseRow]) -> str:
+    """Target 1 per budget and overall: wins against the best classic baseline, the worst case, geomean."""
+    def line(label: str, rs: list[CaseRow]) -> list[str]:
+        v = [(r.vs_best, r.case) for r in rs if r.vs_best is not None]
+        if not v:
+            return [label, "0", "-", "-", "-"]
+        worst = min(v)
+        gm = math.exp(sum(math.log(x) for x, _ in v) / len(v))
+        return [label, str(len(v)), f"{sum(x >= 1.0 for x, _ in v)}/{len(v)}", f"{worst[0]:.2f} ({worst[1]})",
+                f"{gm:.2f}"]
+    budgets = sorted({r.budget for r in rows}, reverse=True)
+    body = [line(f"b = {b:g}", [r for r in rows if r.budget == b]) for b in budgets] + [line("all", rows)]
+    return render(["budgets", "cases", "vs best >= 1", "lowest vs best", "geomean vs best"], body)
