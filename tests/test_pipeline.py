@@ -221,3 +221,16 @@ def test_probe_model_decides_before_a_long_training(tmp_path):
     assert arc.manifest["model"] is None
     assert f"after a {pipeline.PROBE_SECONDS:g} s probe" in arc.manifest["model_note"]
     assert not any("training it fully" in e.message for e in events)
+
+
+def test_logged_resolution_multiplier_is_found_and_kept_exact(tmp_path):
+    # An ADC with 0.005 mV steps logged with three decimals: every value is 5 units of 0.001, so the lossless
+    # grid counts in steps of 0.005 (q = x * 1000 / 5) and still gives back the very doubles.
+    rng = np.random.default_rng(8)
+    k = np.cumsum(rng.integers(-20, 21, 20000))
+    x = np.round(k * 5) / 1000.0            # the doubles a decimal parser returns for k*0.005
+    src, out, res = _pack(tmp_path, x, budget="lossless", window=256, code_size=0)
+    arc = tsarchive.open(out)
+    g = arc.channels[0].grid
+    assert (g.kind, g.decimals, g.mult) == ("decimal", 3, 5)
+    np.testing.assert_array_equal(values_to_bits(arc.read("ch0")), values_to_bits(x))

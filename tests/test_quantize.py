@@ -125,3 +125,17 @@ def test_integer_channels_decode_to_integers_within_budget_without_exceptions(x,
         assert g.kind == "decimal" and err.max() == 0       # no two integers can share a value: exact
     else:
         assert g.step == 2 * np.floor(eps) + 1
+
+
+@given(hnp.arrays(np.int64, st.integers(1, 200), elements=st.integers(-10**9, 10**9)),
+       st.integers(0, 6), st.sampled_from([1, 2, 5, 25, 125]))
+def test_decimal_grid_with_a_multiplier_gives_back_the_parsed_doubles(k, decimals, mult):
+    # x = the double nearest to (k * mult) / 10**d, as a decimal parser returns it (IEEE 754 division is
+    # correctly rounded; k * mult is exact below 2**53): the grid must return those very bits.
+    x = (k * mult).astype(np.float64) / 10.0 ** decimals
+    g = make_grid(0.0, decimals, np.dtype(np.float64), mult=mult)
+    q, pos, bits = quantize(x, g)
+    assert len(pos) == 0
+    np.testing.assert_array_equal(q, k)
+    np.testing.assert_array_equal(values_to_bits(g.dequantize(q, pos, bits)), values_to_bits(x))
+    assert Grid.from_dict(g.to_dict()) == g

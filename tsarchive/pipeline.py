@@ -29,7 +29,7 @@ from .encoder import TABLE_SAMPLES, ChannelPlan, encode_batch, plan_channel, sam
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .ingest import read_recording
 from .predict import PREDICTORS
-from .quantize import Grid, make_grid, quantize
+from .quantize import MAX_MULT, Grid, make_grid, quantize
 from .recording import Recording
 from .results import ChannelSummary, PackResult, Progress, ProgressFn
 from .store import schema as S
@@ -142,7 +142,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
 
 # -- stages --------------------------------------------------------------------
 def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
-    lo, hi, anchor = _finite_ranges(rec)
+    lo, hi, anchor, mult = _finite_ranges(rec)
     grids, notes = [], []
     for j, ch in enumerate(rec.channels):
         budget = spec.for_channel(ch.name)
@@ -150,7 +150,7 @@ def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
             raise BudgetError(f"channel {ch.name} is not on an integer or decimal grid, so 'lossless' is "
                               f"unavailable; give it a budget such as {ch.name}=0.1%")
         span = hi[j] - lo[j] if math.isfinite(hi[j] - lo[j]) else 0.0
-        g = make_grid(budget.resolve(span, ch.name), ch.decimals, np.dtype(ch.dtype), anchor[j])
+        g = make_grid(budget.resolve(span, ch.name), ch.decimals, np.dtype(ch.dtype), anchor[j], int(mult[j]))
         grids.append(g)
         notes.append(_grid_note(budget, g))
     return grids, notes
@@ -161,14 +161,23 @@ def _grid_note(budget, grid: Grid) -> str:
     if budget.kind == "lossless" or grid.eps > 0:
         return ""
     if grid.kind == "decimal":
-        return (f"budget {budget.spec} cannot merge distinct logged values (resolution {10.0 ** -grid.decimals:g}), "
+        return (f"budget {budget.spec} cannot merge distinct logged values (resolution "
+                f"{grid.mult * 10.0 ** -grid.decimals:g}), "
                 "so the channel is stored exactly")
     return f"budget {budget.spec} of a zero range is 0, so the channel is stored exactly"
 
 
 def _finite_ranges(rec: Recording):
+    """Per channel: finite min, max, first finite value, and the logged resolution's multiplier.
+
+    The multiplier is the greatest common divisor of the logged integers
+    ``round(x * 10**decimals)`` (channels with a detected decimal grid): a
+    0.005 mV resolution logged with three decimals gives 5.  Samples off the
+    grid do not matter here; quantization checks every sample anyway.
+    """
     C = len(rec.channels)
     lo, hi, anchor = np.full(C, np.inf), np.full(C, -np.inf), np.full(C, np.nan)
+    gcd = np.zeros(C, dtype=np.int64)
     for s in range(0, rec.n_samples, CHUNK_SAMPLES):
         x = rec.rows(s, s + CHUNK_SAMPLES).astype(np.float64)
         fin = np.isfinite(x)
@@ -177,9 +186,15 @@ def _finite_ranges(rec: Recording):
             hi = np.maximum(hi, np.where(fin, x, -np.inf).max(axis=0, initial=-np.inf))
         for j in np.flatnonzero(np.isnan(anchor) & fin.any(axis=0)):
             anchor[j] = x[np.argmax(fin[:, j]), j]
+        for j, ch in enumerate(rec.channels):
+            if ch.decimals is not None and gcd[j] != 1:
+                v = np.abs(np.rint(x[fin[:, j], j] * 10.0 ** ch.decimals))
+                v = v[(v > 0) & (v < 2.0 ** 62)].astype(np.int64)
+                gcd[j] = np.gcd.reduce(np.append(v, gcd[j])) if len(v) else gcd[j]
     none = np.isinf(lo)
     lo[none], hi[none], anchor[np.isnan(anchor)] = 0.0, 0.0, 0.0
-    return lo, hi, anchor
+    mult = np.where((gcd >= 1) & (gcd <= MAX_MULT), gcd, 1)
+    return lo, hi, anchor, mult
 
 
 def _gather(rec: Recording, idx: np.ndarray, W: int) -> np.ndarray:

@@ -7,8 +7,10 @@ Two grids:
 
 * ``step``: ``x̂ = offset + q * step`` with ``step = 2ε`` (uniform
   quantization; a uniform quantizer's maximum error is Δ/2 = ε).
-* ``decimal``: ``x̂ = q / 10**decimals`` for lossless channels on a logged
-  decimal grid (``decimals = 0`` for integer counts).  Dividing two exactly
+* ``decimal``: ``x̂ = (q * mult) / 10**decimals`` for lossless channels on a
+  logged decimal grid (``decimals = 0`` for integer counts; ``mult`` > 1 when
+  every logged value is a multiple of ``mult`` units of the last decimal, as
+  a 0.005 mV resolution is 5 units of 0.001).  Dividing two exactly
   representable integers is correctly rounded by IEEE-754, so this gives back
   the very double a decimal parser produced.
 
@@ -31,6 +33,7 @@ import numpy as np
 from .errors import ArchiveCorrupt
 
 _MAX_Q = float(2**50)
+MAX_MULT = 1 << 20
 
 
 @dataclass(frozen=True)
@@ -43,6 +46,7 @@ class Grid:
     step: float = 1.0
     offset: float = 0.0
     decimals: int = 0
+    mult: int = 1   # decimal grid: values are multiples of mult * 10**-decimals
 
     def __post_init__(self) -> None:
         if self.kind not in ("step", "decimal"):
@@ -51,16 +55,19 @@ class Grid:
             raise ArchiveCorrupt("grid step must be positive and finite; the archive is damaged")
         if self.kind == "decimal" and not 0 <= self.decimals <= 15:
             raise ArchiveCorrupt("grid decimals out of range 0..15; the archive is damaged")
+        if not 1 <= self.mult <= MAX_MULT:
+            raise ArchiveCorrupt("grid multiplier out of range; the archive is damaged")
 
     def to_dict(self) -> dict:
         return {"kind": self.kind, "eps": self.eps, "out_dtype": self.out_dtype, "step": self.step,
-                "offset": self.offset, "decimals": self.decimals}
+                "offset": self.offset, "decimals": self.decimals, "mult": self.mult}
 
     @classmethod
     def from_dict(cls, d: dict) -> "Grid":
         try:
             return cls(kind=str(d["kind"]), eps=float(d["eps"]), out_dtype=str(np.dtype(d["out_dtype"])),
-                       step=float(d["step"]), offset=float(d["offset"]), decimals=int(d["decimals"]))
+                       step=float(d["step"]), offset=float(d["offset"]), decimals=int(d["decimals"]),
+                       mult=int(d.get("mult", 1)))
         except (KeyError, TypeError, ValueError) as exc:
             raise ArchiveCorrupt(f"grid description is incomplete ({exc}); the archive is damaged") from None
 
@@ -69,7 +76,8 @@ class Grid:
         """float64 x̂ for integers ``q`` (before conversion to the output dtype)."""
         qf = q.astype(np.float64)
         if self.kind == "decimal":
-            return qf / float(10**self.decimals)
+            # q * mult is an exact integer below 2**53, and the division is correctly rounded
+            return (qf * float(self.mult) if self.mult != 1 else qf) / float(10**self.decimals)
         return self.offset + qf * self.step
 
     def to_out(self, xh: np.ndarray) -> np.ndarray:
@@ -108,30 +116,33 @@ def bits_to_values(bits: np.ndarray, dtype: np.dtype) -> np.ndarray:
     return bits.astype(dtype)
 
 
-def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float = 0.0) -> Grid:
+def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float = 0.0, mult: int = 1) -> Grid:
     """Choose the grid for a channel.
 
     ``eps == 0`` (lossless) uses the decimal grid when the channel has one;
     a channel with no grid and ``eps == 0`` (e.g. a constant channel under a
     percentage budget) uses a step grid anchored at ``anchor`` so that a
-    constant comes back exactly with ``q == 0``.  A budget finer than the
-    logged resolution is also served exactly by the decimal grid.
+    constant comes back exactly with ``q == 0``.  A budget below half the
+    logged resolution (``mult * 10**-decimals``) is also served exactly by
+    the decimal grid.
     """
     dt = np.dtype(dtype)
     out = dt.name if dt.kind in "fiu" else "float64"
-    if decimals is not None and (eps == 0 or eps < 0.5 * 10.0 ** (-decimals)):
-        return Grid("decimal", 0.0, out, decimals=int(decimals))
+    mult = int(mult) if decimals is not None and 1 <= int(mult) <= MAX_MULT else 1
+    if decimals is not None and (eps == 0 or eps < 0.5 * mult * 10.0 ** (-decimals)):
+        return Grid("decimal", 0.0, out, decimals=int(decimals), mult=mult)
     if eps == 0:
         return Grid("step", 0.0, out, step=1.0, offset=float(anchor) if math.isfinite(anchor) else 0.0)
     off = float(anchor) if math.isfinite(anchor) else 0.0
     if dt.kind in "iu":
-        # Integer samples: bins of 2m+1 consecutive integers (m = floor(eps)) centred on an integer, so
-        # every decoded value is itself an integer at most m <= eps away, exactly, and no sample needs to
-        # be stored verbatim (a 2*eps step would decode to fractions that the integer output rounds off).
-        m = int(math.floor(float(eps)))
+        # Integer samples on multiples of ``mult``: bins of 2m+1 consecutive multiples (m = floor(eps/mult))
+        # centred on one, so every decoded value is itself such an integer at most m*mult <= eps away,
+        # exactly, and no sample needs to be stored verbatim (a 2*eps step would decode to fractions that
+        # the integer output rounds off).
+        m = int(math.floor(float(eps) / mult))
         if m == 0:
-            return Grid("decimal", 0.0, out, decimals=0)
-        return Grid("step", float(eps), out, step=float(2 * m + 1), offset=float(round(off)))
+            return Grid("decimal", 0.0, out, decimals=0, mult=mult)
+        return Grid("step", float(eps), out, step=float((2 * m + 1) * mult), offset=float(round(off)))
     return Grid("step", float(eps), out, step=2.0 * float(eps), offset=off)
 
 
@@ -159,7 +170,7 @@ def quantize(x: np.ndarray, grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndar
     # exactness is judged on the value in the channel's dtype.
     raw_bits = values_to_bits(x.astype(grid.out_dtype)) if grid.eps == 0 else None
     with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-        scaled = x64 * float(10**grid.decimals) if grid.kind == "decimal" else (x64 - grid.offset) / grid.step
+        scaled = x64 * float(10**grid.decimals) / grid.mult if grid.kind == "decimal" else (x64 - grid.offset) / grid.step
         finite = np.isfinite(scaled) & (np.abs(scaled) < _MAX_Q)
         qf = np.where(finite, np.rint(scaled), 0.0)
     q = qf.astype(np.int64)
