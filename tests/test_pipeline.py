@@ -234,3 +234,15 @@ def test_logged_resolution_multiplier_is_found_and_kept_exact(tmp_path):
     g = arc.channels[0].grid
     assert (g.kind, g.decimals, g.mult) == ("decimal", 3, 5)
     np.testing.assert_array_equal(values_to_bits(arc.read("ch0")), values_to_bits(x))
+
+
+def test_damaged_entropy_table_in_the_manifest_is_named(tmp_path):
+    from tsarchive.errors import ArchiveCorrupt
+    x = np.random.default_rng(9).standard_normal(5000).astype(np.float32)
+    src, out, res = _pack(tmp_path, x, budget="1%", window=256)
+    m = json.loads((out / "manifest.json").read_text())
+    assert not (out / "tables.parquet").exists() and m["channels"][0]["tables"]
+    m["channels"][0]["tables"][0]["freqs"] = "not base64!"
+    (out / "manifest.json").write_text(json.dumps(m))
+    with pytest.raises(ArchiveCorrupt, match="entropy table entry is malformed"):
+        tsarchive.open(out).read("ch0")

@@ -24,7 +24,7 @@ import numpy as np
 import pyarrow as pa
 
 from .budget import parse_budget_spec
-from .codec import CODER_ID, FRAC_SAFE_SCALE
+from .codec import FRAC_SAFE_SCALE
 from .encoder import TABLE_SAMPLES, ChannelPlan, encode_batch, plan_channel, sample_windows
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .ingest import read_recording
@@ -32,7 +32,6 @@ from .predict import PREDICTORS
 from .quantize import MAX_MULT, Grid, make_grid, quantize
 from .recording import Recording
 from .results import ChannelSummary, PackResult, Progress, ProgressFn
-from .store import schema as S
 from .store.manifest import build_manifest
 from .store.writer import ArchiveWriter, check_target
 from .windows import DEFAULT_WINDOW, MAX_WINDOW, MIN_WINDOW, batches, channel_scale, levels, n_windows, normalise
@@ -114,12 +113,9 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
 
     with ArchiveWriter(archive, force=force) as writer:
         summaries = _encode(writer, rec, names, grids, W, model, scales, plans, tables, emit)
-        emit("write", 0, 1, "writing tables and model")
-        writer.write_tables(pa.Table.from_pylist(
-            [{"channel": ch, "mode": m, "table": c, "coder": CODER_ID, "freqs": t.to_bytes()}
-             for ch, ts in zip(names, tables) for (m, c), t in sorted(ts.tables.items())], schema=S.TABLES_SCHEMA))
+        emit("write", 0, 1, "writing the model and the manifest")
         writer.write_model({} if decoder is None else decoder.to_arrays())
-        manifest = build_manifest(rec, spec, grids, scales, [p.lpc for p in plans], notes, W, K, decoder,
+        manifest = build_manifest(rec, spec, grids, scales, [p.lpc for p in plans], tables, notes, W, K, decoder,
                                   model_note, summaries, writer.staged_bytes())
         stage = writer.finalize(manifest)
         emit("write", 1, 1, "staged")

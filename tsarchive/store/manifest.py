@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import base64
 import math
 from datetime import datetime, timezone
 
 import numpy as np
 
 from .. import __version__, checksum
+from ..codec import CODER_ID
 from ..recording import Recording
 from . import schema as S
 
@@ -20,9 +22,15 @@ def used_pct(worst: float, eps: float) -> float:
     return 100.0 * worst / eps if eps > 0 else (0.0 if worst == 0 else math.inf)
 
 
-def build_manifest(rec: Recording, spec, grids, scales, lpcs, notes, W: int, K: int, decoder, model_note: str,
-                   summaries: list[dict], archive_bytes: int) -> dict:
-    """Everything a reader needs besides the Parquet members (whose checksums the writer adds)."""
+def build_manifest(rec: Recording, spec, grids, scales, lpcs, tables, notes, W: int, K: int, decoder,
+                   model_note: str, summaries: list[dict], archive_bytes: int) -> dict:
+    """Everything a reader needs besides the Parquet members (whose checksums the writer adds).
+
+    ``tables`` (one :class:`tsarchive.codec.TableSet` per channel) are stored
+    per channel as ``{"mode", "table", "coder", "freqs"}`` with ``freqs`` the
+    integer frequency table's bytes in base64 (a few hundred bytes; a Parquet
+    file of its own would cost more in framing than its content).
+    """
     src = rec.source
     src_bytes = src.stat().st_size if src is not None and src.is_file() else int(rec.data.nbytes)
     raw_bytes = sum(rec.n_samples * np.dtype(c.dtype).itemsize for c in rec.channels)
@@ -35,7 +43,11 @@ def build_manifest(rec: Recording, spec, grids, scales, lpcs, notes, W: int, K: 
         channels.append({
             **ch.to_dict(), "rate": rec.rate, "start": iso(rec.start), "n_samples": rec.n_samples,
             "budget": spec.for_channel(ch.name).spec, "eps": g.eps, "grid": g.to_dict(), "scale": int(scales[j]),
-            "lpc": [c.to_dict() for c in lpcs[j]], "note": notes[j],
+            "lpc": [c.to_dict() for c in lpcs[j]],
+            "tables": [{"mode": int(m), "table": int(c), "coder": CODER_ID,
+                        "freqs": base64.b64encode(t.to_bytes()).decode("ascii")}
+                       for (m, c), t in sorted(tables[j].tables.items())],
+            "note": notes[j],
             "summary": {"worst_error": s["worst_error"], "used_pct": used_pct(s["worst_error"], g.eps),
                         "ratio": raw / share if share else math.inf,
                         "bits_per_sample": 8 * share / max(rec.n_samples, 1),

@@ -8,6 +8,8 @@ manifest is JSON, the model is plain integer arrays.
 
 from __future__ import annotations
 
+import base64
+import binascii
 import json
 import math
 from dataclasses import dataclass
@@ -173,14 +175,20 @@ class Archive:
 
     @cached_property
     def _tables(self) -> dict[tuple[str, int, int], entropy.FreqTable]:
-        t = pq.read_table(self.path / S.TABLES)
-        for coder in set(t["coder"].to_pylist()):
-            if coder != CODER_ID:
-                raise ArchiveCorrupt(f"entropy coder {coder!r} is unknown to this tsarchive version; upgrade tsarchive "
-                                     "to read the archive")
-        return {(c, int(m), int(k)): entropy.FreqTable.from_bytes(b)
-                for c, m, k, b in zip(t["channel"].to_pylist(), t["mode"].to_pylist(), t["table"].to_pylist(),
-                                      t["freqs"].to_pylist())}
+        out = {}
+        for ch in self.manifest["channels"]:
+            for t in ch.get("tables", []):
+                try:
+                    coder, key = t["coder"], (ch["name"], int(t["mode"]), int(t["table"]))
+                    freqs = base64.b64decode(t["freqs"], validate=True)
+                except (KeyError, TypeError, ValueError, binascii.Error):
+                    raise ArchiveCorrupt(f"channel {ch.get('name')}: an entropy table entry is malformed; "
+                                         "the archive is damaged") from None
+                if coder != CODER_ID:
+                    raise ArchiveCorrupt(f"entropy coder {coder!r} is unknown to this tsarchive version; "
+                                         "upgrade tsarchive to read the archive")
+                out[key] = entropy.FreqTable.from_bytes(freqs)
+        return out
 
     @cached_property
     def decoder(self):

@@ -2,10 +2,9 @@
 
 An archive is a directory, by convention ``NAME.tsa``::
 
-    manifest.json     format, tool version, channels, budgets, grids, summary,
-                      SHA-256 of every member file
+    manifest.json     format, tool version, channels (budgets, grids, LPC sets,
+                      entropy tables), summary, SHA-256 of every member file
     windows.parquet   one row per channel window (codes, residual payloads, checksums)
-    tables.parquet    one row per (channel, predictor, class): the entropy coder's integer table
     model.parquet     one row per decoder array (plain integers, no pickle);
                       present only when the manifest names a model
 
@@ -28,10 +27,9 @@ FORMAT_VERSION = 2
 
 MANIFEST = "manifest.json"
 WINDOWS = "windows.parquet"
-TABLES = "tables.parquet"
 MODEL = "model.parquet"
-MEMBERS = (WINDOWS, TABLES, MODEL)
-REQUIRED_MEMBERS = (WINDOWS, TABLES)   # model.parquet only when the manifest has a model
+MEMBERS = (WINDOWS, MODEL)
+REQUIRED_MEMBERS = (WINDOWS,)          # model.parquet only when the manifest has a model
 WORST_STEPS = 250                      # per-window worst error is stored in 1/250ths of ε, rounded up
 
 WINDOWS_SCHEMA = pa.schema([
@@ -48,14 +46,6 @@ WINDOWS_SCHEMA = pa.schema([
     pa.field("crc32", pa.uint32()),          # CRC-32 of the decoded samples (little-endian bytes)
     pa.field("worst", pa.uint8()),           # max |x̂ - x| in the window in 1/WORST_STEPS of ε, rounded up
     pa.field("score", pa.float32()),         # peak |x - code-only reconstruction|, channel units, 8 significant bits
-])
-
-TABLES_SCHEMA = pa.schema([
-    pa.field("channel", pa.string()),
-    pa.field("mode", pa.int8()),
-    pa.field("table", pa.int8()),            # activity class
-    pa.field("coder", pa.string()),
-    pa.field("freqs", pa.binary()),          # the coder's integer frequency table (tsarchive.entropy.FreqTable)
 ])
 
 MODEL_SCHEMA = pa.schema([

@@ -74,10 +74,6 @@ class ArchiveWriter:
             self._windows = pq.ParquetWriter(self.stage / S.WINDOWS, S.WINDOWS_SCHEMA, **_PARQUET_OPTS)
         self._windows.write_table(rows.cast(S.WINDOWS_SCHEMA), row_group_size=S.ROW_GROUP_WINDOWS)
 
-    def write_tables(self, rows: pa.Table) -> None:
-        pq.write_table(rows.cast(S.TABLES_SCHEMA), self.stage / S.TABLES, compression="zstd", store_schema=False,
-                       write_statistics=False)
-
     def write_model(self, arrays: dict[str, np.ndarray]) -> None:
         """The decoder's arrays; nothing is written for an archive without a model."""
         if not arrays:
