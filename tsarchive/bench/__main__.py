@@ -171,7 +171,7 @@ def _long_modes(args, train, tmp: Path, report: dict, out, log) -> bool:
         m = modes.run_memory(args.memory, args.long_budget, tmp, train, log)
         ok &= m.ok
         out(f"\nmemory: {args.memory:g} MB float32 .npy (4 channels at 1 kHz) packed by a child process; "
-            "RSS = ru_maxrss of that process")
+            "RSS = peak resident set (VmHWM) of that process")
         out(modes.memory_table(m))
         report["memory"] = m.to_dict()
     return ok

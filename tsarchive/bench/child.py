@@ -82,7 +82,20 @@ class JobResult:
 
 
 def rss_mb() -> float:
-    """Peak resident set size of this process so far, MiB (ru_maxrss is KiB on Linux)."""
+    """Peak resident set size of this process so far, MiB.
+
+    Linux: ``VmHWM`` from /proc/self/status, the high-water mark of this
+    process image.  ``ru_maxrss`` is only the fallback: it survives execve(2),
+    so a child forked from a parent that holds a large memory map (the bench
+    writes its long inputs through one) would report the parent's size.
+    """
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) / 1024.0   # kB
+    except (OSError, ValueError, IndexError):
+        pass
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 

@@ -11,8 +11,8 @@ Conventions used by every table (printed in its legend):
   (must be <= 1);
 * MB/s use 1 MB = 1e6 bytes of raw float32 size (pack time excludes the
   torch import, done before the clock starts); peak RSS is the pack child
-  process's ``resource.getrusage(RUSAGE_SELF).ru_maxrss`` (includes the
-  interpreter and the torch import).
+  process's high-water mark ``VmHWM`` (:func:`tsarchive.bench.child.rss_mb`;
+  includes the interpreter and the torch import).
 """
 
 from __future__ import annotations
@@ -158,7 +158,7 @@ LEGEND = (
     "vs best = our ratio / best of quant, prev, prev2; err/eps = max over channels of max|x_hat - x| / eps;\n"
     "budget b: eps = b x (max - min) of each channel; MB/s of raw float32 size (1 MB = 1e6 B), pack time includes\n"
     "training and pack's own read-back check but not the torch import, unpack = open + read every channel;\n"
-    "RSS MiB = peak ru_maxrss of the child process that packs (includes interpreter and torch)."
+    "RSS MiB = peak resident set (VmHWM) of the child process that packs (includes interpreter and torch)."
 )
 
 
