@@ -335,3 +335,14 @@ def test_sample_streams_regenerate_identically(tmp_path):
             assert pq.read_table(p).equals(pq.read_table(committed)), p.name
             continue
         assert hashlib.sha256(p.read_bytes()).hexdigest() == hashlib.sha256(committed.read_bytes()).hexdigest(), p.name
+
+
+def test_npy_grid_sample_equals_a_plain_strided_read(tmp_path, monkeypatch):
+    # The grid-detection sample is read in short stretches (fresh memory maps); it must be exactly x[::step].
+    from tsarchive.ingest import npyfile
+    monkeypatch.setattr(npyfile, "MAX_CHECKED", 1000)
+    monkeypatch.setattr(npyfile, "SAMPLE_ROWS_PER_MAP", 7)
+    x = np.random.default_rng(3).standard_normal((12345, 3)).astype(np.float32)
+    np.save(tmp_path / "x.npy", x)
+    step = -(-12345 // 1000)
+    np.testing.assert_array_equal(npyfile._strided_sample(tmp_path / "x.npy", 12345), x[::step])

@@ -14,8 +14,10 @@ import numpy as np
 
 from ..errors import BadInput
 from ..recording import ChannelInfo, Recording
-from .grid import detect_decimals
+from .grid import MAX_CHECKED, detect_decimals
 from .tabular import check_rate
+
+SAMPLE_ROWS_PER_MAP = 4096   # sampled rows per memory map while sampling for grid detection
 
 
 def read_npy(path: Path, rate: float | None) -> Recording:
@@ -47,14 +49,29 @@ def read_npy(path: Path, rate: float | None) -> Recording:
     if arr.size == 0:
         raise BadInput(f"{path.name}: array of shape {shape} has no samples; give a non-empty recording")
     dtype_name = arr.dtype.name
-    # Grid detection reads a strided sample of the whole file: do it through its own
-    # memory map and drop that map afterwards, so the pages it touched are released.
-    probe = np.load(path, mmap_mode="r", allow_pickle=False)
-    probe = probe.reshape(shape[0], 1) if probe.ndim == 1 else probe
+    probe = _strided_sample(path, shape[0])
     channels = tuple(
         ChannelInfo(name=f"ch{j}", unit="", dtype=dtype_name, decimals=detect_decimals(probe[:, j], arr.dtype))
         for j in range(probe.shape[1])
     )
-    del probe
     data = arr.reshape(shape[0], 1) if arr.ndim == 1 else arr
     return Recording(data=data, rate=float(rate), channels=channels, start=None, source=path, shape=shape)
+
+
+def _strided_sample(path: Path, n: int) -> np.ndarray:
+    """Every k-th row (at most MAX_CHECKED rows) for grid detection, read in short stretches.
+
+    A strided read touches every page of the file; each stretch goes through a
+    memory map of its own that is dropped before the next, so the resident
+    size stays near one stretch (about 16 MB) however large the file is.
+    """
+    step = max(1, -(-n // MAX_CHECKED))
+    span = step * SAMPLE_ROWS_PER_MAP
+    parts = []
+    for a in range(0, n, span):
+        m = np.load(path, mmap_mode="r", allow_pickle=False)
+        try:
+            parts.append(np.array(m.reshape(n, -1)[a:min(n, a + span):step]))
+        finally:
+            del m
+    return np.concatenate(parts)
