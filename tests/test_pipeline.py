@@ -246,3 +246,14 @@ def test_damaged_entropy_table_in_the_manifest_is_named(tmp_path):
     (out / "manifest.json").write_text(json.dumps(m))
     with pytest.raises(ArchiveCorrupt, match="entropy table entry is malformed"):
         tsarchive.open(out).read("ch0")
+
+
+def test_sampled_windows_are_gathered_exactly():
+    # Sparse samples are read window by window, runs of neighbours together: the result must equal plain indexing.
+    from tsarchive.pipeline import _gather
+    from tsarchive.recording import ChannelInfo, Recording
+    x = np.arange(100 * 8 * 2, dtype=np.float32).reshape(-1, 2)
+    rec = Recording(data=x, rate=1.0, channels=(ChannelInfo("a", "", "float32", None), ChannelInfo("b", "", "float32", None)),
+                    start=None, source=None, shape=x.shape)
+    idx = np.array([0, 1, 2, 5, 9, 10, 99])
+    np.testing.assert_array_equal(_gather(rec, idx, 8), x.reshape(100, 8, 2)[idx])

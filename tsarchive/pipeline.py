@@ -194,12 +194,19 @@ def _finite_ranges(rec: Recording):
 
 
 def _gather(rec: Recording, idx: np.ndarray, W: int) -> np.ndarray:
-    """Windows ``idx`` of every channel: (len(idx), W, channels)."""
+    """Windows ``idx`` (sorted) of every channel: (len(idx), W, channels).
+
+    Runs of consecutive windows (at most 256) share one read; a sparse
+    sample reads window by window, so memory stays at the sample's size
+    however long the recording.
+    """
     out = np.empty((len(idx), W, len(rec.channels)), dtype=rec.data.dtype)
-    for k in range(0, len(idx), 256):  # runs of nearby windows share one read
-        part = idx[k:k + 256]
-        block = rec.rows(int(part[0]) * W, (int(part[-1]) + 1) * W)
-        out[k:k + len(part)] = block.reshape(-1, W, block.shape[1])[part - part[0]]
+    breaks = np.flatnonzero(np.diff(idx) != 1) + 1
+    for run in np.split(np.arange(len(idx)), breaks) if len(idx) else []:
+        for k in range(0, len(run), 256):
+            part = run[k:k + 256]
+            a, b = int(idx[part[0]]), int(idx[part[-1]]) + 1
+            out[part] = rec.rows(a * W, b * W).reshape(b - a, W, -1)
     return out
 
 
