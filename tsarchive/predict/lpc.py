@@ -44,9 +44,7 @@ class LpcCoefs:
         return {"coefs": list(self.coefs), "shift": self.shift}
 
     @classmethod
-    def from_dict(cls, d: dict | None) -> "LpcCoefs":
-        if d is None:
-            return cls(())
+    def from_dict(cls, d: dict) -> "LpcCoefs":
         try:
             return cls(tuple(int(a) for a in d["coefs"]), int(d["shift"]))
         except (KeyError, TypeError, ValueError):
