@@ -178,6 +178,16 @@ def test_decoding_is_identical_across_thread_counts(small_archive, threads, tmp_
     assert out == hashlib.sha256(b"".join(ref.read(c.name).tobytes() for c in ref.channels)).hexdigest()
 
 
+@pytest.mark.parametrize("workers", [1, 2, 3])
+def test_reading_channels_on_threads_gives_the_same_samples(small_archive, workers):
+    arc = tsarchive.open(small_archive)
+    ref = {c.name: tsarchive.open(small_archive).read(c.name, 0.5, 9.0) for c in arc.channels}
+    got = arc.read_many(start=0.5, end=9.0, workers=workers)
+    assert list(got) == list(ref) and len(ref) > 1
+    for name in ref:
+        assert got[name].dtype == ref[name].dtype and np.array_equal(got[name], ref[name], equal_nan=True)
+
+
 def test_torch_and_numpy_inference_paths_agree(small_archive):
     arc = tsarchive.open(small_archive)
     if arc.decoder is None:

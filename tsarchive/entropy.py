@@ -9,7 +9,7 @@ Values become tokens plus raw bits and tables are integer frequencies summing
 to 2**24: see :mod:`tsarchive.entropy_table` (its API is re-exported here).
 
 Payload ("range" coder).  Tokens, then raw bits in <=16-bit uniform chunks, are range coded
-(constriction's RangeEncoder: 32-bit words, 64-bit state); the words are
+(the stream of constriction's RangeEncoder: 32-bit words, 64-bit state); the words are
 written big-endian and the stream is terminated by the shortest byte string
 that selects a point of the final interval, trailing zero bytes dropped (the
 decoder reads zeros past the end).  Framing is about 3-4 bits per window; a
@@ -18,6 +18,11 @@ window of values all equal to ``center`` is ``b""``.  Decoding raises
 any payload that is not the canonical encoding of what it decodes to; the
 code has no redundancy, so callers keep a per-window CRC
 (:mod:`tsarchive.checksum`) to catch the rest.
+
+Coding runs in compiled batch loops (:mod:`tsarchive.rangecoder`, numba),
+byte for byte the stream constriction writes and reads one window per call;
+:func:`encode_reference` / :func:`decode_reference` are that constriction path,
+used without numba and as the tests' reference.
 
 Coder registry.  ``CODERS`` maps a stable id (stored in archives) to a
 frozen dataclass with ``id``, ``encode(values) -> bytes``,
@@ -39,6 +44,7 @@ import numpy as np
 from tsarchive.entropy_table import (  # noqa: F401  (re-exported: the coding API lives here)
     PRECISION, TOTAL, FreqTable, _as_int64, _corrupt, _unzigzag, _zigzag, build_table, n_tokens,
     order0_entropy_bits, tokenize)
+from tsarchive import rangecoder
 from tsarchive.errors import UnknownCodec
 
 CHUNK_BITS = 16
@@ -127,8 +133,46 @@ def encode_many(windows, table: FreqTable) -> list[bytes]:
 
     Same bytes as :func:`encode` per window, much faster per window.
     """
+    if not rangecoder.available():
+        return encode_reference(windows, table)
+    values, bounds = _flatten(windows)
+    buf, ob = encode_flat(values, bounds, table)
+    raw = buf.tobytes()
+    ob = ob.tolist()
+    return [raw[ob[i]:ob[i + 1]] for i in range(len(ob) - 1)]
+
+
+def encode_reference(windows, table: FreqTable) -> list[bytes]:
+    """:func:`encode_many` through constriction's range coder, one window per call: the fallback
+    without numba, and the reference the compiled coder is tested against."""
     values, bounds = _flatten(windows)
     return _code(*tokenize(values, table), bounds, table)
+
+
+def encode_flat(values: np.ndarray, bounds: np.ndarray, table: FreqTable) -> tuple[np.ndarray, np.ndarray]:
+    """Compiled batch coding: window ``w`` is ``values[bounds[w]:bounds[w+1]]``; returns
+    (all payload bytes uint8, byte bounds int64).  Needs numba (:func:`rangecoder.available`)."""
+    c = _compiled(table)
+    return rangecoder.encode(np.ascontiguousarray(values, np.int64), np.ascontiguousarray(bounds, np.int64),
+                             table.center, table.direct_bits, table.mantissa_bits, c.cum, c.freq)
+
+
+@dataclass(frozen=True)
+class _Compiled:
+    cum: np.ndarray
+    freq: np.ndarray
+    lut: np.ndarray
+
+
+def _compiled(table: FreqTable) -> _Compiled:
+    """The table as the kernels take it (cached on the table)."""
+    c = table.__dict__.get("_rc")
+    if c is None:
+        f = table.freq_array.astype(np.uint64)
+        cum = np.concatenate(([0], np.cumsum(f))).astype(np.uint64)
+        c = _Compiled(cum, f, rangecoder.lookup_table(cum))
+        object.__setattr__(table, "_rc", c)
+    return c
 
 
 def encode(values, table: FreqTable) -> bytes:
@@ -146,6 +190,57 @@ def decode_many(payloads: Sequence[bytes], lengths, table: FreqTable, strict: bo
     range-coded payload has no redundancy, so damage that keeps the length
     usually decodes to other values: the per-window CRC must catch that.
     """
+    lengths = np.broadcast_to(np.asarray(lengths, dtype=np.int64), (len(payloads),))
+    if not rangecoder.available():
+        return decode_reference(payloads, lengths, table, strict)
+    payloads = [bytes(p) for p in payloads]
+    sizes = np.fromiter((len(p) for p in payloads), np.int64, len(payloads))
+    ends = np.cumsum(sizes)
+    buf = np.frombuffer(b"".join(payloads), np.uint8)
+    values = decode_flat(buf, ends - sizes, ends, lengths, table, strict)
+    return np.split(values, np.cumsum(lengths)[:-1])
+
+
+def decode_flat(buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, lengths, table: FreqTable,
+                strict: bool = True) -> np.ndarray:
+    """Compiled batch decoding of windows ``buf[starts[w]:ends[w]]`` of ``lengths[w]`` values;
+    returns all values (int64, concatenated).  Same checks as :func:`decode_many`."""
+    starts = np.ascontiguousarray(starts, np.int64)
+    ends = np.ascontiguousarray(ends, np.int64)
+    lengths = np.broadcast_to(np.asarray(lengths, dtype=np.int64), (len(starts),))
+    if len(lengths) and not (lengths.min() >= 0 and lengths.max() <= _MAX_N):
+        raise _corrupt(f"window lengths {lengths.min()}..{lengths.max()} are out of range")
+    if len(starts) and not (starts.min() >= 0 and ends.max() <= len(buf) and (ends >= starts).all()):
+        raise _corrupt("range-coded window bounds fall outside the payload bytes")
+    nonempty = np.flatnonzero(ends > starts)
+    zero_end = nonempty[buf[ends[nonempty] - 1] == 0] if len(nonempty) else nonempty
+    if len(zero_end):
+        raise _corrupt(f"range-coded window {int(zero_end[0])} ends in a zero byte")
+    bounds = np.concatenate(([0], np.cumsum(lengths))).astype(np.int64)
+    c = _compiled(table)
+    values, bad = rangecoder.decode(np.ascontiguousarray(buf, np.uint8), starts, ends, bounds, table.center,
+                                    table.direct_bits, table.mantissa_bits, c.cum, c.freq, c.lut)
+    if bad >= 0:
+        raise _corrupt(f"range-coded window {bad} cannot be decoded (its quantile falls outside the table)")
+    if strict:
+        again, ob = encode_flat(values, bounds, table)
+        size = ends - starts
+        same = ob[1:] - ob[:-1] == size
+        if same.all() and len(starts):
+            contiguous = np.array_equal(starts[1:], ends[:-1])
+            src = buf[starts[0]:ends[-1]] if contiguous else \
+                np.concatenate([buf[a:b] for a, b in zip(starts.tolist(), ends.tolist())])
+            diff = np.flatnonzero(again != src)
+            same[np.searchsorted(ob, diff, side="right") - 1] = False
+        if not same.all():
+            raise _corrupt(f"range-coded window {int(np.flatnonzero(~same)[0])} is not a valid payload "
+                           "for its table and length")
+    return values
+
+
+def decode_reference(payloads: Sequence[bytes], lengths, table: FreqTable, strict: bool = True) -> list[np.ndarray]:
+    """:func:`decode_many` through constriction, one window per call (fallback without numba, and the
+    reference the compiled coder is tested against)."""
     import constriction
 
     lengths = np.broadcast_to(np.asarray(lengths, dtype=np.int64), (len(payloads),))

@@ -16,7 +16,7 @@ def export_range(arc, out_path, channels=None, start=None, end=None) -> Path:
     if len({m.rate for m in metas}) > 1:
         raise BadInput("the chosen channels have different rates; export them separately")
     meta = metas[0]
-    columns = {n: arc.read(n, start, end) for n in names}
+    columns = arc.read_many(names, start, end)
     t0 = 0.0 if start is None else max(0.0, float(start))
     first = int(math.floor(t0 * meta.rate + 1e-9))
     shape = arc.manifest.get("source", {}).get("shape", [])

@@ -144,7 +144,7 @@ def run_pack(job: Job) -> JobResult:
     if job.read_back:
         t0 = time.perf_counter()
         arc = tsarchive.open(job.archive)
-        back = [arc.read(n) for n in names]
+        back = list(arc.read_many(names).values())
         read_s = time.perf_counter() - t0
         rec = tsarchive.inspect_source(job.source, rate=job.rate)
         errs = tuple(max_abs_error(back[j], rec.column(j)) for j in range(len(names)))

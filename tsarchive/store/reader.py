@@ -12,6 +12,9 @@ import base64
 import binascii
 import json
 import math
+import os
+import threading
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from datetime import datetime
 from functools import cached_property
@@ -100,7 +103,7 @@ class Archive:
 
     Not thread-safe: it caches open Parquet files and tables lazily.  Give
     each thread its own ``Archive`` (opening one only reads the manifest) or
-    serialise access.
+    serialise access; :meth:`read_many` decodes channels on threads safely.
     """
 
     def __init__(self, path: str | Path) -> None:
@@ -126,6 +129,7 @@ class Archive:
         self.window = int(self.manifest["window"])
         self.channels = tuple(_channel_meta(c, self.window) for c in self.manifest["channels"])
         self._by_name = {c.name: c for c in self.channels}
+        self._local = threading.local()
 
     # -- facts -------------------------------------------------------------------
     @property
@@ -157,6 +161,18 @@ class Archive:
             return pq.ParquetFile(self.path / S.WINDOWS)
         except (OSError, pa.ArrowException) as exc:
             raise ArchiveCorrupt(f"windows.parquet cannot be read ({exc}); the archive is damaged") from None
+
+    def _thread_file(self) -> pq.ParquetFile:
+        """windows.parquet opened once per thread (a ParquetFile is not shared between threads)."""
+        if threading.current_thread() is threading.main_thread():
+            return self._windows_file
+        f = getattr(self._local, "windows", None)
+        if f is None:
+            try:
+                f = self._local.windows = pq.ParquetFile(self.path / S.WINDOWS)
+            except (OSError, pa.ArrowException) as exc:
+                raise ArchiveCorrupt(f"windows.parquet cannot be read ({exc}); the archive is damaged") from None
+        return f
 
     @cached_property
     def _row_groups(self) -> dict[str, list[tuple[int, int, int]]]:
@@ -209,7 +225,7 @@ class Archive:
                 pa.schema([S.WINDOWS_SCHEMA.field(c) for c in columns]).empty_table()
         cols = None if columns is None else sorted(set(columns) | {"channel", "window"},
                                                    key=S.WINDOWS_SCHEMA.names.index)
-        t = self._windows_file.read_row_groups(groups, columns=cols)
+        t = self._thread_file().read_row_groups(groups, columns=cols)
         mask = pc.and_(pc.and_(pc.equal(t["channel"], channel), pc.greater_equal(t["window"], w0)),
                        pc.less(t["window"], w1))
         t = t.filter(mask)
@@ -234,7 +250,7 @@ class Archive:
         lpc_set = t["lpc_set"].to_numpy()
         classes = t["table"].to_numpy()
         level = t["level"].to_numpy()
-        payload = t["residual"].to_pylist()
+        pbuf, poffs = _binary_parts(t["residual"])
         codes = _codes(t["code"], nrow)
         crcs = t["crc32"].to_numpy()
         n_exc = pc.list_value_length(t["exc_pos"]).to_numpy(zero_copy_only=False)
@@ -248,10 +264,10 @@ class Archive:
             res = np.empty((len(sel), int(L)), dtype=np.int64)
             for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
                 pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
+                rows = sel[pick]
                 # strict=False: the per-window CRC below catches what a range code cannot
-                dec = entropy.decode_many([payload[sel[k]] for k in pick], int(L), self._table(channel, m, c),
-                                          strict=False)
-                res[pick] = np.stack(dec) if dec else res[pick]
+                res[pick] = entropy.decode_flat(pbuf, poffs[rows], poffs[rows + 1], int(L), self._table(channel, m, c),
+                                                strict=False).reshape(len(pick), int(L))
             ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
             q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc, lpc_set[sel]), res)
             x = meta.grid.to_out(meta.grid.values(q))                  # (windows, L), all at once
@@ -301,6 +317,21 @@ class Archive:
         w0, w1 = a // W, -(-b // W)
         x, _, _ = self.decode_windows(channel, w0, w1)
         return x[a - w0 * W:b - w0 * W]
+
+    def read_many(self, channels=None, start: float | None = None, end: float | None = None,
+                  workers: int | None = None) -> dict[str, np.ndarray]:
+        """:meth:`read` of several channels (all by default), decoded on ``workers`` threads
+        (default: one per core).  Each channel is decoded on its own with the same integer
+        kernels, so the samples are identical whatever the thread count."""
+        names = [c.name for c in self.channels] if channels is None else list(channels)
+        for n in names:
+            self.channel(n)
+        workers = max(1, min(len(names), workers or os.cpu_count() or 1))
+        if workers == 1:
+            return {n: self.read(n, start, end) for n in names}
+        self._row_groups, self._tables, self.decoder   # fill the lazy caches before the threads share them
+        with ThreadPoolExecutor(workers) as pool:
+            return dict(zip(names, pool.map(lambda n: self.read(n, start, end), names)))
 
     def preview(self, channel: str, start: float | None = None, end: float | None = None) -> np.ndarray:
         """Code-only reconstruction (no residuals), float64: what the codes alone say."""
@@ -382,6 +413,17 @@ def _lpc_sets(d) -> tuple[LpcCoefs, ...]:
     if not isinstance(d, list) or not d or len(d) > 127:
         raise ArchiveCorrupt("linear-prediction sets are missing or malformed; the archive is damaged")
     return tuple(LpcCoefs.from_dict(c) for c in d)
+
+
+def _binary_parts(col) -> tuple[np.ndarray, np.ndarray]:
+    """(data bytes uint8, offsets int64 with one entry more than rows) of a binary column, zero-copy."""
+    arr = col.combine_chunks() if isinstance(col, pa.ChunkedArray) else col
+    if arr.null_count:
+        raise ArchiveCorrupt("windows.parquet has a window without a residual payload; the archive is damaged")
+    _, obuf, dbuf = arr.buffers()
+    offs = np.frombuffer(obuf, np.int32)[arr.offset:arr.offset + len(arr) + 1].astype(np.int64)
+    data = np.frombuffer(dbuf, np.uint8) if dbuf is not None else np.zeros(0, np.uint8)
+    return data, offs
 
 
 def _lengths(meta: ChannelMeta, windows: np.ndarray) -> np.ndarray:
