@@ -233,6 +233,53 @@ def test_probe_model_decides_before_a_long_training(tmp_path):
     assert not any("training it fully" in e.message for e in events)
 
 
+@pytest.mark.parametrize("probe", [False, True])
+def test_a_model_that_pays_replaces_the_speculative_archive(tmp_path, monkeypatch, probe):
+    # Without an explicit code size the channels are encoded without a model while it trains; when the
+    # model turns out to pay (forced here through the account), that staging is dropped and the channels
+    # are encoded again with it (after the full training when the first run was a probe).
+    real = pipeline._model_account
+    monkeypatch.setattr(pipeline, "_model_account",
+                        lambda model, plans, nwin, K: (1e12, real(model, plans, nwin, K)[1]) if model else (0.0, 0.0))
+    monkeypatch.setattr(pipeline, "PROBE_SECONDS", 1.0)
+    x = np.sin(np.arange(60000) / 7.0).astype(np.float32)[:, None]
+    src = tmp_path / "s.npy"
+    np.save(src, x)
+    events = []
+    tsarchive.pack(src, tmp_path / "s.tsa", "1%", rate=100.0, window=256, train_seconds=3.0 if probe else 1.0,
+                   progress=events.append)
+    arc = tsarchive.open(tmp_path / "s.tsa")
+    assert arc.manifest["model"] is not None and "kept" in arc.manifest["model_note"]
+    assert arc.windows("ch0").codes.shape[1] == pipeline.DEFAULT_CODE_SIZE
+    assert any("training it fully" in e.message for e in events) == probe
+    finals = [e for e in events if e.stage == "encode" and e.total > 1 and e.done == e.total]
+    assert len(finals) == 2                               # encoded twice: speculatively, then with the model
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["s.npy", "s.tsa"]   # no staging left behind
+    _assert_within(x, arc)
+
+
+def test_a_failing_plan_stops_the_training_thread(tmp_path, monkeypatch):
+    seen = []
+    real_train = pipeline._train
+
+    def spy(rec, xs, W, K, emit, *a, **kw):
+        seen.append(emit)
+        return real_train(rec, xs, W, K, emit, *a, **kw)
+
+    def broken(*a, **kw):
+        raise BadInput("planning failed on purpose")
+
+    monkeypatch.setattr(pipeline, "_train", spy)
+    monkeypatch.setattr(pipeline, "plan_channel", broken)
+    x = np.random.default_rng(6).standard_normal(30000).astype(np.float32)
+    src = tmp_path / "n.npy"
+    np.save(src, x)
+    with pytest.raises(BadInput, match="on purpose"):
+        tsarchive.pack(src, tmp_path / "n.tsa", "1%", rate=100.0, window=256, code_size=4, train_seconds=600)
+    assert seen and seen[0].is_set()                      # the trainer's cancel flag was raised
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["n.npy"]
+
+
 def test_logged_resolution_multiplier_is_found_and_kept_exact(tmp_path):
     # An ADC with 0.005 mV steps logged with three decimals: every value is 5 units of 0.001, so the lossless
     # grid counts in steps of 0.005 (q = x * 1000 / 5) and still gives back the very doubles.

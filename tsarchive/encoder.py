@@ -35,6 +35,7 @@ class ChannelPlan:
     tables: TableSet            # tables when the autoencoder is used (or the only set without a model)
     tables_plain: TableSet      # tables without the autoencoder
     ae_gain_bits: float         # estimated bits the autoencoder saves on the whole channel
+    plain_bits: float = 0.0     # proxy bits of the sampled windows without the autoencoder
 
 
 def sample_windows(n: int, W: int, count: int) -> np.ndarray:
@@ -57,8 +58,13 @@ def predict_batch(x: np.ndarray, grid: Grid, W: int, model, scale: int):
 
 
 def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: int, grid: Grid, W: int,
-                 model, scale: int) -> ChannelPlan:
-    """Plan a channel from sampled full ``windows`` (k, W) and its short last window ``tail``."""
+                 model, scale: int, base: ChannelPlan | None = None) -> ChannelPlan:
+    """Plan a channel from sampled full ``windows`` (k, W) and its short last window ``tail``.
+
+    ``base``, the same channel's plan without a model, supplies the LPC sets
+    and plain tables (neither depends on the model), so planning with a
+    model only adds the autoencoder's tables.
+    """
     batches = []
     for part in np.array_split(np.arange(len(windows)), max(1, len(windows) // 512)) if len(windows) else []:
         q, _, _, lv, _, ae = predict_batch(windows[part], grid, W, model, scale)
@@ -66,16 +72,19 @@ def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: 
     if tail is not None and len(tail):
         q, _, _, lv, _, ae = predict_batch(tail[None, :], grid, W, model, scale)
         batches.append((q, lv, ae))
-    full = [(q, lv) for q, lv, _ in batches if q.shape[1] == W]
-    lpc = lpc_mod.fit_sets(np.concatenate([q for q, _ in full]), np.concatenate([lv for _, lv in full]),
-                           proxy_bits) if full else (lpc_mod.LpcCoefs(()),)
-    plain, plain_bits = _tables(batches, lpc, use_ae=False)
+    if base is not None:
+        lpc, plain, plain_bits = base.lpc, base.tables_plain, base.plain_bits
+    else:
+        full = [(q, lv) for q, lv, _ in batches if q.shape[1] == W]
+        lpc = lpc_mod.fit_sets(np.concatenate([q for q, _ in full]), np.concatenate([lv for _, lv in full]),
+                               proxy_bits) if full else (lpc_mod.LpcCoefs(()),)
+        plain, plain_bits = _tables(batches, lpc, use_ae=False)
     if model is None:
-        return ChannelPlan(lpc, plain, plain, 0.0)
+        return ChannelPlan(lpc, plain, plain, 0.0, plain_bits)
     with_ae, ae_bits = _tables(batches, lpc, use_ae=True)
     sampled = sum(len(q) for q, _, _ in batches)
     gain = (plain_bits - ae_bits) * n_total_windows / max(sampled, 1)
-    return ChannelPlan(lpc, with_ae, plain, float(gain))
+    return ChannelPlan(lpc, with_ae, plain, float(gain), plain_bits)
 
 
 def _tables(batches, lpc, use_ae: bool) -> tuple[TableSet, float]:

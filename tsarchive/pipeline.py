@@ -17,7 +17,10 @@ Reading reverses it in :mod:`tsarchive.store.reader` (numpy + pyarrow only).
 from __future__ import annotations
 
 import math
+import os
+import threading
 import time
+from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -78,62 +81,137 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     spec.check_names(names)
     W = _window(window, rec.n_samples)
     K = _code_size(code_size)
-
-    # budget -> ε -> integer grid, per channel
-    grids, notes = _grids(rec, spec)
-    emit("read", 1, 1, f"{len(names)} channel(s), {rec.n_samples} samples")
-
-    # windows -> a bounded training sample -> the autoencoder
-    sample = sample_windows(rec.n_samples, W, max(1, TABLE_SAMPLES // W))
-    sampled = _gather(rec, sample, W)
-    # unless a code size was asked for, a short probe run decides whether the model is worth training
     explicit = code_size is not None
     probe = not explicit and train_seconds > PROBE_SECONDS
-    scales, model = _train(rec, sampled, grids, W, K, emit, PROBE_SECONDS if probe else train_seconds, seed)
 
-    # plan: LPC, tables, and whether the model pays for itself
-    tail = _tail(rec, W)
-    nwin = n_windows(rec.n_samples, W)
+    # The autoencoder trains on a second thread (torch releases the GIL) while this one plans and,
+    # unless a code size was asked for, already encodes without it: a model that pays is the
+    # exception, and then the speculative archive is dropped and the channels are encoded again.
+    plain_ready: Future = Future()                   # the plan without a model, for the training thread
+    with ThreadPoolExecutor(1) as helper:
+        if K > 0:
+            helper.submit(_import_trainer)           # torch's import overlaps the reading below
+        try:
+            # budget -> ε -> integer grid, per channel
+            grids, notes = _grids(rec, spec)
+            emit("read", 1, 1, f"{len(names)} channel(s), {rec.n_samples} samples")
 
-    def plan(model):
-        emit("encode", 0, 1, "choosing predictors and entropy tables")
-        return [plan_channel(sampled[:, :, j], None if tail is None else tail[:, j], nwin, grids[j], W, model,
-                             scales[j]) for j in range(len(names))]
+            # windows -> a bounded sample (for training and planning) -> per-channel scales
+            sample = sample_windows(rec.n_samples, W, max(1, TABLE_SAMPLES // W))
+            sampled = _gather(rec, sample, W)
+            scales, train_x = _training_set(sampled, grids, W, len(rec.channels))
+            tail = _tail(rec, W)
+            nwin = n_windows(rec.n_samples, W)
 
-    plans = plan(model)
-    gain, cost = _model_account(model, plans, nwin, K)
-    if probe and model is not None and gain > PROBE_SHARE * cost:
-        emit("train", 0, 1, f"the probe model saves {gain:.0f} B against {cost:.0f} B: training it fully")
-        scales, model = _train(rec, sampled, grids, W, K, emit, train_seconds, seed)
-        plans = plan(model)
-        gain, cost = _model_account(model, plans, nwin, K)
-    model, model_note = _keep_model(model, gain, cost, explicit, probed=probe)
-    decoder = None if model is None else model.int_decoder
-    tables = [p.tables if model is not None else p.tables_plain for p in plans]
+            def plan(model, base=None):
+                return [plan_channel(sampled[:, :, j], None if tail is None else tail[:, j], nwin, grids[j], W,
+                                     model, scales[j], None if base is None else base[j])
+                        for j in range(len(names))]
 
-    with ArchiveWriter(archive, force=force) as writer:
-        summaries = _encode(writer, rec, names, grids, W, model, scales, plans, tables, emit)
-        emit("write", 0, 1, "writing the model and the manifest")
-        writer.write_model({} if decoder is None else decoder.to_arrays())
-        manifest = build_manifest(rec, spec, grids, scales, [p.lpc for p in plans], tables, notes, W, K, decoder,
-                                  model_note, summaries, writer.staged_bytes())
-        stage = writer.finalize(manifest)
-        emit("write", 1, 1, "staged")
+            def train_and_plan(seconds: float, threads: int | None):
+                model = _train(rec, train_x, W, K, emit, seconds, seed, threads)
+                if model is None:
+                    return None, None
+                return model, plan(model, plain_ready.result())
 
-        # decode our own output through the reader before it may replace anything
-        emit("check", 0, 1, "decoding the archive to check every sample")
-        from .verifier import verify_archive
-        report = verify_archive(stage, against=rec, progress=progress)
-        if not report.ok:
-            raise BoundViolation("self-check failed, nothing written: " + "; ".join(report.problems[:3]))
-        emit("check", 1, 1, "every sample within budget")
-        writer.commit()
+            training = helper.submit(train_and_plan, PROBE_SECONDS if probe else train_seconds,
+                                     1 if probe else None)
+            emit("encode", 0, 1, "choosing predictors and entropy tables")
+            plain = plan(None)
+            plain_ready.set_result(plain)
+            job = dict(archive=archive, force=force, rec=rec, spec=spec, grids=grids, scales=scales, notes=notes,
+                       names=names, W=W, K=K, emit=emit, progress=progress)
+
+            def judged():
+                """The trained model's plan and account, and whether it is worth (re)encoding with it."""
+                model, plans = training.result()
+                gain, cost = _model_account(model, plans, nwin, K)
+                wanted = model is not None and (gain > PROBE_SHARE * cost if probe else gain > cost)
+                return model, plans, gain, cost, wanted
+
+            if explicit:
+                model, plans, gain, cost, _ = judged()
+                manifest = _write(job, *_kept(model, plans, plain, gain, cost, True, False))
+            else:
+                try:
+                    manifest = _write(job, None, plain, None, decide=lambda: _decide(judged, plain, probe))
+                except _WorthAModel as better:
+                    model, plans = better.model, better.plans
+                    if probe:
+                        emit("train", 0, 1, f"the probe model saves {better.gain:.0f} B against "
+                                            f"{better.cost:.0f} B: training it fully")
+                        model = _train(rec, train_x, W, K, emit, train_seconds, seed)
+                        plans = plain if model is None else plan(model, plain)
+                    gain, cost = _model_account(model, plans, nwin, K)
+                    manifest = _write(job, *_kept(model, plans, plain, gain, cost, False, probe))
+        except BaseException as exc:
+            emit.stop.set()          # a failed or cancelled pack stops the training thread too
+            if not plain_ready.done():
+                plain_ready.set_exception(Cancelled(f"packing stopped ({exc})"))
+            raise
 
     from .store.reader import open_archive
     arc = open_archive(archive)
     return PackResult(archive=archive, channels=tuple(_summary(m) for m in arc.channels),
                       source_bytes=manifest["source"]["bytes"], raw_bytes=manifest["summary"]["raw_bytes"],
                       archive_bytes=arc.archive_bytes, ratio=arc.ratio, elapsed_s=time.perf_counter() - t0)
+
+
+class _WorthAModel(Exception):
+    """Raised inside a speculative write (whose staging is then dropped): the model pays, encode again."""
+
+    def __init__(self, model, plans, gain: float, cost: float) -> None:
+        super().__init__("the autoencoder pays for itself")
+        self.model, self.plans, self.gain, self.cost = model, plans, gain, cost
+
+
+def _decide(judged, plain, probe: bool):
+    """After the speculative encoding: the note for an archive without the model, or _WorthAModel."""
+    model, plans, gain, cost, wanted = judged()
+    if wanted:
+        raise _WorthAModel(model, plans, gain, cost)
+    return _keep_model(model, gain, cost, False, probed=probe)[1]
+
+
+def _kept(model, plans, plain, gain: float, cost: float, explicit: bool, probed: bool):
+    """(model or None, plans, note) for the final encoding."""
+    model, note = _keep_model(model, gain, cost, explicit, probed=probed)
+    return model, (plans if model is not None else plain), note
+
+
+def _write(job: dict, model, plans, model_note, decide=None) -> dict:
+    """Encode every channel, write model and manifest, decode the staged archive through the reader
+    and move it into place; ``decide()`` (speculative writes) runs after encoding and returns the
+    model note or raises to drop the staging.  Returns the manifest."""
+    emit, rec = job["emit"], job["rec"]
+    decoder = None if model is None else model.int_decoder
+    tables = [p.tables if model is not None else p.tables_plain for p in plans]
+    with ArchiveWriter(job["archive"], force=job["force"]) as writer:
+        summaries = _encode(writer, rec, job["names"], job["grids"], job["W"], model, job["scales"], plans, tables,
+                            emit)
+        if decide is not None:
+            model_note = decide()
+        emit("write", 0, 1, "writing the model and the manifest")
+        writer.write_model({} if decoder is None else decoder.to_arrays())
+        manifest = build_manifest(rec, job["spec"], job["grids"], job["scales"], [p.lpc for p in plans], tables,
+                                  job["notes"], job["W"], job["K"], decoder, model_note, summaries,
+                                  writer.staged_bytes())
+        stage = writer.finalize(manifest)
+        emit("write", 1, 1, "staged")
+
+        # decode our own output through the reader before it may replace anything
+        emit("check", 0, 1, "decoding the archive to check every sample")
+        from .verifier import verify_archive
+        report = verify_archive(stage, against=rec, progress=job["progress"])
+        if not report.ok:
+            raise BoundViolation("self-check failed, nothing written: " + "; ".join(report.problems[:3]))
+        emit("check", 1, 1, "every sample within budget")
+        writer.commit()
+    return manifest
+
+
+def _import_trainer() -> None:
+    from .model import train  # noqa: F401  (torch is imported only for training)
 
 
 # -- stages --------------------------------------------------------------------
@@ -215,9 +293,8 @@ def _tail(rec: Recording, W: int) -> np.ndarray | None:
     return rec.rows((n // W) * W, n) if n % W else None
 
 
-def _train(rec: Recording, sampled: np.ndarray, grids: list[Grid], W: int, K: int, emit, seconds: float, seed: int):
-    """Per-channel scales and the autoencoder (None when the recording is too short for one)."""
-    C = len(rec.channels)
+def _training_set(sampled: np.ndarray, grids: list[Grid], W: int, C: int):
+    """Per-channel scales and the normalised training windows of a bounded pick of the sample."""
     per_channel = max(1, TRAIN_WINDOWS // max(C, 1))
     pick = np.unique(np.linspace(0, len(sampled) - 1, min(len(sampled), per_channel)).round().astype(np.int64)) \
         if len(sampled) else np.zeros(0, np.int64)
@@ -230,6 +307,13 @@ def _train(rec: Recording, sampled: np.ndarray, grids: list[Grid], W: int, K: in
         scales.append(scale)
         if len(q) and scale <= FRAC_SAFE_SCALE:
             xs.append(normalise(q, lv, scale, W))
+    return scales, xs
+
+
+def _train(rec: Recording, xs: list[np.ndarray], W: int, K: int, emit, seconds: float, seed: int,
+           threads: int | None = None):
+    """The autoencoder, or None when the recording is too short for one (or no code is asked for)."""
+    C = len(rec.channels)
     from .model.spec import choose_hidden, decoder_params
     total_windows = (rec.n_samples // W) * C
     hidden = choose_hidden(max(total_windows, 1), W, max(K, 1), budget=DECODER_SHARE)
@@ -238,7 +322,7 @@ def _train(rec: Recording, sampled: np.ndarray, grids: list[Grid], W: int, K: in
     if K == 0 or sum(len(x) for x in xs) < MIN_MODEL_WINDOWS or too_big:
         why = "no code requested" if K == 0 else "recording too short for an autoencoder to pay for its weights"
         emit("train", 1, 1, f"{why}; using the sample-based predictors only")
-        return scales, None
+        return None
     from .model.train import TrainProgress, train_autoencoder  # torch is imported only here
 
     def on_epoch(p: TrainProgress) -> None:
@@ -246,9 +330,8 @@ def _train(rec: Recording, sampled: np.ndarray, grids: list[Grid], W: int, K: in
 
     X = np.concatenate(xs)
     emit("train", 0, 1, f"training on {len(X)} windows")
-    model = train_autoencoder(X, K, hidden=hidden, time_limit_s=seconds, seed=seed, progress=on_epoch,
-                              cancel=emit.cancel, max_windows=TRAIN_WINDOWS)
-    return scales, model
+    return train_autoencoder(X, K, hidden=hidden, time_limit_s=seconds, seed=seed, progress=on_epoch,
+                             cancel=emit, max_windows=TRAIN_WINDOWS, threads=threads)
 
 
 def _model_account(model, plans: list[ChannelPlan], nwin: int, K: int) -> tuple[float, float]:
@@ -281,27 +364,37 @@ def _encode(writer, rec: Recording, names, grids, W, model, scales, plans, table
     stats = [{"worst_error": 0.0, "bytes_est": 0, "n_exceptions": 0,
               "modes": {p.name: 0 for p in PREDICTORS.values()}} for _ in names]
     code_bytes = 8 + (model.code_size if model is not None else 0)
-    for w0 in range(0, nw, per_block):
-        w1 = min(nw, w0 + per_block)
-        block = rec.rows(w0 * W, min(n, w1 * W))
-        for j, name in enumerate(names):
-            rows = []
-            for a, b, L in batches(n, W, w0, w1):
-                x = block[(a - w0) * W:(a - w0) * W + (b - a) * L, j].reshape(b - a, L)
-                t, worst = encode_batch(x, a, name, grids[j], W, model, scales[j], plans[j].lpc, tables[j])
-                rows.append(t)
+    def channel_rows(block, w0: int, w1: int, j: int) -> tuple[pa.Table, float]:
+        rows, worst = [], 0.0
+        for a, b, L in batches(n, W, w0, w1):
+            x = block[(a - w0) * W:(a - w0) * W + (b - a) * L, j].reshape(b - a, L)
+            t, wb = encode_batch(x, a, names[j], grids[j], W, model, scales[j], plans[j].lpc, tables[j])
+            rows.append(t)
+            worst = max(worst, wb)
+        return pa.concat_tables(rows), worst
+
+    # channels are encoded side by side (numba and numpy release the GIL); rows are written in order
+    pool = ThreadPoolExecutor(max(1, min(len(names), os.cpu_count() or 1)))
+    with pool:
+        for w0 in range(0, nw, per_block):
+            w1 = min(nw, w0 + per_block)
+            block = rec.rows(w0 * W, min(n, w1 * W))
+            for j, (table, worst) in enumerate(pool.map(lambda j: channel_rows(block, w0, w1, j), range(len(names)))):
                 stats[j]["worst_error"] = max(stats[j]["worst_error"], worst)
-            table = pa.concat_tables(rows)
-            s = stats[j]
-            for m, c in zip(*np.unique(table.column("mode").to_numpy(), return_counts=True)):
-                s["modes"][PREDICTORS[int(m)].name] += int(c)
-            exc = pa.compute.list_value_length(table.column("exc_pos")).to_numpy(zero_copy_only=False)
-            s["n_exceptions"] += int(exc.sum())
-            s["bytes_est"] += int(pa.compute.sum(pa.compute.binary_length(table.column("residual"))).as_py() or 0) \
-                + table.num_rows * code_bytes + 12 * int(exc.sum())
-            writer.add_windows(table)
-        emit("encode", w1 * len(names), nw * len(names), f"window {w1}/{nw}")
+                _add_rows(writer, table, stats[j], code_bytes)
+            emit("encode", w1 * len(names), nw * len(names), f"window {w1}/{nw}")
     return stats
+
+
+def _add_rows(writer, table: pa.Table, s: dict, code_bytes: int) -> None:
+    """Write one channel's rows of a block and add them to its summary counts."""
+    for m, c in zip(*np.unique(table.column("mode").to_numpy(), return_counts=True)):
+        s["modes"][PREDICTORS[int(m)].name] += int(c)
+    exc = pa.compute.list_value_length(table.column("exc_pos")).to_numpy(zero_copy_only=False)
+    s["n_exceptions"] += int(exc.sum())
+    s["bytes_est"] += int(pa.compute.sum(pa.compute.binary_length(table.column("residual"))).as_py() or 0) \
+        + table.num_rows * code_bytes + 12 * int(exc.sum())
+    writer.add_windows(table)
 
 
 def _summary(m) -> ChannelSummary:
@@ -331,12 +424,22 @@ class _emitter:
 
     def __init__(self, fn: ProgressFn, cancel) -> None:
         self.fn, self.cancel, self.t_encode = fn, cancel, None
+        self.stop = threading.Event()    # set when another stage failed: the training thread stops
+        self.lock = threading.Lock()     # events come from the packing thread and the training thread
+
+    def is_set(self) -> bool:
+        """Cancelled by the caller or stopped after a failure (the trainer polls this)."""
+        return self.stop.is_set() or (self.cancel is not None and self.cancel.is_set())
 
     def __call__(self, stage: str, done: int, total: int, message: str = "", loss: float | None = None) -> None:
-        if self.cancel is not None and self.cancel.is_set():
+        if self.is_set():
             raise Cancelled("packing cancelled; nothing was written")
         if self.fn is None:
             return
+        with self.lock:
+            self._emit(stage, done, total, message, loss)
+
+    def _emit(self, stage: str, done: int, total: int, message: str, loss: float | None) -> None:
         eta = None
         if stage == "encode":
             now = time.perf_counter()

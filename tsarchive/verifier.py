@@ -8,6 +8,9 @@ place.
 
 from __future__ import annotations
 
+import os
+import threading
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -32,49 +35,69 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
         if not p.is_file() or checksum.file_sha256(p) != info.get("sha256"):
             problems.append(f"member {name}: SHA-256 differs from the manifest (file damaged or replaced)")
     rec = _source(arc, against)
-    checks = []
     total = sum(c.n_windows for c in arc.channels)
-    done = 0
-    for j, meta in enumerate(arc.channels):
-        col = None if rec is None else _column_index(rec, meta, j)
-        per = max(1, CHUNK_SAMPLES // meta.window)
-        bad_crc: list[int] = []
-        bad_windows: list[int] = []
-        n_bad, worst = 0, 0.0
-        for w0 in range(0, meta.n_windows, per):
-            w1 = min(meta.n_windows, w0 + per)
-            xh, bad, undecodable = _decode(arc, meta, w0, w1)
-            bad_crc.extend(bad)
-            if undecodable:
-                problems.append(f"channel {meta.name}: window(s) {_list(undecodable)} cannot be decoded "
-                                "(damaged payload)")
-            if col is not None:
-                a = w0 * meta.window
-                x = rec.rows(a, a + len(xh))[:, col]  # a fresh block: a memory-mapped source stays unmapped
-                bad_mask, err = _out_of_budget(x, xh, meta.eps)
-                for w in undecodable:  # already reported; do not count their placeholder samples
-                    lo = (w - w0) * meta.window
-                    bad_mask[lo:lo + meta.window], err[lo:lo + meta.window] = False, 0.0
-                worst = max(worst, float(err.max()) if len(err) else 0.0)
-                if bad_mask.any():
-                    n_bad += int(bad_mask.sum())
-                    bad_windows.extend(int(w) for w in np.unique(a // meta.window + np.flatnonzero(bad_mask)
-                                                                 // meta.window))
-            done += w1 - w0
+    done = [0]
+    lock = threading.Lock()
+
+    def step(n: int, message: str) -> None:
+        with lock:
+            done[0] += n
             if progress is not None:
-                progress(Progress("verify", done, total, f"{meta.name}: window {w1}/{meta.n_windows}"))
-        if bad_crc:
-            problems.append(f"channel {meta.name}: checksum mismatch in window(s) {_list(bad_crc)}")
-        if n_bad:
-            problems.append(f"channel {meta.name}: {n_bad} sample(s) outside ±{meta.eps:g} {meta.unit} "
-                            f"in window(s) {_list(bad_windows)}")
-        checks.append(ChannelCheck(name=meta.name, eps=meta.eps, worst_error=worst if col is not None else None,
-                                   n_bad=n_bad, bad_windows=tuple(bad_windows[:MAX_LISTED]),
-                                   bad_checksums=tuple(bad_crc[:MAX_LISTED])))
+                progress(Progress("verify", done[0], total, message))
+
+    jobs = [(meta, None if rec is None else _column_index(rec, meta, j)) for j, meta in enumerate(arc.channels)]
+    workers = max(1, min(len(jobs), os.cpu_count() or 1))
+    if workers == 1:
+        results = [_check_channel(arc, rec, meta, col, step) for meta, col in jobs]
+    else:
+        arc._row_groups, arc._tables, arc.decoder   # fill the reader's lazy caches before the threads share it
+        with ThreadPoolExecutor(workers) as pool:  # channels decode independently: same result on any thread count
+            results = list(pool.map(lambda job: _check_channel(arc, rec, job[0], job[1], step), jobs))
+    checks = [c for c, _ in results]
+    for _, found in results:
+        problems.extend(found)
     checksums_ok = not any(c.bad_checksums for c in checks) and \
         not any(p.startswith("member") or "cannot be decoded" in p for p in problems)
     return VerifyReport(ok=not problems, checksums_ok=checksums_ok, compared=rec is not None,
                         channels=tuple(checks), problems=tuple(problems))
+
+
+def _check_channel(arc, rec, meta, col, step) -> tuple[ChannelCheck, list[str]]:
+    """Decode one channel block by block; CRC mismatches, undecodable windows and (with the source
+    column ``col``) samples outside the budget."""
+    problems: list[str] = []
+    per = max(1, CHUNK_SAMPLES // meta.window)
+    bad_crc: list[int] = []
+    bad_windows: list[int] = []
+    n_bad, worst = 0, 0.0
+    for w0 in range(0, meta.n_windows, per):
+        w1 = min(meta.n_windows, w0 + per)
+        xh, bad, undecodable = _decode(arc, meta, w0, w1)
+        bad_crc.extend(bad)
+        if undecodable:
+            problems.append(f"channel {meta.name}: window(s) {_list(undecodable)} cannot be decoded "
+                            "(damaged payload)")
+        if col is not None:
+            a = w0 * meta.window
+            x = rec.rows(a, a + len(xh))[:, col]  # a fresh block: a memory-mapped source stays unmapped
+            bad_mask, err = _out_of_budget(x, xh, meta.eps)
+            for w in undecodable:  # already reported; do not count their placeholder samples
+                lo = (w - w0) * meta.window
+                bad_mask[lo:lo + meta.window], err[lo:lo + meta.window] = False, 0.0
+            worst = max(worst, float(err.max()) if len(err) else 0.0)
+            if bad_mask.any():
+                n_bad += int(bad_mask.sum())
+                bad_windows.extend(int(w) for w in np.unique(a // meta.window + np.flatnonzero(bad_mask)
+                                                             // meta.window))
+        step(w1 - w0, f"{meta.name}: window {w1}/{meta.n_windows}")
+    if bad_crc:
+        problems.append(f"channel {meta.name}: checksum mismatch in window(s) {_list(bad_crc)}")
+    if n_bad:
+        problems.append(f"channel {meta.name}: {n_bad} sample(s) outside ±{meta.eps:g} {meta.unit} "
+                        f"in window(s) {_list(bad_windows)}")
+    return ChannelCheck(name=meta.name, eps=meta.eps, worst_error=worst if col is not None else None,
+                        n_bad=n_bad, bad_windows=tuple(bad_windows[:MAX_LISTED]),
+                        bad_checksums=tuple(bad_crc[:MAX_LISTED])), problems
 
 
 def _decode(arc, meta, w0: int, w1: int):
