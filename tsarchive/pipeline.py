@@ -21,6 +21,7 @@ import os
 import threading
 import time
 from concurrent.futures import Future, ThreadPoolExecutor
+from functools import cache
 from pathlib import Path
 
 import numpy as np
@@ -43,6 +44,7 @@ DEFAULT_CODE_SIZE = 8
 MAX_CODE_SIZE = 64
 TRAIN_WINDOWS = 20000        # bound on the training sample, whatever the recording's length
 CHUNK_SAMPLES = 1 << 20      # samples per channel encoded per step (bounds memory)
+BATCH_WINDOWS = 256          # windows per encoder call within a step (bounds each thread's temporaries)
 MIN_MODEL_WINDOWS = 8        # fewer full windows than this: no autoencoder
 DECODER_SHARE = 0.01         # decoder parameters per sample of the whole recording (sizing rule)
 MAX_MODEL_SHARE = 0.05       # the stored decoder may cost at most this share of the raw sample bytes
@@ -99,7 +101,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
             # windows -> a bounded sample (for training and planning) -> per-channel scales
             sample = sample_windows(rec.n_samples, W, max(1, TABLE_SAMPLES // W))
             sampled = _gather(rec, sample, W)
-            scales, train_x = _training_set(sampled, grids, W, len(rec.channels))
+            scales = _training_set(sampled, grids, W, len(rec.channels))[0]
             tail = _tail(rec, W)
             nwin = n_windows(rec.n_samples, W)
 
@@ -109,16 +111,22 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
                         for j in range(len(names))]
 
             def train_and_plan(seconds: float, threads: int | None):
-                model = _train(rec, train_x, W, K, emit, seconds, seed, threads)
+                # the training windows live only while training (a full run after a probe makes them again)
+                model = _train(rec, _training_set(sampled, grids, W, len(names))[1], W, K, emit, seconds, seed,
+                               threads)
+                _release_memory()
                 if model is None:
                     return None, None
-                return model, plan(model, plain_ready.result())
+                plans = plan(model, plain_ready.result())
+                _release_memory()
+                return model, plans
 
             training = helper.submit(train_and_plan, PROBE_SECONDS if probe else train_seconds,
                                      1 if probe else None)
             emit("encode", 0, 1, "choosing predictors and entropy tables")
             plain = plan(None)
             plain_ready.set_result(plain)
+            _release_memory()
             job = dict(archive=archive, force=force, rec=rec, spec=spec, grids=grids, scales=scales, notes=notes,
                        names=names, W=W, K=K, emit=emit, progress=progress)
 
@@ -140,7 +148,8 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
                     if probe:
                         emit("train", 0, 1, f"the probe model saves {better.gain:.0f} B against "
                                             f"{better.cost:.0f} B: training it fully")
-                        model = _train(rec, train_x, W, K, emit, train_seconds, seed)
+                        model = _train(rec, _training_set(sampled, grids, W, len(names))[1], W, K, emit,
+                                       train_seconds, seed)
                         plans = plain if model is None else plan(model, plain)
                     gain, cost = _model_account(model, plans, nwin, K)
                     manifest = _write(job, *_kept(model, plans, plain, gain, cost, False, probe))
@@ -191,6 +200,7 @@ def _write(job: dict, model, plans, model_note, decide=None) -> dict:
                             emit)
         if decide is not None:
             model_note = decide()
+        _release_memory()
         emit("write", 0, 1, "writing the model and the manifest")
         writer.write_model({} if decoder is None else decoder.to_arrays())
         manifest = build_manifest(rec, job["spec"], job["grids"], job["scales"], [p.lpc for p in plans], tables,
@@ -208,6 +218,27 @@ def _write(job: dict, model, plans, model_note, decide=None) -> dict:
         emit("check", 1, 1, "every sample within budget")
         writer.commit()
     return manifest
+
+
+def _release_memory() -> None:
+    """Return freed heap pages to the system (glibc ``malloc_trim``; a no-op elsewhere).
+
+    Each thread allocates from its own malloc arena, and blocks freed there stay
+    resident until trimmed: without this the training thread's and the encoder
+    threads' freed temporaries add up in the peak resident set.
+    """
+    trim = _malloc_trim()
+    if trim is not None:
+        trim(0)
+
+
+@cache
+def _malloc_trim():
+    try:
+        import ctypes
+        return ctypes.CDLL(None).malloc_trim
+    except (OSError, AttributeError):
+        return None
 
 
 def _import_trainer() -> None:
@@ -366,11 +397,13 @@ def _encode(writer, rec: Recording, names, grids, W, model, scales, plans, table
     code_bytes = 8 + (model.code_size if model is not None else 0)
     def channel_rows(block, w0: int, w1: int, j: int) -> tuple[pa.Table, float]:
         rows, worst = [], 0.0
-        for a, b, L in batches(n, W, w0, w1):
-            x = block[(a - w0) * W:(a - w0) * W + (b - a) * L, j].reshape(b - a, L)
-            t, wb = encode_batch(x, a, names[j], grids[j], W, model, scales[j], plans[j].lpc, tables[j])
-            rows.append(t)
-            worst = max(worst, wb)
+        for a0, b0, L in batches(n, W, w0, w1):
+            for a in range(a0, b0, BATCH_WINDOWS):   # bounded temporaries per thread, one row group per block
+                b = min(b0, a + BATCH_WINDOWS)
+                x = block[(a - w0) * W:(a - w0) * W + (b - a) * L, j].reshape(b - a, L)
+                t, wb = encode_batch(x, a, names[j], grids[j], W, model, scales[j], plans[j].lpc, tables[j])
+                rows.append(t)
+                worst = max(worst, wb)
         return pa.concat_tables(rows), worst
 
     # channels are encoded side by side (numba and numpy release the GIL); rows are written in order

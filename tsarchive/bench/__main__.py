@@ -155,6 +155,8 @@ def _long_modes(args, train, tmp: Path, report: dict, out, log) -> bool:
                 "write = pack (incl. training and self-check), read = every channel in full; "
                 "Parquet: BYTE_STREAM_SPLIT, no dictionary, zstd at pyarrow's default level")
             out(modes.speed_table(steps))
+            if modes.setup_note(steps):
+                out(modes.setup_note(steps))
             report["speed"] = [s.to_dict() for s in steps]
     if args.random_access:
         if archive is None:

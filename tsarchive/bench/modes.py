@@ -75,6 +75,7 @@ class TimedStep:
     rss_mb: float | None
     ok: bool
     error: str = ""
+    setup: tuple[tuple[str, float], ...] = ()   # one-off costs before the clock started (name, seconds)
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -83,7 +84,18 @@ class TimedStep:
 def _timed(tool: str, res: JobResult, raw: int) -> TimedStep:
     if not res.ok:
         return TimedStep(tool, 0, raw, None, None, None, False, res.error)
-    return TimedStep(tool, res.nbytes, raw, res.step_s, res.read_s, res.rss_step_mb, True)
+    setup = tuple((k, float(v)) for k, v in (("torch import", res.extra.get("torch_import_s")),
+                                             ("numba kernels", res.extra.get("kernels_s"))) if v is not None)
+    return TimedStep(tool, res.nbytes, raw, res.step_s, res.read_s, res.rss_step_mb, True, setup=setup)
+
+
+def setup_note(steps: list[TimedStep]) -> str:
+    """What each child did before its clock started (loaded once per process, not per archive)."""
+    parts = [f"{s.tool}: " + ", ".join(f"{k} {v:.1f} s" for k, v in s.setup) for s in steps if s.setup]
+    if not parts:
+        return ""
+    return ("before the write clock (once per process; numba compiles its kernels on first use after "
+            "installing and loads them from its cache later): " + "; ".join(parts))
 
 
 def speed_table(steps: list[TimedStep]) -> str:
