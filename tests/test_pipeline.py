@@ -280,6 +280,38 @@ def test_a_failing_plan_stops_the_training_thread(tmp_path, monkeypatch):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["n.npy"]
 
 
+def _steps(n=200_000, seed=8):
+    rng = np.random.default_rng(seed)
+    levels = np.repeat(rng.integers(0, 20, n // 2000 + 1), 2000)[:n].astype(np.float64)
+    return (levels + 0.001 * rng.standard_normal(n)).astype(np.float32)
+
+
+def test_window_length_is_chosen_where_longer_windows_pay(tmp_path):
+    # Piecewise-constant levels at a coarse budget: the residuals cost almost nothing, so each window
+    # row's framing dominates and a longer window must be chosen, and make the smaller archive.
+    x = _steps()
+    events = []
+    _, out, res = _pack(tmp_path, x, budget="1%", window=None, progress=events.append)
+    arc = tsarchive.open(out)
+    assert arc.window in pipeline.WINDOW_CHOICES and arc.window > pipeline.DEFAULT_WINDOW
+    assert any(e.message.startswith(f"window {arc.window} (estimated") for e in events)
+    _, _, fixed = _pack(tmp_path, x, budget="1%", window=pipeline.DEFAULT_WINDOW, name="fixed")
+    assert res.archive_bytes < fixed.archive_bytes
+    _assert_within(x, arc)
+
+
+def test_window_length_stays_short_on_noise_and_when_given(tmp_path):
+    x = np.random.default_rng(9).standard_normal(200_000).astype(np.float32)
+    _, out, _ = _pack(tmp_path, x, budget="0.1%", window=None)
+    assert tsarchive.open(out).window == pipeline.DEFAULT_WINDOW     # the saving is inside the margin
+    _, out, _ = _pack(tmp_path, _steps(), budget="1%", window=512, name="given")
+    assert tsarchive.open(out).window == 512                         # an explicit window is kept
+    events = []
+    _, out, _ = _pack(tmp_path, x[:20_000], window=None, name="short", progress=events.append)
+    assert tsarchive.open(out).window == pipeline.DEFAULT_WINDOW
+    assert any("too short a recording" in e.message for e in events)
+
+
 def test_logged_resolution_multiplier_is_found_and_kept_exact(tmp_path):
     # An ADC with 0.005 mV steps logged with three decimals: every value is 5 units of 0.001, so the lossless
     # grid counts in steps of 0.005 (q = x * 1000 / 5) and still gives back the very doubles.

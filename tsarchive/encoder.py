@@ -87,6 +87,19 @@ def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: 
     return ChannelPlan(lpc, with_ae, plain, float(gain), plain_bits)
 
 
+def coded_bytes(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int) -> int:
+    """Bytes the residuals of ``windows`` (k, W) take when planned and range coded on their own,
+    without a model: the size estimate behind the choice of the window length."""
+    plan = plan_channel(windows, None, n_total_windows, grid, W, None, 1)
+    q, _, _, lv, _, _ = predict_batch(windows, grid, W, None, 1)
+    modes, classes, res, _ = choose_modes(q, Context(lv, None, plan.lpc), plan.tables)
+    total = 0
+    for m, k in set(zip(modes.tolist(), classes.tolist())):
+        sel = (modes == m) & (classes == k)
+        total += sum(len(b) for b in entropy.encode_many(res[sel], plan.tables[(m, k)]))
+    return total
+
+
 def _tables(batches, lpc, use_ae: bool) -> tuple[TableSet, float]:
     groups: dict[int, dict[int, list[np.ndarray]]] = {}
     bits = 0.0

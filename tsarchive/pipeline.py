@@ -29,7 +29,7 @@ import pyarrow as pa
 
 from .budget import parse_budget_spec
 from .codec import FRAC_SAFE_SCALE
-from .encoder import TABLE_SAMPLES, ChannelPlan, encode_batch, plan_channel, sample_windows
+from .encoder import TABLE_SAMPLES, ChannelPlan, coded_bytes, encode_batch, plan_channel, sample_windows
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .ingest import read_recording
 from .predict import PREDICTORS
@@ -50,6 +50,12 @@ DECODER_SHARE = 0.01         # decoder parameters per sample of the whole record
 MAX_MODEL_SHARE = 0.05       # the stored decoder may cost at most this share of the raw sample bytes
 BYTES_PER_PARAM = 2.4        # measured size of a stored decoder parameter (int16 in Parquet + zstd)
 BITS_PER_CODE = 10.0         # measured size of one stored code value (list<int8> in Parquet + zstd)
+WINDOW_CHOICES = (DEFAULT_WINDOW, 2 * DEFAULT_WINDOW, 4 * DEFAULT_WINDOW)   # without --window, one of these
+WINDOW_EVAL_SAMPLES = 1 << 18  # samples (all channels) that the window choice plans and codes
+WINDOW_EVAL_MIN = 1 << 15      # per channel at least (and no choice on a recording shorter than this)
+WINDOW_EVAL_CHANNELS = 4       # channels (evenly spread) that the window choice looks at
+WINDOW_MARGIN = 0.03           # a longer window must save this share of the estimate (its noise is ~±3 %)
+WINDOW_ROW_BYTES = 10.5        # measured framing of one window row (CRC, level, score, lengths; Parquet+zstd)
 PROBE_SECONDS = 6.0          # training time of the probe model that decides whether to train longer
 PROBE_SHARE = 0.25           # train fully only if the probe already saves this share of the model's bytes
 
@@ -81,7 +87,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     names = [c.name for c in rec.channels]
     spec = parse_budget_spec(budget)
     spec.check_names(names)
-    W = _window(window, rec.n_samples)
+    W = _window(window, rec.n_samples) if window is not None else 0   # 0: chosen below from a sample
     K = _code_size(code_size)
     explicit = code_size is not None
     probe = not explicit and train_seconds > PROBE_SECONDS
@@ -97,6 +103,9 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
             # budget -> ε -> integer grid, per channel
             grids, notes = _grids(rec, spec)
             emit("read", 1, 1, f"{len(names)} channel(s), {rec.n_samples} samples")
+            if not W:
+                W, why = _choose_window(rec, grids)
+                emit("read", 1, 1, why)
 
             # windows -> a bounded sample (for training and planning) -> per-channel scales
             sample = sample_windows(rec.n_samples, W, max(1, TABLE_SAMPLES // W))
@@ -434,6 +443,43 @@ def _summary(m) -> ChannelSummary:
     return ChannelSummary(name=m.name, unit=m.unit, budget=m.budget, eps=m.eps, worst_error=m.worst_error,
                           used_pct=m.used_pct, ratio=m.ratio, bits_per_sample=m.bits_per_sample,
                           n_samples=m.n_samples, modes=dict(m.modes))
+
+
+def _choose_window(rec: Recording, grids: list[Grid]) -> tuple[int, str]:
+    """The window length (of ``WINDOW_CHOICES``) whose archive is estimated smallest, and why.
+
+    Every candidate plans and range codes the same contiguous spans of the
+    recording (at most ``WINDOW_EVAL_SAMPLES`` in all, of at most
+    ``WINDOW_EVAL_CHANNELS`` evenly spread channels) and is charged
+    ``WINDOW_ROW_BYTES`` per window row; a longer window must save
+    ``WINDOW_MARGIN`` to be chosen, since shorter windows browse finer.
+    Longer windows pay where residuals are cheap (coarse budgets, quiet
+    signals): the framing of a row and the predictor's start-up are shared
+    by more samples.
+    """
+    n, span = rec.n_samples, max(WINDOW_CHOICES)
+    chans = np.unique(np.linspace(0, len(rec.channels) - 1, min(len(rec.channels), WINDOW_EVAL_CHANNELS))
+                      .round().astype(int)).tolist()         # evenly spread channels stand for the rest
+    C = len(chans)
+    per_channel = max(WINDOW_EVAL_MIN, WINDOW_EVAL_SAMPLES // C)
+    spans = sample_windows(n, span, per_channel // span)
+    if len(spans) < WINDOW_EVAL_MIN // span:
+        return DEFAULT_WINDOW, f"window {DEFAULT_WINDOW} (too short a recording to compare window lengths)"
+    sampled = _gather(rec, spans, span)[:, :, chans]
+    est: dict[int, float] = {}
+    for W in WINDOW_CHOICES:            # shortest first; stop once a longer window stops paying
+        total = WINDOW_ROW_BYTES * C * (len(spans) * span // W)
+        with ThreadPoolExecutor(max(1, min(C, os.cpu_count() or 1))) as pool:   # channels side by side
+            total += sum(pool.map(lambda k: coded_bytes(sampled[:, :, k].reshape(-1, W), n // W, grids[chans[k]], W),
+                                  range(C)))
+        best_so_far = min(est.values(), default=math.inf)
+        est[W] = 8.0 * total / (C * len(spans) * span)
+        if est[W] >= best_so_far:
+            break
+    best = min(est, key=lambda w: (est[w], w))
+    if est[best] > est[DEFAULT_WINDOW] * (1 - WINDOW_MARGIN):
+        best = DEFAULT_WINDOW
+    return best, f"window {best} (estimated bits/sample: " + ", ".join(f"{w}: {e:.3f}" for w, e in est.items()) + ")"
 
 
 def _window(window: int | None, n: int) -> int:
