@@ -4,14 +4,19 @@ Packing::
 
     ingest  -> read the recording (streams .npy through fresh memory maps)
     budget  -> ε per channel, then an integer grid per channel      (budget.py, quantize.py)
-    windows -> fixed windows of W samples with a level each          (windows.py)
-    codes   -> a small autoencoder learned from a bounded sample      (model/)
+    windows -> fixed windows of W samples with a level each          (windows.py; W chosen from
+               1024 … 8192 by the size of a planned and coded sample, unless given)
+    codes   -> a small autoencoder learned from a bounded sample      (model/; on a helper thread)
     plan    -> LPC coefficients, entropy tables, does the model pay?  (encoder.py)
     residuals -> per window the cheapest integer predictor            (codec.py, predict/)
-    entropy -> range coding, integer tables per channel/predictor/class (entropy.py)
+    entropy -> range coding, integer tables per channel/predictor/class (entropy.py, rangecoder.py)
     Parquet -> staged archive, checked through the reader, renamed    (store/)
 
-Reading reverses it in :mod:`tsarchive.store.reader` (numpy + pyarrow only).
+While the autoencoder trains, the main thread plans without it and (unless a
+code size was asked for) encodes every channel without it; the staging is
+dropped and the channels encoded again only if the model pays.
+
+Reading reverses it in :mod:`tsarchive.store.reader` (numpy, pyarrow and the compiled kernels; no torch).
 """
 
 from __future__ import annotations
@@ -50,7 +55,7 @@ DECODER_SHARE = 0.01         # decoder parameters per sample of the whole record
 MAX_MODEL_SHARE = 0.05       # the stored decoder may cost at most this share of the raw sample bytes
 BYTES_PER_PARAM = 2.4        # measured size of a stored decoder parameter (int16 in Parquet + zstd)
 BITS_PER_CODE = 10.0         # measured size of one stored code value (list<int8> in Parquet + zstd)
-WINDOW_CHOICES = (DEFAULT_WINDOW, 2 * DEFAULT_WINDOW, 4 * DEFAULT_WINDOW)   # without --window, one of these
+WINDOW_CHOICES = tuple(DEFAULT_WINDOW << k for k in range(4))   # without --window: 1024 … 8192
 WINDOW_EVAL_SAMPLES = 1 << 18  # samples (all channels) that the window choice plans and codes
 WINDOW_EVAL_MIN = 1 << 15      # per channel at least (and no choice on a recording shorter than this)
 WINDOW_EVAL_CHANNELS = 4       # channels (evenly spread) that the window choice looks at
@@ -76,7 +81,8 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     ``train_seconds`` whatever the recording's length; without an explicit
     code size a probe model is trained for ``PROBE_SECONDS`` first and the
     full run happens only if the probe already saves ``PROBE_SHARE`` of the
-    model's own bytes.
+    model's own bytes.  ``window=None`` picks the window length of
+    ``WINDOW_CHOICES`` that a planned and coded sample says is smallest.
     """
     t0 = time.perf_counter()
     emit = _emitter(progress, cancel)

@@ -1,4 +1,4 @@
-"""Open an archive and decode any time range (numpy + pyarrow only).
+"""Open an archive and decode any time range (numpy, pyarrow and numba kernels; no torch).
 
 Reading reverses packing: Parquet rows -> entropy decode -> predictor
 inverse (integer) -> grid -> samples, with every window's CRC-32 checked.
