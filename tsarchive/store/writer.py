@@ -23,9 +23,12 @@ from . import schema as S
 
 # Statistics only where the reader uses them (channel/window ranges per row group): statistics of the
 # payload columns would only add footer bytes.
+# The small integer columns are delta-packed (runs of one predictor cost ~0 bits, and no dictionary page).
 _PARQUET_OPTS = dict(compression="zstd", compression_level=9, store_schema=False, write_statistics=["channel", "window"],
-                     use_dictionary=["channel", "mode", "lpc_set", "table"],
+                     use_dictionary=["channel"],
                      column_encoding={"window": "DELTA_BINARY_PACKED", "level": "DELTA_BINARY_PACKED",
+                                      "mode": "DELTA_BINARY_PACKED", "lpc_set": "DELTA_BINARY_PACKED",
+                                      "table": "DELTA_BINARY_PACKED",
                                       "crc32": "PLAIN", "worst": "PLAIN", "score": "BYTE_STREAM_SPLIT",
                                       "residual": "DELTA_LENGTH_BYTE_ARRAY"})
 
