@@ -49,7 +49,7 @@ DEFAULT_CODE_SIZE = 8
 MAX_CODE_SIZE = 64
 TRAIN_WINDOWS = 20000        # bound on the training sample, whatever the recording's length
 CHUNK_SAMPLES = 1 << 20      # samples per channel encoded per step (bounds memory)
-BATCH_WINDOWS = 256          # windows per encoder call within a step (bounds each thread's temporaries)
+BATCH_SAMPLES = 1 << 18      # samples per encoder call within a step (bounds each thread's temporaries)
 MIN_MODEL_WINDOWS = 8        # fewer full windows than this: no autoencoder
 DECODER_SHARE = 0.01         # decoder parameters per sample of the whole recording (sizing rule)
 MAX_MODEL_SHARE = 0.05       # the stored decoder may cost at most this share of the raw sample bytes
@@ -413,8 +413,9 @@ def _encode(writer, rec: Recording, names, grids, W, model, scales, plans, table
     def channel_rows(block, w0: int, w1: int, j: int) -> tuple[pa.Table, float]:
         rows, worst = [], 0.0
         for a0, b0, L in batches(n, W, w0, w1):
-            for a in range(a0, b0, BATCH_WINDOWS):   # bounded temporaries per thread, one row group per block
-                b = min(b0, a + BATCH_WINDOWS)
+            per_call = max(1, BATCH_SAMPLES // W)   # bounded temporaries per thread, one row group per block
+            for a in range(a0, b0, per_call):
+                b = min(b0, a + per_call)
                 x = block[(a - w0) * W:(a - w0) * W + (b - a) * L, j].reshape(b - a, L)
                 t, wb = encode_batch(x, a, names[j], grids[j], W, model, scales[j], plans[j].lpc, tables[j])
                 rows.append(t)
