@@ -188,6 +188,18 @@ def test_reading_channels_on_threads_gives_the_same_samples(small_archive, worke
         assert got[name].dtype == ref[name].dtype and np.array_equal(got[name], ref[name], equal_nan=True)
 
 
+def test_long_reads_in_steps_give_the_same_samples(small_archive, monkeypatch):
+    from tsarchive.store import reader
+    arc = tsarchive.open(small_archive)
+    meta = arc.channels[0]
+    spans = [(None, None), (0.013, None), (None, meta.duration * 0.7), (0.5, 9.0), (3.0, 3.01)]
+    whole = [arc.read(meta.name, a, b) for a, b in spans]
+    monkeypatch.setattr(reader, "READ_SAMPLES", 3 * meta.window + 5)   # a step of 3 windows
+    for (a, b), ref in zip(spans, whole):
+        got = tsarchive.open(small_archive).read(meta.name, a, b)
+        assert got.dtype == ref.dtype and np.array_equal(got, ref, equal_nan=True), (a, b)
+
+
 def test_torch_and_numpy_inference_paths_agree(small_archive):
     arc = tsarchive.open(small_archive)
     if arc.decoder is None:
