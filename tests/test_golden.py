@@ -1,7 +1,7 @@
-"""The committed golden archive freezes format version 1.
+"""The committed golden archive freezes format version 3.
 
 If a change to the code makes this fail, the archive format changed: that
-must be deliberate (bump FORMAT_VERSION, keep a reader for version 1, or
+must be deliberate (bump FORMAT_VERSION, keep a reader for the old version, or
 regenerate with ``python tests/golden/make_golden.py`` and say so).
 """
 
@@ -39,18 +39,27 @@ def test_golden_is_within_budget_of_its_source():
     assert arc.manifest["model"] is not None  # the golden archive exercises the integer decoder
 
 
-# The version-2 windows columns, spelled out so that a schema edit without a version bump fails here.
-V2_WINDOWS = [("channel", "string"), ("window", "int32"), ("mode", "int8"), ("lpc_set", "int8"), ("table", "int8"),
-              ("level", "int64"),
-              ("code", "list<item: int8>"), ("residual", "binary"), ("exc_pos", "list<item: int32>"),
-              ("exc_bits", "list<item: int64>"), ("crc32", "uint32"), ("worst", "uint8"), ("score", "float")]
+# The version-3 columns, spelled out so that a schema edit without a version bump fails here.
+V3_WINDOWS = [("channel", "string"), ("window", "int32"), ("mode", "int8"), ("lpc_set", "int8"), ("table", "int8"),
+              ("level", "int64"), ("residual", "binary"), ("crc32", "uint32"), ("worst", "uint8"), ("score", "float")]
+V3_CODE = ("code", "list<item: int8>")    # after "level", only in archives that keep a model
+V3_EXCEPTIONS = [("channel", "string"), ("window", "int32"), ("pos", "list<item: int32>"),
+                 ("bits", "list<item: int64>")]
 
 
-def test_golden_schema_and_manifest_are_version_2():
+def test_golden_schema_and_manifest_are_version_3():
     manifest = json.loads((ARC / "manifest.json").read_text())
-    assert manifest["format"] == "tsarchive" and manifest["format_version"] == 2 == S.FORMAT_VERSION
-    assert [(f.name, str(f.type)) for f in S.WINDOWS_SCHEMA] == V2_WINDOWS
-    assert pq.read_schema(ARC / "windows.parquet").remove_metadata().equals(S.WINDOWS_SCHEMA)
+    assert manifest["format"] == "tsarchive" and manifest["format_version"] == 3 == S.FORMAT_VERSION
+    assert [(f.name, str(f.type)) for f in S.WINDOWS_SCHEMA] == V3_WINDOWS
+    with_code = [(f.name, str(f.type)) for f in S.windows_schema(True)]
+    assert with_code == V3_WINDOWS[:6] + [V3_CODE] + V3_WINDOWS[6:]
+    assert [(f.name, str(f.type)) for f in S.EXCEPTIONS_SCHEMA] == V3_EXCEPTIONS
+    # the golden archive keeps a model (code column) and a NaN (exceptions member)
+    assert pq.read_schema(ARC / "windows.parquet").remove_metadata().equals(S.windows_schema(True))
+    assert pq.read_schema(ARC / "exceptions.parquet").remove_metadata().equals(S.EXCEPTIONS_SCHEMA)
+    held = pq.read_table(ARC / "exceptions.parquet").to_pylist()
+    assert [(r["channel"], r["pos"]) for r in held] == [("strain", [1234 % 64])]
+    assert set(manifest["members"]) == {"windows.parquet", "exceptions.parquet", "model.parquet"}
     assert not (ARC / "tables.parquet").exists()
     tables = [t for c in manifest["channels"] for t in c["tables"]]
     assert tables and all(set(t) == {"mode", "table", "coder", "freqs"} for t in tables)

@@ -61,6 +61,25 @@ def test_nan_inf_constant_and_short_tail(tmp_path):
     assert tsarchive.verify(out, against=src).ok
 
 
+def test_verbatim_samples_live_in_their_own_member(tmp_path):
+    import shutil
+    from tsarchive.errors import ArchiveCorrupt
+    x = make_signal(1000).astype(np.float64)
+    x[5, 0], x[17, 0], x[999, 1] = np.nan, np.inf, -np.inf
+    src, out, _ = _pack(tmp_path, x)
+    held = pq.read_table(out / "exceptions.parquet").to_pylist()
+    assert [(r["channel"], r["window"], r["pos"]) for r in held] == [("ch0", 0, [5, 17]), ("ch1", 31, [7])]
+    assert "code" not in pq.read_schema(out / "windows.parquet").names        # no model, no code column
+    clean = _pack(tmp_path, np.nan_to_num(x, posinf=0, neginf=0), name="clean")[1]
+    assert sorted(p.name for p in clean.iterdir()) == ["manifest.json", "windows.parquet"]
+    # the manifest lists the member: an archive that lost it is refused, not read without its NaNs
+    broken = tmp_path / "broken.tsa"
+    shutil.copytree(out, broken)
+    (broken / "exceptions.parquet").unlink()
+    with pytest.raises(ArchiveCorrupt, match="exceptions.parquet is missing"):
+        tsarchive.open(broken)
+
+
 def test_very_short_recording(tmp_path):
     for n in (1, 2, 5):
         x = np.linspace(0, 1, n).astype(np.float32)

@@ -139,8 +139,9 @@ def merge_classes(by_class: dict[int, list[np.ndarray]]) -> list[tuple[int, list
 
 
 def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int, model, scale: int,
-                 lpc, tables: TableSet) -> tuple[pa.Table, float]:
-    """Rows for a batch of equal-length windows, and their worst error in float64."""
+                 lpc, tables: TableSet) -> tuple[pa.Table, pa.Table, float]:
+    """Window rows for a batch of equal-length windows, the rows of those with verbatim samples
+    (exceptions), and the batch's worst error in float64."""
     nb, L = x.shape
     q, pos, bits, lv, codes, ae = predict_batch(x, grid, W, model, scale)
     modes, classes, res, sets = choose_modes(q, Context(lv, ae, lpc), tables)
@@ -159,7 +160,7 @@ def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int
         score = np.where(fin, np.abs(x64 - preview.astype(np.float64)), 0.0).max(axis=1, initial=0.0)
     wpos = pos // L
     worst = err.max(axis=1) if L else np.zeros(nb)
-    return pa.table({
+    rows = pa.table({
         "channel": [name] * nb,
         "window": np.arange(first_window, first_window + nb, dtype=np.int32),
         "mode": modes.astype(np.int8),
@@ -168,12 +169,18 @@ def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int
         "level": lv,
         "code": list(codes.astype(np.int8)),
         "residual": payloads,
-        "exc_pos": [(pos[wpos == i] % L).astype(np.int32) for i in range(nb)],
-        "exc_bits": [bits[wpos == i] for i in range(nb)],
         "crc32": np.array([checksum.window_crc(xh[i]) for i in range(nb)], dtype=np.uint32),
         "worst": worst_steps(worst, grid.eps),
         "score": score_bf16(score),
-    }, schema=S.WINDOWS_SCHEMA), float(worst.max(initial=0.0))
+    }, schema=S.windows_schema(True))
+    held = np.unique(wpos)
+    exceptions = pa.table({
+        "channel": [name] * len(held),
+        "window": (first_window + held).astype(np.int32),
+        "pos": [(pos[wpos == i] % L).astype(np.int32) for i in held],
+        "bits": [bits[wpos == i] for i in held],
+    }, schema=S.EXCEPTIONS_SCHEMA)
+    return rows, exceptions, float(worst.max(initial=0.0))
 
 
 def worst_steps(worst: np.ndarray, eps: float) -> np.ndarray:

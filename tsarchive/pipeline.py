@@ -210,7 +210,7 @@ def _write(job: dict, model, plans, model_note, decide=None) -> dict:
     emit, rec = job["emit"], job["rec"]
     decoder = None if model is None else model.int_decoder
     tables = [p.tables if model is not None else p.tables_plain for p in plans]
-    with ArchiveWriter(job["archive"], force=job["force"]) as writer:
+    with ArchiveWriter(job["archive"], force=job["force"], with_code=decoder is not None) as writer:
         summaries = _encode(writer, rec, job["names"], job["grids"], job["W"], model, job["scales"], plans, tables,
                             emit)
         if decide is not None:
@@ -410,17 +410,18 @@ def _encode(writer, rec: Recording, names, grids, W, model, scales, plans, table
     stats = [{"worst_error": 0.0, "bytes_est": 0, "n_exceptions": 0,
               "modes": {p.name: 0 for p in PREDICTORS.values()}} for _ in names]
     code_bytes = 8 + (model.code_size if model is not None else 0)
-    def channel_rows(block, w0: int, w1: int, j: int) -> tuple[pa.Table, float]:
-        rows, worst = [], 0.0
+    def channel_rows(block, w0: int, w1: int, j: int) -> tuple[pa.Table, pa.Table, float]:
+        rows, held, worst = [], [], 0.0
         for a0, b0, L in batches(n, W, w0, w1):
             per_call = max(1, BATCH_SAMPLES // W)   # bounded temporaries per thread, one row group per block
             for a in range(a0, b0, per_call):
                 b = min(b0, a + per_call)
                 x = block[(a - w0) * W:(a - w0) * W + (b - a) * L, j].reshape(b - a, L)
-                t, wb = encode_batch(x, a, names[j], grids[j], W, model, scales[j], plans[j].lpc, tables[j])
+                t, e, wb = encode_batch(x, a, names[j], grids[j], W, model, scales[j], plans[j].lpc, tables[j])
                 rows.append(t)
+                held.append(e)
                 worst = max(worst, wb)
-        return pa.concat_tables(rows), worst
+        return pa.concat_tables(rows), pa.concat_tables(held), worst
 
     # channels are encoded side by side (numba and numpy release the GIL); rows are written in order
     pool = ThreadPoolExecutor(max(1, min(len(names), os.cpu_count() or 1)))
@@ -428,22 +429,24 @@ def _encode(writer, rec: Recording, names, grids, W, model, scales, plans, table
         for w0 in range(0, nw, per_block):
             w1 = min(nw, w0 + per_block)
             block = rec.rows(w0 * W, min(n, w1 * W))
-            for j, (table, worst) in enumerate(pool.map(lambda j: channel_rows(block, w0, w1, j), range(len(names)))):
+            for j, (table, held, worst) in enumerate(pool.map(lambda j: channel_rows(block, w0, w1, j),
+                                                                   range(len(names)))):
                 stats[j]["worst_error"] = max(stats[j]["worst_error"], worst)
-                _add_rows(writer, table, stats[j], code_bytes)
+                _add_rows(writer, table, held, stats[j], code_bytes)
             emit("encode", w1 * len(names), nw * len(names), f"window {w1}/{nw}")
     return stats
 
 
-def _add_rows(writer, table: pa.Table, s: dict, code_bytes: int) -> None:
-    """Write one channel's rows of a block and add them to its summary counts."""
+def _add_rows(writer, table: pa.Table, held: pa.Table, s: dict, code_bytes: int) -> None:
+    """Write one channel's rows of a block (and its verbatim samples) and add them to its summary counts."""
     for m, c in zip(*np.unique(table.column("mode").to_numpy(), return_counts=True)):
         s["modes"][PREDICTORS[int(m)].name] += int(c)
-    exc = pa.compute.list_value_length(table.column("exc_pos")).to_numpy(zero_copy_only=False)
-    s["n_exceptions"] += int(exc.sum())
+    n_exc = int(pa.compute.sum(pa.compute.list_value_length(held.column("pos"))).as_py() or 0)
+    s["n_exceptions"] += n_exc
     s["bytes_est"] += int(pa.compute.sum(pa.compute.binary_length(table.column("residual"))).as_py() or 0) \
-        + table.num_rows * code_bytes + 12 * int(exc.sum())
+        + table.num_rows * code_bytes + 12 * n_exc
     writer.add_windows(table)
+    writer.add_exceptions(held)
 
 
 def _summary(m) -> ChannelSummary:

@@ -125,7 +125,9 @@ class Archive:
         if self.manifest.get("format_version") != S.FORMAT_VERSION:
             raise FormatVersionError(f"archive format version {self.manifest.get('format_version')} is not "
                                      f"{S.FORMAT_VERSION}; use the tsarchive version that wrote it")
-        needed = S.REQUIRED_MEMBERS + ((S.MODEL,) if self.manifest.get("model") is not None else ())
+        listed = self.manifest.get("members", {})
+        needed = S.REQUIRED_MEMBERS + ((S.MODEL,) if self.manifest.get("model") is not None else ()) \
+            + ((S.EXCEPTIONS,) if S.EXCEPTIONS in listed else ())
         for name in needed:
             if not (self.path / name).is_file():
                 raise ArchiveCorrupt(f"archive member {name} is missing; the archive is incomplete")
@@ -222,13 +224,13 @@ class Archive:
 
     def _rows(self, channel: str, w0: int, w1: int, columns: list[str] | None = None) -> pa.Table:
         """Window rows ``w0 <= window < w1`` of a channel, reading only overlapping row groups."""
+        schema = self._schema
+        if columns is not None:       # a column this archive does not have (``code`` without a model) is left out
+            columns = [c for c in schema.names if c in set(columns) | {"channel", "window"}]
         groups = [g for g, a, b in self._row_groups.get(channel, []) if b >= w0 and a < w1]
         if not groups:
-            return S.WINDOWS_SCHEMA.empty_table() if columns is None else \
-                pa.schema([S.WINDOWS_SCHEMA.field(c) for c in columns]).empty_table()
-        cols = None if columns is None else sorted(set(columns) | {"channel", "window"},
-                                                   key=S.WINDOWS_SCHEMA.names.index)
-        t = self._thread_file().read_row_groups(groups, columns=cols)
+            return schema.empty_table() if columns is None else pa.schema([schema.field(c) for c in columns]).empty_table()
+        t = self._thread_file().read_row_groups(groups, columns=columns)
         mask = pc.and_(pc.and_(pc.equal(t["channel"], channel), pc.greater_equal(t["window"], w0)),
                        pc.less(t["window"], w1))
         t = t.filter(mask)
@@ -254,11 +256,9 @@ class Archive:
         classes = t["table"].to_numpy()
         level = t["level"].to_numpy()
         pbuf, poffs = _binary_parts(t["residual"])
-        codes = _codes(t["code"], nrow)
+        codes = _codes(t, nrow)
         crcs = t["crc32"].to_numpy()
-        n_exc = pc.list_value_length(t["exc_pos"]).to_numpy(zero_copy_only=False)
-        exc_pos = t["exc_pos"].to_pylist() if n_exc.any() else None
-        exc_bits = t["exc_bits"].to_pylist() if n_exc.any() else None
+        held = self._held(channel, w0, w1)          # window -> (positions, bits) stored verbatim
         out = np.empty(int(lens.sum()), dtype=np.dtype(meta.grid.out_dtype))
         offs = np.concatenate([[0], np.cumsum(lens)])
         bad = []
@@ -274,9 +274,13 @@ class Archive:
             ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
             q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc, lpc_set[sel]), res)
             x = meta.grid.to_out(meta.grid.values(q))                  # (windows, L), all at once
-            for k in np.flatnonzero(n_exc[sel]):                        # samples stored verbatim
-                i = sel[k]
-                x[k, np.asarray(exc_pos[i], np.int64)] = bits_to_values(np.asarray(exc_bits[i], np.int64), x.dtype)
+            for k, w in enumerate(windows[sel].tolist()):               # samples stored verbatim
+                if w in held:
+                    pos, raw = held[w]
+                    if len(pos) != len(raw) or (len(pos) and not (0 <= pos.min() and pos.max() < L)):
+                        raise ArchiveCorrupt(f"channel {channel} window {w}: verbatim samples are malformed; "
+                                             "the archive is damaged")
+                    x[k, pos] = bits_to_values(raw, x.dtype)
             got = np.array([checksum.window_crc(row) for row in x], dtype=np.int64)
             for k in np.flatnonzero(got != crcs[sel].astype(np.int64)):
                 if check:
@@ -287,6 +291,32 @@ class Archive:
             out[offs[sel[0]]:offs[sel[-1] + 1]] = x.ravel()
         bad.sort()
         return out, windows, bad
+
+    @cached_property
+    def _schema(self) -> pa.Schema:
+        """windows.parquet's columns (``code`` only in archives with a model)."""
+        schema = self._windows_file.schema_arrow.remove_metadata()
+        expected = S.windows_schema("code" in schema.names)
+        if not schema.equals(expected):
+            raise ArchiveCorrupt("windows.parquet does not have the columns of this format version; "
+                                 "the archive is damaged")
+        return expected
+
+    def _held(self, channel: str, w0: int, w1: int) -> dict[int, tuple[np.ndarray, np.ndarray]]:
+        """The verbatim samples of windows ``w0..w1-1``: window -> (positions int64, raw bits int64)."""
+        if S.EXCEPTIONS not in self.manifest.get("members", {}):
+            return {}
+        try:
+            t = pq.read_table(self.path / S.EXCEPTIONS, filters=[("channel", "=", channel), ("window", ">=", w0),
+                                                                  ("window", "<", w1)])
+        except (OSError, pa.ArrowException) as exc:
+            raise ArchiveCorrupt(f"exceptions.parquet cannot be read ({exc}); the archive is damaged") from None
+        if t.schema.remove_metadata() != S.EXCEPTIONS_SCHEMA:
+            raise ArchiveCorrupt("exceptions.parquet has unexpected columns; the archive is damaged")
+        out = {}
+        for w, pos, raw in zip(t["window"].to_pylist(), t["pos"].to_pylist(), t["bits"].to_pylist()):
+            out[int(w)] = (np.asarray(pos, np.int64), np.asarray(raw, np.int64))
+        return out
 
     def _table(self, channel: str, mode: int, cls: int) -> entropy.FreqTable:
         try:
@@ -354,7 +384,7 @@ class Archive:
         t = self._rows(channel, w0, w1, ["level", "code"])
         lens = _lengths(meta, t["window"].to_numpy())
         level = t["level"].to_numpy()
-        codes = _codes(t["code"], t.num_rows)
+        codes = _codes(t, t.num_rows)
         x = np.empty(int(lens.sum()), dtype=np.float64)
         offs = np.concatenate([[0], np.cumsum(lens)])
         for L in np.unique(lens):  # one decoder call per window length (the last window may be short)
@@ -372,7 +402,7 @@ class Archive:
         worst = t["worst"].to_numpy().astype(np.float64) * (meta.eps / S.WORST_STEPS)
         return WindowTable(index=index, start_sample=index * meta.window, n=_lengths(meta, index),
                            mode=tuple(mode_name(m) for m in t["mode"].to_numpy()),
-                           worst_error=worst, score=t["score"].to_numpy(), codes=_codes(t["code"], t.num_rows))
+                           worst_error=worst, score=t["score"].to_numpy(), codes=_codes(t, t.num_rows))
 
     def outliers(self, channel: str, k: int = 20) -> list[int]:
         """Window numbers with the highest outlier score (code-only reconstruction error), highest first."""
@@ -444,7 +474,11 @@ def _lengths(meta: ChannelMeta, windows: np.ndarray) -> np.ndarray:
     return np.clip(meta.n_samples - w * meta.window, 0, meta.window)
 
 
-def _codes(col: pa.ChunkedArray, nrow: int) -> np.ndarray:
+def _codes(t: pa.Table, nrow: int) -> np.ndarray:
+    """(rows, code size) int8 codes; zero columns for an archive without a model."""
+    if "code" not in t.column_names:
+        return np.zeros((nrow, 0), np.int8)
+    col = t["code"]
     flat = pc.list_flatten(col).to_numpy(zero_copy_only=False).astype(np.int8) if nrow else np.zeros(0, np.int8)
     k = len(flat) // nrow if nrow else 0
     if k * nrow != len(flat):

@@ -1,12 +1,15 @@
-"""The archive's on-disk layout (format ``tsarchive`` version 2).
+"""The archive's on-disk layout (format ``tsarchive`` version 3).
 
 An archive is a directory, by convention ``NAME.tsa``::
 
-    manifest.json     format, tool version, channels (budgets, grids, LPC sets,
-                      entropy tables), summary, SHA-256 of every member file
-    windows.parquet   one row per channel window (codes, residual payloads, checksums)
-    model.parquet     one row per decoder array (plain integers, no pickle);
-                      present only when the manifest names a model
+    manifest.json       format, tool version, channels (budgets, grids, LPC sets,
+                        entropy tables), summary, SHA-256 of every member file
+    windows.parquet     one row per channel window (residual payloads, checksums,
+                        and the autoencoder code when the archive keeps a model)
+    exceptions.parquet  one row per window holding samples stored verbatim
+                        (NaN, infinities, unrepresentable values); only when any
+    model.parquet       one row per decoder array (plain integers, no pickle);
+                        only when the manifest names a model
 
 Why a directory: every member is a plain Parquet or JSON file that any
 reader opens on its own; ``windows.parquet`` keeps each channel in its own
@@ -14,8 +17,10 @@ row groups ordered by time, so a time range is read through row-group
 statistics without touching the rest; and the whole directory is built
 aside and renamed into place, which is atomic on one file system.
 
-The column list below is the format: changing it is a format change (bump
+The column lists below are the format: changing one is a format change (bump
 ``FORMAT_VERSION`` and regenerate the golden archive in ``tests/golden``).
+Version 3 leaves out what most archives never use: the ``code`` column
+exists only with a model, and verbatim samples live in their own member.
 """
 
 from __future__ import annotations
@@ -23,13 +28,14 @@ from __future__ import annotations
 import pyarrow as pa
 
 FORMAT_NAME = "tsarchive"
-FORMAT_VERSION = 2
+FORMAT_VERSION = 3
 
 MANIFEST = "manifest.json"
 WINDOWS = "windows.parquet"
 MODEL = "model.parquet"
-MEMBERS = (WINDOWS, MODEL)
-REQUIRED_MEMBERS = (WINDOWS,)          # model.parquet only when the manifest has a model
+EXCEPTIONS = "exceptions.parquet"
+MEMBERS = (WINDOWS, EXCEPTIONS, MODEL)
+REQUIRED_MEMBERS = (WINDOWS,)          # the others only when the manifest lists them
 WORST_STEPS = 250                      # per-window worst error is stored in 1/250ths of ε, rounded up
 
 WINDOWS_SCHEMA = pa.schema([
@@ -39,14 +45,27 @@ WINDOWS_SCHEMA = pa.schema([
     pa.field("lpc_set", pa.int8()),          # which of the channel's LPC coefficient sets (mode lpc; else 0)
     pa.field("table", pa.int8()),            # activity class of the entropy table used (with channel, mode)
     pa.field("level", pa.int64()),           # rounded mean of the window on the integer grid
-    pa.field("code", pa.list_(pa.int8())),   # autoencoder code (code_size int8 values; empty without a model)
     pa.field("residual", pa.binary()),       # residual integers, coded by the table's coder
-    pa.field("exc_pos", pa.list_(pa.int32())),   # positions (within the window) stored verbatim
-    pa.field("exc_bits", pa.list_(pa.int64())),  # their raw bits (floats) or values (ints)
     pa.field("crc32", pa.uint32()),          # CRC-32 of the decoded samples (little-endian bytes)
     pa.field("worst", pa.uint8()),           # max |x̂ - x| in the window in 1/WORST_STEPS of ε, rounded up
     pa.field("score", pa.float32()),         # peak |x - code-only reconstruction|, channel units, 8 significant bits
 ])
+CODE_FIELD = pa.field("code", pa.list_(pa.int8()))   # autoencoder code (code_size int8 values), with a model only
+CODE_AFTER = "level"                                 # ... placed after this column
+
+EXCEPTIONS_SCHEMA = pa.schema([
+    pa.field("channel", pa.string()),
+    pa.field("window", pa.int32()),
+    pa.field("pos", pa.list_(pa.int32())),   # positions within the window of the samples stored verbatim
+    pa.field("bits", pa.list_(pa.int64())),  # their raw IEEE-754 bits (floats) or values (integers)
+])
+
+
+def windows_schema(with_code: bool) -> pa.Schema:
+    """The windows.parquet schema of an archive with (or without) a model."""
+    if not with_code:
+        return WINDOWS_SCHEMA
+    return WINDOWS_SCHEMA.insert(WINDOWS_SCHEMA.get_field_index(CODE_AFTER) + 1, CODE_FIELD)
 
 MODEL_SCHEMA = pa.schema([
     pa.field("name", pa.string()),

@@ -33,6 +33,12 @@ _PARQUET_OPTS = dict(compression="zstd", compression_level=9, store_schema=False
                                       "residual": "DELTA_LENGTH_BYTE_ARRAY"})
 
 
+def _windows_opts(schema: pa.Schema) -> dict:
+    """Writer options for the columns this schema has."""
+    enc = {k: v for k, v in _PARQUET_OPTS["column_encoding"].items() if k in schema.names}
+    return dict(_PARQUET_OPTS, column_encoding=enc)
+
+
 def is_archive_dir(path: Path) -> bool:
     return path.is_dir() and (path / S.MANIFEST).is_file()
 
@@ -51,31 +57,49 @@ def check_target(path: Path, force: bool) -> None:
 class ArchiveWriter:
     """Stage an archive; use as a context manager and call :meth:`commit` last."""
 
-    def __init__(self, path: str | os.PathLike, *, force: bool = False) -> None:
+    def __init__(self, path: str | os.PathLike, *, force: bool = False, with_code: bool = False) -> None:
         self.path = Path(path)
         check_target(self.path, force)
         self.force = force
+        self.schema = S.windows_schema(with_code)
         self.stage = self.path.parent / f".{self.path.name}.staging-{uuid.uuid4().hex[:8]}"
         self.stage.mkdir()
         self._windows: pq.ParquetWriter | None = None
+        self._exceptions: pq.ParquetWriter | None = None
         self._committed = False
 
     def __enter__(self) -> "ArchiveWriter":
         return self
 
     def __exit__(self, exc_type, exc, tb) -> None:
-        if self._windows is not None:
-            self._windows.close()
-            self._windows = None
+        self._close()
         if not self._committed:
             shutil.rmtree(self.stage, ignore_errors=True)
 
     # -- members ---------------------------------------------------------------
+    def _close(self) -> None:
+        for name in ("_windows", "_exceptions"):
+            w = getattr(self, name)
+            if w is not None:
+                w.close()
+                setattr(self, name, None)
+
     def add_windows(self, rows: pa.Table) -> None:
         """Append window rows of one channel; each call starts new row groups."""
         if self._windows is None:
-            self._windows = pq.ParquetWriter(self.stage / S.WINDOWS, S.WINDOWS_SCHEMA, **_PARQUET_OPTS)
-        self._windows.write_table(rows.cast(S.WINDOWS_SCHEMA), row_group_size=S.ROW_GROUP_WINDOWS)
+            self._windows = pq.ParquetWriter(self.stage / S.WINDOWS, self.schema, **_windows_opts(self.schema))
+        self._windows.write_table(rows.select(self.schema.names).cast(self.schema),
+                                  row_group_size=S.ROW_GROUP_WINDOWS)
+
+    def add_exceptions(self, rows: pa.Table) -> None:
+        """Append one channel's windows with verbatim samples (the member exists only if this is called)."""
+        if not rows.num_rows:
+            return
+        if self._exceptions is None:
+            self._exceptions = pq.ParquetWriter(self.stage / S.EXCEPTIONS, S.EXCEPTIONS_SCHEMA, compression="zstd",
+                                                compression_level=9, store_schema=False,
+                                                write_statistics=["channel", "window"], use_dictionary=["channel"])
+        self._exceptions.write_table(rows.cast(S.EXCEPTIONS_SCHEMA))
 
     def write_model(self, arrays: dict[str, np.ndarray]) -> None:
         """The decoder's arrays; nothing is written for an archive without a model."""
@@ -92,9 +116,7 @@ class ArchiveWriter:
                                                               "values": "BYTE_STREAM_SPLIT"})
 
     def staged_bytes(self) -> int:
-        if self._windows is not None:
-            self._windows.close()
-            self._windows = None
+        self._close()
         return sum(p.stat().st_size for p in self.stage.iterdir())
 
     def finalize(self, manifest: dict) -> Path:
@@ -104,7 +126,7 @@ class ArchiveWriter:
         opened and checked before :meth:`commit` moves it into place.
         """
         if self._windows is None and not (self.stage / S.WINDOWS).exists():
-            self.add_windows(S.WINDOWS_SCHEMA.empty_table())
+            self.add_windows(self.schema.empty_table())
         self.staged_bytes()  # closes the windows writer
         members = {}
         for name in S.MEMBERS:
