@@ -149,8 +149,11 @@ def _set_bits(n_sets: int) -> float:
 
 def reconstruct(modes: np.ndarray, ctx: Context, residuals: np.ndarray) -> np.ndarray:
     """Inverse of :func:`choose_modes` given the chosen modes (and ``ctx.lpc_set``)."""
+    used = np.unique(modes)
+    if len(used) == 1:                     # one predictor for all windows: no gather/scatter copies
+        return get_predictor(int(used[0])).reconstruct(residuals, ctx)
     q = np.empty_like(residuals)
-    for m in np.unique(modes):
+    for m in used:
         sel = modes == m
         q[sel] = get_predictor(int(m)).reconstruct(residuals[sel], ctx.take(sel))
     return q

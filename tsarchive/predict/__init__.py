@@ -90,12 +90,16 @@ def _aeprev_rec(r, c):
 
 def _by_set(fn, a, c):
     sets = np.zeros(len(a), np.int8) if c.lpc_set is None else c.lpc_set
-    out = np.empty_like(a, dtype=np.int64)
-    for k in np.unique(sets):
-        sel = sets == k
+    used = np.unique(sets)
+    for k in used:
         if not 0 <= k < len(c.lpc):
             raise UnknownCodec(f"linear-prediction set {k} is not among the channel's {len(c.lpc)}; "
                                "the archive is damaged or from a newer tsarchive")
+    if len(used) == 1:                     # one set for all windows: no gather/scatter copies
+        return fn(a, c.level, c.lpc[int(used[0])])
+    out = np.empty_like(a, dtype=np.int64)
+    for k in used:
+        sel = sets == k
         out[sel] = fn(a[sel], c.level[sel], c.lpc[int(k)])
     return out
 
