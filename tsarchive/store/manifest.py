@@ -22,6 +22,11 @@ def used_pct(worst: float, eps: float) -> float:
     return 100.0 * worst / eps if eps > 0 else (0.0 if worst == 0 else math.inf)
 
 
+def _sig(x: float, digits: int = 6) -> float:
+    """A reported figure (not a decoding input) to ``digits`` significant digits: shorter JSON."""
+    return float(f"{x:.{digits}g}") if math.isfinite(x) else x
+
+
 def build_manifest(rec: Recording, spec, grids, scales, lpcs, tables, notes, W: int, K: int, decoder,
                    model_note: str, summaries: list[dict], archive_bytes: int) -> dict:
     """Everything a reader needs besides the Parquet members (whose checksums the writer adds).
@@ -48,9 +53,9 @@ def build_manifest(rec: Recording, spec, grids, scales, lpcs, tables, notes, W: 
                         "freqs": base64.b64encode(t.to_bytes()).decode("ascii")}
                        for (m, c), t in sorted(tables[j].tables.items())],
             "note": notes[j],
-            "summary": {"worst_error": s["worst_error"], "used_pct": used_pct(s["worst_error"], g.eps),
-                        "ratio": raw / share if share else math.inf,
-                        "bits_per_sample": 8 * share / max(rec.n_samples, 1),
+            "summary": {"worst_error": s["worst_error"], "used_pct": _sig(used_pct(s["worst_error"], g.eps)),
+                        "ratio": _sig(raw / share if share else math.inf),
+                        "bits_per_sample": _sig(8 * share / max(rec.n_samples, 1)),
                         "n_exceptions": s["n_exceptions"], "modes": s["modes"]},
         })
     return {
@@ -63,5 +68,5 @@ def build_manifest(rec: Recording, spec, grids, scales, lpcs, tables, notes, W: 
         "model": None if decoder is None else decoder.config(), "model_note": model_note,
         "channels": channels,
         "summary": {"raw_bytes": int(raw_bytes), "archive_bytes_before_manifest": int(archive_bytes),
-                    "ratio": raw_bytes / archive_bytes if archive_bytes else math.inf},
+                    "ratio": _sig(raw_bytes / archive_bytes if archive_bytes else math.inf)},
     }
