@@ -187,9 +187,10 @@ def test_reading_imports_neither_torch_nor_textual(small_archive):
 
 @pytest.mark.parametrize("threads", ["1", "2"])
 def test_decoding_is_identical_across_thread_counts(small_archive, threads, tmp_path):
-    code = ("import sys, hashlib, tsarchive; a = tsarchive.open(sys.argv[1]); "
-            "print(hashlib.sha256(b''.join(a.read(c.name).tobytes() for c in a.channels)).hexdigest())")
-    env = dict(os.environ, OMP_NUM_THREADS=threads, OPENBLAS_NUM_THREADS=threads, MKL_NUM_THREADS=threads)
+    code = ("import sys, hashlib, tsarchive; a = tsarchive.open(sys.argv[1]); r = a.read_many(); "
+            "print(hashlib.sha256(b''.join(r[c.name].tobytes() for c in a.channels)).hexdigest())")
+    env = dict(os.environ, OMP_NUM_THREADS=threads, OPENBLAS_NUM_THREADS=threads, MKL_NUM_THREADS=threads,
+               TSARCHIVE_THREADS=threads)
     out = subprocess.run([sys.executable, "-c", code, str(small_archive)], capture_output=True, text=True,
                          env=env, check=True).stdout.strip()
     ref = tsarchive.open(small_archive)
@@ -217,6 +218,16 @@ def test_long_reads_in_steps_give_the_same_samples(small_archive, monkeypatch):
     for (a, b), ref in zip(spans, whole):
         got = tsarchive.open(small_archive).read(meta.name, a, b)
         assert got.dtype == ref.dtype and np.array_equal(got, ref, equal_nan=True), (a, b)
+
+
+def test_thread_setting(monkeypatch):
+    from tsarchive.workers import workers
+    monkeypatch.setenv("TSARCHIVE_THREADS", "1")
+    assert workers(8) == 1
+    monkeypatch.setenv("TSARCHIVE_THREADS", "3")
+    assert workers(8) == 3 and workers(2) == 2
+    monkeypatch.setenv("TSARCHIVE_THREADS", "many")            # ignored, not fatal
+    assert workers(8) == min(8, os.cpu_count() or 1)
 
 
 def test_torch_and_numpy_inference_paths_agree(small_archive):

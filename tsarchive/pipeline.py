@@ -22,7 +22,6 @@ Reading reverses it in :mod:`tsarchive.store.reader` (numpy, pyarrow and the com
 from __future__ import annotations
 
 import math
-import os
 import threading
 import time
 from concurrent.futures import Future, ThreadPoolExecutor
@@ -41,6 +40,7 @@ from .predict import PREDICTORS
 from .quantize import MAX_MULT, Grid, make_grid, quantize
 from .recording import Recording
 from .results import ChannelSummary, PackResult, Progress, ProgressFn
+from .workers import workers as worker_count
 from .store.manifest import build_manifest
 from .store.writer import ArchiveWriter, check_target
 from .windows import DEFAULT_WINDOW, MAX_WINDOW, MIN_WINDOW, batches, channel_scale, levels, n_windows, normalise
@@ -424,7 +424,7 @@ def _encode(writer, rec: Recording, names, grids, W, model, scales, plans, table
         return pa.concat_tables(rows), pa.concat_tables(held), worst
 
     # channels are encoded side by side (numba and numpy release the GIL); rows are written in order
-    pool = ThreadPoolExecutor(max(1, min(len(names), os.cpu_count() or 1)))
+    pool = ThreadPoolExecutor(worker_count(len(names)))
     with pool:
         for w0 in range(0, nw, per_block):
             w1 = min(nw, w0 + per_block)
@@ -479,7 +479,7 @@ def _choose_window(rec: Recording, grids: list[Grid]) -> tuple[int, str]:
     est: dict[int, float] = {}
     for W in WINDOW_CHOICES:            # shortest first; stop once a longer window stops paying
         total = WINDOW_ROW_BYTES * C * (len(spans) * span // W)
-        with ThreadPoolExecutor(max(1, min(C, os.cpu_count() or 1))) as pool:   # channels side by side
+        with ThreadPoolExecutor(worker_count(C)) as pool:   # channels side by side
             total += sum(pool.map(lambda k: coded_bytes(sampled[:, :, k].reshape(-1, W), n // W, grids[chans[k]], W),
                                   range(C)))
         best_so_far = min(est.values(), default=math.inf)

@@ -8,7 +8,6 @@ place.
 
 from __future__ import annotations
 
-import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
@@ -19,6 +18,7 @@ from . import checksum
 from .errors import ArchiveCorrupt, BadInput
 from .recording import Recording
 from .results import ChannelCheck, Progress, VerifyReport
+from .workers import workers as worker_count
 
 CHUNK_SAMPLES = 1 << 20
 MAX_LISTED = 50  # failing windows listed per channel
@@ -46,7 +46,7 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
                 progress(Progress("verify", done[0], total, message))
 
     jobs = [(meta, None if rec is None else _column_index(rec, meta, j)) for j, meta in enumerate(arc.channels)]
-    workers = max(1, min(len(jobs), os.cpu_count() or 1))
+    workers = worker_count(len(jobs))
     if workers == 1:
         results = [_check_channel(arc, rec, meta, col, step) for meta, col in jobs]
     else:

@@ -12,7 +12,6 @@ import base64
 import binascii
 import json
 import math
-import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -31,6 +30,7 @@ from ..errors import ArchiveCorrupt, ArchiveNotFound, BadInput, FormatVersionErr
 from ..predict import Context, mode_name
 from ..predict.lpc import LpcCoefs
 from ..quantize import Grid, bits_to_values
+from ..workers import workers as worker_count
 from . import schema as S
 
 
@@ -368,7 +368,7 @@ class Archive:
         names = [c.name for c in self.channels] if channels is None else list(channels)
         for n in names:
             self.channel(n)
-        workers = max(1, min(len(names), workers or os.cpu_count() or 1))
+        workers = max(1, min(workers, len(names))) if workers else worker_count(len(names))
         if workers == 1:
             return {n: self.read(n, start, end) for n in names}
         self._row_groups, self._tables, self.decoder   # fill the lazy caches before the threads share them
