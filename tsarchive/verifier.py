@@ -50,7 +50,7 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
     if workers == 1:
         results = [_check_channel(arc, rec, meta, col, step) for meta, col in jobs]
     else:
-        arc._row_groups, arc._tables, arc.decoder   # fill the reader's lazy caches before the threads share it
+        arc.prepare_threads()
         with ThreadPoolExecutor(workers) as pool:  # channels decode independently: same result on any thread count
             results = list(pool.map(lambda job: _check_channel(arc, rec, job[0], job[1], step), jobs))
     checks = [c for c, _ in results]

@@ -371,9 +371,13 @@ class Archive:
         workers = max(1, min(workers, len(names))) if workers else worker_count(len(names))
         if workers == 1:
             return {n: self.read(n, start, end) for n in names}
-        self._row_groups, self._tables, self.decoder   # fill the lazy caches before the threads share them
+        self.prepare_threads()
         with ThreadPoolExecutor(workers) as pool:
             return dict(zip(names, pool.map(lambda n: self.read(n, start, end), names)))
+
+    def prepare_threads(self) -> None:
+        """Fill the lazy caches (row-group map, schema, tables, decoder) before threads share them."""
+        self._row_groups, self._schema, self._tables, self.decoder
 
     def preview(self, channel: str, start: float | None = None, end: float | None = None) -> np.ndarray:
         """Code-only reconstruction (no residuals), float64: what the codes alone say."""
@@ -460,6 +464,8 @@ def _lpc_sets(d) -> tuple[LpcCoefs, ...]:
 def _binary_parts(col) -> tuple[np.ndarray, np.ndarray]:
     """(data bytes uint8, offsets int64 with one entry more than rows) of a binary column, zero-copy."""
     arr = col.combine_chunks() if isinstance(col, pa.ChunkedArray) else col
+    if not len(arr):
+        return np.zeros(0, np.uint8), np.zeros(1, np.int64)
     if arr.null_count:
         raise ArchiveCorrupt("windows.parquet has a window without a residual payload; the archive is damaged")
     _, obuf, dbuf = arr.buffers()
