@@ -348,6 +348,8 @@ def test_window_length_stays_short_on_noise_and_when_given(tmp_path):
     assert tsarchive.open(out).window == pipeline.DEFAULT_WINDOW     # the saving is inside the margin
     _, out, _ = _pack(tmp_path, _steps(), budget="1%", window=512, name="given")
     assert tsarchive.open(out).window == 512                         # an explicit window is kept
+    _, out, _ = _pack(tmp_path, _steps(), budget="1%", window=None, code_size=4, name="coded")
+    assert tsarchive.open(out).window == pipeline.DEFAULT_WINDOW     # codes asked for: finer segments
     events = []
     _, out, _ = _pack(tmp_path, x[:20_000], window=None, name="short", progress=events.append)
     assert tsarchive.open(out).window == pipeline.DEFAULT_WINDOW

@@ -37,7 +37,9 @@ def _parser() -> argparse.ArgumentParser:
                     help=f"error budget per channel: 0.02 (absolute, channel units), 0.1%% (of the channel's "
                          f"range), lossless, or per channel temp=0.05,accel=0.1%% (default: {DEFAULT_SPEC.replace('%', '%%')})")
     pk.add_argument("--rate", type=float, metavar="HZ", help="sample rate (required for .npy)")
-    pk.add_argument("--window", type=int, metavar="N", help="samples per window (default: 1024 to 8192, whichever is estimated smallest)")
+    pk.add_argument("--window", type=int, metavar="N",
+                    help="samples per window (default: 1024 to 8192, whichever is estimated smallest; "
+                         "1024 with --code-size K > 0)")
     pk.add_argument("--code-size", type=int, metavar="K",
                     help="autoencoder code length per window (default: auto = 8, and the autoencoder is kept only "
                          "where it saves more than its weights and codes cost; an explicit K always keeps it, "

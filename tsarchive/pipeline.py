@@ -82,7 +82,9 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     code size a probe model is trained for ``PROBE_SECONDS`` first and the
     full run happens only if the probe already saves ``PROBE_SHARE`` of the
     model's own bytes.  ``window=None`` picks the window length of
-    ``WINDOW_CHOICES`` that a planned and coded sample says is smallest.
+    ``WINDOW_CHOICES`` that a planned and coded sample says is smallest
+    (``DEFAULT_WINDOW`` when a code size > 0 is given: codes are asked for to
+    browse by them, in the finer segments).
     """
     t0 = time.perf_counter()
     emit = _emitter(progress, cancel)
@@ -93,9 +95,10 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     names = [c.name for c in rec.channels]
     spec = parse_budget_spec(budget)
     spec.check_names(names)
-    W = _window(window, rec.n_samples) if window is not None else 0   # 0: chosen below from a sample
     K = _code_size(code_size)
     explicit = code_size is not None
+    # 0: chosen below from a sample; codes asked for (browsing by codes) keep the finer default segments
+    W = _window(window, rec.n_samples) if window is not None else (DEFAULT_WINDOW if explicit and K else 0)
     probe = not explicit and train_seconds > PROBE_SECONDS
 
     # The autoencoder trains on a second thread (torch releases the GIL) while this one plans and,
