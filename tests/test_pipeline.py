@@ -356,6 +356,22 @@ def test_window_length_stays_short_on_noise_and_when_given(tmp_path):
     assert any("too short a recording" in e.message for e in events)
 
 
+def test_no_training_when_even_a_perfect_model_could_not_pay(tmp_path):
+    # Piecewise-constant levels at 1 %: all the residuals together cost less than a quarter of what the
+    # model's weights and codes would, so the trainer is stopped before it runs an epoch.
+    x = _steps()
+    src = tmp_path / "s.npy"
+    np.save(src, x)
+    events = []
+    tsarchive.pack(src, tmp_path / "s.tsa", "1%", rate=100.0, train_seconds=600, progress=events.append)
+    arc = tsarchive.open(tmp_path / "s.tsa")
+    assert arc.manifest["model"] is None
+    assert arc.manifest["model_note"].startswith("autoencoder left out without training")
+    assert not any(e.stage == "train" and e.message.startswith("epoch") for e in events)
+    assert pipeline._payload_ceiling([pipeline.ChannelPlan((), None, None, 0.0, 8.0e3)], 100, 10) == 1.0e4
+    _assert_within(x, arc)
+
+
 def test_logged_resolution_multiplier_is_found_and_kept_exact(tmp_path):
     # An ADC with 0.005 mV steps logged with three decimals: every value is 5 units of 0.001, so the lossless
     # grid counts in steps of 0.005 (q = x * 1000 / 5) and still gives back the very doubles.

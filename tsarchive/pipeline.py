@@ -128,10 +128,17 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
                                      model, scales[j], None if base is None else base[j])
                         for j in range(len(names))]
 
+            hopeless = threading.Event()      # set when even a perfect model could not pay: training stops
+
             def train_and_plan(seconds: float, threads: int | None):
                 # the training windows live only while training (a full run after a probe makes them again)
-                model = _train(rec, _training_set(sampled, grids, W, len(names))[1], W, K, emit, seconds, seed,
-                               threads)
+                try:
+                    model = _train(rec, _training_set(sampled, grids, W, len(names))[1], W, K, emit, seconds, seed,
+                                   threads, cancel=_Either(emit, hopeless))
+                except Cancelled:
+                    if hopeless.is_set() and not emit.is_set():
+                        return None, None
+                    raise
                 _release_memory()
                 if model is None:
                     return None, None
@@ -145,6 +152,11 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
             plain = plan(None)
             plain_ready.set_result(plain)
             _release_memory()
+            # the model can save at most the whole residual payload: when that is below its own bytes, stop it
+            ceiling = _payload_ceiling(plain, nwin, len(sample) + (tail is not None))
+            bound = _model_bytes(rec, W, K, nwin)
+            if not explicit and K and ceiling <= (PROBE_SHARE if probe else 1.0) * bound:
+                hopeless.set()
             job = dict(archive=archive, force=force, rec=rec, spec=spec, grids=grids, scales=scales, notes=notes,
                        names=names, W=W, K=K, emit=emit, progress=progress)
 
@@ -159,8 +171,16 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
                 model, plans, gain, cost, _ = judged()
                 manifest = _write(job, *_kept(model, plans, plain, gain, cost, True, False))
             else:
+                if hopeless.is_set():
+                    note = (f"autoencoder left out without training: even a perfect one could save at most "
+                            f"{ceiling:.0f} B (a generous estimate of all its residuals), below "
+                            f"{'a quarter of ' if probe else ''}"
+                            f"the {bound:.0f} B of its weights and codes")
+                    decide = (lambda: note)
+                else:
+                    decide = (lambda: _decide(judged, plain, probe))
                 try:
-                    manifest = _write(job, None, plain, None, decide=lambda: _decide(judged, plain, probe))
+                    manifest = _write(job, None, plain, None, decide=decide)
                 except _WorthAModel as better:
                     model, plans = better.model, better.plans
                     if probe:
@@ -182,6 +202,30 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     return PackResult(archive=archive, channels=tuple(_summary(m) for m in arc.channels),
                       source_bytes=manifest["source"]["bytes"], raw_bytes=manifest["summary"]["raw_bytes"],
                       archive_bytes=arc.archive_bytes, ratio=arc.ratio, elapsed_s=time.perf_counter() - t0)
+
+
+class _Either:
+    """A cancel flag that is set when either of two flags is."""
+
+    def __init__(self, a, b) -> None:
+        self.a, self.b = a, b
+
+    def is_set(self) -> bool:
+        return self.a.is_set() or self.b.is_set()
+
+
+def _payload_ceiling(plans: list[ChannelPlan], nwin: int, sampled: int) -> float:
+    """Estimated bytes of all residuals without a model (the proxy over-counts sparse residuals, so
+    this is generous): no model can save more than this."""
+    return sum(p.plain_bits for p in plans) * nwin / max(sampled, 1) / 8
+
+
+def _model_bytes(rec: Recording, W: int, K: int, nwin: int) -> float:
+    """Bytes of the decoder's weights and the codes that a model for this recording would cost."""
+    from .model.spec import choose_hidden, decoder_params
+    C = len(rec.channels)
+    hidden = choose_hidden(max((rec.n_samples // W) * C, 1), W, max(K, 1), budget=DECODER_SHARE)
+    return BYTES_PER_PARAM * decoder_params(max(K, 1), hidden, W) + BITS_PER_CODE / 8 * K * nwin * C
 
 
 class _WorthAModel(Exception):
@@ -360,7 +404,7 @@ def _training_set(sampled: np.ndarray, grids: list[Grid], W: int, C: int):
 
 
 def _train(rec: Recording, xs: list[np.ndarray], W: int, K: int, emit, seconds: float, seed: int,
-           threads: int | None = None):
+           threads: int | None = None, cancel=None):
     """The autoencoder, or None when the recording is too short for one (or no code is asked for)."""
     C = len(rec.channels)
     from .model.spec import choose_hidden, decoder_params
@@ -380,7 +424,7 @@ def _train(rec: Recording, xs: list[np.ndarray], W: int, K: int, emit, seconds: 
     X = np.concatenate(xs)
     emit("train", 0, 1, f"training on {len(X)} windows")
     return train_autoencoder(X, K, hidden=hidden, time_limit_s=seconds, seed=seed, progress=on_epoch,
-                             cancel=emit, max_windows=TRAIN_WINDOWS, threads=threads)
+                             cancel=emit if cancel is None else cancel, max_windows=TRAIN_WINDOWS, threads=threads)
 
 
 def _model_account(model, plans: list[ChannelPlan], nwin: int, K: int) -> tuple[float, float]:
