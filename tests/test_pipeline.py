@@ -366,7 +366,7 @@ def test_no_training_when_even_a_perfect_model_could_not_pay(tmp_path):
     tsarchive.pack(src, tmp_path / "s.tsa", "1%", rate=100.0, train_seconds=600, progress=events.append)
     arc = tsarchive.open(tmp_path / "s.tsa")
     assert arc.manifest["model"] is None
-    assert arc.manifest["model_note"].startswith("autoencoder left out without training")
+    assert arc.manifest["model_note"].startswith("autoencoder not trained: at most")
     assert not any(e.stage == "train" and e.message.startswith("epoch") for e in events)
     assert pipeline._payload_ceiling([pipeline.ChannelPlan((), None, None, 0.0, 8.0e3)], 100, 10) == 1.0e4
     _assert_within(x, arc)

@@ -172,10 +172,8 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
                 manifest = _write(job, *_kept(model, plans, plain, gain, cost, True, False))
             else:
                 if hopeless.is_set():
-                    note = (f"autoencoder left out without training: even a perfect one could save at most "
-                            f"{ceiling:.0f} B (a generous estimate of all its residuals), below "
-                            f"{'a quarter of ' if probe else ''}"
-                            f"the {bound:.0f} B of its weights and codes")
+                    note = (f"autoencoder not trained: at most {ceiling:.0f} B to save, below "
+                            f"{'1/4 of ' if probe else ''}its {bound:.0f} B")
                     decide = (lambda: note)
                 else:
                     decide = (lambda: _decide(judged, plain, probe))
