@@ -104,75 +104,43 @@ def _encode_kernel(values, bounds, center, d, m, cum, freq):
                     scale = rng >> u64(PRECISION)
                     new_lower = lower + scale * c
                     if new_lower < lower:            # carry into the words already written
-                        j = pos - 1
-                        while j >= start:
-                            out[j] = np.uint8((np.int64(out[j]) + 1) & 0xFF)
-                            if out[j] != 0:
-                                break
-                            j -= 1
+                        _carry(out, start, pos)
                     lower = new_lower
                     rng = scale * f
                     if rng < W32:
-                        if pos + 4 > out.shape[0]:
-                            bigger = np.empty(out.shape[0] * 2, np.uint8)
-                            bigger[:pos] = out[:pos]
-                            out = bigger
-                        word = lower >> u64(32)
-                        out[pos] = np.uint8((word >> u64(24)) & u64(0xFF))
-                        out[pos + 1] = np.uint8((word >> u64(16)) & u64(0xFF))
-                        out[pos + 2] = np.uint8((word >> u64(8)) & u64(0xFF))
-                        out[pos + 3] = np.uint8(word & u64(0xFF))
+                        out = _room(out, pos, 4)
+                        _put_word(out, pos, lower >> u64(32))
                         pos += 4
                         lower = lower << u64(32)
                         rng = rng << u64(32)
-        if pos + 16 > out.shape[0]:
-            bigger = np.empty(out.shape[0] * 2 + 16, np.uint8)
-            bigger[:pos] = out[:pos]
-            out = bigger
+        out = _room(out, pos, 16)
         if b > a:
             # termination: the shortest bytes selecting a point of [lower, lower + range)
             if lower > M64 - mask32:
                 # the interval reaches past 2**64: the sealing point carries (constriction's own seal words)
-                point = lower + mask32
-                j = pos - 1
-                while j >= start:
-                    out[j] = np.uint8((np.int64(out[j]) + 1) & 0xFF)
-                    if out[j] != 0:
-                        break
-                    j -= 1
-                pw = point >> u64(32)
-                for t in range(4):
-                    out[pos + t] = np.uint8((pw >> u64(24 - 8 * t)) & u64(0xFF))
+                _carry(out, start, pos)
+                pw = (lower + mask32) >> u64(32)
+                _put_word(out, pos, pw)
                 pos += 4
                 if ((lower + rng) >> u64(32)) == pw:
-                    for t in range(4):
-                        out[pos + t] = 0
+                    _put_word(out, pos, u64(0))
                     pos += 4
             else:
                 if rng - ONE > M64 - lower:
                     hi = M64
                 else:
                     hi = lower + rng - ONE
-                if lower == u64(0):
-                    kk = 0
-                    qv = u64(0)
-                else:
-                    kk = 1
-                    while kk < 8:
-                        s = u64(64 - 8 * kk)
-                        cnum = lower >> s
-                        if (lower & ((ONE << s) - ONE)) != u64(0):
-                            cnum += ONE
-                        if cnum < (ONE << u64(8 * kk)) and (cnum << s) <= hi:
-                            break
-                        kk += 1
-                    if kk == 8:
-                        qv = lower
-                    else:
-                        cnum = lower >> u64(64 - 8 * kk)
-                        if (lower & ((ONE << u64(64 - 8 * kk)) - ONE)) != u64(0):
-                            cnum += ONE
-                        qv = cnum
+                # k bytes hold lower rounded up to a multiple of 2**(64-8k), if that is <= hi (k = 8: lower)
+                kk = 0 if lower == u64(0) else 8
+                qv = lower
+                for k in range(1, 8 if kk else 0):
+                    s = u64(64 - 8 * k)
+                    cnum = lower >> s
+                    if (lower & ((ONE << s) - ONE)) != u64(0):
+                        cnum += ONE
+                    if cnum < (ONE << u64(8 * k)) and (cnum << s) <= hi:
+                        kk, qv = k, cnum
+                        break
                 for t in range(kk):
                     out[pos + t] = np.uint8((qv >> u64(8 * (kk - 1 - t))) & u64(0xFF))
                 pos += kk
@@ -180,6 +148,31 @@ def _encode_kernel(values, bounds, center, d, m, cum, freq):
                 pos -= 1
         ob[w + 1] = pos
     return out[:pos].copy(), ob
+
+
+def _carry_py(out, start, pos):
+    """Add 1 to the big-endian number in ``out[start:pos]`` (a carry into the words already written)."""
+    j = pos - 1
+    while j >= start:
+        out[j] = np.uint8((np.int64(out[j]) + 1) & 0xFF)
+        if out[j] != 0:
+            break
+        j -= 1
+
+
+def _put_word_py(out, pos, word):
+    """Write the 32-bit ``word`` big-endian at ``out[pos:pos+4]``."""
+    for t in range(4):
+        out[pos + t] = np.uint8((word >> np.uint64(24 - 8 * t)) & np.uint64(0xFF))
+
+
+def _room_py(out, pos, need):
+    """``out`` with room for ``need`` more bytes after ``pos`` (a doubled copy when short)."""
+    if pos + need <= out.shape[0]:
+        return out
+    bigger = np.empty(out.shape[0] * 2 + need, np.uint8)
+    bigger[:pos] = out[:pos]
+    return bigger
 
 
 def _word_py(buf, p, end, idx):
@@ -193,7 +186,9 @@ def _word_py(buf, p, end, idx):
     return v
 
 
-_word = _word_py        # the decoder's helper; compiled and rebound by _kernels()
+# the kernels' helpers, compiled and rebound by _kernels()
+_carry, _put_word, _room, _word = _carry_py, _put_word_py, _room_py, _word_py
+_HELPERS = ("_carry", "_put_word", "_room", "_word")
 
 
 def _decode_kernel(buf, starts, ends, bounds, center, d, m, cum, freq, lut, values):
@@ -216,7 +211,6 @@ def _decode_kernel(buf, starts, ends, bounds, center, d, m, cum, freq, lut, valu
         widx = 2
         lower = u64(0)
         rng = M64
-        nbig = 0
         for i in range(a, b):                     # tokens
             scale = rng >> u64(PRECISION)
             q = (point - lower) // scale
@@ -233,13 +227,6 @@ def _decode_kernel(buf, starts, ends, bounds, center, d, m, cum, freq, lut, valu
                 point = (point << u64(32)) | _word(buf, p, end, widx)
                 widx += 1
             values[i] = np.int64(t)
-            if u64(t) >= big0:
-                nbig += 1
-        if nbig == 0:
-            for i in range(a, b):
-                x = u64(values[i])
-                values[i] = np.int64(((x >> ONE) ^ (u64(0) - (x & ONE))) + cu)
-            continue
         for i in range(a, b):                     # raw-bit chunks of the binned tokens, in order
             t = u64(values[i])
             if t < big0:
@@ -284,13 +271,16 @@ def _kernels():
         from numba import njit
     except ImportError:
         return None
-    global _word
     try:
-        _word = njit(cache=True, nogil=True)(_word_py)
-        return njit(cache=True, nogil=True)(_encode_kernel), njit(cache=True, nogil=True)(_decode_kernel)
+        return _compile(njit, cache=True)
     except RuntimeError:                     # no writable cache directory: compile once per process
-        _word = njit(nogil=True)(_word_py)
-        return njit(nogil=True)(_encode_kernel), njit(nogil=True)(_decode_kernel)
+        return _compile(njit, cache=False)
+
+
+def _compile(njit, cache: bool):
+    for name in _HELPERS:                    # the kernels call these globals: compiled ones first
+        globals()[name] = njit(cache=cache, nogil=True)(globals()[name + "_py"])
+    return njit(cache=cache, nogil=True)(_encode_kernel), njit(cache=cache, nogil=True)(_decode_kernel)
 
 
 def available() -> bool:
