@@ -93,11 +93,17 @@ def coded_bytes(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int) -
     plan = plan_channel(windows, None, n_total_windows, grid, W, None, 1)
     q, _, _, lv, _, _ = predict_batch(windows, grid, W, None, 1)
     modes, classes, res, _ = choose_modes(q, Context(lv, None, plan.lpc), plan.tables)
-    total = 0
+    return sum(len(p) for p in code_windows(modes, classes, res, plan.tables))
+
+
+def code_windows(modes: np.ndarray, classes: np.ndarray, res: np.ndarray, tables: TableSet) -> list[bytes]:
+    """Each window's residuals range coded under its (predictor, class) table, in window order."""
+    payloads: list[bytes] = [b""] * len(res)
     for m, k in set(zip(modes.tolist(), classes.tolist())):
-        sel = (modes == m) & (classes == k)
-        total += sum(len(b) for b in entropy.encode_many(res[sel], plan.tables[(m, k)]))
-    return total
+        sel = np.flatnonzero((modes == m) & (classes == k))
+        for i, p in zip(sel, entropy.encode_many(res[sel], tables[(m, k)])):
+            payloads[i] = p
+    return payloads
 
 
 def _tables(batches, lpc, use_ae: bool) -> tuple[TableSet, float]:
@@ -145,11 +151,7 @@ def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int
     nb, L = x.shape
     q, pos, bits, lv, codes, ae = predict_batch(x, grid, W, model, scale)
     modes, classes, res, sets = choose_modes(q, Context(lv, ae, lpc), tables)
-    payloads: list[bytes] = [b""] * nb
-    for m, k in set(zip(modes.tolist(), classes.tolist())):
-        sel = np.flatnonzero((modes == m) & (classes == k))
-        for i, p in zip(sel, entropy.encode_many(res[sel], tables[(m, k)])):
-            payloads[i] = p
+    payloads = code_windows(modes, classes, res, tables)
     xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
     x64, xh64 = x.astype(np.float64), xh.astype(np.float64)
     with np.errstate(invalid="ignore", over="ignore"):

@@ -208,16 +208,14 @@ def decode_flat(buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, lengths, 
     starts = np.ascontiguousarray(starts, np.int64)
     ends = np.ascontiguousarray(ends, np.int64)
     lengths = np.broadcast_to(np.asarray(lengths, dtype=np.int64), (len(starts),))
+    if len(starts) and not (starts.min() >= 0 and ends.max() <= len(buf) and (ends >= starts).all()):
+        raise _corrupt("range-coded window bounds fall outside the payload bytes")
     if not rangecoder.available():
-        if len(starts) and not (starts.min() >= 0 and ends.max() <= len(buf) and (ends >= starts).all()):
-            raise _corrupt("range-coded window bounds fall outside the payload bytes")
         parts = decode_reference([bytes(buf[a:b]) for a, b in zip(starts.tolist(), ends.tolist())], lengths, table,
                                  strict)
         return np.concatenate(parts) if parts else np.zeros(0, np.int64)
     if len(lengths) and not (lengths.min() >= 0 and lengths.max() <= _MAX_N):
         raise _corrupt(f"window lengths {lengths.min()}..{lengths.max()} are out of range")
-    if len(starts) and not (starts.min() >= 0 and ends.max() <= len(buf) and (ends >= starts).all()):
-        raise _corrupt("range-coded window bounds fall outside the payload bytes")
     nonempty = np.flatnonzero(ends > starts)
     zero_end = nonempty[buf[ends[nonempty] - 1] == 0] if len(nonempty) else nonempty
     if len(zero_end):

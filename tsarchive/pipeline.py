@@ -119,7 +119,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
             # windows -> a bounded sample (for training and planning) -> per-channel scales
             sample = sample_windows(rec.n_samples, W, max(1, TABLE_SAMPLES // W))
             sampled = _gather(rec, sample, W)
-            scales = _training_set(sampled, grids, W, len(rec.channels))[0]
+            scales = _training_set(sampled, grids, W, len(rec.channels), windows=False)[0]
             tail = _tail(rec, W)
             nwin = n_windows(rec.n_samples, W)
 
@@ -384,8 +384,9 @@ def _tail(rec: Recording, W: int) -> np.ndarray | None:
     return rec.rows((n // W) * W, n) if n % W else None
 
 
-def _training_set(sampled: np.ndarray, grids: list[Grid], W: int, C: int):
-    """Per-channel scales and the normalised training windows of a bounded pick of the sample."""
+def _training_set(sampled: np.ndarray, grids: list[Grid], W: int, C: int, windows: bool = True):
+    """Per-channel scales and (with ``windows``) the normalised training windows of a bounded pick
+    of the sample."""
     per_channel = max(1, TRAIN_WINDOWS // max(C, 1))
     pick = np.unique(np.linspace(0, len(sampled) - 1, min(len(sampled), per_channel)).round().astype(np.int64)) \
         if len(sampled) else np.zeros(0, np.int64)
@@ -396,7 +397,7 @@ def _training_set(sampled: np.ndarray, grids: list[Grid], W: int, C: int):
         lv = levels(q) if len(q) else np.zeros(0, np.int64)
         scale = channel_scale(q, lv)
         scales.append(scale)
-        if len(q) and scale <= FRAC_SAFE_SCALE:
+        if windows and len(q) and scale <= FRAC_SAFE_SCALE:
             xs.append(normalise(q, lv, scale, W))
     return scales, xs
 
