@@ -163,3 +163,60 @@ def test_numba_residuals_equal_the_numpy_reference(order, n):
     q = _residuals(rng, 9, n)   # any int64 windows within the predictor's bounds
     level = rng.integers(-1000, 1000, size=9)
     _same(lpc.residuals(q, level, c), lpc._residuals_numpy(q - level[:, None], c))
+
+
+# The kernels keep a window's history in int32 while its values fit (|y| < 2**31) and redo the
+# window on int64 otherwise; these check both sides of that edge against the numpy reference.
+
+NARROW_EDGES = (-lpc.NARROW - 1, -lpc.NARROW, lpc.NARROW - 1, lpc.NARROW)
+
+
+@pytest.mark.parametrize("tiny", [False, True])
+@pytest.mark.parametrize("order", [1, 2, 4, 5, 16, 32])
+@pytest.mark.parametrize("edge", NARROW_EDGES)
+def test_int32_history_edge_round_trips(order, edge, tiny):
+    rng = np.random.default_rng(order * 31 + (edge & 0xFF))
+    n = 300
+    y = rng.integers(-50, 51, size=(6, n))
+    y[1, 0] = edge                       # first sample
+    y[2, n // 2] = edge                  # mid-window: the window leaves the int32 path part way
+    y[3, n - 1] = edge                   # last sample
+    y[4, :] = edge                       # every sample
+    level = rng.integers(-1000, 1000, size=6)
+    q = level[:, None] + y
+    # tiny coefficients: a history value wrapped to int32 would shift a prediction by only
+    # |A_k| * 2**18 and keep it in int32, so a wrong edge test would show in the output
+    c = lpc.LpcCoefs(tuple(int(a) for a in rng.integers(-2, 3, order))) if tiny else _coefs(rng, order)
+    r = lpc.residuals(q, level, c)
+    _same(r, lpc._residuals_numpy(y, c))
+    _same(lpc.reconstruct(r, level, c), q)
+    _same(lpc.reconstruct(r, level, c), lpc._reconstruct_numpy(r, level, c))
+
+
+@pytest.mark.parametrize("order", [1, 3, 8, 32])
+def test_recursion_that_grows_past_int32_mid_window(order):
+    # A_1 = 2: from small residuals the decoded values double every sample, so they pass 2**31
+    # after about 30 samples and the kernel must finish the window on int64 with the same bits
+    coefs = (2 << lpc.SHIFT,) + (0,) * (order - 1)
+    c = lpc.LpcCoefs(coefs)
+    rng = np.random.default_rng(order)
+    r = rng.integers(-3, 4, size=(5, 80))
+    r[0] = 0                              # stays at zero: the int32 path throughout
+    level = rng.integers(-10, 10, size=5)
+    got = lpc.reconstruct(r, level, c)
+    _same(got, lpc._reconstruct_numpy(r, level, c))
+    assert np.abs(got[1:] - level[1:, None]).max() >= lpc.NARROW    # the fallback did run
+
+
+def test_fitted_predictor_on_a_smooth_signal_round_trips():
+    # the common case, all windows on the int32 path: a fitted order-32 predictor on a noisy sum of tones
+    rng = np.random.default_rng(5)
+    t = np.arange(8 * 4096)
+    x = np.rint(3000 * np.sin(t / 37.0) + 800 * np.sin(t / 5.3) + rng.normal(0, 4, t.size)).astype(np.int64)
+    q = x.reshape(8, 4096)
+    level = q[:, 0].copy()
+    c = lpc.fit(q, level, lambda res: np.log2(1 + 2 * np.abs(res)).sum(axis=1))
+    assert c.order >= 4
+    r = lpc.residuals(q, level, c)
+    _same(r, lpc._residuals_numpy(q - level[:, None], c))
+    _same(lpc.reconstruct(r, level, c), q)

@@ -170,7 +170,7 @@ def residuals(q: np.ndarray, level: np.ndarray, lpc: LpcCoefs) -> np.ndarray:
     if kernels is None:
         return _residuals_numpy(y, lpc)
     r = np.empty(y.shape, dtype=np.int64)
-    kernels[1](np.ascontiguousarray(y, dtype=np.int64), np.array(lpc.coefs[::-1], dtype=np.int64), lpc.shift, r)
+    kernels[1](np.ascontiguousarray(y, dtype=np.int64), _reversed(lpc), lpc.shift, r)
     return r
 
 
@@ -192,7 +192,7 @@ def reconstruct(r: np.ndarray, level: np.ndarray, lpc: LpcCoefs) -> np.ndarray:
         return _reconstruct_numpy(r, level, lpc)
     y = np.empty(r.shape, dtype=np.int64)
     # int64 and C order always, so numba compiles (or loads) one specialisation only
-    kernels[0](np.ascontiguousarray(r, dtype=np.int64), np.array(lpc.coefs[::-1], dtype=np.int64), lpc.shift, y)
+    kernels[0](np.ascontiguousarray(r, dtype=np.int64), _reversed(lpc), lpc.shift, y)
     return level[:, None] + y
 
 
@@ -217,27 +217,63 @@ def _reconstruct_numpy(r: np.ndarray, level: np.ndarray, lpc: LpcCoefs) -> np.nd
     return level[:, None] + y.T
 
 
+NARROW = 1 << 31            # |y| below this: the kernels keep the history in int32 (int32 x int32 products)
+SCALAR_LAGS = 4            # the reconstruction kernel holds this many latest lags in registers
+
+
+def _reversed(lpc: LpcCoefs) -> np.ndarray:
+    """The kernels' coefficients: reversed (``rev[p-k] = A_k``), zero-padded in front to at least
+    ``SCALAR_LAGS + 1`` lags (a zero coefficient on a zero history adds an exact 0)."""
+    rev = np.array(lpc.coefs[::-1], dtype=np.int64)
+    return np.concatenate([np.zeros(max(0, SCALAR_LAGS + 1 - len(rev)), np.int64), rev])
+
+
 def _reconstruct_kernel(r, rev, shift, y):
     """``y[w, i] = r[w, i] + ((half + Σ_{k<=min(p,i)} A_k y[w, i-k]) >> shift)``, windows outer (numba).
 
-    ``rev`` holds the ``p >= 1`` coefficients reversed (``rev[p-k] = A_k``) and
+    ``rev`` holds the coefficients reversed (``rev[p-k] = A_k``, ``p > SCALAR_LAGS``) and
     the history ``h`` has ``p`` zeros before the window's ``y``, so the sum
     walks ``h[i:i+p]`` forwards and lags ``k > i`` meet zeros (windows shorter
     than ``p`` included).  Zero coefficients and zero history add an exact 0,
     int64 addition wraps modulo 2**64 so the order of the sum cannot change a
     bit, and ``>>`` on int64 is arithmetic: the numpy path's bits exactly.
+
+    Speed: while a window's values fit in int32 (|y| < 2**31, the usual case)
+    its history is kept as int32, so each product is an exact int32 x int32 ->
+    int64 multiply (one vector instruction), and the latest ``SCALAR_LAGS``
+    values stay in registers (a vector load of a value stored a moment ago
+    stalls).  The first value outside int32 sends the window back to the plain
+    int64 loop from its start: the same integers either way.
     """
     p = rev.shape[0]
+    n = r.shape[1]
     half = np.int64(1) << (shift - 1)
-    h = np.zeros(p + r.shape[1], dtype=np.int64)   # h[p + i] = y[w, i]; h[:p] stays 0
+    rv = rev.astype(np.int32)                        # |A_k| <= MAX_COEF < 2**31
+    a1, a2, a3, a4 = rev[p - 1], rev[p - 2], rev[p - 3], rev[p - 4]
+    h32 = np.zeros(p + n, dtype=np.int32)            # h32[p + i] = y[w, i]; h32[:p] stays 0
+    h = np.zeros(p + n, dtype=np.int64)
     for w in range(r.shape[0]):
-        for i in range(r.shape[1]):
+        narrow = True
+        y1 = y2 = y3 = y4 = np.int64(0)
+        for i in range(n):
             acc = half
-            for j in range(p - 1):                 # lags p … 2
+            for j in range(p - 4):                   # lags p … 5
+                acc += np.int64(rv[j]) * np.int64(h32[i + j])
+            acc += a4 * y4 + a3 * y3 + a2 * y2
+            acc += a1 * y1
+            v = r[w, i] + (acc >> shift)
+            if v >= NARROW or v < -NARROW:
+                narrow = False
+                break
+            h32[p + i] = np.int32(v)
+            y[w, i] = v
+            y4, y3, y2, y1 = y3, y2, y1, v
+        if narrow:
+            continue
+        for i in range(n):                           # the same recursion on int64 throughout
+            acc = half
+            for j in range(p):
                 acc += rev[j] * h[i + j]
-            # lag 1 apart and last: its value was stored just now, and keeping it out of the
-            # (vectorised) loop above avoids a store-forwarding stall (about 1.5x faster)
-            acc += rev[p - 1] * h[i + p - 1]
             h[p + i] = r[w, i] + (acc >> shift)
             y[w, i] = h[p + i]
 
@@ -245,20 +281,42 @@ def _reconstruct_kernel(r, rev, shift, y):
 def _residuals_kernel(y, rev, shift, r):
     """``r[w, i] = y[w, i] - ((half + Σ_{k<=min(p,i)} A_k y[w, i-k]) >> shift)`` (numba; same bits as numpy).
 
-    As in :func:`_reconstruct_kernel`, a history with ``p`` leading zeros gives
-    every sample the same fixed-length (vectorisable) sum.
+    A window whose values fit in int32 is filtered lag by lag over the whole
+    window (``acc[i] += A_k * y[i-k]`` vectorises across ``i``, int32 x int32
+    -> int64); otherwise, as in :func:`_reconstruct_kernel`, sample by sample
+    on int64.  Either way a history with ``p`` leading zeros gives every
+    sample the same fixed-length sum.
     """
     p = rev.shape[0]
     n = y.shape[1]
     half = np.int64(1) << (shift - 1)
+    rv = rev.astype(np.int32)
+    h32 = np.zeros(p + n, dtype=np.int32)
     h = np.zeros(p + n, dtype=np.int64)
+    acc = np.empty(n, dtype=np.int64)
     for w in range(y.shape[0]):
+        narrow = True
+        for i in range(n):
+            v = y[w, i]
+            if v >= NARROW or v < -NARROW:
+                narrow = False
+                break
+            h32[p + i] = np.int32(v)
+        if narrow:
+            acc[:] = half
+            for j in range(p):                       # lag p - j
+                a = np.int64(rv[j])
+                for i in range(n):
+                    acc[i] += a * np.int64(h32[i + j])
+            for i in range(n):
+                r[w, i] = y[w, i] - (acc[i] >> shift)
+            continue
         h[p:] = y[w]
         for i in range(n):
-            acc = half
-            for j in range(p):                     # lag p - j
-                acc += rev[j] * h[i + j]
-            r[w, i] = h[p + i] - (acc >> shift)
+            s = half
+            for j in range(p):
+                s += rev[j] * h[i + j]
+            r[w, i] = h[p + i] - (s >> shift)
 
 
 @cache
