@@ -25,6 +25,7 @@ MAX_Y = 1 << 36            # windows with larger deviations do not use this pred
 MAX_ORDER = 32
 ORDERS = (2, 4, 8, 16, 32)
 FIT_ROWS = 50_000          # regression rows: plenty for at most 32 coefficients
+SCORE_SAMPLES = 1 << 17    # the candidate orders are scored on windows holding about this many samples
 
 
 @dataclass(frozen=True)
@@ -66,6 +67,17 @@ def _design(y: np.ndarray, order: int, rows: int) -> tuple[np.ndarray, np.ndarra
     return X, y[w, i]
 
 
+def _windows_for(samples: int, n: int, least: int) -> int:
+    """How many windows of ``n`` samples hold about ``samples`` (at least ``least``): a sample
+    bounded in samples, not in windows, costs the same whatever the window length."""
+    return max(least, samples // max(n, 1))
+
+
+def _spread(total: int, count: int) -> np.ndarray:
+    """Up to ``count`` indices spread evenly over ``range(total)``."""
+    return np.unique(np.linspace(0, total - 1, min(total, count)).astype(np.int64))
+
+
 def _coefs(a: np.ndarray) -> LpcCoefs:
     A = np.clip(np.rint(a * (1 << SHIFT)), -MAX_COEF, MAX_COEF).astype(np.int64)
     return LpcCoefs(tuple(int(v) for v in A))
@@ -76,7 +88,8 @@ def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
 
     Least squares by the covariance method: one Gram matrix of the largest
     order serves every order (its leading block), solved with
-    numpy.linalg.lstsq; each order is then scored on up to 128 windows.
+    numpy.linalg.lstsq; each order is then scored on evenly spread windows
+    holding about :data:`SCORE_SAMPLES` samples.
     """
     ok = usable(q, level)
     q, level = q[ok], level[ok]
@@ -86,7 +99,7 @@ def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
     y = (q - level[:, None]).astype(np.float64)
     X, t = _design(y, orders[-1], FIT_ROWS)
     G, g = X.T @ X, X.T @ t
-    score = np.unique(np.linspace(0, len(q) - 1, min(len(q), 128)).astype(np.int64))
+    score = _spread(len(q), _windows_for(SCORE_SAMPLES, q.shape[1], 16))
     qs, ls = q[score], level[score]
     best, best_bits = LpcCoefs(()), float(cost(residuals(qs, ls, LpcCoefs(()))).sum())
     for p in orders:
@@ -100,7 +113,7 @@ def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
 
 MAX_SETS = 4               # coefficient sets per channel (a window names the one it uses)
 MIN_SET_WINDOWS = 8        # a set is refitted only on at least this many windows
-SET_EVAL_WINDOWS = 256     # windows on which sets are compared
+SET_EVAL_SAMPLES = 1 << 18  # sets are compared on windows holding about this many samples
 SET_FIT_ROWS = 20_000      # regression rows when refitting a set
 COEF_BITS = 40             # what one stored coefficient costs (JSON in the manifest), for the decision
 
@@ -131,7 +144,7 @@ def fit_sets(q: np.ndarray, level: np.ndarray, cost) -> tuple[LpcCoefs, ...]:
     q, level = q[ok], level[ok]
     if not first.coefs or len(q) < 4 * MIN_SET_WINDOWS:
         return (first,)
-    ev = np.unique(np.linspace(0, len(q) - 1, min(len(q), SET_EVAL_WINDOWS)).astype(np.int64))
+    ev = _spread(len(q), _windows_for(SET_EVAL_SAMPLES, q.shape[1], 4 * MIN_SET_WINDOWS))
     q, level = q[ev], level[ev]
     prev = cost(np.concatenate([q[:, :1] - level[:, None], np.diff(q, axis=1)], axis=1))
     order = max(first.order, 2)
