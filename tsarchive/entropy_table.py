@@ -248,8 +248,8 @@ def _candidate(hs, hb, ev, d, m):
     vs = np.arange(D, len(hs), dtype=np.int64)
     evs = ev[D:]
     tok = D + ((evs - d) << m) + ((vs >> (evs - m)) & ((1 << m) - 1))
-    counts = np.bincount(tok, weights=hs[D:], minlength=T)
-    counts[:D] += hs[:D]
+    counts = np.bincount(tok, weights=hs[D:], minlength=T).astype(np.float64, copy=False)   # int64 when empty
+    counts[:min(D, len(hs))] += hs[:D]
     e = np.arange(64)[:, None]
     tb = D + ((e - d) << m) + (np.arange(8)[None, :] >> (MAX_MANTISSA_BITS - m))
     nz = hb > 0
@@ -281,8 +281,10 @@ def build_table(samples, max_symbols: int = 4096) -> FreqTable:
         ub = u[~small]
         eb = _top_bit(ub)
         hb += np.bincount(eb * 8 + ((ub >> (eb - 3).astype(_U64)) & _U64(7)).astype(np.int64), minlength=64 * 8)
+    used_hs = np.flatnonzero(hs)
+    hs = hs[:used_hs[-1] + 1 if used_hs.size else 1]     # trailing empty bins change no candidate's counts
     hs, hb = hs.astype(np.float64), hb.reshape(64, 8).astype(np.float64)
-    ev = _top_bit(np.maximum(np.arange(1 << MAX_DIRECT_BITS, dtype=_U64), _U64(1)))
+    ev = _top_bit(np.maximum(np.arange(len(hs), dtype=_U64), _U64(1)))
     n = max(a.size, 1)
     best = None
     for d in range(MAX_DIRECT_BITS + 1):
