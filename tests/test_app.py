@@ -387,8 +387,9 @@ async def test_new_user_journey_by_keys_only(tmp_path):
         assert [str(w.render()) for w in bench.query(".budget-name")] == ["temp [degC]", "accel [m/s2]"]
         assert [str(w.render()) for w in bench.query(".budget-step")] == ["step 0.01", "step 0.001"]  # as written
         assert [i.value for i in bench.query(".budget-input")] == ["0.1%", "0.1%"]  # the default shown
-        # temp budget 0.05 degC (its field has focus, text selected), window 64, 1 s of training, start
-        await pilot.press(*"0.05", "tab", "tab", "tab", *"64", "tab", "tab", *"1", "ctrl+s")
+        # temp budget 0.05 degC (its field has focus, text selected), window 64, codes of 4 numbers (asked
+        # for, so the autoencoder trains whatever it saves), 1 s of training, start
+        await pilot.press(*"0.05", "tab", "tab", "tab", *"64", "tab", "4", "tab", *"1", "ctrl+s")
         await settle(app, pilot)
         assert bench.result is not None, app.errors()
         progress = bench.query_one(StageProgress)

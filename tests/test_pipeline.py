@@ -368,6 +368,8 @@ def test_no_training_when_even_a_perfect_model_could_not_pay(tmp_path):
     assert arc.manifest["model"] is None
     assert arc.manifest["model_note"].startswith("autoencoder not trained: at most")
     assert not any(e.stage == "train" and e.message.startswith("epoch") for e in events)
+    last_train = [e for e in events if e.stage == "train"][-1]       # progress ends on why, as the manifest
+    assert last_train.message == arc.manifest["model_note"]
     assert pipeline._payload_ceiling([pipeline.ChannelPlan((), None, None, 0.0, 8.0e3)], 100, 10) == 1.0e4
     _assert_within(x, arc)
 
@@ -406,3 +408,53 @@ def test_sampled_windows_are_gathered_exactly():
                     start=None, source=None, shape=x.shape)
     idx = np.array([0, 1, 2, 5, 9, 10, 99])
     np.testing.assert_array_equal(_gather(rec, idx, 8), x.reshape(100, 8, 2)[idx])
+
+
+@pytest.mark.parametrize("dtype", ["float32", "float64", "int16"])
+def test_finite_ranges_match_a_masked_numpy_reference(monkeypatch, dtype):
+    # chunks without NaN/Inf take a mask-free path; the result must not depend on which path ran
+    from tsarchive.recording import ChannelInfo, Recording
+    monkeypatch.setattr(pipeline, "CHUNK_SAMPLES", 64)
+    rng = np.random.default_rng(11)
+    x = np.round(rng.normal(0, 50, size=(400, 4)), 2).astype(dtype)
+    if dtype != "int16":
+        x[:70, 1] = np.nan                 # the first finite value of channel 1 is in the second chunk
+        x[130, 2] = np.inf
+        x[300, 2] = -np.inf
+        x[:, 3] = np.nan                    # no finite value at all
+    chans = tuple(ChannelInfo(f"c{j}", "", dtype, 2 if j == 0 and dtype != "int16" else None) for j in range(4))
+    rec = Recording(data=x, rate=1.0, channels=chans)
+    lo, hi, anchor, mult = pipeline._finite_ranges(rec)
+    x64 = x.astype(np.float64)
+    fin = np.isfinite(x64)
+    for j in range(4):
+        col = x64[fin[:, j], j]
+        want = (col.min(), col.max(), col[0]) if len(col) else (0.0, 0.0, 0.0)   # no finite value: zeros
+        assert (lo[j], hi[j], anchor[j]) == want
+    assert mult.tolist() == [1, 1, 1, 1]     # two-decimal normal noise has no common step but 0.01
+
+
+def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windows():
+    # the probe's saving is judged on every k-th sampled window: the bits without the model must be
+    # counted on those same windows, not taken from the plan over all of them
+    from tsarchive.budget import parse_budget_spec
+    from tsarchive.encoder import plan_channel
+    from tsarchive.model.train import train_autoencoder
+    from tsarchive.recording import ChannelInfo, Recording
+    W, nw = 64, 200
+    t = np.arange(W * nw)
+    x = (np.sin(t / 3.0) + 0.3 * np.sin(t / 17.0) + 0.01 * np.random.default_rng(2).standard_normal(t.size))
+    rec = Recording(data=x.astype(np.float32)[:, None], rate=100.0, channels=(ChannelInfo("a", "", "float32"),))
+    grids, _ = pipeline._grids(rec, parse_budget_spec("0.5%"))
+    sampled = pipeline._gather(rec, np.arange(nw), W)
+    scales, xs = pipeline._training_set(sampled, grids, W, 1)
+    model = train_autoencoder(np.concatenate(xs), 4, max_epochs=5, time_limit_s=600.0, seed=0, threads=1)
+    full = plan_channel(sampled[:, :, 0], None, nw, grids[0], W, None, scales[0])
+    part = sampled[::4, :, 0]
+    quick = plan_channel(part, None, nw, grids[0], W, model, scales[0], full, subset=True)
+    alone = plan_channel(part, None, nw, grids[0], W, None, scales[0], lpc_sets=full.lpc)
+    assert quick.plain_bits == alone.plain_bits                       # same windows, same LPC sets
+    assert quick.ae_gain_bits >= 0                                    # the model only adds candidates
+    mixed = plan_channel(part, None, nw, grids[0], W, model, scales[0], full)   # the mistake this guards
+    assert mixed.ae_gain_bits - quick.ae_gain_bits == pytest.approx(
+        (full.plain_bits - alone.plain_bits) * nw / len(part))

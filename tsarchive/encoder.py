@@ -58,12 +58,16 @@ def predict_batch(x: np.ndarray, grid: Grid, W: int, model, scale: int):
 
 
 def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: int, grid: Grid, W: int,
-                 model, scale: int, base: ChannelPlan | None = None) -> ChannelPlan:
+                 model, scale: int, base: ChannelPlan | None = None, subset: bool = False,
+                 lpc_sets: tuple[lpc_mod.LpcCoefs, ...] | None = None) -> ChannelPlan:
     """Plan a channel from sampled full ``windows`` (k, W) and its short last window ``tail``.
 
     ``base``, the same channel's plan without a model, supplies the LPC sets
     and plain tables (neither depends on the model), so planning with a
-    model only adds the autoencoder's tables.
+    model only adds the autoencoder's tables.  ``subset``: ``windows`` are
+    only part of the windows ``base`` was planned on (a quick estimate of
+    the model's gain), so the bits without the model are counted again on
+    the same windows.  ``lpc_sets``: use these LPC sets instead of fitting them.
     """
     batches = []
     for part in np.array_split(np.arange(len(windows)), max(1, len(windows) // 512)) if len(windows) else []:
@@ -74,10 +78,17 @@ def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: 
         batches.append((q, lv, ae))
     if base is not None:
         lpc, plain, plain_bits = base.lpc, base.tables_plain, base.plain_bits
+        if subset:
+            plain_bits = _tables(batches, lpc, use_ae=False)[1]
     else:
         full = [(q, lv) for q, lv, _ in batches if q.shape[1] == W]
-        lpc = lpc_mod.fit_sets(np.concatenate([q for q, _ in full]), np.concatenate([lv for _, lv in full]),
-                               proxy_bits) if full else (lpc_mod.LpcCoefs(()),)
+        if lpc_sets is not None:
+            lpc = lpc_sets
+        elif full:
+            lpc = lpc_mod.fit_sets(np.concatenate([q for q, _ in full]), np.concatenate([lv for _, lv in full]),
+                                   proxy_bits)
+        else:
+            lpc = (lpc_mod.LpcCoefs(()),)
         plain, plain_bits = _tables(batches, lpc, use_ae=False)
     if model is None:
         return ChannelPlan(lpc, plain, plain, 0.0, plain_bits)
@@ -87,13 +98,15 @@ def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: 
     return ChannelPlan(lpc, with_ae, plain, float(gain), plain_bits)
 
 
-def coded_bytes(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int) -> int:
+def coded_bytes(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int,
+                lpc_sets: tuple[lpc_mod.LpcCoefs, ...] | None = None) -> tuple[int, tuple[lpc_mod.LpcCoefs, ...]]:
     """Bytes the residuals of ``windows`` (k, W) take when planned and range coded on their own,
-    without a model: the size estimate behind the choice of the window length."""
-    plan = plan_channel(windows, None, n_total_windows, grid, W, None, 1)
+    without a model (the size estimate behind the choice of the window length), and the LPC
+    sets used: fitted here unless ``lpc_sets`` are given."""
+    plan = plan_channel(windows, None, n_total_windows, grid, W, None, 1, lpc_sets=lpc_sets)
     q, _, _, lv, _, _ = predict_batch(windows, grid, W, None, 1)
     modes, classes, res, _ = choose_modes(q, Context(lv, None, plan.lpc), plan.tables)
-    return sum(len(p) for p in code_windows(modes, classes, res, plan.tables))
+    return sum(len(p) for p in code_windows(modes, classes, res, plan.tables)), plan.lpc
 
 
 def code_windows(modes: np.ndarray, classes: np.ndarray, res: np.ndarray, tables: TableSet) -> list[bytes]:

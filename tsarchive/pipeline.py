@@ -24,7 +24,7 @@ from __future__ import annotations
 import math
 import threading
 import time
-from concurrent.futures import Future, ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor, wait
 from functools import cache
 from pathlib import Path
 
@@ -63,6 +63,7 @@ WINDOW_MARGIN = 0.03           # a longer window must save this share of the est
 WINDOW_ROW_BYTES = 10.5        # measured framing of one window row (CRC, level, score, lengths; Parquet+zstd)
 PROBE_SECONDS = 6.0          # training time of the probe model that decides whether to train longer
 PROBE_SHARE = 0.25           # train fully only if the probe already saves this share of the model's bytes
+PROBE_EVAL_SAMPLES = 1 << 18  # per channel: the probe's saving is estimated on about this many sampled samples
 
 
 def pack(source, archive, budget=None, *, rate: float | None = None, window: int | None = None,
@@ -123,14 +124,17 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
             tail = _tail(rec, W)
             nwin = n_windows(rec.n_samples, W)
 
-            def plan(model, base=None):
-                return [plan_channel(sampled[:, :, j], None if tail is None else tail[:, j], nwin, grids[j], W,
-                                     model, scales[j], None if base is None else base[j])
+            def plan(model, base=None, quick=False):
+                # quick: the probe's gain, judged on every k-th sampled window only (its plans encode nothing)
+                step = max(1, len(sample) * W // PROBE_EVAL_SAMPLES) if quick else 1
+                return [plan_channel(sampled[::step, :, j], None if tail is None or quick else tail[:, j], nwin,
+                                     grids[j], W, model, scales[j], None if base is None else base[j],
+                                     subset=step > 1)
                         for j in range(len(names))]
 
             hopeless = threading.Event()      # set when even a perfect model could not pay: training stops
 
-            def train_and_plan(seconds: float, threads: int | None):
+            def train_and_plan(seconds: float, threads: int | None, quick: bool):
                 # the training windows live only while training (a full run after a probe makes them again)
                 try:
                     model = _train(rec, _training_set(sampled, grids, W, len(names))[1], W, K, emit, seconds, seed,
@@ -142,12 +146,12 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
                 _release_memory()
                 if model is None:
                     return None, None
-                plans = plan(model, plain_ready.result())
+                plans = plan(model, plain_ready.result(), quick)
                 _release_memory()
                 return model, plans
 
             training = helper.submit(train_and_plan, PROBE_SECONDS if probe else train_seconds,
-                                     1 if probe else None)
+                                     1 if probe else None, probe)
             emit("encode", 0, 1, "choosing predictors and entropy tables")
             plain = plan(None)
             plain_ready.set_result(plain)
@@ -174,7 +178,11 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
                 if hopeless.is_set():
                     note = (f"autoencoder not trained: at most {ceiling:.0f} B to save, below "
                             f"{'1/4 of ' if probe else ''}its {bound:.0f} B")
-                    decide = (lambda: note)
+
+                    def decide():
+                        wait([training])            # the stopped trainer has had its say: this is the last
+                        emit("train", 1, 1, note)
+                        return note
                 else:
                     decide = (lambda: _decide(judged, plain, probe))
                 try:
@@ -344,16 +352,27 @@ def _finite_ranges(rec: Recording):
     lo, hi, anchor = np.full(C, np.inf), np.full(C, -np.inf), np.full(C, np.nan)
     gcd = np.zeros(C, dtype=np.int64)
     for s in range(0, rec.n_samples, CHUNK_SAMPLES):
-        x = rec.rows(s, s + CHUNK_SAMPLES).astype(np.float64)
-        fin = np.isfinite(x)
+        raw = rec.rows(s, s + CHUNK_SAMPLES)
         with np.errstate(invalid="ignore"):
-            lo = np.minimum(lo, np.where(fin, x, np.inf).min(axis=0, initial=np.inf))
-            hi = np.maximum(hi, np.where(fin, x, -np.inf).max(axis=0, initial=-np.inf))
-        for j in np.flatnonzero(np.isnan(anchor) & fin.any(axis=0)):
-            anchor[j] = x[np.argmax(fin[:, j]), j]
+            fast_lo, fast_hi = raw.min(axis=0).astype(np.float64), raw.max(axis=0).astype(np.float64)
+        if np.isfinite(fast_lo).all() and np.isfinite(fast_hi).all():
+            # no NaN or ±Inf in the chunk (either would show in its min or max): no masks needed
+            x, fin = None, None
+            lo, hi = np.minimum(lo, fast_lo), np.maximum(hi, fast_hi)
+            first = np.isnan(anchor)
+            anchor[first] = raw[0, first].astype(np.float64) if len(raw) else anchor[first]
+        else:
+            x = raw.astype(np.float64)
+            fin = np.isfinite(x)
+            with np.errstate(invalid="ignore"):
+                lo = np.minimum(lo, np.where(fin, x, np.inf).min(axis=0, initial=np.inf))
+                hi = np.maximum(hi, np.where(fin, x, -np.inf).max(axis=0, initial=-np.inf))
+            for j in np.flatnonzero(np.isnan(anchor) & fin.any(axis=0)):
+                anchor[j] = x[np.argmax(fin[:, j]), j]
         for j, ch in enumerate(rec.channels):
             if ch.decimals is not None and gcd[j] != 1:
-                v = np.abs(np.rint(x[fin[:, j], j] * 10.0 ** ch.decimals))
+                col = raw[:, j].astype(np.float64) if x is None else x[fin[:, j], j]
+                v = np.abs(np.rint(col * 10.0 ** ch.decimals))
                 v = v[(v > 0) & (v < 2.0 ** 62)].astype(np.int64)
                 gcd[j] = np.gcd.reduce(np.append(v, gcd[j])) if len(v) else gcd[j]
     none = np.isinf(lo)
@@ -506,7 +525,8 @@ def _choose_window(rec: Recording, grids: list[Grid]) -> tuple[int, str]:
 
     Every candidate plans and range codes the same contiguous spans of the
     recording (at most ``WINDOW_EVAL_SAMPLES`` in all, of at most
-    ``WINDOW_EVAL_CHANNELS`` evenly spread channels) and is charged
+    ``WINDOW_EVAL_CHANNELS`` evenly spread channels) with the same LPC
+    sets (fitted once, on the shortest windows) and is charged
     ``WINDOW_ROW_BYTES`` per window row; a longer window must save
     ``WINDOW_MARGIN`` to be chosen, since shorter windows browse finer.
     Longer windows pay where residuals are cheap (coarse budgets, quiet
@@ -523,11 +543,16 @@ def _choose_window(rec: Recording, grids: list[Grid]) -> tuple[int, str]:
         return DEFAULT_WINDOW, f"window {DEFAULT_WINDOW} (too short a recording to compare window lengths)"
     sampled = _gather(rec, spans, span)[:, :, chans]
     est: dict[int, float] = {}
+    sets: list = [None] * C             # LPC sets fitted at the shortest length serve every length
     for W in WINDOW_CHOICES:            # shortest first; stop once a longer window stops paying
         total = WINDOW_ROW_BYTES * C * (len(spans) * span // W)
+
+        def coded(k: int, W: int = W) -> int:
+            nbytes, sets[k] = coded_bytes(sampled[:, :, k].reshape(-1, W), n // W, grids[chans[k]], W, sets[k])
+            return nbytes
+
         with ThreadPoolExecutor(worker_count(C)) as pool:   # channels side by side
-            total += sum(pool.map(lambda k: coded_bytes(sampled[:, :, k].reshape(-1, W), n // W, grids[chans[k]], W),
-                                  range(C)))
+            total += sum(pool.map(coded, range(C)))
         best_so_far = min(est.values(), default=math.inf)
         est[W] = 8.0 * total / (C * len(spans) * span)
         if est[W] >= best_so_far:
