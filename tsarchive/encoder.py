@@ -98,15 +98,13 @@ def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: 
     return ChannelPlan(lpc, with_ae, plain, float(gain), plain_bits)
 
 
-def coded_bytes(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int,
-                lpc_sets: tuple[lpc_mod.LpcCoefs, ...] | None = None) -> tuple[int, tuple[lpc_mod.LpcCoefs, ...]]:
+def coded_bytes(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int) -> int:
     """Bytes the residuals of ``windows`` (k, W) take when planned and range coded on their own,
-    without a model (the size estimate behind the choice of the window length), and the LPC
-    sets used: fitted here unless ``lpc_sets`` are given."""
-    plan = plan_channel(windows, None, n_total_windows, grid, W, None, 1, lpc_sets=lpc_sets)
+    without a model: the size estimate behind the choice of the window length."""
+    plan = plan_channel(windows, None, n_total_windows, grid, W, None, 1)
     q, _, _, lv, _, _ = predict_batch(windows, grid, W, None, 1)
     modes, classes, res, _ = choose_modes(q, Context(lv, None, plan.lpc), plan.tables)
-    return sum(len(p) for p in code_windows(modes, classes, res, plan.tables)), plan.lpc
+    return sum(len(p) for p in code_windows(modes, classes, res, plan.tables))
 
 
 def code_windows(modes: np.ndarray, classes: np.ndarray, res: np.ndarray, tables: TableSet) -> list[bytes]:

@@ -525,8 +525,9 @@ def _choose_window(rec: Recording, grids: list[Grid]) -> tuple[int, str]:
 
     Every candidate plans and range codes the same contiguous spans of the
     recording (at most ``WINDOW_EVAL_SAMPLES`` in all, of at most
-    ``WINDOW_EVAL_CHANNELS`` evenly spread channels) with the same LPC
-    sets (fitted once, on the shortest windows) and is charged
+    ``WINDOW_EVAL_CHANNELS`` evenly spread channels), fitting its own LPC
+    sets (sets fitted on short windows would overrate long ones: a set needs
+    enough windows of its own), and is charged
     ``WINDOW_ROW_BYTES`` per window row; a longer window must save
     ``WINDOW_MARGIN`` to be chosen, since shorter windows browse finer.
     Longer windows pay where residuals are cheap (coarse budgets, quiet
@@ -543,16 +544,11 @@ def _choose_window(rec: Recording, grids: list[Grid]) -> tuple[int, str]:
         return DEFAULT_WINDOW, f"window {DEFAULT_WINDOW} (too short a recording to compare window lengths)"
     sampled = _gather(rec, spans, span)[:, :, chans]
     est: dict[int, float] = {}
-    sets: list = [None] * C             # LPC sets fitted at the shortest length serve every length
     for W in WINDOW_CHOICES:            # shortest first; stop once a longer window stops paying
         total = WINDOW_ROW_BYTES * C * (len(spans) * span // W)
-
-        def coded(k: int, W: int = W) -> int:
-            nbytes, sets[k] = coded_bytes(sampled[:, :, k].reshape(-1, W), n // W, grids[chans[k]], W, sets[k])
-            return nbytes
-
         with ThreadPoolExecutor(worker_count(C)) as pool:   # channels side by side
-            total += sum(pool.map(coded, range(C)))
+            total += sum(pool.map(lambda k: coded_bytes(sampled[:, :, k].reshape(-1, W), n // W, grids[chans[k]], W),
+                                  range(C)))
         best_so_far = min(est.values(), default=math.inf)
         est[W] = 8.0 * total / (C * len(spans) * span)
         if est[W] >= best_so_far:
