@@ -74,11 +74,16 @@ class Grid:
     # -- the two directions ---------------------------------------------------
     def values(self, q: np.ndarray) -> np.ndarray:
         """float64 x̂ for integers ``q`` (before conversion to the output dtype)."""
-        qf = q.astype(np.float64)
+        qf = q.astype(np.float64)               # a new array: the operations below run in place
         if self.kind == "decimal":
             # q * mult is an exact integer below 2**53, and the division is correctly rounded
-            return (qf * float(self.mult) if self.mult != 1 else qf) / float(10**self.decimals)
-        return self.offset + qf * self.step
+            if self.mult != 1:
+                qf *= float(self.mult)
+            qf /= float(10**self.decimals)
+            return qf
+        qf *= self.step                          # offset + q * step, the same two roundings
+        qf += self.offset
+        return qf
 
     def to_out(self, xh: np.ndarray) -> np.ndarray:
         """Convert float64 values to the output dtype (ints round to nearest and clip)."""
