@@ -226,12 +226,21 @@ def _payload_ceiling(plans: list[ChannelPlan], nwin: int, sampled: int) -> float
     return sum(p.plain_bits for p in plans) * nwin / max(sampled, 1) / 8
 
 
+def _decoder_size(rec: Recording, W: int, K: int) -> tuple[int, int]:
+    """(hidden width, decoder parameters) of the autoencoder sized for this recording."""
+    from .model.spec import choose_hidden, decoder_params
+    hidden = choose_hidden(max((rec.n_samples // W) * len(rec.channels), 1), W, max(K, 1), budget=DECODER_SHARE)
+    return hidden, decoder_params(max(K, 1), hidden, W)
+
+
+def _model_cost(n_params: int, K: int, nwin: int, C: int) -> float:
+    """Bytes of a decoder's weights and of every window's code."""
+    return BYTES_PER_PARAM * n_params + BITS_PER_CODE / 8 * K * nwin * C
+
+
 def _model_bytes(rec: Recording, W: int, K: int, nwin: int) -> float:
     """Bytes of the decoder's weights and the codes that a model for this recording would cost."""
-    from .model.spec import choose_hidden, decoder_params
-    C = len(rec.channels)
-    hidden = choose_hidden(max((rec.n_samples // W) * C, 1), W, max(K, 1), budget=DECODER_SHARE)
-    return BYTES_PER_PARAM * decoder_params(max(K, 1), hidden, W) + BITS_PER_CODE / 8 * K * nwin * C
+    return _model_cost(_decoder_size(rec, W, K)[1], K, nwin, len(rec.channels))
 
 
 class _WorthAModel(Exception):
@@ -360,7 +369,7 @@ def _finite_ranges(rec: Recording):
             x, fin = None, None
             lo, hi = np.minimum(lo, fast_lo), np.maximum(hi, fast_hi)
             first = np.isnan(anchor)
-            anchor[first] = raw[0, first].astype(np.float64) if len(raw) else anchor[first]
+            anchor[first] = raw[0, first]
         else:
             x = raw.astype(np.float64)
             fin = np.isfinite(x)
@@ -424,12 +433,9 @@ def _training_set(sampled: np.ndarray, grids: list[Grid], W: int, C: int, window
 def _train(rec: Recording, xs: list[np.ndarray], W: int, K: int, emit, seconds: float, seed: int,
            threads: int | None = None, cancel=None):
     """The autoencoder, or None when the recording is too short for one (or no code is asked for)."""
-    C = len(rec.channels)
-    from .model.spec import choose_hidden, decoder_params
-    total_windows = (rec.n_samples // W) * C
-    hidden = choose_hidden(max(total_windows, 1), W, max(K, 1), budget=DECODER_SHARE)
+    hidden, n_params = _decoder_size(rec, W, K)
     raw_bytes = sum(rec.n_samples * np.dtype(c.dtype).itemsize for c in rec.channels)
-    too_big = 2 * decoder_params(max(K, 1), hidden, W) > MAX_MODEL_SHARE * raw_bytes
+    too_big = 2 * n_params > MAX_MODEL_SHARE * raw_bytes
     if K == 0 or sum(len(x) for x in xs) < MIN_MODEL_WINDOWS or too_big:
         why = "no code requested" if K == 0 else "recording too short for an autoencoder to pay for its weights"
         emit("train", 1, 1, f"{why}; using the sample-based predictors only")
@@ -450,7 +456,7 @@ def _model_account(model, plans: list[ChannelPlan], nwin: int, K: int) -> tuple[
     if model is None:
         return 0.0, 0.0
     gain = sum(p.ae_gain_bits for p in plans) / 8
-    cost = BYTES_PER_PARAM * model.int_decoder.n_params + BITS_PER_CODE / 8 * K * nwin * len(plans)
+    cost = _model_cost(model.int_decoder.n_params, K, nwin, len(plans))
     return gain, cost
 
 
@@ -475,10 +481,11 @@ def _encode(writer, rec: Recording, names, grids, W, model, scales, plans, table
     stats = [{"worst_error": 0.0, "bytes_est": 0, "n_exceptions": 0,
               "modes": {p.name: 0 for p in PREDICTORS.values()}} for _ in names]
     code_bytes = 8 + (model.code_size if model is not None else 0)
+    per_call = max(1, BATCH_SAMPLES // W)   # bounded temporaries per thread, one row group per block
+
     def channel_rows(block, w0: int, w1: int, j: int) -> tuple[pa.Table, pa.Table, float]:
         rows, held, worst = [], [], 0.0
         for a0, b0, L in batches(n, W, w0, w1):
-            per_call = max(1, BATCH_SAMPLES // W)   # bounded temporaries per thread, one row group per block
             for a in range(a0, b0, per_call):
                 b = min(b0, a + per_call)
                 x = block[(a - w0) * W:(a - w0) * W + (b - a) * L, j].reshape(b - a, L)
