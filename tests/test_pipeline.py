@@ -438,7 +438,7 @@ def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windo
     # the probe's saving is judged on every k-th sampled window: the bits without the model must be
     # counted on those same windows, not taken from the plan over all of them
     from tsarchive.budget import parse_budget_spec
-    from tsarchive.encoder import plan_channel
+    from tsarchive.encoder import _tables, plan_channel, predict_batch
     from tsarchive.model.train import train_autoencoder
     from tsarchive.recording import ChannelInfo, Recording
     W, nw = 64, 200
@@ -452,9 +452,10 @@ def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windo
     full = plan_channel(sampled[:, :, 0], None, nw, grids[0], W, None, scales[0])
     part = sampled[::4, :, 0]
     quick = plan_channel(part, None, nw, grids[0], W, model, scales[0], full, subset=True)
-    alone = plan_channel(part, None, nw, grids[0], W, None, scales[0], lpc_sets=full.lpc)
-    assert quick.plain_bits == alone.plain_bits                       # same windows, same LPC sets
+    q, _, _, lv, _, _ = predict_batch(part, grids[0], W, None, scales[0])
+    alone_bits = _tables([(q, lv, None)], full.lpc, use_ae=False)[1]   # those windows alone, same LPC sets
+    assert quick.plain_bits == alone_bits                             # same windows, same LPC sets
     assert quick.ae_gain_bits >= 0                                    # the model only adds candidates
     mixed = plan_channel(part, None, nw, grids[0], W, model, scales[0], full)   # the mistake this guards
     assert mixed.ae_gain_bits - quick.ae_gain_bits == pytest.approx(
-        (full.plain_bits - alone.plain_bits) * nw / len(part))
+        (full.plain_bits - alone_bits) * nw / len(part))

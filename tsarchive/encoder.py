@@ -58,8 +58,7 @@ def predict_batch(x: np.ndarray, grid: Grid, W: int, model, scale: int):
 
 
 def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: int, grid: Grid, W: int,
-                 model, scale: int, base: ChannelPlan | None = None, subset: bool = False,
-                 lpc_sets: tuple[lpc_mod.LpcCoefs, ...] | None = None) -> ChannelPlan:
+                 model, scale: int, base: ChannelPlan | None = None, subset: bool = False) -> ChannelPlan:
     """Plan a channel from sampled full ``windows`` (k, W) and its short last window ``tail``.
 
     ``base``, the same channel's plan without a model, supplies the LPC sets
@@ -67,7 +66,7 @@ def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: 
     model only adds the autoencoder's tables.  ``subset``: ``windows`` are
     only part of the windows ``base`` was planned on (a quick estimate of
     the model's gain), so the bits without the model are counted again on
-    the same windows.  ``lpc_sets``: use these LPC sets instead of fitting them.
+    the same windows.
     """
     batches = []
     for part in np.array_split(np.arange(len(windows)), max(1, len(windows) // 512)) if len(windows) else []:
@@ -82,13 +81,8 @@ def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: 
             plain_bits = _tables(batches, lpc, use_ae=False)[1]
     else:
         full = [(q, lv) for q, lv, _ in batches if q.shape[1] == W]
-        if lpc_sets is not None:
-            lpc = lpc_sets
-        elif full:
-            lpc = lpc_mod.fit_sets(np.concatenate([q for q, _ in full]), np.concatenate([lv for _, lv in full]),
-                                   proxy_bits)
-        else:
-            lpc = (lpc_mod.LpcCoefs(()),)
+        lpc = lpc_mod.fit_sets(np.concatenate([q for q, _ in full]), np.concatenate([lv for _, lv in full]),
+                               proxy_bits) if full else (lpc_mod.LpcCoefs(()),)
         plain, plain_bits = _tables(batches, lpc, use_ae=False)
     if model is None:
         return ChannelPlan(lpc, plain, plain, 0.0, plain_bits)
