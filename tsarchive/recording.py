@@ -10,8 +10,12 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
+
+if TYPE_CHECKING:
+    import pyarrow as pa
 
 
 @dataclass(frozen=True)
@@ -28,18 +32,45 @@ class ChannelInfo:
     unit: str = ""
     dtype: str = "float64"
     decimals: int | None = None
+    #: numeric values that mean "no measurement" in this channel (a logger's -9999): kept exactly,
+    #: left out of %-of-range budgets
+    sentinels: tuple[float, ...] = ()
 
     @property
     def resolution(self) -> float | None:
         return None if self.decimals is None else 10.0 ** (-self.decimals)
 
     def to_dict(self) -> dict:
-        return {"name": self.name, "unit": self.unit, "dtype": self.dtype, "decimals": self.decimals}
+        d = {"name": self.name, "unit": self.unit, "dtype": self.dtype, "decimals": self.decimals}
+        if self.sentinels:
+            d["sentinels"] = [float(v) for v in self.sentinels]
+        return d
 
     @classmethod
     def from_dict(cls, d: dict) -> "ChannelInfo":
         return cls(name=str(d["name"]), unit=str(d.get("unit", "")), dtype=str(d.get("dtype", "float64")),
-                   decimals=None if d.get("decimals") is None else int(d["decimals"]))
+                   decimals=None if d.get("decimals") is None else int(d["decimals"]),
+                   sentinels=tuple(float(v) for v in d.get("sentinels", ())))
+
+
+@dataclass(frozen=True, eq=False)
+class TimeAxis:
+    """A source's time column, kept exactly as logged (gaps, jitter and all).
+
+    ``kind`` is ``"datetime"`` (``values`` int64 nanoseconds since
+    1970-01-01T00:00; for naive times that is the wall clock as logged, not
+    UTC) or ``"seconds"`` (``values`` float64 seconds, e.g. elapsed time or
+    epoch seconds, bit for bit as parsed).  ``zone`` is ``None`` for naive
+    times (no zone was logged or stated), ``"Z"`` for UTC, or an offset
+    ``"+01:00"`` as logged or stated by the user.  ``columns`` are the
+    source headers the axis came from (two for a date column beside a time
+    column).
+    """
+
+    kind: str
+    values: np.ndarray
+    zone: str | None = None
+    columns: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -58,6 +89,12 @@ class Recording:
     start: datetime | None = None
     source: Path | None = None
     shape: tuple[int, ...] = field(default=())
+    #: the time column as logged, when the source has one (``rate`` is then its nominal rate)
+    time: TimeAxis | None = None
+    #: free-text lines found before the header (a logger's preamble), kept as the recording's notes
+    notes: tuple[str, ...] = ()
+    #: non-numeric columns (status, operator notes), row-aligned with ``data``, kept losslessly
+    extra: "pa.Table | None" = None
 
     @property
     def n_samples(self) -> int:
