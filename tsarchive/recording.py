@@ -96,6 +96,28 @@ class Recording:
     #: non-numeric columns (status, operator notes), row-aligned with ``data``, kept losslessly
     extra: "pa.Table | None" = None
 
+    @classmethod
+    def from_columns(cls, columns, *, rate: float, channels, **fields) -> "Recording":
+        """A Recording from one 1-D array per channel, each in its source dtype.
+
+        Readers call this instead of assembling ``data`` themselves, so that
+        how columns of different dtypes are held is decided in one place.
+        """
+        columns = list(columns)
+        dtypes = {np.dtype(c.dtype) for c in columns}
+        if len(dtypes) == 1:
+            common = dtypes.pop()
+        elif all(d.kind in "iu" for d in dtypes):
+            common = np.dtype(np.int64)
+        else:
+            common = np.dtype(np.float64)
+        n = len(columns[0]) if columns else 0
+        data = np.empty((n, len(columns)), dtype=common)
+        for j, col in enumerate(columns):
+            data[:, j] = col
+        fields.setdefault("shape", tuple(int(s) for s in data.shape))
+        return cls(data=data, rate=rate, channels=tuple(channels), **fields)
+
     @property
     def n_samples(self) -> int:
         return int(self.data.shape[0])

@@ -176,14 +176,6 @@ def _channel_array(name: str, col: pa.ChunkedArray) -> tuple[np.ndarray, str]:
     raise BadInput(f"column '{name}' is not numeric ({t}); remove or convert it before packing")
 
 
-def _common_dtype(dtypes: list[str]) -> np.dtype:
-    if len(set(dtypes)) == 1:
-        return np.dtype(dtypes[0])
-    if all(np.dtype(d).kind in "iu" for d in dtypes):
-        return np.dtype(np.int64)
-    return np.dtype(np.float64)
-
-
 def check_rate(rate: float | None) -> float | None:
     """``rate`` as a float, None kept; BadInput unless finite and positive."""
     if rate is None:
@@ -235,12 +227,7 @@ def table_to_recording(table: pa.Table, path: Path, rate: float | None,
         arrays.append(arr)
         channels.append(ChannelInfo(name=name, unit=unit, dtype=dtype_name,
                                     decimals=detect_decimals(arr, dtype_name)))
-    common = _common_dtype([c.dtype for c in channels])
-    data = np.empty((table.num_rows, len(arrays)), dtype=common)
-    for j, arr in enumerate(arrays):
-        data[:, j] = arr
-    return Recording(data=data, rate=rate, channels=tuple(channels), start=start, source=path,
-                     shape=tuple(int(s) for s in data.shape))
+    return Recording.from_columns(arrays, rate=rate, channels=channels, start=start, source=path)
 
 
 def _ns_to_datetime(ns: int) -> datetime:
