@@ -164,7 +164,7 @@ def test_csv_units_iso_start_and_rate(tmp_path):
     assert [(c.name, c.unit) for c in rec.channels] == [("temp", "degC"), ("count", "")]
     assert [c.dtype for c in rec.channels] == ["float64", "int64"]
     assert [c.decimals for c in rec.channels] == [1, 0]  # i*0.1 printed with %.2f: one decimal suffices
-    assert rec.data.dtype == np.float64 and rec.shape == (50, 2)
+    assert rec.data.dtypes == (np.float64, np.int64) and rec.shape == (50, 2)   # each channel in its own dtype
     assert rec.column(1).tolist() == list(range(50))
 
 
@@ -269,7 +269,7 @@ def test_parquet_seconds_time_ints_with_nulls_and_strings(tmp_path):
     pq.write_table(t, tmp_path / "b.parquet")
     rec = read_recording(tmp_path / "b.parquet")
     assert rec.rate == 10.0 and rec.start is None
-    assert [c.dtype for c in rec.channels] == ["float64", "int32"] and rec.data.dtype == np.float64
+    assert [c.dtype for c in rec.channels] == ["float64", "int32"] and rec.data.dtypes == (np.float64, np.int32)
     assert np.isnan(rec.column(0)[1]) and rec.column(1).tolist() == list(range(6))
     pq.write_table(pa.table({"x": [1.0, 2.0], "s": ["a", "b"]}), tmp_path / "c.parquet")
     with pytest.raises(BadInput, match="not numeric"):

@@ -407,14 +407,17 @@ def test_sampled_windows_are_gathered_exactly():
     rec = Recording(data=x, rate=1.0, channels=(ChannelInfo("a", "", "float32", None), ChannelInfo("b", "", "float32", None)),
                     start=None, source=None, shape=x.shape)
     idx = np.array([0, 1, 2, 5, 9, 10, 99])
-    np.testing.assert_array_equal(_gather(rec, idx, 8), x.reshape(100, 8, 2)[idx])
+    got = _gather(rec, idx, 8)       # one (windows, W) array per channel
+    for j in range(2):
+        np.testing.assert_array_equal(got[j], x.reshape(100, 8, 2)[idx][:, :, j])
 
 
 @pytest.mark.parametrize("dtype", ["float32", "float64", "int16"])
 def test_finite_ranges_match_a_masked_numpy_reference(monkeypatch, dtype):
     # chunks without NaN/Inf take a mask-free path; the result must not depend on which path ran
+    from tsarchive import ranges
     from tsarchive.recording import ChannelInfo, Recording
-    monkeypatch.setattr(pipeline, "CHUNK_SAMPLES", 64)
+    monkeypatch.setattr(ranges, "CHUNK_SAMPLES", 64)
     rng = np.random.default_rng(11)
     x = np.round(rng.normal(0, 50, size=(400, 4)), 2).astype(dtype)
     if dtype != "int16":
@@ -424,14 +427,14 @@ def test_finite_ranges_match_a_masked_numpy_reference(monkeypatch, dtype):
         x[:, 3] = np.nan                    # no finite value at all
     chans = tuple(ChannelInfo(f"c{j}", "", dtype, 2 if j == 0 and dtype != "int16" else None) for j in range(4))
     rec = Recording(data=x, rate=1.0, channels=chans)
-    lo, hi, anchor, mult = pipeline._finite_ranges(rec)
+    got = ranges.finite_ranges(rec)
     x64 = x.astype(np.float64)
     fin = np.isfinite(x64)
     for j in range(4):
         col = x64[fin[:, j], j]
-        want = (col.min(), col.max(), col[0]) if len(col) else (0.0, 0.0, 0.0)   # no finite value: zeros
-        assert (lo[j], hi[j], anchor[j]) == want
-    assert mult.tolist() == [1, 1, 1, 1]     # two-decimal normal noise has no common step but 0.01
+        want = (col.max() - col.min(), col[0]) if len(col) else (0.0, 0.0)   # no finite value: zeros
+        assert (got[j].span, got[j].anchor) == want
+    assert [r.mult for r in got] == [1, 1, 1, 1]     # two-decimal normal noise has no common step but 0.01
 
 
 def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windows():
@@ -449,8 +452,8 @@ def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windo
     sampled = pipeline._gather(rec, np.arange(nw), W)
     scales, xs = pipeline._training_set(sampled, grids, W, 1)
     model = train_autoencoder(np.concatenate(xs), 4, max_epochs=5, time_limit_s=600.0, seed=0, threads=1)
-    full = plan_channel(sampled[:, :, 0], None, nw, grids[0], W, None, scales[0])
-    part = sampled[::4, :, 0]
+    full = plan_channel(sampled[0], None, nw, grids[0], W, None, scales[0])
+    part = sampled[0][::4]
     quick = plan_channel(part, None, nw, grids[0], W, model, scales[0], full, subset=True)
     q, _, _, lv, _, _ = predict_batch(part, grids[0], W, None, scales[0])
     alone_bits = _tables([(q, lv, None)], full.lpc, use_ae=False)[1]   # those windows alone, same LPC sets

@@ -21,7 +21,7 @@ from . import checksum, entropy
 from .codec import FRAC_SAFE_SCALE, TableSet, ae_prediction, choose_modes, proxy_bits
 from .predict import Context
 from .predict import lpc as lpc_mod
-from .quantize import Grid, quantize
+from .quantize import Grid, abs_errors, quantize
 from .store import schema as S
 from .windows import levels, normalise
 
@@ -158,10 +158,10 @@ def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int
     modes, classes, res, sets = choose_modes(q, Context(lv, ae, lpc), tables)
     payloads = code_windows(modes, classes, res, tables)
     xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
-    x64, xh64 = x.astype(np.float64), xh.astype(np.float64)
+    x64 = x.astype(np.float64)
     with np.errstate(invalid="ignore", over="ignore"):
         fin = np.isfinite(x64)
-        err = np.where(fin, np.abs(xh64 - x64), 0.0)
+        err = np.where(fin, abs_errors(x, xh), 0.0)      # exact (rounded up), integers in integers
         preview = grid.to_out(grid.values(lv[:, None] + np.zeros((1, L), np.int64) if ae is None else ae))
         # peak, not RMS: a short transient must not be diluted by the rest of its window
         score = np.where(fin, np.abs(x64 - preview.astype(np.float64)), 0.0).max(axis=1, initial=0.0)

@@ -25,6 +25,7 @@ import math
 import threading
 import time
 from concurrent.futures import Future, ThreadPoolExecutor, wait
+from dataclasses import replace
 from functools import cache
 from pathlib import Path
 
@@ -37,7 +38,8 @@ from .encoder import TABLE_SAMPLES, ChannelPlan, coded_bytes, encode_batch, plan
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .ingest import read_recording
 from .predict import PREDICTORS
-from .quantize import MAX_MULT, Grid, make_grid, quantize
+from .quantize import Grid, make_grid, quantize
+from .ranges import finite_ranges
 from .recording import Recording
 from .results import ChannelSummary, PackResult, Progress, ProgressFn
 from .workers import workers as worker_count
@@ -119,7 +121,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
 
             # windows -> a bounded sample (for training and planning) -> per-channel scales
             sample = sample_windows(rec.n_samples, W, max(1, TABLE_SAMPLES // W))
-            sampled = _gather(rec, sample, W)
+            sampled = _gather(rec, sample, W)       # one (windows, W) array per channel, in its own dtype
             scales = _training_set(sampled, grids, W, len(rec.channels), windows=False)[0]
             tail = _tail(rec, W)
             nwin = n_windows(rec.n_samples, W)
@@ -127,7 +129,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
             def plan(model, base=None, quick=False):
                 # quick: the probe's gain, judged on every k-th sampled window only (its plans encode nothing)
                 step = max(1, len(sample) * W // PROBE_EVAL_SAMPLES) if quick else 1
-                return [plan_channel(sampled[::step, :, j], None if tail is None or quick else tail[:, j], nwin,
+                return [plan_channel(sampled[j][::step], None if tail is None or quick else tail[:, j], nwin,
                                      grids[j], W, model, scales[j], None if base is None else base[j],
                                      subset=step > 1)
                         for j in range(len(names))]
@@ -324,17 +326,28 @@ def _import_trainer() -> None:
 
 # -- stages --------------------------------------------------------------------
 def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
-    lo, hi, anchor, mult = _finite_ranges(rec)
+    ranges = finite_ranges(rec)
     grids, notes = [], []
-    for j, ch in enumerate(rec.channels):
+    for ch, r in zip(rec.channels, ranges):
         budget = spec.for_channel(ch.name)
         if budget.kind == "lossless" and ch.decimals is None:
             raise BudgetError(f"channel {ch.name} is not on an integer or decimal grid, so 'lossless' is "
                               f"unavailable; give it a budget such as {ch.name}=0.1%")
-        span = hi[j] - lo[j] if math.isfinite(hi[j] - lo[j]) else 0.0
-        g = make_grid(budget.resolve(span, ch.name), ch.decimals, np.dtype(ch.dtype), anchor[j], int(mult[j]))
+        eps = budget.resolve(r.span, ch.name)
+        g = make_grid(eps, ch.decimals, np.dtype(ch.dtype), r.anchor, r.mult, origin=r.origin)
+        if r.no_mark:
+            raise BadInput(f"channel {ch.name} has missing samples and takes every value of {ch.dtype}, so a "
+                           "missing sample cannot be told apart; fill the gaps or store the column as float")
+        if r.kept or r.missing is not None:
+            g = replace(g, verbatim=r.kept, missing=r.missing)
         grids.append(g)
-        notes.append(_grid_note(budget, g))
+        note = _grid_note(budget, g)
+        if budget.kind == "pct" and r.kept and r.span_all != r.span:
+            left = ", ".join(f"{v:g}" for v in r.kept)
+            note = "; ".join(filter(None, [note, (
+                f"{left} left out of the range: {budget.spec} is {eps:.6g} {ch.unit}".rstrip() +
+                f", not {budget.resolve(r.span_all, ch.name):.6g} {ch.unit}".rstrip())]))
+        notes.append(note)
     return grids, notes
 
 
@@ -349,61 +362,28 @@ def _grid_note(budget, grid: Grid) -> str:
     return f"budget {budget.spec} of a zero range is 0, so the channel is stored exactly"
 
 
-def _finite_ranges(rec: Recording):
-    """Per channel: finite min, max, first finite value, and the logged resolution's multiplier.
-
-    The multiplier is the greatest common divisor of the logged integers
-    ``round(x * 10**decimals)`` (channels with a detected decimal grid): a
-    0.005 mV resolution logged with three decimals gives 5.  Samples off the
-    grid do not matter here; quantization checks every sample anyway.
-    """
-    C = len(rec.channels)
-    lo, hi, anchor = np.full(C, np.inf), np.full(C, -np.inf), np.full(C, np.nan)
-    gcd = np.zeros(C, dtype=np.int64)
-    for s in range(0, rec.n_samples, CHUNK_SAMPLES):
-        raw = rec.rows(s, s + CHUNK_SAMPLES)
-        with np.errstate(invalid="ignore"):
-            fast_lo, fast_hi = raw.min(axis=0).astype(np.float64), raw.max(axis=0).astype(np.float64)
-        if np.isfinite(fast_lo).all() and np.isfinite(fast_hi).all():
-            # no NaN or ±Inf in the chunk (either would show in its min or max): no masks needed
-            x, fin = None, None
-            lo, hi = np.minimum(lo, fast_lo), np.maximum(hi, fast_hi)
-            first = np.isnan(anchor)
-            anchor[first] = raw[0, first]
-        else:
-            x = raw.astype(np.float64)
-            fin = np.isfinite(x)
-            with np.errstate(invalid="ignore"):
-                lo = np.minimum(lo, np.where(fin, x, np.inf).min(axis=0, initial=np.inf))
-                hi = np.maximum(hi, np.where(fin, x, -np.inf).max(axis=0, initial=-np.inf))
-            for j in np.flatnonzero(np.isnan(anchor) & fin.any(axis=0)):
-                anchor[j] = x[np.argmax(fin[:, j]), j]
-        for j, ch in enumerate(rec.channels):
-            if ch.decimals is not None and gcd[j] != 1:
-                col = raw[:, j].astype(np.float64) if x is None else x[fin[:, j], j]
-                v = np.abs(np.rint(col * 10.0 ** ch.decimals))
-                v = v[(v > 0) & (v < 2.0 ** 62)].astype(np.int64)
-                gcd[j] = np.gcd.reduce(np.append(v, gcd[j])) if len(v) else gcd[j]
-    none = np.isinf(lo)
-    lo[none], hi[none], anchor[np.isnan(anchor)] = 0.0, 0.0, 0.0
-    mult = np.where((gcd >= 1) & (gcd <= MAX_MULT), gcd, 1)
-    return lo, hi, anchor, mult
-
-
-def _gather(rec: Recording, idx: np.ndarray, W: int) -> np.ndarray:
-    """Windows ``idx`` (sorted) of every channel: (len(idx), W, channels).
+def _gather(rec: Recording, idx: np.ndarray, W: int) -> list[np.ndarray]:
+    """Windows ``idx`` (sorted) of every channel: one ``(len(idx), W)`` array per channel, each in
+    the channel's own dtype (masked where samples are missing).
 
     Runs of consecutive windows (at most 256) share one read; a sparse
     sample reads window by window, so memory stays at the sample's size
     however long the recording.
     """
-    out = np.empty((len(idx), W, len(rec.channels)), dtype=rec.data.dtype)
+    first = rec.rows(0, 1)
+    out = []
+    for j in range(len(rec.channels)):
+        col = first[:, j]
+        make = np.ma.masked_all if isinstance(col, np.ma.MaskedArray) else np.empty
+        out.append(make((len(idx), W), dtype=col.dtype))
     breaks = np.flatnonzero(np.diff(idx) != 1) + 1
     for run in np.split(np.arange(len(idx)), breaks) if len(idx) else []:
         for k in range(0, len(run), 256):
             part = run[k:k + 256]
             a, b = int(idx[part[0]]), int(idx[part[-1]]) + 1
-            out[part] = rec.rows(a * W, b * W).reshape(b - a, W, -1)
+            block = rec.rows(a * W, b * W)
+            for j, o in enumerate(out):
+                o[part] = block[:, j].reshape(b - a, W)
     return out
 
 
@@ -412,15 +392,16 @@ def _tail(rec: Recording, W: int) -> np.ndarray | None:
     return rec.rows((n // W) * W, n) if n % W else None
 
 
-def _training_set(sampled: np.ndarray, grids: list[Grid], W: int, C: int, windows: bool = True):
+def _training_set(sampled: list[np.ndarray], grids: list[Grid], W: int, C: int, windows: bool = True):
     """Per-channel scales and (with ``windows``) the normalised training windows of a bounded pick
     of the sample."""
     per_channel = max(1, TRAIN_WINDOWS // max(C, 1))
-    pick = np.unique(np.linspace(0, len(sampled) - 1, min(len(sampled), per_channel)).round().astype(np.int64)) \
-        if len(sampled) else np.zeros(0, np.int64)
+    k = len(sampled[0]) if C else 0
+    pick = np.unique(np.linspace(0, k - 1, min(k, per_channel)).round().astype(np.int64)) \
+        if k else np.zeros(0, np.int64)
     scales, xs = [], []
     for j in range(C):
-        raw = sampled[pick, :, j]
+        raw = sampled[j][pick]
         q = quantize(raw.ravel(), grids[j])[0].reshape(raw.shape) if raw.size else np.zeros((0, W), np.int64)
         lv = levels(q) if len(q) else np.zeros(0, np.int64)
         scale = channel_scale(q, lv)
@@ -549,12 +530,13 @@ def _choose_window(rec: Recording, grids: list[Grid]) -> tuple[int, str]:
     spans = sample_windows(n, span, per_channel // span)
     if len(spans) < WINDOW_EVAL_MIN // span:
         return DEFAULT_WINDOW, f"window {DEFAULT_WINDOW} (too short a recording to compare window lengths)"
-    sampled = _gather(rec, spans, span)[:, :, chans]
+    every = _gather(rec, spans, span)
+    sampled = [every[c] for c in chans]
     est: dict[int, float] = {}
     for W in WINDOW_CHOICES:            # shortest first; stop once a longer window stops paying
         total = WINDOW_ROW_BYTES * C * (len(spans) * span // W)
         with ThreadPoolExecutor(worker_count(C)) as pool:   # channels side by side
-            total += sum(pool.map(lambda k: coded_bytes(sampled[:, :, k].reshape(-1, W), n // W, grids[chans[k]], W),
+            total += sum(pool.map(lambda k: coded_bytes(sampled[k].reshape(-1, W), n // W, grids[chans[k]], W),
                                   range(C)))
         best_so_far = min(est.values(), default=math.inf)
         est[W] = 8.0 * total / (C * len(spans) * span)

@@ -14,6 +14,13 @@ Two grids:
   representable integers is correctly rounded by IEEE-754, so this gives back
   the very double a decimal parser produced.
 
+Integer channels (int8 … uint64) whose grid has an integer origin and step
+never go through float64: ``q`` is found by exact integer division, the
+decoded value is ``origin + q * step`` in 64-bit wrap-around arithmetic
+(exact modulo 2**64, hence exact whenever the true value is representable),
+and the error is ``max - min`` of the two values in an order-preserving
+unsigned view, exact whatever their magnitude (int64/uint64 near 2**63 too).
+
 Floating point is never trusted to be within bounds by construction: every
 candidate x̂ is checked in float64 *and* after conversion to the output
 dtype.  A sample that fails with ``q`` is retried with ``q ± 1``; what still
@@ -34,6 +41,8 @@ from .errors import ArchiveCorrupt
 
 _MAX_Q = float(2**50)
 MAX_MULT = 1 << 20
+MAX_INT_STEP = 1 << 53          # integer grids: steps above this (absurd budgets) are clamped, exactly representable
+_SIGN = np.uint64(1 << 63)
 
 
 @dataclass(frozen=True)
@@ -47,6 +56,14 @@ class Grid:
     offset: float = 0.0
     decimals: int = 0
     mult: int = 1   # decimal grid: values are multiples of mult * 10**-decimals
+    #: integer channels: the step grid's offset as an exact integer (``offset`` is a float and cannot
+    #: hold every int64/uint64); optional in the manifest, absent in archives written before it
+    origin: int | None = None
+    #: sample values always stored verbatim (the channel's sentinels that occur); encoding only
+    verbatim: tuple = ()
+    #: integer channels with missing samples: the verbatim value (one that no sample has) that marks
+    #: a missing sample; decoding gives a masked array.  Optional in the manifest
+    missing: int | None = None
 
     def __post_init__(self) -> None:
         if self.kind not in ("step", "decimal"):
@@ -57,19 +74,64 @@ class Grid:
             raise ArchiveCorrupt("grid decimals out of range 0..15; the archive is damaged")
         if not 1 <= self.mult <= MAX_MULT:
             raise ArchiveCorrupt("grid multiplier out of range; the archive is damaged")
+        for v in (self.origin, self.missing):
+            if v is not None and not -(1 << 63) <= v < (1 << 64):
+                raise ArchiveCorrupt("grid origin or missing mark out of the 64-bit range; the archive is damaged")
 
     def to_dict(self) -> dict:
-        return {"kind": self.kind, "eps": self.eps, "out_dtype": self.out_dtype, "step": self.step,
-                "offset": self.offset, "decimals": self.decimals, "mult": self.mult}
+        d = {"kind": self.kind, "eps": self.eps, "out_dtype": self.out_dtype, "step": self.step,
+             "offset": self.offset, "decimals": self.decimals, "mult": self.mult}
+        if self.origin is not None:
+            d["origin"] = int(self.origin)
+        if self.verbatim:
+            d["verbatim"] = list(self.verbatim)
+        if self.missing is not None:
+            d["missing"] = int(self.missing)
+        return d
 
     @classmethod
     def from_dict(cls, d: dict) -> "Grid":
         try:
             return cls(kind=str(d["kind"]), eps=float(d["eps"]), out_dtype=str(np.dtype(d["out_dtype"])),
                        step=float(d["step"]), offset=float(d["offset"]), decimals=int(d["decimals"]),
-                       mult=int(d.get("mult", 1)))
+                       mult=int(d.get("mult", 1)), origin=None if d.get("origin") is None else int(d["origin"]),
+                       verbatim=tuple(d.get("verbatim", ())),
+                       missing=None if d.get("missing") is None else int(d["missing"]))
         except (KeyError, TypeError, ValueError) as exc:
             raise ArchiveCorrupt(f"grid description is incomplete ({exc}); the archive is damaged") from None
+
+    # -- integer channels -------------------------------------------------------
+    def int_params(self) -> tuple[int, int] | None:
+        """``(origin, step)`` as exact integers when this grid decodes in integer arithmetic, else None.
+
+        That is an integer output dtype and a grid of integers: a ``decimal``
+        grid with no decimals (``q * mult``) or a ``step`` grid whose step and
+        offset are integers (every grid ``make_grid`` gives an integer channel).
+        """
+        dt = np.dtype(self.out_dtype)
+        if dt.kind not in "iu":
+            return None
+        if self.kind == "decimal":
+            return (0, self.mult) if self.decimals == 0 else None
+        if not (self.step.is_integer() and self.offset.is_integer() and self.step <= 2.0**63):
+            return None
+        origin = int(self.offset) if self.origin is None else self.origin
+        lo, hi = (-(1 << 63), (1 << 63) - 1) if dt.kind == "i" else (0, (1 << 64) - 1)
+        return (origin, int(self.step)) if lo <= origin <= hi else None
+
+    def _int_decode(self, q: np.ndarray, origin: int, step: int) -> np.ndarray:
+        """``origin + q * step`` in 64-bit wrap-around arithmetic, then the output dtype (narrow
+        integer dtypes clip, as the float path did, so archives written before decode the same)."""
+        dt = np.dtype(self.out_dtype)
+        q = np.asarray(q, dtype=np.int64)
+        with np.errstate(over="ignore"):
+            if dt == np.uint64:
+                return np.uint64(origin) + q.view(np.uint64) * np.uint64(step)
+            v = (q.view(np.uint64) * np.uint64(step) + np.uint64(origin % (1 << 64))).view(np.int64)
+        if dt == np.int64:
+            return v
+        info = np.iinfo(dt)
+        return np.clip(v, info.min, info.max).astype(dt)
 
     # -- the two directions ---------------------------------------------------
     def values(self, q: np.ndarray) -> np.ndarray:
@@ -94,12 +156,23 @@ class Grid:
                 return np.clip(np.rint(xh), info.min, info.max).astype(dt)
         return xh.astype(dt)
 
+    def decode(self, q: np.ndarray) -> np.ndarray:
+        """Decoded samples in the output dtype (integer channels in exact integer arithmetic)."""
+        ip = self.int_params()
+        if ip is not None:
+            return self._int_decode(q, *ip)
+        return self.to_out(self.values(q))
+
     def dequantize(self, q: np.ndarray, exc_pos: np.ndarray | None = None,
                    exc_bits: np.ndarray | None = None) -> np.ndarray:
         """Decoded samples in the output dtype, exceptions put back verbatim."""
-        out = self.to_out(self.values(q))
+        out = self.decode(q)
         if exc_pos is not None and len(exc_pos):
             out[exc_pos] = bits_to_values(exc_bits, out.dtype)
+            if self.missing is not None:
+                mask = np.zeros(len(out), dtype=bool)
+                mask[exc_pos[np.asarray(exc_bits) == self.missing]] = True
+                return np.ma.MaskedArray(out, mask=mask)
         return out
 
 
@@ -121,7 +194,8 @@ def bits_to_values(bits: np.ndarray, dtype: np.dtype) -> np.ndarray:
     return bits.astype(dtype)
 
 
-def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float = 0.0, mult: int = 1) -> Grid:
+def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float = 0.0, mult: int = 1,
+              origin: int | None = None) -> Grid:
     """Choose the grid for a channel.
 
     ``eps == 0`` (lossless) uses the decimal grid when the channel has one;
@@ -129,7 +203,10 @@ def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float =
     percentage budget) uses a step grid anchored at ``anchor`` so that a
     constant comes back exactly with ``q == 0``.  A budget below half the
     logged resolution (``mult * 10**-decimals``) is also served exactly by
-    the decimal grid.
+    the decimal grid.  ``origin`` is an integer channel's anchor as an exact
+    integer (``anchor`` is its float64 rounding).  An absurd budget (1e308)
+    is clamped to the largest step the grid can hold: every sample is then
+    well inside it.
     """
     dt = np.dtype(dtype)
     out = dt.name if dt.kind in "fiu" else "float64"
@@ -143,22 +220,74 @@ def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float =
         # Integer samples on multiples of ``mult``: bins of 2m+1 consecutive multiples (m = floor(eps/mult))
         # centred on one, so every decoded value is itself such an integer at most m*mult <= eps away,
         # exactly, and no sample needs to be stored verbatim (a 2*eps step would decode to fractions that
-        # the integer output rounds off).
-        m = int(math.floor(float(eps) / mult))
+        # the integer output rounds off).  The step stays below 2**53 (exact as a float in the manifest).
+        m = min(int(math.floor(float(eps) / mult)), (MAX_INT_STEP // mult - 1) // 2)
         if m == 0:
             return Grid("decimal", 0.0, out, decimals=0, mult=mult)
-        return Grid("step", float(eps), out, step=float((2 * m + 1) * mult), offset=float(round(off)))
-    return Grid("step", float(eps), out, step=2.0 * float(eps), offset=off)
+        info = np.iinfo(dt)
+        o = int(round(off)) if origin is None else int(origin)
+        o = min(max(o, int(info.min)), int(info.max))
+        return Grid("step", float(eps), out, step=float((2 * m + 1) * mult), offset=float(o), origin=o)
+    step = 2.0 * float(eps)
+    return Grid("step", float(eps), out, step=step if math.isfinite(step) else _FLOAT_MAX, offset=off)
 
 
-def _fails(grid: Grid, q: np.ndarray, x64: np.ndarray, raw_bits: np.ndarray | None) -> np.ndarray:
-    xh = grid.values(q)
-    out = grid.to_out(xh)
+_FLOAT_MAX = float(np.finfo(np.float64).max)
+
+
+def _as_u(x: np.ndarray) -> np.ndarray:
+    """Integers in an order-preserving uint64 view (signed ones with the sign bit flipped)."""
+    if x.dtype.kind == "u":
+        return x.astype(np.uint64)
+    return x.astype(np.int64).view(np.uint64) ^ _SIGN
+
+
+def int_abs_diff(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Exact ``|a - b|`` of two integer arrays of the same signedness, as uint64 (max - min in an
+    order-preserving unsigned view: no overflow whatever the magnitudes)."""
+    ua, ub = _as_u(np.asarray(a)), _as_u(np.asarray(b))
+    return np.maximum(ua, ub) - np.minimum(ua, ub)
+
+
+def abs_errors(x: np.ndarray, xh: np.ndarray) -> np.ndarray:
+    """``|xh - x|`` per sample as float64 rounded *up* (never below the exact value), so that
+    ``abs_errors(x, xh) <= eps`` is an exact test for any float ``eps``.
+
+    Integers of the same signedness are subtracted exactly (:func:`int_abs_diff`); floats through
+    float64 with the rounding error of the subtraction recovered by TwoSum (Knuth, TAOCP vol. 2,
+    4.2.2): where the exact difference is above the rounded one, the next float up is taken.
+    Non-finite inputs give NaN or inf.
+    """
+    x, xh = np.asarray(x), np.asarray(xh)
+    if x.dtype.kind in "iu" and xh.dtype.kind in "iu" and (x.dtype.kind == xh.dtype.kind or
+                                                            max(x.dtype.itemsize, xh.dtype.itemsize) < 8):
+        d = int_abs_diff(x.astype(np.int64), xh.astype(np.int64)) if x.dtype.kind != xh.dtype.kind \
+            else int_abs_diff(x, xh)
+        f = d.astype(np.float64)
+        for i in np.flatnonzero(d > np.uint64(1 << 53)):     # float64 may have rounded these down
+            if int(f[i]) < int(d[i]):
+                f[i] = math.nextafter(f[i], math.inf)
+        return f
+    a, b = xh.astype(np.float64), x.astype(np.float64)
+    with np.errstate(invalid="ignore", over="ignore"):
+        s = a - b
+        bp = s - a                               # TwoSum of a and -b: s + e == a - b exactly
+        e = (a - (s - bp)) + (-b - bp)
+        err = np.abs(s)
+        # s == 0 only when a == b (float subtraction is exact near zero), so e is 0 there
+        up = np.isfinite(err) & (e != 0) & ((e > 0) == (s > 0))
+    if up.any():
+        err[up] = np.nextafter(err[up], np.inf)
+    return err
+
+
+def _fails(grid: Grid, q: np.ndarray, x: np.ndarray, raw_bits: np.ndarray | None) -> np.ndarray:
+    out = grid.decode(q)
     if grid.eps == 0:  # bit-exact demanded
         return values_to_bits(out) != raw_bits
-    with np.errstate(invalid="ignore", over="ignore"):
-        bad = ~(np.abs(xh - x64) <= grid.eps)
-        bad |= ~(np.abs(out.astype(np.float64) - x64) <= grid.eps)
+    bad = ~(abs_errors(x, out) <= grid.eps)
+    if grid.int_params() is None:
+        bad |= ~(abs_errors(x, grid.values(q)) <= grid.eps)
     return bad
 
 
@@ -166,13 +295,44 @@ def quantize(x: np.ndarray, grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndar
     """Integers ``q`` plus exceptions ``(positions, raw bits)`` for samples ``x``.
 
     Guarantee: ``grid.dequantize(q, pos, bits)`` is within ``grid.eps`` of
-    ``x`` at every position (bit-exact when ``eps == 0``), checked here in
-    float64 and in the output dtype.
+    ``x`` at every position (bit-exact when ``eps == 0``), checked here
+    exactly: in integers for integer channels, else in float64 with the
+    subtraction's rounding error recovered (:func:`abs_errors`), and in the
+    output dtype.  Samples equal to one of ``grid.verbatim`` are stored
+    verbatim; missing samples (``x`` masked) too, as ``grid.missing``.
     """
+    missing = np.ma.getmaskarray(x) if isinstance(x, np.ma.MaskedArray) else None
+    if missing is not None:
+        if grid.missing is None and missing.any():
+            raise ValueError("missing samples in a channel whose grid has no missing mark")
+        x = x.filled(0)
     x = np.asarray(x)
+    q, pos, bits = _quantize(x, grid)
+    force = np.zeros(len(x), dtype=bool) if missing is None else missing.copy()
+    if grid.verbatim:
+        with np.errstate(invalid="ignore"):
+            force |= np.isin(x, np.array(grid.verbatim, dtype=x.dtype))
+    if not force.any():
+        return q, pos, bits
+    bad = force.copy()
+    bad[pos] = True
+    all_bits = np.zeros(len(x), dtype=np.int64)
+    all_bits[pos] = bits
+    extra = np.flatnonzero(force)
+    all_bits[extra] = values_to_bits(x[extra].astype(grid.out_dtype))
+    if missing is not None:
+        all_bits[missing] = grid.missing
+    fill_from_previous(q, bad)
+    pos = np.flatnonzero(bad)
+    return q, pos.astype(np.int64), all_bits[pos]
+
+
+def _quantize(x: np.ndarray, grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    ip = grid.int_params()
+    if ip is not None and x.dtype.kind in "iu":
+        return _quantize_int(x.astype(grid.out_dtype, copy=False), grid, *ip)
     x64 = x.astype(np.float64)
-    # The source column may be held wider than its own dtype (a float64 table with an int column):
-    # exactness is judged on the value in the channel's dtype.
+    # The source column may be held wider than its own dtype: exactness is judged in the channel's dtype.
     raw_bits = values_to_bits(x.astype(grid.out_dtype)) if grid.eps == 0 else None
     with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
         scaled = x64 * float(10**grid.decimals) / grid.mult if grid.kind == "decimal" else (x64 - grid.offset) / grid.step
@@ -181,14 +341,7 @@ def quantize(x: np.ndarray, grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndar
     q = qf.astype(np.int64)
     bad = ~finite
     todo = finite & _fails(grid, q, x64, raw_bits)
-    for delta in (-1, 1):
-        idx = np.flatnonzero(todo)
-        if not len(idx):
-            break
-        trial = q[idx] + delta
-        ok = ~_fails(grid, trial, x64[idx], None if raw_bits is None else raw_bits[idx])
-        q[idx[ok]] = trial[ok]
-        todo[idx[ok]] = False
+    todo = _retry(grid, q, x64, raw_bits, todo)
     bad |= todo
     pos = np.flatnonzero(bad)
     if len(pos):
@@ -198,6 +351,48 @@ def quantize(x: np.ndarray, grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndar
     else:
         bits = values_to_bits(x[pos].astype(grid.out_dtype)) if len(pos) else np.zeros(0, np.int64)
     return q, pos.astype(np.int64), bits.astype(np.int64)
+
+
+def _retry(grid: Grid, q: np.ndarray, x: np.ndarray, raw_bits, todo: np.ndarray) -> np.ndarray:
+    """In place: give failing samples ``q - 1`` or ``q + 1`` where that is within the bound; returns
+    the samples that still fail."""
+    for delta in (-1, 1):
+        idx = np.flatnonzero(todo)
+        if not len(idx):
+            break
+        trial = q[idx] + delta
+        ok = ~_fails(grid, trial, x[idx], None if raw_bits is None else raw_bits[idx])
+        q[idx[ok]] = trial[ok]
+        todo[idx[ok]] = False
+    return todo
+
+
+def _quantize_int(x: np.ndarray, grid: Grid, origin: int, step: int):
+    """:func:`quantize` for an integer channel on an integer grid, in integer arithmetic throughout:
+    ``q = round((x - origin) / step)`` by exact unsigned division of ``|x - origin|``; samples with
+    ``|q| >= 2**50`` (the predictors' range) are stored verbatim."""
+    if x.dtype == np.uint64:
+        ou = origin
+    else:
+        ou = origin + (1 << 63)
+    if not 0 <= ou < (1 << 64):
+        raise ValueError("grid origin outside the channel's dtype")
+    u, ou, st = _as_u(x), np.uint64(ou), np.uint64(step)
+    ge = u >= ou
+    with np.errstate(over="ignore"):
+        d = np.where(ge, u - ou, ou - u)
+    qa = d // st
+    qa += ((d - qa * st) > st // np.uint64(2)).astype(np.uint64)    # round to nearest
+    small = qa < np.uint64(1 << 50)
+    q = np.where(small, qa, 0).astype(np.int64)
+    q = np.where(ge, q, -q)
+    raw_bits = values_to_bits(x) if grid.eps == 0 else None
+    todo = small & _fails(grid, q, x, raw_bits)
+    bad = ~small | _retry(grid, q, x, raw_bits, todo)
+    pos = np.flatnonzero(bad)
+    if len(pos):
+        fill_from_previous(q, bad)
+    return q, pos.astype(np.int64), values_to_bits(x[pos])
 
 
 def fill_from_previous(q: np.ndarray, bad: np.ndarray) -> None:

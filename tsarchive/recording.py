@@ -73,17 +73,62 @@ class TimeAxis:
     columns: tuple[str, ...] = ()
 
 
+class Columns:
+    """Channels of different dtypes side by side, each in its own dtype (a 2-D array would round an
+    integer above 2**53 that sits beside a float column).
+
+    Indexed like the 2-D arrays it stands in for: ``c[a:b]`` is the rows
+    ``a..b-1`` (a :class:`Columns`), ``c[rows, j]`` and ``c[:, j]`` are channel
+    ``j``'s 1-D array.  A channel with missing samples (nulls) is a
+    ``numpy.ma.MaskedArray``.
+    """
+
+    def __init__(self, arrays) -> None:
+        self.arrays = tuple(arrays)
+        n = {len(a) for a in self.arrays}
+        if len(n) > 1:
+            raise ValueError("columns of different lengths")
+        self.shape = (n.pop() if n else 0, len(self.arrays))
+
+    @property
+    def ndim(self) -> int:
+        return 2
+
+    @property
+    def nbytes(self) -> int:
+        return int(sum(np.asarray(a).nbytes for a in self.arrays))
+
+    @property
+    def dtypes(self) -> tuple[np.dtype, ...]:
+        return tuple(a.dtype for a in self.arrays)
+
+    def __len__(self) -> int:
+        return self.shape[0]
+
+    def __getitem__(self, key):
+        if isinstance(key, tuple):
+            rows, j = key
+            return self.arrays[j][rows]
+        return Columns(a[key] for a in self.arrays)
+
+    def reshape(self, n: int, c: int) -> "Columns":
+        if (n, c) != self.shape and not (c == -1 and n == self.shape[0]):
+            raise ValueError(f"cannot view columns of shape {self.shape} as ({n}, {c})")
+        return self
+
+
 @dataclass(frozen=True)
 class Recording:
     """A multi-channel recording sampled at one regular rate.
 
     ``data`` has shape ``(n_samples, n_channels)``; column ``j`` holds
-    channel ``channels[j]`` in that channel's source dtype (a float64 array
-    when the columns' dtypes differ).  ``shape`` is the array shape of the
+    channel ``channels[j]`` in that channel's source dtype: a 2-D array when
+    every channel has the same dtype and none has missing samples, else
+    :class:`Columns` (one array per channel, each in its own dtype).  ``shape`` is the array shape of the
     source (``(n,)`` for a 1-D ``.npy``) so that unpack can give it back.
     """
 
-    data: np.ndarray
+    data: "np.ndarray | Columns"
     rate: float
     channels: tuple[ChannelInfo, ...]
     start: datetime | None = None
@@ -103,18 +148,15 @@ class Recording:
         Readers call this instead of assembling ``data`` themselves, so that
         how columns of different dtypes are held is decided in one place.
         """
-        columns = list(columns)
+        columns = [c if isinstance(c, np.ma.MaskedArray) else np.asarray(c) for c in columns]
         dtypes = {np.dtype(c.dtype) for c in columns}
-        if len(dtypes) == 1:
-            common = dtypes.pop()
-        elif all(d.kind in "iu" for d in dtypes):
-            common = np.dtype(np.int64)
+        masked = any(isinstance(c, np.ma.MaskedArray) for c in columns)
+        if len(dtypes) == 1 and not masked:
+            data = np.empty((len(columns[0]), len(columns)), dtype=dtypes.pop())
+            for j, col in enumerate(columns):
+                data[:, j] = col
         else:
-            common = np.dtype(np.float64)
-        n = len(columns[0]) if columns else 0
-        data = np.empty((n, len(columns)), dtype=common)
-        for j, col in enumerate(columns):
-            data[:, j] = col
+            data = Columns(columns)
         fields.setdefault("shape", tuple(int(s) for s in data.shape))
         return cls(data=data, rate=rate, channels=tuple(channels), **fields)
 
@@ -130,8 +172,9 @@ class Recording:
         """Channel ``j`` as a 1-D array (a view where possible)."""
         return self.data[:, j]
 
-    def rows(self, a: int, b: int) -> np.ndarray:
-        """Samples ``a..b-1`` of every channel as an in-memory 2-D array.
+    def rows(self, a: int, b: int) -> "np.ndarray | Columns":
+        """Samples ``a..b-1`` of every channel as an in-memory 2-D array (or :class:`Columns`:
+        ``rows(a, b)[:, j]`` is channel ``j`` in its own dtype either way).
 
         For a memory-mapped ``.npy`` the file is mapped afresh for each call
         and unmapped afterwards, so streaming through a file larger than
@@ -145,4 +188,6 @@ class Recording:
             finally:
                 del m
             return block.reshape(b - a, -1)
+        if isinstance(self.data, Columns):
+            return self.data[a:b]
         return np.asarray(self.data[a:b])

@@ -16,6 +16,7 @@ import numpy as np
 
 from . import checksum
 from .errors import ArchiveCorrupt, BadInput
+from .quantize import abs_errors, values_to_bits
 from .recording import Recording
 from .results import ChannelCheck, Progress, VerifyReport
 from .workers import workers as worker_count
@@ -151,14 +152,23 @@ def _column_index(rec: Recording, meta, j: int) -> int:
 
 
 def _out_of_budget(x: np.ndarray, xh: np.ndarray, eps: float) -> tuple[np.ndarray, np.ndarray]:
-    """Per-sample failure mask and |error| (0 where both are the same non-finite value)."""
+    """Per-sample failure mask and |error| (0 where both are the same non-finite value).
+
+    Exact: integers are compared in integers and floats with the
+    subtraction's rounding error recovered (:func:`tsarchive.quantize.abs_errors`);
+    a lossless channel must give back the very same bits (in the decoded dtype).
+    """
+    x = np.asarray(x)
+    if x.dtype.kind in "iu" and xh.dtype.kind in "iu" and x.dtype != xh.dtype \
+            and np.can_cast(x.dtype, xh.dtype, "safe"):
+        x = x.astype(xh.dtype)
+    err = abs_errors(x, xh)
     x64, xh64 = x.astype(np.float64), xh.astype(np.float64)
-    with np.errstate(invalid="ignore", over="ignore"):
-        err = np.abs(xh64 - x64)
     finite = np.isfinite(x64)
     same_nonfinite = ~finite & ((np.isnan(x64) & np.isnan(xh64)) | (x64 == xh64))
     err = np.where(finite, err, np.where(same_nonfinite, 0.0, np.inf))
-    if eps == 0:  # lossless: the very same values (compare in the decoded dtype)
-        same = (x.astype(xh.dtype) == xh) | (np.isnan(x64) & np.isnan(xh64))
-        return ~same | (err > 0), err
+    if eps == 0:  # lossless: the very same bits, in the decoded dtype
+        with np.errstate(invalid="ignore", over="ignore"):
+            same = values_to_bits(x.astype(xh.dtype)) == values_to_bits(xh)
+        return ~same, err
     return ~(err <= eps), err

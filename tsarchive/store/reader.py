@@ -273,7 +273,7 @@ class Archive:
                                                 strict=False).reshape(len(pick), int(L))
             ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
             q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc, lpc_set[sel]), res)
-            x = meta.grid.to_out(meta.grid.values(q))                  # (windows, L), all at once
+            x = meta.grid.decode(q)                                    # (windows, L), all at once
             for k, w in enumerate(windows[sel].tolist()):               # samples stored verbatim
                 if w in held:
                     pos, raw = held[w]
