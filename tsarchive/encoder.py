@@ -158,9 +158,9 @@ def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int
     modes, classes, res, sets = choose_modes(q, Context(lv, ae, lpc), tables)
     payloads = code_windows(modes, classes, res, tables)
     xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
-    x64 = x.astype(np.float64)
+    x64 = np.asarray(x).astype(np.float64)
     with np.errstate(invalid="ignore", over="ignore"):
-        fin = np.isfinite(x64)
+        fin = np.isfinite(x64) & ~np.ma.getmaskarray(x)       # missing samples have no error
         err = np.where(fin, abs_errors(x, xh), 0.0)      # exact (rounded up), integers in integers
         preview = grid.to_out(grid.values(lv[:, None] + np.zeros((1, L), np.int64) if ae is None else ae))
         # peak, not RMS: a short transient must not be diluted by the rest of its window

@@ -93,7 +93,7 @@ def _check_columns(columns: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
         raise BadInput("no channels to write; select at least one channel")
     out, n = {}, None
     for name, arr in columns.items():
-        a = np.asarray(arr)
+        a = arr if isinstance(arr, np.ma.MaskedArray) else np.asarray(arr)   # masked: missing samples
         if a.ndim != 1 or a.dtype.kind not in "fiu":
             raise BadInput(f"channel '{name}' is not a 1-D numeric array ({a.dtype}, {a.ndim}-D); pass one column each")
         if n is not None and a.shape[0] != n:
@@ -136,6 +136,10 @@ def _atomic(path: Path) -> Iterator[str]:
 
 
 def _write_npy(tmp: str, cols: dict[str, np.ndarray], shape_1d: bool) -> None:
+    for name, a in cols.items():
+        if isinstance(a, np.ma.MaskedArray) and np.ma.getmaskarray(a).any():
+            raise BadInput(f"channel '{name}' has missing samples, which .npy cannot hold; export to .csv or "
+                           ".parquet")
     dtype = _common_dtype(cols)
     arrays = list(cols.values())
     if shape_1d and len(arrays) == 1:
@@ -177,7 +181,12 @@ def _header(name: str, unit: str) -> str:
 
 
 def _csv_text(values: np.ndarray) -> list[str]:
-    """Cells for one column chunk: repr for floats (exact round trip), str for ints."""
+    """Cells for one column chunk: repr for floats (exact round trip), str for ints, an empty cell
+    for a missing sample."""
+    if isinstance(values, np.ma.MaskedArray):
+        gone = np.ma.getmaskarray(values)
+        cells = _csv_text(np.ma.getdata(values))
+        return [("" if g else c) for c, g in zip(cells, gone.tolist())]
     if values.dtype.kind == "f":
         return list(map(float.__repr__, values.astype(np.float64, copy=False).tolist()))
     return list(map(str, values.tolist()))
@@ -217,7 +226,8 @@ def _write_parquet(tmp: str, cols: dict[str, np.ndarray], rate: float, start: da
         fields = [pa.field("time", pa.float64(), metadata={b"unit": b"s"})]
     arrays = [time_arr]
     for name, a in cols.items():
-        arr = pa.array(np.ascontiguousarray(a, dtype=a.dtype.newbyteorder("=")))
+        arr = pa.array(np.ascontiguousarray(np.ma.getdata(a), dtype=a.dtype.newbyteorder("=")),
+                       mask=np.ma.getmaskarray(a) if isinstance(a, np.ma.MaskedArray) else None)  # nulls
         unit = units.get(name, "")
         fields.append(pa.field(name, arr.type, metadata={b"unit": unit.encode("utf-8")} if unit else None))
         arrays.append(arr)

@@ -264,9 +264,10 @@ def abs_errors(x: np.ndarray, xh: np.ndarray) -> np.ndarray:
         d = int_abs_diff(x.astype(np.int64), xh.astype(np.int64)) if x.dtype.kind != xh.dtype.kind \
             else int_abs_diff(x, xh)
         f = d.astype(np.float64)
-        for i in np.flatnonzero(d > np.uint64(1 << 53)):     # float64 may have rounded these down
-            if int(f[i]) < int(d[i]):
-                f[i] = math.nextafter(f[i], math.inf)
+        flat_d, flat_f = d.reshape(-1), f.reshape(-1)
+        for i in np.flatnonzero(flat_d > np.uint64(1 << 53)):     # float64 may have rounded these down
+            if int(flat_f[i]) < int(flat_d[i]):
+                flat_f[i] = math.nextafter(flat_f[i], math.inf)
         return f
     a, b = xh.astype(np.float64), x.astype(np.float64)
     with np.errstate(invalid="ignore", over="ignore"):

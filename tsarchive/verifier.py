@@ -121,7 +121,8 @@ def _decode(arc, meta, w0: int, w1: int):
                 x = np.zeros(n, dtype=np.dtype(meta.grid.out_dtype))
                 broken.append(w)
             parts.append(x)
-        return np.concatenate(parts), bad, broken
+        join = np.ma.concatenate if any(isinstance(p, np.ma.MaskedArray) for p in parts) else np.concatenate
+        return join(parts), bad, broken
 
 
 def _list(ws: list[int]) -> str:
@@ -158,7 +159,13 @@ def _out_of_budget(x: np.ndarray, xh: np.ndarray, eps: float) -> tuple[np.ndarra
     subtraction's rounding error recovered (:func:`tsarchive.quantize.abs_errors`);
     a lossless channel must give back the very same bits (in the decoded dtype).
     """
-    x = np.asarray(x)
+    gone, gone_h = np.ma.getmaskarray(x), np.ma.getmaskarray(xh)     # missing samples (nulls)
+    if gone.any() or gone_h.any():
+        bad, err = _out_of_budget(np.ma.getdata(x), np.ma.getdata(xh), eps)
+        both = gone & gone_h
+        bad, err = np.where(both, False, bad | gone | gone_h), np.where(both, 0.0, np.where(gone | gone_h, np.inf, err))
+        return bad, err
+    x, xh = np.asarray(x), np.asarray(xh)
     if x.dtype.kind in "iu" and xh.dtype.kind in "iu" and x.dtype != xh.dtype \
             and np.can_cast(x.dtype, xh.dtype, "safe"):
         x = x.astype(xh.dtype)

@@ -159,13 +159,17 @@ def infer_rate(kind: str, values: np.ndarray, name: str) -> float:
 
 
 def _channel_array(name: str, col: pa.ChunkedArray) -> tuple[np.ndarray, str]:
-    """(1-D numpy array, source dtype name) of a numeric column; nulls become NaN."""
+    """(1-D numpy array, source dtype name) of a numeric column; nulls become NaN in a float column,
+    and masked samples of an integer column (a ``numpy.ma.MaskedArray`` in the column's own dtype:
+    a float64 copy would round integers above 2**53)."""
     t = col.type
     if pa.types.is_null(t):
         return np.full(len(col), np.nan), "float64"
     if pa.types.is_integer(t):
         if col.null_count:
-            return col.cast(pa.float64()).fill_null(np.nan).to_numpy(zero_copy_only=False), "float64"
+            missing = col.is_null().to_numpy(zero_copy_only=False)
+            values = col.fill_null(pa.scalar(0, type=t)).to_numpy(zero_copy_only=False)
+            return np.ma.MaskedArray(values, mask=missing), values.dtype.name
         arr = col.to_numpy(zero_copy_only=False)
         return arr, arr.dtype.name
     if pa.types.is_floating(t):

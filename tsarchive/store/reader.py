@@ -260,6 +260,7 @@ class Archive:
         crcs = t["crc32"].to_numpy()
         held = self._held(channel, w0, w1)          # window -> (positions, bits) stored verbatim
         out = np.empty(int(lens.sum()), dtype=np.dtype(meta.grid.out_dtype))
+        missing = None if meta.grid.missing is None else np.zeros(len(out), dtype=bool)
         offs = np.concatenate([[0], np.cumsum(lens)])
         bad = []
         for L in np.unique(lens):
@@ -281,6 +282,8 @@ class Archive:
                         raise ArchiveCorrupt(f"channel {channel} window {w}: verbatim samples are malformed; "
                                              "the archive is damaged")
                     x[k, pos] = bits_to_values(raw, x.dtype)
+                    if missing is not None:                          # marked missing samples
+                        missing[offs[sel[k]] + pos[raw == meta.grid.missing]] = True
             got = np.array([checksum.window_crc(row) for row in x], dtype=np.int64)
             for k in np.flatnonzero(got != crcs[sel].astype(np.int64)):
                 if check:
@@ -290,7 +293,7 @@ class Archive:
             # windows are consecutive and only a channel's last one is short, so each length is one run
             out[offs[sel[0]]:offs[sel[-1] + 1]] = x.ravel()
         bad.sort()
-        return out, windows, bad
+        return (out if missing is None else np.ma.MaskedArray(out, mask=missing)), windows, bad
 
     @cached_property
     def _schema(self) -> pa.Schema:
@@ -353,6 +356,8 @@ class Archive:
             x, _, _ = self.decode_windows(channel, w0, w1)
             return x[a - w0 * W:b - w0 * W]
         out = np.empty(b - a, dtype=np.dtype(meta.grid.out_dtype))
+        if meta.grid.missing is not None:                 # an integer channel with missing samples
+            out = np.ma.MaskedArray(out, mask=np.zeros(b - a, dtype=bool))
         for c0 in range(w0 - w0 % step, w1, step):   # bounded temporaries: a long channel decodes in steps
             c0, c1 = max(c0, w0), min(w1, c0 + step)
             x, _, _ = self.decode_windows(channel, c0, c1)
