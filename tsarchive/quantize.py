@@ -213,9 +213,14 @@ def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float =
     mult = int(mult) if decimals is not None and 1 <= int(mult) <= MAX_MULT else 1
     if decimals is not None and (eps == 0 or eps < 0.5 * mult * 10.0 ** (-decimals)):
         return Grid("decimal", 0.0, out, decimals=int(decimals), mult=mult)
-    if eps == 0:
-        return Grid("step", 0.0, out, step=1.0, offset=float(anchor) if math.isfinite(anchor) else 0.0)
     off = float(anchor) if math.isfinite(anchor) else 0.0
+    if dt.kind in "iu":
+        info = np.iinfo(dt)
+        o = min(max(int(round(off)) if origin is None else int(origin), int(info.min)), int(info.max))
+        if eps == 0:
+            return Grid("step", 0.0, out, step=1.0, offset=float(o), origin=o)
+    if eps == 0:
+        return Grid("step", 0.0, out, step=1.0, offset=off)
     if dt.kind in "iu":
         # Integer samples on multiples of ``mult``: bins of 2m+1 consecutive multiples (m = floor(eps/mult))
         # centred on one, so every decoded value is itself such an integer at most m*mult <= eps away,
@@ -224,9 +229,6 @@ def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float =
         m = min(int(math.floor(float(eps) / mult)), (MAX_INT_STEP // mult - 1) // 2)
         if m == 0:
             return Grid("decimal", 0.0, out, decimals=0, mult=mult)
-        info = np.iinfo(dt)
-        o = int(round(off)) if origin is None else int(origin)
-        o = min(max(o, int(info.min)), int(info.max))
         return Grid("step", float(eps), out, step=float((2 * m + 1) * mult), offset=float(o), origin=o)
     step = 2.0 * float(eps)
     return Grid("step", float(eps), out, step=step if math.isfinite(step) else _FLOAT_MAX, offset=off)
@@ -264,10 +266,10 @@ def abs_errors(x: np.ndarray, xh: np.ndarray) -> np.ndarray:
         d = int_abs_diff(x.astype(np.int64), xh.astype(np.int64)) if x.dtype.kind != xh.dtype.kind \
             else int_abs_diff(x, xh)
         f = d.astype(np.float64)
-        flat_d, flat_f = d.reshape(-1), f.reshape(-1)
-        for i in np.flatnonzero(flat_d > np.uint64(1 << 53)):     # float64 may have rounded these down
-            if int(flat_f[i]) < int(flat_d[i]):
-                flat_f[i] = math.nextafter(flat_f[i], math.inf)
+        fits = f < 2.0**64                                   # 2**64 itself is above every uint64
+        under = fits & (np.where(fits, f, 0.0).astype(np.uint64) < d)   # float64 rounded these down
+        if under.any():
+            f[under] = np.nextafter(f[under], np.inf)
         return f
     a, b = xh.astype(np.float64), x.astype(np.float64)
     with np.errstate(invalid="ignore", over="ignore"):
@@ -282,13 +284,34 @@ def abs_errors(x: np.ndarray, xh: np.ndarray) -> np.ndarray:
     return err
 
 
+def within(x: np.ndarray, xh: np.ndarray, eps: float) -> np.ndarray:
+    """Exactly ``|xh - x| <= eps`` per sample (False where either is not finite).
+
+    Integers of the same signedness compare in uint64.  For floats the
+    rounded difference decides except where it equals ``eps`` (rounding is
+    monotonic, so a rounded difference below or above ``eps`` is on the same
+    side as the exact one); only those ties need :func:`abs_errors`.
+    """
+    x, xh = np.asarray(x), np.asarray(xh)
+    if x.dtype.kind in "iu" and x.dtype.kind == xh.dtype.kind:
+        limit = np.uint64(min(math.floor(eps), (1 << 64) - 1)) if math.isfinite(eps) else np.uint64((1 << 64) - 1)
+        return int_abs_diff(x, xh) <= limit
+    with np.errstate(invalid="ignore", over="ignore"):
+        s = np.abs(xh.astype(np.float64) - x.astype(np.float64))
+    ok = s <= eps
+    tie = s == eps
+    if tie.any():
+        ok[tie] = abs_errors(x[tie], xh[tie]) <= eps
+    return ok
+
+
 def _fails(grid: Grid, q: np.ndarray, x: np.ndarray, raw_bits: np.ndarray | None) -> np.ndarray:
     out = grid.decode(q)
     if grid.eps == 0:  # bit-exact demanded
         return values_to_bits(out) != raw_bits
-    bad = ~(abs_errors(x, out) <= grid.eps)
+    bad = ~within(x, out, grid.eps)
     if grid.int_params() is None:
-        bad |= ~(abs_errors(x, grid.values(q)) <= grid.eps)
+        bad |= ~within(x, grid.values(q), grid.eps)
     return bad
 
 
