@@ -111,6 +111,15 @@ class Columns:
             return self.arrays[j][rows]
         return Columns(a[key] for a in self.arrays)
 
+    def __array__(self, dtype=None, copy=None) -> np.ndarray:
+        """One 2-D array in the channels' common dtype (float64 for ints beside floats: rounds integers
+        above 2**53, so the pack and verify paths never take this; missing samples as their fill)."""
+        common = np.result_type(*self.dtypes) if dtype is None else np.dtype(dtype)
+        out = np.empty(self.shape, dtype=common)
+        for j, a in enumerate(self.arrays):
+            out[:, j] = np.ma.getdata(a)
+        return out
+
     def reshape(self, n: int, c: int) -> "Columns":
         if (n, c) != self.shape and not (c == -1 and n == self.shape[0]):
             raise ValueError(f"cannot view columns of shape {self.shape} as ({n}, {c})")
