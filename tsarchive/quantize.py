@@ -74,9 +74,10 @@ class Grid:
             raise ArchiveCorrupt("grid decimals out of range 0..15; the archive is damaged")
         if not 1 <= self.mult <= MAX_MULT:
             raise ArchiveCorrupt("grid multiplier out of range; the archive is damaged")
-        for v in (self.origin, self.missing):
-            if v is not None and not -(1 << 63) <= v < (1 << 64):
-                raise ArchiveCorrupt("grid origin or missing mark out of the 64-bit range; the archive is damaged")
+        if self.origin is not None and not -(1 << 63) <= self.origin < (1 << 64):
+            raise ArchiveCorrupt("grid origin out of the 64-bit range; the archive is damaged")
+        if self.missing is not None and not -(1 << 63) <= self.missing < (1 << 63):
+            raise ArchiveCorrupt("grid missing mark out of the int64 range; the archive is damaged")
 
     def to_dict(self) -> dict:
         d = {"kind": self.kind, "eps": self.eps, "out_dtype": self.out_dtype, "step": self.step,
@@ -395,10 +396,7 @@ def _quantize_int(x: np.ndarray, grid: Grid, origin: int, step: int):
     """:func:`quantize` for an integer channel on an integer grid, in integer arithmetic throughout:
     ``q = round((x - origin) / step)`` by exact unsigned division of ``|x - origin|``; samples with
     ``|q| >= 2**50`` (the predictors' range) are stored verbatim."""
-    if x.dtype == np.uint64:
-        ou = origin
-    else:
-        ou = origin + (1 << 63)
+    ou = origin if x.dtype.kind == "u" else origin + (1 << 63)     # the origin in _as_u's view
     if not 0 <= ou < (1 << 64):
         raise ValueError("grid origin outside the channel's dtype")
     u, ou, st = _as_u(x), np.uint64(ou), np.uint64(step)
