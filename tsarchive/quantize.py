@@ -106,17 +106,20 @@ class Grid:
         """``(origin, step)`` as exact integers when this grid decodes in integer arithmetic, else None.
 
         That is an integer output dtype and a grid of integers: a ``decimal``
-        grid with no decimals (``q * mult``) or a ``step`` grid whose step and
-        offset are integers (every grid ``make_grid`` gives an integer channel).
+        grid with no decimals (``q * mult``, the same values the float path
+        gives wherever that was exact) or a ``step`` grid with an exact integer
+        ``origin`` (every grid ``make_grid`` gives an integer channel).  A step
+        grid written before ``origin`` existed decodes through float64 as it
+        was written, so its checksums still hold.
         """
         dt = np.dtype(self.out_dtype)
         if dt.kind not in "iu":
             return None
         if self.kind == "decimal":
             return (0, self.mult) if self.decimals == 0 else None
-        if not (self.step.is_integer() and self.offset.is_integer() and self.step <= 2.0**63):
+        if self.origin is None or not (self.step.is_integer() and self.step <= 2.0**63):
             return None
-        origin = int(self.offset) if self.origin is None else self.origin
+        origin = self.origin
         lo, hi = (-(1 << 63), (1 << 63) - 1) if dt.kind == "i" else (0, (1 << 64) - 1)
         return (origin, int(self.step)) if lo <= origin <= hi else None
 
