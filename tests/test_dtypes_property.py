@@ -97,3 +97,29 @@ def test_every_dtype_round_trips_within_budget(tmp_path_factory, x, kind, absolu
     reported = Fraction(arc.channels[0].worst_error)
     assert reported >= worst and (worst == 0 or float(reported) <= np.nextafter(float(worst), np.inf))
     assert arc.verify(against=rec).ok
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
+@given(columns(), st.data(), st.sampled_from(["lossless", "2", "1%"]))
+def test_mixed_table_with_missing_samples_round_trips(tmp_path_factory, x, data, budget):
+    # an integer column with nulls beside a float column: each held in its own dtype, the nulls kept
+    if x.dtype.kind not in "iu":
+        x = np.arange(len(x), dtype=np.int64) * 7 - 2**62        # large integers (float64 spacing 1024)
+    gone = np.array(data.draw(st.lists(st.booleans(), min_size=len(x), max_size=len(x))))
+    other = np.round(np.linspace(-3.0, 3.0, len(x)), 2)
+    rec = Recording.from_columns([np.ma.MaskedArray(x, mask=gone), other], rate=10.0,
+                                 channels=[ChannelInfo("n", dtype=x.dtype.name, decimals=0),
+                                           ChannelInfo("f", dtype="float64", decimals=2)])
+    out = tmp_path_factory.mktemp("m") / "m.tsa"
+    tsarchive.pack(rec, out, budget, window=16, code_size=0)
+    arc = tsarchive.open(out)
+    back = arc.read("n")
+    eps = arc.channel("n").eps
+    assert back.dtype == x.dtype
+    assert np.ma.getmaskarray(back).tolist() == gone.tolist()
+    for a, b, g in zip(x.tolist(), np.ma.getdata(back).tolist(), gone.tolist()):
+        if not g:
+            assert abs(int(a) - int(b)) <= eps, (a, b, eps)        # exact: Python ints
+    f_eps = arc.channel("f").eps
+    assert all(abs(Fraction(a) - Fraction(b)) <= Fraction(f_eps) for a, b in zip(other.tolist(), arc.read("f").tolist()))
+    assert arc.verify(against=rec).ok

@@ -219,7 +219,9 @@ def test_csv_nan_inf_and_empty_cells(tmp_path):
     rec = read_recording(p, rate=1)
     a, b, c = (rec.column(j) for j in range(3))
     assert np.isnan(a[1]) and a[0] == 1.5 and np.signbit(a[2])
-    assert np.isnan(b[0]) and b[1:].tolist() == [2.0, 3.0] and rec.channels[1].dtype == "float64"
+    # an integer column with an empty cell stays integer; the cell is missing (masked), not NaN
+    assert np.ma.getmaskarray(b).tolist() == [True, False, False] and b[1:].tolist() == [2, 3]
+    assert rec.channels[1].dtype == "int64"
     assert c[0] == np.inf and c[1] == -np.inf and np.isnan(c[2])
 
 

@@ -215,3 +215,22 @@ def test_integer_channels_in_a_band_need_no_verbatim_samples(dtype):
         assert len(pos) == 0
         back = g.dequantize(q)
         assert max(abs(int(a) - int(b)) for a, b in zip(x.tolist(), back.tolist())) <= 2
+
+
+def test_nulls_beside_both_ends_of_the_range_take_a_free_value_or_are_refused(tmp_path):
+    from tsarchive.errors import BadInput
+    x = np.append(np.arange(-128, 128), [0]).astype(np.int8)
+    gone = np.zeros(len(x), dtype=bool)
+    gone[-1] = True
+    every = Recording.from_columns([np.ma.MaskedArray(x, mask=gone)], rate=1.0,
+                                   channels=[ChannelInfo("n", dtype="int8", decimals=0)])
+    with pytest.raises(BadInput, match="missing samples") as err:      # all 256 values occur: no mark left
+        tsarchive.pack(every, tmp_path / "x.tsa", "lossless", code_size=0)
+    assert "\n" not in str(err.value) and not (tmp_path / "x.tsa").exists()
+    gone[5] = True                                   # now -123 occurs nowhere: it can mark the missing ones
+    rec = Recording.from_columns([np.ma.MaskedArray(x, mask=gone)], rate=1.0,
+                                 channels=[ChannelInfo("n", dtype="int8", decimals=0)])
+    tsarchive.pack(rec, tmp_path / "y.tsa", "lossless", code_size=0)
+    back = tsarchive.open(tmp_path / "y.tsa").read("n")
+    assert np.ma.getmaskarray(back).tolist() == gone.tolist()
+    assert np.ma.getdata(back)[~gone].tolist() == x[~gone].tolist()

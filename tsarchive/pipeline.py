@@ -336,8 +336,8 @@ def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
         eps = budget.resolve(r.span, ch.name)
         g = make_grid(eps, ch.decimals, np.dtype(ch.dtype), r.anchor, r.mult, origin=r.origin)
         if r.no_mark:
-            raise BadInput(f"channel {ch.name} has missing samples and takes every value of {ch.dtype}, so a "
-                           "missing sample cannot be told apart; fill the gaps or store the column as float")
+            raise BadInput(f"channel {ch.name} has missing samples but no value of {ch.dtype} is free to mark "
+                           "them; fill the gaps or store the column in a wider integer type")
         if r.kept or r.missing is not None:
             g = replace(g, verbatim=r.kept, missing=r.missing)
         grids.append(g)

@@ -75,8 +75,10 @@ class _Scan:
             if len(v):
                 self.gcd = int(np.gcd.reduce(np.append(v, type(v[0])(self.gcd))))
 
-    def result(self) -> Range:
+    def result(self, rec: Recording | None = None, j: int = 0) -> Range:
         mark = self._mark() if self.has_missing and self.dt.kind in "iu" else None
+        if mark is None and rec is not None and self.has_missing and self.dt.kind in "iu":
+            mark = _free_value(rec, j, self.dt)
         no_mark = self.has_missing and self.dt.kind in "iu" and mark is None
         if self.lo is None:
             return Range(0.0, _span(self.lo_all, self.hi_all), 0.0, None, 1, tuple(sorted(self.found)), mark, no_mark)
@@ -97,6 +99,26 @@ class _Scan:
         else:
             return None
         return int(np.array([v], dtype=self.dt).astype(np.int64)[0])
+
+
+def _free_value(rec: Recording, j: int, dt: np.dtype) -> int | None:
+    """A value of ``dt`` that no sample of channel ``j`` has, as int64 bits, or None (a second pass,
+    taken only when both ends of the dtype's range occur): every value is a candidate for dtypes of
+    up to 16 bits, else 64 evenly spread ones."""
+    info = np.iinfo(dt)
+    if info.bits <= 16:
+        cand = np.arange(int(info.min), int(info.max) + 1, dtype=np.int64)
+    else:
+        cand = np.array([int(info.min) + k * ((int(info.max) - int(info.min)) // 65) for k in range(1, 65)],
+                        dtype=object)
+    cand = cand.astype(dt)
+    seen = np.zeros(len(cand), dtype=bool)
+    for s in range(0, rec.n_samples, CHUNK_SAMPLES):
+        col = rec.rows(s, s + CHUNK_SAMPLES)[:, j]
+        col = col.compressed() if isinstance(col, np.ma.MaskedArray) else np.asarray(col)
+        seen |= np.isin(cand, col)
+    free = np.flatnonzero(~seen)
+    return int(cand[free[:1]].astype(np.int64)[0]) if len(free) else None
 
 
 def _min(a, b):
@@ -145,4 +167,4 @@ def finite_ranges(rec: Recording) -> list[Range]:
         block = rec.rows(s, s + CHUNK_SAMPLES)
         for j, scan in enumerate(scans):
             scan.add(block[:, j])
-    return [scan.result() for scan in scans]
+    return [scan.result(rec, j) for j, scan in enumerate(scans)]
