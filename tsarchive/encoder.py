@@ -21,7 +21,8 @@ from . import checksum, entropy
 from .codec import FRAC_SAFE_SCALE, TableSet, ae_prediction, choose_modes, proxy_bits
 from .predict import Context
 from .predict import lpc as lpc_mod
-from .quantize import Grid, abs_errors, quantize
+from .exact import abs_errors
+from .quantize import Grid, quantize
 from .store import schema as S
 from .windows import levels, normalise
 

@@ -16,7 +16,8 @@ import numpy as np
 
 from . import checksum
 from .errors import ArchiveCorrupt, BadInput
-from .quantize import abs_errors, values_to_bits
+from .exact import abs_errors
+from .quantize import values_to_bits
 from .recording import Recording
 from .results import ChannelCheck, Progress, VerifyReport
 from .workers import workers as worker_count
