@@ -1,8 +1,10 @@
 """What ingest hands to the pipeline: a recording and its channels.
 
 A :class:`Recording` is a 2-D array (samples x channels, possibly a
-read-only memory map so that large files stream), a sample rate and one
-:class:`ChannelInfo` per column.  Readers live in :mod:`tsarchive.ingest`.
+read-only memory map so that large files stream) or, when the channels'
+dtypes differ or a channel has missing samples, :class:`Columns` (one array
+per channel in its own dtype), a sample rate and one :class:`ChannelInfo`
+per column.  Readers live in :mod:`tsarchive.ingest`.
 """
 
 from __future__ import annotations
