@@ -54,6 +54,7 @@ def test_uint64_above_2_63_stays_within_budget(tmp_path):
     src, arc, res = _pack_npy(tmp_path, x, "5")
     back = tsarchive.open(arc).read("ch0")
     assert back.dtype == np.uint64 and _max_err(x, back) <= 5
+    assert int(back[7]) == 2**64 - 1 and int(back[8]) == 0   # far from the grid: held verbatim, exactly
     assert res.channels[0].worst_error == _max_err(x, back)
     assert tsarchive.verify(arc, against=src).ok
 
@@ -90,6 +91,14 @@ def test_verify_compares_floats_exactly():
     assert bad.tolist() == [True] and err[0] > 2.0**53
     bad, _ = _out_of_budget(x, xh, 2.0**53 + 2)
     assert bad.tolist() == [False]
+
+
+def test_verify_lossless_compares_bits():
+    # IEEE-754: -0.0 == 0.0 and NaN payloads compare unequal to nothing, yet the bits differ
+    x = np.array([-0.0, np.float64(np.nan), 1.0])
+    xh = np.array([0.0, np.array([0x7FF8000000000001], dtype=np.int64).view(np.float64)[0], 1.0])
+    bad, _ = _out_of_budget(x, xh, 0.0)
+    assert bad.tolist() == [True, True, False]
 
 
 def test_mixed_csv_lossless_keeps_large_integers_exactly(tmp_path):
