@@ -132,11 +132,16 @@ def _max(a, b):
 
 
 def _span(lo, hi) -> float:
-    """``hi - lo`` as a float (exact integers subtracted first); 0 when there are none or it overflows."""
+    """``hi - lo`` as a float (exact integers subtracted first); 0 when there are none.  A span beyond
+    the largest double (finite floats near ±max) counts as that largest double: a %-budget of it is
+    then a little smaller than asked, never larger."""
     if lo is None:
         return 0.0
     d = float(hi - lo) if isinstance(lo, int) and isinstance(hi, int) else float(hi) - float(lo)
-    return d if math.isfinite(d) else 0.0
+    return d if math.isfinite(d) else _FLOAT_MAX
+
+
+_FLOAT_MAX = float(np.finfo(np.float64).max)
 
 
 def _sentinels_in(values, dt: np.dtype) -> np.ndarray:
