@@ -243,3 +243,16 @@ def test_nulls_beside_both_ends_of_the_range_take_a_free_value_or_are_refused(tm
     back = tsarchive.open(tmp_path / "y.tsa").read("n")
     assert np.ma.getmaskarray(back).tolist() == gone.tolist()
     assert np.ma.getdata(back)[~gone].tolist() == x[~gone].tolist()
+
+
+def test_percent_of_a_range_beyond_the_largest_double(tmp_path):
+    # max - min of ±1e308 overflows float64 (IEEE-754 max about 1.798e308): the budget takes the largest
+    # double as the range (a little below the true one, so never more than asked), not 0
+    x = np.array([-1e308, 1e308, 0.0, 5.0, -7.5] * 20)
+    rec = Recording(data=x[:, None], rate=1.0, channels=(ChannelInfo("w"),), shape=x.shape)
+    res = tsarchive.pack(rec, tmp_path / "w.tsa", "1%", code_size=0)
+    eps = res.channels[0].eps
+    assert eps == 0.01 * float(np.finfo(np.float64).max)
+    back = tsarchive.open(tmp_path / "w.tsa").read("w")
+    from fractions import Fraction
+    assert all(abs(Fraction(a) - Fraction(b)) <= Fraction(eps) for a, b in zip(x.tolist(), back.tolist()))
