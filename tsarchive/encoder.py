@@ -21,7 +21,7 @@ from . import checksum, entropy
 from .codec import FRAC_SAFE_SCALE, TableSet, ae_prediction, choose_modes, proxy_bits
 from .predict import Context
 from .predict import lpc as lpc_mod
-from .exact import abs_errors
+from .exact import max_errors
 from .quantize import Grid, quantize
 from .store import schema as S
 from .windows import levels, normalise
@@ -162,12 +162,11 @@ def encode_batch(x: np.ndarray, first_window: int, name: str, grid: Grid, W: int
     x64 = np.asarray(x).astype(np.float64)
     with np.errstate(invalid="ignore", over="ignore"):
         fin = np.isfinite(x64) & ~np.ma.getmaskarray(x)       # missing samples have no error
-        err = np.where(fin, abs_errors(x, xh), 0.0)      # exact (rounded up), integers in integers
         preview = grid.to_out(grid.values(lv[:, None] + np.zeros((1, L), np.int64) if ae is None else ae))
         # peak, not RMS: a short transient must not be diluted by the rest of its window
         score = np.where(fin, np.abs(x64 - preview.astype(np.float64)), 0.0).max(axis=1, initial=0.0)
     wpos = pos // L
-    worst = err.max(axis=1) if L else np.zeros(nb)
+    worst = max_errors(np.ma.getdata(x), np.ma.getdata(xh), fin)   # exact (rounded up), integers in integers
     rows = pa.table({
         "channel": [name] * nb,
         "window": np.arange(first_window, first_window + nb, dtype=np.int32),

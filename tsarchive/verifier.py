@@ -16,7 +16,7 @@ import numpy as np
 
 from . import checksum
 from .errors import ArchiveCorrupt, BadInput
-from .exact import abs_errors
+from .exact import abs_errors, rounded_errors
 from .quantize import values_to_bits
 from .recording import Recording
 from .results import ChannelCheck, Progress, VerifyReport
@@ -86,7 +86,7 @@ def _check_channel(arc, rec, meta, col, step) -> tuple[ChannelCheck, list[str]]:
             for w in undecodable:  # already reported; do not count their placeholder samples
                 lo = (w - w0) * meta.window
                 bad_mask[lo:lo + meta.window], err[lo:lo + meta.window] = False, 0.0
-            worst = max(worst, float(err.max()) if len(err) else 0.0)
+            worst = max(worst, _worst(x, xh, err))
             if bad_mask.any():
                 n_bad += int(bad_mask.sum())
                 bad_windows.extend(int(w) for w in np.unique(a // meta.window + np.flatnonzero(bad_mask)
@@ -157,7 +157,7 @@ def _out_of_budget(x: np.ndarray, xh: np.ndarray, eps: float) -> tuple[np.ndarra
     """Per-sample failure mask and |error| (0 where both are the same non-finite value).
 
     Exact: integers are compared in integers and floats with the
-    subtraction's rounding error recovered (:func:`tsarchive.quantize.abs_errors`);
+    subtraction's rounding error recovered where it decides (:mod:`tsarchive.exact`);
     a lossless channel must give back the very same bits (in the decoded dtype).
     """
     gone, gone_h = np.ma.getmaskarray(x), np.ma.getmaskarray(xh)     # missing samples (nulls)
@@ -170,7 +170,7 @@ def _out_of_budget(x: np.ndarray, xh: np.ndarray, eps: float) -> tuple[np.ndarra
     if x.dtype.kind in "iu" and xh.dtype.kind in "iu" and x.dtype != xh.dtype \
             and np.can_cast(x.dtype, xh.dtype, "safe"):
         x = x.astype(xh.dtype)
-    err = abs_errors(x, xh)
+    err = rounded_errors(x, xh)
     x64, xh64 = x.astype(np.float64), xh.astype(np.float64)
     finite = np.isfinite(x64)
     same_nonfinite = ~finite & ((np.isnan(x64) & np.isnan(xh64)) | (x64 == xh64))
@@ -179,4 +179,18 @@ def _out_of_budget(x: np.ndarray, xh: np.ndarray, eps: float) -> tuple[np.ndarra
         with np.errstate(invalid="ignore", over="ignore"):
             same = values_to_bits(x.astype(xh.dtype)) == values_to_bits(xh)
         return ~same, err
-    return ~(err <= eps), err
+    bad = ~(err <= eps)
+    tie = np.flatnonzero(err == eps)        # a rounded float difference equal to eps: the exact one decides
+    if len(tie):
+        exact = abs_errors(x[tie], xh[tie])
+        bad[tie], err[tie] = ~(exact <= eps), exact
+    return bad, err
+
+
+def _worst(x: np.ndarray, xh: np.ndarray, err: np.ndarray) -> float:
+    """The largest of ``err`` (from :func:`_out_of_budget`), rounded up to be never below the exact error."""
+    m = float(err.max()) if len(err) else 0.0
+    if 0 < m < np.inf:
+        at = np.flatnonzero(err == m)
+        m = max(m, float(abs_errors(np.ma.getdata(x)[at], np.ma.getdata(xh)[at]).max()))
+    return m
