@@ -86,7 +86,7 @@ def _check_channel(arc, rec, meta, col, step) -> tuple[ChannelCheck, list[str]]:
             for w in undecodable:  # already reported; do not count their placeholder samples
                 lo = (w - w0) * meta.window
                 bad_mask[lo:lo + meta.window], err[lo:lo + meta.window] = False, 0.0
-            worst = max(worst, _worst(x, xh, err))
+            worst = max(worst, float(err.max()) if len(err) else 0.0)
             if bad_mask.any():
                 n_bad += int(bad_mask.sum())
                 bad_windows.extend(int(w) for w in np.unique(a // meta.window + np.flatnonzero(bad_mask)
@@ -185,12 +185,3 @@ def _out_of_budget(x: np.ndarray, xh: np.ndarray, eps: float) -> tuple[np.ndarra
         exact = abs_errors(x[tie], xh[tie])
         bad[tie], err[tie] = ~(exact <= eps), exact
     return bad, err
-
-
-def _worst(x: np.ndarray, xh: np.ndarray, err: np.ndarray) -> float:
-    """The largest of ``err`` (from :func:`_out_of_budget`), rounded up to be never below the exact error."""
-    m = float(err.max()) if len(err) else 0.0
-    if 0 < m < np.inf:
-        at = np.flatnonzero(err == m)
-        m = max(m, float(abs_errors(np.ma.getdata(x)[at], np.ma.getdata(xh)[at]).max()))
-    return m
