@@ -256,3 +256,17 @@ def test_percent_of_a_range_beyond_the_largest_double(tmp_path):
     back = tsarchive.open(tmp_path / "w.tsa").read("w")
     from fractions import Fraction
     assert all(abs(Fraction(a) - Fraction(b)) <= Fraction(eps) for a, b in zip(x.tolist(), back.tolist()))
+
+
+def test_npy_export_refuses_to_round_large_integers_beside_floats(tmp_path):
+    from tsarchive.errors import BadInput
+    big = np.arange(100, dtype=np.int64) + 2**60 + 1          # odd: float64 (spacing 256 here) cannot hold it
+    rec = Recording.from_columns([big, np.linspace(0, 1, 100)], rate=1.0,
+                                 channels=[ChannelInfo("n", dtype="int64", decimals=0), ChannelInfo("f")])
+    tsarchive.pack(rec, tmp_path / "m.tsa", "n=lossless,0.01", code_size=0)
+    arc = tsarchive.open(tmp_path / "m.tsa")
+    with pytest.raises(BadInput, match="2\\*\\*53"):
+        arc.export(tmp_path / "m.npy")
+    assert not (tmp_path / "m.npy").exists()
+    arc.export(tmp_path / "n.npy", channels=["n"])            # on its own it keeps its dtype
+    assert _ints(np.load(tmp_path / "n.npy").ravel()) == _ints(big)

@@ -136,11 +136,15 @@ def _atomic(path: Path) -> Iterator[str]:
 
 
 def _write_npy(tmp: str, cols: dict[str, np.ndarray], shape_1d: bool) -> None:
+    dtype = _common_dtype(cols)
     for name, a in cols.items():
         if isinstance(a, np.ma.MaskedArray) and np.ma.getmaskarray(a).any():
             raise BadInput(f"channel '{name}' has missing samples, which .npy cannot hold; export to .csv or "
                            ".parquet")
-    dtype = _common_dtype(cols)
+        if dtype.kind == "f" and a.dtype.kind in "iu" and len(a) and \
+                not (-(2**53) <= int(a.min()) and int(a.max()) <= 2**53):
+            raise BadInput(f"channel '{name}' holds integers beyond 2**53 that one float64 .npy array would "
+                           "round; export to .csv or .parquet, or that channel on its own")
     arrays = list(cols.values())
     if shape_1d and len(arrays) == 1:
         data = np.ascontiguousarray(arrays[0], dtype=dtype)
