@@ -23,7 +23,7 @@ CHUNK_SAMPLES = 1 << 20      # samples per channel read per step
 
 @dataclass(frozen=True)
 class Range:
-    """One channel's values as a budget and a grid need them (see :func:`_finite_ranges`)."""
+    """One channel's values as a budget and a grid need them (see :func:`finite_ranges`)."""
 
     span: float           # max - min of the finite samples that are not sentinels
     span_all: float       # the same with the sentinels counted
@@ -32,7 +32,7 @@ class Range:
     mult: int             # the logged resolution's multiplier (gcd of the logged integers)
     kept: tuple[float, ...]  # sentinel values that occur (stored verbatim)
     missing: int | None = None  # integer channels with missing samples: the int64 bits marking one
-    no_mark: bool = False       # missing samples but every value of the dtype occurs: no mark is free
+    no_mark: bool = False       # missing samples but no value of the dtype was found free to mark them
 
 
 class _Scan:
