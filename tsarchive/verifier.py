@@ -35,6 +35,8 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
         if not p.is_file() or checksum.file_sha256(p) != info.get("sha256"):
             problems.append(f"member {name}: SHA-256 differs from the manifest (file damaged or replaced)")
     rec = _source(arc, against)
+    if rec is not None:
+        problems.extend(compare_times(arc, rec))
     total = sum(c.n_windows for c in arc.channels)
     done = [0]
     lock = threading.Lock()
@@ -121,6 +123,27 @@ def _decode(arc, meta, w0: int, w1: int):
                 broken.append(w)
             parts.append(x)
         return np.concatenate(parts), bad, broken
+
+
+def compare_times(arc, rec: Recording) -> list[str]:
+    """The source's time axis (its time column, else start + i/rate) against the archive's, exactly:
+    kind, zone, then every time (ns, or float bits); the first difference is named."""
+    from .store.timeaxis import DATETIME, source_axis
+    src, tl = source_axis(rec), arc.timeline
+    if (src.kind, src.zone) != (tl.kind, tl.zone):
+        return [f"time axis: the source's times are {src.kind} (zone {src.zone or 'none'}) but the archive's "
+                f"{tl.kind} (zone {tl.zone or 'none'})"]
+    n = len(src.values)
+    if n != tl.n:
+        return [f"time axis: the source has {n} times but the archive {tl.n}"]
+    for lo in range(0, n, CHUNK_SAMPLES):
+        a, b = src.values[lo:lo + CHUNK_SAMPLES], tl.values(lo, lo + CHUNK_SAMPLES)
+        diff = np.flatnonzero(a.view(np.int64) != b.view(np.int64))
+        if diff.size:
+            i = int(diff[0])
+            show = (lambda v: str(np.datetime64(int(v), "ns"))) if src.kind == DATETIME else (lambda v: repr(float(v)))
+            return [f"time axis: sample {lo + i} is at {show(a[i])} in the source but {show(b[i])} in the archive"]
+    return []
 
 
 def _list(ws: list[int]) -> str:

@@ -1,0 +1,270 @@
+"""The time axis, notes and text columns: kept in the archive and given back exactly as logged."""
+
+from __future__ import annotations
+
+import csv
+import json
+import shutil
+from datetime import datetime, timedelta, timezone
+from fractions import Fraction
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+import tsarchive
+from tsarchive.cli import main
+from tsarchive.errors import ArchiveCorrupt, BadInput
+from tsarchive.recording import ChannelInfo, Recording, TimeAxis
+from tsarchive.store import timeaxis
+from tsarchive.timespec import parse_offset
+
+NS = 10**9
+T0 = int(np.datetime64("2024-03-05T14:00:00", "ns").astype(np.int64))   # numpy's own calendar arithmetic
+
+
+def _signal(n: int) -> np.ndarray:
+    return np.round(np.sin(np.arange(n) / 37.0) * 100, 2)
+
+
+def _rec(n: int, times: np.ndarray | None = None, *, kind="datetime", zone=None, rate=1.0, **fields) -> Recording:
+    time = None if times is None else TimeAxis(kind, times, zone, ("Timestamp",))
+    return Recording.from_columns([_signal(n)], rate=rate, channels=[ChannelInfo("temp", "degC", decimals=2)],
+                                  time=time, **fields)
+
+
+def _pack(rec, path, **kw):
+    tsarchive.pack(rec, path, "0.01", code_size=0, **kw)
+    return tsarchive.open(path)
+
+
+def _gapped(n: int = 3000, at: int = 100, rows: int = 60) -> np.ndarray:
+    """A 1 Hz clock with ``rows`` missing rows before sample ``at``."""
+    k = np.arange(n, dtype=np.int64)
+    k[at:] += rows
+    return T0 + k * NS
+
+
+def _csv_rows(path):
+    with open(path, newline="", encoding="utf-8") as fh:
+        return list(csv.reader(fh))
+
+
+# -- the user's cases ---------------------------------------------------------------
+def test_a_60_row_gap_comes_back_exactly(tmp_path):
+    times = _gapped()
+    arc = _pack(_rec(len(times), times), tmp_path / "gap.tsa")
+    assert arc.manifest["time"]["runs"] == [[0, int(times[0])], [100, int(times[100])]]   # two runs, no member
+    assert timeaxis.TIME_MEMBER not in arc.manifest["members"]
+    np.testing.assert_array_equal(arc.times().values, times)
+    assert main(["unpack", str(tmp_path / "gap.tsa"), "-o", str(tmp_path / "gap.csv")]) == 0
+    rows = _csv_rows(tmp_path / "gap.csv")
+    # reference: Python's datetime.fromisoformat parses each cell; numpy's datetime64 gives the expected times
+    got = [datetime.fromisoformat(r[0]) for r in rows[1:]]
+    want = [datetime.fromisoformat(str(np.datetime64(int(t), "ns").astype("datetime64[s]"))) for t in times]
+    assert got == want
+    assert got[100] - got[99] == timedelta(seconds=61)
+
+
+def test_naive_local_times_stay_naive(tmp_path):
+    # a start without a zone: no Z in the manifest, the CSV or the Parquet export
+    rec = _rec(500, start=datetime(2024, 3, 5, 14, 0, 0), rate=2.0)
+    arc = _pack(rec, tmp_path / "naive.tsa")
+    assert arc.manifest["channels"][0]["start"] == "2024-03-05T14:00:00"
+    arc.export(tmp_path / "n.csv")
+    rows = _csv_rows(tmp_path / "n.csv")
+    assert rows[1][0] == "2024-03-05T14:00:00.000" and rows[2][0] == "2024-03-05T14:00:00.500"   # ms: coarsest exact
+    arc.export(tmp_path / "n.parquet")
+    t = pq.read_table(tmp_path / "n.parquet")
+    assert t.schema.field("time").type == pa.timestamp("ns")                           # no zone attached
+    assert t["time"][3].as_py() == datetime(2024, 3, 5, 14, 0, 1, 500000)
+
+
+def test_offsets_are_kept_as_logged(tmp_path):
+    # the instants are 13:00Z + i s; logged as +01:00 they read 14:00+01:00
+    times = T0 - 3600 * NS + np.arange(400, dtype=np.int64) * NS
+    arc = _pack(_rec(400, times, zone="+01:00"), tmp_path / "off.tsa")
+    assert arc.manifest["channels"][0]["start"] == "2024-03-05T14:00:00+01:00"
+    arc.export(tmp_path / "o.csv")
+    rows = _csv_rows(tmp_path / "o.csv")
+    assert rows[0][0] == "Timestamp" and rows[1][0] == "2024-03-05T14:00:00+01:00"
+    cet = timezone(timedelta(hours=1))
+    assert datetime.fromisoformat(rows[5][0]) == datetime(2024, 3, 5, 13, 0, 4, tzinfo=timezone.utc).astimezone(cet)
+    arc.export(tmp_path / "o.parquet")
+    col = pq.read_table(tmp_path / "o.parquet")["Timestamp"]
+    assert col.type == pa.timestamp("ns", tz="+01:00")
+    np.testing.assert_array_equal(col.cast(pa.int64()).to_numpy(), times)
+
+
+def test_jittery_clock_is_listed_and_exact(tmp_path):
+    rng = np.random.default_rng(3)
+    times = T0 + np.arange(5000, dtype=np.int64) * 1_000_000 + rng.integers(-40_000, 40_000, 5000)
+    arc = _pack(_rec(5000, times, rate=1000.0), tmp_path / "jit.tsa")
+    assert arc.manifest["time"]["listed"] is True
+    assert timeaxis.TIME_MEMBER in arc.manifest["members"]           # checksummed like every member
+    # reference: the Parquet footer names the column's encodings (Parquet format spec)
+    encodings = pq.ParquetFile(tmp_path / "jit.tsa" / timeaxis.TIME_MEMBER).metadata.row_group(0).column(0).encodings
+    assert "DELTA_BINARY_PACKED" in encodings
+    np.testing.assert_array_equal(arc.times().values, times)
+    assert tsarchive.verify(tmp_path / "jit.tsa", against=_rec(5000, times, rate=1000.0)).ok
+
+
+def test_seconds_axis_comes_back_bit_for_bit(tmp_path):
+    # elapsed seconds accumulated in float64 by a logger (0.1 + 0.1 + ...): not i / rate
+    secs = np.cumsum(np.full(2000, 0.1)) - 0.1
+    secs[700:] += 12.5                                                  # a pause
+    arc = _pack(_rec(2000, secs, kind="seconds", rate=10.0), tmp_path / "s.tsa")
+    np.testing.assert_array_equal(arc.times().values.view(np.int64), secs.view(np.int64))
+    arc.export(tmp_path / "s.csv")
+    cells = [r[0] for r in _csv_rows(tmp_path / "s.csv")[1:]]
+    # reference: float(repr(x)) == x for every double (Python's repr is the shortest round-tripping text)
+    np.testing.assert_array_equal(np.array([float(c) for c in cells]).view(np.int64), secs.view(np.int64))
+    # a clean axis i / 10 is one run: nothing but its start is stored
+    clean = np.arange(2000) / 10.0
+    arc2 = _pack(_rec(2000, clean, kind="seconds", rate=10.0), tmp_path / "c.tsa")
+    assert arc2.manifest["time"]["runs"] == [[0, (0.0).hex()]]
+    np.testing.assert_array_equal(arc2.times().values.view(np.int64), clean.view(np.int64))
+
+
+@pytest.mark.parametrize("rate", [1.0, 3.0, 44.1, 0.1, 1 / 3, 7e5, 2.5e8])
+def test_rate_rule_is_exact_rational_rounding(rate):
+    # reference: exact rational arithmetic (Python fractions): k * 10^9 / rate ns, rounded half up,
+    # the rate read as the decimal that repr prints
+    k = np.array([0, 1, 2, 3, 7, 999, 10**6 + 3, 86_400_123])
+    r = Fraction(repr(rate))
+    want = [int((Fraction(int(i) * NS) / r + Fraction(1, 2)) // 1) for i in k]
+    assert timeaxis.rule(k, rate, "datetime").tolist() == want
+
+
+# -- time ranges --------------------------------------------------------------------
+def test_time_range_selects_on_the_logged_axis(tmp_path):
+    times = _gapped()
+    arc = _pack(_rec(len(times), times), tmp_path / "gap.tsa")
+    full = arc.read("temp")
+    offsets = (times - times[0]) / NS
+    for lo, hi in [(100, 170), (99, 161), (0.5, 100), (160, 160.5), (95, 3100)]:
+        mask = (offsets >= lo) & (offsets < hi)                      # numpy on the logged times
+        np.testing.assert_array_equal(arc.read("temp", start=lo, end=hi), full[mask])
+        np.testing.assert_array_equal(arc.times(lo, hi).values, times[mask])
+    # on the command line, an ISO time without a zone is the logger's wall clock
+    assert main(["unpack", str(tmp_path / "gap.tsa"), "-o", str(tmp_path / "part.csv"),
+                 "--start", "2024-03-05T14:02:40", "--end", "2024-03-05T14:02:43"]) == 0
+    rows = _csv_rows(tmp_path / "part.csv")
+    assert [r[0] for r in rows[1:]] == ["2024-03-05T14:02:40", "2024-03-05T14:02:41", "2024-03-05T14:02:42"]
+
+
+def test_times_given_exactly():
+    # 0.1 s is one tenth, not the double nearest to it (reference: Python fractions)
+    assert parse_offset("0.1", None) == Fraction(1, 10)
+    assert parse_offset("250ms", None) == Fraction(1, 4)
+    start = datetime(2024, 3, 5, 14, 0, 0)
+    assert parse_offset("2024-03-05T14:00:01.000001", start) == Fraction(1_000_001, 10**6)
+    with pytest.raises(BadInput, match="without one"):
+        parse_offset("2024-03-05T14:00:01Z", start)
+
+
+def test_a_clock_set_back_is_kept_but_has_no_ranges(tmp_path):
+    times = T0 + np.arange(300, dtype=np.int64) * NS
+    times[150:] -= 3600 * NS                                       # the logger's clock was put back an hour
+    arc = _pack(_rec(300, times), tmp_path / "back.tsa")
+    np.testing.assert_array_equal(arc.times().values, times)
+    with pytest.raises(BadInput, match="goes back at sample 150"):
+        arc.read("temp", start=10)
+
+
+# -- notes and text columns ---------------------------------------------------------
+def test_notes_and_text_columns_come_back(tmp_path):
+    n = 400
+    status = pa.array((["ok", None, "", 'said "hi", left', "ölbad\nzwei", " pad "] * 100)[:n])
+    field = pa.field("status", pa.string(), metadata={b"position": b"1"})
+    extra = pa.Table.from_arrays([status, pa.array(np.arange(n) % 3 == 0)],
+                                 schema=pa.schema([field, pa.field("flag", pa.bool_())]))
+    notes = ("Logger: LX-7 serial 0042", "Operator: ÅB", "")
+    times = T0 + np.arange(n, dtype=np.int64) * NS
+    arc = _pack(_rec(n, times, notes=notes, extra=extra), tmp_path / "x.tsa")
+    assert arc.notes == notes
+    assert arc.extra().equals(extra)
+    assert arc.extra(10, 20).equals(extra.slice(10, 10))
+    arc.export(tmp_path / "x.parquet")
+    back = pq.read_table(tmp_path / "x.parquet")
+    assert back.column_names == ["Timestamp", "status", "temp", "flag"]     # status where it stood
+    assert back["status"].equals(extra["status"]) and back["flag"].equals(extra["flag"])
+    arc.export(tmp_path / "x.csv")
+    rows = _csv_rows(tmp_path / "x.csv")                    # reference: Python's csv module (RFC 4180 quoting)
+    assert rows[0] == ["Timestamp", "status", "temp [degC]", "flag"]
+    assert [r[1] for r in rows[1:7]] == ["ok", "", "", 'said "hi", left', "ölbad\nzwei", " pad "]
+    text = (tmp_path / "x.csv").read_text(encoding="utf-8").splitlines()
+    assert text[2].split(",")[1] == "" and text[3].split(",")[1] == '""'    # null vs empty string
+    assert [r[3] for r in rows[1:4]] == ["true", "false", "false"]
+
+
+# -- verify --against ---------------------------------------------------------------
+def test_verify_against_compares_the_time_axis(tmp_path, capsys):
+    times = _gapped()
+    rec = _rec(len(times), times)
+    arc = _pack(rec, tmp_path / "gap.tsa")
+    assert arc.verify(against=rec).ok
+    moved = times.copy()
+    moved[1234] += 1                                            # one nanosecond
+    rep = arc.verify(against=_rec(len(times), moved))
+    assert not rep.ok and any("sample 1234" in p for p in rep.problems)
+    regular = T0 + np.arange(len(times), dtype=np.int64) * NS   # the same rows without the gap
+    rep = arc.verify(against=_rec(len(times), regular))
+    assert not rep.ok and any("sample 100 " in p for p in rep.problems)
+    naive_vs_utc = arc.verify(against=_rec(len(times), times, zone="Z"))
+    assert not naive_vs_utc.ok and "zone" in naive_vs_utc.problems[0]
+
+
+# -- rate sanity --------------------------------------------------------------------
+@pytest.mark.parametrize("rate, needle", [(1e-9, "1900..2262"), (1e12, "cannot be told apart"),
+                                          (float("nan"), "positive"), (-5.0, "positive")])
+def test_pack_refuses_rates_that_break_the_clock(tmp_path, rate, needle):
+    rec = _rec(1000, start=datetime(2024, 3, 5, 14), rate=rate)
+    with pytest.raises(BadInput, match=needle):
+        tsarchive.pack(rec, tmp_path / "r.tsa", "0.01", code_size=0)
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_cli_rate_too_high_is_one_line(tmp_path, capsys):
+    np.save(tmp_path / "x.npy", _signal(100))
+    assert main(["pack", str(tmp_path / "x.npy"), "-o", str(tmp_path / "x.tsa"), "--rate", "1e12"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.count("\n") == 0 and "cannot be told apart" in err and not (tmp_path / "x.tsa").exists()
+
+
+@pytest.mark.parametrize("rate", ["NaN", "0", "-1", "Infinity"])
+def test_a_damaged_manifest_rate_is_damage(tmp_path, rate):
+    arc = _pack(_rec(200, start=datetime(2024, 3, 5, 14)), tmp_path / "a.tsa")
+    m = tmp_path / "a.tsa" / "manifest.json"
+    text = m.read_text().replace(f'"rate":{arc.channels[0].rate}', f'"rate":{rate}')
+    assert text != m.read_text()
+    m.write_text(text)
+    with pytest.raises(ArchiveCorrupt, match="damaged"):
+        tsarchive.open(tmp_path / "a.tsa")
+
+
+def test_damaged_time_entries_are_named(tmp_path):
+    rng = np.random.default_rng(1)
+    times = T0 + np.cumsum(rng.integers(900_000, 1_100_000, 500))
+    _pack(_rec(500, times, rate=1000.0), tmp_path / "j.tsa")
+    bad = tmp_path / "bad.tsa"
+    shutil.copytree(tmp_path / "j.tsa", bad)
+    (bad / timeaxis.TIME_MEMBER).unlink()
+    with pytest.raises(ArchiveCorrupt, match="time.parquet"):
+        tsarchive.open(bad).times()
+    _pack(_rec(500, _gapped(500)), tmp_path / "g.tsa")
+    m = json.loads((tmp_path / "g.tsa" / "manifest.json").read_text())
+    m["time"]["runs"] = m["time"]["runs"][::-1]
+    (tmp_path / "g.tsa" / "manifest.json").write_text(json.dumps(m))
+    with pytest.raises(ArchiveCorrupt, match="time runs"):
+        tsarchive.open(tmp_path / "g.tsa").times()
+
+
+def test_golden_archive_without_a_time_entry_reads_start_plus_i_over_rate():
+    arc = tsarchive.open("tests/golden/golden.tsa")
+    assert "time" not in arc.manifest
+    t = arc.times()
+    assert t.kind == "seconds"
+    # reference: numpy, k / rate in float64
+    np.testing.assert_array_equal(t.values, np.arange(arc.channels[0].n_samples) / arc.channels[0].rate)

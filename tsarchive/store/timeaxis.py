@@ -1,0 +1,344 @@
+"""The recording's time axis in the archive: stored losslessly, given back exactly.
+
+Manifest entry ``time`` (optional on reading: an archive without it has the
+axis ``start + i / rate`` of its first channel)::
+
+    {"kind": "datetime" | "seconds", "zone": null | "Z" | "+01:00", "columns": [source headers],
+     "runs": [[index, start], ...]}      # or "listed": true, every time in time.parquet
+
+``kind``/``zone``/``columns`` are :class:`tsarchive.recording.TimeAxis`'s.
+A *run* is a stretch of samples that follows the **rate rule** from the
+run's first time; a perfectly regular axis is one run, a gap starts a new
+one.  Writer and reader apply the same rule, in integers only:
+
+* ``datetime`` (int64 ns): ``t[r + k] = t[r] + (2·k·P + Q) // (2·Q)``, where
+  ``P / Q = 10^9 / rate`` in lowest terms and ``rate`` is the decimal its
+  shortest ``repr`` spells (Python's repr is correctly rounded, so the same
+  on every machine): ``k · 10^9 / rate`` ns rounded half up;
+* ``seconds`` (float64): ``t[r + k] = t[r] + k / rate`` (two correctly
+  rounded IEEE-754 operations); a run's start is stored as ``float.hex``.
+
+An axis that needs more than ``MAX_RUNS`` runs (jitter) is *listed*:
+``time.parquet`` holds every time in one int64 column ``t`` (ns, or the
+float64 bits of seconds), DELTA_BINARY_PACKED + zstd.
+"""
+
+from __future__ import annotations
+
+import bisect
+import math
+from dataclasses import dataclass
+from datetime import datetime, timedelta, timezone
+from fractions import Fraction
+from functools import lru_cache
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from ..errors import ArchiveCorrupt, BadInput
+from . import schema as S
+
+TIME_MEMBER = S.TIME
+DATETIME, SECONDS = "datetime", "seconds"
+NS = 10**9
+MAX_RUNS = 64               # more runs than this: the axis is listed in time.parquet
+CHUNK = 1 << 16             # samples compared per step while finding runs
+MAX_RATE = 1e9              # above 1 GHz consecutive samples cannot be told apart in ns
+_EPOCH = datetime(1970, 1, 1)
+#: datetimes must lie in [1900-01-01, 2262-01-01): int64 ns ends in April 2262
+EARLIEST_NS = (datetime(1900, 1, 1) - _EPOCH) // timedelta(microseconds=1) * 1000
+LATEST_NS = (datetime(2262, 1, 1) - _EPOCH) // timedelta(microseconds=1) * 1000
+LONGEST_S = (LATEST_NS - EARLIEST_NS) / NS   # longest span of a seconds axis
+
+
+@dataclass(frozen=True, eq=False)
+class Times:
+    """The exact times of samples ``first .. first + len(values) - 1``.
+
+    ``values`` are int64 ns since 1970-01-01 (``kind`` "datetime"; the wall
+    clock when ``zone`` is None) or float64 seconds (``kind`` "seconds").
+    ``name`` is the header to write the time column under.
+    """
+
+    kind: str
+    values: np.ndarray
+    zone: str | None = None
+    first: int = 0
+    name: str = "time"
+
+
+# -- the rate rule ---------------------------------------------------------------
+@lru_cache(maxsize=64)
+def _period(rate: float) -> tuple[int, int]:
+    """(P, Q): 10^9 / rate ns in lowest terms, rate read as the decimal its repr spells."""
+    f = Fraction(NS) / Fraction(repr(float(rate)))
+    return f.numerator, f.denominator
+
+
+def rule(k: np.ndarray, rate: float, kind: str) -> np.ndarray:
+    """Offsets of samples ``k`` (>= 0) from their run's first time: int64 ns or float64 s."""
+    k = np.asarray(k, dtype=np.int64)
+    if kind == SECONDS:
+        return k.astype(np.float64) / float(rate)
+    P, Q = _period(rate)
+    kmax = int(k.max()) if k.size else 0
+    if 2 * Q * P < 2**62 and (kmax // Q + 1) * P < 2**62:
+        whole, part = np.divmod(k, Q)
+        return whole * P + (2 * part * P + Q) // (2 * Q)
+    return np.array([(2 * int(x) * P + Q) // (2 * Q) for x in k.tolist()], dtype=np.int64)
+
+
+def _differs(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Elementwise 'not the same time' (floats compared bit for bit)."""
+    if a.dtype.kind == "f":
+        return a.view(np.int64) != b.view(np.int64)
+    return a != b
+
+
+def _run_end(values: np.ndarray, r: int, rate: float, kind: str) -> int:
+    """First index after ``r`` where the axis leaves the rule started at ``values[r]``."""
+    n = len(values)
+    for c in range(r, n, CHUNK):
+        d = min(n, c + CHUNK)
+        bad = np.flatnonzero(_differs(values[r] + rule(np.arange(c - r, d - r), rate, kind), values[c:d]))
+        if bad.size:
+            return c + int(bad[0])
+    return n
+
+
+def find_runs(values: np.ndarray, rate: float, kind: str) -> list[int] | None:
+    """Indices where the runs start, or None when more than ``MAX_RUNS`` are needed."""
+    runs, r = [], 0
+    while r < len(values):
+        if len(runs) == MAX_RUNS:
+            return None
+        runs.append(r)
+        r = _run_end(values, r, rate, kind)
+    return runs
+
+
+# -- packing ---------------------------------------------------------------------
+def zone_of(t: datetime) -> str | None:
+    """None for a naive datetime, "Z" for UTC, else the offset as ``+hh:mm``."""
+    off = t.utcoffset()
+    if off is None:
+        return None
+    if off == timedelta(0) and t.tzinfo is timezone.utc:
+        return "Z"
+    minutes = int(off.total_seconds()) // 60
+    sign = "-" if minutes < 0 else "+"
+    return f"{sign}{abs(minutes) // 60:02d}:{abs(minutes) % 60:02d}"
+
+
+def datetime_ns(t: datetime) -> int:
+    """ns since 1970-01-01 of ``t``: the instant for an aware datetime, the wall clock for a naive one."""
+    if t.tzinfo is not None:
+        t = t.astimezone(timezone.utc).replace(tzinfo=None)
+    return (t - _EPOCH) // timedelta(microseconds=1) * 1000
+
+
+def source_axis(rec) -> Times:
+    """The time of every sample of ``rec``: its logged time column, else ``start + i / rate``."""
+    if rec.time is not None:
+        kind = rec.time.kind
+        dtype = np.int64 if kind == DATETIME else np.float64
+        name = rec.time.columns[0] if len(rec.time.columns) == 1 else "time"
+        return Times(kind, np.asarray(rec.time.values, dtype=dtype), rec.time.zone, 0, name)
+    if rec.start is not None:
+        return Times(DATETIME, datetime_ns(rec.start) + rule(np.arange(rec.n_samples), rec.rate, DATETIME),
+                     zone_of(rec.start))
+    return Times(SECONDS, rule(np.arange(rec.n_samples), rec.rate, SECONDS))
+
+
+def check_axis(rec) -> None:
+    """BadInput (one line) unless the rate and the time axis of ``rec`` can be stored and given back."""
+    r = float(rec.rate)
+    if not (math.isfinite(r) and r > 0):
+        raise BadInput(f"rate {rec.rate!r} is not a positive number of samples per second; pass e.g. --rate 1000")
+    if r > MAX_RATE:
+        raise BadInput(f"rate {r:g} Hz puts samples less than 1 ns apart, so their times cannot be told apart; "
+                       "check --rate (at most 1e9)")
+    n = rec.n_samples
+    if rec.time is not None:
+        if rec.time.kind not in (DATETIME, SECONDS):
+            raise BadInput(f"time axis kind {rec.time.kind!r} is unknown; use 'datetime' or 'seconds'")
+        if len(rec.time.values) != n:
+            raise BadInput(f"the time column has {len(rec.time.values)} rows but the channels {n}; "
+                           "give one time per sample")
+        return
+    span = (n - 1) / r if n > 1 else 0.0
+    if rec.start is None:
+        if span > LONGEST_S:
+            raise BadInput(f"rate {r:g} Hz spreads {n} samples over {span:.3g} s, longer than any record "
+                           "(1900..2262); check --rate")
+        return
+    t0 = datetime_ns(rec.start)
+    if not (EARLIEST_NS <= t0 and t0 + span * NS < LATEST_NS):
+        raise BadInput(f"rate {r:g} Hz puts the samples from {rec.start.isoformat()} to "
+                       f"{span:.3g} s later, outside 1900..2262; check --rate")
+
+
+def encode_axis(rec) -> tuple[dict, np.ndarray | None]:
+    """(the manifest's ``time`` entry, the int64 column of time.parquet or None)."""
+    axis = source_axis(rec)
+    entry = {"kind": axis.kind, "zone": axis.zone,
+             "columns": list(rec.time.columns) if rec.time is not None else []}
+    runs = find_runs(axis.values, rec.rate, axis.kind) if rec.time is not None else [0] * (rec.n_samples > 0)
+    if runs is None:
+        return dict(entry, listed=True), axis.values.view(np.int64)
+    starts = [int(axis.values[r]) if axis.kind == DATETIME else float(axis.values[r]).hex() for r in runs]
+    return dict(entry, runs=[[int(r), s] for r, s in zip(runs, starts)]), None
+
+
+def write_axis_member(path: Path, column: np.ndarray) -> None:
+    """time.parquet: one int64 column, delta-packed (a steady clock costs next to nothing) and zstd."""
+    pq.write_table(pa.table({"t": pa.array(column, pa.int64())}), path, compression="zstd", compression_level=9,
+                   use_dictionary=False, write_statistics=False, store_schema=False,
+                   column_encoding={"t": "DELTA_BINARY_PACKED"}, row_group_size=1 << 20)
+
+
+# -- reading ---------------------------------------------------------------------
+@dataclass(frozen=True, eq=False)
+class Timeline:
+    """An archive's time axis: the exact time of any sample, and sample spans of time ranges."""
+
+    kind: str
+    zone: str | None
+    columns: tuple[str, ...]
+    rate: float
+    n: int
+    run_index: tuple[int, ...] = ()
+    run_start: tuple = ()          # int ns or float seconds, one per run
+    listed: np.ndarray | None = None
+
+    @property
+    def name(self) -> str:
+        return self.columns[0] if len(self.columns) == 1 else "time"
+
+    def values(self, a: int, b: int) -> np.ndarray:
+        """Times of samples ``a .. b-1`` (int64 ns or float64 s)."""
+        a, b = max(0, a), min(self.n, b)
+        if self.listed is not None:
+            return self.listed[a:max(a, b)].copy()
+        out = np.empty(max(0, b - a), dtype=np.int64 if self.kind == DATETIME else np.float64)
+        bounds = self.run_index + (self.n,)
+        for j, r in enumerate(self.run_index):
+            lo, hi = max(a, r), min(b, bounds[j + 1])
+            if lo < hi:
+                out[lo - a:hi - a] = self.run_start[j] + rule(np.arange(lo - r, hi - r), self.rate, self.kind)
+        return out
+
+    def times(self, a: int, b: int) -> Times:
+        return Times(self.kind, self.values(a, b), self.zone, a, self.name)
+
+    def _key(self, i: int):
+        v = self.values(i, i + 1)[0]
+        return int(v) if self.kind == DATETIME else Fraction(float(v))
+
+    def _backwards(self) -> int | None:
+        """First sample whose time is before its predecessor's, or None."""
+        if self.listed is not None:
+            back = np.flatnonzero(np.diff(self.listed.view(np.int64) if self.kind == DATETIME else self.listed) < 0)
+            return int(back[0]) + 1 if back.size else None
+        for r in self.run_index[1:]:
+            if self._key(r) < self._key(r - 1):
+                return r
+        return None
+
+    def _first_at(self, offset: Fraction) -> int:
+        """First sample whose time is at least ``offset`` seconds after the first sample's."""
+        t0 = self._key(0)
+        target = t0 + math.ceil(offset * NS) if self.kind == DATETIME else t0 + offset
+
+        class _Keys:
+            def __len__(s):
+                return self.n
+
+            def __getitem__(s, i):
+                return self._key(i)
+        return bisect.bisect_left(_Keys(), target)
+
+    def span(self, start=None, end=None) -> tuple[int, int]:
+        """Samples ``[a, b)`` whose times t satisfy start <= t - t[0] < end (seconds; None: open)."""
+        s = None if start is None else Fraction(start)
+        e = None if end is None else Fraction(end)
+        if s is not None and e is not None and e <= s:
+            raise BadInput(f"end {float(e):g} s is not after start {float(s):g} s; give a later end")
+        if (s is None and e is None) or not self.n:
+            return 0, self.n
+        back = self._backwards()
+        if back is not None:
+            raise BadInput(f"the recording's clock goes back at sample {back}, so a time range is ambiguous; "
+                           "export the whole recording instead")
+        a = 0 if s is None or s <= 0 else self._first_at(s)
+        if a >= self.n:
+            raise BadInput(f"start {float(s):g} s is past the end of the recording; give an earlier start")
+        b = self.n if e is None else self._first_at(e)
+        return a, max(a, b)
+
+    def start_datetime(self) -> datetime | None:
+        """The first sample's time as a datetime (naive stays naive; microseconds), None for seconds."""
+        if self.kind != DATETIME or not self.n:
+            return None
+        ns = int(self.values(0, 1)[0])
+        if self.zone is None:
+            return _EPOCH + timedelta(microseconds=ns // 1000)
+        utc = datetime(1970, 1, 1, tzinfo=timezone.utc) + timedelta(microseconds=ns // 1000)
+        return utc.astimezone(parse_zone(self.zone))
+
+
+def parse_zone(zone: str | None):
+    """The tzinfo of a zone string ("Z", "+01:00"); None for naive."""
+    if zone is None:
+        return None
+    if zone == "Z":
+        return timezone.utc
+    try:
+        sign = -1 if zone[0] == "-" else 1
+        hh, mm = zone[1:].split(":")
+        if zone[0] not in "+-" or len(hh) != 2 or len(mm) != 2:
+            raise ValueError(zone)
+        return timezone(sign * timedelta(hours=int(hh), minutes=int(mm)))
+    except (ValueError, IndexError):
+        raise ArchiveCorrupt(f"time zone {zone!r} in the manifest is malformed; the archive is damaged") from None
+
+
+def load_timeline(manifest: dict, folder: Path, n: int, rate: float, start: datetime | None) -> Timeline:
+    """The archive's Timeline from its manifest (and time.parquet when the axis is listed)."""
+    entry = manifest.get("time")
+    if entry is None:      # archives before the time entry: start + i / rate of the first channel
+        if start is None:
+            return Timeline(SECONDS, None, (), rate, n, (0,), (0.0,))
+        return Timeline(DATETIME, zone_of(start), (), rate, n, (0,), (datetime_ns(start),))
+    try:
+        kind, zone, columns = entry["kind"], entry.get("zone"), tuple(str(c) for c in entry.get("columns", []))
+        if kind not in (DATETIME, SECONDS):
+            raise ValueError(kind)
+        parse_zone(zone)
+        if entry.get("listed"):
+            return Timeline(kind, zone, columns, rate, n, listed=_read_listed(manifest, folder, n, kind))
+        runs = entry["runs"]
+        index = tuple(int(r[0]) for r in runs)
+        starts = tuple(int(r[1]) if kind == DATETIME else float.fromhex(r[1]) for r in runs)
+    except (KeyError, TypeError, ValueError, IndexError, AttributeError):
+        raise ArchiveCorrupt("the manifest's time entry is malformed; the archive is damaged") from None
+    if (n and (not index or index[0] != 0)) or any(b <= a for a, b in zip(index, index[1:])) or \
+            (index and index[-1] >= n) or \
+            (kind == DATETIME and any(not EARLIEST_NS <= s < LATEST_NS for s in starts)):
+        raise ArchiveCorrupt("the manifest's time runs are out of order or range; the archive is damaged")
+    return Timeline(kind, zone, columns, rate, n, index, starts)
+
+
+def _read_listed(manifest: dict, folder: Path, n: int, kind: str) -> np.ndarray:
+    if TIME_MEMBER not in manifest.get("members", {}):
+        raise ArchiveCorrupt(f"the time axis is listed but {TIME_MEMBER} is not a member; the archive is damaged")
+    try:
+        t = pq.read_table(folder / TIME_MEMBER)
+    except (OSError, pa.ArrowException) as exc:
+        raise ArchiveCorrupt(f"{TIME_MEMBER} cannot be read ({exc}); the archive is damaged") from None
+    if t.column_names != ["t"] or t.schema.field("t").type != pa.int64() or t.num_rows != n or t["t"].null_count:
+        raise ArchiveCorrupt(f"{TIME_MEMBER} does not hold one time per sample; the archive is damaged")
+    col = t["t"].to_numpy()
+    return col if kind == DATETIME else col.view(np.float64)
