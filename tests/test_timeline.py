@@ -169,8 +169,18 @@ def test_a_clock_set_back_is_kept_but_has_no_ranges(tmp_path):
     times[150:] -= 3600 * NS                                       # the logger's clock was put back an hour
     arc = _pack(_rec(300, times), tmp_path / "back.tsa")
     np.testing.assert_array_equal(arc.times().values, times)
-    with pytest.raises(BadInput, match="goes back at sample 150"):
+    with pytest.raises(BadInput, match="goes back .* at sample 150"):
         arc.read("temp", start=10)
+
+
+def test_a_blank_seconds_time_is_kept_bit_for_bit(tmp_path):
+    secs = np.arange(300) / 4.0
+    secs[[7, 8]] = [np.nan, -np.inf]
+    arc = _pack(_rec(300, secs, kind="seconds", rate=4.0), tmp_path / "nan.tsa")
+    assert arc.manifest["time"]["listed"] is True
+    np.testing.assert_array_equal(arc.times().values.view(np.int64), secs.view(np.int64))
+    with pytest.raises(BadInput, match="at sample 7"):
+        arc.read("temp", end=10)
 
 
 # -- notes and text columns ---------------------------------------------------------

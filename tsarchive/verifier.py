@@ -129,15 +129,15 @@ def compare_times(arc, rec: Recording) -> list[str]:
     """The source's time axis (its time column, else start + i/rate) against the archive's, exactly:
     kind, zone, then every time (ns, or float bits); the first difference is named."""
     from .store.timeaxis import DATETIME, source_axis
-    src, tl = source_axis(rec), arc.timeline
+    src, tl = source_axis(rec, 0, 1), arc.timeline
     if (src.kind, src.zone) != (tl.kind, tl.zone):
         return [f"time axis: the source's times are {src.kind} (zone {src.zone or 'none'}) but the archive's "
                 f"{tl.kind} (zone {tl.zone or 'none'})"]
-    n = len(src.values)
+    n = rec.n_samples
     if n != tl.n:
         return [f"time axis: the source has {n} times but the archive {tl.n}"]
     for lo in range(0, n, CHUNK_SAMPLES):
-        a, b = src.values[lo:lo + CHUNK_SAMPLES], tl.values(lo, lo + CHUNK_SAMPLES)
+        a, b = source_axis(rec, lo, lo + CHUNK_SAMPLES).values, tl.values(lo, lo + CHUNK_SAMPLES)
         diff = np.flatnonzero(a.view(np.int64) != b.view(np.int64))
         if diff.size:
             i = int(diff[0])

@@ -30,7 +30,7 @@ import math
 from dataclasses import dataclass
 from datetime import datetime, timedelta, timezone
 from fractions import Fraction
-from functools import lru_cache
+from functools import cached_property, lru_cache
 from pathlib import Path
 
 import numpy as np
@@ -139,17 +139,19 @@ def datetime_ns(t: datetime) -> int:
     return (t - _EPOCH) // timedelta(microseconds=1) * 1000
 
 
-def source_axis(rec) -> Times:
-    """The time of every sample of ``rec``: its logged time column, else ``start + i / rate``."""
+def source_axis(rec, a: int = 0, b: int | None = None) -> Times:
+    """The times of samples ``a .. b-1`` of ``rec``: its logged time column, else ``start + i / rate``
+    (computed for the asked rows only: a long recording without a time column is never held whole)."""
+    b = rec.n_samples if b is None else min(b, rec.n_samples)
     if rec.time is not None:
         kind = rec.time.kind
         dtype = np.int64 if kind == DATETIME else np.float64
         name = rec.time.columns[0] if len(rec.time.columns) == 1 else "time"
-        return Times(kind, np.asarray(rec.time.values, dtype=dtype), rec.time.zone, 0, name)
+        return Times(kind, np.asarray(rec.time.values[a:b], dtype=dtype), rec.time.zone, a, name)
+    k = np.arange(a, max(a, b))
     if rec.start is not None:
-        return Times(DATETIME, datetime_ns(rec.start) + rule(np.arange(rec.n_samples), rec.rate, DATETIME),
-                     zone_of(rec.start))
-    return Times(SECONDS, rule(np.arange(rec.n_samples), rec.rate, SECONDS))
+        return Times(DATETIME, datetime_ns(rec.start) + rule(k, rec.rate, DATETIME), zone_of(rec.start), a)
+    return Times(SECONDS, rule(k, rec.rate, SECONDS), None, a)
 
 
 def check_axis(rec) -> None:
@@ -182,10 +184,15 @@ def check_axis(rec) -> None:
 
 def encode_axis(rec) -> tuple[dict, np.ndarray | None]:
     """(the manifest's ``time`` entry, the int64 column of time.parquet or None)."""
-    axis = source_axis(rec)
+    axis = source_axis(rec, 0, None if rec.time is not None else 1)
     entry = {"kind": axis.kind, "zone": axis.zone,
              "columns": list(rec.time.columns) if rec.time is not None else []}
-    runs = find_runs(axis.values, rec.rate, axis.kind) if rec.time is not None else [0] * (rec.n_samples > 0)
+    if rec.time is None:
+        runs = [0] * (rec.n_samples > 0)
+    elif axis.kind == SECONDS and not np.all(np.isfinite(axis.values)):
+        runs = None       # NaN payloads need not survive arithmetic on every machine: list every time
+    else:
+        runs = find_runs(axis.values, rec.rate, axis.kind)
     if runs is None:
         return dict(entry, listed=True), axis.values.view(np.int64)
     starts = [int(axis.values[r]) if axis.kind == DATETIME else float(axis.values[r]).hex() for r in runs]
@@ -237,8 +244,11 @@ class Timeline:
         v = self.values(i, i + 1)[0]
         return int(v) if self.kind == DATETIME else Fraction(float(v))
 
+    @cached_property
     def _backwards(self) -> int | None:
-        """First sample whose time is before its predecessor's, or None."""
+        """First sample whose time is before its predecessor's (or not a number), or None."""
+        if self.listed is not None and self.kind == SECONDS and not np.all(np.isfinite(self.listed)):
+            return int(np.flatnonzero(~np.isfinite(self.listed))[0])
         if self.listed is not None:
             back = np.flatnonzero(np.diff(self.listed.view(np.int64) if self.kind == DATETIME else self.listed) < 0)
             return int(back[0]) + 1 if back.size else None
@@ -268,10 +278,10 @@ class Timeline:
             raise BadInput(f"end {float(e):g} s is not after start {float(s):g} s; give a later end")
         if (s is None and e is None) or not self.n:
             return 0, self.n
-        back = self._backwards()
+        back = self._backwards
         if back is not None:
-            raise BadInput(f"the recording's clock goes back at sample {back}, so a time range is ambiguous; "
-                           "export the whole recording instead")
+            raise BadInput(f"the recording's clock goes back (or is blank) at sample {back}, so a time range is "
+                           "ambiguous; export the whole recording instead")
         a = 0 if s is None or s <= 0 else self._first_at(s)
         if a >= self.n:
             raise BadInput(f"start {float(s):g} s is past the end of the recording; give an earlier start")
