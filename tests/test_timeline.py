@@ -269,6 +269,8 @@ def test_damaged_time_entries_are_named(tmp_path):
     (tmp_path / "g.tsa" / "manifest.json").write_text(json.dumps(m))
     with pytest.raises(ArchiveCorrupt, match="time runs"):
         tsarchive.open(tmp_path / "g.tsa").times()
+    rep = tsarchive.verify(tmp_path / "g.tsa")                   # verify names it (the manifest has no checksum)
+    assert not rep.ok and any("time runs" in p for p in rep.problems)
 
 
 def test_golden_archive_without_a_time_entry_reads_start_plus_i_over_rate():

@@ -35,7 +35,9 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
         if not p.is_file() or checksum.file_sha256(p) != info.get("sha256"):
             problems.append(f"member {name}: SHA-256 differs from the manifest (file damaged or replaced)")
     rec = _source(arc, against)
-    if rec is not None:
+    sidecar = check_sidecar(arc)
+    problems.extend(sidecar)
+    if rec is not None and not sidecar:
         problems.extend(compare_times(arc, rec))
     total = sum(c.n_windows for c in arc.channels)
     done = [0]
@@ -123,6 +125,17 @@ def _decode(arc, meta, w0: int, w1: int):
                 broken.append(w)
             parts.append(x)
         return np.concatenate(parts), bad, broken
+
+
+def check_sidecar(arc) -> list[str]:
+    """The time axis and the text columns decode (the problem named, not raised)."""
+    try:
+        arc.timeline.values(0, 1)
+        arc.extra(None, None)
+        arc.notes
+    except ArchiveCorrupt as exc:
+        return [str(exc)]
+    return []
 
 
 def compare_times(arc, rec: Recording) -> list[str]:
