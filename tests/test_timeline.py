@@ -107,6 +107,11 @@ def test_jittery_clock_is_listed_and_exact(tmp_path):
     assert "DELTA_BINARY_PACKED" in encodings
     np.testing.assert_array_equal(arc.times().values, times)
     assert tsarchive.verify(tmp_path / "jit.tsa", against=_rec(5000, times, rate=1000.0)).ok
+    # a clock that logs microseconds: stored in its own ticks (gcd of the distances: numpy.gcd)
+    us = T0 + 7 + np.cumsum(rng.integers(990, 1010, 5000)) * 1000
+    arc = _pack(_rec(5000, us, rate=1000.0), tmp_path / "us.tsa")
+    assert (arc.manifest["time"]["tick"], arc.manifest["time"]["origin"]) == (1000, int(us.min()))
+    np.testing.assert_array_equal(arc.times().values, us)
 
 
 def test_seconds_axis_comes_back_bit_for_bit(tmp_path):

@@ -19,8 +19,11 @@ one.  Writer and reader apply the same rule, in integers only:
   rounded IEEE-754 operations); a run's start is stored as ``float.hex``.
 
 An axis that needs more than ``MAX_RUNS`` runs (jitter) is *listed*:
-``time.parquet`` holds every time in one int64 column ``t`` (ns, or the
-float64 bits of seconds), DELTA_BINARY_PACKED + zstd.
+``time.parquet`` holds every time in one int64 column ``t``,
+DELTA_BINARY_PACKED + zstd: for datetimes ``(t - origin) / tick`` with
+``origin`` the earliest time and ``tick`` the greatest common divisor of
+all times' distances from it (1000 for a clock logging microseconds: about
+10 bits a sample saved), both in the entry; for seconds the float64 bits.
 """
 
 from __future__ import annotations
@@ -194,7 +197,14 @@ def encode_axis(rec) -> tuple[dict, np.ndarray | None]:
     else:
         runs = find_runs(axis.values, rec.rate, axis.kind)
     if runs is None:
-        return dict(entry, listed=True), axis.values.view(np.int64)
+        if axis.kind == SECONDS:
+            return dict(entry, listed=True), axis.values.view(np.int64)
+        lo, hi = int(axis.values.min()), int(axis.values.max())
+        if hi - lo >= 2**63:        # more than 292 years apart: kept as they are
+            return dict(entry, listed=True, origin=0, tick=1), axis.values
+        dist = axis.values - lo
+        tick = int(np.gcd.reduce(dist)) or 1
+        return dict(entry, listed=True, origin=lo, tick=tick), dist // tick
     starts = [int(axis.values[r]) if axis.kind == DATETIME else float(axis.values[r]).hex() for r in runs]
     return dict(entry, runs=[[int(r), s] for r, s in zip(runs, starts)]), None
 
@@ -328,7 +338,11 @@ def load_timeline(manifest: dict, folder: Path, n: int, rate: float, start: date
             raise ValueError(kind)
         parse_zone(zone)
         if entry.get("listed"):
-            return Timeline(kind, zone, columns, rate, n, listed=_read_listed(manifest, folder, n, kind))
+            origin, tick = int(entry.get("origin", 0)), int(entry.get("tick", 1))
+            if tick < 1:
+                raise ValueError(tick)
+            return Timeline(kind, zone, columns, rate, n,
+                            listed=_read_listed(manifest, folder, n, kind, origin, tick))
         runs = entry["runs"]
         index = tuple(int(r[0]) for r in runs)
         starts = tuple(int(r[1]) if kind == DATETIME else float.fromhex(r[1]) for r in runs)
@@ -341,7 +355,7 @@ def load_timeline(manifest: dict, folder: Path, n: int, rate: float, start: date
     return Timeline(kind, zone, columns, rate, n, index, starts)
 
 
-def _read_listed(manifest: dict, folder: Path, n: int, kind: str) -> np.ndarray:
+def _read_listed(manifest: dict, folder: Path, n: int, kind: str, origin: int, tick: int) -> np.ndarray:
     if TIME_MEMBER not in manifest.get("members", {}):
         raise ArchiveCorrupt(f"the time axis is listed but {TIME_MEMBER} is not a member; the archive is damaged")
     try:
@@ -351,4 +365,8 @@ def _read_listed(manifest: dict, folder: Path, n: int, kind: str) -> np.ndarray:
     if t.column_names != ["t"] or t.schema.field("t").type != pa.int64() or t.num_rows != n or t["t"].null_count:
         raise ArchiveCorrupt(f"{TIME_MEMBER} does not hold one time per sample; the archive is damaged")
     col = t["t"].to_numpy()
-    return col if kind == DATETIME else col.view(np.float64)
+    if kind == SECONDS:
+        return col.view(np.float64)
+    if n and not (-2**63 <= origin + int(col.min()) * tick and origin + int(col.max()) * tick < 2**63):
+        raise ArchiveCorrupt(f"{TIME_MEMBER} holds times beyond the year 2262; the archive is damaged")
+    return origin + col * tick
