@@ -192,7 +192,7 @@ def test_a_blank_seconds_time_is_kept_bit_for_bit(tmp_path):
 def test_notes_and_text_columns_come_back(tmp_path):
     n = 400
     status = pa.array((["ok", None, "", 'said "hi", left', "ölbad\nzwei", " pad "] * 100)[:n])
-    field = pa.field("status", pa.string(), metadata={b"position": b"1"})
+    field = pa.field("status", pa.string(), metadata={b"position": b"0"})   # first after the time
     extra = pa.Table.from_arrays([status, pa.array(np.arange(n) % 3 == 0)],
                                  schema=pa.schema([field, pa.field("flag", pa.bool_())]))
     notes = ("Logger: LX-7 serial 0042", "Operator: ÅB", "")

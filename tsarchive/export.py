@@ -112,15 +112,15 @@ def _rule_times(n: int, rate: float, start: datetime | None, t0: float) -> Times
 
 
 def _order(names: list[str], extra, positions) -> list[tuple[str, str]]:
-    """Output columns after the time: ("ch", name) and ("text", name), text columns at their source
-    positions (counted with the time column first) where known, else after the channels."""
+    """Output columns after the time: ("ch", name) and ("text", name), each text column at its position
+    among the source's columns other than time (0-based) where known, else after the channels."""
     out = [("ch", n) for n in names]
     if extra is None:
         return out
     pos = list(positions) + [None] * (extra.num_columns - len(positions))
     placed = sorted((p, i) for i, p in enumerate(pos) if p is not None)
     for p, i in placed:
-        out.insert(min(max(p - 1, 0), len(out)), ("text", extra.column_names[i]))
+        out.insert(min(p, len(out)), ("text", extra.column_names[i]))
     out += [("text", extra.column_names[i]) for i, p in enumerate(pos) if p is None]
     return out
 

@@ -10,7 +10,7 @@ columns, and the axis ``start + i / rate``).
 * ``extra`` = ``{"columns": [names], "positions": [int | null]}`` and
   ``extra.parquet``: the non-numeric columns as Arrow wrote them (types,
   nulls and bytes kept; zstd), one row per sample.  ``positions`` is where
-  each column stood in the source row (0-based, counting the time columns),
+  each column stood among the source's columns other than time (0-based),
   taken from the field metadata ``b"position"`` when the reader set it;
   without it the column is written back after the channels.
 """
