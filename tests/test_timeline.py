@@ -158,6 +158,19 @@ def test_time_range_selects_on_the_logged_axis(tmp_path):
     assert [r[0] for r in rows[1:]] == ["2024-03-05T14:02:40", "2024-03-05T14:02:41", "2024-03-05T14:02:42"]
 
 
+def test_iso_range_is_exact_to_the_nanosecond(tmp_path):
+    # the first time has 500 ns past the microsecond: a datetime (us) start would shift the range by 500 ns
+    times = T0 + np.arange(50, dtype=np.int64) * 250_000_000
+    times[0] += 500
+    arc = _pack(_rec(50, times, rate=4.0), tmp_path / "ns.tsa")
+    assert main(["unpack", str(tmp_path / "ns.tsa"), "-o", str(tmp_path / "ns.csv"),
+                 "--start", "2024-03-05T14:00:01.000000", "--end", "2024-03-05T14:00:02"]) == 0
+    cells = [r[0] for r in _csv_rows(tmp_path / "ns.csv")[1:]]
+    # numpy: times at or after 14:00:01 and before 14:00:02 on the ns axis
+    want = times[(times >= T0 + NS) & (times < T0 + 2 * NS)]
+    assert [int(np.datetime64(c, "ns").astype(np.int64)) for c in cells] == want.tolist()   # numpy parses ISO
+
+
 def test_times_given_exactly():
     from tsarchive.timespec import parse_offset
     # 0.1 s is one tenth, not the double nearest to it (reference: Python fractions)

@@ -113,8 +113,10 @@ def _unpack(args) -> int:
     from .timespec import parse_offset
     arc = open_archive(args.archive)
     start0 = arc.channels[0].start if arc.channels else None
-    start = None if args.start is None else parse_offset(args.start, start0)
-    end = None if args.end is None else parse_offset(args.end, start0)
+    tl = arc.timeline
+    ns0 = int(tl.values(0, 1)[0]) if tl.kind == "datetime" and tl.n else None   # exact, where start0 has µs
+    start = None if args.start is None else parse_offset(args.start, start0, ns0)
+    end = None if args.end is None else parse_offset(args.end, start0, ns0)
     chans = None if not args.channels else [c.strip() for c in args.channels.split(",") if c.strip()]
     out = arc.export(args.output, channels=chans, start=start, end=end)
     print(f"wrote {out}")

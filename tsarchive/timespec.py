@@ -39,8 +39,12 @@ def parse_time(spec: str, start: datetime | None) -> float:
     return float(parse_offset(spec, start))
 
 
-def parse_offset(spec: str, start: datetime | None) -> Fraction:
-    """:func:`parse_time`, exactly: a Fraction of seconds (``0.1`` is 1/10, not the nearest double)."""
+def parse_offset(spec: str, start: datetime | None, start_ns: int | None = None) -> Fraction:
+    """:func:`parse_time`, exactly: a Fraction of seconds (``0.1`` is 1/10, not the nearest double).
+
+    ``start_ns`` is the first sample's exact time (ns since 1970-01-01, as
+    the archive keeps it) when ``start``, a datetime, holds only microseconds.
+    """
     text = str(spec).strip()
     m = _NUM_UNIT.match(text)
     if m is not None:
@@ -61,6 +65,9 @@ def parse_offset(spec: str, start: datetime | None) -> Fraction:
     elif start.tzinfo is None:
         raise BadInput(f"time '{spec}' has a zone but the recording's times were logged without one; "
                        "give it without an offset, as the logger's clock showed it")
+    if start_ns is not None:
+        from .store.timeaxis import NS, datetime_ns
+        return _non_negative(Fraction(datetime_ns(dt) - start_ns, NS), spec)
     return _non_negative(Fraction((dt - start) // timedelta(microseconds=1), 10**6), spec)
 
 
