@@ -298,3 +298,14 @@ def test_golden_archive_without_a_time_entry_reads_start_plus_i_over_rate():
     assert t.kind == "seconds"
     # reference: numpy, k / rate in float64
     np.testing.assert_array_equal(t.values, np.arange(arc.channels[0].n_samples) / arc.channels[0].rate)
+
+
+def test_damaged_text_columns_are_named(tmp_path):
+    extra = pa.table({"status": pa.array(["ok", None, "warm"] * 100)})
+    _pack(_rec(300, notes=("a",), extra=extra, start=datetime(2024, 3, 5, 14)), tmp_path / "t.tsa")
+    member = tmp_path / "t.tsa" / "extra.parquet"
+    member.write_bytes(member.read_bytes()[: member.stat().st_size // 2])     # cut short
+    with pytest.raises(ArchiveCorrupt, match="extra.parquet"):
+        tsarchive.open(tmp_path / "t.tsa").extra()
+    rep = tsarchive.verify(tmp_path / "t.tsa")
+    assert not rep.ok and any("extra.parquet cannot be read" in p for p in rep.problems)

@@ -129,9 +129,10 @@ def _decode(arc, meta, w0: int, w1: int):
 
 def check_sidecar(arc) -> list[str]:
     """The time axis and the text columns decode (the problem named, not raised)."""
+    from .store.sidecar import check_extra
     try:
         arc.timeline.values(0, 1)
-        arc.extra(None, None)
+        check_extra(arc.manifest, arc.path, arc.timeline.n)
         arc.notes
     except ArchiveCorrupt as exc:
         return [str(exc)]

@@ -86,8 +86,7 @@ def extra_layout(manifest: dict) -> tuple[tuple[str, ...], tuple[int | None, ...
     return names, pos
 
 
-def read_extra(manifest: dict, folder: Path, n: int, a: int, b: int) -> pa.Table | None:
-    """Rows ``a .. b-1`` of the text columns (reading only the row groups they lie in), or None."""
+def _extra_file(manifest: dict, folder: Path, n: int) -> pq.ParquetFile | None:
     names, _ = extra_layout(manifest)
     if not names:
         return None
@@ -95,9 +94,30 @@ def read_extra(manifest: dict, folder: Path, n: int, a: int, b: int) -> pa.Table
         raise ArchiveCorrupt(f"text columns are listed but {EXTRA_MEMBER} is not a member; the archive is damaged")
     try:
         f = pq.ParquetFile(folder / EXTRA_MEMBER)
-        md = f.metadata
-        if md.num_rows != n or tuple(f.schema_arrow.names) != names:
-            raise ArchiveCorrupt(f"{EXTRA_MEMBER} does not match the manifest; the archive is damaged")
+    except (OSError, pa.ArrowException) as exc:
+        raise ArchiveCorrupt(f"{EXTRA_MEMBER} cannot be read ({exc}); the archive is damaged") from None
+    if f.metadata.num_rows != n or tuple(f.schema_arrow.names) != names:
+        raise ArchiveCorrupt(f"{EXTRA_MEMBER} does not match the manifest; the archive is damaged")
+    return f
+
+
+def check_extra(manifest: dict, folder: Path, n: int) -> None:
+    """Decode every row group of the text columns, one at a time (ArchiveCorrupt if one does not)."""
+    f = _extra_file(manifest, folder, n)
+    for g in range(f.metadata.num_row_groups if f is not None else 0):
+        try:
+            f.read_row_group(g)
+        except (OSError, pa.ArrowException) as exc:
+            raise ArchiveCorrupt(f"{EXTRA_MEMBER} cannot be read ({exc}); the archive is damaged") from None
+
+
+def read_extra(manifest: dict, folder: Path, n: int, a: int, b: int) -> pa.Table | None:
+    """Rows ``a .. b-1`` of the text columns (reading only the row groups they lie in), or None."""
+    f = _extra_file(manifest, folder, n)
+    if f is None:
+        return None
+    md = f.metadata
+    try:
         groups, first, row = [], None, 0
         for g in range(md.num_row_groups):
             rows = md.row_group(g).num_rows
