@@ -254,6 +254,16 @@ def test_pack_refuses_rates_that_break_the_clock(tmp_path, rate, needle):
     assert list(tmp_path.iterdir()) == []
 
 
+def test_pack_refuses_an_unusable_time_axis(tmp_path):
+    times = T0 + np.arange(100, dtype=np.int64) * NS
+    for rec, needle in [(_rec(100, times, zone="CET"), "zone 'CET'"),
+                        (_rec(100, times.astype(np.float64)), "int64 ns"),
+                        (_rec(100, times[:99]), "99 rows")]:
+        with pytest.raises(BadInput, match=needle):
+            tsarchive.pack(rec, tmp_path / "r.tsa", "0.01", code_size=0)
+    assert list(tmp_path.iterdir()) == []
+
+
 def test_cli_rate_too_high_is_one_line(tmp_path, capsys):
     np.save(tmp_path / "x.npy", _signal(100))
     assert main(["pack", str(tmp_path / "x.npy"), "-o", str(tmp_path / "x.tsa"), "--rate", "1e12"]) == 2

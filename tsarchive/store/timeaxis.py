@@ -172,6 +172,15 @@ def check_axis(rec) -> None:
         if len(rec.time.values) != n:
             raise BadInput(f"the time column has {len(rec.time.values)} rows but the channels {n}; "
                            "give one time per sample")
+        kind = np.asarray(rec.time.values).dtype.kind
+        if kind != ("i" if rec.time.kind == DATETIME else "f"):
+            raise BadInput(f"the {rec.time.kind} time axis holds {np.asarray(rec.time.values).dtype} values; "
+                           "give int64 ns for datetimes, float64 for seconds")
+        try:
+            parse_zone(rec.time.zone)
+        except ArchiveCorrupt:
+            raise BadInput(f"time zone {rec.time.zone!r} is not understood; give Z or an offset such as +01:00") \
+                from None
         return
     span = (n - 1) / r if n > 1 else 0.0
     if rec.start is None:
