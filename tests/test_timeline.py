@@ -319,3 +319,17 @@ def test_damaged_text_columns_are_named(tmp_path):
         tsarchive.open(tmp_path / "t.tsa").extra()
     rep = tsarchive.verify(tmp_path / "t.tsa")
     assert not rep.ok and any("extra.parquet cannot be read" in p for p in rep.problems)
+
+
+def test_report_describes_the_times_and_notes(tmp_path, capsys):
+    times = _gapped()
+    _pack(_rec(len(times), times, notes=("Logger LX-7",)), tmp_path / "gap.tsa")
+    assert main(["report", str(tmp_path / "gap.tsa")]) == 0
+    out = capsys.readouterr().out.splitlines()
+    # the last time: 3000 rows, 60 missing, at 1 s (numpy's calendar)
+    last = str(np.datetime64(int(times[-1]), "ns").astype("datetime64[s]"))
+    assert f"times: no zone (wall clock as logged), 1 Hz with 1 break(s) (gaps or clock steps), " \
+           f"2024-03-05T14:00:00 to {last}" in out
+    assert "logger note: Logger LX-7" in out
+    assert main(["report", str(tmp_path / "gap.tsa"), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["notes"] == ["Logger LX-7"]

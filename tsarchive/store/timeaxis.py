@@ -307,6 +307,25 @@ class Timeline:
         b = self.n if e is None else self._first_at(e)
         return a, max(a, b)
 
+    def describe(self) -> str:
+        """One line for reports: kind, zone, how it is stored, first and last time."""
+        if not self.n:
+            return "times: none (no samples)"
+        if self.listed is not None:
+            how = "irregular, every time listed"
+        elif len(self.run_index) == 1:
+            how = f"regular at {self.rate:g} Hz"
+        else:
+            how = f"{self.rate:g} Hz with {len(self.run_index) - 1} break(s) (gaps or clock steps)"
+        ends = self.values(0, 1).tolist() + self.values(self.n - 1, self.n).tolist()
+        if self.kind == SECONDS:
+            return f"times: seconds, {how}, {ends[0]!r} to {ends[1]!r}"
+        zone = "no zone (wall clock as logged)" if self.zone is None else f"zone {self.zone}"
+        unit = next((u for u, d in (("s", NS), ("ms", 10**6), ("us", 1000)) if not any(t % d for t in ends)), "ns")
+        first, last = (str(np.datetime64(t + _offset_ns(self.zone), "ns").astype(f"datetime64[{unit}]"))
+                       + (self.zone or "") for t in ends)
+        return f"times: {zone}, {how}, {first} to {last}"
+
     def start_datetime(self) -> datetime | None:
         """The first sample's time as a datetime (naive stays naive; microseconds), None for seconds."""
         if self.kind != DATETIME or not self.n:
@@ -316,6 +335,11 @@ class Timeline:
             return _EPOCH + timedelta(microseconds=ns // 1000)
         utc = datetime(1970, 1, 1, tzinfo=timezone.utc) + timedelta(microseconds=ns // 1000)
         return utc.astimezone(parse_zone(self.zone))
+
+
+def _offset_ns(zone: str | None) -> int:
+    tz = parse_zone(zone)
+    return 0 if tz is None else tz.utcoffset(None) // timedelta(microseconds=1) * 1000
 
 
 def parse_zone(zone: str | None):
