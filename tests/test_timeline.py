@@ -333,3 +333,51 @@ def test_report_describes_the_times_and_notes(tmp_path, capsys):
     assert "logger note: Logger LX-7" in out
     assert main(["report", str(tmp_path / "gap.tsa"), "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["notes"] == ["Logger LX-7"]
+
+
+# -- properties: any axis comes back exactly, any range selects what numpy selects -----------------
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+
+@st.composite
+def _axes(draw):
+    """A datetime axis built from pieces: regular stretches at the nominal rate, gaps, steps back, jitter."""
+    rate = draw(st.sampled_from([1.0, 3.0, 44.1, 1000.0, 0.1, 2.5e8]))
+    step = int(round(1e9 / rate))
+    pieces, t = [], T0 + draw(st.integers(-10**12, 10**12))
+    for _ in range(draw(st.integers(1, 5))):
+        n = draw(st.integers(1, 200))
+        kind = draw(st.sampled_from(["rule", "jitter"]))
+        if kind == "rule":
+            piece = t + timeaxis.rule(np.arange(n), rate, "datetime")
+        else:
+            piece = t + np.cumsum(np.array(draw(st.lists(st.integers(1, 2 * step), min_size=n, max_size=n))))
+        pieces.append(piece)
+        t = int(piece[-1]) + draw(st.integers(-5 * step, 50 * step))
+    return rate, np.concatenate(pieces).astype(np.int64)
+
+
+@settings(max_examples=60, deadline=None)
+@given(_axes(), st.data())
+def test_any_axis_comes_back_exactly_and_ranges_match_numpy(tmp_path_factory, axis, data):
+    from tsarchive.store.sidecar import stage_sidecar
+    rate, times = axis
+    d = tmp_path_factory.mktemp("axis")
+    rec = Recording.from_columns([np.zeros(len(times))], rate=rate, channels=[ChannelInfo("x")],
+                                 time=TimeAxis("datetime", times))
+    fields = stage_sidecar(d, rec)
+    members = {p.name: {} for p in d.iterdir()}
+    tl = timeaxis.load_timeline({**fields, "members": members}, d, len(times), rate, None)
+    np.testing.assert_array_equal(tl.values(0, len(times)), times)
+    a, b = sorted(data.draw(st.lists(st.integers(0, len(times)), min_size=2, max_size=2)))
+    np.testing.assert_array_equal(tl.values(a, b), times[a:b])
+    if np.all(np.diff(times) >= 0):
+        lo = Fraction(data.draw(st.integers(0, int(times[-1] - times[0]) + 10)), NS)
+        hi = lo + Fraction(data.draw(st.integers(1, 10**11)), NS)
+        off = times - times[0]                       # numpy: start <= t - t0 < end, in integer ns
+        mask = (off >= lo * NS) & (off < hi * NS)
+        if mask.any():
+            got = tl.span(lo, hi)
+            idx = np.flatnonzero(mask)
+            assert got == (int(idx[0]), int(idx[-1]) + 1)
