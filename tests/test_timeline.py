@@ -218,12 +218,14 @@ def test_notes_and_text_columns_come_back(tmp_path):
     back = pq.read_table(tmp_path / "x.parquet")
     assert back.column_names == ["Timestamp", "status", "temp", "flag"]     # status where it stood
     assert back["status"].equals(extra["status"]) and back["flag"].equals(extra["flag"])
+    assert json.loads(back.schema.metadata[b"notes"]) == list(notes)
     arc.export(tmp_path / "x.csv")
-    rows = _csv_rows(tmp_path / "x.csv")                    # reference: Python's csv module (RFC 4180 quoting)
+    text = (tmp_path / "x.csv").read_text(encoding="utf-8").split("\n")
+    assert tuple(text[:3]) == notes                          # the preamble, as found, before the header
+    rows = _csv_rows(tmp_path / "x.csv")[3:]                # reference: Python's csv module (RFC 4180 quoting)
     assert rows[0] == ["Timestamp", "status", "temp [degC]", "flag"]
     assert [r[1] for r in rows[1:7]] == ["ok", "", "", 'said "hi", left', "ölbad\nzwei", " pad "]
-    text = (tmp_path / "x.csv").read_text(encoding="utf-8").splitlines()
-    assert text[2].split(",")[1] == "" and text[3].split(",")[1] == '""'    # null vs empty string
+    assert text[5].split(",")[1] == "" and text[6].split(",")[1] == '""'    # null vs empty string
     assert [r[3] for r in rows[1:4]] == ["true", "false", "false"]
 
 

@@ -21,7 +21,8 @@ Formats:
     (``…+01:00``) or ``Z``; seconds (``time [s]``) as Python's ``repr``.
     Text columns (``extra``) go back where they stood in the source row
     (``positions``), else after the channels; a null is an empty cell, an
-    empty string ``""``.
+    empty string ``""``.  The recording's notes come first, one a line, as
+    they stood before the logger's header.
     Channels are headed ``name [unit]`` (plain ``name`` without a unit).
     Floats are written with Python's ``repr`` -- the shortest text that
     parses back to the same double -- and ``nan``, ``inf``, ``-inf``;
@@ -31,17 +32,19 @@ Formats:
     zone for naive times, else with ``UTC`` or the offset; float64 seconds
     with unit ``s`` for a seconds axis), then one column per channel in its
     own dtype, the unit in the field metadata ``b"unit"``; text columns as
-    for CSV, in their Arrow types.
+    for CSV, in their Arrow types; notes in the file metadata ``b"notes"``.
 """
 
 from __future__ import annotations
 
 import csv
 import io
+import json
 import os
 import tempfile
 from collections.abc import Iterator
 from contextlib import contextmanager
+from dataclasses import dataclass
 from datetime import datetime, timedelta
 from pathlib import Path
 
@@ -57,12 +60,23 @@ FORMATS = (".npy", ".csv", ".parquet")
 CSV_CHUNK_ROWS = 65_536
 
 
-__all__ = ["FORMATS", "write_table"]
+__all__ = ["FORMATS", "TextParts", "write_table"]
+
+
+@dataclass(frozen=True, eq=False)
+class TextParts:
+    """What a recording carries besides numbers: preamble ``notes`` (CSV: the lines before the header,
+    as found; Parquet: the file metadata ``b"notes"``, a JSON list) and text columns ``extra`` (a
+    row-aligned pyarrow Table) with their ``positions`` among the source's columns other than time."""
+
+    notes: tuple[str, ...] = ()
+    extra: "pa.Table | None" = None
+    positions: tuple[int | None, ...] = ()
 
 
 def write_table(path: str | Path, columns: dict[str, np.ndarray], *, rate: float, start: datetime | None,
                 t0: float = 0.0, units: dict[str, str] | None = None, shape_1d: bool = False,
-                times: Times | None = None, extra=None, positions=()) -> Path:
+                times: Times | None = None, text: TextParts | None = None) -> Path:
     """Write ``columns`` (name -> 1-D array, all the same length) to ``path``; return the path.
 
     ``times`` are the rows' exact times (:class:`tsarchive.store.timeaxis.Times`);
@@ -70,8 +84,7 @@ def write_table(path: str | Path, columns: dict[str, np.ndarray], *, rate: float
     samples per second, ``start`` the recording's start (naive stays naive)
     or None, ``t0`` the time of the first row in seconds from the start
     (non-zero for an excerpt).  ``units`` maps channel names to units;
-    ``extra`` (a pyarrow Table, row-aligned) holds text columns and
-    ``positions`` their places in the source row.  See the module docstring for each format.  Raises
+    ``text`` holds notes and text columns.  See the module docstring for each format.  Raises
     :class:`BadInput` for an unknown extension, a missing folder, or
     columns that are empty, of unequal length or not numeric.
     """
@@ -88,16 +101,17 @@ def write_table(path: str | Path, columns: dict[str, np.ndarray], *, rate: float
     n = next(iter(cols.values())).shape[0]
     if times is None:
         times = _rule_times(n, float(rate), start, float(t0))
-    if len(times.values) != n or (extra is not None and extra.num_rows != n):
+    text = text or TextParts()
+    if len(times.values) != n or (text.extra is not None and text.extra.num_rows != n):
         raise BadInput(f"the time column or text columns do not have {n} rows; give one row per sample")
-    order = _order(list(cols), extra, positions)
+    order = _order(list(cols), text.extra, text.positions)
     with _atomic(p) as tmp:
         if ext == ".npy":
             _write_npy(tmp, cols, shape_1d)
         elif ext == ".csv":
-            _write_csv(tmp, cols, times, units, extra, order)
+            _write_csv(tmp, cols, times, units, text, order)
         else:
-            _write_parquet(tmp, cols, times, units, extra, order)
+            _write_parquet(tmp, cols, times, units, text, order)
     return p
 
 
@@ -249,14 +263,16 @@ def _time_header(times: Times) -> str:
     return times.name
 
 
-def _write_csv(tmp: str, cols: dict[str, np.ndarray], times: Times, units: dict[str, str], extra,
+def _write_csv(tmp: str, cols: dict[str, np.ndarray], times: Times, units: dict[str, str], text: TextParts,
                order: list[tuple[str, str]]) -> None:
+    extra = text.extra
     n = next(iter(cols.values())).shape[0]
     head = io.StringIO()
     csv.writer(head, lineterminator="\n").writerow(
         [_time_header(times)] + [_header(k, units.get(k, "")) if c == "ch" else k for c, k in order])
     unit = _iso_unit(times.values) if times.kind == "datetime" else ""
     with open(tmp, "w", encoding="utf-8", newline="\n") as f:
+        f.write("".join(line + "\n" for line in text.notes))        # the preamble, as found
         f.write(head.getvalue())
         for lo in range(0, n, CSV_CHUNK_ROWS):
             hi = min(n, lo + CSV_CHUNK_ROWS)
@@ -266,11 +282,12 @@ def _write_csv(tmp: str, cols: dict[str, np.ndarray], times: Times, units: dict[
             f.write("".join(",".join(row) + "\n" for row in zip(*cells)))
 
 
-def _write_parquet(tmp: str, cols: dict[str, np.ndarray], times: Times, units: dict[str, str], extra,
+def _write_parquet(tmp: str, cols: dict[str, np.ndarray], times: Times, units: dict[str, str], text: TextParts,
                    order: list[tuple[str, str]]) -> None:
     import pyarrow as pa
     import pyarrow.parquet as pq
 
+    extra = text.extra
     if times.kind == "datetime":
         time_arr = pa.array(times.values, type=pa.timestamp("ns", tz=None if times.zone is None else
                                                             ("UTC" if times.zone == "Z" else times.zone)))
@@ -289,5 +306,6 @@ def _write_parquet(tmp: str, cols: dict[str, np.ndarray], times: Times, units: d
         unit = units.get(name, "")
         fields.append(pa.field(name, arr.type, metadata={b"unit": unit.encode("utf-8")} if unit else None))
         arrays.append(arr)
-    table = pa.Table.from_arrays(arrays, schema=pa.schema(fields))
+    meta = {b"notes": json.dumps(list(text.notes), ensure_ascii=False).encode("utf-8")} if text.notes else None
+    table = pa.Table.from_arrays(arrays, schema=pa.schema(fields, metadata=meta))
     pq.write_table(table, tmp, compression="zstd", row_group_size=1 << 20)

@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from .errors import BadInput
-from .export import write_table
+from .export import TextParts, write_table
 from .store.sidecar import extra_layout
 
 
@@ -23,5 +23,6 @@ def export_range(arc, out_path, channels=None, start=None, end=None) -> Path:
     positions = extra_layout(arc.manifest)[1]
     shape = arc.manifest.get("source", {}).get("shape", [])
     one_d = len(shape) == 1 and len(names) == 1
-    return write_table(Path(out_path), columns, rate=meta.rate, start=meta.start, times=times,
-                       extra=extra, positions=positions, units={m.name: m.unit for m in metas}, shape_1d=one_d)
+    text = TextParts(notes=arc.notes, extra=extra, positions=positions)
+    return write_table(Path(out_path), columns, rate=meta.rate, start=meta.start, times=times, text=text,
+                       units={m.name: m.unit for m in metas}, shape_1d=one_d)
