@@ -299,6 +299,10 @@ def test_damaged_time_entries_are_named(tmp_path):
     (tmp_path / "g.tsa" / "manifest.json").write_text(json.dumps(m))
     with pytest.raises(ArchiveCorrupt, match="time runs"):
         tsarchive.open(tmp_path / "g.tsa").times()
+    m["time"]["runs"] = [[0, timeaxis.LATEST_NS - 10 * NS]]      # 500 samples at 1 Hz would pass April 2262
+    (tmp_path / "g.tsa" / "manifest.json").write_text(json.dumps(m))
+    with pytest.raises(ArchiveCorrupt, match="time runs"):
+        tsarchive.open(tmp_path / "g.tsa").times()
     rep = tsarchive.verify(tmp_path / "g.tsa")                   # verify names it (the manifest has no checksum)
     assert not rep.ok and any("time runs" in p for p in rep.problems)
 

@@ -382,10 +382,17 @@ def load_timeline(manifest: dict, folder: Path, n: int, rate: float, start: date
     except (KeyError, TypeError, ValueError, IndexError, AttributeError):
         raise ArchiveCorrupt("the manifest's time entry is malformed; the archive is damaged") from None
     if (n and (not index or index[0] != 0)) or any(b <= a for a, b in zip(index, index[1:])) or \
-            (index and index[-1] >= n) or \
-            (kind == DATETIME and any(not EARLIEST_NS <= s < LATEST_NS for s in starts)):
+            (index and index[-1] >= n) or (kind == DATETIME and not _runs_in_range(index, starts, n, rate)):
         raise ArchiveCorrupt("the manifest's time runs are out of order or range; the archive is damaged")
     return Timeline(kind, zone, columns, rate, n, index, starts)
+
+
+def _runs_in_range(index: tuple[int, ...], starts: tuple[int, ...], n: int, rate: float) -> bool:
+    """Every run's first and last time lie in 1900..2262 (Python integers: nothing can wrap around)."""
+    P, Q = _period(rate)
+    ends = index[1:] + (n,)
+    return all(EARLIEST_NS <= s and s + (2 * (e - r - 1) * P + Q) // (2 * Q) < LATEST_NS
+               for r, s, e in zip(index, starts, ends))
 
 
 def _read_listed(manifest: dict, folder: Path, n: int, kind: str, origin: int, tick: int) -> np.ndarray:
