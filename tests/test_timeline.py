@@ -387,3 +387,23 @@ def test_any_axis_comes_back_exactly_and_ranges_match_numpy(tmp_path_factory, ax
             got = tl.span(lo, hi)
             idx = np.flatnonzero(mask)
             assert got == (int(idx[0]), int(idx[-1]) + 1)
+
+
+def test_listed_times_are_read_a_row_group_at_a_time(tmp_path, monkeypatch):
+    from tsarchive.store import timelist
+    monkeypatch.setattr(timelist, "ROWS", 1000)
+    rng = np.random.default_rng(5)
+    times = T0 + np.cumsum(rng.integers(900_000, 1_100_000, 5000))
+    arc = _pack(_rec(5000, times, rate=1000.0), tmp_path / "rg.tsa")
+    assert pq.ParquetFile(tmp_path / "rg.tsa" / timeaxis.TIME_MEMBER).metadata.num_row_groups == 5
+    tl = arc.timeline
+    np.testing.assert_array_equal(tl.values(990, 3010), times[990:3010])
+    assert len(tl.listed._cache) <= 2                              # never the whole axis at once
+    off = times - times[0]
+    mask = (off >= 1 * NS) & (off < 3 * NS)                         # numpy on the logged times
+    np.testing.assert_array_equal(arc.times(1, 3).values, times[mask])
+    back = times.copy()
+    back[2000:] -= 10 * NS                                          # clock put back at a row-group boundary
+    arc = _pack(_rec(5000, back, rate=1000.0), tmp_path / "back.tsa")
+    with pytest.raises(BadInput, match="at sample 2000"):
+        arc.read("temp", start=1)

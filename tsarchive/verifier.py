@@ -131,7 +131,7 @@ def check_sidecar(arc) -> list[str]:
     """The time axis and the text columns decode (the problem named, not raised)."""
     from .store.sidecar import check_extra
     try:
-        arc.timeline.values(0, 1)
+        arc.timeline.check()
         check_extra(arc.manifest, arc.path, arc.timeline.n)
         arc.notes
     except ArchiveCorrupt as exc:

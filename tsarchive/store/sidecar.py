@@ -25,6 +25,7 @@ import pyarrow.parquet as pq
 
 from ..errors import ArchiveCorrupt, BadInput
 from . import schema as S, timeaxis
+from .timelist import write_listed
 
 EXTRA_MEMBER = S.EXTRA
 EXTRA_ROWS = 1 << 16        # rows per row group of extra.parquet (the unit read for a time range)
@@ -46,7 +47,7 @@ def stage_sidecar(stage: Path, rec) -> dict:
     entry, listed = timeaxis.encode_axis(rec)
     fields: dict = {"time": entry}
     if listed is not None:
-        timeaxis.write_axis_member(stage / timeaxis.TIME_MEMBER, listed)
+        write_listed(stage / timeaxis.TIME_MEMBER, listed)
     if rec.notes:
         fields["notes"] = [str(s) for s in rec.notes]
     extra = rec.extra

@@ -18,7 +18,8 @@ one.  Writer and reader apply the same rule, in integers only:
 * ``seconds`` (float64): ``t[r + k] = t[r] + k / rate`` (two correctly
   rounded IEEE-754 operations); a run's start is stored as ``float.hex``.
 
-An axis that needs more than ``MAX_RUNS`` runs (jitter) is *listed*:
+An axis that needs more than ``MAX_RUNS`` runs (jitter) is *listed*
+(:mod:`tsarchive.store.timelist`):
 ``time.parquet`` holds every time in one int64 column ``t``,
 DELTA_BINARY_PACKED + zstd: for datetimes ``(t - origin) / tick`` with
 ``origin`` the earliest time and ``tick`` the greatest common divisor of
@@ -37,11 +38,10 @@ from functools import cached_property, lru_cache
 from pathlib import Path
 
 import numpy as np
-import pyarrow as pa
-import pyarrow.parquet as pq
 
 from ..errors import ArchiveCorrupt, BadInput
 from . import schema as S
+from .timelist import ListedTimes
 
 TIME_MEMBER = S.TIME
 DATETIME, SECONDS = "datetime", "seconds"
@@ -218,13 +218,6 @@ def encode_axis(rec) -> tuple[dict, np.ndarray | None]:
     return dict(entry, runs=[[int(r), s] for r, s in zip(runs, starts)]), None
 
 
-def write_axis_member(path: Path, column: np.ndarray) -> None:
-    """time.parquet: one int64 column, delta-packed (a steady clock costs next to nothing) and zstd."""
-    pq.write_table(pa.table({"t": pa.array(column, pa.int64())}), path, compression="zstd", compression_level=9,
-                   use_dictionary=False, write_statistics=False, store_schema=False,
-                   column_encoding={"t": "DELTA_BINARY_PACKED"}, row_group_size=1 << 20)
-
-
 # -- reading ---------------------------------------------------------------------
 @dataclass(frozen=True, eq=False)
 class Timeline:
@@ -237,7 +230,7 @@ class Timeline:
     n: int
     run_index: tuple[int, ...] = ()
     run_start: tuple = ()          # int ns or float seconds, one per run
-    listed: np.ndarray | None = None
+    listed: ListedTimes | None = None
 
     @property
     def name(self) -> str:
@@ -247,7 +240,7 @@ class Timeline:
         """Times of samples ``a .. b-1`` (int64 ns or float64 s)."""
         a, b = max(0, a), min(self.n, b)
         if self.listed is not None:
-            return self.listed[a:max(a, b)].copy()
+            return self.listed.values(a, b)
         out = np.empty(max(0, b - a), dtype=np.int64 if self.kind == DATETIME else np.float64)
         bounds = self.run_index + (self.n,)
         for j, r in enumerate(self.run_index):
@@ -255,6 +248,14 @@ class Timeline:
             if lo < hi:
                 out[lo - a:hi - a] = self.run_start[j] + rule(np.arange(lo - r, hi - r), self.rate, self.kind)
         return out
+
+    def check(self) -> None:
+        """Decode every stored time (ArchiveCorrupt at the first that does not decode)."""
+        if self.listed is not None:
+            for g in range(len(self.listed.bounds) - 1):
+                self.listed.group(g)
+        elif self.n:
+            self.values(0, 1)
 
     def times(self, a: int, b: int) -> Times:
         return Times(self.kind, self.values(a, b), self.zone, a, self.name)
@@ -266,11 +267,8 @@ class Timeline:
     @cached_property
     def _backwards(self) -> int | None:
         """First sample whose time is before its predecessor's (or not a number), or None."""
-        if self.listed is not None and self.kind == SECONDS and not np.all(np.isfinite(self.listed)):
-            return int(np.flatnonzero(~np.isfinite(self.listed))[0])
         if self.listed is not None:
-            back = np.flatnonzero(np.diff(self.listed.view(np.int64) if self.kind == DATETIME else self.listed) < 0)
-            return int(back[0]) + 1 if back.size else None
+            return self.listed.backwards
         for r in self.run_index[1:]:
             if self._key(r) < self._key(r - 1):
                 return r
@@ -375,7 +373,7 @@ def load_timeline(manifest: dict, folder: Path, n: int, rate: float, start: date
             if tick < 1:
                 raise ValueError(tick)
             return Timeline(kind, zone, columns, rate, n,
-                            listed=_read_listed(manifest, folder, n, kind, origin, tick))
+                            listed=ListedTimes(manifest, folder, n, kind == SECONDS, origin, tick))
         runs = entry["runs"]
         index = tuple(int(r[0]) for r in runs)
         starts = tuple(int(r[1]) if kind == DATETIME else float.fromhex(r[1]) for r in runs)
@@ -393,20 +391,3 @@ def _runs_in_range(index: tuple[int, ...], starts: tuple[int, ...], n: int, rate
     ends = index[1:] + (n,)
     return all(EARLIEST_NS <= s and s + (2 * (e - r - 1) * P + Q) // (2 * Q) < LATEST_NS
                for r, s, e in zip(index, starts, ends))
-
-
-def _read_listed(manifest: dict, folder: Path, n: int, kind: str, origin: int, tick: int) -> np.ndarray:
-    if TIME_MEMBER not in manifest.get("members", {}):
-        raise ArchiveCorrupt(f"the time axis is listed but {TIME_MEMBER} is not a member; the archive is damaged")
-    try:
-        t = pq.read_table(folder / TIME_MEMBER)
-    except (OSError, pa.ArrowException) as exc:
-        raise ArchiveCorrupt(f"{TIME_MEMBER} cannot be read ({exc}); the archive is damaged") from None
-    if t.column_names != ["t"] or t.schema.field("t").type != pa.int64() or t.num_rows != n or t["t"].null_count:
-        raise ArchiveCorrupt(f"{TIME_MEMBER} does not hold one time per sample; the archive is damaged")
-    col = t["t"].to_numpy()
-    if kind == SECONDS:
-        return col.view(np.float64)
-    if n and not (-2**63 <= origin + int(col.min()) * tick and origin + int(col.max()) * tick < 2**63):
-        raise ArchiveCorrupt(f"{TIME_MEMBER} holds times beyond the year 2262; the archive is damaged")
-    return origin + col * tick
