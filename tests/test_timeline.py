@@ -407,3 +407,15 @@ def test_listed_times_are_read_a_row_group_at_a_time(tmp_path, monkeypatch):
     arc = _pack(_rec(5000, back, rate=1000.0), tmp_path / "back.tsa")
     with pytest.raises(BadInput, match="at sample 2000"):
         arc.read("temp", start=1)
+
+
+def test_text_columns_return_to_their_source_positions(tmp_path):
+    from tsarchive.export import TextParts, write_table
+    # the source row (after its time column) was: x a y b z c w; channels fill the places not taken
+    cols = {k: np.arange(3.0) for k in "abc"}
+    extra = pa.table({k: pa.array(["1", "2", "3"]) for k in "xyzw"})
+    p = write_table(tmp_path / "o.csv", cols, rate=1.0, start=None,
+                    text=TextParts(extra=extra, positions=(0, 2, 4, 6)))
+    assert _csv_rows(p)[0] == ["time [s]", "x", "a", "y", "b", "z", "c", "w"]
+    p = write_table(tmp_path / "u.csv", cols, rate=1.0, start=None, text=TextParts(extra=extra))
+    assert _csv_rows(p)[0] == ["time [s]", "a", "b", "c", "x", "y", "z", "w"]     # unknown: after the channels
