@@ -419,3 +419,31 @@ def test_text_columns_return_to_their_source_positions(tmp_path):
     assert _csv_rows(p)[0] == ["time [s]", "x", "a", "y", "b", "z", "c", "w"]
     p = write_table(tmp_path / "u.csv", cols, rate=1.0, start=None, text=TextParts(extra=extra))
     assert _csv_rows(p)[0] == ["time [s]", "a", "b", "c", "x", "y", "z", "w"]     # unknown: after the channels
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.sampled_from([1.0, 10.0, 44.1, 0.3]), st.lists(st.tuples(st.integers(1, 150), st.booleans(),
+                                                                      st.floats(-5, 500)), min_size=1, max_size=4),
+       st.floats(0, 600), st.floats(0.01, 600))
+def test_any_seconds_axis_comes_back_bit_for_bit(tmp_path_factory, rate, pieces, lo, width):
+    from tsarchive.store.sidecar import stage_sidecar
+    rng = np.random.default_rng(len(pieces))
+    parts, t = [], 0.0
+    for n, regular, jump in pieces:
+        part = t + (np.arange(n) / rate if regular else np.cumsum(rng.random(n)))
+        parts.append(part)
+        t = float(part[-1]) + jump
+    secs = np.concatenate(parts)
+    d = tmp_path_factory.mktemp("secs")
+    rec = Recording.from_columns([np.zeros(len(secs))], rate=rate, channels=[ChannelInfo("x")],
+                                 time=TimeAxis("seconds", secs))
+    fields = stage_sidecar(d, rec)
+    tl = timeaxis.load_timeline({**fields, "members": {p.name: {} for p in d.iterdir()}}, d, len(secs), rate, None)
+    np.testing.assert_array_equal(tl.values(0, len(secs)).view(np.int64), secs.view(np.int64))
+    if np.all(np.diff(secs) >= 0):
+        # reference: exact rational comparisons (Python fractions) of t - t0 with the range
+        start, end = Fraction(lo), Fraction(lo) + Fraction(width)
+        inside = [start <= Fraction(float(x)) - Fraction(float(secs[0])) < end for x in secs]
+        if any(inside):
+            idx = [i for i, ok in enumerate(inside) if ok]
+            assert tl.span(start, end) == (idx[0], idx[-1] + 1)
