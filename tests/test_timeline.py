@@ -260,7 +260,9 @@ def test_pack_refuses_an_unusable_time_axis(tmp_path):
     times = T0 + np.arange(100, dtype=np.int64) * NS
     for rec, needle in [(_rec(100, times, zone="CET"), "zone 'CET'"),
                         (_rec(100, times.astype(np.float64)), "int64 ns"),
-                        (_rec(100, times[:99]), "99 rows")]:
+                        (_rec(100, times[:99]), "99 rows"),
+                        (_rec(100, times, rate=1e-9), "1900..2262"),         # a nominal rate beside the times
+                        (_rec(100, times / 1e9, kind="seconds", rate=1e-9), "1900..2262")]:
         with pytest.raises(BadInput, match=needle):
             tsarchive.pack(rec, tmp_path / "r.tsa", "0.01", code_size=0)
     assert list(tmp_path.iterdir()) == []

@@ -165,33 +165,38 @@ def check_axis(rec) -> None:
     if r > MAX_RATE:
         raise BadInput(f"rate {r:g} Hz puts samples less than 1 ns apart, so their times cannot be told apart; "
                        "check --rate (at most 1e9)")
-    n = rec.n_samples
     if rec.time is not None:
-        if rec.time.kind not in (DATETIME, SECONDS):
-            raise BadInput(f"time axis kind {rec.time.kind!r} is unknown; use 'datetime' or 'seconds'")
-        if len(rec.time.values) != n:
-            raise BadInput(f"the time column has {len(rec.time.values)} rows but the channels {n}; "
-                           "give one time per sample")
-        kind = np.asarray(rec.time.values).dtype.kind
-        if kind != ("i" if rec.time.kind == DATETIME else "f"):
-            raise BadInput(f"the {rec.time.kind} time axis holds {np.asarray(rec.time.values).dtype} values; "
-                           "give int64 ns for datetimes, float64 for seconds")
-        try:
-            parse_zone(rec.time.zone)
-        except ArchiveCorrupt:
-            raise BadInput(f"time zone {rec.time.zone!r} is not understood; give Z or an offset such as +01:00") \
-                from None
-        return
+        _check_time_column(rec)
+    n = rec.n_samples
     span = (n - 1) / r if n > 1 else 0.0
-    if rec.start is None:
+    first = source_axis(rec, 0, 1)
+    if first.kind == SECONDS or not n:
         if span > LONGEST_S:
             raise BadInput(f"rate {r:g} Hz spreads {n} samples over {span:.3g} s, longer than any record "
                            "(1900..2262); check --rate")
         return
-    t0 = datetime_ns(rec.start)
+    t0 = int(first.values[0])
     if not (EARLIEST_NS <= t0 and t0 + span * NS < LATEST_NS):
-        raise BadInput(f"rate {r:g} Hz puts the samples from {rec.start.isoformat()} to "
-                       f"{span:.3g} s later, outside 1900..2262; check --rate")
+        shown = np.datetime64(t0, "ns").astype("datetime64[s]")
+        raise BadInput(f"rate {r:g} Hz puts the samples from {shown} to {span:.3g} s later, outside 1900..2262; "
+                       "check --rate")
+
+
+def _check_time_column(rec) -> None:
+    n, kind = rec.n_samples, rec.time.kind
+    if kind not in (DATETIME, SECONDS):
+        raise BadInput(f"time axis kind {kind!r} is unknown; use 'datetime' or 'seconds'")
+    if len(rec.time.values) != n:
+        raise BadInput(f"the time column has {len(rec.time.values)} rows but the channels {n}; "
+                       "give one time per sample")
+    if np.asarray(rec.time.values).dtype.kind != ("i" if kind == DATETIME else "f"):
+        raise BadInput(f"the {kind} time axis holds {np.asarray(rec.time.values).dtype} values; "
+                       "give int64 ns for datetimes, float64 for seconds")
+    try:
+        parse_zone(rec.time.zone)
+    except ArchiveCorrupt:
+        raise BadInput(f"time zone {rec.time.zone!r} is not understood; give Z or an offset such as +01:00") \
+            from None
 
 
 def encode_axis(rec) -> tuple[dict, np.ndarray | None]:
