@@ -306,7 +306,9 @@ class Timeline:
                            "ambiguous; export the whole recording instead")
         a = 0 if s is None or s <= 0 else self._first_at(s)
         if a >= self.n:
-            raise BadInput(f"start {float(s):g} s is past the end of the recording; give an earlier start")
+            last = (self._key(self.n - 1) - self._key(0)) / (NS if self.kind == DATETIME else 1)
+            raise BadInput(f"start {float(s):g} s is past the end of the recording (its last sample is "
+                           f"{float(last):g} s after the first); give an earlier start")
         b = self.n if e is None else self._first_at(e)
         return a, max(a, b)
 
