@@ -449,3 +449,15 @@ def test_any_seconds_axis_comes_back_bit_for_bit(tmp_path_factory, rate, pieces,
         if any(inside):
             idx = [i for i, ok in enumerate(inside) if ok]
             assert tl.span(start, end) == (idx[0], idx[-1] + 1)
+
+
+def test_verify_against_a_source_without_a_time_column_checks_start_and_rate(tmp_path):
+    rec = _rec(300, start=datetime(2024, 3, 5, 14), rate=2.0)
+    arc = _pack(rec, tmp_path / "s.tsa")
+    assert arc.verify(against=rec).ok
+    later = _rec(300, start=datetime(2024, 3, 5, 14, 0, 1), rate=2.0)
+    rep = arc.verify(against=later)
+    assert not rep.ok and "sample 0 is at 2024-03-05T14:00:01" in rep.problems[0]
+    faster = _rec(300, start=datetime(2024, 3, 5, 14), rate=4.0)
+    rep = arc.verify(against=faster)
+    assert not rep.ok and "sample 1 is at 2024-03-05T14:00:00.250" in rep.problems[0]
