@@ -23,6 +23,7 @@ from .pipeline import pack
 from .recording import ChannelInfo, Recording
 from .results import ChannelCheck, ChannelSummary, PackResult, Progress, VerifyReport
 from .store.reader import Archive, ChannelMeta, WindowTable, open_archive
+from .store.timeaxis import Times
 
 
 def open(path) -> Archive:  # noqa: A001 - the natural name for the API
@@ -44,7 +45,7 @@ def inspect_source(path, rate: float | None = None) -> Recording:
 __all__ = [
     "__version__", "pack", "open", "verify", "inspect_source", "read_recording",
     "Archive", "ChannelMeta", "WindowTable", "Budget", "BudgetSpec", "DEFAULT_SPEC", "parse_budget_spec",
-    "ChannelInfo", "Recording", "Progress", "PackResult", "ChannelSummary", "VerifyReport", "ChannelCheck",
+    "ChannelInfo", "Recording", "Times", "Progress", "PackResult", "ChannelSummary", "VerifyReport", "ChannelCheck",
     "TsArchiveError", "BadInput", "BudgetError", "SourceNotFound", "ArchiveNotFound", "ArchiveExists",
     "ArchiveCorrupt", "FormatVersionError", "UnknownCodec", "BoundViolation", "Cancelled",
 ]

@@ -51,8 +51,10 @@ def _parser() -> argparse.ArgumentParser:
     up.add_argument("archive")
     up.add_argument("-o", "--output", required=True, metavar="OUT", help="output file: .npy, .csv or .parquet")
     up.add_argument("--channels", metavar="A,B", help="comma-separated channel names (default: all)")
-    up.add_argument("--start", metavar="T", help="seconds from the recording start, or ISO 8601")
-    up.add_argument("--end", metavar="T", help="seconds from the recording start, or ISO 8601")
+    up.add_argument("--start", metavar="T", help="first time to include: seconds from the first sample, or "
+                    "ISO 8601 (on the logged times; gaps count)")
+    up.add_argument("--end", metavar="T", help="time to stop before (excluded): seconds from the first sample, "
+                    "or ISO 8601")
 
     vf = sub.add_parser("verify", help="check an archive's checksums, and every sample against its source")
     vf.add_argument("archive")
@@ -108,11 +110,13 @@ def _pack(args) -> int:
 
 def _unpack(args) -> int:
     from .store.reader import open_archive
-    from .timespec import parse_time
+    from .timespec import parse_offset
     arc = open_archive(args.archive)
     start0 = arc.channels[0].start if arc.channels else None
-    start = None if args.start is None else parse_time(args.start, start0)
-    end = None if args.end is None else parse_time(args.end, start0)
+    tl = arc.timeline
+    ns0 = int(tl.values(0, 1)[0]) if tl.kind == "datetime" and tl.n else None   # exact, where start0 has µs
+    start = None if args.start is None else parse_offset(args.start, start0, ns0)
+    end = None if args.end is None else parse_offset(args.end, start0, ns0)
     chans = None if not args.channels else [c.strip() for c in args.channels.split(",") if c.strip()]
     out = arc.export(args.output, channels=chans, start=start, end=end)
     print(f"wrote {out}")

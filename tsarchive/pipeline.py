@@ -44,6 +44,8 @@ from .recording import Recording
 from .results import ChannelSummary, PackResult, Progress, ProgressFn
 from .workers import workers as worker_count
 from .store.manifest import build_manifest
+from .store.sidecar import stage_sidecar
+from .store.timeaxis import check_axis
 from .store.writer import ArchiveWriter, check_target
 from .windows import DEFAULT_WINDOW, MAX_WINDOW, MIN_WINDOW, batches, channel_scale, levels, n_windows, normalise
 
@@ -94,6 +96,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     archive = Path(archive)
     emit("read", 0, 1, "reading source")
     rec = source if isinstance(source, Recording) else read_recording(source, rate=rate)
+    check_axis(rec)
     check_target(archive, force)
     names = [c.name for c in rec.channels]
     spec = parse_budget_spec(budget)
@@ -282,10 +285,11 @@ def _write(job: dict, model, plans, model_note, decide=None) -> dict:
         _release_memory()
         emit("write", 0, 1, "writing the model and the manifest")
         writer.write_model({} if decoder is None else decoder.to_arrays())
+        sidecar = stage_sidecar(writer.stage, rec)     # time axis, notes, text columns
         manifest = build_manifest(rec, job["spec"], job["grids"], job["scales"], [p.lpc for p in plans], tables,
                                   job["notes"], job["W"], job["K"], decoder, model_note, summaries,
                                   writer.staged_bytes())
-        stage = writer.finalize(manifest)
+        stage = writer.finalize({**manifest, **sidecar})
         emit("write", 1, 1, "staged")
 
         # decode our own output through the reader before it may replace anything

@@ -42,6 +42,7 @@ def archive_dict(arc) -> dict:
         "format_version": arc.manifest.get("format_version"), "window": arc.window,
         "archive_bytes": arc.archive_bytes, "raw_bytes": arc.raw_bytes, "ratio": arc.ratio,
         "within_budget": all(c.worst_error <= c.eps for c in arc.channels),
+        "times": arc.timeline.describe(), "notes": list(arc.notes),
         "channels": [{"name": c.name, "unit": c.unit, "rate": c.rate, "n_samples": c.n_samples,
                       "duration_s": c.duration, "dtype": c.dtype, "budget": c.budget, "eps": c.eps,
                       "decimals": c.decimals, "worst_error": c.worst_error, "used_pct": c.used_pct,
@@ -61,6 +62,7 @@ def archive_table(arc) -> str:
         f"{d['tool_version']})",
         f"source {src.get('name', '?')}: {src.get('bytes', 0)} bytes, sha256 {src.get('sha256', '')[:16]}…",
         f"{len(rows)} channel(s)" + (f" at {first.rate:g} Hz, {first.duration:g} s" if first else ""),
+        arc.timeline.describe(), *(f"logger note: {s}" for s in arc.notes),
         "", _table(HEADER, rows), *[f"note: {c['name']}: {c['note']}" for c in d["channels"] if c["note"]], "",
         f"ratio {d['ratio']:.2f} ({d['raw_bytes']} raw bytes -> {d['archive_bytes']} archive bytes); "
         + ("within budget" if d["within_budget"] else "OVER BUDGET")])

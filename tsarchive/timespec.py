@@ -6,21 +6,25 @@ Accepted forms:
 * a number with a unit: ``250ms``, ``90s``, ``5min``, ``2h`` (also
   ``1.5 h``; no other units, and no ``m`` -- it could mean minutes or milli);
 * an ISO 8601 datetime, ``2031-04-02T08:30:00Z`` -- only when the recording
-  has a start time; a datetime without an offset is taken as UTC.
+  has a start time; a datetime without an offset is read in the recording's
+  own zone (its wall clock for naive recordings), one with an offset on a
+  naive recording is refused (which wall clock it means is unknown).
 
-The result is never negative.
+The result is never negative.  :func:`parse_offset` gives it exactly (a
+Fraction of seconds), so that a range starts exactly on a logged sample.
 """
 
 from __future__ import annotations
 
 import math
 import re
-from datetime import datetime, timezone
+from datetime import datetime, timedelta
+from fractions import Fraction
 
 from .errors import BadInput
 
 #: Unit suffixes and their length in seconds.
-UNITS = {"ms": 1e-3, "s": 1.0, "min": 60.0, "h": 3600.0}
+UNITS = {"ms": Fraction(1, 1000), "s": Fraction(1), "min": Fraction(60), "h": Fraction(3600)}
 
 _NUM_UNIT = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*([a-zA-Z]*)\s*$")
 _FORMS = "give seconds (12.5), a duration (250ms, 90s, 5min, 2h) or an ISO 8601 datetime"
@@ -32,14 +36,24 @@ def parse_time(spec: str, start: datetime | None) -> float:
     Raises :class:`BadInput` when ``spec`` cannot be parsed, is negative or
     not finite, or is a datetime while ``start`` is None.
     """
+    return float(parse_offset(spec, start))
+
+
+def parse_offset(spec: str, start: datetime | None, start_ns: int | None = None) -> Fraction:
+    """:func:`parse_time`, exactly: a Fraction of seconds (``0.1`` is 1/10, not the nearest double).
+
+    ``start_ns`` is the first sample's exact time (ns since 1970-01-01, as
+    the archive keeps it) when ``start``, a datetime, holds only microseconds.
+    """
     text = str(spec).strip()
     m = _NUM_UNIT.match(text)
     if m is not None:
         unit = m.group(2).lower()
         if unit and unit not in UNITS:
             raise BadInput(f"time '{spec}': unknown unit '{m.group(2)}'; {_FORMS}")
-        value = float(m.group(1)) * UNITS.get(unit, 1.0)
-        return _non_negative(value, spec)
+        if not math.isfinite(float(m.group(1))):
+            raise BadInput(f"time '{spec}' is not a finite number; {_FORMS}")
+        return _non_negative(Fraction(m.group(1)) * UNITS.get(unit, Fraction(1)), spec)
     try:
         dt = datetime.fromisoformat(text)
     except ValueError:
@@ -47,15 +61,17 @@ def parse_time(spec: str, start: datetime | None) -> float:
     if start is None:
         raise BadInput(f"time '{spec}' is a datetime but the recording has no start time; give seconds instead")
     if dt.tzinfo is None:
-        dt = dt.replace(tzinfo=timezone.utc)
-    if start.tzinfo is None:
-        start = start.replace(tzinfo=timezone.utc)
-    return _non_negative((dt - start).total_seconds(), spec)
+        dt = dt.replace(tzinfo=start.tzinfo)
+    elif start.tzinfo is None:
+        raise BadInput(f"time '{spec}' has a zone but the recording's times were logged without one; "
+                       "give it without an offset, as the logger's clock showed it")
+    if start_ns is not None:
+        from .store.timeaxis import NS, datetime_ns
+        return _non_negative(Fraction(datetime_ns(dt) - start_ns, NS), spec)
+    return _non_negative(Fraction((dt - start) // timedelta(microseconds=1), 10**6), spec)
 
 
-def _non_negative(value: float, spec: str) -> float:
-    if not math.isfinite(value):
-        raise BadInput(f"time '{spec}' is not a finite number; {_FORMS}")
+def _non_negative(value: Fraction, spec: str) -> Fraction:
     if value < 0:
         raise BadInput(f"time '{spec}' lies before the start of the recording; give a time at or after it")
-    return float(value)
+    return value

@@ -37,6 +37,10 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
         if not p.is_file() or checksum.file_sha256(p) != info.get("sha256"):
             problems.append(f"member {name}: SHA-256 differs from the manifest (file damaged or replaced)")
     rec = _source(arc, against)
+    sidecar = check_sidecar(arc)
+    problems.extend(sidecar)
+    if rec is not None and not sidecar:
+        problems.extend(compare_times(arc, rec))
     total = sum(c.n_windows for c in arc.channels)
     done = [0]
     lock = threading.Lock()
@@ -124,6 +128,42 @@ def _decode(arc, meta, w0: int, w1: int):
             parts.append(x)
         join = np.ma.concatenate if any(isinstance(p, np.ma.MaskedArray) for p in parts) else np.concatenate
         return join(parts), bad, broken
+
+
+def check_sidecar(arc) -> list[str]:
+    """The time axis and the text columns decode (the problem named, not raised)."""
+    from .store.sidecar import check_extra
+    try:
+        arc.timeline.check()
+        check_extra(arc.manifest, arc.path, arc.timeline.n)
+        arc.notes
+    except ArchiveCorrupt as exc:
+        return [str(exc)]
+    return []
+
+
+def compare_times(arc, rec: Recording) -> list[str]:
+    """The source's time axis (its time column, else start + i/rate) against the archive's, exactly:
+    kind, zone, then every time (ns, or float bits); the first difference is named."""
+    from .store.timeaxis import DATETIME, source_axis
+    src, tl = source_axis(rec, 0, 1), arc.timeline
+    if (src.kind, src.zone) != (tl.kind, tl.zone):
+        return [f"time axis: the source's times are {src.kind} (zone {src.zone or 'none'}) but the archive's "
+                f"{tl.kind} (zone {tl.zone or 'none'})"]
+    n = rec.n_samples
+    if n != tl.n:
+        return [f"time axis: the source has {n} times but the archive {tl.n}"]
+    if rec.time is None and tl.listed is None and len(tl.run_index) == 1 and float(tl.rate) == float(rec.rate) \
+            and np.array_equal(np.asarray(tl.run_start[:1]).view(np.int64), src.values[:1].view(np.int64)):
+        return []       # both are start + i / rate by the one rule, from the same start at the same rate
+    for lo in range(0, n, CHUNK_SAMPLES):
+        a, b = source_axis(rec, lo, lo + CHUNK_SAMPLES).values, tl.values(lo, lo + CHUNK_SAMPLES)
+        diff = np.flatnonzero(a.view(np.int64) != b.view(np.int64))
+        if diff.size:
+            i = int(diff[0])
+            show = (lambda v: str(np.datetime64(int(v), "ns"))) if src.kind == DATETIME else (lambda v: repr(float(v)))
+            return [f"time axis: sample {lo + i} is at {show(a[i])} in the source but {show(b[i])} in the archive"]
+    return []
 
 
 def _list(ws: list[int]) -> str:

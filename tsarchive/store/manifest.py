@@ -12,10 +12,14 @@ from .. import __version__, checksum
 from ..codec import CODER_ID
 from ..recording import Recording
 from . import schema as S
+from .sidecar import axis_start
 
 
 def iso(t: datetime | None) -> str | None:
-    return None if t is None else t.astimezone(timezone.utc).isoformat().replace("+00:00", "Z")
+    """ISO 8601 as logged: a naive time stays naive, an offset is kept, UTC is written ``Z``."""
+    if t is None:
+        return None
+    return t.isoformat().replace("+00:00", "Z") if t.tzinfo is timezone.utc else t.isoformat()
 
 
 def used_pct(worst: float, eps: float) -> float:
@@ -46,7 +50,7 @@ def build_manifest(rec: Recording, spec, grids, scales, lpcs, tables, notes, W: 
         share = archive_bytes * s["bytes_est"] / est_total
         raw = rec.n_samples * np.dtype(ch.dtype).itemsize
         channels.append({
-            **ch.to_dict(), "rate": rec.rate, "start": iso(rec.start), "n_samples": rec.n_samples,
+            **ch.to_dict(), "rate": rec.rate, "start": iso(axis_start(rec)), "n_samples": rec.n_samples,
             "budget": spec.for_channel(ch.name).spec, "eps": g.eps, "grid": g.to_dict(), "scale": int(scales[j]),
             "lpc": [c.to_dict() for c in lpcs[j]],
             "tables": [{"mode": int(m), "table": int(c), "coder": CODER_ID,

@@ -31,7 +31,8 @@ from ..predict import Context, mode_name
 from ..predict.lpc import LpcCoefs
 from ..quantize import Grid, bits_to_values
 from ..workers import workers as worker_count
-from . import schema as S
+from . import schema as S, sidecar
+from .timeaxis import Times, Timeline, load_timeline
 
 
 READ_SAMPLES = 1 << 20       # samples decoded per step of a long read (about one packing block)
@@ -88,6 +89,8 @@ def _channel_meta(d: dict, window: int) -> ChannelMeta:
     try:
         s = d["summary"]
         start = d.get("start")
+        if not (math.isfinite(float(d["rate"])) and float(d["rate"]) > 0):
+            raise ValueError(f"rate {d['rate']!r} is not a positive number")
         return ChannelMeta(
             name=d["name"], unit=d.get("unit", ""), rate=float(d["rate"]),
             start=None if not start else datetime.fromisoformat(start.replace("Z", "+00:00")),
@@ -333,18 +336,38 @@ class Archive:
             return None
         return ae_prediction(self.decoder, codes, level, meta.scale, L)
 
-    def _span(self, meta: ChannelMeta, start: float | None, end: float | None) -> tuple[int, int]:
-        a = 0 if start is None else int(math.floor(float(start) * meta.rate + 1e-9))
-        b = meta.n_samples if end is None else int(math.ceil(float(end) * meta.rate - 1e-9))
-        a, b = max(0, a), min(meta.n_samples, b)
-        if start is not None and end is not None and float(end) <= float(start):
-            raise BadInput(f"end {end} s is not after start {start} s; give a later end")
-        if a >= meta.n_samples and meta.n_samples:
-            raise BadInput(f"start {start} s is past the end of the recording ({meta.duration:g} s)")
-        return a, max(a, b)
+    # -- time axis, notes, text columns (store/timeaxis.py, store/sidecar.py) ---------
+    @cached_property
+    def timeline(self) -> Timeline:
+        """The recording's time axis as logged (gaps, jitter, zone), exact to the ns or bit."""
+        first = self.channels[0] if self.channels else None
+        return load_timeline(self.manifest, self.path, first.n_samples if first else 0,
+                             first.rate if first else 1.0, first.start if first else None)
+
+    def span(self, start=None, end=None) -> tuple[int, int]:
+        """Samples ``[a, b)`` whose times lie in ``start <= t - t[0] < end`` (seconds from the first sample)."""
+        return self.timeline.span(start, end)
+
+    def times(self, start=None, end=None) -> Times:
+        """The exact times of the samples that :meth:`read` gives for the same ``start`` and ``end``."""
+        return self.timeline.times(*self.span(start, end))
+
+    @property
+    def notes(self) -> tuple[str, ...]:
+        """The source's preamble lines, as found."""
+        return sidecar.notes(self.manifest)
+
+    def extra(self, start=None, end=None) -> pa.Table | None:
+        """The source's non-numeric columns over the same rows as :meth:`read`, or None."""
+        a, b = self.span(start, end)
+        return sidecar.read_extra(self.manifest, self.path, self.timeline.n, a, b)
+
+    def _span(self, meta: ChannelMeta, start, end) -> tuple[int, int]:
+        return self.span(start, end)
 
     def read(self, channel: str, start: float | None = None, end: float | None = None) -> np.ndarray:
-        """Samples of ``channel`` between ``start`` and ``end`` seconds (from the recording start)."""
+        """Samples of ``channel`` whose times lie in ``start <= t - t[0] < end`` (seconds from the first sample;
+        on the logged time axis, so gaps and jitter count)."""
         meta = self.channel(channel)
         a, b = self._span(meta, start, end)
         if b <= a:
@@ -382,7 +405,7 @@ class Archive:
 
     def prepare_threads(self) -> None:
         """Fill the lazy caches (row-group map, schema, tables, decoder) before threads share them."""
-        self._row_groups, self._schema, self._tables, self.decoder
+        self._row_groups, self._schema, self._tables, self.decoder, self.timeline
 
     def preview(self, channel: str, start: float | None = None, end: float | None = None) -> np.ndarray:
         """Code-only reconstruction (no residuals), float64: what the codes alone say."""
