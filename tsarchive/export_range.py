@@ -25,7 +25,8 @@ from pathlib import Path
 from .checksum import file_sha256
 from .errors import BadInput
 from .export import Origin, sidecar_path, write_table
-from .export_text import CellFormat, lossy_decimals
+from .export_text import CellFormat
+from .ingest.grid import MAX_CHECKED
 
 #: Hex digits of the source's SHA-256 that ``replace_original`` must give.
 ORIGINAL_PREFIX = 12
@@ -60,18 +61,19 @@ def cell_format(meta) -> CellFormat:
     """The CSV cell format of one archived channel.
 
     A decimal grid (lossless, logged with ``d`` decimals) prints ``d``
-    decimals; a lossy step grid prints the decimals of
-    :func:`~tsarchive.export_text.lossy_decimals` (grid values told apart,
-    the written value still within ε of the original, using the channel's
-    recorded worst error); anything else prints exact shortest text.
+    decimals; a lossy step grid prints the fewest decimals that keep each
+    value on its grid point and within ε of the original (using the
+    channel's recorded worst error and logged decimals); anything else
+    prints exact shortest text.
     """
     g = meta.grid
     if g.kind == "decimal":
         return CellFormat(decimals=g.decimals)
     if g.eps > 0:
-        d = lossy_decimals(g.step, g.eps, meta.worst_error)
-        if d is not None:
-            return CellFormat(decimals=d, rounded=True)
+        # the logged decimals were detected on every value only up to MAX_CHECKED samples
+        logged = meta.decimals if meta.n_samples <= MAX_CHECKED else None
+        return CellFormat(eps=g.eps, worst=meta.worst_error, step=g.step, offset=g.offset,
+                          source_decimals=logged)
     return CellFormat()
 
 

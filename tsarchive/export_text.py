@@ -14,11 +14,15 @@ turns a column into text.
   ``24.950000000000003``); any other value (a sample stored verbatim) falls
   back to the shortest exact text above.  Either way the text parses back to
   the same bits.
-* ``CellFormat(decimals=d, rounded=True)`` (a lossy channel): every finite
-  value is written with ``d`` decimals, or its shortest exact text when that
-  is shorter.  :func:`lossy_decimals` chooses ``d`` so that the text still
-  tells the channel's grid values apart and stays within the channel's error
-  budget of the original.
+* A lossy channel (``CellFormat(eps=..., worst=..., step=..., offset=...)``):
+  each finite value is written with the fewest decimals whose text, parsed
+  back as a double, (a) stays on the same point of the channel's 2ε grid and
+  (b) is within ε, computed in float64 as ``verify`` computes it, of every
+  original value the archive could have come from: those within the
+  channel's recorded worst error of the decoded value, on the original's
+  logged decimals when known.  Where no text shorter than the exact one
+  qualifies, the exact text is written.  So re-reading an export and
+  comparing it with the original never finds a value outside the budget.
 """
 
 from __future__ import annotations
@@ -31,40 +35,33 @@ import numpy as np
 #: Largest integer magnitude of ``value * 10**decimals`` treated as a decimal (as the quantiser does).
 _MAX_SCALED = float(2**50)
 
-__all__ = ["CellFormat", "cells", "lossy_decimals"]
+__all__ = ["CellFormat", "cells"]
 
 
 @dataclass(frozen=True)
 class CellFormat:
-    """How one channel's values become CSV text (see the module docstring)."""
+    """How one channel's values become CSV text (see the module docstring).
+
+    ``decimals``: a lossless channel logged with that many decimals.
+    ``eps`` > 0 with ``step`` > 0: a lossy channel on the grid
+    ``offset + q * step`` whose decoded values are at most ``worst`` from the
+    original, logged with ``source_decimals`` decimals when known.
+    """
 
     decimals: int | None = None
-    rounded: bool = False
+    eps: float = 0.0
+    worst: float = 0.0
+    step: float = 0.0
+    offset: float = 0.0
+    source_decimals: int | None = None
 
-    def __post_init__(self) -> None:
-        if self.decimals is not None and not 0 <= self.decimals <= 40:
-            raise ValueError(f"decimals {self.decimals} out of range 0..40")
-        if self.rounded and self.decimals is None:
-            raise ValueError("a rounded format needs decimals")
+    @property
+    def lossy(self) -> bool:
+        return self.eps > 0 and self.step > 0 and math.isfinite(self.step) and math.isfinite(self.offset)
 
 
-def lossy_decimals(step: float, eps: float, worst: float) -> int | None:
-    """Decimals for a lossy channel on a grid of ``step`` with budget ``eps`` and worst error ``worst``.
-
-    The text must tell grid values apart (a rounding of at most ``step / 4``)
-    and keep every written value within ``eps`` of the original: rounding
-    adds at most half a unit of the last decimal, so that unit must not
-    exceed the slack ``eps - worst`` the archive left.  None (write exact
-    text instead) when there is no slack.
-    """
-    slack = eps - worst
-    if not (math.isfinite(step) and step > 0 and math.isfinite(slack) and slack > 0):
-        return None
-    unit = min(step / 2.0, slack)
-    d = max(0, math.ceil(-math.log10(unit)))
-    while 10.0 ** (-d) > unit:  # guard log10's last-bit rounding
-        d += 1
-    return d if d <= 40 else None
+#: Most decimals tried for a lossy value before its exact text is kept.
+_MAX_DECIMALS = 24
 
 
 def cells(values: np.ndarray, fmt: CellFormat = CellFormat()) -> list[str]:
@@ -74,26 +71,75 @@ def cells(values: np.ndarray, fmt: CellFormat = CellFormat()) -> list[str]:
         return a.astype(np.int64 if a.dtype.kind != "u" else np.uint64).astype(str).tolist()
     if a.dtype.itemsize < 4:
         a = a.astype(np.float32)  # float16 prints through float32 (exact widening, IEEE-754)
-    text = a.astype(str)  # shortest exact text in the value's own dtype (numpy Dragon4, unique mode)
-    missing = np.isnan(a)
+    text = a.astype(str).astype(object)  # shortest exact text in the value's own dtype (numpy Dragon4, unique)
     if fmt.decimals is not None:
-        d = fmt.decimals
-        x = a.astype(np.float64)
+        _decimal_cells(a, fmt.decimals, text)
+    elif fmt.lossy:
+        _lossy_cells(a, fmt, text)
+    text[np.isnan(a)] = ""
+    return text.tolist()
+
+
+def _decimal_cells(a: np.ndarray, d: int, text: np.ndarray) -> None:
+    """In place: ``d`` decimals for every value that is exactly a parsed ``d``-decimal number."""
+    with np.errstate(invalid="ignore", over="ignore"):
+        k = np.rint(a.astype(np.float64) * float(10**d))
+        use = np.isfinite(k) & (np.abs(k) < _MAX_SCALED)
+        on = np.where(use, k, 0.0) / float(10**d)  # what a decimal parser makes of k * 10**-d
+        use &= on.astype(a.dtype) == a
+    if use.any():
+        text[use] = np.char.mod(f"%.{d}f", on[use])
+
+
+def _lossy_cells(a: np.ndarray, fmt: CellFormat, text: np.ndarray) -> None:
+    """In place: the fewest decimals that keep each value on its grid point and within ε (module doc)."""
+    x = a.astype(np.float64)
+    todo = np.isfinite(x)
+    if not todo.any():
+        return
+    with np.errstate(invalid="ignore", over="ignore"):
+        q = np.rint((x - fmt.offset) / fmt.step)
+        lo, hi = _possible_originals(x, fmt, a.dtype)
+    exact_len = np.char.str_len(text.astype(str))
+    first = max(0, math.floor(-math.log10(fmt.step)))
+    for d in range(first, _MAX_DECIMALS + 1):
+        idx = np.flatnonzero(todo)
+        if not len(idx):
+            break
+        cand = np.char.mod(f"%.{d}f", x[idx])
+        shorter = np.char.str_len(cand) < exact_len[idx]
+        if not shorter.any():
+            break  # more decimals only get longer
+        y = cand.astype(np.float64)  # the double a reader parses (numpy's correctly rounded strtod)
         with np.errstate(invalid="ignore", over="ignore"):
-            k = np.rint(x * float(10**d))
-            use = np.isfinite(k) & (np.abs(k) < _MAX_SCALED)
-            if not fmt.rounded:  # only values that are exactly a d-decimal number as parsed
-                on = np.where(use, k, 0.0) / float(10**d)
-                use &= on.astype(a.dtype) == a
-        if use.any():
-            src = np.where(use, k / float(10**d), 0.0) if not fmt.rounded else np.where(use, x, 0.0)
-            fixed = np.char.mod(f"%.{d}f", src[use])
-            if fmt.rounded:  # never longer than the exact text
-                exact = text[use]
-                fixed = np.where(np.char.str_len(exact) < np.char.str_len(fixed), exact, fixed)
-            text = text.astype(object)
-            text[use] = fixed
-    if missing.any():
-        text = text.astype(object)
-        text[missing] = ""
-    return [str(s) for s in text.tolist()] if text.dtype == object else text.tolist()
+            ok = shorter & (np.rint((y - fmt.offset) / fmt.step) == q[idx])
+            ok &= (np.abs(y - lo[idx]) <= fmt.eps) & (np.abs(hi[idx] - y) <= fmt.eps)
+        text[idx[ok]] = cand[ok]
+        todo[idx[ok]] = False
+
+
+def _possible_originals(x: np.ndarray, fmt: CellFormat, dtype: np.dtype) -> tuple[np.ndarray, np.ndarray]:
+    """Lowest and highest original value a decoded ``x`` can stand for (``|x - orig| <= worst`` in float64).
+
+    With the original's logged decimals, only values a decimal parser makes
+    of them (in the channel's ``dtype``) count.
+    """
+    w = float(fmt.worst)
+    lo = np.nextafter(x - w, -np.inf)  # one step outward: any double within w of x lies inside
+    hi = np.nextafter(x + w, np.inf)
+    d = fmt.source_decimals
+    if d is None or not 0 <= d <= 15:
+        return lo, hi
+    scale = float(10**d)
+    with np.errstate(over="ignore"):
+        base_lo, base_hi = np.floor(lo * scale), np.ceil(hi * scale)
+    if not (np.all(np.abs(base_lo[np.isfinite(base_lo)]) < _MAX_SCALED)
+            and np.all(np.abs(base_hi[np.isfinite(base_hi)]) < _MAX_SCALED)):
+        return lo, hi
+    best_lo, best_hi = x.copy(), x.copy()  # no logged value within w: the sample was kept verbatim
+    for j in range(4):  # logged values (j + floor) / 10**d as a decimal parser makes them, nearest the ends
+        c = ((base_lo + j) / scale).astype(dtype).astype(np.float64)
+        best_lo = np.where((np.abs(x - c) <= w) & (c < best_lo), c, best_lo)
+        c = ((base_hi - j) / scale).astype(dtype).astype(np.float64)
+        best_hi = np.where((np.abs(c - x) <= w) & (c > best_hi), c, best_hi)
+    return best_lo, best_hi
