@@ -340,6 +340,32 @@ async def test_export_typed_range_to_parquet_and_view_to_npy(lab, tmp_path):
         assert saved.shape[0] == 3 * WINDOW and np.array_equal(saved.reshape(-1), arc.read("accel", 0, 1.92))
 
 
+async def test_export_asks_before_replacing_and_never_replaces_the_recording(lab, tmp_path):
+    here = copy_lab(lab, tmp_path)
+    source = here.csv.read_bytes()
+    (here.folder / "old.csv").write_text("keep me\n")
+    app = NotedApp(here.folder)
+    async with app.run_test(size=(100, 40)) as pilot:
+        await open_ledger(app, pilot)
+        await pilot.press("e")
+        await settle(app, pilot)
+        export = app.screen
+        assert export.query_one("#export-name").value == "bench_log.csv"  # the recording's own name
+        await pilot.press("ctrl+s")
+        await settle(app, pilot)
+        assert "press Export again" in str(export.query_one("#export-status").render())
+        await pilot.press("ctrl+s")  # the explicit second press still cannot replace the recording
+        await settle(app, pilot)
+        assert here.csv.read_bytes() == source and any("packed from" in e for e in app.errors())
+        export.query_one("#export-name").value = "old.csv"
+        await pilot.press("ctrl+s")
+        await settle(app, pilot)
+        assert (here.folder / "old.csv").read_text() == "keep me\n" and app.screen is export
+        await pilot.press("ctrl+s")
+        await settle(app, pilot)
+        assert (here.folder / "old.csv").read_text().startswith("# reconstruction") and app.screen is not export
+
+
 # -- 7. Comfort ---------------------------------------------------------------------------------------
 async def test_keys_screen_lists_every_screen(lab):
     app = NotedApp(lab.folder)

@@ -188,3 +188,67 @@ def test_csv_round_trip_any_double(tmp_path_factory, values):
     # a single row carries no step, so the rate is passed (an explicit rate overrides the time column)
     rec = read_recording(write_table(d / "x.csv", {"x": x}, rate=1.0, start=None, units={}), rate=1.0)
     assert _same(rec.column(0), x)
+
+
+# -- cell text (tsarchive.export_text) ------------------------------------------------------------------
+from tsarchive.export_text import CellFormat, cells  # noqa: E402
+
+
+def _digits(text: str) -> str:
+    """Significant digits of a decimal text (sign, point, exponent and leading/trailing zeros dropped)."""
+    mant = text.lower().lstrip("-").split("e")[0].replace(".", "")
+    return mant.strip("0") or "0"
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.floats(allow_nan=False, allow_infinity=True, width=64), min_size=1, max_size=30))
+def test_float64_cells_are_python_repr(values):
+    x = np.array(values, dtype=np.float64)
+    # Reference: Python's repr(float), the shortest text that round-trips (Python docs, "Floating Point
+    # Arithmetic"); the re-parse must give the same bits.
+    assert cells(x) == [repr(float(v)) for v in x]
+    assert np.array_equal(np.array([float(c) for c in cells(x)]).view(np.uint64), x.view(np.uint64))
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.floats(allow_nan=False, allow_infinity=False, width=32), min_size=1, max_size=30))
+def test_float32_cells_are_the_shortest_float32_text(values):
+    x = np.array(values, dtype=np.float32)
+    out = cells(x)
+    # Reference: numpy.format_float_scientific(unique=True), Dragon4's shortest digits that identify the float32
+    ref = [np.format_float_scientific(v, unique=True, trim="-") for v in x]
+    assert [_digits(c) for c in out] == [_digits(r) for r in ref]
+    # the text parsed as a double and rounded to float32 gives the same bits back (IEEE-754 round to nearest)
+    assert np.array_equal(np.array([float(c) for c in out]).astype(np.float32).view(np.uint32), x.view(np.uint32))
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.integers(-10**12, 10**12), min_size=1, max_size=30), st.integers(0, 6))
+def test_decimal_channel_cells_have_the_logged_decimals(ks, d):
+    x = np.array(ks, dtype=np.float64) / 10.0**d  # what a decimal parser makes of k * 10**-d (correctly rounded)
+    out = cells(x, CellFormat(decimals=d))
+
+    def text(k: int) -> str:  # the decimal written from the integer itself, no float involved
+        s = str(abs(k)).rjust(d + 1, "0")
+        return ("-" if k < 0 else "") + (s[:-d] + "." + s[-d:] if d else s)
+    assert out == [text(k) for k in ks]
+    assert np.array_equal(np.array([float(c) for c in out]).view(np.uint64), x.view(np.uint64))
+
+
+def test_decimal_channel_keeps_exact_text_off_its_decimals():
+    # a verbatim sample that is not a 2-decimal number keeps its exact text; missing is empty; inf spelled out
+    x = np.array([24.95, 1e-300, 0.125, np.nan, -np.inf, -0.0])
+    assert cells(x, CellFormat(decimals=2)) == ["24.95", "1e-300", "0.125", "", "-inf", "-0.00"]
+
+
+def test_lossy_cells_without_logged_decimals_stay_within_eps_in_float64():
+    rng = np.random.default_rng(11)
+    orig = rng.normal(0, 3, 4000)
+    eps, step, off = 0.01, 0.02, float(orig[0])
+    dec = np.rint((orig - off) / step) * step + off  # quantize.Grid's x = offset + q * step (a 2ε uniform grid)
+    worst = float(np.max(np.abs(dec - orig)))
+    out = cells(dec, CellFormat(eps=eps, worst=worst, step=step, offset=off))
+    back = np.array([float(c) for c in out])
+    assert np.all(np.abs(back - orig) <= eps)  # numpy float64, the way a user would check
+    assert np.array_equal(np.rint((back - off) / step), np.rint((dec - off) / step))
+    assert all(len(c) <= len(repr(float(v))) for c, v in zip(out, dec))
