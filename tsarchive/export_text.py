@@ -73,27 +73,41 @@ def cells(values: np.ndarray, fmt: CellFormat = CellFormat()) -> list[str]:
         return a.astype(np.int64 if a.dtype.kind != "u" else np.uint64).astype(str).tolist()
     if a.dtype.itemsize < 4:
         a = a.astype(np.float32)  # float16 prints through float32 (exact widening, IEEE-754)
-    text = a.astype(str).astype(object)  # shortest exact text in the value's own dtype (numpy Dragon4, unique)
     if fmt.decimals is not None:
-        _decimal_cells(a, fmt.decimals, text)
-    elif fmt.lossy:
-        _lossy_cells(a, fmt, text)
-    text[np.isnan(a)] = ""
-    return text.tolist()
+        text = _decimal_cells(a, fmt.decimals)
+    else:
+        text = _exact(a)
+        if fmt.lossy:
+            _lossy_cells(a, fmt, text)
+    for i in np.flatnonzero(np.isnan(a)).tolist():
+        text[i] = ""
+    return text
 
 
-def _decimal_cells(a: np.ndarray, d: int, text: np.ndarray) -> None:
-    """In place: ``d`` decimals for every value that is exactly a parsed ``d``-decimal number."""
+def _exact(a: np.ndarray) -> list[str]:
+    """The shortest text that parses back to each value in its own dtype."""
+    if a.dtype == np.float64:
+        return list(map(float.__repr__, a.tolist()))  # Python's shortest round-trip repr
+    return a.astype(str).tolist()  # numpy's Dragon4 in unique mode: the shortest float32 text
+
+
+def _decimal_cells(a: np.ndarray, d: int) -> list[str]:
+    """``d`` decimals for every value that is exactly a parsed ``d``-decimal number, exact text otherwise."""
     with np.errstate(invalid="ignore", over="ignore"):
         k = np.rint(a.astype(np.float64) * float(10**d))
         use = np.isfinite(k) & (np.abs(k) < _MAX_SCALED)
         on = np.where(use, k, 0.0) / float(10**d)  # what a decimal parser makes of k * 10**-d
         use &= on.astype(a.dtype) == a
-    if use.any():
-        text[use] = np.char.mod(f"%.{d}f", on[use])
+    fixed = f"%.{d}f".__mod__
+    if use.all():
+        return list(map(fixed, on.tolist()))
+    text = _exact(a)
+    for i in np.flatnonzero(use).tolist():
+        text[i] = fixed(float(on[i]))
+    return text
 
 
-def _lossy_cells(a: np.ndarray, fmt: CellFormat, text: np.ndarray) -> None:
+def _lossy_cells(a: np.ndarray, fmt: CellFormat, text: list[str]) -> None:
     """In place: the fewest decimals that keep each value on its grid point and within ε (module doc)."""
     x = a.astype(np.float64)
     todo = np.isfinite(x)
@@ -102,7 +116,7 @@ def _lossy_cells(a: np.ndarray, fmt: CellFormat, text: np.ndarray) -> None:
     with np.errstate(invalid="ignore", over="ignore"):
         q = np.rint((x - fmt.offset) / fmt.step)
         lo, hi = _possible_originals(x, fmt, a.dtype)
-    exact_len = np.char.str_len(text.astype(str))
+    exact_len = np.fromiter(map(len, text), dtype=np.int64, count=len(text))
     first = max(0, math.floor(-math.log10(fmt.step)))
     top = float(np.max(np.abs(x[todo]))) + fmt.eps
     for d in range(first, _MAX_DECIMALS + 1):
@@ -110,15 +124,16 @@ def _lossy_cells(a: np.ndarray, fmt: CellFormat, text: np.ndarray) -> None:
         idx = np.flatnonzero(todo)
         if not len(idx):
             break
-        cand = np.char.mod(f"%.{d}f", x[idx])
-        shorter = np.char.str_len(cand) < exact_len[idx]
+        cand = list(map(f"%.{d}f".__mod__, x[idx].tolist()))
+        shorter = np.fromiter(map(len, cand), dtype=np.int64, count=len(cand)) < exact_len[idx]
         if not shorter.any():
             break  # more decimals only get longer
-        y = cand.astype(np.float64)  # the double a reader parses (numpy's correctly rounded strtod)
+        y = np.array(cand, dtype=np.float64)  # the double a reader parses (correctly rounded strtod)
         with np.errstate(invalid="ignore", over="ignore"):
             ok = shorter & (np.rint((y - fmt.offset) / fmt.step) == q[idx])
             ok &= (np.abs(y - lo[idx]) <= fmt.eps + slack) & (np.abs(hi[idx] - y) <= fmt.eps + slack)
-        text[idx[ok]] = cand[ok]
+        for j in np.flatnonzero(ok).tolist():
+            text[int(idx[j])] = cand[j]
         todo[idx[ok]] = False
 
 
