@@ -201,6 +201,7 @@ async def test_verify_failure_names_the_window(lab, tmp_path):
         assert panel.startswith("Verification FAILED")
         assert f"#{w} (at {w * WINDOW / RATE:.2f} s)" in panel  # start of window 7 = 448 / 100 Hz
         assert "temp: 1 samples" in panel
+        assert "bench_log.csv is not the file that was packed (SHA-256 differs" in panel  # named, then compared
         await pilot.press("escape")
         await settle(app, pilot)
         assert cells(app.screen.query_one("#shelf-table"))[0][-1] == "failed"
