@@ -452,9 +452,9 @@ async def test_new_user_journey_by_keys_only(tmp_path):
         await pilot.press("e", *"5", "tab", *"15", "ctrl+s")  # 10 s, all channels, CSV
         await settle(app, pilot)
         out = tmp_path / "soak_log_5-15s.csv"
-        rows = out.read_text().splitlines()
+        rows = [r for r in out.read_text().splitlines() if not r.startswith("#")]  # "#": the reconstruction note
         assert len(rows) == 1 + int(10 * RATE)  # header + 10 s x 100 Hz
-        back = np.loadtxt(out, delimiter=",", skiprows=1)
+        back = np.loadtxt(rows[1:], delimiter=",")
         for j, name in enumerate(("temp", "accel")):
             original = cols[name][500:1500]
             assert np.max(np.abs(back[:, j + 1] - original)) <= arc.channel(name).eps + 1e-9  # within budget
