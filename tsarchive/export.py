@@ -67,6 +67,9 @@ CSV_CHUNK_ROWS = 65_536
 #: Parquet key-value metadata key (and JSON content of an .npy sidecar) marking a reconstruction.
 ORIGIN_KEY = b"tsarchive.origin"
 
+#: How the first line of a CSV export begins (the ingest reader skips the "#" lines of such a file).
+CSV_MARK = "# reconstruction written by tsarchive"
+
 #: Suffix added to an .npy's name for its sidecar.
 SIDECAR_SUFFIX = ".origin.json"
 
@@ -102,7 +105,7 @@ class Origin:
         """The ``#`` lines heading a CSV export."""
         within = "; ".join(f"{n} exact" if e == 0 else f"{n} ±{e:g}{' ' + u if u else ''}"
                            for n, e, u in self.bounds)
-        return [f"# reconstruction written by tsarchive {self.tool_version} from archive {self.archive}",
+        return [f"{CSV_MARK} {self.tool_version} from archive {self.archive}",
                 f"# original recording {self.source or '(unnamed)'}, SHA-256 {self.source_sha256 or '(unknown)'}",
                 "# not the original: every value is within its channel's bound of it: " + within]
 

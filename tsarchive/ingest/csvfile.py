@@ -40,13 +40,21 @@ def read_csv(path: Path, rate: float | None) -> Recording:
 
 
 def _comment_lines(path: Path, limit: int = 64) -> int:
-    """Leading lines starting with ``#`` (the mark tsarchive puts on its CSV exports), up to ``limit``."""
+    """The leading ``#`` lines of a tsarchive export (its reconstruction note), else 0.
+
+    Only a file whose first line is tsarchive's mark: a logger's own header
+    may start with ``#`` too.
+    """
+    from ..export import CSV_MARK
+
     n = 0
     try:
         with open(path, "rb") as f:
-            for line in f:
-                if n >= limit or not line.startswith(b"#"):
-                    break
+            first = f.readline(4096)
+            if not first.startswith(CSV_MARK.encode("ascii")):
+                return 0
+            n = 1
+            while n < limit and f.readline(1 << 16).startswith(b"#"):
                 n += 1
     except OSError:
         return 0
