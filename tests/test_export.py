@@ -252,3 +252,29 @@ def test_lossy_cells_without_logged_decimals_stay_within_eps_in_float64():
     assert np.all(np.abs(back - orig) <= eps)  # numpy float64, the way a user would check
     assert np.array_equal(np.rint((back - off) / step), np.rint((dec - off) / step))
     assert all(len(c) <= len(repr(float(v))) for c, v in zip(out, dec))
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.integers(-10**7, 10**7), min_size=2, max_size=200), st.integers(0, 4),
+       st.sampled_from(["0.05", "0.5", "0.013", "1", "0.25"]))
+def test_lossy_cells_of_a_decimal_original_stay_within_eps_as_decimals(ks, d, eps_text):
+    from decimal import Decimal
+
+    from tsarchive.quantize import make_grid, quantize
+
+    orig_text = [f"{k / 10**d:.{d}f}" for k in ks]  # what a logger with d decimals writes
+    orig = np.array([float(t) for t in orig_text])
+    eps = float(eps_text)
+    grid = make_grid(eps, d, np.dtype(np.float64), anchor=float(orig[0]))
+    if grid.kind != "step":
+        return  # a budget below half the resolution is served exactly: not the lossy case
+    q, pos, bits = quantize(orig, grid)
+    dec = grid.dequantize(q, pos, bits)
+    worst = float(np.max(np.abs(dec - orig)))
+    out = cells(dec, CellFormat(eps=eps, worst=worst, step=grid.step, offset=grid.offset, source_decimals=d))
+    # Reference: Python's decimal module, exact arithmetic on the texts as both files show them
+    assert all(abs(Decimal(c) - Decimal(t)) <= Decimal(eps_text) for c, t in zip(out, orig_text))
+    back = np.array([float(c) for c in out])
+    step_of = lambda v: np.rint((v - grid.offset) / grid.step)  # noqa: E731  quantize.Grid: x = offset + q*step
+    assert np.array_equal(step_of(back), step_of(dec))
+    assert all(len(c) <= len(repr(float(v))) for c, v in zip(out, dec))
