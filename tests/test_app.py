@@ -201,6 +201,7 @@ async def test_verify_failure_names_the_window(lab, tmp_path):
         assert panel.startswith("Verification FAILED")
         assert f"#{w} (at {w * WINDOW / RATE:.2f} s)" in panel  # start of window 7 = 448 / 100 Hz
         assert "temp: 1 samples" in panel
+        assert "bench_log.csv is not the file that was packed (SHA-256 differs" in panel  # named, then compared
         await pilot.press("escape")
         await settle(app, pilot)
         assert cells(app.screen.query_one("#shelf-table"))[0][-1] == "failed"
@@ -340,6 +341,32 @@ async def test_export_typed_range_to_parquet_and_view_to_npy(lab, tmp_path):
         assert saved.shape[0] == 3 * WINDOW and np.array_equal(saved.reshape(-1), arc.read("accel", 0, 1.92))
 
 
+async def test_export_asks_before_replacing_and_never_replaces_the_recording(lab, tmp_path):
+    here = copy_lab(lab, tmp_path)
+    source = here.csv.read_bytes()
+    (here.folder / "old.csv").write_text("keep me\n")
+    app = NotedApp(here.folder)
+    async with app.run_test(size=(100, 40)) as pilot:
+        await open_ledger(app, pilot)
+        await pilot.press("e")
+        await settle(app, pilot)
+        export = app.screen
+        assert export.query_one("#export-name").value == "bench_log.csv"  # the recording's own name
+        await pilot.press("ctrl+s")
+        await settle(app, pilot)
+        assert "press Export again" in str(export.query_one("#export-status").render())
+        await pilot.press("ctrl+s")  # the explicit second press still cannot replace the recording
+        await settle(app, pilot)
+        assert here.csv.read_bytes() == source and any("packed from" in e for e in app.errors())
+        export.query_one("#export-name").value = "old.csv"
+        await pilot.press("ctrl+s")
+        await settle(app, pilot)
+        assert (here.folder / "old.csv").read_text() == "keep me\n" and app.screen is export
+        await pilot.press("ctrl+s")
+        await settle(app, pilot)
+        assert (here.folder / "old.csv").read_text().startswith("# reconstruction") and app.screen is not export
+
+
 # -- 7. Comfort ---------------------------------------------------------------------------------------
 async def test_keys_screen_lists_every_screen(lab):
     app = NotedApp(lab.folder)
@@ -425,9 +452,9 @@ async def test_new_user_journey_by_keys_only(tmp_path):
         await pilot.press("e", *"5", "tab", *"15", "ctrl+s")  # 10 s, all channels, CSV
         await settle(app, pilot)
         out = tmp_path / "soak_log_5-15s.csv"
-        rows = out.read_text().splitlines()
+        rows = [r for r in out.read_text().splitlines() if not r.startswith("#")]  # "#": the reconstruction note
         assert len(rows) == 1 + int(10 * RATE)  # header + 10 s x 100 Hz
-        back = np.loadtxt(out, delimiter=",", skiprows=1)
+        back = np.loadtxt(rows[1:], delimiter=",")
         for j, name in enumerate(("temp", "accel")):
             original = cols[name][500:1500]
             assert np.max(np.abs(back[:, j + 1] - original)) <= arc.channel(name).eps + 1e-9  # within budget

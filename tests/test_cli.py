@@ -70,7 +70,7 @@ def test_verify_exit_1_names_channel_and_window(tmp_path, src, capsys):
     x = np.load(src)
     x[700, 1] += 1.0  # the "source" now differs beyond the budget in window 10 (700 // 64)
     np.save(tmp_path / "edited.npy", x)
-    code, out, _ = _run(capsys, "verify", arc, "--against", tmp_path / "edited.npy")
+    code, out, _ = _run(capsys, "verify", arc, "--against", tmp_path / "edited.npy", "--even-if-changed")
     assert code == 1 and "ch1" in out and "10" in out and "FAILED" in out
 
 

@@ -70,8 +70,9 @@ def test_csv_layout(tmp_path):
     p = write_table(tmp_path / "a.csv", cols, rate=2.0, start=None, units={"v": "V"})
     lines = p.read_text().splitlines()
     assert lines[0] == "time [s],v [V],n"
-    # Reference: Python's repr(float), the shortest round-tripping text (Python docs).
-    assert lines[1:] == ["0.0,0.1,1", "0.5,1e-07,2", "1.0,nan,3"]
+    # Reference: Python's repr(float), the shortest round-tripping text (Python docs); a missing value
+    # is an empty cell (RFC 4180 allows empty fields; common practice (no source) for "no value").
+    assert lines[1:] == ["0.0,0.1,1", "0.5,1e-07,2", "1.0,,3"]
     p = write_table(tmp_path / "b.csv", cols, rate=2.0, start=START, units={})
     lines = p.read_text().splitlines()
     assert lines[0] == "time,v,n"
@@ -84,7 +85,9 @@ def test_float32_values_survive_csv(tmp_path):
     x = np.random.default_rng(8).standard_normal(100).astype(np.float32)
     rec = read_recording(write_table(tmp_path / "c.csv", {"x": x}, rate=10.0, start=None, units={}))
     assert np.array_equal(rec.column(0).astype(np.float32), x)
-    assert np.array_equal(rec.column(0), x.astype(np.float64))  # float32 -> float64 is exact (IEEE-754)
+    # Each value is written as the shortest float32 text (numpy's unique Dragon4 str of a float32 scalar)
+    cells = [ln.split(",")[1] for ln in (tmp_path / "c.csv").read_text().splitlines()[1:]]
+    assert cells == [str(v) for v in x]
 
 
 def test_parquet_layout(tmp_path):
@@ -138,19 +141,20 @@ def test_csv_failure_leaves_no_partial_file(tmp_path, monkeypatch):
     target = tmp_path / "out.csv"
     target.write_text("old contents\n")
     monkeypatch.setattr(export, "CSV_CHUNK_ROWS", 10)
-    real = export._csv_text
+    real = export.cells
     calls = {"n": 0}
 
-    def failing(values):
+    def failing(values, fmt):
         calls["n"] += 1
-        if calls["n"] > 6:  # fail in the third chunk, after two chunks were written
+        if calls["n"] > 4:  # fail in the third chunk, after two chunks were written
             raise OSError("disk full (simulated)")
-        return real(values)
+        return real(values, fmt)
 
-    monkeypatch.setattr(export, "_csv_text", failing)
+    monkeypatch.setattr(export, "cells", failing)
     with pytest.raises(OSError, match="simulated"):
-        write_table(target, {"x": np.arange(100.0), "y": np.arange(100.0)}, rate=1.0, start=None, units={})
-    assert calls["n"] > 6
+        write_table(target, {"x": np.arange(100.0), "y": np.arange(100.0)}, rate=1.0, start=None, units={},
+                    replace=True)
+    assert calls["n"] > 4
     assert target.read_text() == "old contents\n"
     assert sorted(os.listdir(tmp_path)) == ["out.csv"]
 
@@ -184,3 +188,93 @@ def test_csv_round_trip_any_double(tmp_path_factory, values):
     # a single row carries no step, so the rate is passed (an explicit rate overrides the time column)
     rec = read_recording(write_table(d / "x.csv", {"x": x}, rate=1.0, start=None, units={}), rate=1.0)
     assert _same(rec.column(0), x)
+
+
+# -- cell text (tsarchive.export_text) ------------------------------------------------------------------
+from tsarchive.export_text import CellFormat, cells  # noqa: E402
+
+
+def _digits(text: str) -> str:
+    """Significant digits of a decimal text (sign, point, exponent and leading/trailing zeros dropped)."""
+    mant = text.lower().lstrip("-").split("e")[0].replace(".", "")
+    return mant.strip("0") or "0"
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.floats(allow_nan=False, allow_infinity=True, width=64), min_size=1, max_size=30))
+def test_float64_cells_are_python_repr(values):
+    x = np.array(values, dtype=np.float64)
+    # Reference: Python's repr(float), the shortest text that round-trips (Python docs, "Floating Point
+    # Arithmetic"); the re-parse must give the same bits.
+    assert cells(x) == [repr(float(v)) for v in x]
+    assert np.array_equal(np.array([float(c) for c in cells(x)]).view(np.uint64), x.view(np.uint64))
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.floats(allow_nan=False, allow_infinity=False, width=32), min_size=1, max_size=30))
+def test_float32_cells_are_the_shortest_float32_text(values):
+    x = np.array(values, dtype=np.float32)
+    out = cells(x)
+    # Reference: numpy.format_float_scientific(unique=True), Dragon4's shortest digits that identify the float32
+    ref = [np.format_float_scientific(v, unique=True, trim="-") for v in x]
+    assert [_digits(c) for c in out] == [_digits(r) for r in ref]
+    # the text parsed as a double and rounded to float32 gives the same bits back (IEEE-754 round to nearest)
+    assert np.array_equal(np.array([float(c) for c in out]).astype(np.float32).view(np.uint32), x.view(np.uint32))
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.integers(-10**12, 10**12), min_size=1, max_size=30), st.integers(0, 6))
+def test_decimal_channel_cells_have_the_logged_decimals(ks, d):
+    x = np.array(ks, dtype=np.float64) / 10.0**d  # what a decimal parser makes of k * 10**-d (correctly rounded)
+    out = cells(x, CellFormat(decimals=d))
+
+    def text(k: int) -> str:  # the decimal written from the integer itself, no float involved
+        s = str(abs(k)).rjust(d + 1, "0")
+        return ("-" if k < 0 else "") + (s[:-d] + "." + s[-d:] if d else s)
+    assert out == [text(k) for k in ks]
+    assert np.array_equal(np.array([float(c) for c in out]).view(np.uint64), x.view(np.uint64))
+
+
+def test_decimal_channel_keeps_exact_text_off_its_decimals():
+    # a verbatim sample that is not a 2-decimal number keeps its exact text; missing is empty; inf spelled out
+    x = np.array([24.95, 1e-300, 0.125, np.nan, -np.inf, -0.0])
+    assert cells(x, CellFormat(decimals=2)) == ["24.95", "1e-300", "0.125", "", "-inf", "-0.00"]
+
+
+def test_lossy_cells_without_logged_decimals_stay_within_eps_in_float64():
+    rng = np.random.default_rng(11)
+    orig = rng.normal(0, 3, 4000)
+    eps, step, off = 0.01, 0.02, float(orig[0])
+    dec = np.rint((orig - off) / step) * step + off  # quantize.Grid's x = offset + q * step (a 2ε uniform grid)
+    worst = float(np.max(np.abs(dec - orig)))
+    out = cells(dec, CellFormat(eps=eps, worst=worst, step=step, offset=off))
+    back = np.array([float(c) for c in out])
+    assert np.all(np.abs(back - orig) <= eps)  # numpy float64, the way a user would check
+    assert np.array_equal(np.rint((back - off) / step), np.rint((dec - off) / step))
+    assert all(len(c) <= len(repr(float(v))) for c, v in zip(out, dec))
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.integers(-10**7, 10**7), min_size=2, max_size=200), st.integers(0, 4),
+       st.sampled_from(["0.05", "0.5", "0.013", "1", "0.25"]))
+def test_lossy_cells_of_a_decimal_original_stay_within_eps_as_decimals(ks, d, eps_text):
+    from decimal import Decimal
+
+    from tsarchive.quantize import make_grid, quantize
+
+    orig_text = [f"{k / 10**d:.{d}f}" for k in ks]  # what a logger with d decimals writes
+    orig = np.array([float(t) for t in orig_text])
+    eps = float(eps_text)
+    grid = make_grid(eps, d, np.dtype(np.float64), anchor=float(orig[0]))
+    if grid.kind != "step":
+        return  # a budget below half the resolution is served exactly: not the lossy case
+    q, pos, bits = quantize(orig, grid)
+    dec = grid.dequantize(q, pos, bits)
+    worst = float(np.max(np.abs(dec - orig)))
+    out = cells(dec, CellFormat(eps=eps, worst=worst, step=grid.step, offset=grid.offset, source_decimals=d))
+    # Reference: Python's decimal module, exact arithmetic on the texts as both files show them
+    assert all(abs(Decimal(c) - Decimal(t)) <= Decimal(eps_text) for c, t in zip(out, orig_text))
+    back = np.array([float(c) for c in out])
+    step_of = lambda v: np.rint((v - grid.offset) / grid.step)  # noqa: E731  quantize.Grid: x = offset + q*step
+    assert np.array_equal(step_of(back), step_of(dec))
+    assert all(len(c) <= len(repr(float(v))) for c, v in zip(out, dec))

@@ -46,8 +46,19 @@ def _gapped(n: int = 3000, at: int = 100, rows: int = 60) -> np.ndarray:
 
 
 def _csv_rows(path):
+    """The rows of an exported CSV after its reconstruction mark (the '#' lines the export writes first)."""
     with open(path, newline="", encoding="utf-8") as fh:
-        return list(csv.reader(fh))
+        return list(csv.reader(_unmarked(fh.read()).splitlines(keepends=True)))
+
+
+def _unmarked(text: str) -> str:
+    """An export's text without the leading reconstruction mark (tsarchive.export.Origin.comment_lines)."""
+    from tsarchive.export import CSV_MARK
+    lines = text.split("\n")
+    if lines and lines[0].startswith(CSV_MARK):
+        while lines and lines[0].startswith("#"):
+            lines.pop(0)
+    return "\n".join(lines)
 
 
 # -- the user's cases ---------------------------------------------------------------
@@ -220,7 +231,7 @@ def test_notes_and_text_columns_come_back(tmp_path):
     assert back["status"].equals(extra["status"]) and back["flag"].equals(extra["flag"])
     assert json.loads(back.schema.metadata[b"notes"]) == list(notes)
     arc.export(tmp_path / "x.csv")
-    text = (tmp_path / "x.csv").read_text(encoding="utf-8").split("\n")
+    text = _unmarked((tmp_path / "x.csv").read_text(encoding="utf-8")).split("\n")
     assert tuple(text[:3]) == notes                          # the preamble, as found, before the header
     rows = _csv_rows(tmp_path / "x.csv")[3:]                # reference: Python's csv module (RFC 4180 quoting)
     assert rows[0] == ["Timestamp", "status", "temp [degC]", "flag"]

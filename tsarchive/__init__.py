@@ -31,10 +31,10 @@ def open(path) -> Archive:  # noqa: A001 - the natural name for the API
     return open_archive(path)
 
 
-def verify(archive, against=None, progress=None) -> VerifyReport:
-    """Verify an archive alone (checksums) or against its source recording."""
+def verify(archive, against=None, progress=None, **options) -> VerifyReport:
+    """Verify an archive alone (checksums) or against its source recording (``rate``, ``even_if_changed``)."""
     from .verifier import verify_archive
-    return verify_archive(archive, against=against, progress=progress)
+    return verify_archive(archive, against=against, progress=progress, **options)
 
 
 def inspect_source(path, rate: float | None = None) -> Recording:

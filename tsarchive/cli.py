@@ -2,13 +2,18 @@
 
 Errors derived from :class:`TsArchiveError` (and bad arguments) print one
 line on stderr and exit with code 2; ``verify`` exits 1 when the archive
-fails a check.
+fails a check (also when the compared file is not the one that was packed).
+When the reader of our output goes away (``tsarchive report X | head``),
+the command stops quietly with the shell's code for that, 141 (128 + SIGPIPE).
+The terminal app (``browse``, or no command) needs a terminal on stdin and
+stdout; without one it refuses with exit 2.
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from pathlib import Path
 
@@ -18,6 +23,9 @@ from .errors import BadInput, TsArchiveError
 CAUTION = ("Caution: lossy archiving of measurement records can break a lab's quality or retention rules. "
            "Keep the originals until the archive verifies, and follow your lab's quality system and the "
            "regulations that apply.")
+
+#: Exit status after the reader of stdout went away: 128 + SIGPIPE (13), as the shell reports a killed writer.
+BROKEN_PIPE_EXIT = 141
 
 
 class _Parser(argparse.ArgumentParser):
@@ -55,10 +63,20 @@ def _parser() -> argparse.ArgumentParser:
                     "ISO 8601 (on the logged times; gaps count)")
     up.add_argument("--end", metavar="T", help="time to stop before (excluded): seconds from the first sample, "
                     "or ISO 8601")
+    up.add_argument("--force", action="store_true", help="replace an existing file (never the original recording)")
+    up.add_argument("--replace-original", metavar="SHA256", dest="replace_original",
+                    help="allow replacing the original recording the archive was packed from: give the first 12 "
+                         "hex digits of its SHA-256 (shown by 'tsarchive report')")
 
     vf = sub.add_parser("verify", help="check an archive's checksums, and every sample against its source")
     vf.add_argument("archive")
-    vf.add_argument("--against", metavar="SOURCE", help="the original recording to compare with")
+    vf.add_argument("--against", metavar="SOURCE", help="the original recording to compare with; first checked "
+                    "to be the file that was packed (size and SHA-256), else verify fails without comparing samples")
+    vf.add_argument("--rate", type=float, metavar="HZ", help="sample rate of a SOURCE that carries none (.npy, a "
+                    "table without a time column; default: the archive's rate)")
+    vf.add_argument("--even-if-changed", action="store_true", dest="even_if_changed",
+                    help="compare the samples of a SOURCE that is not the packed file (a converted copy); "
+                         "passes when every sample is within budget")
     vf.add_argument("--json", action="store_true", help="print the report as JSON")
 
     rp = sub.add_parser("report", help="show an archive's channels, budgets, errors and ratios")
@@ -82,8 +100,12 @@ def main(argv: list[str] | None = None) -> int:
         args = _parser().parse_args(argv)
         if args.command is None:
             return _app(Path("."))
-        return {"pack": _pack, "unpack": _unpack, "verify": _verify, "report": _report, "demo": _demo,
+        code = {"pack": _pack, "unpack": _unpack, "verify": _verify, "report": _report, "demo": _demo,
                 "browse": lambda a: _app(Path(a.path))}[args.command](args)
+        sys.stdout.flush()  # a closed pipe shows up here, inside the handler, not at interpreter exit
+        return code
+    except BrokenPipeError:
+        return _reader_gone()
     except TsArchiveError as exc:
         print(f"tsarchive: error: {exc}", file=sys.stderr)
         return 2
@@ -96,15 +118,34 @@ def main(argv: list[str] | None = None) -> int:
         return 2
 
 
+def _reader_gone() -> int:
+    """stdout's reader closed the pipe: stop quietly (no message, no traceback at exit)."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())  # the interpreter's final flush then goes nowhere
+        os.close(devnull)
+    except (OSError, ValueError, AttributeError):  # no real file descriptor (an in-process capture)
+        pass
+    return BROKEN_PIPE_EXIT
+
+
+def _caution_if_lossy(lossy: bool, to_stderr: bool = False) -> None:
+    if lossy:
+        print(CAUTION, file=sys.stderr if to_stderr else sys.stdout)
+
+
 def _pack(args) -> int:
     from .pipeline import pack
     res = pack(args.source, args.output, args.budget, rate=args.rate, window=args.window,
                code_size=args.code_size, force=args.force)
+    lossy = any(c.eps > 0 for c in res.channels)
     if args.json:
         print(json.dumps(res.to_dict(), indent=1))
+        _caution_if_lossy(lossy, to_stderr=True)  # stdout stays one JSON document
         return 0
     from .report import pack_table
     print(pack_table(res))
+    _caution_if_lossy(lossy)
     return 0
 
 
@@ -118,14 +159,23 @@ def _unpack(args) -> int:
     start = None if args.start is None else parse_offset(args.start, start0, ns0)
     end = None if args.end is None else parse_offset(args.end, start0, ns0)
     chans = None if not args.channels else [c.strip() for c in args.channels.split(",") if c.strip()]
-    out = arc.export(args.output, channels=chans, start=start, end=end)
+    out = arc.export(args.output, channels=chans, start=start, end=end, force=args.force,
+                     replace_original=args.replace_original)
+    metas = [arc.channel(n) for n in chans] if chans else list(arc.channels)
+    lossy = [m for m in metas if m.eps > 0]
     print(f"wrote {out}")
+    if lossy:
+        bounds = ", ".join(f"{m.name} ±{m.eps:g}{' ' + m.unit if m.unit else ''}" for m in lossy)
+        print(f"a reconstruction, not the original recording: values within {bounds} of it")
+    else:
+        print("a reconstruction with every value exactly as packed")
+    _caution_if_lossy(bool(lossy))
     return 0
 
 
 def _verify(args) -> int:
     from .verifier import verify_archive
-    rep = verify_archive(args.archive, against=args.against)
+    rep = verify_archive(args.archive, against=args.against, rate=args.rate, even_if_changed=args.even_if_changed)
     if args.json:
         print(json.dumps(rep.to_dict(), indent=1))
     else:

@@ -1,10 +1,10 @@
 """Write channels to ``.npy``, ``.csv`` or ``.parquet`` -- the inverse of :mod:`tsarchive.ingest`.
 
 :func:`write_table` is atomic: it writes a hidden temporary file in the
-target folder and renames it over the target (``os.replace``) only when
-complete, so an error or an interruption never leaves a partial file (an
-existing target is kept as it was).  An existing target is overwritten on
-success; refusing to overwrite is the caller's decision.
+target folder and moves it into place only when complete, so an error or
+an interruption never leaves a partial file (an existing target is kept as
+it was).  Whether a target may be written at all (not the source, not in an
+archive folder) is :mod:`tsarchive.export_range`'s decision.
 
 Formats:
 
@@ -24,15 +24,26 @@ Formats:
     empty string ``""``.  The recording's notes come first, one a line, as
     they stood before the logger's header.
     Channels are headed ``name [unit]`` (plain ``name`` without a unit).
-    Floats are written with Python's ``repr`` -- the shortest text that
-    parses back to the same double -- and ``nan``, ``inf``, ``-inf``;
-    integers as integers.
+    Values are written by :func:`tsarchive.export_text.cells` with each
+    channel's :class:`~tsarchive.export_text.CellFormat`: the shortest text
+    true to the channel (its logged decimals, the shortest float32 text for
+    float32), missing values as empty cells.  With an ``origin``, the file
+    starts with ``#`` comment lines saying it is a reconstruction, from
+    which archive, and within which ±ε.
 ``.parquet``
     zstd-compressed; a first column ``time`` (``timestamp[ns]`` without a
     zone for naive times, else with ``UTC`` or the offset; float64 seconds
     with unit ``s`` for a seconds axis), then one column per channel in its
     own dtype, the unit in the field metadata ``b"unit"``; text columns as
-    for CSV, in their Arrow types; notes in the file metadata ``b"notes"``.
+    for CSV, in their Arrow types; notes in the file metadata ``b"notes"``.  With an ``origin``, the file's key-value metadata
+    also holds it as JSON under ``b"tsarchive.origin"``.
+
+With an ``origin``, an ``.npy`` gets a sidecar ``NAME.npy.origin.json``
+(the same JSON), written and committed together with it.
+
+An existing target is replaced only with ``replace=True``; otherwise the
+finished file is linked into place, which fails if a file of that name
+appeared meanwhile (no check-then-write race).
 """
 
 from __future__ import annotations
@@ -52,6 +63,7 @@ import numpy as np
 
 from .errors import BadInput
 from .store.timeaxis import Times
+from .export_text import CellFormat, cells
 
 #: Extensions write_table understands.
 FORMATS = (".npy", ".csv", ".parquet")
@@ -59,8 +71,54 @@ FORMATS = (".npy", ".csv", ".parquet")
 #: Rows formatted at a time when writing CSV.
 CSV_CHUNK_ROWS = 65_536
 
+#: Parquet key-value metadata key (and JSON content of an .npy sidecar) marking a reconstruction.
+ORIGIN_KEY = b"tsarchive.origin"
 
-__all__ = ["FORMATS", "TextParts", "write_table"]
+#: How the first line of a CSV export begins (the ingest reader skips the "#" lines of such a file).
+CSV_MARK = "# reconstruction written by tsarchive"
+
+#: Suffix added to an .npy's name for its sidecar.
+SIDECAR_SUFFIX = ".origin.json"
+
+__all__ = ["FORMATS", "ORIGIN_KEY", "SIDECAR_SUFFIX", "Origin", "TextParts", "sidecar_path", "write_table"]
+
+
+@dataclass(frozen=True)
+class Origin:
+    """Where an exported file came from: it is a reconstruction, not the original recording.
+
+    ``bounds`` holds ``(channel, eps, unit)`` per written channel (``eps`` 0
+    for a channel kept exactly).
+    """
+
+    archive: str
+    source: str
+    source_sha256: str
+    tool_version: str
+    bounds: tuple[tuple[str, float, str], ...]
+
+    @property
+    def lossy(self) -> bool:
+        return any(eps > 0 for _, eps, _ in self.bounds)
+
+    def to_dict(self) -> dict:
+        return {"reconstruction": True, "archive": self.archive, "source": self.source,
+                "source_sha256": self.source_sha256, "tool_version": self.tool_version,
+                "channels": [{"name": n, "eps": e, "unit": u} for n, e, u in self.bounds]}
+
+    def comment_lines(self) -> list[str]:
+        """The ``#`` lines heading a CSV export."""
+        within = "; ".join(f"{n} exact" if e == 0 else f"{n} ±{e:g}{' ' + u if u else ''}"
+                           for n, e, u in self.bounds)
+        return [f"{CSV_MARK} {self.tool_version} from archive {self.archive}",
+                f"# original recording {self.source or '(unnamed)'}, SHA-256 {self.source_sha256 or '(unknown)'}",
+                "# not the original: every value is within its channel's bound of it: " + within]
+
+
+def sidecar_path(path: str | Path) -> Path:
+    """The origin file written beside an exported ``.npy``."""
+    p = Path(path)
+    return p.with_name(p.name + SIDECAR_SUFFIX)
 
 
 @dataclass(frozen=True, eq=False)
@@ -76,7 +134,9 @@ class TextParts:
 
 def write_table(path: str | Path, columns: dict[str, np.ndarray], *, rate: float, start: datetime | None,
                 t0: float = 0.0, units: dict[str, str] | None = None, shape_1d: bool = False,
-                times: Times | None = None, text: TextParts | None = None) -> Path:
+                times: Times | None = None, text: TextParts | None = None,
+                formats: dict[str, CellFormat] | None = None, origin: Origin | None = None,
+                replace: bool = False) -> Path:
     """Write ``columns`` (name -> 1-D array, all the same length) to ``path``; return the path.
 
     ``times`` are the rows' exact times (:class:`tsarchive.store.timeaxis.Times`);
@@ -84,8 +144,11 @@ def write_table(path: str | Path, columns: dict[str, np.ndarray], *, rate: float
     samples per second, ``start`` the recording's start (naive stays naive)
     or None, ``t0`` the time of the first row in seconds from the start
     (non-zero for an excerpt).  ``units`` maps channel names to units;
-    ``text`` holds notes and text columns.  See the module docstring for each format.  Raises
-    :class:`BadInput` for an unknown extension, a missing folder, or
+    ``text`` holds notes and text columns; ``formats`` maps channel names to
+    their CSV cell format, ``origin`` marks the file as a reconstruction, and
+    ``replace`` allows an existing file to be replaced.  See the module
+    docstring for each format.  Raises :class:`BadInput` for an unknown
+    extension, a missing folder, an existing target without ``replace``, or
     columns that are empty, of unequal length or not numeric.
     """
     p = Path(path)
@@ -105,14 +168,35 @@ def write_table(path: str | Path, columns: dict[str, np.ndarray], *, rate: float
     if len(times.values) != n or (text.extra is not None and text.extra.num_rows != n):
         raise BadInput(f"the time column or text columns do not have {n} rows; give one row per sample")
     order = _order(list(cols), text.extra, text.positions)
-    with _atomic(p) as tmp:
-        if ext == ".npy":
-            _write_npy(tmp, cols, shape_1d)
-        elif ext == ".csv":
-            _write_csv(tmp, cols, times, units, text, order)
-        else:
-            _write_parquet(tmp, cols, times, units, text, order)
+    formats = dict(formats or {})
+    side = sidecar_path(p) if ext == ".npy" and origin is not None else None
+    for target in (p, side):
+        if target is not None and not replace and (target.exists() or target.is_symlink()):
+            raise _exists(target)
+    side_done = False
+    try:
+        with _atomic(p, replace) as tmp:
+            if ext == ".npy":
+                _write_npy(tmp, cols, shape_1d)
+                if side is not None:  # committed just before the .npy; taken back if the .npy fails
+                    with _atomic(side, replace) as tmp_side:
+                        with open(tmp_side, "w", encoding="utf-8") as f:
+                            json.dump(origin.to_dict(), f, indent=1)
+                            f.write("\n")
+                    side_done = True
+            elif ext == ".csv":
+                _write_csv(tmp, cols, times, units, text, order, formats, origin)
+            else:
+                _write_parquet(tmp, cols, times, units, text, order, origin)
+    except BaseException:
+        if side_done:
+            side.unlink(missing_ok=True)
+        raise
     return p
+
+
+def _exists(path: Path) -> BadInput:
+    return BadInput(f"{path.name} already exists; pass --force to replace it, or choose another name")
 
 
 def _rule_times(n: int, rate: float, start: datetime | None, t0: float) -> Times:
@@ -166,8 +250,13 @@ def _common_dtype(cols: dict[str, np.ndarray]) -> np.dtype:
 
 
 @contextmanager
-def _atomic(path: Path) -> Iterator[str]:
-    """Yield a temporary path beside ``path``; rename it over ``path`` on success, delete it on failure."""
+def _atomic(path: Path, replace: bool = False) -> Iterator[str]:
+    """Yield a temporary path beside ``path``; move it into place on success, delete it on failure.
+
+    Without ``replace`` the file is hard-linked to ``path``, which fails if
+    ``path`` exists by then; where the file system has no hard links, an
+    existence check and a rename take its place.
+    """
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
     os.close(fd)
     try:
@@ -177,13 +266,30 @@ def _atomic(path: Path) -> Iterator[str]:
         mask = os.umask(0)
         os.umask(mask)
         os.chmod(tmp, 0o666 & ~mask)
-        os.replace(tmp, path)
+        if replace:
+            os.replace(tmp, path)
+        else:
+            _claim(tmp, path)
     except BaseException:
         try:
             os.unlink(tmp)
         except FileNotFoundError:
             pass
         raise
+
+
+def _claim(tmp: str, path: Path) -> None:
+    """Move ``tmp`` to ``path`` unless ``path`` exists (BadInput then)."""
+    try:
+        os.link(tmp, path)
+    except FileExistsError:
+        raise _exists(path) from None
+    except OSError:  # no hard links here (some network or FAT file systems)
+        if path.exists() or path.is_symlink():
+            raise _exists(path) from None
+        os.replace(tmp, path)
+        return
+    os.unlink(tmp)
 
 
 def _write_npy(tmp: str, cols: dict[str, np.ndarray], shape_1d: bool) -> None:
@@ -259,15 +365,18 @@ def _header(name: str, unit: str) -> str:
 
 
 def _csv_text(values: np.ndarray) -> list[str]:
-    """Cells for one column chunk: repr for floats (exact round trip), str for ints, an empty cell
-    for a missing sample."""
+    """Cells of a time column in seconds: repr (exact round trip)."""
+    return list(map(float.__repr__, values.astype(np.float64, copy=False).tolist()))
+
+
+def _csv_cells(values: np.ndarray, fmt: CellFormat) -> list[str]:
+    """Cells for one channel's column chunk (:func:`tsarchive.export_text.cells`); a missing sample is an
+    empty cell."""
     if isinstance(values, np.ma.MaskedArray):
         gone = np.ma.getmaskarray(values)
-        cells = _csv_text(np.ma.getdata(values))
-        return [("" if g else c) for c, g in zip(cells, gone.tolist())]
-    if values.dtype.kind == "f":
-        return list(map(float.__repr__, values.astype(np.float64, copy=False).tolist()))
-    return list(map(str, values.tolist()))
+        text = cells(np.ma.getdata(values), fmt)
+        return [("" if g else c) for c, g in zip(text, gone.tolist())]
+    return cells(values, fmt)
 
 
 def _time_header(times: Times) -> str:
@@ -277,26 +386,30 @@ def _time_header(times: Times) -> str:
 
 
 def _write_csv(tmp: str, cols: dict[str, np.ndarray], times: Times, units: dict[str, str], text: TextParts,
-               order: list[tuple[str, str]]) -> None:
+               order: list[tuple[str, str]], formats: dict[str, CellFormat], origin: Origin | None) -> None:
     extra = text.extra
     n = next(iter(cols.values())).shape[0]
     head = io.StringIO()
+    for line in origin.comment_lines() if origin is not None else ():   # first: the reader knows the mark
+        head.write(line.replace("\n", " ") + "\n")
+    for line in text.notes:                                             # the preamble, as found
+        head.write(line + "\n")
     csv.writer(head, lineterminator="\n").writerow(
         [_time_header(times)] + [_header(k, units.get(k, "")) if c == "ch" else k for c, k in order])
     unit = _iso_unit(times.values) if times.kind == "datetime" else ""
+    plain = CellFormat()
     with open(tmp, "w", encoding="utf-8", newline="\n") as f:
-        f.write("".join(line + "\n" for line in text.notes))        # the preamble, as found
         f.write(head.getvalue())
         for lo in range(0, n, CSV_CHUNK_ROWS):
             hi = min(n, lo + CSV_CHUNK_ROWS)
             cells = [_time_cells(times, lo, hi, unit)] + [
-                _csv_text(cols[k][lo:hi]) if c == "ch" else _text_cells(extra.column(k).slice(lo, hi - lo))
-                for c, k in order]
+                _csv_cells(cols[k][lo:hi], formats.get(k, plain)) if c == "ch"
+                else _text_cells(extra.column(k).slice(lo, hi - lo)) for c, k in order]
             f.write("".join(",".join(row) + "\n" for row in zip(*cells)))
 
 
 def _write_parquet(tmp: str, cols: dict[str, np.ndarray], times: Times, units: dict[str, str], text: TextParts,
-                   order: list[tuple[str, str]]) -> None:
+                   order: list[tuple[str, str]], origin: Origin | None) -> None:
     import pyarrow as pa
     import pyarrow.parquet as pq
 
@@ -320,6 +433,10 @@ def _write_parquet(tmp: str, cols: dict[str, np.ndarray], times: Times, units: d
         unit = units.get(name, "")
         fields.append(pa.field(name, arr.type, metadata={b"unit": unit.encode("utf-8")} if unit else None))
         arrays.append(arr)
-    meta = {b"notes": json.dumps(list(text.notes), ensure_ascii=False).encode("utf-8")} if text.notes else None
-    table = pa.Table.from_arrays(arrays, schema=pa.schema(fields, metadata=meta))
+    meta = {}
+    if text.notes:
+        meta[b"notes"] = json.dumps(list(text.notes), ensure_ascii=False).encode("utf-8")
+    if origin is not None:
+        meta[ORIGIN_KEY] = json.dumps(origin.to_dict()).encode("utf-8")
+    table = pa.Table.from_arrays(arrays, schema=pa.schema(fields, metadata=meta or None))
     pq.write_table(table, tmp, compression="zstd", row_group_size=1 << 20)

@@ -69,13 +69,15 @@ def archive_table(arc) -> str:
 
 
 def verify_text(rep: VerifyReport) -> str:
-    lines = []
+    lines = [f"source: {rep.source_check}"] if rep.source_check else []
     for c in rep.channels:
         state = "ok" if not (c.n_bad or c.bad_checksums) else "FAILED"
         err = "" if c.worst_error is None else f", worst error {_fmt(c.worst_error)} of ±{_fmt(c.eps)}"
         lines.append(f"{c.name}: {state}{err}")
     lines.extend(f"problem: {p}" for p in rep.problems)
     what = "every sample within budget and every checksum matches" if rep.compared else "every checksum matches"
+    if rep.ok and rep.compared and rep.source_same is False:
+        what += " (but the compared file is not the one that was packed)"
     lines.append(("VERIFIED: " + what) if rep.ok else "FAILED: see the problems above")
     if not rep.compared and rep.ok:
         lines.append("(checksums only; pass --against SOURCE to compare every sample with the original)")

@@ -94,7 +94,12 @@ class VerifyReport:
     compared: bool
     channels: tuple[ChannelCheck, ...]
     problems: tuple[str, ...] = ()
+    #: whether the compared file is the one that was packed (size and SHA-256); None: not checked or not recorded
+    source_same: bool | None = None
+    #: that finding in one sentence ("" when no file was given)
+    source_check: str = ""
 
     def to_dict(self) -> dict:
         return {"ok": self.ok, "checksums_ok": self.checksums_ok, "compared": self.compared,
+                "source_same": self.source_same, "source_check": self.source_check,
                 "channels": [c.to_dict() for c in self.channels], "problems": list(self.problems)}

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import threading
 from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -26,17 +27,32 @@ CHUNK_SAMPLES = 1 << 20
 MAX_LISTED = 50  # failing windows listed per channel
 
 
-def verify_archive(archive, against=None, progress=None) -> VerifyReport:
-    """Check ``archive`` (a path or an open Archive); compare with ``against`` when given."""
+def verify_archive(archive, against=None, progress=None, *, rate: float | None = None,
+                   even_if_changed: bool = False) -> VerifyReport:
+    """Check ``archive`` (a path or an open Archive); compare with ``against`` when given.
+
+    A source given as a path is first checked to be the file that was packed
+    (the manifest's size and SHA-256).  When it is not, the report fails
+    with that one problem and no sample is compared, unless
+    ``even_if_changed`` is set: then every sample is compared and the report
+    passes if all are within budget (the identity finding stays in
+    ``source_check``).  ``rate`` is for a source that carries none (``.npy``,
+    a table without a time column); the archive's rate is used otherwise.
+    """
     from .store.reader import Archive, open_archive
 
     arc = archive if isinstance(archive, Archive) else open_archive(archive)
     problems: list[str] = []
+    identity = None if against is None or isinstance(against, Recording) else source_identity(arc, Path(against))
     for name, info in arc.manifest.get("members", {}).items():
         p = arc.path / name
         if not p.is_file() or checksum.file_sha256(p) != info.get("sha256"):
             problems.append(f"member {name}: SHA-256 differs from the manifest (file damaged or replaced)")
-    rec = _source(arc, against)
+    if identity is not None and identity.same is False and not even_if_changed:
+        problems.insert(0, identity.message + "; its samples were not compared (pass --even-if-changed to "
+                        "compare them anyway)")
+        against = None
+    rec = _source(arc, against, rate)
     sidecar = check_sidecar(arc)
     problems.extend(sidecar)
     if rec is not None and not sidecar:
@@ -65,7 +81,9 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
     checksums_ok = not any(c.bad_checksums for c in checks) and \
         not any(p.startswith("member") or "cannot be decoded" in p for p in problems)
     return VerifyReport(ok=not problems, checksums_ok=checksums_ok, compared=rec is not None,
-                        channels=tuple(checks), problems=tuple(problems))
+                        channels=tuple(checks), problems=tuple(problems),
+                        source_same=None if identity is None else identity.same,
+                        source_check="" if identity is None else identity.message)
 
 
 def _check_channel(arc, rec, meta, col, step) -> tuple[ChannelCheck, list[str]]:
@@ -171,13 +189,46 @@ def _list(ws: list[int]) -> str:
     return s + (f" and {len(ws) - 10} more" if len(ws) > 10 else "")
 
 
-def _source(arc, against) -> Recording | None:
+@dataclass(frozen=True)
+class SourceIdentity:
+    """Whether a file is the one an archive was packed from: ``same`` True, False, or None (not recorded)."""
+
+    same: bool | None
+    message: str
+
+
+def source_identity(arc, path: Path) -> SourceIdentity:
+    """Compare ``path``'s size and SHA-256 with the manifest's ``source`` (before any sample is read)."""
+    src = arc.manifest.get("source", {})
+    sha, size = str(src.get("sha256") or ""), src.get("bytes")
+    if not path.is_file():
+        from .errors import SourceNotFound
+        raise SourceNotFound(f"{path}: no such file; pass the recording the archive was packed from")
+    if not sha:
+        return SourceIdentity(None, f"{path.name}: the archive recorded no SHA-256 for its source, so only "
+                                    "the samples can show whether this is the file that was packed")
+    actual_size = path.stat().st_size
+    actual = checksum.file_sha256(path)
+    if actual == sha and (size is None or int(size) == actual_size):
+        return SourceIdentity(True, f"{path.name} is the file that was packed (size and SHA-256 match)")
+    packed = src.get("name") or "the source"
+    return SourceIdentity(False, f"{path.name} is not the file that was packed (SHA-256 differs: {packed} was "
+                                 f"{sha[:12]}…, this file is {actual[:12]}…)")
+
+
+def _source(arc, against, rate: float | None = None) -> Recording | None:
     if against is None or isinstance(against, Recording):
         return against
     from .ingest import read_recording
-    rate = arc.channels[0].rate if arc.channels else None
+    own = arc.channels[0].rate if arc.channels else None
     path = Path(against)
-    rec = read_recording(path, rate=rate if path.suffix.lower() == ".npy" else None)
+    if rate is not None or path.suffix.lower() == ".npy":
+        rec = read_recording(path, rate=rate if rate is not None else own)
+    else:
+        try:  # a table's own time column first; the archive's rate when it has none
+            rec = read_recording(path)
+        except BadInput:
+            rec = read_recording(path, rate=own)
     if rec.n_samples != (arc.channels[0].n_samples if arc.channels else 0):
         raise BadInput(f"{path.name} has {rec.n_samples} samples but the archive has "
                        f"{arc.channels[0].n_samples}; pass the recording the archive was packed from")

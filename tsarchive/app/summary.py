@@ -40,8 +40,8 @@ class CheckLines:
 def check_lines(report, source_name: str | None, window_starts: dict[str, np.ndarray] | None = None) -> CheckLines:
     """Plain sentences for a report; failing windows are named with their start time."""
     window_starts = window_starts or {}
-    details: list[str] = []
-    if report.ok:
+    details: list[str] = [report.source_check] if getattr(report, "source_same", None) is False else []
+    if report.ok and getattr(report, "source_same", None) is not False:
         against = (f"every sample was compared with {source_name} and lies within its budget"
                    if report.compared else "no original was at hand, so samples were not compared")
         return CheckLines(VERIFIED_OK, f"Verified ok: checksums match; {against}.", ())

@@ -26,7 +26,7 @@ def read_csv(path: Path, rate: float | None) -> Recording:
     # Blank lines are kept so that a single-column file can have empty (NaN) cells.
     parse = pacsv.ParseOptions(ignore_empty_lines=False)
     convert = pacsv.ConvertOptions(strings_can_be_null=False, quoted_strings_can_be_null=True)
-    read = pacsv.ReadOptions(block_size=1 << 24)
+    read = pacsv.ReadOptions(block_size=1 << 24, skip_rows=_comment_lines(path))
     try:
         table = pacsv.read_csv(path, read_options=read, parse_options=parse, convert_options=convert)
     except pa.ArrowInvalid as exc:
@@ -37,3 +37,25 @@ def read_csv(path: Path, rate: float | None) -> Recording:
     except OSError as exc:
         raise BadInput(f"{path.name}: cannot read ({exc}); check the file's permissions") from exc
     return table_to_recording(table, path, rate)
+
+
+def _comment_lines(path: Path, limit: int = 64) -> int:
+    """The leading ``#`` lines of a tsarchive export (its reconstruction note), else 0.
+
+    Only a file whose first line is tsarchive's mark: a logger's own header
+    may start with ``#`` too.
+    """
+    from ..export import CSV_MARK
+
+    n = 0
+    try:
+        with open(path, "rb") as f:
+            first = f.readline(4096)
+            if not first.startswith(CSV_MARK.encode("ascii")):
+                return 0
+            n = 1
+            while n < limit and f.readline(1 << 16).startswith(b"#"):
+                n += 1
+    except OSError:
+        return 0
+    return n

@@ -474,13 +474,17 @@ class Archive:
         spread = feats.std() or 1.0
         return feats / spread
 
-    def verify(self, against=None, progress=None):
+    def verify(self, against=None, progress=None, **options):
+        """See :func:`tsarchive.verifier.verify_archive` (``rate``, ``even_if_changed``)."""
         from ..verifier import verify_archive
-        return verify_archive(self, against=against, progress=progress)
+        return verify_archive(self, against=against, progress=progress, **options)
 
-    def export(self, out_path, channels=None, start=None, end=None) -> Path:
+    def export(self, out_path, channels=None, start=None, end=None, *, force: bool = False,
+               replace_original: str | None = None) -> Path:
+        """Write a reconstruction; see :func:`tsarchive.export_range.export_range` for what it refuses."""
         from ..export_range import export_range
-        return export_range(self, out_path, channels=channels, start=start, end=end)
+        return export_range(self, out_path, channels=channels, start=start, end=end, force=force,
+                            replace_original=replace_original)
 
 
 def _lpc_sets(d) -> tuple[LpcCoefs, ...]:

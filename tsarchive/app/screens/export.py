@@ -3,6 +3,10 @@
 Opened from the Ledger (whole recording, all channels) or from the Strip (the range
 on screen, that channel). Every field can be retyped; the file format follows the
 chosen button and the name's ending. The modal returns the written path (or None).
+
+An existing file is replaced only when Export is pressed a second time for the same
+name (the status line asks); the recording the archive was packed from, and any
+archive folder, are never written (the library refuses them whatever is pressed).
 """
 
 from __future__ import annotations
@@ -51,6 +55,8 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
         self.busy = False
         self._auto_name = ""
         """The name this screen proposed last; while the field still holds it, it follows the range."""
+        self._replace: Path | None = None
+        """An existing file the user was asked about; a second Export for it replaces it."""
 
     def compose(self) -> ComposeResult:
         stem = self.archive.path.stem
@@ -134,8 +140,6 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
         text = self.query_one("#export-channels", Input).value
         names = [n.strip() for n in text.split(",") if n.strip()] or None
         path = export_target(self.query_one("#export-name", Input).value, self.archive.path.parent)
-        if path.exists():
-            raise BadInput(f"{path.name} already exists; type another file name")
         return path, names, start, end
 
     def action_export(self) -> None:
@@ -146,15 +150,23 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
         except TsArchiveError as exc:
             self.notify(str(exc), title="Export", severity="error")
             return
+        force = self._replace == path
+        if path.exists() and not force:
+            self._replace = path
+            self.query_one("#export-status", Static).update(
+                f"{path.name} already exists: press Export again to replace it, or type another name")
+            return
+        self._replace = None
         self.busy = True
         self.query_one("#export-status", Static).update(f"writing {path.name}…")
-        self.run_export(path, names, start, end)
+        self.run_export(path, names, start, end, force)
 
     @work(thread=True, exclusive=True, group="export", exit_on_error=False)
-    def run_export(self, path: Path, names: list[str] | None, start: float | None, end: float | None) -> None:
+    def run_export(self, path: Path, names: list[str] | None, start: float | None, end: float | None,
+                   force: bool = False) -> None:
         try:
             with archive_lock(self.archive):
-                written = self.archive.export(path, channels=names, start=start, end=end)
+                written = self.archive.export(path, channels=names, start=start, end=end, force=force)
         except TsArchiveError as exc:
             self.post_message(WorkFailed(str(exc), title="Export failed"))
             self.post_message(ExportDone(None))

@@ -128,7 +128,9 @@ class LedgerScreen(Notices, Screen):
     def run_verify(self, arc, source: Path | None) -> None:
         try:
             with archive_lock(arc):
-                report = arc.verify(against=source, progress=lambda p: self.post_message(CheckStep(p)))
+                # a changed original is named first, and its samples are still compared to show where
+                report = arc.verify(against=source, progress=lambda p: self.post_message(CheckStep(p)),
+                                    even_if_changed=True)
                 starts = {ch.name: arc.windows(ch.name).start_sample / arc.channel(ch.name).rate
                           for ch in report.channels if ch.bad_windows or ch.bad_checksums}
         except ArchiveCorrupt as exc:
