@@ -250,12 +250,20 @@ class _Fit:
         b1, b2 = _BETAS
         self.t += 1
         self.b1t, self.b2t = self.b1t * b1, self.b2t * b2
+        step, unbias2 = self.lr / (1.0 - self.b1t), 1.0 - self.b2t
         for p, g, (m, v) in zip(self._params(), grads, self.moments):
             m *= b1
             m += (1.0 - b1) * g
             v *= b2
-            v += (1.0 - b2) * (g * g)
-            p -= (self.lr / (1.0 - self.b1t)) * m / (np.sqrt(v / (1.0 - self.b2t)) + _ADAM_EPS)
+            np.multiply(g, g, out=g)           # g is spent: reuse it for g*g and the step (in place)
+            g *= 1.0 - b2
+            v += g
+            np.divide(v, unbias2, out=g)
+            np.sqrt(g, out=g)
+            g += _ADAM_EPS
+            np.divide(m, g, out=g)
+            g *= step
+            p -= g
 
     def _val_loss(self, xv: np.ndarray) -> float:
         sq = 0.0
