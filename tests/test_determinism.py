@@ -6,7 +6,6 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
-import types
 from datetime import datetime, timezone
 from pathlib import Path
 
