@@ -112,6 +112,16 @@ def test_work_budget_counts_steps_not_seconds():
     assert (model.report.stopped_by, model.report.epochs_run) == ("work", 1)
 
 
+def test_diverging_training_keeps_finite_weights():
+    # Windows of 1e200 overflow the squared error (float64 max ~1.8e308, IEEE 754): training stops as
+    # "diverged" and keeps the initial weights, which still quantize to a valid integer decoder.
+    X = _sines(200, 16) * np.float64(1e200)
+    model = train_autoencoder(X, 2, max_epochs=5)
+    assert model.report.stopped_by == "diverged"
+    assert all(np.isfinite(l.weight).all() for l in model.encoder + model.decoder)
+    assert model.int_decoder.predict(np.zeros((1, 2), np.int8)).shape == (1, 16)
+
+
 def test_progress_is_reported_per_epoch():
     X = _sines(200, 32)
     seen = []

@@ -55,7 +55,7 @@ class TrainReport:
     """How a training run went (attached to the trained model)."""
 
     epochs_run: int
-    stopped_by: str        # "converged" | "work" (budget spent) | "max_epochs"
+    stopped_by: str        # "converged" | "work" (budget spent) | "max_epochs" | "diverged"
     best_epoch: int
     train_loss: float
     val_loss: float        # best held-out loss (the weights kept are from that epoch)

@@ -275,6 +275,21 @@ class _Fit:
             sq += exact.total(e * e)             # fixed chunk order: the same float additions everywhere
         return sq / xv.size
 
+    def _epoch(self, xt: np.ndarray, xv: np.ndarray, bs: int, steps: int, max_steps: float):
+        """One pass over ``xt`` (or until the work budget is spent): (train loss, held-out loss, spent, steps)."""
+        order = self.rng.permutation(xt.shape[0])
+        total, count = 0.0, 0
+        for a in range(0, xt.shape[0], bs):
+            if self.cancel is not None and self.cancel.is_set():
+                raise Cancelled("training was cancelled; nothing was written")
+            xb = xt[order[a:a + bs]]
+            total += self._loss_grad(xb) * xb.shape[0]
+            count += xb.shape[0]
+            steps += 1
+            if steps >= max_steps:
+                break
+        return total / max(count, 1), self._val_loss(xv), steps >= max_steps, steps
+
     def run(self, xt: np.ndarray, xv: np.ndarray, max_epochs: int, work: float | None, progress,
             hidden: int) -> TrainReport:
         t0 = time.monotonic()
@@ -282,31 +297,24 @@ class _Fit:
         sizes = [l.weight.shape for l in self.enc + self.dec]
         per_step = 3 * bs * sum(a * b for a, b in sizes)
         max_steps = math.inf if work is None else max(1, int(work // per_step))
-        best, best_epoch, best_state, train_loss = math.inf, 0, None, math.inf
+        best, best_epoch, train_loss = math.inf, 0, math.inf
+        best_state = [p.copy() for p in self._params()]      # kept if training diverges at once
         plateau_best, bad_epochs, steps = math.inf, 0, 0
         stopped, epoch = "max_epochs", 0
         for epoch in range(1, max_epochs + 1):
-            order = self.rng.permutation(xt.shape[0])
-            total, count, spent = 0.0, 0, False
-            for a in range(0, xt.shape[0], bs):
-                if self.cancel is not None and self.cancel.is_set():
-                    raise Cancelled("training was cancelled; nothing was written")
-                xb = xt[order[a:a + bs]]
-                total += self._loss_grad(xb) * xb.shape[0]
-                count += xb.shape[0]
-                steps += 1
-                if steps >= max_steps:
-                    spent = True
-                    break
-            val = self._val_loss(xv)
-            train_loss = total / max(count, 1)
+            try:
+                with np.errstate(over="ignore", invalid="ignore"):    # non-finite values are caught below
+                    train_loss, val, spent, steps = self._epoch(xt, xv, bs, steps, max_steps)
+            except FloatingPointError:
+                stopped = "diverged"          # the best epoch so far (or the initial weights) is kept
+                break
             if val < plateau_best * (1 - _LR_THRESHOLD):          # as torch's ReduceLROnPlateau (mode "min")
                 plateau_best, bad_epochs = val, 0
             else:
                 bad_epochs += 1
                 if bad_epochs > _LR_PATIENCE:
                     self.lr, bad_epochs = self.lr * 0.5, 0
-            if val < best * (1 - _MIN_REL_GAIN) or best_state is None:
+            if val < best * (1 - _MIN_REL_GAIN) or best_epoch == 0:
                 best, best_epoch = val, epoch
                 best_state = [p.copy() for p in self._params()]
             if progress is not None:
