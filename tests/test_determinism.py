@@ -193,6 +193,20 @@ def test_exact_total_is_order_free():
     assert sums.pop() == sum(int(v) for v in q.tolist()) / float(scale.ravel()[0])
 
 
+def test_exact_tanh_and_exp_are_accurate_and_length_independent():
+    # Reference: Python's math module (the platform C library); tolerance a few ulp (common practice
+    # (no source)).  One-element arrays (numpy's scalar loop) and long ones (its SIMD loop) give the
+    # same bits, as single IEEE-754 operations must.
+    import math
+    z = np.concatenate([np.linspace(-30.0, 30.0, 4001), [0.0, -0.0, 1e-300, 5e-9, 19.5, -700.0, 800.0]])
+    th = exact.tanh(z)
+    assert max(abs(a - math.tanh(v)) for a, v in zip(th.tolist(), z.tolist())) < 5e-16
+    assert math.copysign(1.0, float(exact.tanh(np.array([-0.0]))[0])) == -1.0
+    y = np.linspace(-700.0, 700.0, 4001)
+    assert max(abs(a / math.exp(v) - 1) for a, v in zip(exact.exp(y).tolist(), y.tolist())) < 5e-16
+    assert [float(exact.tanh(np.array([v]))[0]) for v in z[::97].tolist()] == exact.tanh(z[::97]).tolist()
+
+
 def test_no_transcendental_function_in_training():
     # np.exp/tanh/log and friends dispatch to CPU-specific code; the trainer must not call them
     # (the only non-arithmetic ufuncs allowed are exact: abs, maximum, rint, frexp, ldexp, sqrt).

@@ -7,7 +7,8 @@ must repeat bit for bit.  What does and does not repeat in float64 numpy:
   comparisons are correctly rounded (IEEE 754-2008, clause 5.4) and give the
   same bits whatever SIMD width numpy dispatches to;
 * transcendental ufuncs (``exp``, ``tanh``, ...) do not: they dispatch to
-  CPU-specific code -- the trainer uses none;
+  CPU-specific code -- the trainer uses :func:`exp` and :func:`tanh` below,
+  built from the elementwise operations above;
 * a BLAS product or a sum adds in an order that depends on blocking, SIMD
   width, FMA and threads.  It is exact, hence order-free, when every operand
   is an integer and every partial sum stays below 2**53: :func:`matmul` and
@@ -20,6 +21,8 @@ precision of float32 training, but reproducible.
 """
 
 from __future__ import annotations
+
+import math
 
 import numpy as np
 
@@ -70,6 +73,27 @@ def total(a: np.ndarray, axis: int | None = None) -> np.ndarray | float:
     return np.sum(q, axis=axis) / np.squeeze(scale, axis=axis)
 
 
-def softsign(z: np.ndarray) -> np.ndarray:
-    """``z / (1 + |z|)`` in (-1, 1): the code squashing (tanh would dispatch to CPU-specific code)."""
-    return z / (1.0 + np.abs(z))
+_LN2 = 0.6931471805599453
+_LN2_HI = 0.6931471804855391          # ln 2 split (Cody & Waite 1980): k * _LN2_HI is exact for |k| < 2**20
+_LN2_LO = 7.440617110012397e-11       # ln 2 - _LN2_HI
+_EXP_TAYLOR = [1 / math.factorial(k) for k in range(17)]   # int / int: Python rounds the exact quotient once
+
+
+def exp(x: np.ndarray) -> np.ndarray:
+    """exp(x) from single IEEE operations (numpy's exp dispatches to CPU-specific code): x = k ln2 + r,
+    |r| <= ln2/2, a degree-16 Taylor polynomial of r (Horner), times 2**k (exact).  Within 2 ulp."""
+    x = np.clip(np.asarray(x, dtype=np.float64), -700.0, 700.0)     # results stay normal numbers
+    k = np.rint(x / _LN2)
+    r = x - k * _LN2_HI
+    r = r - k * _LN2_LO
+    acc = np.full_like(r, _EXP_TAYLOR[-1])
+    for c in reversed(_EXP_TAYLOR[:-1]):
+        acc = acc * r
+        acc = acc + c
+    return np.ldexp(acc, k.astype(np.int64))
+
+
+def tanh(z: np.ndarray) -> np.ndarray:
+    """tanh(z) = sign(z) (1 - e) / (1 + e) with e = exp(-2|z|), from :func:`exp`: the same bits everywhere."""
+    e = exp(-2.0 * np.abs(z))
+    return np.copysign((1.0 - e) / (1.0 + e), z)

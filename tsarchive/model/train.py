@@ -13,12 +13,13 @@ Contract of :func:`train_autoencoder`:
   settings and seed: every product and sum goes through
   :mod:`tsarchive.model.exact` (operands rounded to integers whose partial
   sums float64 holds exactly), everything else is elementwise ``+ - * / sqrt
-  rint`` (correctly rounded everywhere), the random numbers come from numpy's
-  PCG64 generator, and no transcendental function is used;
+  rint`` (correctly rounded everywhere), tanh is built from those, and the
+  random numbers come from numpy's PCG64 generator;
 * ``cancel.is_set()`` is checked every batch and raises Cancelled.
 
-Model: encoder MLP ``W -> He -> He -> K`` (ReLU; ``He = clamp(H, 64, 512)``), then softsign
-``z / (1 + |z|)`` and ``code = rint(127 * softsign)`` in int8 range; decoder ``code/127 -> H (ReLU) -> W``.
+Model: encoder MLP ``W -> He -> He -> K`` (ReLU; ``He = clamp(H, 64, 512)``), then ``tanh`` (from
+:func:`tsarchive.model.exact.tanh`) and ``code = rint(127 * tanh)`` in int8 range; decoder
+``code/127 -> H (ReLU) -> W``.
 During training the rounding is replaced by additive uniform noise of one
 code step (a standard differentiable stand-in for uniform quantization), so
 the decoder learns to cope with rounded codes; the held-out loss uses true
@@ -119,7 +120,7 @@ class TrainedAutoencoder:
     def _latent(self, X: np.ndarray) -> np.ndarray:
         """Decoder input: the float latent (linear), else code / 127 with the code rounded."""
         z = _forward(list(self.encoder), X.astype(np.float64))
-        return z if self.linear else np.rint(CODE_MAX * exact.softsign(z)) / CODE_MAX
+        return z if self.linear else np.rint(CODE_MAX * exact.tanh(z)) / CODE_MAX
 
     def encode(self, X: np.ndarray) -> np.ndarray:
         """int8 codes (N, K) in ``[-127, 127]`` for windows ``X`` (N, W); each row's code depends on that row only."""
@@ -232,15 +233,15 @@ class _Fit:
         if self.linear:
             latent = z
         else:
-            c = CODE_MAX * exact.softsign(z) + (self.rng.random(z.shape) - 0.5)   # one code step of noise
+            c = CODE_MAX * exact.tanh(z) + (self.rng.random(z.shape) - 0.5)   # one code step of noise
             latent = c / CODE_MAX
         err = _forward(self.dec, latent, dec_in) - xb
         dy = err * (2.0 / err.size)
         grads: list = []
         dz = _backward(self.dec, dec_in, dy, grads)
         if not self.linear:
-            d = 1.0 + np.abs(z)
-            dz = dz / (d * d)                    # d softsign / dz = 1 / (1 + |z|)^2; noise passes the gradient
+            th = exact.tanh(z)
+            dz = dz * (1.0 - th * th)            # d tanh / dz = 1 - tanh^2; the noise passes the gradient
         _backward(self.enc, enc_in, dz, grads)
         dec_grads, enc_grads = grads[:len(self.dec)][::-1], grads[len(self.dec):][::-1]
         self._adam([g for pair in enc_grads + dec_grads for g in pair])
@@ -270,7 +271,7 @@ class _Fit:
         for a in range(0, xv.shape[0], _CHUNK):
             x = xv[a:a + _CHUNK]
             z = _forward(self.enc, x)
-            latent = z if self.linear else np.rint(CODE_MAX * exact.softsign(z)) / CODE_MAX
+            latent = z if self.linear else np.rint(CODE_MAX * exact.tanh(z)) / CODE_MAX
             e = _forward(self.dec, latent) - x
             sq += exact.total(e * e)             # fixed chunk order: the same float additions everywhere
         return sq / xv.size
