@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 import importlib.util
+import math
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
@@ -326,10 +327,33 @@ def test_sample_streams_load():
     assert [(c.name, c.unit, c.decimals) for c in psu.channels] == [("v_out", "V", 4), ("i_load", "A", 4)]
 
 
-def test_sample_streams_regenerate_identically(tmp_path):
+def _generator():
     spec = importlib.util.spec_from_file_location("generate_streams", STREAMS / "generate.py")
     mod = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(mod)
+    return mod
+
+
+def test_sample_stream_functions_are_accurate_without_simd_or_libm():
+    # The generator's own sin/cos/exp (single IEEE-754 steps, the same bits on every machine) must still
+    # be the functions they claim to be. Reference: Python's math module (the platform C library);
+    # tolerances a few ulp of the results (common practice (no source)).
+    mod = _generator()
+    x = np.concatenate([np.linspace(-4.0, 4.0, 1001), np.linspace(-2.2e5, 2.2e5, 1001)])
+    s, c = mod._sin_cos(x)
+    assert max(abs(a - math.sin(v)) for a, v in zip(s.tolist(), x.tolist())) < 5e-16
+    assert max(abs(a - math.cos(v)) for a, v in zip(c.tolist(), x.tolist())) < 5e-16
+    y = np.linspace(-700.0, 700.0, 2001)
+    assert max(abs(a / math.exp(v) - 1) for a, v in zip(mod._exp(y).tolist(), y.tolist())) < 4.5e-16
+    # One-element arrays (numpy's scalar tail loop) and long ones (its SIMD loop) give the same bits.
+    one = [float(mod._sin(np.array([v]))[0]) for v in x[::50].tolist()]
+    assert one == mod._sin(x[::50]).tolist()
+
+
+def test_sample_streams_regenerate_identically(tmp_path):
+    # The committed files are exactly what generate.py writes (on any machine: it uses no CPU-dispatched
+    # function, see its docstring).
+    mod = _generator()
     for p in mod.generate(tmp_path):
         committed = STREAMS / p.name
         if p.suffix == ".parquet":

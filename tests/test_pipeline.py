@@ -451,7 +451,7 @@ def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windo
     grids, _ = pipeline._grids(rec, parse_budget_spec("0.5%"))
     sampled = pipeline._gather(rec, np.arange(nw), W)
     scales, xs = pipeline._training_set(sampled, grids, W, 1)
-    model = train_autoencoder(np.concatenate(xs), 4, max_epochs=5, time_limit_s=600.0, seed=0, threads=1)
+    model = train_autoencoder(np.concatenate(xs), 4, max_epochs=5, seed=0)
     full = plan_channel(sampled[0], None, nw, grids[0], W, None, scales[0])
     part = sampled[0][::4]
     quick = plan_channel(part, None, nw, grids[0], W, model, scales[0], full, subset=True)

@@ -65,7 +65,11 @@ WINDOW_EVAL_MIN = 1 << 15      # per channel at least (and no choice on a record
 WINDOW_EVAL_CHANNELS = 4       # channels (evenly spread) that the window choice looks at
 WINDOW_MARGIN = 0.03           # a longer window must save this share of the estimate (its noise is ~±3 %)
 WINDOW_ROW_BYTES = 10.5        # measured framing of one window row (CRC, level, score, lengths; Parquet+zstd)
-PROBE_SECONDS = 6.0          # training time of the probe model that decides whether to train longer
+PROBE_SECONDS = 6.0          # nominal training seconds of the probe model that decides whether to train longer
+# Training is bounded by work, never by the clock (the archive must not depend on the machine's speed or load):
+# a nominal second is this many multiply-adds of training steps (one BLAS thread did 4.6e9 a second at
+# W = 1024 and 2.2e9 at W = 256 on the 2-core development machine, sharing it with other work).
+TRAIN_WORK_PER_SECOND = 4e9
 PROBE_SHARE = 0.25           # train fully only if the probe already saves this share of the model's bytes
 PROBE_EVAL_SAMPLES = 1 << 18  # per channel: the probe's saving is estimated on about this many sampled samples
 
@@ -82,8 +86,11 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     ``code_size=None`` trains an autoencoder with the default code size and
     keeps it only where its estimated saving exceeds the bytes of its weights
     and codes; an explicit ``code_size > 0`` always keeps it (for browsing
-    by codes); ``0`` packs without one.  Training never takes longer than
-    ``train_seconds`` whatever the recording's length; without an explicit
+    by codes); ``0`` packs without one.  Training is bounded by a work
+    budget of ``train_seconds`` nominal seconds (``TRAIN_WORK_PER_SECOND``
+    multiply-adds each, about a second of one core) whatever the recording's
+    length, and never by the clock: the same source, settings and tool
+    version give the same archive bytes on any machine; without an explicit
     code size a probe model is trained for ``PROBE_SECONDS`` first and the
     full run happens only if the probe already saves ``PROBE_SHARE`` of the
     model's own bytes.  ``window=None`` picks the window length of
@@ -107,13 +114,13 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     W = _window(window, rec.n_samples) if window is not None else (DEFAULT_WINDOW if explicit and K else 0)
     probe = not explicit and train_seconds > PROBE_SECONDS
 
-    # The autoencoder trains on a second thread (torch releases the GIL) while this one plans and,
+    # The autoencoder trains on a second thread (numpy releases the GIL) while this one plans and,
     # unless a code size was asked for, already encodes without it: a model that pays is the
     # exception, and then the speculative archive is dropped and the channels are encoded again.
     plain_ready: Future = Future()                   # the plan without a model, for the training thread
     with ThreadPoolExecutor(1) as helper:
         if K > 0:
-            helper.submit(_import_trainer)           # torch's import overlaps the reading below
+            helper.submit(_import_trainer)           # the trainer's import overlaps the reading below
         try:
             # budget -> ε -> integer grid, per channel
             grids, notes = _grids(rec, spec)
@@ -139,11 +146,11 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
 
             hopeless = threading.Event()      # set when even a perfect model could not pay: training stops
 
-            def train_and_plan(seconds: float, threads: int | None, quick: bool):
+            def train_and_plan(seconds: float, quick: bool):
                 # the training windows live only while training (a full run after a probe makes them again)
                 try:
                     model = _train(rec, _training_set(sampled, grids, W, len(names))[1], W, K, emit, seconds, seed,
-                                   threads, cancel=_Either(emit, hopeless))
+                                   cancel=_Either(emit, hopeless))
                 except Cancelled:
                     if hopeless.is_set() and not emit.is_set():
                         return None, None
@@ -155,8 +162,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
                 _release_memory()
                 return model, plans
 
-            training = helper.submit(train_and_plan, PROBE_SECONDS if probe else train_seconds,
-                                     1 if probe else None, probe)
+            training = helper.submit(train_and_plan, PROBE_SECONDS if probe else train_seconds, probe)
             emit("encode", 0, 1, "choosing predictors and entropy tables")
             plain = plan(None)
             plain_ready.set_result(plain)
@@ -325,7 +331,7 @@ def _malloc_trim():
 
 
 def _import_trainer() -> None:
-    from .model import train  # noqa: F401  (torch is imported only for training)
+    from .model import train  # noqa: F401
 
 
 # -- stages --------------------------------------------------------------------
@@ -415,8 +421,7 @@ def _training_set(sampled: list[np.ndarray], grids: list[Grid], W: int, C: int, 
     return scales, xs
 
 
-def _train(rec: Recording, xs: list[np.ndarray], W: int, K: int, emit, seconds: float, seed: int,
-           threads: int | None = None, cancel=None):
+def _train(rec: Recording, xs: list[np.ndarray], W: int, K: int, emit, seconds: float, seed: int, cancel=None):
     """The autoencoder, or None when the recording is too short for one (or no code is asked for)."""
     hidden, n_params = _decoder_size(rec, W, K)
     raw_bytes = sum(rec.n_samples * np.dtype(c.dtype).itemsize for c in rec.channels)
@@ -425,15 +430,16 @@ def _train(rec: Recording, xs: list[np.ndarray], W: int, K: int, emit, seconds: 
         why = "no code requested" if K == 0 else "recording too short for an autoencoder to pay for its weights"
         emit("train", 1, 1, f"{why}; using the sample-based predictors only")
         return None
-    from .model.train import TrainProgress, train_autoencoder  # torch is imported only here
+    from .model.train import TrainProgress, train_autoencoder
 
     def on_epoch(p: TrainProgress) -> None:
         emit("train", p.epoch, p.epochs, f"epoch {p.epoch}/{p.epochs}", loss=p.val_loss)
 
     X = np.concatenate(xs)
     emit("train", 0, 1, f"training on {len(X)} windows")
-    return train_autoencoder(X, K, hidden=hidden, time_limit_s=seconds, seed=seed, progress=on_epoch,
-                             cancel=emit if cancel is None else cancel, max_windows=TRAIN_WINDOWS, threads=threads)
+    # a work budget, not a time limit: the same model on any machine, however fast or busy
+    return train_autoencoder(X, K, hidden=hidden, work=seconds * TRAIN_WORK_PER_SECOND, seed=seed,
+                             progress=on_epoch, cancel=emit if cancel is None else cancel, max_windows=TRAIN_WINDOWS)
 
 
 def _model_account(model, plans: list[ChannelPlan], nwin: int, K: int) -> tuple[float, float]:

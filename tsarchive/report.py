@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from datetime import datetime, timezone
 
 from .results import PackResult, VerifyReport
 
@@ -35,10 +36,22 @@ def pack_table(res: PackResult) -> str:
         f"(checked by decoding the archive)"])
 
 
+def _written_utc(arc) -> str | None:
+    """When the archive was written: stored by archives of earlier versions, else its manifest's file time
+    (archives carry no clock reading, so that packing the same input twice gives the same bytes)."""
+    if arc.manifest.get("created_utc"):
+        return str(arc.manifest["created_utc"])
+    try:
+        t = (arc.path / "manifest.json").stat().st_mtime
+    except (OSError, TypeError):
+        return None
+    return datetime.fromtimestamp(t, timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
 def archive_dict(arc) -> dict:
     return {
         "archive": str(arc.path), "source": arc.manifest.get("source", {}),
-        "created_utc": arc.manifest.get("created_utc"), "tool_version": arc.manifest.get("tool_version"),
+        "created_utc": _written_utc(arc), "tool_version": arc.manifest.get("tool_version"),
         "format_version": arc.manifest.get("format_version"), "window": arc.window,
         "archive_bytes": arc.archive_bytes, "raw_bytes": arc.raw_bytes, "ratio": arc.ratio,
         "within_budget": all(c.worst_error <= c.eps for c in arc.channels),

@@ -2,9 +2,10 @@
 
 Importing this package never imports torch: it re-exports only the
 numpy-side pieces (the integer decoder that archives store, the sizing rule
-and the progress/report records).  Training lives in
-:mod:`tsarchive.model.train` and the torch int64 decoder in
-:mod:`tsarchive.model.torch_infer`; import those explicitly on the packing side.
+and the progress/report records).  Training (numpy, reproducible bit for bit
+through :mod:`tsarchive.model.exact`) lives in :mod:`tsarchive.model.train`;
+the torch int64 decoder in :mod:`tsarchive.model.torch_infer` is a second,
+independent path the tests compare with.
 """
 
 from tsarchive.model.intnet import FRAC_BITS, MODEL_ID, IntDecoder, IntLayer, quantize_decoder

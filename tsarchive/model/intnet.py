@@ -205,6 +205,17 @@ def _int_array(a: object, name: str, ndim: int) -> np.ndarray:
 
 
 # ------------------------------------------------------------ quantization
+def _floor_log2(x: float) -> int:
+    """floor(log2(x)) for x > 0, exactly (frexp does not round; math.log2 may be off by an ulp)."""
+    return math.frexp(x)[1] - 1
+
+
+def _ceil_log2(x: float) -> int:
+    """ceil(log2(x)) for x > 0, exactly."""
+    m, e = math.frexp(x)
+    return e - 1 if m == 0.5 else e
+
+
 def quantize_decoder(weights: list[tuple[np.ndarray, np.ndarray]], act_max: list[float], *,
                      code_max: int = 127, frac_bits: int = FRAC_BITS,
                      weight_bits: int = WEIGHT_BITS, act_bits: int = ACT_BITS) -> IntDecoder:
@@ -217,6 +228,7 @@ def quantize_decoder(weights: list[tuple[np.ndarray, np.ndarray]], act_max: list
     full ``weight_bits`` of their layer's largest magnitude, hidden
     activations are scaled so ``act_max`` maps to ``2**act_bits``, and the
     bias carries the half-step offset so every shift rounds to nearest.
+    Scales come from exact exponents (frexp), so the result repeats bit for bit.
     """
     if len(act_max) != len(weights) - 1:
         raise BadInput("act_max needs one value per hidden layer")
@@ -227,20 +239,20 @@ def quantize_decoder(weights: list[tuple[np.ndarray, np.ndarray]], act_max: list
         w = np.asarray(w, dtype=np.float64) / (code_max if i == 0 else 1.0)
         b = np.asarray(b, dtype=np.float64)
         peak = float(np.abs(w).max()) if w.size else 0.0
-        e = int(math.floor(math.log2(qmax / peak))) if peak > 0 else 0
+        e = _floor_log2(qmax / peak) if peak > 0 else 0
         bpeak = float(np.abs(b).max()) if b.size else 0.0
         if bpeak > 0:                            # keep the scaled bias well inside the exact range
-            e = min(e, int(math.floor(math.log2(2.0 ** (EXACT_BITS - 4) / bpeak))) - f_in)
+            e = min(e, _floor_log2(2.0 ** (EXACT_BITS - 4) / bpeak) - f_in)
         last = i == len(weights) - 1
         if last:
             f_out = frac_bits
         else:
             a = float(act_max[i])
-            f_out = act_bits - int(math.ceil(math.log2(a))) if a > 0 else act_bits
+            f_out = act_bits - _ceil_log2(a) if a > 0 else act_bits
             f_out = min(f_out, f_in + e)         # never a left shift on hidden layers
         s = f_in + e - f_out
-        wq = np.clip(np.rint(w * 2.0 ** e), -qmax, qmax).astype(np.int16)
-        bq = np.rint(b * 2.0 ** (f_in + e)).astype(np.int64) + (1 << (s - 1) if s > 0 else 0)
+        wq = np.clip(np.rint(w * math.ldexp(1.0, e)), -qmax, qmax).astype(np.int16)
+        bq = np.rint(b * math.ldexp(1.0, f_in + e)).astype(np.int64) + (1 << (s - 1) if s > 0 else 0)
         layers.append(IntLayer(weight=wq, bias=bq, shift=s))
         f_in = f_out
     return IntDecoder(layers=tuple(layers), frac_bits=frac_bits, code_max=code_max)

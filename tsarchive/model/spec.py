@@ -47,7 +47,7 @@ class TrainProgress:
     epochs: int         # the most epochs this run may take (max_epochs)
     loss: float         # mean training loss (MSE on normalised windows) of the epoch
     val_loss: float     # loss on the held-out split, codes rounded as when stored
-    elapsed_s: float    # wall-clock seconds since training started
+    elapsed_s: float    # wall-clock seconds since training started (shown, never used)
 
 
 @dataclass(frozen=True)
@@ -55,7 +55,7 @@ class TrainReport:
     """How a training run went (attached to the trained model)."""
 
     epochs_run: int
-    stopped_by: str        # "converged" | "time" | "max_epochs"
+    stopped_by: str        # "converged" | "work" (budget spent) | "max_epochs" | "diverged"
     best_epoch: int
     train_loss: float
     val_loss: float        # best held-out loss (the weights kept are from that epoch)

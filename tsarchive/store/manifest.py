@@ -35,6 +35,10 @@ def build_manifest(rec: Recording, spec, grids, scales, lpcs, tables, notes, W: 
                    model_note: str, summaries: list[dict], archive_bytes: int) -> dict:
     """Everything a reader needs besides the Parquet members (whose checksums the writer adds).
 
+    Nothing here depends on when or where packing ran (no clock, no host), so
+    the same source, settings and tool version give the same bytes; when an
+    archive was written is its files' modification time.
+
     ``tables`` (one :class:`tsarchive.codec.TableSet` per channel) are stored
     per channel as ``{"mode", "table", "coder", "freqs"}`` with ``freqs`` the
     integer frequency table's bytes in base64 (a few hundred bytes; a Parquet
@@ -64,7 +68,6 @@ def build_manifest(rec: Recording, spec, grids, scales, lpcs, tables, notes, W: 
         })
     return {
         "format": S.FORMAT_NAME, "format_version": S.FORMAT_VERSION, "tool_version": __version__,
-        "created_utc": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
         "source": {"name": src.name if src is not None else "", "bytes": int(src_bytes),
                    "sha256": checksum.file_sha256(src) if src is not None and src.is_file() else "",
                    "shape": list(rec.shape or rec.data.shape)},
