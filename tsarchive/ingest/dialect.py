@@ -1,0 +1,147 @@
+"""Find how a logger wrote its text file: encoding, delimiter, decimal mark, preamble, header.
+
+Loggers write CSV in many dialects.  :func:`detect` looks at the text and
+returns a :class:`Dialect`:
+
+* **encoding** -- a byte-order mark decides (UTF-8, UTF-16); otherwise
+  strict UTF-8 when the bytes decode as UTF-8, else Windows-1252 (the
+  encoding of most Western loggers' ``°C``), else Latin-1, which decodes
+  any byte;
+* **delimiter** -- tab, ``;`` or ``,``: the first of these that splits the
+  header and the data rows into the same number (at least two) of fields;
+  a single-column file has none;
+* **decimal mark** -- a comma when the delimiter is not a comma and number
+  cells are written like ``21,5``;
+* **preamble** -- every line before the header: ``#`` comments and a
+  station's or logger's metadata lines (their own shape);
+* **header** -- the last line before the first data row that has as many
+  fields as the data rows; a data row is a row of that width with a
+  number, date or time cell in it.
+"""
+
+from __future__ import annotations
+
+import csv
+import re
+from dataclasses import dataclass
+
+from ..errors import BadInput
+
+#: Candidate delimiters, in order of preference (a comma may be a decimal mark, so it comes last).
+DELIMITERS = ("\t", ";", ",")
+
+#: Lines looked at to find the header and the delimiter (the file is parsed fully later).
+PROBE_LINES = 400
+
+#: A cell that is a number, a date or a time: digits with signs, marks and separators only.
+_DATALIKE = re.compile(r"^[\s+-]*(\d[\d\s.,:/+\-eETZ]*|\.\d+|inf|nan)\s*$", re.IGNORECASE)
+_COMMA_NUMBER = re.compile(r"^\s*[+-]?\d*,\d+(?:[eE][+-]?\d+)?\s*$")
+_DOT_NUMBER = re.compile(r"^\s*[+-]?\d*\.\d+(?:[eE][+-]?\d+)?\s*$")
+
+
+@dataclass(frozen=True)
+class Dialect:
+    """What :func:`detect` found (``header_line`` counts from 0; ``preamble`` is the lines before it)."""
+
+    encoding: str
+    delimiter: str          # "" for a single-column file
+    decimal: str            # "." or ","
+    header_line: int
+    header: tuple[str, ...]
+    preamble: tuple[str, ...]
+
+    @property
+    def delimiter_name(self) -> str:
+        return {"\t": "tab", ";": "semicolon", ",": "comma", "": "none (one column)"}[self.delimiter]
+
+
+def decode(raw: bytes, name: str) -> tuple[str, str]:
+    """(text, encoding name) of a file's bytes; see the module docstring for the order tried."""
+    if raw.startswith(b"\xef\xbb\xbf"):
+        enc, body = "utf-8-sig", raw[3:]
+        try:
+            return body.decode("utf-8"), enc
+        except UnicodeDecodeError as exc:
+            raise BadInput(f"{name}: starts with a UTF-8 mark but byte {exc.start + 3} is not UTF-8; "
+                           "save the file again as UTF-8") from None
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        enc = "utf-16"
+        try:
+            return raw.decode("utf-16"), enc
+        except UnicodeDecodeError:
+            raise BadInput(f"{name}: starts with a UTF-16 mark but is not valid UTF-16; "
+                           "save the file again as UTF-8") from None
+    if b"\x00" in raw[:65536]:
+        raise BadInput(f"{name}: holds NUL bytes, so it is not a text table; check that this is the logger's CSV export")
+    try:
+        return raw.decode("utf-8"), "utf-8"
+    except UnicodeDecodeError:
+        pass
+    try:
+        return raw.decode("cp1252"), "cp1252"
+    except UnicodeDecodeError:
+        return raw.decode("latin-1"), "latin-1"
+
+
+def split_row(line: str, delimiter: str) -> list[str]:
+    """The fields of one line (quotes honoured as in RFC 4180)."""
+    if not delimiter:
+        return [line]
+    return next(csv.reader([line], delimiter=delimiter, quotechar='"'), [""])
+
+
+def _datalike(cells: list[str]) -> bool:
+    return any(c.strip() and _DATALIKE.match(c) for c in cells)
+
+
+def _find_header(lines: list[str], delimiter: str) -> tuple[int, int] | None:
+    """(header index, width) for ``delimiter``, or None when the lines do not fit it."""
+    rows = [split_row(ln, delimiter) if ln.strip() else None for ln in lines]
+    widths = [len(r) for r in rows if r is not None]
+    if not widths:
+        return None
+    tail = widths[len(widths) // 2:]
+    width = max(set(tail), key=tail.count)
+    if delimiter and width < 2:
+        return None
+    for i, row in enumerate(rows):
+        if row is None or len(row) != width or lines[i].lstrip().startswith("#"):
+            continue
+        nxt = next((r for r in rows[i + 1:] if r is not None), None)
+        if nxt is not None and len(nxt) == width and _datalike(nxt) and not all(
+                _DATALIKE.match(c) for c in row if c.strip()):
+            return i, width
+    return None
+
+
+def detect(text: str, name: str, encoding: str) -> Dialect:
+    """The :class:`Dialect` of ``text`` (see the module docstring); BadInput when no header is found."""
+    lines = text.splitlines()[:PROBE_LINES]
+    if not any(ln.strip() for ln in lines):
+        raise BadInput(f"{name}: file is empty; it needs a header row and data rows")
+    for delimiter in DELIMITERS + ("",):
+        found = _find_header(lines, delimiter)
+        if found is None:
+            continue
+        h, _ = found
+        header = tuple(c.strip() for c in split_row(lines[h], delimiter))
+        data = [split_row(ln, delimiter) for ln in lines[h + 1:] if ln.strip()]
+        return Dialect(encoding=encoding, delimiter=delimiter, decimal=_decimal(data, delimiter),
+                       header_line=h, header=header, preamble=tuple(lines[:h]))
+    if not any(_datalike(split_row(ln, d)) for ln in lines for d in DELIMITERS):
+        raise BadInput(f"{name}: no data rows found (no cell holds a number or a time); "
+                       "check that this is the logger's data export")
+    raise BadInput(f"{name}: no header row found above the data (a line naming every column, "
+                   "as many fields as the rows below it); add one")
+
+
+def _decimal(rows: list[list[str]], delimiter: str) -> str:
+    """``","`` when number cells are written with a decimal comma (never with a comma delimiter)."""
+    if delimiter == ",":
+        return "."
+    comma = dot = 0
+    for row in rows:
+        for c in row:
+            comma += bool(_COMMA_NUMBER.match(c))
+            dot += bool(_DOT_NUMBER.match(c))
+    return "," if comma > dot else "."
