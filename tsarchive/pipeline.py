@@ -68,7 +68,7 @@ PROBE_EVAL_SAMPLES = 1 << 18  # per channel: the probe's saving is estimated on 
 
 def pack(source, archive, budget=None, *, rate: float | None = None, window: int | None = None,
          code_size: int | None = None, force: bool = False, progress: ProgressFn = None, cancel=None,
-         train_seconds: float = 60.0, seed: int = 0) -> PackResult:
+         train_seconds: float = 60.0, seed: int = 0, read_options=None) -> PackResult:
     """Pack ``source`` (a path or a :class:`Recording`) into the archive directory ``archive``.
 
     Every sample of the archive is within its channel's budget; the archive
@@ -85,13 +85,14 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     model's own bytes.  ``window=None`` picks the window length of
     ``WINDOW_CHOICES`` that a planned and coded sample says is smallest
     (``DEFAULT_WINDOW`` when a code size > 0 is given: codes are asked for to
-    browse by them, in the finer segments).
+    browse by them, in the finer segments).  ``read_options``
+    (:class:`~tsarchive.ingest.ReadOptions`) says how to read a source path.
     """
     t0 = time.perf_counter()
     emit = _emitter(progress, cancel)
     archive = Path(archive)
     emit("read", 0, 1, "reading source")
-    rec = source if isinstance(source, Recording) else read_recording(source, rate=rate)
+    rec = source if isinstance(source, Recording) else read_recording(source, rate=rate, options=read_options)
     check_target(archive, force)
     names = [c.name for c in rec.channels]
     spec = parse_budget_spec(budget)

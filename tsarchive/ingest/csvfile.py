@@ -44,7 +44,8 @@ def read_csv_detailed(path: Path, options: ReadOptions) -> Detected:
     cols = _split(body, headers, d.delimiter, path.name) if body.strip() else [pa.chunked_array([[]], pa.string())
                                                                                for _ in headers]
     headers, cols = _drop_unnamed(headers, cols, path.name)
-    det = build_recording(path, headers, cols, options, text_source=True, decimal=d.decimal, notes=d.preamble)
+    notes = tuple(ln for ln in d.preamble if ln.strip())   # blank lines carry nothing
+    det = build_recording(path, headers, cols, options, text_source=True, decimal=d.decimal, notes=notes)
     return Detected(recording=det.recording, columns=det.columns, timing=det.timing, time_form=det.time_form,
                     time_notes=det.time_notes, encoding=encoding, delimiter=d.delimiter_name,
                     decimal=d.decimal, preamble=d.preamble)

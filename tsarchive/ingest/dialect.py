@@ -14,9 +14,9 @@ returns a :class:`Dialect`:
   cells are written like ``21,5``;
 * **preamble** -- every line before the header: ``#`` comments and a
   station's or logger's metadata lines (their own shape);
-* **header** -- the last line before the first data row that has as many
-  fields as the data rows; a data row is a row of that width with a
-  number, date or time cell in it.
+* **header** -- the first line, not a ``#`` comment, that has as many
+  fields as the data rows and is followed by :data:`FOLLOW` data rows; a
+  data row is a row of that width with a number, date or time cell in it.
 """
 
 from __future__ import annotations
@@ -32,6 +32,9 @@ DELIMITERS = ("\t", ";", ",")
 
 #: Lines looked at to find the header and the delimiter (the file is parsed fully later).
 PROBE_LINES = 400
+
+#: The header must be followed by this many data rows (fewer in a shorter file).
+FOLLOW = 3
 
 #: A cell that is a number, a date or a time: digits with signs, marks and separators only.
 _DATALIKE = re.compile(r"^[\s+-]*(\d[\d\s.,:/+\-eETZ]*|\.\d+|inf|nan)\s*$", re.IGNORECASE)
@@ -107,8 +110,8 @@ def _find_header(lines: list[str], delimiter: str) -> tuple[int, int] | None:
     for i, row in enumerate(rows):
         if row is None or len(row) != width or lines[i].lstrip().startswith("#"):
             continue
-        nxt = next((r for r in rows[i + 1:] if r is not None), None)
-        if nxt is not None and len(nxt) == width and _datalike(nxt) and not all(
+        below = [r for r in rows[i + 1:i + 1 + 2 * FOLLOW] if r is not None][:FOLLOW]
+        if below and all(len(r) == width and _datalike(r) for r in below) and not all(
                 _DATALIKE.match(c) for c in row if c.strip()):
             return i, width
     return None

@@ -162,10 +162,11 @@ def build_recording(path: Path, headers: list[str], cols: list[pa.ChunkedArray],
     found, time_idx = _find_time(headers, cols, opts)
     reports: dict[int, ColumnReport] = {}
     timing = None
+    dropped = None      # with without_time, the time column is left out; only its first time (the start) is kept
     if found is not None and opts.without_time:
         for j in time_idx:
             reports[j] = ColumnReport(headers[j], "skipped")
-        found = None
+        found, dropped = None, found
     rate = opts.rate
     if found is not None:
         timing = timing_of(found.axis, "+".join(found.axis.columns))
@@ -211,7 +212,7 @@ def build_recording(path: Path, headers: list[str], cols: list[pa.ChunkedArray],
     if found is not None and any(t.startswith("offsets change") for t in found.notes):
         for j in time_idx:   # the offsets as logged are kept beside the UTC instants
             extra.setdefault(headers[j], as_text(headers[j], cols[j], empty_is_null=False))
-    start = _start(axis)
+    start = _start(axis if dropped is None else dropped.axis)
     check_span(start, n, rate)
     table = pa.table(extra) if extra else None
     rec = Recording.from_columns(arrays, rate=float(rate), channels=channels, start=start, source=path,

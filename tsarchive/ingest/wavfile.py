@@ -3,7 +3,8 @@
 The chunk layout follows Microsoft's "Multimedia Programming Interface and
 Data Specifications 1.0" (1991; ``fmt `` and ``data`` chunks, chunks
 padded to even sizes) and the WAVE_FORMAT_EXTENSIBLE header (format tag
-0xFFFE, the sub-format GUID's first two bytes give the real tag).  Samples
+0xFFFE, the low 16 bits of the sub-format GUID's first field give the
+real tag).  Samples
 keep their values:
 
 * 8-bit PCM is unsigned (``uint8``, 128 = silence), as the spec says;
@@ -72,8 +73,8 @@ def read_wav(path: Path, options: ReadOptions) -> Recording:
     if data is None:
         raise BadInput(f"{path.name}: has no 'data' chunk; the WAV file holds no samples")
     tag, nch, rate, _, align, bits = struct.unpack(end + "HHIIHH", fmt[:16])
-    if tag == EXTENSIBLE and len(fmt) >= 26:
-        (tag,) = struct.unpack(end + "H", fmt[24:26])
+    if tag == EXTENSIBLE and len(fmt) >= 28:   # the GUID's first field (32 bits, file byte order) holds the tag
+        tag = struct.unpack(end + "I", fmt[24:28])[0] & 0xFFFF
     dtype = _dtype(tag, bits, nch, align, end, path.name)
     if rate <= 0:
         raise BadInput(f"{path.name}: the header's sample rate is 0; the WAV header is damaged")

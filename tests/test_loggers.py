@@ -1,0 +1,252 @@
+"""Logger files as loggers write them: encodings, delimiters, decimal commas, preambles, time forms, text columns.
+
+Every fixture is written byte for byte by the test itself.  Expected times are
+computed with the standard library's datetime arithmetic (proleptic Gregorian
+calendar, Python docs "datetime"), independently of tsarchive's integer date code.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime, timedelta, timezone
+
+import numpy as np
+import pytest
+
+from tsarchive.cli import main
+from tsarchive.errors import BadInput
+from tsarchive.ingest import ReadOptions, read_recording
+from tsarchive.ingest.survey import survey_source
+
+_EPOCH = datetime(1970, 1, 1)
+
+
+def ns(dt: datetime) -> int:
+    """Nanoseconds since 1970-01-01 by stdlib datetime arithmetic (aware -> the UTC instant)."""
+    if dt.tzinfo is not None:
+        dt = dt.astimezone(timezone.utc).replace(tzinfo=None)
+    return (dt - _EPOCH) // timedelta(microseconds=1) * 1000
+
+
+def write(tmp_path, name: str, data: bytes):
+    p = tmp_path / name
+    p.write_bytes(data)
+    return p
+
+
+# --- encodings -----------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("encoding,prefix", [("utf-8", b""), ("utf-8", b"\xef\xbb\xbf"), ("cp1252", b""),
+                                             ("utf-16", b"")])
+def test_encodings_keep_the_degree_sign(tmp_path, encoding, prefix):
+    # A cp1252 header with "°C" used to end in a UnicodeDecodeError traceback (exit 1).
+    text = "time,Temp [°C],Druck [hPa]\n0,21.5,1013.2\n1,21.6,1013.1\n"
+    p = write(tmp_path, "t.csv", prefix + text.encode(encoding))   # Python's codecs write the reference bytes
+    rec = read_recording(p)
+    assert [(c.name, c.unit) for c in rec.channels] == [("Temp", "°C"), ("Druck", "hPa")]
+    assert rec.data.tolist() == [[21.5, 1013.2], [21.6, 1013.1]]
+    assert main(["pack", str(p), "--dry-run"]) == 0
+
+
+def test_latin1_bytes_that_cp1252_leaves_undefined(tmp_path):
+    # 0x81 is undefined in Windows-1252 (Microsoft's code page table) but is a control character in Latin-1.
+    p = write(tmp_path, "l.csv", b"time,Temp [\xb0C]\x81\n0,1.5\n1,2.5\n")
+    rec = read_recording(p)
+    assert rec.channels[0].unit == "°C" or rec.channels[0].name.startswith("Temp")
+    assert survey_source(p).encoding == "latin-1"
+
+
+# --- delimiters, decimal comma, preambles -----------------------------------------------------------
+
+@pytest.mark.parametrize("sep", [",", ";", "\t"])
+def test_delimiters_are_detected(tmp_path, sep):
+    rows = [sep.join(["time", "a [V]", "b [A]"])] + [sep.join([str(i), f"{i * 0.5:.1f}", str(-i)]) for i in range(5)]
+    p = write(tmp_path, "d.csv", ("\n".join(rows) + "\n").encode())
+    rec = read_recording(p)
+    assert rec.rate == 1.0 and rec.data[:, 0].tolist() == [0.0, 0.5, 1.0, 1.5, 2.0]
+    assert rec.data[:, 1].tolist() == [0, -1, -2, -3, -4]
+
+
+def test_decimal_comma_with_semicolons(tmp_path):
+    p = write(tmp_path, "c.csv", b"t;x [mV];y\r\n0;1,25;-3,5\r\n1;2,5;1e3\r\n2;-0,125;7\r\n")
+    rec = read_recording(p)
+    # Reference: the same numbers written with a decimal point, parsed by Python's float() (correctly rounded).
+    assert rec.column(0).tolist() == [float("1.25"), float("2.5"), float("-0.125")]
+    assert rec.column(1).tolist() == [-3.5, 1000.0, 7.0]
+    s = survey_source(p)
+    assert (s.delimiter, s.decimal) == ("semicolon", ",")
+
+
+def test_hash_preamble_and_station_lines_become_notes(tmp_path):
+    text = ("# exported by a logger\n#   operator: A. Smith\nStation,North hall\nSerial,4711\n\n"
+            "time,temp [degC]\n0,20.0\n1,20.5\n")
+    rec = read_recording(write(tmp_path, "p.csv", text.encode()))
+    assert rec.notes == ("# exported by a logger", "#   operator: A. Smith", "Station,North hall", "Serial,4711")
+    assert rec.column(0).tolist() == [20.0, 20.5]
+
+
+# --- time columns --------------------------------------------------------------------------------
+
+def test_naive_iso_stays_naive_and_a_stated_zone_applies(tmp_path):
+    # "2024-03-05 14:00:00" used to be taken as UTC.
+    p = write(tmp_path, "n.csv", b"Timestamp,x\n2024-03-05 14:00:00,1\n2024-03-05 14:00:01,2\n")
+    rec = read_recording(p)
+    assert rec.time.zone is None and rec.start == datetime(2024, 3, 5, 14) and rec.start.tzinfo is None
+    assert rec.time.values.tolist() == [ns(datetime(2024, 3, 5, 14)), ns(datetime(2024, 3, 5, 14, 0, 1))]
+    rec = read_recording(p, options=ReadOptions.build(zone="+01:00"))
+    plus1 = timezone(timedelta(hours=1))
+    assert rec.time.zone == "+01:00" and rec.start == datetime(2024, 3, 5, 14, tzinfo=plus1)
+    assert rec.time.values[0] == ns(datetime(2024, 3, 5, 14, tzinfo=plus1))
+
+
+def test_iso_offsets_are_kept_as_logged(tmp_path):
+    p = write(tmp_path, "o.csv", b"time,x\n2024-03-05T14:00:00.250+01:00,1\n2024-03-05T14:00:00.750+01:00,2\n")
+    rec = read_recording(p)
+    t0 = datetime(2024, 3, 5, 14, 0, 0, 250000, tzinfo=timezone(timedelta(hours=1)))
+    assert rec.time.zone == "+01:00" and rec.time.values[0] == ns(t0) and rec.rate == 2.0
+    assert rec.start == t0 and rec.start.utcoffset() == timedelta(hours=1)
+
+
+def test_day_month_year_with_dots(tmp_path):
+    p = write(tmp_path, "g.csv", "Zeit;T\n31.12.2023 23:59:59;1\n01.01.2024 00:00:00;2\n".encode())
+    rec = read_recording(p)
+    assert rec.time.values.tolist() == [ns(datetime(2023, 12, 31, 23, 59, 59)), ns(datetime(2024, 1, 1))]
+
+
+def test_us_month_day_year(tmp_path):
+    p = write(tmp_path, "u.csv", b"Date Time,T\n02/28/2024 23:59:59,1\n02/29/2024 00:00:00,2\n")
+    rec = read_recording(p)
+    assert rec.time.values.tolist() == [ns(datetime(2024, 2, 28, 23, 59, 59)), ns(datetime(2024, 2, 29))]
+
+
+def test_slash_dates_with_a_first_field_above_12_are_day_first(tmp_path):
+    p = write(tmp_path, "e.csv", b"time,T\n12/03/2024 10:00:00,1\n13/03/2024 10:00:00,2\n")
+    rec = read_recording(p)
+    assert rec.time.values.tolist() == [ns(datetime(2024, 3, 12, 10)), ns(datetime(2024, 3, 13, 10))]
+
+
+def test_date_and_time_columns_with_end_of_day_2400(tmp_path):
+    # ISO 8601 (clause 4.2.3 in the 2004 edition): 24:00 is the end of a day, the same instant as 00:00 of the next.
+    text = "Date;Time;v\n2024-02-29;23:59:58;1\n2024-02-29;23:59:59;2\n2024-02-29;24:00;3\n2024-03-01;00:00:01;4\n"
+    rec = read_recording(write(tmp_path, "dt.csv", text.encode()))
+    base = datetime(2024, 2, 29, 23, 59, 58)
+    assert rec.time.values.tolist() == [ns(base + timedelta(seconds=k)) for k in range(4)]
+    assert rec.time.columns == ("Date", "Time") and rec.rate == 1.0
+
+
+def test_epoch_and_elapsed_seconds(tmp_path):
+    p = write(tmp_path, "ep.csv", b"epoch,x\n1709647200.5,1\n1709647201.5,2\n")
+    rec = read_recording(p)
+    assert rec.time.kind == "seconds" and rec.time.values.tolist() == [1709647200.5, 1709647201.5]
+    # Reference: POSIX time counts seconds since 1970-01-01T00:00Z; stdlib datetime arithmetic.
+    assert rec.start == datetime(1970, 1, 1, tzinfo=timezone.utc) + timedelta(seconds=1709647200.5)
+    p = write(tmp_path, "el.csv", b"Elapsed (s),x [V]\n0.000,1\n0.125,2\n0.250,3\n")
+    rec = read_recording(p)
+    assert rec.time.kind == "seconds" and rec.time.zone is None and rec.start is None
+    assert rec.time.values.tolist() == [0.0, 0.125, 0.25] and rec.rate == 8.0 and rec.channels[0].unit == "V"
+
+
+def test_a_gap_is_kept_and_the_rate_is_nominal(tmp_path):
+    # A 1 Hz file with a 60-row gap, packed with --rate 1, used to unpack every later sample 60 s early.
+    t0 = datetime(2024, 3, 5, 14)
+    stamps = [t0 + timedelta(seconds=k) for k in range(100)] + [t0 + timedelta(seconds=160 + k) for k in range(100)]
+    text = "time,x\n" + "".join(f"{s.isoformat()},{i}\n" for i, s in enumerate(stamps))
+    p = write(tmp_path, "gap.csv", text.encode())
+    for rate in (None, 1.0):
+        rec = read_recording(p, rate=rate)
+        assert rec.rate == 1.0 and rec.time.values.tolist() == [ns(s) for s in stamps]
+    timing = survey_source(p).timing
+    assert "1 gap(s), the largest 61 s" in timing
+
+
+def test_jitter_and_a_clock_set_back_are_accepted(tmp_path):
+    steps_ms = [1000, 1003, 997, 1000, -3000, 1000, 1000]
+    t, lines = 0, []
+    for k, s in enumerate([0] + steps_ms):
+        t += s
+        lines.append(f"{(datetime(2024, 1, 1) + timedelta(milliseconds=t)).isoformat(timespec='milliseconds')},{k}")
+    rec = read_recording(write(tmp_path, "j.csv", ("time,x\n" + "\n".join(lines) + "\n").encode()))
+    assert np.diff(rec.time.values).tolist() == [s * 1_000_000 for s in steps_ms] and rec.rate == 1.0
+    assert "1 step(s) back in time" in survey_source(tmp_path / "j.csv").timing
+
+
+def test_rate_beside_a_time_column_must_agree_and_without_time_is_explicit(tmp_path):
+    p = write(tmp_path, "r.csv", b"time,x\n2024-01-01T00:00:00,1\n2024-01-01T00:00:01,2\n2024-01-01T00:00:02,3\n")
+    with pytest.raises(BadInput, match="disagrees") as err:
+        read_recording(p, rate=10)
+    assert "--without-time" not in str(err.value)     # never advise the option that throws time away
+    rec = read_recording(p, rate=10, options=ReadOptions(without_time=True))
+    assert rec.time is None and rec.rate == 10.0 and rec.start == datetime(2024, 1, 1)
+    with pytest.raises(BadInput, match="--rate"):
+        read_recording(p, options=ReadOptions(without_time=True))
+
+
+def test_absurd_rates_are_refused(tmp_path):
+    p = write(tmp_path, "z.csv", b"time,x\n2024-01-01T00:00:00,1\n2024-01-01T00:00:01,2\n2024-01-01T00:00:02,3\n")
+    with pytest.raises(BadInput, match="after 2300"):    # 3 samples at 1e-10 Hz: 317 years apart each
+        read_recording(p, rate=1e-10, options=ReadOptions(without_time=True))
+    with pytest.raises(BadInput, match="share a nanosecond"):
+        read_recording(p, rate=1e12, options=ReadOptions(without_time=True))
+    with pytest.raises(BadInput, match="does not advance"):   # duplicate timestamps: no rate at all
+        read_recording(write(tmp_path, "dup.csv", b"time,x\n2024-01-01T00:00:00,1\n2024-01-01T00:00:00,2\n"
+                                                   b"2024-01-01T00:00:00,3\n"))
+
+
+def test_no_time_column_needs_a_rate(tmp_path):
+    p = write(tmp_path, "nt.csv", b"a,b\n1,2\n3,4\n")
+    with pytest.raises(BadInput, match="--rate"):
+        read_recording(p)
+    assert read_recording(p, rate=5).time is None
+
+
+# --- text columns and missing values --------------------------------------------------------------
+
+def test_status_and_note_columns_are_kept_as_text(tmp_path):
+    text = 'time,temp,status,note\n0,1.5,OK,\n1,NA,ALARM,"door, open"\n2,2.5,OK,NA\n'
+    p = write(tmp_path, "s.csv", text.encode())
+    rec = read_recording(p)
+    assert [c.name for c in rec.channels] == ["temp"] and np.isnan(rec.column(0)[1])
+    assert rec.extra.column("status").to_pylist() == ["OK", "ALARM", "OK"]
+    assert rec.extra.column("note").to_pylist() == [None, "door, open", "NA"]   # text kept as written
+    rec = read_recording(p, options=ReadOptions(skip_text=True))
+    assert rec.extra is None and rec.n_samples == 3
+
+
+def test_missing_tokens_and_sentinels(tmp_path):
+    text = "time,a,b\n0,1.5,-9999\n1,ERR,2\n2,,-9999.0\n3,NaN,4\n"
+    p = write(tmp_path, "m.csv", text.encode())
+    rec = read_recording(p)                 # ERR is not a known token: column a is text
+    assert [c.name for c in rec.channels] == ["b"] and rec.extra.column("a").to_pylist()[1] == "ERR"
+    rec = read_recording(p, options=ReadOptions.build(missing="ERR,-9999"))
+    a, b = rec.column(0), rec.column(1)
+    assert a[0] == 1.5 and np.isnan(a[1:]).tolist() == [True, True, True]
+    assert b.tolist() == [-9999.0, 2.0, -9999.0, 4.0]              # sentinels are kept as logged
+    assert [c.sentinels for c in rec.channels] == [(-9999.0,), (-9999.0,)]
+    cols = {c.header: c for c in survey_source(p, options=ReadOptions.build(missing="ERR,-9999")).columns}
+    assert cols["a"].missing == 3 and set(cols["a"].tokens) == {"", "ERR", "NaN"} and cols["b"].sentinels == 2
+
+
+# --- .npy names and units, dry run -----------------------------------------------------------------
+
+def test_npy_names_and_units_from_the_command_line(tmp_path):
+    p = tmp_path / "x.npy"
+    np.save(p, np.zeros((10, 2), dtype=np.float32))
+    rec = read_recording(p, rate=100, options=ReadOptions.build(names="strain, load", units="ue,kN"))
+    assert [(c.name, c.unit) for c in rec.channels] == [("strain", "ue"), ("load", "kN")]
+    with pytest.raises(BadInput, match="2 column"):
+        read_recording(p, rate=100, options=ReadOptions.build(names="strain"))
+    out = tmp_path / "x.tsa"
+    assert main(["pack", str(p), "-o", str(out), "--rate", "100", "--names", "strain,load", "--units", "ue,kN",
+                 "--code-size", "0"]) == 0
+    from tsarchive import open as open_archive
+    assert [(c.name, c.unit) for c in open_archive(out).channels] == [("strain", "ue"), ("load", "kN")]
+
+
+def test_dry_run_reports_and_writes_nothing(tmp_path, capsys):
+    text = "# logger 7\ntime;temp [°C];status\n2024-01-01 00:00:00;21,5;OK\n2024-01-01 00:00:01;NA;OK\n"
+    p = write(tmp_path, "dry.csv", text.encode("cp1252"))
+    before = sorted(tmp_path.iterdir())
+    assert main(["pack", str(p), "--dry-run", "-o", str(tmp_path / "out.tsa")]) == 0
+    out = capsys.readouterr().out
+    assert sorted(tmp_path.iterdir()) == before
+    for word in ("cp1252", "semicolon", "comma", "1 line(s)", "# logger 7", "°C", "text", "regular, 1 Hz", "'NA'"):
+        assert word in out, word
