@@ -15,8 +15,9 @@ returns a :class:`Dialect`:
 * **preamble** -- every line before the header: ``#`` comments and a
   station's or logger's metadata lines (their own shape);
 * **header** -- the first line, not a ``#`` comment, that has as many
-  fields as the data rows and is followed by :data:`FOLLOW` data rows; a
-  data row is a row of that width with a number, date or time cell in it.
+  fields as the data rows, is followed by a data row, and whose next
+  :data:`FOLLOW` rows of that width are all data rows; a data row is a
+  row with a number, date or time cell in it.
 """
 
 from __future__ import annotations
@@ -110,8 +111,10 @@ def _find_header(lines: list[str], delimiter: str) -> tuple[int, int] | None:
     for i, row in enumerate(rows):
         if row is None or len(row) != width or lines[i].lstrip().startswith("#"):
             continue
+        # the rows of this width below it (a ragged row is the parser's to report) must all be data rows
         below = [r for r in rows[i + 1:i + 1 + 2 * FOLLOW] if r is not None][:FOLLOW]
-        if below and all(len(r) == width and _datalike(r) for r in below) and not all(
+        fitting = [r for r in below if len(r) == width]
+        if below and len(below[0]) == width and all(_datalike(r) for r in fitting) and not all(
                 _DATALIKE.match(c) for c in row if c.strip()):
             return i, width
     return None

@@ -123,7 +123,7 @@ def _try_time(headers, cols, j: int, opts: ReadOptions) -> tuple[TimeFound, int]
 def _seconds(header: str, values: np.ndarray) -> TimeFound:
     if not np.all(np.isfinite(values)):
         i = int(np.argmin(np.isfinite(values)))
-        raise BadInput(f"time column '{header}' row {i + 1} is {values[i]!r}; fill in every time")
+        raise BadInput(f"time column '{header}' row {i + 1} is {float(values[i])!r}; fill in every time")
     return parse_seconds(values, header)
 
 

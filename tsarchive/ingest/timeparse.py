@@ -205,7 +205,7 @@ def parse_seconds(values: np.ndarray, header: str) -> TimeFound:
         ok = (values >= lo[0] * 86400.0) & (values < hi[0] * 86400.0)
         if not ok.all():
             i = _first_bad(ok)
-            raise BadInput(f"time column '{header}' row {i + 1}: {values[i]!r} s since 1970 is outside "
+            raise BadInput(f"time column '{header}' row {i + 1}: {float(values[i])!r} s since 1970 is outside "
                            f"{YEAR_MIN}..{YEAR_MAX}; check that it holds seconds, not milliseconds")
     return TimeFound(TimeAxis("seconds", np.asarray(values, dtype=np.float64), zone="Z" if epoch else None,
                               columns=(header,)), "seconds since 1970 (UTC)" if epoch else "elapsed seconds")
