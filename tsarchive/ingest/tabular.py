@@ -92,9 +92,10 @@ def _try_time(headers, cols, j: int, opts: ReadOptions) -> tuple[TimeFound, int]
     named = is_time_name(header)
     if _is_text(col):
         s = _strings(col)
-        if s.null_count or any(not v.strip() for v in s.unique().to_pylist()):
+        blank = pc.fill_null(pc.equal(pc.utf8_trim_whitespace(s), ""), True)
+        if pc.any(blank).as_py():
             if named:
-                first = next(i for i, v in enumerate(s.to_pylist()) if v is None or not v.strip())
+                first = int(np.argmax(blank.to_numpy(zero_copy_only=False)))
                 raise BadInput(f"time column '{header}' row {first + 1} is empty; fill in every time")
             return None
         if j + 1 < len(cols) and _is_text(cols[j + 1]) and (normal_name(header) in DATE_NAMES or named):

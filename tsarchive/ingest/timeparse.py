@@ -90,9 +90,11 @@ def _days_in_month(y: np.ndarray, m: np.ndarray) -> np.ndarray:
 
 def _groups(strings: pa.Array, pattern: re.Pattern) -> dict[str, np.ndarray] | None:
     """Named groups of ``pattern`` for every string (int64, 0 where absent), or None if one does not match."""
-    if not pc.all(pc.match_substring_regex(strings, pattern.pattern)).as_py():
+    if not pc.match_substring_regex(strings[:64], pattern.pattern).to_numpy(zero_copy_only=False).all():
+        return None     # a cheap look at the head first: most forms fail there
+    st = pc.extract_regex(strings, pattern.pattern)   # null where a string does not match
+    if st.null_count:
         return None
-    st = pc.extract_regex(strings, pattern.pattern)
     out = {}
     for name in pattern.groupindex:
         col = st.field(name)
@@ -133,22 +135,24 @@ def _clock_ns(g: dict[str, np.ndarray], header: str, raw: pa.Array) -> np.ndarra
 def _zone(g, header: str, stated: str | None) -> tuple[np.ndarray, str | None, tuple[str, ...]]:
     """(offset seconds per row, zone of the axis, notes) from the ``z`` group and the user's zone."""
     z = g.get("z")
-    texts = [] if z is None else z.to_pylist()
-    logged = {t for t in texts}
-    if not texts or logged == {""}:
+    coded = None if z is None else z.dictionary_encode()   # few distinct offsets: parse each once
+    logged = set() if coded is None else set(coded.dictionary.to_pylist())
+    if not logged or logged == {""}:
         if stated is None:
             return np.zeros(0, dtype=np.int64), None, ("naive (no zone logged; kept as the wall clock)",)
         return np.full(1, zone_seconds(stated), dtype=np.int64), stated, (f"zone {stated} (stated)",)
     if "" in logged:
         raise BadInput(f"time column '{header}': some times carry an offset and some do not; "
                        "make them all the same")
-    zones = [parse_zone(t) for t in texts]
-    offsets = np.array([zone_seconds(zz) for zz in zones], dtype=np.int64)
-    notes = (f"zone {zones[0]} (logged)",)
-    if len(set(zones)) > 1:
-        notes = (f"offsets change within the file ({', '.join(sorted(set(zones)))}); held as UTC instants, "
-                 f"zone {zones[0]} from the first row, the logged text kept beside",)
-    return offsets, zones[0], notes
+    kinds = [parse_zone(t) for t in coded.dictionary.to_pylist()]
+    index = coded.indices.to_numpy(zero_copy_only=False)
+    offsets = np.array([zone_seconds(k) for k in kinds], dtype=np.int64)[index]
+    first = kinds[int(index[0])]
+    notes = (f"zone {first} (logged)",)
+    if len(set(kinds)) > 1:
+        notes = (f"offsets change within the file ({', '.join(sorted(set(kinds)))}); held as UTC instants, "
+                 f"zone {first} from the first row, the logged text kept beside",)
+    return offsets, first, notes
 
 
 def parse_datetimes(strings: pa.Array, header: str, stated_zone: str | None) -> TimeFound | None:
