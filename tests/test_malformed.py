@@ -144,3 +144,27 @@ def test_folder_and_missing_sources(tmp_path, capsys):
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 2 and "folder" in err[0] and "no such file" in err[1]
     assert sorted(p.name for p in tmp_path.iterdir()) == ["dir.csv"]
+
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+from tsarchive.errors import BadInput  # noqa: E402
+from tsarchive.ingest import read_recording  # noqa: E402
+
+# Pieces loggers' files are made of; any text of them is either read or refused with BadInput, never a crash.
+_PIECES = ["0", "1", "25", "9", ".", ",", ";", "\t", "\n", "\r\n", "-", ":", "T", "Z", "+01:00", " ", "NA", '"', "#",
+           "2024-01-01", "05.03.2024", "03/05/2024", "12:00:00", "24:00", "°", "[V]", "(s)", "time", "Date", "Time",
+           "Elapsed (s)", "epoch", "nan", "inf", "OK", "-9999"]
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.lists(st.sampled_from(_PIECES), max_size=60), st.booleans(), st.sampled_from(["utf-8", "cp1252"]))
+def test_any_logger_like_text_is_read_or_refused_with_bad_input(tmp_path_factory, pieces, with_rate, encoding):
+    p = tmp_path_factory.mktemp("fz") / "f.csv"
+    p.write_bytes("".join(pieces).encode(encoding))
+    try:
+        rec = read_recording(p, rate=1.0 if with_rate else None)
+    except BadInput:
+        return
+    assert rec.n_samples >= 1 and rec.data.shape[1] == len(rec.channels) >= 1
