@@ -191,6 +191,14 @@ def test_absurd_rates_are_refused(tmp_path):
                                                    b"2024-01-01T00:00:00,3\n"))
 
 
+def test_a_single_row_keeps_its_time_with_a_given_rate(tmp_path):
+    p = write(tmp_path, "one.csv", b"time,x\n2024-01-01T00:00:00Z,1.5\n")
+    with pytest.raises(BadInput, match="single row"):
+        read_recording(p)
+    rec = read_recording(p, rate=2)
+    assert rec.rate == 2.0 and rec.time.values.tolist() == [ns(datetime(2024, 1, 1))] and rec.time.zone == "Z"
+
+
 def test_no_time_column_needs_a_rate(tmp_path):
     p = write(tmp_path, "nt.csv", b"a,b\n1,2\n3,4\n")
     with pytest.raises(BadInput, match="--rate"):

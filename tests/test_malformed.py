@@ -71,7 +71,7 @@ CATALOGUE = [
     ("mixed_zones.csv", b"time,x\n2024-01-01T00:00:00Z,1\n2024-01-01T00:00:01,2\n2024-01-01T00:00:02Z,3\n", [],
      "offset"),
     ("one_row.csv", b"time,x\n2024-01-01T00:00:00,1\n", [], "single row"),
-    ("one_row_rate.csv", b"time,x\n2024-01-01T00:00:00,1\n", ["--rate", "1"], "two rows"),
+    ("quoted_open.csv", b'time,x\n0,1\n1,"2\n2,3\n3,4\n', [], "row"),
     ("same_time.csv", b"time,x\n2024-01-01T00:00:00,1\n2024-01-01T00:00:00,2\n2024-01-01T00:00:00,3\n", [],
      "does not advance"),
     ("backwards.csv", b"time,x\n3,1\n2,2\n1,3\n0,4\n", [], "does not advance"),

@@ -128,7 +128,8 @@ def _pack(args) -> int:
         print(json.dumps(survey.to_dict(), indent=1) if args.json else survey.to_text())
         return 0
     if not args.output:
-        raise BadInput("pack needs -o ARCHIVE (the archive folder to write), or --dry-run to only look at the source")
+        raise BadInput("pack: -o ARCHIVE is required (the archive folder to write); or pass --dry-run to only "
+                       "look at the source")
     res = pack(args.source, args.output, args.budget, rate=args.rate, window=args.window,
                code_size=args.code_size, force=args.force, read_options=options)
     if args.json:

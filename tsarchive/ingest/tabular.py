@@ -169,11 +169,12 @@ def build_recording(path: Path, headers: list[str], cols: list[pa.ChunkedArray],
             reports[j] = ColumnReport(headers[j], "skipped")
         found, dropped = None, found
     rate = opts.rate
-    if found is not None:
+    if found is not None and not (n == 1 and rate is not None):   # one row: its time, and the rate given
         timing = timing_of(found.axis, "+".join(found.axis.columns))
         if rate is not None:
             check_rate_beside(rate, timing, "+".join(found.axis.columns))
         rate = timing.rate
+    if found is not None:
         for j in time_idx:
             reports[j] = ColumnReport(headers[j], "time", name=headers[j], dtype=found.form)
     if rate is None:
@@ -207,8 +208,8 @@ def build_recording(path: Path, headers: list[str], cols: list[pa.ChunkedArray],
         reports[j] = ColumnReport(header, "channel", name=name, unit=unit, dtype=dtype_name, decimals=info.decimals,
                                   missing=n_missing, tokens=tokens, sentinels=count_sentinels(arr, opts.sentinels))
     if not channels:
-        raise BadInput(f"{path.name}: has no numeric column to pack (columns: {', '.join(headers)}); "
-                       "check the delimiter and the header")
+        raise BadInput(f"{path.name}: has no numeric column to pack (columns: {', '.join(headers)}"
+                       f"{_first_text(extra, decimal, opts)}); check the delimiter and the header")
     axis = None if found is None else found.axis
     if found is not None and any(t.startswith("offsets change") for t in found.notes):
         for j in time_idx:   # the offsets as logged are kept beside the UTC instants
@@ -220,6 +221,22 @@ def build_recording(path: Path, headers: list[str], cols: list[pa.ChunkedArray],
                                  time=axis, notes=tuple(notes), extra=table)
     return Detected(recording=rec, columns=tuple(reports[j] for j in sorted(reports)), timing=timing,
                     time_form="" if found is None else found.form, time_notes=() if found is None else found.notes)
+
+
+def _first_text(extra: dict, decimal: str, opts: ReadOptions) -> str:
+    """``; 'x' row 2 holds '"2'``: the first cell that kept a column from being numeric (for the error)."""
+    from .columns import MISSING_TOKENS
+    skip = set(MISSING_TOKENS) | set(opts.text_tokens)
+    for header, col in extra.items():
+        for i, v in enumerate(col.to_pylist()):
+            t = (v or "").strip()
+            if t in skip:
+                continue
+            try:
+                float(t.replace(",", ".") if decimal == "," else t)
+            except ValueError:
+                return f"; '{header}' row {i + 1} holds {t[:40]!r}"
+    return ""
 
 
 def _claim(path: Path, name: str, seen: set) -> None:

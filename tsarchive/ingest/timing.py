@@ -73,7 +73,7 @@ def timing_of(axis: TimeAxis, name: str) -> Timing:
     """The :class:`Timing` of ``axis``; BadInput when it has one row or does not advance."""
     n = axis.values.shape[0]
     if n < 2:
-        raise BadInput(f"time column '{name}' has a single row, so it gives no rate; a recording needs two rows or more")
+        raise BadInput(f"time column '{name}' has a single row, so it gives no rate; give the rate with --rate HZ")
     steps, med, tol = _steps(axis)
     if not (np.isfinite(med) and med > 0):
         raise BadInput(f"time column '{name}' does not advance (median step {med:g} s); "
