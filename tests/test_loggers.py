@@ -258,3 +258,26 @@ def test_dry_run_reports_and_writes_nothing(tmp_path, capsys):
     assert sorted(tmp_path.iterdir()) == before
     for word in ("cp1252", "semicolon", "comma", "1 line(s)", "# logger 7", "°C", "text", "regular, 1 Hz", "'NA'"):
         assert word in out, word
+
+
+# --- end to end ----------------------------------------------------------------------------------
+
+def test_a_german_logger_file_packs_and_verifies(tmp_path):
+    # ;-separated, decimal commas, a station preamble, a status column and a 30 s gap: used to be refused whole.
+    t0 = datetime(2024, 3, 5, 14)
+    rows, temps = [], []
+    for k in range(400):
+        t = t0 + timedelta(seconds=k + (30 if k >= 200 else 0))
+        temps.append(round(20 + 0.01 * k, 2))
+        decimal_comma = f"{temps[-1]:.2f}".replace(".", ",")
+        rows.append(f"{t:%d.%m.%Y %H:%M:%S};{decimal_comma};OK")
+    text = "Station;Halle 3\r\nLogger;XY-200\r\nZeit;Temp [°C];Status\r\n" + "\r\n".join(rows) + "\r\n"
+    p = write(tmp_path, "halle.csv", text.encode("cp1252"))
+    out = tmp_path / "halle.tsa"
+    assert main(["pack", str(p), "-o", str(out), "--budget", "lossless", "--code-size", "0"]) == 0
+    from tsarchive import open as open_archive
+    arc = open_archive(out)
+    assert arc.channels[0].rate == 1.0 and arc.channels[0].unit == "°C"
+    # Reference: Python's float() of the "%.2f" text written above.
+    assert arc.read("Temp").tolist() == [float(f"{v:.2f}") for v in temps]
+    assert main(["verify", str(out), "--against", str(p)]) == 0
