@@ -76,6 +76,33 @@ def test_decimal_comma_with_semicolons(tmp_path):
     assert (s.delimiter, s.decimal) == ("semicolon", ",")
 
 
+def test_quoted_decimal_commas_with_a_comma_delimiter(tmp_path):
+    p = write(tmp_path, "q.csv", b'time,x\n0,"1,5"\n1,"-2,25"\n2,"3"\n')
+    assert read_recording(p).column(0).tolist() == [1.5, -2.25, 3.0]
+
+
+def test_a_point_beside_decimal_commas_is_not_read_as_a_decimal_point(tmp_path):
+    # "1.234" in a decimal-comma file is one thousand two hundred thirty-four, or a typo: kept as text, not 1.234.
+    p = write(tmp_path, "k.csv", b"t;a;b\n0;1,5;1.234\n1;2,5;2,0\n2;3,5;3,0\n")
+    rec = read_recording(p)
+    assert [c.name for c in rec.channels] == ["a"] and rec.extra.column("b").to_pylist() == ["1.234", "2,0", "3,0"]
+
+
+def test_elapsed_seconds_with_decimal_commas_and_a_channel_named_t(tmp_path):
+    p = write(tmp_path, "s.csv", b"Zeit [s];T [degC];Nr\n0,0;20,5;1\n0,5;20,6;2\n1,0;20,7;3\n")
+    rec = read_recording(p)
+    assert rec.time.values.tolist() == [0.0, 0.5, 1.0] and rec.rate == 2.0
+    assert [c.name for c in rec.channels] == ["T", "Nr"]     # a "T" right of the time column is a channel
+    p = write(tmp_path, "n.csv", b"Nr;T [degC]\n1;20,5\n2;20,6\n")
+    assert [c.name for c in read_recording(p, rate=1).channels] == ["Nr", "T"]
+
+
+def test_names_are_refused_for_tables(tmp_path):
+    p = write(tmp_path, "h.csv", b"a,b\n1,2\n")
+    with pytest.raises(BadInput, match="header names"):
+        read_recording(p, rate=1, options=ReadOptions.build(names="x,y"))
+
+
 def test_hash_preamble_and_station_lines_become_notes(tmp_path):
     text = ("# exported by a logger\n#   operator: A. Smith\nStation,North hall\nSerial,4711\n\n"
             "time,temp [degC]\n0,20.0\n1,20.5\n")

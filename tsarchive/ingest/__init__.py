@@ -57,6 +57,9 @@ def read_detailed(path: str | Path, rate: float | None = None, options: ReadOpti
         raise SourceNotFound(f"{p}: no such file; check the path")
     if p.is_dir():
         raise BadInput(f"{p}: is a folder; give a recording file ({', '.join(SUPPORTED)})")
+    if (opts.names or opts.units) and ext not in (".npy", ".wav"):
+        raise BadInput(f"{p.name}: names and units are given only to .npy and .wav sources; "
+                       "a table's header names its columns")
     if ext in _TEXT:
         from .csvfile import read_csv_detailed
         return read_csv_detailed(p, opts)

@@ -69,6 +69,8 @@ def text_to_numbers(col: pa.ChunkedArray, decimal: str, tokens: tuple[str, ...])
     seen = tuple(sorted(set(pc.filter(col, is_missing).unique().to_pylist()))) if n_missing else ()
     present = pc.filter(col, pc.invert(is_missing))
     if decimal == ",":
+        if pc.any(pc.match_substring(present, ".")).as_py():
+            return None     # "1.234" beside decimal commas is a thousands mark or a typo: never read as 1.234
         present = pc.replace_substring(present, ",", ".")
     if len(present) == 0:
         return np.full(len(col), np.nan), "float64", n_missing, seen

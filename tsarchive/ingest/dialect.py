@@ -10,8 +10,8 @@ returns a :class:`Dialect`:
 * **delimiter** -- tab, ``;`` or ``,``: the first of these that splits the
   header and the data rows into the same number (at least two) of fields;
   a single-column file has none;
-* **decimal mark** -- a comma when the delimiter is not a comma and number
-  cells are written like ``21,5``;
+* **decimal mark** -- a comma when most number cells are written like
+  ``21,5`` (quoted, with a comma delimiter);
 * **preamble** -- every line before the header: ``#`` comments and a
   station's or logger's metadata lines (their own shape);
 * **header** -- the first line, not a ``#`` comment, that has as many
@@ -142,9 +142,11 @@ def detect(text: str, name: str, encoding: str) -> Dialect:
 
 
 def _decimal(rows: list[list[str]], delimiter: str) -> str:
-    """``","`` when number cells are written with a decimal comma (never with a comma delimiter)."""
-    if delimiter == ",":
-        return "."
+    """``","`` when most number cells are written with a decimal comma.
+
+    With a comma delimiter such cells can only be quoted (``"21,5"``); an
+    unquoted ``21,5`` is two cells there.
+    """
     comma = dot = 0
     for row in rows:
         for c in row:

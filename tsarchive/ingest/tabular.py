@@ -82,14 +82,21 @@ def _typed_time(header: str, col: pa.ChunkedArray) -> TimeFound:
                      f"timestamp[{t.unit}]", notes)
 
 
-def _try_time(headers, cols, j: int, opts: ReadOptions) -> tuple[TimeFound, int] | None:
-    """(the time axis, how many columns it takes) when column ``j`` starts one, else None."""
+def _try_time(headers, cols, j: int, opts: ReadOptions, decimal: str) -> tuple[TimeFound, int] | None:
+    """(the time axis, how many columns it takes) when column ``j`` starts one, else None.
+
+    Dates and times are recognised by their text in any of the leading
+    columns (a record number may come first); a column is taken as time by
+    its *name* alone (seconds, or an error when its text is no time) only
+    when it is the first column, so that a channel named ``T`` further
+    right stays a channel.
+    """
     header, col = headers[j], cols[j]
     if pa.types.is_timestamp(col.type) or pa.types.is_date(col.type):
         if col.null_count:
             raise BadInput(f"time column '{header}' has empty cells; fill them in")
         return _typed_time(header, col), 1
-    named = is_time_name(header)
+    named = j == 0 and is_time_name(header)
     if _is_text(col):
         s = _strings(col)
         blank = pc.fill_null(pc.equal(pc.utf8_trim_whitespace(s), ""), True)
@@ -98,7 +105,8 @@ def _try_time(headers, cols, j: int, opts: ReadOptions) -> tuple[TimeFound, int]
                 first = int(np.argmax(blank.to_numpy(zero_copy_only=False)))
                 raise BadInput(f"time column '{header}' row {first + 1} is empty; fill in every time")
             return None
-        if j + 1 < len(cols) and _is_text(cols[j + 1]) and (normal_name(header) in DATE_NAMES or named):
+        if j + 1 < len(cols) and _is_text(cols[j + 1]) and (normal_name(header) in DATE_NAMES
+                                                             or is_time_name(header)):
             both = parse_date_and_time(s, _strings(cols[j + 1]), (header, headers[j + 1]), opts.zone)
             if both is not None:
                 return both, 2
@@ -107,7 +115,8 @@ def _try_time(headers, cols, j: int, opts: ReadOptions) -> tuple[TimeFound, int]
             return found, 1
         if named:
             try:
-                values = np.asarray(pc.cast(s, pa.float64()).to_numpy(zero_copy_only=False))
+                text = pc.replace_substring(s, ",", ".") if decimal == "," else s
+                values = np.asarray(pc.cast(pc.utf8_trim_whitespace(text), pa.float64()).to_numpy(zero_copy_only=False))
             except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
                 raise BadInput(f"time column '{header}' holds {s[0].as_py()!r}, which is neither a date and time "
                                "(ISO 8601, dd.mm.yyyy hh:mm:ss, MM/DD/YYYY hh:mm:ss) nor seconds; fix that column"
@@ -128,9 +137,9 @@ def _seconds(header: str, values: np.ndarray) -> TimeFound:
     return parse_seconds(values, header)
 
 
-def _find_time(headers, cols, opts: ReadOptions) -> tuple[TimeFound | None, list[int]]:
+def _find_time(headers, cols, opts: ReadOptions, decimal: str) -> tuple[TimeFound | None, list[int]]:
     for j in range(min(TIME_SEARCH, len(cols))):
-        got = _try_time(headers, cols, j, opts)
+        got = _try_time(headers, cols, j, opts, decimal)
         if got is not None:
             return got[0], list(range(j, j + got[1]))
     return None, []
@@ -160,7 +169,7 @@ def build_recording(path: Path, headers: list[str], cols: list[pa.ChunkedArray],
     n = len(cols[0]) if cols else 0
     if n == 0:
         raise BadInput(f"{path.name}: has no data rows; give a non-empty recording")
-    found, time_idx = _find_time(headers, cols, opts)
+    found, time_idx = _find_time(headers, cols, opts, decimal)
     reports: dict[int, ColumnReport] = {}
     timing = None
     dropped = None      # with without_time, the time column is left out; only its first time (the start) is kept
