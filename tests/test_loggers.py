@@ -185,6 +185,17 @@ def test_a_gap_is_kept_and_the_rate_is_nominal(tmp_path):
     assert "1 gap(s), the largest 61 s" in timing
 
 
+def test_nominal_rate_of_a_3_hz_clock_with_a_gap(tmp_path):
+    # 1/3 s steps printed to the millisecond (333 or 334 ms), then a 10 s gap: the median step is 333 ms,
+    # within the 1 ms tolerance of 1/3 s, so the nominal rate is 3 Hz (not 3.003003...).
+    t0 = datetime(2024, 1, 1)
+    stamps = [t0 + timedelta(milliseconds=round(1000 * k / 3)) for k in range(60)]
+    stamps += [s + timedelta(seconds=30) for s in stamps]
+    text = "time,x\n" + "".join(f"{s.isoformat(timespec='milliseconds')},{k}\n" for k, s in enumerate(stamps))
+    rec = read_recording(write(tmp_path, "g3.csv", text.encode()))
+    assert rec.rate == 3.0 and rec.time.values.tolist() == [ns(s) for s in stamps]
+
+
 def test_jitter_and_a_clock_set_back_are_accepted(tmp_path):
     steps_ms = [1000, 1003, 997, 1000, -3000, 1000, 1000]
     t, lines = 0, []

@@ -4,7 +4,8 @@ A logger's clock jitters, skips rows and is set back; none of that is
 refused any more.  The time column is kept exactly (``Recording.time``)
 and ``Recording.rate`` is its *nominal* rate: the reciprocal of the median
 step, rounded to the fewest significant digits that stay within the
-column's own tolerance (so a 1 Hz column with a 60-row gap has rate 1.0).
+column's own tolerance (so a 1 Hz column with a 60-row gap has rate 1.0,
+and a 3 Hz clock logged to the millisecond has rate 3.0).
 
 :func:`timing_of` summarises the column for the dry run: regular, jitter
 (steps off the median by more than the tolerance but less than half a
@@ -14,7 +15,7 @@ step), gaps (steps of 1.5 median steps or more) and steps that go back.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from datetime import datetime, timedelta, timezone
+from datetime import datetime, timezone
 
 import numpy as np
 
@@ -82,22 +83,23 @@ def timing_of(axis: TimeAxis, name: str) -> Timing:
     gaps = steps >= 1.5 * med
     back = steps <= 0
     jitter = (dev > tol * (1 + 1e-9)) & ~gaps & ~back
-    rate = _snap(med, tol) if not (jitter.any() or gaps.any() or back.any()) else _round_rate(med)
-    if axis.kind == "seconds" and not (jitter.any() or gaps.any() or back.any()):
-        rate = _snap_offsets(axis.values - axis.values[0], tol * (1 + 1e-9), rate)
-    elif axis.kind == "datetime" and not (jitter.any() or gaps.any() or back.any()):
-        rate = _snap_offsets((axis.values - axis.values[0]).astype(np.float64) / _NS, min(tol, 0.5 * med) * (1 + 1e-9), rate)
+    rate = _nominal(med, tol)
+    if not (jitter.any() or gaps.any() or back.any()):   # regular: the rate whose grid fits every time
+        offsets = axis.values - axis.values[0]
+        if axis.kind == "datetime":
+            offsets, tol = offsets.astype(np.float64) / _NS, min(tol, 0.5 * med)
+        rate = _snap_offsets(offsets, tol * (1 + 1e-9), rate)
     return Timing(rate=rate, median_step=med, jitter=int(jitter.sum()), gaps=int(gaps.sum()),
                   backward=int(back.sum()), largest_gap=float(steps[gaps].max()) if gaps.any() else 0.0)
 
 
-def _round_rate(step: float) -> float:
-    """1/step with at most 12 significant digits (a median of whole nanoseconds is not exact anyway)."""
+def _nominal(step: float, tol: float) -> float:
+    """The rate with the fewest significant digits (up to 12) whose step is within ``tol`` of ``step``."""
+    for digits in range(1, 13):
+        r = float(f"{1.0 / step:.{digits}g}")
+        if abs(1.0 / r - step) <= tol * (1 + 1e-9):
+            return r
     return float(f"{1.0 / step:.12g}")
-
-
-def _snap(step: float, tol: float) -> float:
-    return _round_rate(step)
 
 
 def _snap_offsets(offsets: np.ndarray, tol: float, fallback: float) -> float:
@@ -132,5 +134,5 @@ def check_span(start: datetime | None, n: int, rate: float) -> None:
     if span > (LATEST - naive).total_seconds():
         raise BadInput(f"rate {rate:g} Hz puts the last of {n} samples after {LATEST.year} "
                        f"(starting {naive.isoformat()}); check the rate")
-    if naive + timedelta(0) < EARLIEST:
+    if naive < EARLIEST:
         raise BadInput(f"start {naive.isoformat()} is before {EARLIEST.year}; check the time column")
