@@ -142,3 +142,17 @@ def test_edf_with_several_rates_needs_a_choice(tmp_path):
         read_recording(path, rate=250)
     assert main(["pack", str(path), "-o", str(tmp_path / "x.tsa"), "--rate", "12"]) == 2
     assert not (tmp_path / "x.tsa").exists()
+
+
+def test_edf_dry_run_shows_header_lines_and_annotations(capsys):
+    path = EDF_DATA / "test_generator.edf"
+    assert main(["pack", str(path), "--dry-run"]) == 0
+    out = capsys.readouterr().out
+    f = pyedflib.EdfReader(str(path))
+    try:
+        texts = list(f.readAnnotations()[2])
+        equipment = f.getEquipment().strip()
+    finally:
+        f.close()
+    assert "EDF header's rate" in out and f"equipment: {equipment}" in out
+    assert all(t in out for t in texts)

@@ -68,14 +68,14 @@ def read_detailed(path: str | Path, rate: float | None = None, options: ReadOpti
         return read_parquet_detailed(p, opts)
     if ext == ".npy":
         from .npyfile import read_npy
-        rec = read_npy(p, opts.rate, opts)
+        rec, how = read_npy(p, opts.rate, opts), "the rate given (a .npy file holds no times)"
     elif ext == ".wav":
         from .wavfile import read_wav
-        rec = read_wav(p, opts)
+        rec, how = read_wav(p, opts), "the WAV header's rate"
     else:
         from .edffile import read_edf
-        rec = read_edf(p, opts)
-    return Detected(recording=rec, columns=_plain_reports(rec))
+        rec, how = read_edf(p, opts), "the EDF header's rate for these signals"
+    return Detected(recording=rec, columns=_plain_reports(rec), timing_text=f"regular at {rec.rate:g} Hz, {how}")
 
 
 def _plain_reports(rec: Recording):

@@ -25,7 +25,7 @@ from .grid import detect_decimals
 from .options import ReadOptions
 
 
-def _groups(rates: list[float], labels: list[str]) -> dict[float, list[int]]:
+def _groups(rates: list[float]) -> dict[float, list[int]]:
     out: dict[float, list[int]] = {}
     for i, r in enumerate(rates):
         out.setdefault(float(r), []).append(i)
@@ -53,7 +53,7 @@ def read_edf(path: Path, options: ReadOptions) -> Recording:
             raise BadInput(f"{path.name}: holds no signals (only annotations); nothing to pack")
         labels = [s.strip() for s in f.getSignalLabels()]
         rates = [float(r) for r in f.getSampleFrequencies()]
-        groups = _groups(rates, labels)
+        groups = _groups(rates)
         if options.rate is None and len(groups) > 1:
             raise BadInput(f"{path.name}: signals come at several rates ({_describe(groups, labels)}); "
                            "pack one group at a time with --rate HZ")

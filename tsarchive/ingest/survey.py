@@ -19,6 +19,9 @@ from .options import ReadOptions
 from .tabular import Detected
 
 
+SHOWN_NOTES = 12    # notes printed by to_text (to_dict has them all)
+
+
 @dataclass(frozen=True)
 class SourceSurvey:
     """The findings of :func:`survey_source` (see the module docstring)."""
@@ -36,13 +39,14 @@ class SourceSurvey:
     preamble: tuple[str, ...]
     columns: tuple[ColumnReport, ...]
     sentinels: tuple[float, ...]
+    notes: tuple[str, ...] = ()      # the recording's notes besides the preamble (EDF header lines, annotations)
 
     def to_dict(self) -> dict:
         return {
             "source": self.source, "samples": self.samples, "rate": self.rate, "start": self.start,
             "timing": self.timing, "time_form": self.time_form, "time_notes": list(self.time_notes),
             "encoding": self.encoding, "delimiter": self.delimiter, "decimal": self.decimal,
-            "preamble": list(self.preamble), "sentinels": list(self.sentinels),
+            "preamble": list(self.preamble), "notes": list(self.notes), "sentinels": list(self.sentinels),
             "columns": [{"header": c.header, "role": c.role, "name": c.name, "unit": c.unit, "dtype": c.dtype,
                          "resolution": c.resolution, "missing": c.missing, "tokens": list(c.tokens),
                          "sentinels": c.sentinels} for c in self.columns],
@@ -60,6 +64,11 @@ class SourceSurvey:
                       f"decimal    {'comma' if self.decimal == ',' else 'point'}"]
         lines.append(f"preamble   {len(self.preamble)} line(s)")
         lines += [f"  | {p}" for p in self.preamble]
+        if self.notes:
+            lines.append(f"notes      {len(self.notes)} line(s)")
+            lines += [f"  | {n}" for n in self.notes[:SHOWN_NOTES]]
+            if len(self.notes) > SHOWN_NOTES:
+                lines.append(f"  | ... and {len(self.notes) - SHOWN_NOTES} more")
         if self.sentinels:
             lines.append("sentinels  " + ", ".join(f"{v:g}" for v in self.sentinels))
         rows = [("column", "role", "name", "unit", "dtype", "resolution", "missing")]
@@ -80,10 +89,11 @@ def survey_source(path, rate: float | None = None, options: ReadOptions | None =
     from . import read_detailed
     det: Detected = read_detailed(path, rate, options)
     rec = det.recording
-    timing = (det.timing.describe() if det.timing is not None
-              else f"no time column used: taken as regular at the given {rec.rate:g} Hz")
+    timing = (det.timing.describe() if det.timing is not None else det.timing_text
+              or f"no time column used: taken as regular at the given {rec.rate:g} Hz")
     return SourceSurvey(source=str(path), samples=rec.n_samples, rate=rec.rate,
                         start="" if rec.start is None else rec.start.isoformat(), timing=timing,
                         time_form=det.time_form, time_notes=det.time_notes, encoding=det.encoding,
                         delimiter=det.delimiter, decimal=det.decimal, preamble=det.preamble, columns=det.columns,
-                        sentinels=(options or ReadOptions()).sentinels)
+                        sentinels=(options or ReadOptions()).sentinels,
+                        notes=tuple(n for n in rec.notes if n not in set(det.preamble)))

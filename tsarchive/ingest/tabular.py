@@ -30,7 +30,7 @@ from ..errors import BadInput
 from ..recording import ChannelInfo, Recording, TimeAxis
 from .columns import ColumnReport, as_text, count_sentinels, split_header, text_to_numbers, typed_to_numbers
 from .grid import detect_decimals
-from .options import ReadOptions, check_rate
+from .options import ReadOptions, check_rate, zone_seconds
 from .timeparse import DATE_NAMES, TimeFound, is_time_name, normal_name, parse_date_and_time, parse_datetimes, \
     parse_seconds
 from .timing import Timing, check_rate_beside, check_span, timing_of
@@ -54,6 +54,8 @@ class Detected:
     delimiter: str = ""
     decimal: str = ""
     preamble: tuple[str, ...] = ()
+    #: how the timing is known when there is no time column (a format's header, or the rate given)
+    timing_text: str = ""
 
 
 def _is_text(col: pa.ChunkedArray) -> bool:
@@ -156,7 +158,6 @@ def _start(axis: TimeAxis | None) -> datetime | None:
     wall = _EPOCH + timedelta(microseconds=int(axis.values[0]) // 1000)
     if axis.zone is None:
         return wall
-    from .options import zone_seconds
     off = timezone(timedelta(seconds=zone_seconds(axis.zone)))
     return wall.replace(tzinfo=timezone.utc).astimezone(off)
 
