@@ -125,6 +125,26 @@ def test_naive_iso_stays_naive_and_a_stated_zone_applies(tmp_path):
     assert rec.time.values[0] == ns(datetime(2024, 3, 5, 14, tzinfo=plus1))
 
 
+@pytest.mark.parametrize("a,b,zone", [
+    ("2024-03-05T14:00:00.5", "2024-03-05T14:00:01.5", None),          # Arrow's parser (the fast path)
+    ("2024-03-05T14:00:00,5", "2024-03-05T14:00:01,5", None),          # ISO 8601 decimal comma: the regex path
+    ("2024-03-05 14:00:00.500", "2024-03-05 14:00:01.500", None),
+    ("2024-3-5 14:00:00.5", "2024-3-5 14:00:01.5", None),              # unpadded fields
+    ("2024/03/05 14:00:00.5", "2024/03/05 14:00:01.5", None),
+    ("2024-03-05T14:00:00.5+01:00", "2024-03-05T14:00:01.5+01:00", "+01:00"),
+    ("2024-03-05T14:00:00.5+0100", "2024-03-05T14:00:01.5+0100", "+01:00"),
+    ("2024-03-05T13:00:00.5Z", "2024-03-05T13:00:01.5Z", "Z"),
+    ("2024-03-05T13:00:00.5z", "2024-03-05T13:00:01.5z", "Z"),
+])
+def test_iso_spellings_give_the_same_instants(tmp_path, a, b, zone):
+    p = write(tmp_path, "iso.csv", f"time;x\n{a};1\n{b};2\n".encode())
+    rec = read_recording(p)
+    wall = datetime(2024, 3, 5, 14, 0, 0, 500000)
+    if zone is not None:   # 14:00:00.5+01:00 and 13:00:00.5Z are the same instant
+        wall = wall.replace(tzinfo=timezone(timedelta(hours=1)))
+    assert rec.time.zone == zone and rec.time.values.tolist() == [ns(wall), ns(wall + timedelta(seconds=1))]
+
+
 def test_iso_offsets_are_kept_as_logged(tmp_path):
     p = write(tmp_path, "o.csv", b"time,x\n2024-03-05T14:00:00.250+01:00,1\n2024-03-05T14:00:00.750+01:00,2\n")
     rec = read_recording(p)

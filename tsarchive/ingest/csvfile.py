@@ -11,14 +11,13 @@ as ``Recording.notes``.
 
 from __future__ import annotations
 
-import io
 from pathlib import Path
 
 import pyarrow as pa
 import pyarrow.csv as pacsv
 
 from ..errors import BadInput
-from .dialect import decode, detect
+from .dialect import decode, detect, head_lines
 from .options import ReadOptions
 from .tabular import Detected, build_recording
 
@@ -53,23 +52,19 @@ def read_csv_detailed(path: Path, options: ReadOptions) -> Detected:
 
 def _body(text: str, header_line: int) -> str:
     """The text after the header line (line ends as in ``str.splitlines``)."""
-    pos = 0
-    lines = text.splitlines(keepends=True)
-    for ln in lines[:header_line + 1]:
-        pos += len(ln)
-    return text[pos:]
+    return text[sum(len(ln) for ln in head_lines(text, keepends=True)[:header_line + 1]):]
 
 
 def _split(body: str, headers: list[str], delimiter: str, name: str) -> list[pa.ChunkedArray]:
     names = [f"c{j}" for j in range(len(headers))]
-    read = pacsv.ReadOptions(column_names=names, block_size=1 << 24)
+    read = pacsv.ReadOptions(column_names=names, block_size=1 << 20)   # 1 MiB blocks are split on threads
     # One column: a blank line is an empty cell.  Several: blank lines are skipped.
     parse = pacsv.ParseOptions(delimiter=delimiter or "\x1f", ignore_empty_lines=len(headers) > 1,
                                newlines_in_values=False)
     convert = pacsv.ConvertOptions(column_types={c: pa.string() for c in names}, strings_can_be_null=False,
                                    quoted_strings_can_be_null=False)
     try:
-        table = pacsv.read_csv(io.BytesIO(body.encode("utf-8")), read_options=read, parse_options=parse,
+        table = pacsv.read_csv(pa.BufferReader(body.encode("utf-8")), read_options=read, parse_options=parse,
                                convert_options=convert)
     except pa.ArrowInvalid as exc:
         msg = str(exc).splitlines()[0]

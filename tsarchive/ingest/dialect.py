@@ -87,6 +87,20 @@ def decode(raw: bytes, name: str) -> tuple[str, str]:
         return raw.decode("latin-1"), "latin-1"
 
 
+def head_lines(text: str, keepends: bool = False) -> list[str]:
+    """The first :data:`PROBE_LINES` whole lines of ``text`` (without splitting all of a large file)."""
+    size = 1 << 16
+    while True:
+        head = text[:size]
+        lines = head.splitlines(keepends=True)
+        if size >= len(text) or len(lines) > PROBE_LINES:
+            if size < len(text):
+                lines = lines[:-1]      # the last one may be cut
+            lines = lines[:PROBE_LINES]
+            return lines if keepends else [ln.rstrip("\r\n\x0b\x0c\x1c\x1d\x1e\x85\u2028\u2029") for ln in lines]
+        size *= 4
+
+
 def split_row(line: str, delimiter: str) -> list[str]:
     """The fields of one line (quotes honoured as in RFC 4180)."""
     if not delimiter:
@@ -122,7 +136,7 @@ def _find_header(lines: list[str], delimiter: str) -> tuple[int, int] | None:
 
 def detect(text: str, name: str, encoding: str) -> Dialect:
     """The :class:`Dialect` of ``text`` (see the module docstring); BadInput when no header is found."""
-    lines = text.splitlines()[:PROBE_LINES]
+    lines = head_lines(text)
     if not any(ln.strip() for ln in lines):
         raise BadInput(f"{name}: file is empty; it needs a header row and data rows")
     for delimiter in DELIMITERS + ("",):
