@@ -97,6 +97,14 @@ def test_elapsed_seconds_with_decimal_commas_and_a_channel_named_t(tmp_path):
     assert [c.name for c in read_recording(p, rate=1).channels] == ["Nr", "T"]
 
 
+def test_trailing_delimiters_and_dash_tokens(tmp_path):
+    # Many loggers end every line with the delimiter and write "--" or "-" for a missing value.
+    p = write(tmp_path, "tr.csv", b"time;a;b;\n0;1,5;--;\n1;-;2;\n2;3,5;4;\n")
+    rec = read_recording(p)
+    assert [c.name for c in rec.channels] == ["a", "b"] and rec.extra is None
+    assert np.isnan(rec.column(0)[1]) and np.isnan(rec.column(1)[0]) and rec.column(1)[2] == 4.0
+
+
 def test_names_are_refused_for_tables(tmp_path):
     p = write(tmp_path, "h.csv", b"a,b\n1,2\n")
     with pytest.raises(BadInput, match="header names"):

@@ -41,9 +41,14 @@ def _parquet(table: pa.Table) -> bytes:
     return buf.getvalue()
 
 
-def _edf_head() -> bytes:
+def _edf_full() -> bytes:
+    """pyedflib's reference file tests/data/test_generator.edf (EDF+C)."""
     pyedflib = pytest.importorskip("pyedflib")
-    return (Path(pyedflib.__file__).parent / "tests" / "data" / "test_generator.edf").read_bytes()[:1000]
+    return (Path(pyedflib.__file__).parent / "tests" / "data" / "test_generator.edf").read_bytes()
+
+
+def _edf_head() -> bytes:
+    return _edf_full()[:1000]
 
 
 ISO3 = b"time,x\n2024-01-01T00:00:00,1\n2024-01-01T00:00:01,2\n2024-01-01T00:00:02,3\n"
@@ -116,6 +121,7 @@ CATALOGUE = [
     ("wav_rate.wav", _wav(), ["--rate", "44100"], "disagrees"),
     ("garbage.edf", b"0       " + b"x" * 300, [], "EDF"),
     ("cut.edf", _edf_head, [], "EDF"),
+    ("gaps.edf", lambda: _edf_full()[:192] + b"EDF+D".ljust(44) + _edf_full()[236:], [], "discontinuous"),
 ]
 
 

@@ -21,8 +21,8 @@ import pyarrow.compute as pc
 from ..errors import BadInput
 
 #: Cell texts that mean "no measurement" in a numeric column (common practice of spreadsheets and loggers).
-MISSING_TOKENS = ("", "NA", "N/A", "n/a", "na", "NaN", "nan", "NAN", "-NaN", "-nan", "null", "NULL", "None",
-                  "#N/A", "---")
+MISSING_TOKENS = ("", "NA", "N/A", "n/a", "na", "n.a.", "N.A.", "NaN", "nan", "NAN", "-NaN", "-nan", "null",
+                  "NULL", "None", "#N/A", "-", "--", "---")
 
 #: ``name [unit]`` or ``name (unit)``: the unit is whatever stands in the last brackets.
 HEADER_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\[\]]*)\]|\((?P<u2>[^()]*)\))\s*$")

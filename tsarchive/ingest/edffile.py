@@ -7,6 +7,7 @@ recording's (naive) start; EDF+ annotations become notes
 (``annotation 12.5 s (+1 s): text``), after the header's patient and
 recording lines.
 
+Discontinuous EDF+D/BDF+D files are refused (their gaps would be lost).
 A recording has one sample rate.  When an EDF file holds signals at
 several rates, the channels of one rate are packed: ``--rate HZ`` picks the
 group, and without it the error lists the groups (``256 Hz: C3, C4;
@@ -42,6 +43,7 @@ def read_edf(path: Path, options: ReadOptions) -> Recording:
         import pyedflib
     except ImportError:
         raise BadInput(f"{path.name}: reading EDF needs pyedflib; install it with pip install 'tsarchive[edf]'") from None
+    _refuse_discontinuous(path)
     try:
         f = pyedflib.EdfReader(str(path))
     except (OSError, ValueError, UnicodeDecodeError) as exc:
@@ -81,6 +83,19 @@ def read_edf(path: Path, options: ReadOptions) -> Recording:
         f.close()
     return Recording.from_columns(columns, rate=float(rate), channels=channels, start=start, source=path,
                                   notes=notes)
+
+
+def _refuse_discontinuous(path: Path) -> None:
+    """BadInput for EDF+D / BDF+D: their data records have gaps that reading the signals end to end would lose.
+
+    The header's 44-byte "reserved" field at offset 192 starts with ``EDF+C``
+    or ``EDF+D`` (Kemp & Olivan 2003, "European data format 'plus' (EDF+)").
+    """
+    with open(path, "rb") as fh:
+        head = fh.read(236)
+    if head[192:197] in (b"EDF+D", b"BDF+D"):
+        raise BadInput(f"{path.name}: is a discontinuous {head[192:197].decode()} file, whose gaps would be lost; "
+                       "export it as continuous EDF+C (or one file per segment)")
 
 
 def _notes(f) -> tuple[str, ...]:
