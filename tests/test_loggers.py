@@ -347,3 +347,20 @@ def test_a_german_logger_file_packs_and_verifies(tmp_path):
     # Reference: Python's float() of the "%.2f" text written above.
     assert arc.read("Temp").tolist() == [float(f"{v:.2f}") for v in temps]
     assert main(["verify", str(out), "--against", str(p)]) == 0
+
+
+def test_a_naive_start_is_stored_as_logged_whatever_the_machine_zone(tmp_path, monkeypatch):
+    # datetime.astimezone() on a naive time takes it as the machine's local time (Python docs, "datetime"):
+    # a naive logger start must not move with the packing machine's TZ.
+    import time as _time
+    p = write(tmp_path, "tz.csv", b"time,x\n2024-03-05 14:00:00,1\n2024-03-05 14:00:01,2\n2024-03-05 14:00:02,3\n")
+    monkeypatch.setenv("TZ", "America/New_York")
+    _time.tzset()
+    try:
+        out = tmp_path / "tz.tsa"
+        assert main(["pack", str(p), "-o", str(out), "--code-size", "0"]) == 0
+    finally:
+        monkeypatch.delenv("TZ")
+        _time.tzset()
+    from tsarchive import open as open_archive
+    assert open_archive(out).channels[0].start == datetime(2024, 3, 5, 14)

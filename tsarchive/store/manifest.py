@@ -15,7 +15,12 @@ from . import schema as S
 
 
 def iso(t: datetime | None) -> str | None:
-    return None if t is None else t.astimezone(timezone.utc).isoformat().replace("+00:00", "Z")
+    """UTC with a ``Z`` for an aware time; a naive time (the logger's wall clock) as it is, without a zone."""
+    if t is None:
+        return None
+    if t.tzinfo is None:    # astimezone() would take it as this machine's local time
+        return t.isoformat()
+    return t.astimezone(timezone.utc).isoformat().replace("+00:00", "Z")
 
 
 def used_pct(worst: float, eps: float) -> float:
