@@ -364,3 +364,22 @@ def test_a_naive_start_is_stored_as_logged_whatever_the_machine_zone(tmp_path, m
         _time.tzset()
     from tsarchive import open as open_archive
     assert open_archive(out).channels[0].start == datetime(2024, 3, 5, 14)
+
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+import pyarrow as pa  # noqa: E402
+
+from tsarchive.ingest.timeparse import parse_datetimes  # noqa: E402
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.datetimes(min_value=datetime(1900, 1, 1), max_value=datetime(2261, 12, 31)), min_size=1,
+                max_size=5),
+       st.sampled_from(["%Y-%m-%dT%H:%M:%S.%f", "%Y-%m-%d %H:%M:%S,%f", "%d.%m.%Y %H:%M:%S.%f",
+                        "%m/%d/%Y %H:%M:%S.%f"]))
+def test_time_forms_match_the_standard_library(stamps, fmt):
+    # Reference: datetime.strftime writes the text, stdlib datetime arithmetic gives the nanoseconds.
+    found = parse_datetimes(pa.array([t.strftime(fmt) for t in stamps]), "time", None)
+    assert found is not None and found.axis.zone is None
+    assert found.axis.values.tolist() == [ns(t) for t in stamps]
