@@ -188,6 +188,24 @@ def test_date_and_time_columns_with_end_of_day_2400(tmp_path):
     assert rec.time.columns == ("Date", "Time") and rec.rate == 1.0
 
 
+def test_us_logger_export_with_two_digit_years_pm_and_a_zone_in_the_header(tmp_path):
+    # The layout of a common US logger's CSV export (from memory): a title line, a record-number column, the
+    # zone in the time column's header, two-digit years and a 12-hour clock, serial numbers in parentheses.
+    text = ('"Plot Title: 10556143"\r\n'
+            '"#","Date Time, GMT-05:00","Temp, \u00b0F (LGR S/N: 10556143)","RH, % (LGR S/N: 10556143)"\r\n'
+            '1,03/05/24 11:45:00 AM,68.123,45.67\r\n2,03/05/24 12:00:00 PM,68.200,45.50\r\n'
+            '3,03/05/24 12:15:00 PM,68.250,45.25\r\n4,03/06/24 12:30:00 AM,60.000,50.00\r\n')
+    rec = read_recording(write(tmp_path, "hobo.csv", text.encode("utf-8")))
+    minus5 = timezone(timedelta(hours=-5))
+    expect = [datetime(2024, 3, 5, 11, 45, tzinfo=minus5), datetime(2024, 3, 5, 12, tzinfo=minus5),
+              datetime(2024, 3, 5, 12, 15, tzinfo=minus5), datetime(2024, 3, 6, 0, 30, tzinfo=minus5)]
+    assert rec.time.zone == "-05:00" and rec.time.values.tolist() == [ns(t) for t in expect]
+    assert rec.notes == ('"Plot Title: 10556143"',) and rec.rate == 1 / 900
+    assert [(c.name, c.unit) for c in rec.channels] == [
+        ("#", ""), ("Temp, \u00b0F (LGR S/N: 10556143)", ""), ("RH, % (LGR S/N: 10556143)", "")]
+    assert rec.column(1).tolist() == [68.123, 68.2, 68.25, 60.0]
+
+
 def test_epoch_and_elapsed_seconds(tmp_path):
     p = write(tmp_path, "ep.csv", b"epoch,x\n1709647200.5,1\n1709647201.5,2\n")
     rec = read_recording(p)
@@ -222,6 +240,15 @@ def test_nominal_rate_of_a_3_hz_clock_with_a_gap(tmp_path):
     text = "time,x\n" + "".join(f"{s.isoformat(timespec='milliseconds')},{k}\n" for k, s in enumerate(stamps))
     rec = read_recording(write(tmp_path, "g3.csv", text.encode()))
     assert rec.rate == 3.0 and rec.time.values.tolist() == [ns(s) for s in stamps]
+
+
+@pytest.mark.parametrize("gap", [False, True])
+def test_a_15_minute_logger_has_rate_one_over_900(tmp_path, gap):
+    # 15 min = 900 s; the nominal rate is the float nearest 1/900 Hz (IEEE-754 division), not 0.00111111.
+    t0 = datetime(2024, 1, 1)
+    stamps = [t0 + timedelta(minutes=15 * k + (600 if gap and k > 5 else 0)) for k in range(10)]
+    text = "time,x\n" + "".join(f"{s:%Y-%m-%dT%H:%M:%S},{k}\n" for k, s in enumerate(stamps))
+    assert read_recording(write(tmp_path, "q.csv", text.encode())).rate == 1 / 900
 
 
 def test_jitter_and_a_clock_set_back_are_accepted(tmp_path):

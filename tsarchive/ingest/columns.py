@@ -27,6 +27,8 @@ MISSING_TOKENS = ("", "NA", "N/A", "n/a", "na", "n.a.", "N.A.", "NaN", "nan", "N
 #: ``name [unit]`` or ``name (unit)``: the unit is whatever stands in the last brackets.
 HEADER_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\[\]]*)\]|\((?P<u2>[^()]*)\))\s*$")
 _INT_RE = r"^[+-]?\d+$"
+#: Parentheses hold a unit only when short and plain (square brackets always do).
+UNIT_IN_PARENS_MAX = 16
 
 
 @dataclass(frozen=True)
@@ -55,6 +57,8 @@ def split_header(header: str) -> tuple[str, str]:
     m = HEADER_RE.match(header)
     if m is None or not m.group("name").strip():
         return header.strip(), ""
+    if m.group("u1") is None and (len(m.group("u2")) > UNIT_IN_PARENS_MAX or any(c in m.group("u2") for c in ":,;")):
+        return header.strip(), ""      # "(LGR S/N: 1055)" is a remark, not a unit
     unit = m.group("u1") if m.group("u1") is not None else m.group("u2")
     return m.group("name").strip(), unit.strip()
 

@@ -18,7 +18,7 @@ Shared by :mod:`.csvfile` and :mod:`.parquetfile`:
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
@@ -31,7 +31,7 @@ from ..recording import ChannelInfo, Recording, TimeAxis
 from .columns import ColumnReport, as_text, count_sentinels, split_header, text_to_numbers, typed_to_numbers
 from .grid import detect_decimals
 from .options import ReadOptions, check_rate, zone_seconds
-from .timeparse import DATE_NAMES, TimeFound, is_time_name, normal_name, parse_date_and_time, parse_datetimes, \
+from .timeparse import DATE_NAMES, TimeFound, header_zone, is_time_name, normal_name, parse_date_and_time, parse_datetimes, \
     parse_seconds
 from .timing import Timing, check_rate_beside, check_span, timing_of
 
@@ -99,6 +99,8 @@ def _try_time(headers, cols, j: int, opts: ReadOptions, decimal: str) -> tuple[T
             raise BadInput(f"time column '{header}' has empty cells; fill them in")
         return _typed_time(header, col), 1
     named = j == 0 and is_time_name(header)
+    if opts.zone is None and header_zone(header) is not None:
+        opts = replace(opts, zone=header_zone(header))
     if _is_text(col):
         s = _strings(col)
         blank = pc.fill_null(pc.equal(pc.utf8_trim_whitespace(s), ""), True)

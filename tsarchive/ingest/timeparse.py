@@ -6,7 +6,9 @@ Accepted forms (one form per file, decided from the whole column):
   between date parts is accepted too);
 * ``05.03.2024 14:00:00`` (day.month.year, the usual German form);
 * ``03/05/2024 14:00:00`` (month/day/year), or day/month/year when some
-  first field is above 12;
+  first field is above 12; these two forms also take two-digit years
+  (``69``-``99`` are 19xx, ``00``-``68`` 20xx, as POSIX ``%y``) and a
+  12-hour clock (``02:00:00 PM``);
 * a date column beside a time column (``Date``, ``Time``), including the
   ISO 8601 end of day ``24:00``, which is 00:00 of the next day;
 * numbers: elapsed seconds (``Elapsed (s)``, ``time [s]``) or seconds since
@@ -16,7 +18,8 @@ Dates are turned into day numbers with integer arithmetic (Howard
 Hinnant's ``days_from_civil``, "chrono-Compatible Low-Level Date
 Algorithms"), so every nanosecond is exact.  Times without an offset stay
 naive (``zone`` None, values = the wall clock as logged) unless the user
-states the zone; times with an offset are held as UTC instants and the
+states the zone (with ``--zone``, or in the header: ``Date Time, GMT-05:00``);
+times with an offset are held as UTC instants and the
 offset as logged is kept in ``zone``.
 """
 
@@ -37,13 +40,16 @@ _NS = 1_000_000_000
 YEAR_MIN, YEAR_MAX = 1900, 2261   # int64 nanoseconds since 1970 end in April 2262
 
 _TIME = r"(?P<h>\d{1,2}):(?P<mi>\d{2})(?::(?P<s>\d{2})(?:[.,](?P<f>\d{1,9}))?)?"
+_TIME12 = _TIME + r"(?:\s*(?P<ap>[AaPp]\.?[Mm]\.?))?"      # 02:00:00 PM
 _ZONE = r"\s*(?P<z>[Zz]|[+-]\d{2}:?\d{2})?"
 FORMS = {
     "ISO 8601": re.compile(r"^\s*(?P<Y>\d{4})[-/](?P<M>\d{1,2})[-/](?P<D>\d{1,2})(?:(?:T|\s+)" + _TIME + ")?" + _ZONE + r"\s*$"),
-    "dd.mm.yyyy": re.compile(r"^\s*(?P<D>\d{1,2})\.(?P<M>\d{1,2})\.(?P<Y>\d{4})(?:\s+" + _TIME + ")?" + _ZONE + r"\s*$"),
-    "MM/DD/YYYY": re.compile(r"^\s*(?P<M>\d{1,2})/(?P<D>\d{1,2})/(?P<Y>\d{4})(?:\s+" + _TIME + ")?" + _ZONE + r"\s*$"),
+    "dd.mm.yyyy": re.compile(r"^\s*(?P<D>\d{1,2})\.(?P<M>\d{1,2})\.(?P<Y>\d{4}|\d{2})(?:\s+" + _TIME12 + ")?" + _ZONE + r"\s*$"),
+    "MM/DD/YYYY": re.compile(r"^\s*(?P<M>\d{1,2})/(?P<D>\d{1,2})/(?P<Y>\d{4}|\d{2})(?:\s+" + _TIME12 + ")?" + _ZONE + r"\s*$"),
 }
-TIME_ONLY = re.compile(r"^\s*" + _TIME + r"\s*$")
+TIME_ONLY = re.compile(r"^\s*" + _TIME12 + r"\s*$")
+#: "Date Time, GMT-05:00": a zone stated in the time column's header.
+HEADER_ZONE = re.compile(r"(?:GMT|UTC)\s*(?P<sign>[+-])(?P<h>\d{1,2})(?::?(?P<m>\d{2}))?", re.IGNORECASE)
 
 #: Header names (lower case, before any unit) that mark a time column.
 TIME_NAMES = frozenset({"time", "t", "timestamp", "datetime", "date_time", "date", "time_s", "elapsed", "zeit",
@@ -98,7 +104,7 @@ def _groups(strings: pa.Array, pattern: re.Pattern) -> dict[str, np.ndarray] | N
     out = {}
     for name in pattern.groupindex:
         col = st.field(name)
-        if name == "z":
+        if name in ("z", "ap"):     # texts: the zone, AM/PM
             out[name] = col
             continue
         if name == "f":  # fraction of a second -> nanoseconds (right-padded to 9 digits)
@@ -116,6 +122,17 @@ def _clock_ns(g: dict[str, np.ndarray], header: str, raw: pa.Array) -> np.ndarra
     """Nanoseconds since 1970 (wall clock) of date groups Y M D (+ optional h mi s f), checked."""
     y, m, d = g["Y"], g["M"], g["D"]
     h, mi, s, f = (g.get(k, np.zeros_like(y)) for k in ("h", "mi", "s", "f"))
+    # two-digit years as POSIX strptime's %y reads them: 69..99 -> 1969..1999, 00..68 -> 2000..2068
+    y = np.where(y < 100, np.where(y < 69, 2000 + y, 1900 + y), y)
+    if g.get("ap") is not None:         # 12-hour clock: 12:xx AM is 00:xx, 12:xx PM is 12:xx
+        first = pc.utf8_lower(pc.utf8_slice_codeunits(g["ap"], 0, 1)).to_numpy(zero_copy_only=False)
+        has, pm = first != "", first == "p"
+        ok = ~has | ((h >= 1) & (h <= 12))
+        if not ok.all():
+            i = _first_bad(ok)
+            raise BadInput(f"time column '{header}' row {i + 1}: {raw[i].as_py()!r} is not a valid 12-hour time; "
+                           "fix that row")
+        h = np.where(has, h % 12 + 12 * pm, h)
     ok_date = (m >= 1) & (m <= 12) & (d >= 1) & (d <= _days_in_month(y, m))
     end_of_day = (h == 24) & (mi == 0) & (s == 0) & (f == 0)      # ISO 8601: 24:00 ends the day
     ok_time = ((h <= 23) | end_of_day) & (mi <= 59) & (s <= 59)
@@ -206,6 +223,8 @@ def parse_datetimes(strings: pa.Array, header: str, stated_zone: str | None) -> 
             notes = ("day/month/year (a first field above 12 was found)",)
         elif form == "MM/DD/YYYY":
             notes = ("month/day/year (no first field above 12, so taken as US order)",)
+        if bool(np.any(g["Y"] < 100)):
+            notes += ("two-digit years: 69-99 are 1969-1999, 00-68 are 2000-2068 (as POSIX %y)",)
         return _finish(g, _clock_ns(g, header, strings), header, stated_zone, form, notes, (header,))
     return None
 
@@ -224,8 +243,9 @@ def parse_date_and_time(dates: pa.Array, times: pa.Array, headers: tuple[str, st
         if form == "MM/DD/YYYY" and bool(np.any(g["M"] > 12)):
             g["M"], g["D"] = g["D"], g["M"]
             form = "DD/MM/YYYY"
-        g.update({k: tg[k] for k in ("h", "mi", "s", "f")})
         g.pop("z")
+        g.pop("ap", None)
+        g.update({k: tg[k] for k in ("h", "mi", "s", "f", "ap")})
         ns = _clock_ns(g, headers[1], times)
         return _finish(g, ns, headers[1], stated_zone, f"{form} + hh:mm:ss in two columns", (), headers)
     return None
@@ -236,6 +256,14 @@ def _finish(g, ns, header, stated_zone, form, notes, columns) -> TimeFound:
     if offsets.size:
         ns = ns - offsets * _NS
     return TimeFound(TimeAxis("datetime", ns, zone=zone, columns=tuple(columns)), form, notes + znotes)
+
+
+def header_zone(header: str) -> str | None:
+    """``"Date Time, GMT-05:00"`` -> ``"-05:00"``: the zone a time column's header states, if any."""
+    m = HEADER_ZONE.search(header)
+    if m is None:
+        return None
+    return parse_zone(f"{m.group('sign')}{int(m.group('h')):02d}:{m.group('m') or '00'}")
 
 
 def parse_seconds(values: np.ndarray, header: str) -> TimeFound:

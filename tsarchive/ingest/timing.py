@@ -83,39 +83,37 @@ def timing_of(axis: TimeAxis, name: str) -> Timing:
     gaps = steps >= 1.5 * med
     back = steps <= 0
     jitter = (dev > tol * (1 + 1e-9)) & ~gaps & ~back
-    rate = _nominal(med, tol)
-    if not (jitter.any() or gaps.any() or back.any()):   # regular: the rate whose grid fits every time
+    if jitter.any() or gaps.any() or back.any():
+        rate = _nominal(lambda r: abs(1.0 / r - med) <= tol, lambda st: abs(st - med) <= tol, med)
+    else:   # regular: the grid i / rate (or i * step) must fit every time
         offsets = axis.values - axis.values[0]
         if axis.kind == "datetime":
             offsets, tol = offsets.astype(np.float64) / _NS, min(tol, 0.5 * med)
-        rate = _snap_offsets(offsets, tol * (1 + 1e-9), rate)
+        idx = np.arange(n, dtype=np.float64)
+        rate = _nominal(lambda r: float(np.max(np.abs(offsets - idx / r))) <= tol * (1 + 1e-9),
+                        lambda st: float(np.max(np.abs(offsets - idx * st))) <= tol * (1 + 1e-9),
+                        float(offsets[-1]) / (n - 1))
     return Timing(rate=rate, median_step=med, jitter=int(jitter.sum()), gaps=int(gaps.sum()),
                   backward=int(back.sum()), largest_gap=float(steps[gaps].max()) if gaps.any() else 0.0)
 
 
-def _nominal(step: float, tol: float) -> float:
-    """The rate with the fewest significant digits (up to 12) whose step is within ``tol`` of ``step``."""
-    for digits in range(1, 13):
-        r = float(f"{1.0 / step:.{digits}g}")
-        if abs(1.0 / r - step) <= tol * (1 + 1e-9):
-            return r
-    return float(f"{1.0 / step:.12g}")
-
-
-def _snap_offsets(offsets: np.ndarray, tol: float, fallback: float) -> float:
-    """The rate with fewest significant digits whose grid ``i / rate`` stays within ``tol`` of ``offsets``."""
-    n = offsets.shape[0]
-    if offsets[-1] <= 0:
-        return fallback
-    raw = (n - 1) / float(offsets[-1])
-    idx = np.arange(n, dtype=np.float64)
+def _fewest(x: float, fits) -> tuple[float, int]:
+    """(x rounded to the fewest significant digits that ``fits``, that number of digits); (x, 17) if none."""
     for digits in range(1, 16):
-        r = float(f"{raw:.{digits}g}")
-        if abs(offsets[-1] - (n - 1) / r) > tol:
-            continue
-        if float(np.max(np.abs(offsets - idx / r))) <= tol:
-            return r
-    return raw
+        v = float(f"{x:.{digits}g}")
+        if v > 0 and fits(v):
+            return v, digits
+    return x, 17
+
+
+def _nominal(rate_fits, step_fits, step: float) -> float:
+    """The plainest rate: a short decimal rate (3 Hz for 333/334 ms steps) or the reciprocal of a short
+    decimal step (1/900 Hz for 15 min steps), whichever needs fewer digits; else 1/step."""
+    r, dr = _fewest(1.0 / step, rate_fits)
+    st, ds = _fewest(step, step_fits)
+    if min(dr, ds) > 16:
+        return 1.0 / step
+    return r if dr <= ds else 1.0 / st
 
 
 def check_rate_beside(rate: float, timing: Timing, name: str) -> None:
