@@ -105,6 +105,16 @@ def test_trailing_delimiters_and_dash_tokens(tmp_path):
     assert np.isnan(rec.column(0)[1]) and np.isnan(rec.column(1)[0]) and rec.column(1)[2] == 4.0
 
 
+def test_read_options_round_trip_through_json():
+    import json
+    opts = ReadOptions.build(rate=2, zone="-0530", without_time=True, missing="ERR,-9999", skip_text=True,
+                             names="a,b", units="V,")
+    assert ReadOptions.from_dict(json.loads(json.dumps(opts.to_dict()))) == opts
+    assert ReadOptions().to_dict() == {} and ReadOptions.from_dict({}) == ReadOptions()
+    with pytest.raises(BadInput, match="zone"):
+        ReadOptions.from_dict({"zone": "Mars"})
+
+
 def test_names_are_refused_for_tables(tmp_path):
     p = write(tmp_path, "h.csv", b"a,b\n1,2\n")
     with pytest.raises(BadInput, match="header names"):

@@ -60,6 +60,25 @@ class ReadOptions:
                    names=split_list(names, "--names"), units=split_list(units, "--units", allow_empty=True))
 
 
+    def to_dict(self) -> dict:
+        """The choices that differ from the defaults, JSON-safe (for a manifest, so a source can be re-read alike)."""
+        d = {"rate": self.rate, "zone": self.zone, "without_time": self.without_time,
+             "text_tokens": list(self.text_tokens), "sentinels": list(self.sentinels), "skip_text": self.skip_text,
+             "names": list(self.names), "units": list(self.units)}
+        return {k: v for k, v in d.items() if v not in (None, False, [])}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "ReadOptions":
+        """Inverse of :meth:`to_dict`; every value is checked again (it may come from a file)."""
+        if not isinstance(d, dict):
+            raise BadInput("read options must be a JSON object; the archive's manifest is damaged")
+        return cls(rate=check_rate(d.get("rate")), zone=parse_zone(d.get("zone")),
+                   without_time=bool(d.get("without_time", False)),
+                   text_tokens=tuple(str(t) for t in d.get("text_tokens", ())),
+                   sentinels=tuple(float(v) for v in d.get("sentinels", ())), skip_text=bool(d.get("skip_text", False)),
+                   names=tuple(str(t) for t in d.get("names", ())), units=tuple(str(t) for t in d.get("units", ())))
+
+
 def check_rate(rate) -> float | None:
     """``rate`` as a float, None kept; BadInput unless finite, positive and at most 1 GHz.
 
