@@ -115,6 +115,14 @@ def test_read_options_round_trip_through_json():
         ReadOptions.from_dict({"zone": "Mars"})
 
 
+def test_verify_rereads_the_source_with_the_options_pack_used(tmp_path, capsys):
+    # Packed with --missing, the source used to be re-read without it, and verify failed a sound archive.
+    p = write(tmp_path, "m.csv", b"time,a,b\n0,1.5,-9999\n1,ERR,2\n2,2.5,3\n3,3.5,4\n")
+    out = tmp_path / "m.tsa"
+    assert main(["pack", str(p), "-o", str(out), "--missing", "ERR,-9999", "--code-size", "0"]) == 0
+    assert main(["verify", str(out), "--against", str(p)]) == 0, capsys.readouterr().out
+
+
 def test_names_are_refused_for_tables(tmp_path):
     p = write(tmp_path, "h.csv", b"a,b\n1,2\n")
     with pytest.raises(BadInput, match="header names"):

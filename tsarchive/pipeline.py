@@ -163,7 +163,8 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
             if not explicit and K and ceiling <= (PROBE_SHARE if probe else 1.0) * bound:
                 hopeless.set()
             job = dict(archive=archive, force=force, rec=rec, spec=spec, grids=grids, scales=scales, notes=notes,
-                       names=names, W=W, K=K, emit=emit, progress=progress)
+                       names=names, W=W, K=K, emit=emit, progress=progress,
+                       read_options=None if isinstance(source, Recording) else read_options)
 
             def judged():
                 """The trained model's plan and account, and whether it is worth (re)encoding with it."""
@@ -284,6 +285,8 @@ def _write(job: dict, model, plans, model_note, decide=None) -> dict:
         manifest = build_manifest(rec, job["spec"], job["grids"], job["scales"], [p.lpc for p in plans], tables,
                                   job["notes"], job["W"], job["K"], decoder, model_note, summaries,
                                   writer.staged_bytes())
+        if job["read_options"] is not None and job["read_options"].to_dict():   # so verify re-reads the source alike
+            manifest["read_options"] = job["read_options"].to_dict()
         stage = writer.finalize(manifest)
         emit("write", 1, 1, "staged")
 

@@ -131,10 +131,11 @@ def _list(ws: list[int]) -> str:
 def _source(arc, against) -> Recording | None:
     if against is None or isinstance(against, Recording):
         return against
-    from .ingest import read_recording
+    from .ingest import ReadOptions, read_recording
     rate = arc.channels[0].rate if arc.channels else None
     path = Path(against)
-    rec = read_recording(path, rate=rate if path.suffix.lower() == ".npy" else None)
+    options = ReadOptions.from_dict(arc.manifest.get("read_options") or {})   # as pack read it (optional field)
+    rec = read_recording(path, rate=rate if path.suffix.lower() == ".npy" else None, options=options)
     if rec.n_samples != (arc.channels[0].n_samples if arc.channels else 0):
         raise BadInput(f"{path.name} has {rec.n_samples} samples but the archive has "
                        f"{arc.channels[0].n_samples}; pass the recording the archive was packed from")
