@@ -283,7 +283,10 @@ def test_jitter_and_a_clock_set_back_are_accepted(tmp_path):
         lines.append(f"{(datetime(2024, 1, 1) + timedelta(milliseconds=t)).isoformat(timespec='milliseconds')},{k}")
     rec = read_recording(write(tmp_path, "j.csv", ("time,x\n" + "\n".join(lines) + "\n").encode()))
     assert np.diff(rec.time.values).tolist() == [s * 1_000_000 for s in steps_ms] and rec.rate == 1.0
-    assert "1 step(s) back in time" in survey_source(tmp_path / "j.csv").timing
+    timing = survey_source(tmp_path / "j.csv").timing
+    assert "1 step(s) back in time" in timing and "2 jittered step(s)" in timing and "repeated" not in timing
+    p = write(tmp_path, "rep.csv", b"time,x\n0,1\n1,2\n1,3\n2,4\n3,5\n")
+    assert "1 repeated time(s)" in survey_source(p).timing
 
 
 def test_rate_beside_a_time_column_must_agree_and_without_time_is_explicit(tmp_path):

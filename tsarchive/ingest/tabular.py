@@ -31,7 +31,7 @@ from ..recording import ChannelInfo, Recording, TimeAxis
 from .columns import ColumnReport, as_text, count_sentinels, split_header, text_to_numbers, typed_to_numbers
 from .grid import detect_decimals
 from .options import ReadOptions, check_rate, zone_seconds
-from .timeparse import DATE_NAMES, TimeFound, header_zone, is_time_name, normal_name, parse_date_and_time, parse_datetimes, \
+from .timeparse import DATE_NAMES, TIME_ONLY, TimeFound, header_zone, is_time_name, normal_name, parse_date_and_time, parse_datetimes, \
     parse_seconds
 from .timing import Timing, check_rate_beside, check_span, timing_of
 
@@ -117,6 +117,9 @@ def _try_time(headers, cols, j: int, opts: ReadOptions, decimal: str) -> tuple[T
         found = parse_datetimes(s, header, opts.zone)
         if found is not None:
             return found, 1
+        if named and pc.all(pc.match_substring_regex(s, TIME_ONLY.pattern)).as_py():
+            raise BadInput(f"time column '{header}' holds times of day ({s[0].as_py()!r}) without dates; "
+                           "export the date too (a date column beside it will do)")
         if named:
             try:
                 text = pc.replace_substring(s, ",", ".") if decimal == "," else s

@@ -9,7 +9,8 @@ and a 3 Hz clock logged to the millisecond has rate 3.0).
 
 :func:`timing_of` summarises the column for the dry run: regular, jitter
 (steps off the median by more than the tolerance but less than half a
-step), gaps (steps of 1.5 median steps or more) and steps that go back.
+step), gaps (steps of 1.5 median steps or more), repeated times and steps
+that go back.
 """
 
 from __future__ import annotations
@@ -35,7 +36,7 @@ EARLIEST, LATEST = datetime(1900, 1, 1), datetime(2300, 1, 1)
 
 @dataclass(frozen=True)
 class Timing:
-    """A time column's steps: median, counts of jittered / gap / backward steps, the nominal rate."""
+    """A time column's steps: median, counts of jittered / gap / repeated / backward steps, the nominal rate."""
 
     rate: float
     median_step: float       # seconds
@@ -43,10 +44,11 @@ class Timing:
     gaps: int
     backward: int
     largest_gap: float       # seconds (0 without gaps)
+    repeated: int = 0
 
     @property
     def regular(self) -> bool:
-        return not (self.jitter or self.gaps or self.backward)
+        return not (self.jitter or self.gaps or self.backward or self.repeated)
 
     def describe(self) -> str:
         if self.regular:
@@ -54,6 +56,8 @@ class Timing:
         parts = [f"{self.jitter} jittered step(s)"] if self.jitter else []
         if self.gaps:
             parts.append(f"{self.gaps} gap(s), the largest {self.largest_gap:g} s")
+        if self.repeated:
+            parts.append(f"{self.repeated} repeated time(s)")
         if self.backward:
             parts.append(f"{self.backward} step(s) back in time")
         return f"irregular, nominal {self.rate:g} Hz (median step {self.median_step:g} s): " + ", ".join(parts)
@@ -94,7 +98,8 @@ def timing_of(axis: TimeAxis, name: str) -> Timing:
                         lambda st: float(np.max(np.abs(offsets - idx * st))) <= tol * (1 + 1e-9),
                         float(offsets[-1]) / (n - 1))
     return Timing(rate=rate, median_step=med, jitter=int(jitter.sum()), gaps=int(gaps.sum()),
-                  backward=int(back.sum()), largest_gap=float(steps[gaps].max()) if gaps.any() else 0.0)
+                  backward=int((steps < 0).sum()), repeated=int((steps == 0).sum()),
+                  largest_gap=float(steps[gaps].max()) if gaps.any() else 0.0)
 
 
 def _fewest(x: float, fits) -> tuple[float, int]:
