@@ -210,6 +210,9 @@ def test_date_and_time_columns_with_end_of_day_2400(tmp_path):
     base = datetime(2024, 2, 29, 23, 59, 58)
     assert rec.time.values.tolist() == [ns(base + timedelta(seconds=k)) for k in range(4)]
     assert rec.time.columns == ("Date", "Time") and rec.rate == 1.0
+    text = "Datum;Uhrzeit;v\n29.02.2024;23:59:58;1\n29.02.2024;23:59:59;2\n29.02.2024;24:00:00;3\n01.03.2024;00:00:01;4\n"
+    rec = read_recording(write(tmp_path, "dt2.csv", text.encode()))
+    assert rec.time.values.tolist() == [ns(base + timedelta(seconds=k)) for k in range(4)]
 
 
 def test_us_logger_export_with_two_digit_years_pm_and_a_zone_in_the_header(tmp_path):
@@ -380,6 +383,12 @@ def test_dry_run_reports_and_writes_nothing(tmp_path, capsys):
     assert sorted(tmp_path.iterdir()) == before
     for word in ("cp1252", "semicolon", "comma", "1 line(s)", "# logger 7", "°C", "text", "regular, 1 Hz", "'NA'"):
         assert word in out, word
+    import json
+    assert main(["pack", str(p), "--dry-run", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert [(c["header"], c["role"], c["unit"], c["missing"]) for c in d["columns"]] == [
+        ("time", "time", "", 0), ("temp [°C]", "channel", "°C", 1), ("status", "text", "", 0)]
+    assert d["preamble"] == ["# logger 7"] and d["encoding"] == "cp1252" and sorted(tmp_path.iterdir()) == before
 
 
 # --- end to end ----------------------------------------------------------------------------------
