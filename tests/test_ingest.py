@@ -96,9 +96,9 @@ def test_grid_never_exceeds_the_formatting_decimals(ks, d):
 def test_missing_and_unsupported(tmp_path):
     with pytest.raises(SourceNotFound):
         read_recording(tmp_path / "nope.csv")
-    (tmp_path / "x.dat").write_text("a\n1\n")
+    (tmp_path / "x.xyz").write_text("a\n1\n")
     with pytest.raises(BadInput, match=r"\.npy, \.csv, .*\.parquet"):
-        read_recording(tmp_path / "x.dat")
+        read_recording(tmp_path / "x.xyz")
 
 
 def test_npy_1d_is_memory_mapped_and_keeps_shape(tmp_path):

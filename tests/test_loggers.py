@@ -233,6 +233,25 @@ def test_us_logger_export_with_two_digit_years_pm_and_a_zone_in_the_header(tmp_p
     assert rec.column(1).tolist() == [68.123, 68.2, 68.25, 60.0]
 
 
+def test_campbell_toa5_file(tmp_path):
+    # The TOA5 layout of Campbell Scientific loggers (their manuals; from memory): environment line, field names,
+    # units, processing, then data; "NAN" marks a missing value.
+    text = ('"TOA5","CR1000","CR1000","1234","CR1000.Std.32","CPU:weather.CR1","12345","Hourly"\r\n'
+            '"TIMESTAMP","RECORD","BattV_Min","AirTC_Avg","RH"\r\n'
+            '"TS","RN","Volts","Deg C","%"\r\n'
+            '"","","Min","Avg","Smp"\r\n'
+            '"2024-03-05 14:00:00",0,12.51,21.3,45\r\n'
+            '"2024-03-05 15:00:00",1,12.5,"NAN",46\r\n'
+            '"2024-03-05 16:00:00",2,12.49,21.1,47\r\n')
+    rec = read_recording(write(tmp_path, "CR1000_Hourly.dat", text.encode()))
+    assert rec.time.values.tolist() == [ns(datetime(2024, 3, 5, 14 + k)) for k in range(3)]
+    assert rec.rate == 1 / 3600 and rec.time.zone is None
+    assert [(c.name, c.unit) for c in rec.channels] == [
+        ("RECORD", "RN"), ("BattV_Min", "Volts"), ("AirTC_Avg", "Deg C"), ("RH", "%")]
+    assert rec.column(1).tolist() == [12.51, 12.5, 12.49] and np.isnan(rec.column(2)[1])
+    assert rec.notes[0].startswith('"TOA5"') and rec.notes[1] == '"","","Min","Avg","Smp"'
+
+
 def test_epoch_and_elapsed_seconds(tmp_path):
     p = write(tmp_path, "ep.csv", b"epoch,x\n1709647200.5,1\n1709647201.5,2\n")
     rec = read_recording(p)

@@ -66,6 +66,10 @@ CATALOGUE = [
     ("short_row.csv", b"time,a,b\n0,1,2\n1,2\n2,3,4\n3,4,5\n", [], "row"),
     ("long_row.csv", b"time,a\n0,1\n1,2,3\n2,3\n3,4\n", [], "row"),
     ("time_gap_cell.csv", b"time,x\n0,1\n,2\n2,3\n3,4\n", [], "row 2"),
+    ("toa5_cut.dat", b'"TOA5","CR1000"\r\n"TIMESTAMP","RECORD"\r\n', [], "cut short"),
+    ("toa5_ragged.dat", b'"TOA5","CR1000"\r\n"TIMESTAMP","RECORD","T"\r\n"TS","RN"\r\n"","",""\r\n'
+                        b'"2024-01-01 00:00:00",0,1\r\n', [], "damaged"),
+    ("binary.dat", bytes(range(256)) * 4, [], "NUL"),
     ("time_of_day.csv", b"Time,x\n23:59:58,1\n23:59:59,2\n00:00:00,3\n", [], "without dates"),
     ("time_words.csv", b"time,x\nmonday,1\ntuesday,2\nwednesday,3\n", [], "neither a date"),
     ("feb_30.csv", b"time,x\n2024-02-29T00:00:00,1\n2024-02-30T00:00:00,2\n2024-03-01T00:00:00,3\n", [], "row 2"),

@@ -31,7 +31,7 @@ def _parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", parser_class=_Parser)
 
     pk = sub.add_parser("pack", help="pack a recording into an archive", epilog=CAUTION)
-    pk.add_argument("source", help="recording: .csv/.txt/.tsv, .parquet, .wav, .edf/.bdf, or .npy (needs --rate)")
+    pk.add_argument("source", help="recording: .csv/.txt/.tsv/.dat, .parquet, .wav, .edf/.bdf, or .npy (needs --rate)")
     pk.add_argument("-o", "--output", metavar="ARCHIVE", help="archive folder to write (e.g. run.tsa)")
     pk.add_argument("--budget", default=DEFAULT_SPEC, metavar="SPEC",
                     help=f"error budget per channel: 0.02 (absolute, channel units), 0.1%% (of the channel's "

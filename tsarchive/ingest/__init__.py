@@ -6,7 +6,7 @@ Use :func:`read_recording`; it dispatches on the file extension:
 ``.npy``           1-D or 2-D (samples x channels) numeric array, memory-mapped;
                    needs ``rate``; names and units from ``options``.
 ``.csv`` ``.txt``  a logger's delimited text (:mod:`.dialect`: encoding,
-``.tsv``           delimiter, decimal comma, preamble), a time column
+``.tsv`` ``.dat``  delimiter, decimal comma, preamble, TOA5), a time column
                    (:mod:`.timeparse`), ``name [unit]`` / ``name (unit)``
                    headers, text columns kept aside (:mod:`.tabular`).
 ``.parquet``       numeric columns; a timestamp/date or time-named column;
@@ -30,8 +30,8 @@ from ..recording import Recording
 from .options import ReadOptions
 
 #: Extensions read_recording understands (lower case, with the dot).
-SUPPORTED = (".npy", ".csv", ".txt", ".tsv", ".parquet", ".wav", ".edf", ".bdf")
-_TEXT = (".csv", ".txt", ".tsv")
+SUPPORTED = (".npy", ".csv", ".txt", ".tsv", ".dat", ".parquet", ".wav", ".edf", ".bdf")
+_TEXT = (".csv", ".txt", ".tsv", ".dat")
 
 __all__ = ["SUPPORTED", "ReadOptions", "read_recording", "read_detailed"]
 

@@ -19,6 +19,7 @@ import pyarrow.csv as pacsv
 from ..errors import BadInput
 from .dialect import decode, detect, head_lines
 from .options import ReadOptions
+from .columns import split_header
 from .tabular import Detected, build_recording
 
 #: Largest text file read (the whole text is held in memory while it is split).
@@ -38,13 +39,15 @@ def read_csv_detailed(path: Path, options: ReadOptions) -> Detected:
     del raw
     d = detect(text, path.name, encoding)
     headers = list(d.header)
-    body = _body(text, d.header_line)
+    body = _body(text, d.header_line + d.header_rows - 1)
     del text
     cols = _split(body, headers, d.delimiter, path.name) if body.strip() else [pa.chunked_array([[]], pa.string())
                                                                                for _ in headers]
+    units = {h: u for h, u in zip(headers, d.units) if u and not split_header(h)[1]}   # a units row
     headers, cols = _drop_unnamed(headers, cols, path.name)
     notes = tuple(ln for ln in d.preamble if ln.strip())   # blank lines carry nothing
-    det = build_recording(path, headers, cols, options, text_source=True, decimal=d.decimal, notes=notes)
+    det = build_recording(path, headers, cols, options, units=units, text_source=True, decimal=d.decimal,
+                          notes=notes)
     return Detected(recording=det.recording, columns=det.columns, timing=det.timing, time_form=det.time_form,
                     time_notes=det.time_notes, encoding=encoding, delimiter=d.delimiter_name,
                     decimal=d.decimal, preamble=d.preamble)

@@ -14,6 +14,8 @@ returns a :class:`Dialect`:
   ``21,5`` (quoted, with a comma delimiter);
 * **preamble** -- every line before the header: ``#`` comments and a
   station's or logger's metadata lines (their own shape);
+* **TOA5** (Campbell Scientific loggers) -- recognised by its first cell;
+  its field names, units and processing lines are read as such;
 * **header** -- the first line, not a ``#`` comment, that has as many
   fields as the data rows, is followed by a data row, and whose next
   :data:`FOLLOW` rows of that width are all data rows; a data row is a
@@ -53,6 +55,10 @@ class Dialect:
     header_line: int
     header: tuple[str, ...]
     preamble: tuple[str, ...]
+    #: lines the header takes (names, then units and the like); the data start after them
+    header_rows: int = 1
+    #: one unit per column from a units row ("" where none), or () without one
+    units: tuple[str, ...] = ()
 
     @property
     def delimiter_name(self) -> str:
@@ -139,6 +145,8 @@ def detect(text: str, name: str, encoding: str) -> Dialect:
     lines = head_lines(text)
     if not any(ln.strip() for ln in lines):
         raise BadInput(f"{name}: file is empty; it needs a header row and data rows")
+    if split_row(lines[0], ",")[:1] == ["TOA5"]:
+        return _toa5(lines, name, encoding)
     for delimiter in DELIMITERS + ("",):
         found = _find_header(lines, delimiter)
         if found is None:
@@ -153,6 +161,19 @@ def detect(text: str, name: str, encoding: str) -> Dialect:
                        "check that this is the logger's data export")
     raise BadInput(f"{name}: no header row found above the data (a line naming every column, "
                    "as many fields as the rows below it); add one")
+
+
+def _toa5(lines: list[str], name: str, encoding: str) -> Dialect:
+    """Campbell Scientific's TOA5 text layout: an environment line, field names, units, processing, then data."""
+    if len(lines) < 5:
+        raise BadInput(f"{name}: a TOA5 file needs its four header lines and data rows; the file is cut short")
+    header = tuple(c.strip() for c in split_row(lines[1], ","))
+    units = tuple(c.strip() for c in split_row(lines[2], ","))
+    if len(units) != len(header) or len(split_row(lines[3], ",")) != len(header):
+        raise BadInput(f"{name}: its TOA5 header lines have different numbers of fields; the file is damaged")
+    data = [split_row(ln, ",") for ln in lines[4:] if ln.strip()]
+    return Dialect(encoding=encoding, delimiter=",", decimal=_decimal(data, ","), header_line=1, header=header,
+                   preamble=(lines[0], lines[3]), header_rows=3, units=units)
 
 
 def _decimal(rows: list[list[str]], delimiter: str) -> str:
