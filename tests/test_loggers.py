@@ -233,6 +233,17 @@ def test_us_logger_export_with_two_digit_years_pm_and_a_zone_in_the_header(tmp_p
     assert rec.column(1).tolist() == [68.123, 68.2, 68.25, 60.0]
 
 
+def test_a_units_row_under_the_names(tmp_path):
+    text = "Messung 12\nZeit;Temp;Feuchte;Kommentar\ns;°C;%RH;\n0,0;21,5;45;ok\n1,0;21,6;46;\n"
+    rec = read_recording(write(tmp_path, "u.csv", text.encode("cp1252")))
+    assert [(c.name, c.unit) for c in rec.channels] == [("Temp", "°C"), ("Feuchte", "%RH")]
+    assert rec.time.values.tolist() == [0.0, 1.0] and rec.notes == ("Messung 12",)
+    # a preamble line of the same width above the names is not mistaken for the names
+    text = "Station;Halle 3\nZeit;Temp\n0;21,5\n1;21,6\n"
+    rec = read_recording(write(tmp_path, "p2.csv", text.encode()))
+    assert [c.name for c in rec.channels] == ["Temp"] and rec.notes == ("Station;Halle 3",)
+
+
 def test_campbell_toa5_file(tmp_path):
     # The TOA5 layout of Campbell Scientific loggers (their manuals; from memory): environment line, field names,
     # units, processing, then data; "NAN" marks a missing value.

@@ -14,6 +14,8 @@ returns a :class:`Dialect`:
   ``21,5`` (quoted, with a comma delimiter);
 * **preamble** -- every line before the header: ``#`` comments and a
   station's or logger's metadata lines (their own shape);
+* **units row** -- a row under the names whose cells are mostly unit
+  symbols (``s``, ``°C``, ``%RH``) gives the columns' units;
 * **TOA5** (Campbell Scientific loggers) -- recognised by its first cell;
   its field names, units and processing lines are read as such;
 * **header** -- the first line, not a ``#`` comment, that has as many
@@ -151,16 +153,35 @@ def detect(text: str, name: str, encoding: str) -> Dialect:
         found = _find_header(lines, delimiter)
         if found is None:
             continue
-        h, _ = found
+        h, width = found
         header = tuple(c.strip() for c in split_row(lines[h], delimiter))
         data = [split_row(ln, delimiter) for ln in lines[h + 1:] if ln.strip()]
-        return Dialect(encoding=encoding, delimiter=delimiter, decimal=_decimal(data, delimiter),
+        decimal = _decimal(data, delimiter)
+        above = split_row(lines[h - 1], delimiter) if h > 0 and lines[h - 1].strip() else []
+        if (len(above) == width and not lines[h - 1].lstrip().startswith("#") and not _datalike(above)
+                and _units_row(header)):      # names, then a row of units
+            return Dialect(encoding=encoding, delimiter=delimiter, decimal=decimal, header_line=h - 1,
+                           header=tuple(c.strip() for c in above), preamble=tuple(lines[:h - 1]), header_rows=2,
+                           units=header)
+        return Dialect(encoding=encoding, delimiter=delimiter, decimal=decimal,
                        header_line=h, header=header, preamble=tuple(lines[:h]))
     if not any(_datalike(split_row(ln, d)) for ln in lines for d in DELIMITERS):
         raise BadInput(f"{name}: no data rows found (no cell holds a number or a time); "
                        "check that this is the logger's data export")
     raise BadInput(f"{name}: no header row found above the data (a line naming every column, "
                    "as many fields as the rows below it); add one")
+
+
+#: Unit symbols that mark a row under the names as a units row (common practice (no source)).
+UNIT_WORDS = frozenset("""s ms us µs min h d °c degc deg c k °f degf % %rh rh v mv µv uv kv a ma µa ua pa hpa kpa mpa
+bar mbar psi m mm cm km m/s km/h m/s2 m/s² g mg kg n kn nm hz khz w kw mw wh kwh j ppm ppb lux lx db dba l l/min
+ml/min ohm kohm Ω kω volts amps deg w/m2 w/m² mm/h""".split()) | {"deg c"}
+
+
+def _units_row(cells: tuple[str, ...]) -> bool:
+    """True when most non-empty cells are unit symbols (``s``, ``°C``, ``%RH``, ``mV``, ...)."""
+    named = [c.strip().strip("[]()").lower() for c in cells if c.strip()]
+    return bool(named) and sum(c in UNIT_WORDS for c in named) * 2 > len(named)
 
 
 def _toa5(lines: list[str], name: str, encoding: str) -> Dialect:
