@@ -156,3 +156,25 @@ def test_edf_dry_run_shows_header_lines_and_annotations(capsys):
         f.close()
     assert "EDF header's rate" in out and f"equipment: {equipment}" in out
     assert all(t in out for t in texts)
+
+
+@pytest.mark.parametrize("width", [1, 2, 3, 4])
+def test_files_written_by_the_standard_library_wave_module(tmp_path, width):
+    # Reference writer: Python's wave module (PCM; 8-bit unsigned, wider widths signed little-endian).
+    import wave
+    rng = np.random.default_rng(width)
+    bits = 8 * width
+    if width == 1:
+        x = rng.integers(0, 256, (500, 3), dtype=np.int64)
+        raw = x.astype(np.uint8).tobytes()
+    else:
+        x = rng.integers(-2 ** (bits - 1), 2 ** (bits - 1), (500, 3), dtype=np.int64)
+        raw = b"".join(int(v).to_bytes(width, "little", signed=True) for v in x.reshape(-1))
+    p = tmp_path / f"w{bits}.wav"
+    with wave.open(str(p), "wb") as w:
+        w.setnchannels(3)
+        w.setsampwidth(width)
+        w.setframerate(22050)
+        w.writeframes(raw)
+    rec = read_recording(p)
+    assert rec.rate == 22050.0 and rec.data.tolist() == x.tolist()
