@@ -65,6 +65,10 @@ def split_header(header: str) -> tuple[str, str]:
 
 def text_to_numbers(col: pa.ChunkedArray, decimal: str, tokens: tuple[str, ...]):
     """(numpy array, dtype name, missing count, tokens seen) of a string column, or None if it is text."""
+    if decimal == ".":
+        plain = _plain_numbers(col)
+        if plain is not None:
+            return plain
     col = pc.utf8_trim_whitespace(col.combine_chunks() if isinstance(col, pa.ChunkedArray) else col)
     col = pc.if_else(pc.is_null(col), "", col)
     missing_set = pa.array(list(dict.fromkeys(MISSING_TOKENS + tuple(tokens))), type=pa.string())
@@ -92,6 +96,21 @@ def text_to_numbers(col: pa.ChunkedArray, decimal: str, tokens: tuple[str, ...])
     out = np.full(len(col), np.nan)
     out[~is_missing.to_numpy(zero_copy_only=False)] = values
     return out, "float64", n_missing, seen
+
+
+def _plain_numbers(col):
+    """The common case in one cast: every cell an integer, or every cell a number and none NaN; else None."""
+    # a failing cast costs as much as a whole one: try integers only when the first cells are integers
+    head_ints = pc.all(pc.match_substring_regex(col[:64], _INT_RE)).as_py()
+    for t in ((pa.int64(), pa.float64()) if head_ints else (pa.float64(),)):
+        try:
+            arr = pc.cast(col, t).to_numpy(zero_copy_only=False)
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+            continue
+        if t == pa.float64() and np.isnan(arr).any():
+            return None     # "nan" cells: the full path counts them as missing
+        return arr, arr.dtype.name, 0, ()
+    return None
 
 
 def typed_to_numbers(header: str, col: pa.ChunkedArray):
