@@ -175,6 +175,14 @@ def test_iso_spellings_give_the_same_instants(tmp_path, a, b, zone):
     assert rec.time.zone == zone and rec.time.values.tolist() == [ns(wall), ns(wall + timedelta(seconds=1))]
 
 
+def test_a_zone_named_in_the_time_header(tmp_path):
+    p = write(tmp_path, "utc.csv", b"Timestamp (UTC),x\n2024-03-05 14:00:00,1\n2024-03-05 14:00:01,2\n")
+    rec = read_recording(p)
+    assert rec.time.zone == "Z" and rec.start == datetime(2024, 3, 5, 14, tzinfo=timezone.utc)
+    rec = read_recording(p, options=ReadOptions.build(zone="+01:00"))     # the user's word comes first
+    assert rec.time.zone == "+01:00"
+
+
 def test_iso_offsets_are_kept_as_logged(tmp_path):
     p = write(tmp_path, "o.csv", b"time,x\n2024-03-05T14:00:00.250+01:00,1\n2024-03-05T14:00:00.750+01:00,2\n")
     rec = read_recording(p)

@@ -259,10 +259,10 @@ def _finish(g, ns, header, stated_zone, form, notes, columns) -> TimeFound:
 
 
 def header_zone(header: str) -> str | None:
-    """``"Date Time, GMT-05:00"`` -> ``"-05:00"``: the zone a time column's header states, if any."""
+    """``"Date Time, GMT-05:00"`` -> ``"-05:00"``, ``"Time (UTC)"`` -> ``"Z"``: the zone a time header states."""
     m = HEADER_ZONE.search(header)
     if m is None:
-        return None
+        return "Z" if re.search(r"\b(?:UTC|GMT)\b", header, re.IGNORECASE) else None   # "Time (UTC)"
     return parse_zone(f"{m.group('sign')}{int(m.group('h')):02d}:{m.group('m') or '00'}")
 
 
