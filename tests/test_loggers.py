@@ -218,7 +218,8 @@ def test_date_and_time_columns_with_end_of_day_2400(tmp_path):
     base = datetime(2024, 2, 29, 23, 59, 58)
     assert rec.time.values.tolist() == [ns(base + timedelta(seconds=k)) for k in range(4)]
     assert rec.time.columns == ("Date", "Time") and rec.rate == 1.0
-    text = "Datum;Uhrzeit;v\n29.02.2024;23:59:58;1\n29.02.2024;23:59:59;2\n29.02.2024;24:00:00;3\n01.03.2024;00:00:01;4\n"
+    text = ("Datum;Uhrzeit;v\n29.02.2024;23:59:58;1\n29.02.2024;23:59:59;2\n29.02.2024;24:00:00;3\n"
+            "01.03.2024;00:00:01;4\n")
     rec = read_recording(write(tmp_path, "dt2.csv", text.encode()))
     assert rec.time.values.tolist() == [ns(base + timedelta(seconds=k)) for k in range(4)]
 
@@ -246,6 +247,9 @@ def test_a_units_row_under_the_names(tmp_path):
     rec = read_recording(write(tmp_path, "u.csv", text.encode("cp1252")))
     assert [(c.name, c.unit) for c in rec.channels] == [("Temp", "°C"), ("Feuchte", "%RH")]
     assert rec.time.values.tolist() == [0.0, 1.0] and rec.notes == ("Messung 12",)
+    # a row of one-letter names is not a units row, though "a" is also the ampere's symbol
+    rec = read_recording(write(tmp_path, "ab.csv", b"Run 7;x;y\nt;a;v\n0;1;2\n1;3;4\n"))
+    assert [c.name for c in rec.channels] == ["a", "v"] and rec.notes == ("Run 7;x;y",)
     # a preamble line of the same width above the names is not mistaken for the names
     text = "Station;Halle 3\nZeit;Temp\n0;21,5\n1;21,6\n"
     rec = read_recording(write(tmp_path, "p2.csv", text.encode()))

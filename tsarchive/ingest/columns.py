@@ -155,4 +155,5 @@ def count_sentinels(values: np.ndarray, sentinels: tuple[float, ...]) -> int:
     """How many values equal one of ``sentinels`` (exact comparison)."""
     if not sentinels:
         return 0
-    return int(np.isin(values, np.asarray(sentinels, dtype=values.dtype if values.dtype.kind == "f" else np.float64)).sum())
+    wanted = np.asarray(sentinels, dtype=values.dtype if values.dtype.kind == "f" else np.float64)
+    return int(np.isin(values, wanted).sum())

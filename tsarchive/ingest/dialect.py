@@ -84,7 +84,8 @@ def decode(raw: bytes, name: str) -> tuple[str, str]:
             raise BadInput(f"{name}: starts with a UTF-16 mark but is not valid UTF-16; "
                            "save the file again as UTF-8") from None
     if b"\x00" in raw[:65536]:
-        raise BadInput(f"{name}: holds NUL bytes, so it is not a text table; check that this is the logger's CSV export")
+        raise BadInput(f"{name}: holds NUL bytes, so it is not a text table; "
+                       "check that this is the logger's CSV export")
     try:
         return raw.decode("utf-8"), "utf-8"
     except UnicodeDecodeError:
@@ -173,15 +174,17 @@ def detect(text: str, name: str, encoding: str) -> Dialect:
 
 
 #: Unit symbols that mark a row under the names as a units row (common practice (no source)).
-UNIT_WORDS = frozenset("""s ms us µs min h d °c degc deg c k °f degf % %rh rh v mv µv uv kv a ma µa ua pa hpa kpa mpa
-bar mbar psi m mm cm km m/s km/h m/s2 m/s² g mg kg n kn nm hz khz w kw mw wh kwh j ppm ppb lux lx db dba l l/min
-ml/min ohm kohm Ω kω volts amps deg w/m2 w/m² mm/h""".split()) | {"deg c"}
+UNIT_WORDS = frozenset("""s ms us µs min h d °c degc k °f degf % %rh rh v mv µv uv kv a ma µa ua pa hpa kpa mpa bar
+mbar psi m mm cm km m/s km/h m/s2 m/s² g mg kg n kn nm hz khz w kw mw wh kwh j ppm ppb lux lx db dba l l/min ml/min
+ohm kohm Ω kω volts amps deg w/m2 w/m² mm/h""".split()) | {"deg c"}
 
 
 def _units_row(cells: tuple[str, ...]) -> bool:
-    """True when most non-empty cells are unit symbols (``s``, ``°C``, ``%RH``, ``mV``, ...)."""
+    """True when most non-empty cells are unit symbols (``s``, ``°C``, ``%RH``, ``mV``, ...), one of them
+    longer than a letter (a row of names such as ``t, a, b`` is not taken for units)."""
     named = [c.strip().strip("[]()").lower() for c in cells if c.strip()]
-    return bool(named) and sum(c in UNIT_WORDS for c in named) * 2 > len(named)
+    units = [c for c in named if c in UNIT_WORDS]
+    return bool(named) and len(units) * 2 > len(named) and any(len(u) > 1 for u in units)
 
 
 def _toa5(lines: list[str], name: str, encoding: str) -> Dialect:

@@ -34,7 +34,8 @@ def _groups(rates: list[float]) -> dict[float, list[int]]:
 
 
 def _describe(groups: dict[float, list[int]], labels: list[str]) -> str:
-    return "; ".join(f"{r:g} Hz: {', '.join(labels[i] for i in idx)}" for r, idx in sorted(groups.items(), reverse=True))
+    return "; ".join(f"{r:g} Hz: {', '.join(labels[i] for i in idx)}"
+                     for r, idx in sorted(groups.items(), reverse=True))
 
 
 def read_edf(path: Path, options: ReadOptions) -> Recording:
@@ -42,7 +43,8 @@ def read_edf(path: Path, options: ReadOptions) -> Recording:
     try:
         import pyedflib
     except ImportError:
-        raise BadInput(f"{path.name}: reading EDF needs pyedflib; install it with pip install 'tsarchive[edf]'") from None
+        raise BadInput(f"{path.name}: reading EDF needs pyedflib; "
+                       "install it with pip install 'tsarchive[edf]'") from None
     _refuse_discontinuous(path)
     try:
         f = pyedflib.EdfReader(str(path))
@@ -100,8 +102,8 @@ def _refuse_discontinuous(path: Path) -> None:
 
 def _notes(f) -> tuple[str, ...]:
     lines = []
-    for label, value in (("patient", f.getPatientCode() or f.getPatientName()), ("recording", f.getRecordingAdditional()),
-                         ("equipment", f.getEquipment())):
+    for label, value in (("patient", f.getPatientCode() or f.getPatientName()),
+                         ("recording", f.getRecordingAdditional()), ("equipment", f.getEquipment())):
         if value and value.strip():
             lines.append(f"{label}: {value.strip()}")
     onsets, durations, texts = f.readAnnotations()

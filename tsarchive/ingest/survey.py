@@ -73,7 +73,8 @@ class SourceSurvey:
             lines.append("sentinels  " + ", ".join(f"{v:g}" for v in self.sentinels))
         rows = [("column", "role", "name", "unit", "dtype", "resolution", "missing")]
         for c in self.columns:
-            miss = "" if not c.missing else f"{c.missing}" + (f" ({', '.join(repr(t) for t in c.tokens)})" if c.tokens else "")
+            seen = f" ({', '.join(repr(t) for t in c.tokens)})" if c.tokens else ""
+            miss = f"{c.missing}{seen}" if c.missing else ""
             if c.sentinels:
                 miss = (miss + "; " if miss else "") + f"{c.sentinels} sentinel(s)"
             rows.append((c.header, c.role, c.name, c.unit, c.dtype, c.resolution, miss))

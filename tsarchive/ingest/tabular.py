@@ -31,8 +31,8 @@ from ..recording import ChannelInfo, Recording, TimeAxis
 from .columns import ColumnReport, as_text, count_sentinels, split_header, text_to_numbers, typed_to_numbers
 from .grid import detect_decimals
 from .options import ReadOptions, check_rate, zone_seconds
-from .timeparse import DATE_NAMES, TIME_ONLY, TimeFound, header_zone, is_time_name, normal_name, parse_date_and_time, parse_datetimes, \
-    parse_seconds
+from .timeparse import (DATE_NAMES, TIME_ONLY, TimeFound, header_zone, is_time_name, normal_name,
+                        parse_date_and_time, parse_datetimes, parse_seconds)
 from .timing import Timing, check_rate_beside, check_span, timing_of
 
 __all__ = ["Detected", "build_recording", "split_header", "is_time_name", "check_rate"]
@@ -74,7 +74,8 @@ def _typed_time(header: str, col: pa.ChunkedArray) -> TimeFound:
     try:
         ns = col.cast(pa.timestamp("ns", tz=tz)).cast(pa.int64()).to_numpy(zero_copy_only=False)
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError) as exc:
-        raise BadInput(f"time column '{header}' cannot be held at nanosecond resolution ({exc}); check its dates") from None
+        raise BadInput(f"time column '{header}' cannot be held at nanosecond resolution ({exc}); "
+                       "check its dates") from None
     zone = None if tz is None else ("Z" if tz.upper() in ("UTC", "Z", "+00:00", "ETC/UTC") else tz)
     notes = ()
     if zone is not None and zone != "Z" and not (zone[:1] in "+-" and len(zone) == 6):

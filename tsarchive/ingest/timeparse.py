@@ -139,7 +139,8 @@ def _clock_ns(g: dict[str, np.ndarray], header: str, raw: pa.Array) -> np.ndarra
     ok = ok_date & ok_time
     if not ok.all():
         i = _first_bad(ok)
-        raise BadInput(f"time column '{header}' row {i + 1}: {raw[i].as_py()!r} is not a valid date and time; fix that row")
+        raise BadInput(f"time column '{header}' row {i + 1}: {raw[i].as_py()!r} is not a valid date and time; "
+                       "fix that row")
     ok = (y >= YEAR_MIN) & (y <= YEAR_MAX)
     if not ok.all():
         i = _first_bad(ok)
