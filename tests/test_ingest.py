@@ -97,9 +97,9 @@ def test_grid_never_exceeds_the_formatting_decimals(ks, d):
 def test_missing_and_unsupported(tmp_path):
     with pytest.raises(SourceNotFound):
         read_recording(tmp_path / "nope.csv")
-    (tmp_path / "x.txt").write_text("a\n1\n")
-    with pytest.raises(BadInput, match=r"\.npy, \.csv, \.parquet"):
-        read_recording(tmp_path / "x.txt")
+    (tmp_path / "x.xyz").write_text("a\n1\n")
+    with pytest.raises(BadInput, match=r"\.npy, \.csv, .*\.parquet"):
+        read_recording(tmp_path / "x.xyz")
 
 
 def test_npy_1d_is_memory_mapped_and_keeps_shape(tmp_path):
@@ -170,12 +170,15 @@ def test_csv_units_iso_start_and_rate(tmp_path):
 
 
 def test_csv_naive_and_offset_iso(tmp_path):
-    # ISO 8601: "+02:00" means two hours ahead of UTC; naive is taken as UTC (documented).
+    # ISO 8601: "+02:00" means two hours ahead of UTC; a time without an offset stays naive.
     p = _csv(tmp_path / "b.csv", "when,x\n2030-06-01T12:00:00+02:00,1\n2030-06-01T12:00:01+02:00,2\n")
-    assert read_recording(p).start == datetime(2030, 6, 1, 10, 0, 0, tzinfo=UTC)
+    rec = read_recording(p)
+    assert rec.start == datetime(2030, 6, 1, 10, 0, 0, tzinfo=UTC) and rec.start.utcoffset() == timedelta(hours=2)
+    assert rec.time.zone == "+02:00"
     p = _csv(tmp_path / "c.csv", "Timestamp,x\n2030-06-01 12:00:00,1\n2030-06-01 12:00:02,2\n")
     rec = read_recording(p)
-    assert rec.start == datetime(2030, 6, 1, 12, tzinfo=UTC) and rec.rate == 0.5
+    assert rec.start == datetime(2030, 6, 1, 12) and rec.start.tzinfo is None and rec.rate == 0.5
+    assert rec.time.zone is None
 
 
 def test_csv_millisecond_timestamps_at_3_hz(tmp_path):
@@ -199,10 +202,12 @@ def test_csv_seconds_column(tmp_path):
 
 def test_csv_irregular_time(tmp_path):
     p = _csv(tmp_path / "f.csv", "time,x\n0,1\n1,2\n2,3\n3.5,4\n4.5,5\n")
-    with pytest.raises(BadInput, match="irregular"):
-        read_recording(p)
-    rec = read_recording(p, rate=1.0)  # an explicit rate overrides
-    assert rec.rate == 1.0 and rec.n_samples == 5
+    rec = read_recording(p)  # irregular timing is kept, the rate is the median step's
+    assert rec.rate == 1.0 and rec.n_samples == 5 and rec.time.values.tolist() == [0, 1, 2, 3.5, 4.5]
+    rec = read_recording(p, rate=1.0)  # a rate that agrees keeps the time column
+    assert rec.rate == 1.0 and rec.time is not None
+    with pytest.raises(BadInput, match="disagrees"):  # one that does not is refused, never silently applied
+        read_recording(p, rate=2.0)
 
 
 def test_csv_without_time_column(tmp_path):
@@ -210,8 +215,8 @@ def test_csv_without_time_column(tmp_path):
     with pytest.raises(BadInput, match="--rate"):
         read_recording(p)
     rec = read_recording(p, rate=100)
-    # only square brackets carry a unit
-    assert [(c.name, c.unit) for c in rec.channels] == [("a", ""), ("b (V)", "")]
+    # square brackets and parentheses carry a unit
+    assert [(c.name, c.unit) for c in rec.channels] == [("a", ""), ("b", "V")]
     assert rec.data.dtype == np.int64 and rec.data.tolist() == [[1, 2], [3, 4]]
 
 
@@ -233,8 +238,8 @@ def test_csv_single_column_blank_cells(tmp_path):
 
 
 def test_csv_rejects(tmp_path):
-    with pytest.raises(BadInput, match="not numeric"):
-        read_recording(_csv(tmp_path / "j.csv", "time,x,label\n0,1,on\n1,2,off\n"))
+    rec = read_recording(_csv(tmp_path / "j.csv", "time,x,label\n0,1,on\n1,2,off\n"))  # text is kept aside
+    assert rec.extra.column("label").to_pylist() == ["on", "off"]
     with pytest.raises(BadInput):
         read_recording(_csv(tmp_path / "k.csv", ""), rate=1)
     with pytest.raises(BadInput, match="no data rows"):
@@ -243,7 +248,7 @@ def test_csv_rejects(tmp_path):
         read_recording(_csv(tmp_path / "m.csv", "a [V],a [mV]\n1,2\n"), rate=1)
     with pytest.raises(BadInput, match="single row"):
         read_recording(_csv(tmp_path / "n.csv", "time,a\n0,2\n"))
-    with pytest.raises(BadInput, match="neither ISO 8601"):
+    with pytest.raises(BadInput, match="neither a date and time"):
         read_recording(_csv(tmp_path / "o.csv", "time,a\nmonday,2\ntuesday,3\n"))
 
 
@@ -277,8 +282,7 @@ def test_parquet_seconds_time_ints_with_nulls_and_strings(tmp_path):
     assert np.ma.getmaskarray(rec.column(0)).tolist() == [False, True] + [False] * 4
     assert rec.column(0)[[0, 2, 3, 4, 5]].tolist() == [1, 3, 4, 5, 6] and rec.column(1).tolist() == list(range(6))
     pq.write_table(pa.table({"x": [1.0, 2.0], "s": ["a", "b"]}), tmp_path / "c.parquet")
-    with pytest.raises(BadInput, match="not numeric"):
-        read_recording(tmp_path / "c.parquet", rate=1)
+    assert read_recording(tmp_path / "c.parquet", rate=1).extra.column("s").to_pylist() == ["a", "b"]
     (tmp_path / "d.parquet").write_bytes(b"PAR1 not really")
     with pytest.raises(BadInput, match="Parquet"):
         read_recording(tmp_path / "d.parquet", rate=1)

@@ -18,7 +18,8 @@ __version__ = "0.1.0"
 from .budget import DEFAULT_SPEC, Budget, BudgetSpec, parse_budget_spec
 from .errors import (ArchiveCorrupt, ArchiveExists, ArchiveNotFound, BadInput, BoundViolation, BudgetError,
                      Cancelled, FormatVersionError, SourceNotFound, TsArchiveError, UnknownCodec)
-from .ingest import read_recording
+from .ingest import ReadOptions, read_recording
+from .ingest.survey import SourceSurvey, survey_source
 from .pipeline import pack
 from .recording import ChannelInfo, Recording
 from .results import ChannelCheck, ChannelSummary, PackResult, Progress, VerifyReport
@@ -37,13 +38,13 @@ def verify(archive, against=None, progress=None, **options) -> VerifyReport:
     return verify_archive(archive, against=against, progress=progress, **options)
 
 
-def inspect_source(path, rate: float | None = None) -> Recording:
+def inspect_source(path, rate: float | None = None, options: ReadOptions | None = None) -> Recording:
     """Read a recording's channels, units, rate and detected resolution (no packing)."""
-    return read_recording(path, rate=rate)
+    return read_recording(path, rate=rate, options=options)
 
 
 __all__ = [
-    "__version__", "pack", "open", "verify", "inspect_source", "read_recording",
+    "__version__", "pack", "open", "verify", "inspect_source", "read_recording", "ReadOptions", "survey_source", "SourceSurvey",
     "Archive", "ChannelMeta", "WindowTable", "Budget", "BudgetSpec", "DEFAULT_SPEC", "parse_budget_spec",
     "ChannelInfo", "Recording", "Times", "Progress", "PackResult", "ChannelSummary", "VerifyReport", "ChannelCheck",
     "TsArchiveError", "BadInput", "BudgetError", "SourceNotFound", "ArchiveNotFound", "ArchiveExists",

@@ -39,12 +39,15 @@ def _parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", parser_class=_Parser)
 
     pk = sub.add_parser("pack", help="pack a recording into an archive", epilog=CAUTION)
-    pk.add_argument("source", help="recording: .npy (needs --rate), .csv or .parquet")
-    pk.add_argument("-o", "--output", required=True, metavar="ARCHIVE", help="archive folder to write (e.g. run.tsa)")
+    pk.add_argument("source", help="recording: .csv/.txt/.tsv/.dat, .parquet, .wav, .edf/.bdf, or .npy (needs --rate)")
+    pk.add_argument("-o", "--output", metavar="ARCHIVE", help="archive folder to write (e.g. run.tsa)")
     pk.add_argument("--budget", default=DEFAULT_SPEC, metavar="SPEC",
                     help=f"error budget per channel: 0.02 (absolute, channel units), 0.1%% (of the channel's "
                          f"range), lossless, or per channel temp=0.05,accel=0.1%% (default: {DEFAULT_SPEC.replace('%', '%%')})")
-    pk.add_argument("--rate", type=float, metavar="HZ", help="sample rate (required for .npy)")
+    pk.add_argument("--rate", type=float, metavar="HZ",
+                    help="sample rate, for sources without a time column (.npy); beside a time column it must "
+                         "agree with it; for EDF it picks the signals recorded at that rate")
+    _source_options(pk)
     pk.add_argument("--window", type=int, metavar="N",
                     help="samples per window (default: 1024 to 8192, whichever is estimated smallest; "
                          "1024 with --code-size K > 0)")
@@ -94,6 +97,28 @@ def _parser() -> argparse.ArgumentParser:
     return p
 
 
+def _source_options(pk: argparse.ArgumentParser) -> None:
+    """How to read the source (see tsarchive.ingest.options.ReadOptions)."""
+    pk.add_argument("--zone", metavar="OFFSET", help="offset the source's naive times were logged in, e.g. +01:00 "
+                    "(default: they stay naive, as logged)")
+    pk.add_argument("--without-time", action="store_true",
+                    help="ignore the source's time column and take the samples as regular at --rate "
+                         "(the logged times, gaps and jitter are then lost)")
+    pk.add_argument("--missing", metavar="A,B", help="extra cell values meaning 'no measurement': words become "
+                    "missing (NaN), numbers such as -9999 are kept exactly as sentinels")
+    pk.add_argument("--skip-text", action="store_true", help="leave out non-numeric columns (default: kept as text)")
+    pk.add_argument("--names", metavar="A,B", help="channel names, one per column (.npy, .wav)")
+    pk.add_argument("--units", metavar="U,V", help="channel units, one per column (.npy, .wav)")
+    pk.add_argument("--dry-run", action="store_true",
+                    help="show what was found in the source (columns, units, timing, encoding) and write nothing")
+
+
+def _read_options(args):
+    from .ingest.options import ReadOptions
+    return ReadOptions.build(rate=args.rate, zone=args.zone, without_time=args.without_time, missing=args.missing,
+                             skip_text=args.skip_text, names=args.names, units=args.units)
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else list(argv)
     try:
@@ -136,8 +161,17 @@ def _caution_if_lossy(lossy: bool, to_stderr: bool = False) -> None:
 
 def _pack(args) -> int:
     from .pipeline import pack
+    options = _read_options(args)
+    if args.dry_run:
+        from .ingest.survey import survey_source
+        survey = survey_source(args.source, options=options)
+        print(json.dumps(survey.to_dict(), indent=1) if args.json else survey.to_text())
+        return 0
+    if not args.output:
+        raise BadInput("pack: -o ARCHIVE is required (the archive folder to write); or pass --dry-run to only "
+                       "look at the source")
     res = pack(args.source, args.output, args.budget, rate=args.rate, window=args.window,
-               code_size=args.code_size, force=args.force)
+               code_size=args.code_size, force=args.force, read_options=options)
     lossy = any(c.eps > 0 for c in res.channels)
     if args.json:
         print(json.dumps(res.to_dict(), indent=1))

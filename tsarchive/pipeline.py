@@ -76,7 +76,7 @@ PROBE_EVAL_SAMPLES = 1 << 18  # per channel: the probe's saving is estimated on 
 
 def pack(source, archive, budget=None, *, rate: float | None = None, window: int | None = None,
          code_size: int | None = None, force: bool = False, progress: ProgressFn = None, cancel=None,
-         train_seconds: float = 60.0, seed: int = 0) -> PackResult:
+         train_seconds: float = 60.0, seed: int = 0, read_options=None) -> PackResult:
     """Pack ``source`` (a path or a :class:`Recording`) into the archive directory ``archive``.
 
     Every sample of the archive is within its channel's budget; the archive
@@ -96,13 +96,14 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     model's own bytes.  ``window=None`` picks the window length of
     ``WINDOW_CHOICES`` that a planned and coded sample says is smallest
     (``DEFAULT_WINDOW`` when a code size > 0 is given: codes are asked for to
-    browse by them, in the finer segments).
+    browse by them, in the finer segments).  ``read_options``
+    (:class:`~tsarchive.ingest.ReadOptions`) says how to read a source path.
     """
     t0 = time.perf_counter()
     emit = _emitter(progress, cancel)
     archive = Path(archive)
     emit("read", 0, 1, "reading source")
-    rec = source if isinstance(source, Recording) else read_recording(source, rate=rate)
+    rec = source if isinstance(source, Recording) else read_recording(source, rate=rate, options=read_options)
     check_axis(rec)
     check_target(archive, force)
     names = [c.name for c in rec.channels]
@@ -173,7 +174,8 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
             if not explicit and K and ceiling <= (PROBE_SHARE if probe else 1.0) * bound:
                 hopeless.set()
             job = dict(archive=archive, force=force, rec=rec, spec=spec, grids=grids, scales=scales, notes=notes,
-                       names=names, W=W, K=K, emit=emit, progress=progress)
+                       names=names, W=W, K=K, emit=emit, progress=progress,
+                       read_options=None if isinstance(source, Recording) else read_options)
 
             def judged():
                 """The trained model's plan and account, and whether it is worth (re)encoding with it."""
@@ -295,6 +297,8 @@ def _write(job: dict, model, plans, model_note, decide=None) -> dict:
         manifest = build_manifest(rec, job["spec"], job["grids"], job["scales"], [p.lpc for p in plans], tables,
                                   job["notes"], job["W"], job["K"], decoder, model_note, summaries,
                                   writer.staged_bytes())
+        if job["read_options"] is not None and job["read_options"].to_dict():   # so verify re-reads the source alike
+            manifest["read_options"] = job["read_options"].to_dict()
         stage = writer.finalize({**manifest, **sidecar})
         emit("write", 1, 1, "staged")
 

@@ -219,16 +219,17 @@ def source_identity(arc, path: Path) -> SourceIdentity:
 def _source(arc, against, rate: float | None = None) -> Recording | None:
     if against is None or isinstance(against, Recording):
         return against
-    from .ingest import read_recording
+    from .ingest import ReadOptions, read_recording
     own = arc.channels[0].rate if arc.channels else None
     path = Path(against)
+    options = ReadOptions.from_dict(arc.manifest.get("read_options") or {})   # as pack read it (optional field)
     if rate is not None or path.suffix.lower() == ".npy":
-        rec = read_recording(path, rate=rate if rate is not None else own)
+        rec = read_recording(path, rate=rate if rate is not None else own, options=options)
     else:
         try:  # a table's own time column first; the archive's rate when it has none
-            rec = read_recording(path)
+            rec = read_recording(path, options=options)
         except BadInput:
-            rec = read_recording(path, rate=own)
+            rec = read_recording(path, rate=own, options=options)
     if rec.n_samples != (arc.channels[0].n_samples if arc.channels else 0):
         raise BadInput(f"{path.name} has {rec.n_samples} samples but the archive has "
                        f"{arc.channels[0].n_samples}; pass the recording the archive was packed from")

@@ -15,15 +15,16 @@ import numpy as np
 from ..errors import BadInput
 from ..recording import ChannelInfo, Recording
 from .grid import MAX_CHECKED, detect_decimals
-from .tabular import check_rate
+from .options import ReadOptions, check_rate
 
 SAMPLE_ROWS_PER_MAP = 4096   # sampled rows per memory map while sampling for grid detection
 
 
-def read_npy(path: Path, rate: float | None) -> Recording:
+def read_npy(path: Path, rate: float | None, options: ReadOptions | None = None) -> Recording:
     """Memory-map a 1-D or 2-D (samples x channels) numeric array.
 
-    Channels are named ``ch0``, ``ch1``, ... with no unit.  A 1-D array
+    Channels are named ``ch0``, ``ch1``, ... with no unit, unless
+    ``options.names`` / ``options.units`` give one per column.  A 1-D array
     becomes an ``(n, 1)`` view; ``Recording.shape`` keeps the original shape.
     Raises :class:`BadInput` without ``rate``, for a non-numeric dtype
     (object, complex, bool, structured), a 0-d or 3-D+ array, or no samples.
@@ -50,12 +51,28 @@ def read_npy(path: Path, rate: float | None) -> Recording:
         raise BadInput(f"{path.name}: array of shape {shape} has no samples; give a non-empty recording")
     dtype_name = arr.dtype.name
     probe = _strided_sample(path, shape[0])
+    names, units = _names_units(path, probe.shape[1], options or ReadOptions())
     channels = tuple(
-        ChannelInfo(name=f"ch{j}", unit="", dtype=dtype_name, decimals=detect_decimals(probe[:, j], arr.dtype))
+        ChannelInfo(name=names[j], unit=units[j], dtype=dtype_name, decimals=detect_decimals(probe[:, j], arr.dtype),
+                    sentinels=(options or ReadOptions()).sentinels)
         for j in range(probe.shape[1])
     )
     data = arr.reshape(shape[0], 1) if arr.ndim == 1 else arr
     return Recording(data=data, rate=float(rate), channels=channels, start=None, source=path, shape=shape)
+
+
+def _names_units(path: Path, k: int, options: ReadOptions) -> tuple[list[str], list[str]]:
+    """One name and one unit per column: given ones (checked against the column count) or ch0, ch1, ..."""
+    names = list(options.names) or [f"ch{j}" for j in range(k)]
+    units = list(options.units) or [""] * k
+    for what, given in (("names", names), ("units", units)):
+        if len(given) != k:
+            raise BadInput(f"{path.name}: has {k} column(s) but {len(given)} {what} were given; "
+                           f"give one per column, separated by commas")
+    dup = sorted({n for n in names if names.count(n) > 1})
+    if dup:
+        raise BadInput(f"{path.name}: channel name '{dup[0]}' is given twice; give each column its own name")
+    return names, units
 
 
 def _strided_sample(path: Path, n: int) -> np.ndarray:

@@ -3,8 +3,8 @@
 Numeric columns are channels and keep their stored dtype (float32 stays
 float32 when every channel is float32).  A unit may be stored in a field's
 metadata under the key ``b"unit"`` (this is how :mod:`tsarchive.export`
-writes it) or in the name as ``name [unit]``.  The first column is the time
-axis when it is timestamp/date typed or time-named (see :mod:`.tabular`).
+writes it) or in the name as ``name [unit]`` / ``name (unit)``.  The time
+column and text columns are handled as in :mod:`.tabular`.
 """
 
 from __future__ import annotations
@@ -15,15 +15,15 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from ..errors import BadInput
-from ..recording import Recording
-from .tabular import table_to_recording
+from .options import ReadOptions
+from .tabular import Detected, build_recording
 
 #: Field-metadata key holding a column's unit.
 UNIT_KEY = b"unit"
 
 
-def read_parquet(path: Path, rate: float | None) -> Recording:
-    """Load every column of ``path`` into a Recording."""
+def read_parquet_detailed(path: Path, options: ReadOptions) -> Detected:
+    """Load every column of ``path`` into a :class:`Detected`."""
     path = Path(path)
     try:
         table = pq.read_table(path)
@@ -35,4 +35,7 @@ def read_parquet(path: Path, rate: float | None) -> Recording:
         meta = field.metadata or {}
         if UNIT_KEY in meta:
             units[field.name] = meta[UNIT_KEY].decode("utf-8", errors="replace")
-    return table_to_recording(table, path, rate, units=units)
+    if table.num_columns == 0:
+        raise BadInput(f"{path.name}: has no columns; give a table with at least one numeric column")
+    return build_recording(path, list(table.column_names), [table.column(j) for j in range(table.num_columns)],
+                           options, units=units)

@@ -1,239 +1,261 @@
-"""Turn a table (CSV or Parquet, already read by pyarrow) into a Recording.
+"""Turn a table's columns (CSV text or typed Parquet) into a Recording, and say what was found.
 
 Shared by :mod:`.csvfile` and :mod:`.parquetfile`:
 
-* an optional *first* time column -- recognised by its type (timestamp or
-  date), by its name (``time``, ``t``, ``timestamp``, ``datetime``, ...,
-  optionally followed by ``[unit]``) or by string values that parse as
-  ISO 8601 -- holding datetimes or seconds;
-* the sample rate inferred from that column when it is regular;
-* every other column is a numeric channel (``name [unit]`` headers give
-  units; Parquet may also store the unit in the field metadata ``b"unit"``).
+* the **time column** is the first of the first three columns that is
+  timestamp/date typed, time-named (``time``, ``Elapsed (s)``, ``Datum``,
+  ...) or whose text parses as dates and times (:mod:`.timeparse`); a date
+  column followed by a time-of-day column is one time axis.  It is kept
+  exactly in ``Recording.time``; ``rate`` is its nominal rate
+  (:mod:`.timing`).  ``--rate`` beside it must agree with it;
+  ``without_time`` drops it (and then needs ``rate``);
+* every other **numeric** column is a channel (``name [unit]`` or
+  ``name (unit)`` headers give units; Parquet may store the unit in the
+  field metadata ``b"unit"``);
+* **text** columns (status, alarms, notes) are kept in ``Recording.extra``,
+  or left out with ``skip_text``.
 """
 
 from __future__ import annotations
 
-import re
+from dataclasses import dataclass, replace
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
 from ..errors import BadInput
-from ..recording import ChannelInfo, Recording
+from ..recording import ChannelInfo, Recording, TimeAxis
+from .columns import ColumnReport, as_text, count_sentinels, split_header, text_to_numbers, typed_to_numbers
 from .grid import detect_decimals
+from .options import ReadOptions, check_rate, zone_seconds
+from .timeparse import (DATE_NAMES, TIME_ONLY, TimeFound, header_zone, is_time_name, normal_name,
+                        parse_date_and_time, parse_datetimes, parse_seconds)
+from .timing import Timing, check_rate_beside, check_span, timing_of
 
-#: ``name [unit]`` -- the unit is whatever stands in the last square brackets.
-HEADER_RE = re.compile(r"^(?P<name>.*?)\s*\[(?P<unit>[^\[\]]*)\]\s*$")
+__all__ = ["Detected", "build_recording", "split_header", "is_time_name", "check_rate"]
 
-#: Names (case-insensitive, before any ``[unit]``) that mark a time column.
-TIME_NAMES = frozenset({"time", "t", "timestamp", "datetime", "date_time", "date", "time_s", "elapsed"})
-
-#: A seconds column is regular when every step is within this fraction of the median step.
-SECONDS_REL_TOL = 1e-6
-
-#: A datetime column is regular when every step is within this many seconds of the median step.
-DATETIME_ABS_TOL = 1e-3
-
-_NS = 1_000_000_000
-_EPOCH = datetime(1970, 1, 1, tzinfo=timezone.utc)
+_EPOCH = datetime(1970, 1, 1)
+TIME_SEARCH = 3     # the time column is looked for among this many leading columns
 
 
-def split_header(header: str) -> tuple[str, str]:
-    """``"chamber_temp [degC]"`` -> ``("chamber_temp", "degC")``; no brackets -> ``(header, "")``."""
-    m = HEADER_RE.match(header)
-    if m is None or not m.group("name").strip():
-        return header.strip(), ""
-    return m.group("name").strip(), m.group("unit").strip()
+@dataclass(frozen=True)
+class Detected:
+    """A Recording plus what reading found: per-column reports, timing, and the text dialect."""
+
+    recording: Recording
+    columns: tuple[ColumnReport, ...]
+    timing: Timing | None = None
+    time_form: str = ""
+    time_notes: tuple[str, ...] = ()
+    encoding: str = ""
+    delimiter: str = ""
+    decimal: str = ""
+    preamble: tuple[str, ...] = ()
+    #: how the timing is known when there is no time column (a format's header, or the rate given)
+    timing_text: str = ""
 
 
-def is_time_name(header: str) -> bool:
-    """True for headers such as ``time``, ``Time [s]``, ``timestamp`` or ``DateTime``."""
-    name = split_header(header)[0].lower().replace(" ", "_").replace("-", "_")
-    return name in TIME_NAMES
+def _is_text(col: pa.ChunkedArray) -> bool:
+    return pa.types.is_string(col.type) or pa.types.is_large_string(col.type)
 
 
-def _parse_iso_strings(col: pa.ChunkedArray) -> np.ndarray | None:
-    """int64 ns since the epoch (UTC; naive taken as UTC), or None if any value is not ISO 8601."""
-    values = col.to_pylist()
-    out = np.empty(len(values), dtype=np.int64)
-    for i, v in enumerate(values):
-        if v is None:
-            return None
-        try:
-            dt = datetime.fromisoformat(v.strip().replace("z", "Z"))
-        except ValueError:
-            return None
-        if dt.tzinfo is None:
-            dt = dt.replace(tzinfo=timezone.utc)
-        delta = dt - _EPOCH
-        out[i] = (delta.days * 86400 + delta.seconds) * _NS + delta.microseconds * 1000
-    return out
+def _strings(col: pa.ChunkedArray) -> pa.Array:
+    return col.combine_chunks().cast(pa.string())
 
 
-def _timestamps_ns(col: pa.ChunkedArray) -> np.ndarray:
-    """int64 ns since the epoch (UTC) of a timestamp or date column."""
+def _typed_time(header: str, col: pa.ChunkedArray) -> TimeFound:
     t = col.type
     if pa.types.is_date(t):
-        col = col.cast(pa.timestamp("s"))
-        t = col.type
+        col, t = col.cast(pa.timestamp("s")), pa.timestamp("s")
+    tz = t.tz
     try:
-        col = col.cast(pa.timestamp("ns", tz=t.tz))
+        ns = col.cast(pa.timestamp("ns", tz=tz)).cast(pa.int64()).to_numpy(zero_copy_only=False)
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError) as exc:
-        raise BadInput(f"time column cannot be held at nanosecond resolution ({exc}); check its dates") from exc
-    return col.cast(pa.int64()).to_numpy(zero_copy_only=False)
+        raise BadInput(f"time column '{header}' cannot be held at nanosecond resolution ({exc}); "
+                       "check its dates") from None
+    zone = None if tz is None else ("Z" if tz.upper() in ("UTC", "Z", "+00:00", "ETC/UTC") else tz)
+    notes = ()
+    if zone is not None and zone != "Z" and not (zone[:1] in "+-" and len(zone) == 6):
+        notes = (f"zone {zone} (a named zone): held as UTC instants, zone Z",)
+        zone = "Z"
+    return TimeFound(TimeAxis("datetime", np.asarray(ns, dtype=np.int64), zone=zone, columns=(header,)),
+                     f"timestamp[{t.unit}]", notes)
 
 
-def _time_values(name: str, col: pa.ChunkedArray) -> tuple[str, np.ndarray] | None:
-    """``("ns", int64 epoch ns)`` or ``("s", float64 seconds)`` if ``col`` is a time column, else None."""
-    t = col.type
-    named = is_time_name(name)
-    if pa.types.is_timestamp(t) or pa.types.is_date(t):
+def _try_time(headers, cols, j: int, opts: ReadOptions, decimal: str) -> tuple[TimeFound, int] | None:
+    """(the time axis, how many columns it takes) when column ``j`` starts one, else None.
+
+    Dates and times are recognised by their text in any of the leading
+    columns (a record number may come first); a column is taken as time by
+    its *name* alone (seconds, or an error when its text is no time) only
+    when it is the first column, so that a channel named ``T`` further
+    right stays a channel.
+    """
+    header, col = headers[j], cols[j]
+    if pa.types.is_timestamp(col.type) or pa.types.is_date(col.type):
         if col.null_count:
-            raise BadInput(f"time column '{name}' has empty cells; fill them or drop the column and pass --rate")
-        return "ns", _timestamps_ns(col)
-    if pa.types.is_string(t) or pa.types.is_large_string(t):
-        ns = _parse_iso_strings(col)
-        if ns is not None:
-            return "ns", ns
+            raise BadInput(f"time column '{header}' has empty cells; fill them in")
+        return _typed_time(header, col), 1
+    named = j == 0 and is_time_name(header)
+    if opts.zone is None and header_zone(header) is not None:
+        opts = replace(opts, zone=header_zone(header))
+    if _is_text(col):
+        s = _strings(col)
+        blank = pc.fill_null(pc.equal(pc.utf8_trim_whitespace(s), ""), True)
+        if pc.any(blank).as_py():
+            if named:
+                first = int(np.argmax(blank.to_numpy(zero_copy_only=False)))
+                raise BadInput(f"time column '{header}' row {first + 1} is empty; fill in every time")
+            return None
+        if j + 1 < len(cols) and _is_text(cols[j + 1]) and (normal_name(header) in DATE_NAMES
+                                                             or is_time_name(header)):
+            both = parse_date_and_time(s, _strings(cols[j + 1]), (header, headers[j + 1]), opts.zone)
+            if both is not None:
+                return both, 2
+        found = parse_datetimes(s, header, opts.zone)
+        if found is not None:
+            return found, 1
+        if named and pc.all(pc.match_substring_regex(s, TIME_ONLY.pattern)).as_py():
+            raise BadInput(f"time column '{header}' holds times of day ({s[0].as_py()!r}) without dates; "
+                           "export the date too (a date column beside it will do)")
         if named:
-            raise BadInput(f"time column '{name}' holds values that are neither ISO 8601 datetimes nor seconds; "
-                           "fix them or pass --rate")
+            try:
+                text = pc.replace_substring(s, ",", ".") if decimal == "," else s
+                values = np.asarray(pc.cast(pc.utf8_trim_whitespace(text), pa.float64()).to_numpy(zero_copy_only=False))
+            except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+                raise BadInput(f"time column '{header}' holds {s[0].as_py()!r}, which is neither a date and time "
+                               "(ISO 8601, dd.mm.yyyy hh:mm:ss, MM/DD/YYYY hh:mm:ss) nor seconds; fix that column"
+                               ) from None
+            return _seconds(header, values), 1
         return None
-    if named and (pa.types.is_integer(t) or pa.types.is_floating(t)):
+    if named and (pa.types.is_integer(col.type) or pa.types.is_floating(col.type)):
         if col.null_count:
-            raise BadInput(f"time column '{name}' has empty cells; fill them or drop the column and pass --rate")
-        return "s", col.cast(pa.float64()).to_numpy(zero_copy_only=False)
+            raise BadInput(f"time column '{header}' has empty cells; fill them in")
+        return _seconds(header, col.cast(pa.float64()).to_numpy(zero_copy_only=False)), 1
     return None
 
 
-def _snap_rate(offsets: np.ndarray, tol: float) -> float:
-    """The rate with fewest significant digits whose grid ``i / rate`` stays within ``tol`` of ``offsets``.
-
-    ``offsets`` are seconds from the first sample.  Falls back to the
-    reciprocal of the mean step when no rounded rate fits.
-    """
-    n = offsets.shape[0]
-    raw = (n - 1) / float(offsets[-1])
-    idx = np.arange(n, dtype=np.float64)
-    for digits in range(1, 16):
-        r = float(f"{raw:.{digits}g}")
-        if abs(offsets[-1] - (n - 1) / r) > tol:
-            continue
-        if float(np.max(np.abs(offsets - idx / r))) <= tol:
-            return r
-    return raw
+def _seconds(header: str, values: np.ndarray) -> TimeFound:
+    if not np.all(np.isfinite(values)):
+        i = int(np.argmin(np.isfinite(values)))
+        raise BadInput(f"time column '{header}' row {i + 1} is {float(values[i])!r}; fill in every time")
+    return parse_seconds(values, header)
 
 
-def infer_rate(kind: str, values: np.ndarray, name: str) -> float:
-    """Sample rate of a regular time column (``kind`` "ns" or "s"); BadInput when irregular.
-
-    Datetimes ("ns", epoch nanoseconds) are compared in integer nanoseconds,
-    so a step exactly 1 ms off the median still counts as regular.
-    """
-    n = values.shape[0]
-    if n < 2:
-        raise BadInput(f"time column '{name}' has a single row, so no rate can be inferred; pass --rate HZ")
-    if kind == "ns":
-        steps_ns = np.diff(values)
-        med_ns = int(np.median(steps_ns))
-        dev = np.abs(steps_ns - med_ns)
-        regular = med_ns > 0 and bool(np.all(steps_ns > 0)) and int(dev.max()) <= round(DATETIME_ABS_TOL * _NS)
-        steps = steps_ns.astype(np.float64) / _NS
-        offsets = (values - values[0]).astype(np.float64) / _NS
-        med = med_ns / _NS
-        snap_tol = min(DATETIME_ABS_TOL, 0.5 * med)
-    else:
-        steps = np.diff(values)
-        offsets = values - values[0]
-        med = float(np.median(steps))
-        dev = np.abs(steps - med)
-        regular = med > 0 and bool(np.all(steps > 0)) and float(dev.max()) <= SECONDS_REL_TOL * med
-        snap_tol = SECONDS_REL_TOL * med
-    if not regular:
-        worst = float(steps[int(np.argmax(dev))])
-        raise BadInput(f"time column '{name}' is irregular (median step {med:g} s, one step {worst:g} s); "
-                       "resample it to a fixed rate or pass --rate HZ")
-    return _snap_rate(offsets, snap_tol * (1 + 1e-9))
+def _find_time(headers, cols, opts: ReadOptions, decimal: str) -> tuple[TimeFound | None, list[int]]:
+    for j in range(min(TIME_SEARCH, len(cols))):
+        got = _try_time(headers, cols, j, opts, decimal)
+        if got is not None:
+            return got[0], list(range(j, j + got[1]))
+    return None, []
 
 
-def _channel_array(name: str, col: pa.ChunkedArray) -> tuple[np.ndarray, str]:
-    """(1-D numpy array, source dtype name) of a numeric column; nulls become NaN in a float column,
-    and masked samples of an integer column (a ``numpy.ma.MaskedArray`` in the column's own dtype:
-    a float64 copy would round integers above 2**53)."""
-    t = col.type
-    if pa.types.is_null(t):
-        return np.full(len(col), np.nan), "float64"
-    if pa.types.is_integer(t):
-        if col.null_count:
-            missing = col.is_null().to_numpy(zero_copy_only=False)
-            values = col.fill_null(pa.scalar(0, type=t)).to_numpy(zero_copy_only=False)
-            return np.ma.MaskedArray(values, mask=missing), values.dtype.name
-        arr = col.to_numpy(zero_copy_only=False)
-        return arr, arr.dtype.name
-    if pa.types.is_floating(t):
-        if col.null_count:
-            col = col.fill_null(pa.scalar(np.nan, type=t))
-        arr = col.to_numpy(zero_copy_only=False)
-        return arr, arr.dtype.name
-    raise BadInput(f"column '{name}' is not numeric ({t}); remove or convert it before packing")
-
-
-def check_rate(rate: float | None) -> float | None:
-    """``rate`` as a float, None kept; BadInput unless finite and positive."""
-    if rate is None:
+def _start(axis: TimeAxis | None) -> datetime | None:
+    """The first time as a datetime: naive for naive times, aware (with the logged offset) otherwise."""
+    if axis is None:
         return None
-    r = float(rate)
-    if not (np.isfinite(r) and r > 0):
-        raise BadInput(f"rate {rate!r} is not a positive number of samples per second; pass e.g. --rate 1000")
-    return r
+    if axis.kind == "seconds":
+        if axis.zone != "Z":
+            return None
+        return datetime(1970, 1, 1, tzinfo=timezone.utc) + timedelta(seconds=float(axis.values[0]))
+    wall = _EPOCH + timedelta(microseconds=int(axis.values[0]) // 1000)
+    if axis.zone is None:
+        return wall
+    off = timezone(timedelta(seconds=zone_seconds(axis.zone)))
+    return wall.replace(tzinfo=timezone.utc).astimezone(off)
 
 
-def table_to_recording(table: pa.Table, path: Path, rate: float | None,
-                       units: dict[str, str] | None = None) -> Recording:
-    """Build a Recording from an Arrow table (see the module docstring for the rules).
-
-    ``units`` maps column names to units found elsewhere (Parquet field
-    metadata); they take precedence over ``[unit]`` in the name.  An explicit
-    ``rate`` overrides (and skips checking) the time column; the start time
-    still comes from a datetime column.
-    """
-    rate = check_rate(rate)
+def build_recording(path: Path, headers: list[str], cols: list[pa.ChunkedArray], opts: ReadOptions,
+                    units: dict[str, str] | None = None, text_source: bool = False, decimal: str = ".",
+                    notes: tuple[str, ...] = ()) -> Detected:
+    """A :class:`Detected` from named columns (see the module docstring for the rules)."""
     units = units or {}
-    if table.num_rows == 0:
+    n = len(cols[0]) if cols else 0
+    if n == 0:
         raise BadInput(f"{path.name}: has no data rows; give a non-empty recording")
-    names = list(table.column_names)
-    start: datetime | None = None
-    first = 0
-    if names:
-        tv = _time_values(names[0], table.column(0))
-        if tv is not None:
-            kind, values = tv
-            first = 1
-            if kind == "ns":
-                start = _ns_to_datetime(int(values[0]))
-            if rate is None:
-                rate = infer_rate(kind, values, names[0])
+    found, time_idx = _find_time(headers, cols, opts, decimal)
+    reports: dict[int, ColumnReport] = {}
+    timing = None
+    dropped = None      # with without_time, the time column is left out; only its first time (the start) is kept
+    if found is not None and opts.without_time:
+        for j in time_idx:
+            reports[j] = ColumnReport(headers[j], "skipped")
+        found, dropped = None, found
+    rate = opts.rate
+    if found is not None and not (n == 1 and rate is not None):   # one row: its time, and the rate given
+        timing = timing_of(found.axis, "+".join(found.axis.columns))
+        if rate is not None:
+            check_rate_beside(rate, timing, "+".join(found.axis.columns))
+        rate = timing.rate
+    if found is not None:
+        for j in time_idx:
+            reports[j] = ColumnReport(headers[j], "time", name=headers[j], dtype=found.form)
     if rate is None:
-        raise BadInput(f"{path.name}: has no time column; it needs --rate HZ")
-    if first >= len(names):
-        raise BadInput(f"{path.name}: has no data columns besides time; give at least one channel")
-    arrays, channels, seen = [], [], set()
-    for j in range(first, len(names)):
-        header = names[j]
+        raise BadInput(f"{path.name}: has no time column; it needs --rate HZ" if not time_idx else
+                       f"{path.name}: --without-time leaves no timing; give the sample rate with --rate HZ")
+    arrays, channels, extra, seen = [], [], {}, set()
+    for j, header in enumerate(headers):
+        if j in reports:
+            continue
+        col = cols[j]
         name, unit = split_header(header)
         unit = units.get(header, unit)
-        if name in seen:
-            raise BadInput(f"{path.name}: channel name '{name}' appears twice; rename one of the columns")
-        seen.add(name)
-        arr, dtype_name = _channel_array(header, table.column(j))
+        got = (text_to_numbers(col, decimal, opts.text_tokens) if text_source and _is_text(col)
+               else typed_to_numbers(header, col))
+        if got is None:
+            if opts.skip_text:
+                reports[j] = ColumnReport(header, "skipped", name=name)
+                continue
+            _claim(path, header, seen)
+            extra[header] = as_text(header, col, empty_is_null=text_source)
+            reports[j] = ColumnReport(header, "text", name=header, dtype="string",
+                                      missing=int(extra[header].null_count))
+            continue
+        arr, dtype_name, n_missing = got[0], got[1], got[2]
+        tokens = got[3] if len(got) > 3 else ()
+        _claim(path, name, seen)
+        info = ChannelInfo(name=name, unit=unit, dtype=dtype_name, decimals=detect_decimals(arr, dtype_name),
+                           sentinels=opts.sentinels)
         arrays.append(arr)
-        channels.append(ChannelInfo(name=name, unit=unit, dtype=dtype_name,
-                                    decimals=detect_decimals(arr, dtype_name)))
-    return Recording.from_columns(arrays, rate=rate, channels=channels, start=start, source=path)
+        channels.append(info)
+        reports[j] = ColumnReport(header, "channel", name=name, unit=unit, dtype=dtype_name, decimals=info.decimals,
+                                  missing=n_missing, tokens=tokens, sentinels=count_sentinels(arr, opts.sentinels))
+    if not channels:
+        raise BadInput(f"{path.name}: has no numeric column to pack (columns: {', '.join(headers)}"
+                       f"{_first_text(extra, decimal, opts)}); check the delimiter and the header")
+    axis = None if found is None else found.axis
+    if found is not None and any(t.startswith("offsets change") for t in found.notes):
+        for j in time_idx:   # the offsets as logged are kept beside the UTC instants
+            extra.setdefault(headers[j], as_text(headers[j], cols[j], empty_is_null=False))
+    start = _start(axis if dropped is None else dropped.axis)
+    check_span(start, n, rate)
+    table = pa.table(extra) if extra else None
+    rec = Recording.from_columns(arrays, rate=float(rate), channels=channels, start=start, source=path,
+                                 time=axis, notes=tuple(notes), extra=table)
+    return Detected(recording=rec, columns=tuple(reports[j] for j in sorted(reports)), timing=timing,
+                    time_form="" if found is None else found.form, time_notes=() if found is None else found.notes)
 
 
-def _ns_to_datetime(ns: int) -> datetime:
-    """UTC datetime of epoch nanoseconds (sub-microsecond digits are dropped)."""
-    return _EPOCH + timedelta(microseconds=ns // 1000)
+def _first_text(extra: dict, decimal: str, opts: ReadOptions) -> str:
+    """``; 'x' row 2 holds '"2'``: the first cell that kept a column from being numeric (for the error)."""
+    from .columns import MISSING_TOKENS
+    skip = set(MISSING_TOKENS) | set(opts.text_tokens)
+    for header, col in extra.items():
+        for i, v in enumerate(col.to_pylist()):
+            t = (v or "").strip()
+            if t in skip:
+                continue
+            try:
+                float(t.replace(",", ".") if decimal == "," else t)
+            except ValueError:
+                return f"; '{header}' row {i + 1} holds {t[:40]!r}"
+    return ""
+
+
+def _claim(path: Path, name: str, seen: set) -> None:
+    if name in seen:
+        raise BadInput(f"{path.name}: column name '{name}' appears twice; rename one of the columns")
+    seen.add(name)
