@@ -14,7 +14,6 @@ from pathlib import Path
 
 import numpy as np
 
-from . import checksum
 from .errors import ArchiveCorrupt, BadInput
 from .recording import Recording
 from .results import ChannelCheck, Progress, VerifyReport
@@ -28,12 +27,8 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
     """Check ``archive`` (a path or an open Archive); compare with ``against`` when given."""
     from .store.reader import Archive, open_archive
 
-    arc = archive if isinstance(archive, Archive) else open_archive(archive)
-    problems: list[str] = []
-    for name, info in arc.manifest.get("members", {}).items():
-        p = arc.path / name
-        if not p.is_file() or checksum.file_sha256(p) != info.get("sha256"):
-            problems.append(f"member {name}: SHA-256 differs from the manifest (file damaged or replaced)")
+    arc = archive if isinstance(archive, Archive) else open_archive(archive, strict=False)
+    problems = list(arc.damage) + member_problems(arc)
     rec = _source(arc, against)
     total = sum(c.n_windows for c in arc.channels)
     done = [0]
@@ -46,6 +41,11 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
                 progress(Progress("verify", done[0], total, message))
 
     jobs = [(meta, None if rec is None else _column_index(rec, meta, j)) for j, meta in enumerate(arc.channels)]
+    if not arc.decodable:  # a member is missing or unreadable: report that, decode nothing
+        checks = [ChannelCheck(name=m.name, eps=m.eps, worst_error=None, n_bad=0, bad_windows=(),
+                               bad_checksums=()) for m, _ in jobs]
+        return VerifyReport(ok=False, checksums_ok=False, compared=rec is not None, channels=tuple(checks),
+                            problems=tuple(problems))
     workers = worker_count(len(jobs))
     if workers == 1:
         results = [_check_channel(arc, rec, meta, col, step) for meta, col in jobs]
@@ -56,10 +56,24 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
     checks = [c for c, _ in results]
     for _, found in results:
         problems.extend(found)
-    checksums_ok = not any(c.bad_checksums for c in checks) and \
+    checksums_ok = not arc.damage and not any(c.bad_checksums for c in checks) and \
         not any(p.startswith("member") or "cannot be decoded" in p for p in problems)
     return VerifyReport(ok=not problems, checksums_ok=checksums_ok, compared=rec is not None,
                         channels=tuple(checks), problems=tuple(problems))
+
+
+def member_problems(arc) -> list[str]:
+    """Every listed member hashed against the manifest's SHA-256, and files the manifest does not list."""
+    from .store.binding import file_sha256, member_size
+    out = []
+    for m in arc.members:
+        p = arc.path / m.name
+        if member_size(p) is not None and file_sha256(p) != m.sha256:
+            out.append(f"member {m.name}: SHA-256 differs from the manifest (file damaged or replaced)")
+    listed = {m.name for m in arc.members} | {"manifest.json"}
+    out.extend(f"member {p.name}: not listed in the manifest (added after packing)"
+               for p in sorted(arc.path.iterdir()) if p.name not in listed)
+    return out
 
 
 def _check_channel(arc, rec, meta, col, step) -> tuple[ChannelCheck, list[str]]:

@@ -1,0 +1,152 @@
+"""Check an archive's member files against its manifest when it is opened (cheap: footers only).
+
+* every listed member exists as a regular file of the listed size;
+* ``windows.parquet``'s footer carries the manifest's digest (the binding,
+  :mod:`tsarchive.store.binding`), its columns are the format's, every row
+  group holds one channel (statistics), each channel has exactly the rows
+  its declared sample count needs, and no row group declares more
+  uncompressed bytes than its windows can hold;
+* ``exceptions.parquet`` and ``model.parquet`` likewise, and the model is
+  read once, checked against the manifest's layer sizes before any array
+  is shaped.
+
+Each finding is one line; :class:`Findings` raises the first one
+(``strict``, for reading) or collects them all (for ``verify``, which
+reports damage rather than refusing).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from ..errors import ArchiveCorrupt
+from . import schema as S
+from .binding import footer_digest, manifest_digest, member_size
+from .parse import ChannelMeta, Member, ModelSpec
+
+
+@dataclass
+class Findings:
+    """Problems found while opening: raised at once when ``strict``, else collected."""
+
+    strict: bool
+    problems: list[str] = field(default_factory=list)
+    decodable: bool = True
+
+    def add(self, message: str, fatal: bool = False) -> None:
+        if self.strict:
+            raise ArchiveCorrupt(message)
+        self.problems.append(message)
+        self.decodable = self.decodable and not fatal
+
+
+def check_sizes(path: Path, members: tuple[Member, ...], found: Findings) -> None:
+    for m in members:
+        size = member_size(path / m.name)
+        if size is None:
+            found.add(f"archive member {m.name} is missing; the archive is incomplete", fatal=True)
+        elif size != m.bytes:
+            found.add(f"archive member {m.name} is {size} bytes but the manifest says {m.bytes}: it was truncated "
+                      "or replaced; restore the archive from a copy")
+
+
+def open_parquet(path: Path, name: str, found: Findings) -> pq.ParquetFile | None:
+    try:
+        return pq.ParquetFile(path / name)
+    except (OSError, pa.ArrowException) as exc:
+        found.add(f"{name} cannot be read ({str(exc)[:80]}); the archive is damaged", fatal=True)
+        return None
+
+
+def check_binding(md: pq.FileMetaData, manifest: dict, version: int, found: Findings) -> bool:
+    """True when the manifest is bound to windows.parquet (False: an unbound version-3 archive)."""
+    stored = footer_digest(md.metadata)
+    if stored is None:
+        if version >= S.BOUND_FROM_VERSION:
+            found.add(f"{S.WINDOWS} does not carry the manifest's digest; the archive is damaged or was edited")
+        return False
+    if stored != manifest_digest(manifest):
+        found.add(f"{S.MANIFEST} does not match {S.WINDOWS} (the manifest was edited or the members mixed "
+                  "from different archives); restore the archive from a copy")
+    return True
+
+
+def row_groups(f: pq.ParquetFile, channels: tuple[ChannelMeta, ...], window: int,
+               found: Findings) -> dict[str, list[tuple[int, int, int]]]:
+    """channel -> [(row group, first window, last window)], after checking rows and declared sizes."""
+    md = f.metadata
+    schema = f.schema_arrow.remove_metadata()
+    if not schema.equals(S.windows_schema("code" in schema.names)):
+        found.add(f"{S.WINDOWS} does not have the columns of this format version; the archive is damaged", True)
+        return {}
+    ci, wi = schema.names.index("channel"), schema.names.index("window")
+    limit = window * S.ROW_BYTES_PER_SAMPLE + S.ROW_BYTES_FIXED
+    out: dict[str, list[tuple[int, int, int]]] = {}
+    rows: dict[str, int] = {}
+    for g in range(md.num_row_groups):
+        rg = md.row_group(g)
+        cs, ws = rg.column(ci).statistics, rg.column(wi).statistics
+        if cs is None or ws is None or not cs.has_min_max or not ws.has_min_max or cs.min != cs.max:
+            found.add(f"{S.WINDOWS} row groups lack per-channel statistics; the archive is damaged", True)
+            return {}
+        if rg.total_byte_size > rg.num_rows * limit:
+            found.add(f"{S.WINDOWS} row group {g} declares {rg.total_byte_size} bytes for {rg.num_rows} windows "
+                      f"of {window} samples; the archive is damaged or crafted", True)
+            return {}
+        out.setdefault(cs.min, []).append((g, int(ws.min), int(ws.max)))
+        rows[cs.min] = rows.get(cs.min, 0) + rg.num_rows
+    for ch in channels:
+        if rows.get(ch.name, 0) != ch.n_windows:
+            found.add(f"channel {ch.name}: the manifest declares {ch.n_samples} samples ({ch.n_windows} windows) "
+                      f"but {S.WINDOWS} holds {rows.get(ch.name, 0)} windows; the archive is damaged", True)
+    extra = set(rows) - {c.name for c in channels}
+    if extra:
+        found.add(f"{S.WINDOWS} holds windows of channel(s) the manifest does not list "
+                  f"({', '.join(sorted(extra))[:60]}); the archive is damaged", True)
+    return out
+
+
+def check_exceptions(f: pq.ParquetFile, window: int, total_windows: int, found: Findings) -> None:
+    md = f.metadata
+    if f.schema_arrow.remove_metadata() != S.EXCEPTIONS_SCHEMA:
+        found.add(f"{S.EXCEPTIONS} has unexpected columns; the archive is damaged", True)
+    elif md.num_rows > total_windows:
+        found.add(f"{S.EXCEPTIONS} lists {md.num_rows} windows, more than the archive's {total_windows}; "
+                  "the archive is damaged", True)
+    elif any(md.row_group(g).total_byte_size > md.row_group(g).num_rows * (12 * window + S.ROW_BYTES_FIXED)
+             for g in range(md.num_row_groups)):
+        found.add(f"{S.EXCEPTIONS} declares more bytes than its windows can hold; the archive is damaged or "
+                  "crafted", True)
+
+
+def load_model(f: pq.ParquetFile, spec: ModelSpec, found: Findings):
+    """The integer decoder, read once and checked against the manifest's sizes; None if it is damaged."""
+    from ..model.intnet import IntDecoder
+    md = f.metadata
+    cap = 16 * (spec.n_params + 64) + S.ROW_BYTES_FIXED
+    if md.num_rows > 2 * S.MAX_LAYERS + 3 or f.schema_arrow.remove_metadata() != S.MODEL_SCHEMA or \
+            sum(md.row_group(g).total_byte_size for g in range(md.num_row_groups)) > cap:
+        found.add(f"{S.MODEL} is not the model the manifest describes ({spec.n_params} parameters); "
+                  "the archive is damaged or crafted", True)
+        return None
+    try:
+        t = f.read()
+        arrays = {}
+        for n, s, v in zip(t["name"].to_pylist(), t["shape"].to_pylist(), t["values"].to_pylist()):
+            if n is None or s is None or v is None or any(x is None or x < 0 for x in s) or \
+                    int(np.prod(s, dtype=object)) != len(v):
+                raise ArchiveCorrupt(f"model array {n!r} does not have the shape it declares")
+            arrays[n] = np.asarray(v, dtype=np.int64).reshape(s)
+        decoder = IntDecoder.from_arrays(arrays)
+        if tuple(decoder.sizes) != spec.sizes:
+            raise ArchiveCorrupt(f"model layer sizes {list(decoder.sizes)} differ from the manifest's "
+                                 f"{list(spec.sizes)}")
+        return decoder
+    except (OSError, pa.ArrowException, ArchiveCorrupt, ValueError, TypeError, OverflowError) as exc:
+        found.add(f"{S.MODEL} cannot be used ({str(exc)[:100]}); the archive is damaged", True)
+        return None
