@@ -110,6 +110,7 @@ def _unpack(args) -> int:
     from .store.reader import open_archive
     from .timespec import parse_time
     arc = open_archive(args.archive)
+    arc.check_members()                     # a full unpack reads every member anyway; hashing costs little
     start0 = arc.channels[0].start if arc.channels else None
     start = None if args.start is None else parse_time(args.start, start0)
     end = None if args.end is None else parse_time(args.end, start0)
@@ -134,8 +135,9 @@ def _report(args) -> int:
     from .report import archive_dict, archive_table
     from .store.reader import open_archive
     arc = open_archive(args.archive)
-    print(json.dumps(archive_dict(arc), indent=1) if args.json else archive_table(arc))
-    return 0
+    d = archive_dict(arc)
+    print(json.dumps(d, indent=1) if args.json else archive_table(arc, d))
+    return 1 if d["problems"] else 0
 
 
 def _demo(args) -> int:

@@ -107,7 +107,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     # unless a code size was asked for, already encodes without it: a model that pays is the
     # exception, and then the speculative archive is dropped and the channels are encoded again.
     plain_ready: Future = Future()                   # the plan without a model, for the training thread
-    with claim_target(archive), ThreadPoolExecutor(1) as helper:   # no other run may write this target meanwhile
+    with claim_target(archive, force), ThreadPoolExecutor(1) as helper:   # no other run may write this target meanwhile
         if K > 0:
             helper.submit(_import_trainer)           # torch's import overlaps the reading below
         try:

@@ -41,6 +41,24 @@ _lock = threading.Lock()
 _held: dict[Path, list] = {}          # target -> [claim fd, depth]
 
 
+def is_archive_dir(path: Path) -> bool:
+    return path.is_dir() and (path / "manifest.json").is_file()
+
+
+def check_target(path: Path, force: bool) -> None:
+    """Refuse a target that exists (unless ``force`` and it is an archive folder, not a link to one)."""
+    if path.exists() or path.is_symlink():
+        if not force:
+            raise ArchiveExists(f"{path} already exists; pass --force to replace it or choose another name")
+        if path.is_symlink():
+            raise ArchiveExists(f"{path} is a symbolic link; refusing to replace it even with --force: "
+                                "give the real archive folder's path")
+        if not is_archive_dir(path):
+            raise ArchiveExists(f"{path} exists and is not a tsarchive archive; refusing to replace it even with --force")
+    if not path.parent.exists():
+        raise BadInput(f"folder {path.parent} does not exist; create it or choose another output path")
+
+
 def staging_name(path: Path) -> Path:
     return path.parent / f".{path.name}.staging-{uuid.uuid4().hex[:8]}"
 
@@ -54,8 +72,9 @@ def _claim_file(path: Path) -> Path:
 
 
 @contextmanager
-def claim_target(path: str | os.PathLike):
-    """Hold the claim on ``path`` for the ``with`` block (see module doc)."""
+def claim_target(path: str | os.PathLike, force: bool | None = None):
+    """Hold the claim on ``path`` for the ``with`` block (see module doc); with ``force`` given, the target
+    is checked (:func:`check_target`) once claimed and tidied."""
     path = Path(os.path.abspath(path))
     with _lock:
         entry = _held.get(path)
@@ -65,6 +84,8 @@ def claim_target(path: str | os.PathLike):
     try:
         if entry[1] == 1:
             _tidy(path)
+        if force is not None:
+            check_target(path, force)
         yield path
     finally:
         with _lock:

@@ -111,6 +111,13 @@ class Archive:
         self.damage: tuple[str, ...] = tuple(found.problems)
         self.decodable = found.decodable
 
+    def check_members(self) -> None:
+        """Hash every member against the manifest (a full read); raise :class:`ArchiveCorrupt` on a mismatch."""
+        from ..verifier import member_problems
+        problems = member_problems(self)
+        if problems:
+            raise ArchiveCorrupt(f"{problems[0]}; run tsarchive verify for the details")
+
     # -- facts -------------------------------------------------------------------
     @property
     def source_name(self) -> str:
@@ -196,6 +203,9 @@ class Archive:
         """
         meta = self.channel(channel)
         t = self._rows(channel, w0, w1)
+        if any(c.null_count for c in t.columns):
+            raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} have empty (null) fields; "
+                                 "the archive is damaged")
         nrow = t.num_rows
         windows = t["window"].to_numpy()
         if nrow != max(0, min(w1, meta.n_windows) - max(w0, 0)) or \

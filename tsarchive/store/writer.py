@@ -22,10 +22,10 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from ..checksum import file_sha256
-from ..errors import ArchiveExists, BadInput
+from ..errors import BadInput
 from . import schema as S
 from .binding import manifest_digest
-from .claim import claim_target, move_into_place, staging_name
+from .claim import check_target, claim_target, is_archive_dir, move_into_place, staging_name  # noqa: F401
 
 # Statistics only where the reader uses them (channel/window ranges per row group): statistics of the
 # payload columns would only add footer bytes.
@@ -45,24 +45,6 @@ def _windows_opts(schema: pa.Schema) -> dict:
     return dict(_PARQUET_OPTS, column_encoding=enc)
 
 
-def is_archive_dir(path: Path) -> bool:
-    return path.is_dir() and (path / S.MANIFEST).is_file()
-
-
-def check_target(path: Path, force: bool) -> None:
-    """Refuse a target that exists (unless ``force`` and it is an archive folder, not a link to one)."""
-    if path.exists() or path.is_symlink():
-        if not force:
-            raise ArchiveExists(f"{path} already exists; pass --force to replace it or choose another name")
-        if path.is_symlink():
-            raise ArchiveExists(f"{path} is a symbolic link; refusing to replace it even with --force: "
-                                "give the real archive folder's path")
-        if not is_archive_dir(path):
-            raise ArchiveExists(f"{path} exists and is not a tsarchive archive; refusing to replace it even with --force")
-    if not path.parent.exists():
-        raise BadInput(f"folder {path.parent} does not exist; create it or choose another output path")
-
-
 class ArchiveWriter:
     """Stage an archive; use as a context manager and call :meth:`commit` last."""
 
@@ -71,9 +53,8 @@ class ArchiveWriter:
         self._claim = ExitStack()
         if not self.path.parent.exists():
             raise BadInput(f"folder {self.path.parent} does not exist; create it or choose another output path")
-        self._claim.enter_context(claim_target(self.path))     # held until the writer is closed
+        self._claim.enter_context(claim_target(self.path, force))   # held until the writer is closed
         try:
-            check_target(self.path, force)
             self.force = force
             self.schema = S.windows_schema(with_code)
             self.stage = staging_name(self.path)
