@@ -63,6 +63,24 @@ def open_parquet(path: Path, name: str, found: Findings) -> pq.ParquetFile | Non
         return None
 
 
+def leaves_bounded(md: pq.FileMetaData, per_row: dict[str, int]) -> bool:
+    """No dictionary encoding (but on ``channel``) and at most ``per_row[column]`` values per row (default 1).
+
+    Without a dictionary a column's stored, uncompressed pages are at least as long as the data they
+    decode to, so the caps on declared bytes and value counts bound what reading may allocate.
+    """
+    for g in range(md.num_row_groups):
+        rg = md.row_group(g)
+        for i in range(rg.num_columns):
+            col = rg.column(i)
+            top = col.path_in_schema.split(".")[0]
+            if top != "channel" and any("DICTIONARY" in e for e in col.encodings):
+                return False
+            if col.num_values > rg.num_rows * per_row.get(top, 1):
+                return False
+    return True
+
+
 def check_binding(md: pq.FileMetaData, manifest: dict, version: int, found: Findings) -> bool:
     """True when the manifest is bound to windows.parquet (False: an unbound version-3 archive)."""
     stored = footer_digest(md.metadata)
@@ -83,6 +101,10 @@ def row_groups(f: pq.ParquetFile, channels: tuple[ChannelMeta, ...], window: int
     schema = f.schema_arrow.remove_metadata()
     if not schema.equals(S.windows_schema("code" in schema.names)):
         found.add(f"{S.WINDOWS} does not have the columns of this format version; the archive is damaged", True)
+        return {}
+    if not leaves_bounded(md, {"code": S.MAX_CODE_SIZE}):
+        found.add(f"{S.WINDOWS} uses encodings or value counts this format never writes; the archive is "
+                  "damaged or crafted", True)
         return {}
     ci, wi = schema.names.index("channel"), schema.names.index("window")
     limit = window * S.ROW_BYTES_PER_SAMPLE + S.ROW_BYTES_FIXED
@@ -119,7 +141,7 @@ def check_exceptions(f: pq.ParquetFile, window: int, total_windows: int, found: 
         found.add(f"{S.EXCEPTIONS} lists {md.num_rows} windows, more than the archive's {total_windows}; "
                   "the archive is damaged", True)
     elif any(md.row_group(g).total_byte_size > md.row_group(g).num_rows * (12 * window + S.ROW_BYTES_FIXED)
-             for g in range(md.num_row_groups)):
+             for g in range(md.num_row_groups)) or not leaves_bounded(md, {"pos": window, "bits": window}):
         found.add(f"{S.EXCEPTIONS} declares more bytes than its windows can hold; the archive is damaged or "
                   "crafted", True)
 
@@ -130,7 +152,9 @@ def load_model(f: pq.ParquetFile, spec: ModelSpec, found: Findings):
     md = f.metadata
     cap = 16 * (spec.n_params + 64) + S.ROW_BYTES_FIXED
     if md.num_rows > 2 * S.MAX_LAYERS + 3 or f.schema_arrow.remove_metadata() != S.MODEL_SCHEMA or \
-            sum(md.row_group(g).total_byte_size for g in range(md.num_row_groups)) > cap:
+            sum(md.row_group(g).total_byte_size for g in range(md.num_row_groups)) > cap or \
+            not leaves_bounded(md, {"shape": 2, "values": spec.n_params + 64}) or \
+            sum(md.row_group(g).column(2).num_values for g in range(md.num_row_groups)) > spec.n_params + 64:
         found.add(f"{S.MODEL} is not the model the manifest describes ({spec.n_params} parameters); "
                   "the archive is damaged or crafted", True)
         return None
