@@ -8,10 +8,8 @@ from __future__ import annotations
 
 import json
 import os
-import re
 import subprocess
 import sys
-import textwrap
 from pathlib import Path
 
 import numpy as np

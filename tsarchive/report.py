@@ -37,8 +37,8 @@ def pack_table(res: PackResult) -> str:
 
 def archive_dict(arc) -> dict:
     """The archive's facts; its members are hashed first, and the budget is claimed only for intact members."""
-    from .verifier import member_problems
-    problems = member_problems(arc)
+    from .store.members import member_problems
+    problems = member_problems(arc.path, arc.members)
     return {
         "archive": str(arc.path), "source": arc.manifest.get("source", {}),
         "created_utc": arc.manifest.get("created_utc"), "tool_version": arc.manifest.get("tool_version"),

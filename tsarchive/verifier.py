@@ -25,10 +25,11 @@ MAX_LISTED = 50  # failing windows listed per channel
 
 def verify_archive(archive, against=None, progress=None) -> VerifyReport:
     """Check ``archive`` (a path or an open Archive); compare with ``against`` when given."""
+    from .store.members import member_problems
     from .store.reader import Archive, open_archive
 
     arc = archive if isinstance(archive, Archive) else open_archive(archive, strict=False)
-    problems = list(arc.damage) + member_problems(arc)
+    problems = list(arc.damage) + member_problems(arc.path, arc.members)
     rec = _source(arc, against)
     total = sum(c.n_windows for c in arc.channels)
     done = [0]
@@ -60,20 +61,6 @@ def verify_archive(archive, against=None, progress=None) -> VerifyReport:
         not any(p.startswith("member") or "cannot be decoded" in p for p in problems)
     return VerifyReport(ok=not problems, checksums_ok=checksums_ok, compared=rec is not None,
                         channels=tuple(checks), problems=tuple(problems))
-
-
-def member_problems(arc) -> list[str]:
-    """Every listed member hashed against the manifest's SHA-256, and files the manifest does not list."""
-    from .store.binding import file_sha256, member_size
-    out = []
-    for m in arc.members:
-        p = arc.path / m.name
-        if member_size(p) is not None and file_sha256(p) != m.sha256:
-            out.append(f"member {m.name}: SHA-256 differs from the manifest (file damaged or replaced)")
-    listed = {m.name for m in arc.members} | {"manifest.json"}
-    out.extend(f"member {p.name}: not listed in the manifest (added after packing)"
-               for p in sorted(arc.path.iterdir()) if p.name not in listed)
-    return out
 
 
 def _check_channel(arc, rec, meta, col, step) -> tuple[ChannelCheck, list[str]]:

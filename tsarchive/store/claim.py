@@ -54,7 +54,8 @@ def check_target(path: Path, force: bool) -> None:
             raise ArchiveExists(f"{path} is a symbolic link; refusing to replace it even with --force: "
                                 "give the real archive folder's path")
         if not is_archive_dir(path):
-            raise ArchiveExists(f"{path} exists and is not a tsarchive archive; refusing to replace it even with --force")
+            raise ArchiveExists(f"{path} exists and is not a tsarchive archive; refusing to replace it "
+                                "even with --force")
     if not path.parent.exists():
         raise BadInput(f"folder {path.parent} does not exist; create it or choose another output path")
 

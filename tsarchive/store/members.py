@@ -26,8 +26,53 @@ import pyarrow.parquet as pq
 
 from ..errors import ArchiveCorrupt
 from . import schema as S
-from .binding import footer_digest, manifest_digest, member_size
+from .binding import file_sha256, footer_digest, manifest_digest, member_size
 from .parse import ChannelMeta, Member, ModelSpec
+
+
+@dataclass(frozen=True)
+class Opened:
+    """What opening found: the windows file, its row groups per channel, the decoder, and any damage."""
+
+    windows: pq.ParquetFile | None
+    groups: dict
+    decoder: object
+    bound: bool
+    damage: tuple[str, ...]
+    decodable: bool
+
+
+def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...], window: int,
+            channels: tuple[ChannelMeta, ...], model: ModelSpec | None, strict: bool) -> Opened:
+    """Every check of the module doc, in order; ``strict`` raises the first finding."""
+    found = Findings(strict)
+    check_sizes(path, members, found)
+    wf = open_parquet(path, S.WINDOWS, found) if found.decodable else None
+    bound, groups, decoder = False, {}, None
+    if wf is not None:
+        bound = check_binding(wf.metadata, manifest, version, found)
+        groups = row_groups(wf, channels, window, found)
+    if found.decodable and S.EXCEPTIONS in {x.name for x in members}:
+        ef = open_parquet(path, S.EXCEPTIONS, found)
+        if ef is not None:
+            check_exceptions(ef, window, sum(c.n_windows for c in channels), found)
+    if found.decodable and model is not None:
+        mf = open_parquet(path, S.MODEL, found)
+        decoder = None if mf is None else load_model(mf, model, found)
+    return Opened(wf, groups, decoder, bound, tuple(found.problems), found.decodable)
+
+
+def member_problems(path: Path, members: tuple[Member, ...]) -> list[str]:
+    """Every listed member hashed against the manifest's SHA-256 (a full read), and files it does not list."""
+    out = []
+    for m in members:
+        p = path / m.name
+        if member_size(p) is not None and file_sha256(p) != m.sha256:
+            out.append(f"member {m.name}: SHA-256 differs from the manifest (file damaged or replaced)")
+    listed = {m.name for m in members} | {S.MANIFEST}
+    out.extend(f"member {p.name}: not listed in the manifest (added after packing)"
+               for p in sorted(path.iterdir()) if p.name not in listed)
+    return out
 
 
 @dataclass
@@ -63,20 +108,25 @@ def open_parquet(path: Path, name: str, found: Findings) -> pq.ParquetFile | Non
         return None
 
 
-def leaves_bounded(md: pq.FileMetaData, per_row: dict[str, int]) -> bool:
-    """No dictionary encoding (but on ``channel``) and at most ``per_row[column]`` values per row (default 1).
+def leaves_bounded(md: pq.FileMetaData, per_row: dict[str, int], row_bytes: int) -> bool:
+    """At most ``per_row[column]`` values per row (default 1), and no variable-length column whose
+    dictionary could expand past ``row_bytes`` per row.
 
-    Without a dictionary a column's stored, uncompressed pages are at least as long as the data they
-    decode to, so the caps on declared bytes and value counts bound what reading may allocate.
+    Without a dictionary a column's uncompressed pages are at least as long as the data they decode
+    to, so the caps on declared bytes and value counts bound what reading may allocate; with one, a
+    row's value is at most the whole dictionary (fixed-width values cannot grow).  ``channel`` is
+    exempt: its values are the channel names, checked through the statistics.
     """
     for g in range(md.num_row_groups):
         rg = md.row_group(g)
         for i in range(rg.num_columns):
             col = rg.column(i)
             top = col.path_in_schema.split(".")[0]
-            if top != "channel" and any("DICTIONARY" in e for e in col.encodings):
-                return False
             if col.num_values > rg.num_rows * per_row.get(top, 1):
+                return False
+            if top != "channel" and col.physical_type == "BYTE_ARRAY" and \
+                    any("DICTIONARY" in e for e in col.encodings) and \
+                    col.num_values * col.total_uncompressed_size > rg.num_rows * row_bytes:
                 return False
     return True
 
@@ -102,7 +152,7 @@ def row_groups(f: pq.ParquetFile, channels: tuple[ChannelMeta, ...], window: int
     if not schema.equals(S.windows_schema("code" in schema.names)):
         found.add(f"{S.WINDOWS} does not have the columns of this format version; the archive is damaged", True)
         return {}
-    if not leaves_bounded(md, {"code": S.MAX_CODE_SIZE}):
+    if not leaves_bounded(md, {"code": S.MAX_CODE_SIZE}, window * S.ROW_BYTES_PER_SAMPLE + S.ROW_BYTES_FIXED):
         found.add(f"{S.WINDOWS} uses encodings or value counts this format never writes; the archive is "
                   "damaged or crafted", True)
         return {}
@@ -141,7 +191,8 @@ def check_exceptions(f: pq.ParquetFile, window: int, total_windows: int, found: 
         found.add(f"{S.EXCEPTIONS} lists {md.num_rows} windows, more than the archive's {total_windows}; "
                   "the archive is damaged", True)
     elif any(md.row_group(g).total_byte_size > md.row_group(g).num_rows * (12 * window + S.ROW_BYTES_FIXED)
-             for g in range(md.num_row_groups)) or not leaves_bounded(md, {"pos": window, "bits": window}):
+             for g in range(md.num_row_groups)) or \
+            not leaves_bounded(md, {"pos": window, "bits": window}, S.ROW_BYTES_FIXED):
         found.add(f"{S.EXCEPTIONS} declares more bytes than its windows can hold; the archive is damaged or "
                   "crafted", True)
 
@@ -153,7 +204,7 @@ def load_model(f: pq.ParquetFile, spec: ModelSpec, found: Findings):
     cap = 16 * (spec.n_params + 64) + S.ROW_BYTES_FIXED
     if md.num_rows > 2 * S.MAX_LAYERS + 3 or f.schema_arrow.remove_metadata() != S.MODEL_SCHEMA or \
             sum(md.row_group(g).total_byte_size for g in range(md.num_row_groups)) > cap or \
-            not leaves_bounded(md, {"shape": 2, "values": spec.n_params + 64}) or \
+            not leaves_bounded(md, {"shape": 2, "values": spec.n_params + 64}, S.ROW_BYTES_FIXED) or \
             sum(md.row_group(g).column(2).num_values for g in range(md.num_row_groups)) > spec.n_params + 64:
         found.add(f"{S.MODEL} is not the model the manifest describes ({spec.n_params} parameters); "
                   "the archive is damaged or crafted", True)

@@ -188,6 +188,17 @@ def model_spec(m: dict, window: int) -> ModelSpec | None:
     return ModelSpec(tuple(sizes), n_params)
 
 
+def facts(m: dict) -> None:
+    """The reported facts outside the channels: the source's name, size and SHA-256, the raw size."""
+    src = obj(m, "source")
+    text(src, "name", "source.")
+    integer(src, "bytes", 0, S.MAX_MEMBER_BYTES, "source.", optional=True)
+    text(src, "sha256", "source.", optional=True, limit=64)
+    integer(obj(m, "summary"), "raw_bytes", 0, S.MAX_MEMBER_BYTES, "summary.")
+    for key in ("tool_version", "created_utc", "budget_spec", "model_note"):
+        text(m, key, optional=True, limit=1 << 16)
+
+
 def window(m: dict) -> int:
     return integer(m, "window", MIN_WINDOW, MAX_WINDOW)
 

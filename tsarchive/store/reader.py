@@ -31,7 +31,7 @@ from ..workers import workers as worker_count
 from . import parse as P
 from . import schema as S
 from .binding import check_folder, read_manifest
-from .members import Findings, check_binding, check_exceptions, check_sizes, load_model, open_parquet, row_groups
+from .members import inspect, member_problems
 from .parse import ChannelMeta
 
 
@@ -83,38 +83,20 @@ class Archive:
         self.window = P.window(m)
         self.members = P.members(m)
         model = P.model_spec(m, self.window)
-        src = P.obj(m, "source")
-        P.text(src, "name", "source.")
-        P.integer(P.obj(m, "summary"), "raw_bytes", 0, S.MAX_MEMBER_BYTES, "summary.")
+        P.facts(m)
         chans = P.channel_list(m)
         self.channels = tuple(_channel_meta(c, self.window) for c in chans)
         self._entries = {c.name: P.tables(d) for c, d in zip(self.channels, chans)}
         self._by_name = {c.name: c for c in self.channels}
         self._local = threading.local()
         self._tables                                   # decoded once; a malformed table is named here
-        found = Findings(strict)
-        check_sizes(self.path, self.members, found)
-        listed = {x.name for x in self.members}
-        self.bound, self._groups, self._decoder, self._windows_file = False, {}, None, None
-        wf = open_parquet(self.path, S.WINDOWS, found) if found.decodable else None
-        if wf is not None:
-            self._windows_file = wf
-            self.bound = check_binding(wf.metadata, m, v, found)
-            self._groups = row_groups(wf, self.channels, self.window, found)
-        if found.decodable and S.EXCEPTIONS in listed:
-            ef = open_parquet(self.path, S.EXCEPTIONS, found)
-            if ef is not None:
-                check_exceptions(ef, self.window, sum(c.n_windows for c in self.channels), found)
-        if found.decodable and model is not None:
-            mf = open_parquet(self.path, S.MODEL, found)
-            self._decoder = None if mf is None else load_model(mf, model, found)
-        self.damage: tuple[str, ...] = tuple(found.problems)
-        self.decodable = found.decodable
+        opened = inspect(self.path, m, v, self.members, self.window, self.channels, model, strict)
+        self._windows_file, self._groups, self._decoder = opened.windows, opened.groups, opened.decoder
+        self.bound, self.damage, self.decodable = opened.bound, opened.damage, opened.decodable
 
     def check_members(self) -> None:
         """Hash every member against the manifest (a full read); raise :class:`ArchiveCorrupt` on a mismatch."""
-        from ..verifier import member_problems
-        problems = member_problems(self)
+        problems = member_problems(self.path, self.members)
         if problems:
             raise ArchiveCorrupt(f"{problems[0]}; run tsarchive verify for the details")
 
