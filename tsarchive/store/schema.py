@@ -4,6 +4,7 @@ An archive is a directory, by convention ``NAME.tsa``::
 
     manifest.json       format, tool version, channels (budgets, grids, LPC sets,
                         entropy tables), summary, SHA-256 of every member file
+                        (its own digest is in windows.parquet's footer: binding.py)
     windows.parquet     one row per channel window (residual payloads, checksums,
                         and the autoencoder code when the archive keeps a model)
     exceptions.parquet  one row per window holding samples stored verbatim
