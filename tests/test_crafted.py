@@ -185,3 +185,31 @@ def test_crafted_archive(base, tmp_path, capsys, name, damage, message, codes):
     assert any(re.search(message, s) for s in seen), seen
     assert not (tmp_path / "out.csv").exists()
     assert snapshot(tmp_path) == before                   # nothing written, nothing changed
+
+
+def test_a_damaged_model_is_read_once(base, tmp_path, monkeypatch):
+    # Weights outside int16 (the decoder's weight type) with the right shapes, re-bound: the decoder is
+    # refused; it used to be re-read (and refused again) for every window verify decoded.
+    from tsarchive.verifier import verify_archive
+    a = copy(base, tmp_path, "m.tsa")
+
+    def big_weights(t):
+        values = t["values"].to_pylist()
+        i = t["name"].to_pylist().index("w0")
+        values[i] = [40_000] * len(values[i])
+        return replace_column(t, "values", values)
+
+    _model_table(a, big_weights)
+    monkeypatch.setenv("TSARCHIVE_THREADS", "1")      # channels one after another: every window decoded in turn
+    reads = []
+    for name in ("read_table", "ParquetFile"):
+        real = getattr(pq, name)
+
+        def counted(source, *args, _real=real, **kw):
+            if str(source).endswith(S.MODEL):
+                reads.append(source)
+            return _real(source, *args, **kw)
+        monkeypatch.setattr(pq, name, counted)
+    rep = verify_archive(a)
+    assert len(reads) == 1
+    assert not rep.ok and any("model.parquet" in p for p in rep.problems)

@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import ctypes
 import errno
+import glob
 import os
 import shutil
 import sys
@@ -134,10 +135,11 @@ def _release(path: Path, fd: int) -> None:
 
 def _tidy(path: Path) -> None:
     """Restore an archive left aside by a killed replacement, then remove the leftovers of killed runs."""
-    asides = sorted(path.parent.glob(f".{path.name}.replaced-*"), key=lambda p: p.stat(follow_symlinks=False).st_mtime)
+    name = glob.escape(path.name)
+    asides = sorted(path.parent.glob(f".{name}.replaced-*"), key=lambda p: p.stat(follow_symlinks=False).st_mtime)
     if asides and not os.path.lexists(path) and (asides[-1] / "manifest.json").is_file():
         os.rename(asides.pop(), path)
-    for p in [*asides, *path.parent.glob(f".{path.name}.staging-*")]:
+    for p in [*asides, *path.parent.glob(f".{name}.staging-*")]:
         if p.is_dir() and not p.is_symlink():
             shutil.rmtree(p, ignore_errors=True)
         else:
