@@ -152,6 +152,22 @@ def test_a_second_pack_to_a_claimed_target_is_refused(tmp_path, capsys):
     assert holder.returncode == 0 and not list(tmp_path.glob(".*"))
 
 
+def test_two_packs_racing_to_one_target_one_wins(tmp_path):
+    # Started together without --force: exactly one may write the target (the other is refused, exit 2).
+    src = tmp_path / "s.npy"
+    np.save(src, np.sin(np.arange(20000) / 7.0).astype(np.float32))
+    argv = [sys.executable, "-m", "tsarchive", "pack", str(src), "-o", str(tmp_path / "race.tsa"), "--rate", "100",
+            "--window", "64", "--code-size", "0", "--budget", "0.1%", "--json"]
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    procs = [subprocess.Popen(argv, cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+             for _ in range(2)]
+    results = [p.communicate(timeout=120) + (p.returncode,) for p in procs]
+    assert sorted(r[2] for r in results) == [0, 2], results
+    winner = next(r for r in results if r[2] == 0)
+    assert json.loads(winner[0])["archive_bytes"] == sum(p.stat().st_size for p in (tmp_path / "race.tsa").iterdir())
+    assert verify_archive(tmp_path / "race.tsa").ok and not list(tmp_path.glob(".*"))
+
+
 def test_commit_never_replaces_an_archive_that_appeared_meanwhile(arc, tmp_path):
     from tsarchive.store.writer import ArchiveWriter
     target = tmp_path / "late.tsa"
