@@ -2,7 +2,7 @@
 
 Errors derived from :class:`TsArchiveError` (and bad arguments) print one
 line on stderr and exit with code 2; ``verify`` exits 1 when the archive
-fails a check.
+fails a check, ``report`` when a member's SHA-256 differs from the manifest.
 """
 
 from __future__ import annotations

@@ -33,6 +33,7 @@ from . import schema as S
 from .binding import check_folder, read_manifest
 from .members import inspect, member_problems
 from .parse import ChannelMeta
+from .rows import binary_parts as _binary_parts, codes as _codes, lengths as _lengths
 
 
 READ_SAMPLES = 1 << 20       # samples decoded per step of a long read (about one packing block)
@@ -389,37 +390,6 @@ class Archive:
     def export(self, out_path, channels=None, start=None, end=None) -> Path:
         from ..export_range import export_range
         return export_range(self, out_path, channels=channels, start=start, end=end)
-
-
-def _binary_parts(col) -> tuple[np.ndarray, np.ndarray]:
-    """(data bytes uint8, offsets int64 with one entry more than rows) of a binary column, zero-copy."""
-    arr = col.combine_chunks() if isinstance(col, pa.ChunkedArray) else col
-    if not len(arr):
-        return np.zeros(0, np.uint8), np.zeros(1, np.int64)
-    if arr.null_count:
-        raise ArchiveCorrupt("windows.parquet has a window without a residual payload; the archive is damaged")
-    _, obuf, dbuf = arr.buffers()
-    offs = np.frombuffer(obuf, np.int32)[arr.offset:arr.offset + len(arr) + 1].astype(np.int64)
-    data = np.frombuffer(dbuf, np.uint8) if dbuf is not None else np.zeros(0, np.uint8)
-    return data, offs
-
-
-def _lengths(meta: ChannelMeta, windows: np.ndarray) -> np.ndarray:
-    """Samples in each of the given windows (every window is full but the channel's last)."""
-    w = np.asarray(windows, dtype=np.int64)
-    return np.clip(meta.n_samples - w * meta.window, 0, meta.window)
-
-
-def _codes(t: pa.Table, nrow: int) -> np.ndarray:
-    """(rows, code size) int8 codes; zero columns for an archive without a model."""
-    if "code" not in t.column_names:
-        return np.zeros((nrow, 0), np.int8)
-    col = t["code"]
-    flat = pc.list_flatten(col).to_numpy(zero_copy_only=False).astype(np.int8) if nrow else np.zeros(0, np.int8)
-    k = len(flat) // nrow if nrow else 0
-    if k * nrow != len(flat):
-        raise ArchiveCorrupt("code column has rows of different lengths; the archive is damaged")
-    return flat.reshape(nrow, k)
 
 
 def open_archive(path: str | Path, *, strict: bool = True) -> Archive:
