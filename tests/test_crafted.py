@@ -213,3 +213,24 @@ def test_a_damaged_model_is_read_once(base, tmp_path, monkeypatch):
     rep = verify_archive(a)
     assert len(reads) == 1
     assert not rep.ok and any("model.parquet" in p for p in rep.problems)
+
+
+def test_a_footer_naming_another_column_type_does_not_abort_the_process(base, tmp_path):
+    # pyarrow aborts the whole process (a C++ exception it does not translate) when a column chunk's type
+    # differs from the schema's.  Thrift compact protocol (Apache Thrift spec): 0x1c = next field (ColumnChunk
+    # 3, meta_data) is a struct, whose 0x15 = field 1 (type), i32, 0x0c = zigzag(6) = BYTE_ARRAY (parquet.thrift
+    # Type): a "channel" or "residual" column chunk.  INT32 = 1 -> zigzag 0x02.
+    import subprocess
+    import sys
+    a = copy(base, tmp_path, "t.tsa")
+    p = a / S.WINDOWS
+    data = bytearray(p.read_bytes())
+    n = int.from_bytes(data[-8:-4], "little")
+    at = data.index(b"\x1c\x15\x0c", len(data) - 8 - n)     # the first row group's "channel" chunk type
+    data[at + 2] = 0x02
+    p.write_bytes(bytes(data))
+    for cmd in ("verify", "report"):
+        r = subprocess.run([sys.executable, "-m", "tsarchive", cmd, str(a)], capture_output=True, text=True,
+                           cwd=os.path.dirname(os.path.dirname(__file__)), timeout=120)
+        assert r.returncode == (1 if cmd == "verify" else 2), (cmd, r.returncode, r.stderr[-300:])
+        assert "windows.parquet cannot be read" in r.stdout + r.stderr

@@ -27,6 +27,7 @@ import pyarrow.parquet as pq
 from ..errors import ArchiveCorrupt
 from . import schema as S
 from .binding import file_sha256, footer_digest, manifest_digest, member_size
+from .footer import footer_problem
 from .parse import ChannelMeta, Member, ModelSpec
 
 
@@ -101,6 +102,10 @@ def check_sizes(path: Path, members: tuple[Member, ...], found: Findings) -> Non
 
 
 def open_parquet(path: Path, name: str, found: Findings) -> pq.ParquetFile | None:
+    problem = footer_problem(path / name)          # before any pyarrow metadata accessor can abort the process
+    if problem is not None:
+        found.add(f"{name} cannot be read ({problem}); the archive is damaged", fatal=True)
+        return None
     try:
         return pq.ParquetFile(path / name)
     except (OSError, pa.ArrowException) as exc:

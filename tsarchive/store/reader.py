@@ -25,7 +25,7 @@ import pyarrow.parquet as pq
 from .. import checksum, entropy
 from ..codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, reconstruct
 from ..errors import ArchiveCorrupt, BadInput, FormatVersionError
-from ..predict import Context, mode_name
+from ..predict import PREDICTORS, Context, mode_name
 from ..quantize import bits_to_values
 from ..workers import workers as worker_count
 from . import parse as P
@@ -171,7 +171,10 @@ class Archive:
         groups = [g for g, a, b in self._row_groups.get(channel, []) if b >= w0 and a < w1]
         if not groups:
             return schema.empty_table() if columns is None else pa.schema([schema.field(c) for c in columns]).empty_table()
-        t = self._thread_file().read_row_groups(groups, columns=columns)
+        try:
+            t = self._thread_file().read_row_groups(groups, columns=columns)
+        except (OSError, pa.ArrowException) as exc:
+            raise ArchiveCorrupt(f"windows.parquet cannot be read ({str(exc)[:80]}); the archive is damaged") from None
         mask = pc.and_(pc.and_(pc.equal(t["channel"], channel), pc.greater_equal(t["window"], w0)),
                        pc.less(t["window"], w1))
         t = t.filter(mask)
@@ -197,6 +200,10 @@ class Archive:
         lens = _lengths(meta, windows)
         modes = t["mode"].to_numpy()
         lpc_set = t["lpc_set"].to_numpy()
+        if not set(np.unique(modes).tolist()) <= PREDICTORS.keys() or \
+                (nrow and not 0 <= int(lpc_set.min()) <= int(lpc_set.max()) < len(meta.lpc)):
+            raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} name a predictor or a "
+                                 "linear-prediction set this archive does not have; the archive is damaged")
         classes = t["table"].to_numpy()
         level = t["level"].to_numpy()
         pbuf, poffs = _binary_parts(t["residual"])

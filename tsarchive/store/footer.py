@@ -1,0 +1,145 @@
+"""Check a Parquet member's footer before pyarrow's metadata accessors touch it.
+
+pyarrow declares some footer accessors (``RowGroupMetaData.column``) without
+C++ exception translation: on a footer whose column chunk names another
+physical type than the schema, the Parquet library throws and the whole
+process aborts ("terminate called after throwing ...").  A damaged or crafted
+archive must not do that, so the footer is first read here, with nothing
+but the Thrift compact protocol (Apache Thrift, "Thrift Compact protocol
+encoding", the encoding of Parquet's ``FileMetaData``; field ids from
+parquet-format's ``parquet.thrift``), and checked: every row group has one
+column chunk per schema leaf, each with its metadata inline, of the leaf's
+physical type, nothing encrypted, nothing in other files.
+"""
+
+from __future__ import annotations
+
+import os
+import struct
+from pathlib import Path
+
+MAGIC = b"PAR1"
+MAX_FOOTER = 64 << 20
+_MAX_DEPTH = 32
+
+
+class _Bad(Exception):
+    pass
+
+
+class _Reader:
+    """Thrift compact protocol values as Python objects: a struct is ``{field id: value}``."""
+
+    def __init__(self, buf: bytes) -> None:
+        self.buf, self.pos = buf, 0
+
+    def byte(self) -> int:
+        if self.pos >= len(self.buf):
+            raise _Bad("footer ends early")
+        self.pos += 1
+        return self.buf[self.pos - 1]
+
+    def varint(self) -> int:
+        out = shift = 0
+        while True:
+            b = self.byte()
+            out |= (b & 0x7F) << shift
+            if not b & 0x80:
+                return out
+            shift += 7
+            if shift > 70:
+                raise _Bad("varint too long")
+
+    def zigzag(self) -> int:
+        n = self.varint()
+        return (n >> 1) ^ -(n & 1)
+
+    def value(self, kind: int, depth: int):
+        if depth > _MAX_DEPTH:
+            raise _Bad("nested too deeply")
+        if kind in (1, 2):                   # bool inside a struct: the type is the value
+            return kind == 1
+        if kind == 3:
+            return self.byte()
+        if kind in (4, 5, 6):
+            return self.zigzag()
+        if kind == 7:
+            self.pos += 8
+            if self.pos > len(self.buf):
+                raise _Bad("footer ends early")
+            return struct.unpack("<d", self.buf[self.pos - 8:self.pos])[0]
+        if kind == 8:
+            n = self.varint()
+            if self.pos + n > len(self.buf):
+                raise _Bad("string runs past the footer")
+            self.pos += n
+            return self.buf[self.pos - n:self.pos]
+        if kind in (9, 10):
+            head = self.byte()
+            n, elem = head >> 4, head & 0x0F
+            if n == 15:
+                n = self.varint()
+            if n > len(self.buf) - self.pos:
+                raise _Bad("list longer than the footer")
+            return [self.byte() == 1 if elem in (1, 2) else self.value(elem, depth + 1) for _ in range(n)]
+        if kind == 11:
+            n = self.varint()
+            if n > len(self.buf) - self.pos:
+                raise _Bad("map longer than the footer")
+            kinds = self.byte() if n else 0
+            return [(self.value(kinds >> 4, depth + 1), self.value(kinds & 0x0F, depth + 1)) for _ in range(n)]
+        if kind == 12:
+            return self.struct(depth + 1)
+        raise _Bad(f"unknown Thrift type {kind}")
+
+    def struct(self, depth: int = 0) -> dict:
+        out, last = {}, 0
+        while True:
+            head = self.byte()
+            if head == 0:
+                return out
+            delta, kind = head >> 4, head & 0x0F
+            fid = last + delta if delta else self.zigzag()
+            out[fid] = self.value(kind, depth)
+            last = fid
+
+
+def footer_problem(path: Path) -> str | None:
+    """Why pyarrow must not read this Parquet file's footer, or None when it is well formed (see module doc)."""
+    try:
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0))
+        with os.fdopen(fd, "rb") as fh:
+            size = os.fstat(fh.fileno()).st_size
+            if size < 12:
+                return "too short to be Parquet"
+            fh.seek(size - 8)
+            tail = fh.read(8)
+            n = int.from_bytes(tail[:4], "little")
+            if tail[4:] != MAGIC:
+                return "no Parquet end marker (or an encrypted footer)"
+            if not 0 < n <= min(MAX_FOOTER, size - 12):
+                return "footer length out of range"
+            fh.seek(size - 8 - n)
+            meta = _Reader(fh.read(n)).struct()
+    except OSError as exc:
+        return exc.strerror or str(exc)
+    except (_Bad, RecursionError, struct.error) as exc:
+        return f"footer unreadable ({exc})"
+    return _check(meta)
+
+
+def _check(meta: dict) -> str | None:
+    schema, groups = meta.get(2), meta.get(4, [])
+    if not isinstance(schema, list) or not schema or not all(isinstance(e, dict) for e in schema) \
+            or not isinstance(groups, list) or 8 in meta:
+        return "footer schema missing or footer encrypted"
+    leaves = [e.get(1) for e in schema[1:] if not e.get(5)]     # SchemaElement: 1 type, 5 num_children
+    for g in groups:
+        cols = g.get(1) if isinstance(g, dict) else None         # RowGroup: 1 columns
+        if not isinstance(cols, list) or len(cols) != len(leaves):
+            return "a row group does not have one column per schema leaf"
+        for c, leaf in zip(cols, leaves):                        # ColumnChunk: 1 file_path, 3 meta_data, 8/9 crypto
+            md = c.get(3) if isinstance(c, dict) else None
+            if not isinstance(md, dict) or 1 in c or 8 in c or 9 in c or md.get(1) != leaf:
+                return "a column chunk's type differs from its schema leaf"
+    return None
