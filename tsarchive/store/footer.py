@@ -9,13 +9,17 @@ but the Thrift compact protocol (Apache Thrift, "Thrift Compact protocol
 encoding", the encoding of Parquet's ``FileMetaData``; field ids from
 parquet-format's ``parquet.thrift``), and checked: every row group has one
 column chunk per schema leaf, each with its metadata inline, of the leaf's
-physical type, nothing encrypted, nothing in other files.
+physical type and level histograms of its levels, nothing encrypted,
+nothing in other files.  The facts the archive checks need (row counts,
+sizes, encodings, value counts, statistics, key-value metadata) are taken
+from this reading too, so pyarrow is only asked to read data.
 """
 
 from __future__ import annotations
 
 import os
 import struct
+from dataclasses import dataclass
 from pathlib import Path
 
 MAGIC = b"PAR1"
@@ -104,8 +108,44 @@ class _Reader:
             last = fid
 
 
-def footer_problem(path: Path) -> str | None:
-    """Why pyarrow must not read this Parquet file's footer, or None when it is well formed (see module doc)."""
+@dataclass(frozen=True)
+class Chunk:
+    """One column chunk's footer facts (ColumnMetaData)."""
+
+    path: str
+    type: int
+    encodings: tuple[int, ...]
+    num_values: int
+    uncompressed: int
+    min: bytes | None
+    max: bytes | None
+
+
+@dataclass(frozen=True)
+class Group:
+    num_rows: int
+    total_byte_size: int
+    chunks: tuple[Chunk, ...]
+
+
+@dataclass(frozen=True)
+class Footer:
+    """A Parquet footer read without pyarrow: its row groups and key-value metadata."""
+
+    groups: tuple[Group, ...]
+    key_value: dict[bytes, bytes]
+
+    @property
+    def num_rows(self) -> int:
+        return sum(g.num_rows for g in self.groups)
+
+
+DICTIONARY_ENCODINGS = (2, 8)      # parquet.thrift Encoding: PLAIN_DICTIONARY, RLE_DICTIONARY
+BYTE_ARRAY = 6                     # parquet.thrift Type
+
+
+def read_footer(path: Path) -> Footer | str:
+    """The footer (see module doc), or why pyarrow must not read this file."""
     try:
         fd = os.open(path, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0))
         with os.fdopen(fd, "rb") as fh:
@@ -121,25 +161,63 @@ def footer_problem(path: Path) -> str | None:
                 return "footer length out of range"
             fh.seek(size - 8 - n)
             meta = _Reader(fh.read(n)).struct()
+        return _footer(meta)
     except OSError as exc:
         return exc.strerror or str(exc)
-    except (_Bad, RecursionError, struct.error) as exc:
-        return f"footer unreadable ({exc})"
-    return _check(meta)
+    except (_Bad, RecursionError, struct.error, TypeError, ValueError, AttributeError) as exc:
+        return f"footer unreadable ({str(exc)[:60]})"
 
 
-def _check(meta: dict) -> str | None:
+def _leaves(schema: list) -> list[tuple[str, int, int, int]]:
+    """(dotted path, physical type, max definition level, max repetition level) of each schema leaf."""
+    out, stack = [], []            # stack: [children left, name, def, rep] of open groups
+    for e in schema[1:]:
+        while stack and stack[-1][0] == 0:
+            stack.pop()
+        rep = e.get(3, 0)          # SchemaElement: 1 type, 3 repetition (0 required, 1 optional, 2 repeated),
+        d = (stack[-1][2] if stack else 0) + (rep != 0)          # 4 name, 5 num_children
+        r = (stack[-1][3] if stack else 0) + (rep == 2)
+        name = ".".join([x[1] for x in stack] + [e.get(4, b"").decode("utf-8", "replace")])
+        if stack:
+            stack[-1][0] -= 1
+        if e.get(5):
+            stack.append([e[5], name.rsplit(".", 1)[-1], d, r])
+        else:
+            out.append((name, e.get(1), d, r))
+    return out
+
+
+def _footer(meta: dict) -> Footer | str:
     schema, groups = meta.get(2), meta.get(4, [])
     if not isinstance(schema, list) or not schema or not all(isinstance(e, dict) for e in schema) \
             or not isinstance(groups, list) or 8 in meta:
         return "footer schema missing or footer encrypted"
-    leaves = [e.get(1) for e in schema[1:] if not e.get(5)]     # SchemaElement: 1 type, 5 num_children
+    leaves = _leaves(schema)
+    out = []
     for g in groups:
-        cols = g.get(1) if isinstance(g, dict) else None         # RowGroup: 1 columns
+        cols = g.get(1) if isinstance(g, dict) else None         # RowGroup: 1 columns, 2 bytes, 3 rows
         if not isinstance(cols, list) or len(cols) != len(leaves):
             return "a row group does not have one column per schema leaf"
-        for c, leaf in zip(cols, leaves):                        # ColumnChunk: 1 file_path, 3 meta_data, 8/9 crypto
+        chunks = []
+        for c, (name, typ, d, r) in zip(cols, leaves):           # ColumnChunk: 1 file_path, 3 meta_data, 8/9 crypto
             md = c.get(3) if isinstance(c, dict) else None
-            if not isinstance(md, dict) or 1 in c or 8 in c or 9 in c or md.get(1) != leaf:
+            if not isinstance(md, dict) or 1 in c or 8 in c or 9 in c or md.get(1) != typ:
                 return "a column chunk's type differs from its schema leaf"
-    return None
+            sizes = md.get(16, {})                               # SizeStatistics: 2 rep, 3 def level histograms
+            if not isinstance(sizes, dict) or len(sizes.get(2, ())) not in (0, r + 1) or \
+                    len(sizes.get(3, ())) not in (0, d + 1):
+                return "a column chunk's level histograms do not fit its schema leaf"
+            st = md.get(12, {})                                  # Statistics: 1/2 max/min, 5/6 max/min value
+            chunks.append(Chunk(name, typ, tuple(md.get(2, ())), _int(md.get(5)), _int(md.get(6)),
+                                st.get(6, st.get(2)), st.get(5, st.get(1))))
+        out.append(Group(_int(g.get(3)), _int(g.get(2)), tuple(chunks)))
+    kv = {}
+    for item in meta.get(5, []):                                 # FileMetaData: 5 key_value_metadata
+        kv[item.get(1, b"")] = item.get(2, b"")
+    return Footer(tuple(out), kv)
+
+
+def _int(v) -> int:
+    if type(v) is not int or v < 0:
+        raise _Bad("a size or count is missing or negative")
+    return v

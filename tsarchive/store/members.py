@@ -27,7 +27,7 @@ import pyarrow.parquet as pq
 from ..errors import ArchiveCorrupt
 from . import schema as S
 from .binding import file_sha256, footer_digest, manifest_digest, member_size
-from .footer import footer_problem
+from .footer import BYTE_ARRAY, DICTIONARY_ENCODINGS, Footer, read_footer
 from .parse import ChannelMeta, Member, ModelSpec
 
 
@@ -51,16 +51,16 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
     wf = open_parquet(path, S.WINDOWS, found) if found.decodable else None
     bound, groups, decoder = False, {}, None
     if wf is not None:
-        bound = check_binding(wf.metadata, manifest, version, found)
-        groups = row_groups(wf, channels, window, found)
+        bound = check_binding(wf[1], manifest, version, found)
+        groups = row_groups(*wf, channels, window, found)
     if found.decodable and S.EXCEPTIONS in {x.name for x in members}:
         ef = open_parquet(path, S.EXCEPTIONS, found)
         if ef is not None:
-            check_exceptions(ef, window, sum(c.n_windows for c in channels), found)
+            check_exceptions(*ef, window, sum(c.n_windows for c in channels), found)
     if found.decodable and model is not None:
         mf = open_parquet(path, S.MODEL, found)
-        decoder = None if mf is None else load_model(mf, model, found)
-    return Opened(wf, groups, decoder, bound, tuple(found.problems), found.decodable)
+        decoder = None if mf is None else load_model(*mf, model, found)
+    return Opened(wf and wf[0], groups, decoder, bound, tuple(found.problems), found.decodable)
 
 
 def member_problems(path: Path, members: tuple[Member, ...]) -> list[str]:
@@ -101,19 +101,20 @@ def check_sizes(path: Path, members: tuple[Member, ...], found: Findings) -> Non
                       "or replaced; restore the archive from a copy")
 
 
-def open_parquet(path: Path, name: str, found: Findings) -> pq.ParquetFile | None:
-    problem = footer_problem(path / name)          # before any pyarrow metadata accessor can abort the process
-    if problem is not None:
-        found.add(f"{name} cannot be read ({problem}); the archive is damaged", fatal=True)
+def open_parquet(path: Path, name: str, found: Findings) -> tuple[pq.ParquetFile, Footer] | None:
+    """The member opened by pyarrow after its footer was read and checked here (footer.py)."""
+    footer = read_footer(path / name)          # before pyarrow: some of its metadata accessors abort the process
+    if isinstance(footer, str):
+        found.add(f"{name} cannot be read ({footer}); the archive is damaged", fatal=True)
         return None
     try:
-        return pq.ParquetFile(path / name)
+        return pq.ParquetFile(path / name), footer
     except (OSError, pa.ArrowException) as exc:
         found.add(f"{name} cannot be read ({str(exc)[:80]}); the archive is damaged", fatal=True)
         return None
 
 
-def leaves_bounded(md: pq.FileMetaData, per_row: dict[str, int], row_bytes: int) -> bool:
+def leaves_bounded(footer: Footer, per_row: dict[str, int], row_bytes: int) -> bool:
     """At most ``per_row[column]`` values per row (default 1), and no variable-length column whose
     dictionary could expand past ``row_bytes`` per row.
 
@@ -122,23 +123,21 @@ def leaves_bounded(md: pq.FileMetaData, per_row: dict[str, int], row_bytes: int)
     row's value is at most the whole dictionary (fixed-width values cannot grow).  ``channel`` is
     exempt: its values are the channel names, checked through the statistics.
     """
-    for g in range(md.num_row_groups):
-        rg = md.row_group(g)
-        for i in range(rg.num_columns):
-            col = rg.column(i)
-            top = col.path_in_schema.split(".")[0]
-            if col.num_values > rg.num_rows * per_row.get(top, 1):
+    for g in footer.groups:
+        for col in g.chunks:
+            top = col.path.split(".")[0]
+            if col.num_values > g.num_rows * per_row.get(top, 1):
                 return False
-            if top != "channel" and col.physical_type == "BYTE_ARRAY" and \
-                    any("DICTIONARY" in e for e in col.encodings) and \
-                    col.num_values * col.total_uncompressed_size > rg.num_rows * row_bytes:
+            if top != "channel" and col.type == BYTE_ARRAY and \
+                    any(e in DICTIONARY_ENCODINGS for e in col.encodings) and \
+                    col.num_values * col.uncompressed > g.num_rows * row_bytes:
                 return False
     return True
 
 
-def check_binding(md: pq.FileMetaData, manifest: dict, version: int, found: Findings) -> bool:
+def check_binding(footer: Footer, manifest: dict, version: int, found: Findings) -> bool:
     """True when the manifest is bound to windows.parquet (False: an unbound version-3 archive)."""
-    stored = footer_digest(md.metadata)
+    stored = footer_digest(footer.key_value)
     if stored is None:
         if version >= S.BOUND_FROM_VERSION:
             found.add(f"{S.WINDOWS} does not carry the manifest's digest; the archive is damaged or was edited")
@@ -149,34 +148,43 @@ def check_binding(md: pq.FileMetaData, manifest: dict, version: int, found: Find
     return True
 
 
-def row_groups(f: pq.ParquetFile, channels: tuple[ChannelMeta, ...], window: int,
+def _stats(chunk) -> tuple[str, str] | tuple[int, int] | None:
+    """(min, max) of a ``channel`` (text) or ``window`` (int32) chunk from the footer, None when absent."""
+    if chunk.min is None or chunk.max is None:
+        return None
+    if chunk.path == "channel":
+        return chunk.min.decode("utf-8", "replace"), chunk.max.decode("utf-8", "replace")
+    if len(chunk.min) != 4 or len(chunk.max) != 4:
+        return None
+    return int.from_bytes(chunk.min, "little", signed=True), int.from_bytes(chunk.max, "little", signed=True)
+
+
+def row_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, ...], window: int,
                found: Findings) -> dict[str, list[tuple[int, int, int]]]:
     """channel -> [(row group, first window, last window)], after checking rows and declared sizes."""
-    md = f.metadata
     schema = f.schema_arrow.remove_metadata()
     if not schema.equals(S.windows_schema("code" in schema.names)):
         found.add(f"{S.WINDOWS} does not have the columns of this format version; the archive is damaged", True)
         return {}
-    if not leaves_bounded(md, {"code": S.MAX_CODE_SIZE}, window * S.ROW_BYTES_PER_SAMPLE + S.ROW_BYTES_FIXED):
+    limit = window * S.ROW_BYTES_PER_SAMPLE + S.ROW_BYTES_FIXED
+    if not leaves_bounded(footer, {"code": S.MAX_CODE_SIZE}, limit):
         found.add(f"{S.WINDOWS} uses encodings or value counts this format never writes; the archive is "
                   "damaged or crafted", True)
         return {}
     ci, wi = schema.names.index("channel"), schema.names.index("window")
-    limit = window * S.ROW_BYTES_PER_SAMPLE + S.ROW_BYTES_FIXED
     out: dict[str, list[tuple[int, int, int]]] = {}
     rows: dict[str, int] = {}
-    for g in range(md.num_row_groups):
-        rg = md.row_group(g)
-        cs, ws = rg.column(ci).statistics, rg.column(wi).statistics
-        if cs is None or ws is None or not cs.has_min_max or not ws.has_min_max or cs.min != cs.max:
+    for g, rg in enumerate(footer.groups):
+        cs, ws = _stats(rg.chunks[ci]), _stats(rg.chunks[wi])
+        if cs is None or ws is None or cs[0] != cs[1]:
             found.add(f"{S.WINDOWS} row groups lack per-channel statistics; the archive is damaged", True)
             return {}
         if rg.total_byte_size > rg.num_rows * limit:
             found.add(f"{S.WINDOWS} row group {g} declares {rg.total_byte_size} bytes for {rg.num_rows} windows "
                       f"of {window} samples; the archive is damaged or crafted", True)
             return {}
-        out.setdefault(cs.min, []).append((g, int(ws.min), int(ws.max)))
-        rows[cs.min] = rows.get(cs.min, 0) + rg.num_rows
+        out.setdefault(cs[0], []).append((g, ws[0], ws[1]))
+        rows[cs[0]] = rows.get(cs[0], 0) + rg.num_rows
     for ch in channels:
         if rows.get(ch.name, 0) != ch.n_windows:
             found.add(f"channel {ch.name}: the manifest declares {ch.n_samples} samples ({ch.n_windows} windows) "
@@ -188,29 +196,26 @@ def row_groups(f: pq.ParquetFile, channels: tuple[ChannelMeta, ...], window: int
     return out
 
 
-def check_exceptions(f: pq.ParquetFile, window: int, total_windows: int, found: Findings) -> None:
-    md = f.metadata
+def check_exceptions(f: pq.ParquetFile, footer: Footer, window: int, total_windows: int, found: Findings) -> None:
     if f.schema_arrow.remove_metadata() != S.EXCEPTIONS_SCHEMA:
         found.add(f"{S.EXCEPTIONS} has unexpected columns; the archive is damaged", True)
-    elif md.num_rows > total_windows:
-        found.add(f"{S.EXCEPTIONS} lists {md.num_rows} windows, more than the archive's {total_windows}; "
+    elif footer.num_rows > total_windows:
+        found.add(f"{S.EXCEPTIONS} lists {footer.num_rows} windows, more than the archive's {total_windows}; "
                   "the archive is damaged", True)
-    elif any(md.row_group(g).total_byte_size > md.row_group(g).num_rows * (12 * window + S.ROW_BYTES_FIXED)
-             for g in range(md.num_row_groups)) or \
-            not leaves_bounded(md, {"pos": window, "bits": window}, S.ROW_BYTES_FIXED):
+    elif any(g.total_byte_size > g.num_rows * (12 * window + S.ROW_BYTES_FIXED) for g in footer.groups) or \
+            not leaves_bounded(footer, {"pos": window, "bits": window}, S.ROW_BYTES_FIXED):
         found.add(f"{S.EXCEPTIONS} declares more bytes than its windows can hold; the archive is damaged or "
                   "crafted", True)
 
 
-def load_model(f: pq.ParquetFile, spec: ModelSpec, found: Findings):
+def load_model(f: pq.ParquetFile, footer: Footer, spec: ModelSpec, found: Findings):
     """The integer decoder, read once and checked against the manifest's sizes; None if it is damaged."""
     from ..model.intnet import IntDecoder
-    md = f.metadata
     cap = 16 * (spec.n_params + 64) + S.ROW_BYTES_FIXED
-    if md.num_rows > 2 * S.MAX_LAYERS + 3 or f.schema_arrow.remove_metadata() != S.MODEL_SCHEMA or \
-            sum(md.row_group(g).total_byte_size for g in range(md.num_row_groups)) > cap or \
-            not leaves_bounded(md, {"shape": 2, "values": spec.n_params + 64}, S.ROW_BYTES_FIXED) or \
-            sum(md.row_group(g).column(2).num_values for g in range(md.num_row_groups)) > spec.n_params + 64:
+    if footer.num_rows > 2 * S.MAX_LAYERS + 3 or f.schema_arrow.remove_metadata() != S.MODEL_SCHEMA or \
+            sum(g.total_byte_size for g in footer.groups) > cap or \
+            not leaves_bounded(footer, {"shape": 2, "values": spec.n_params + 64}, S.ROW_BYTES_FIXED) or \
+            sum(g.chunks[2].num_values for g in footer.groups) > spec.n_params + 64:
         found.add(f"{S.MODEL} is not the model the manifest describes ({spec.n_params} parameters); "
                   "the archive is damaged or crafted", True)
         return None
