@@ -272,8 +272,13 @@ def test_kill_9_at_any_point_leaves_the_old_archive_or_none(tmp_path):
 def test_byte_flips_in_any_member_are_caught_or_harmless(tmp_path):
     # One flipped bit at evenly spaced places of each member: verify always fails; the reader either refuses
     # (ArchiveCorrupt) or returns exactly the original samples (a flip in a column the CRC does not cover).
-    from crafting import pack_small
-    arc = pack_small(tmp_path, code_size=0)
+    from conftest import make_signal
+    x = make_signal(3000).astype(np.float32)
+    x[100, 0] = np.nan                                  # a verbatim sample: exceptions.parquet exists
+    np.save(tmp_path / "s.npy", x)
+    arc = tmp_path / "f.tsa"
+    tsarchive.pack(tmp_path / "s.npy", arc, "0.5%", rate=200.0, window=64, code_size=2, train_seconds=1)
+    assert {p.name for p in arc.iterdir()} == {S.MANIFEST, S.WINDOWS, S.EXCEPTIONS, S.MODEL}
     original = {k: v.copy() for k, v in tsarchive.open(arc).read_many(workers=1).items()}
     for name in [p.name for p in arc.iterdir() if p.name != S.MANIFEST]:
         p = arc / name
