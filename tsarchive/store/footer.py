@@ -177,7 +177,8 @@ def _leaves(schema: list) -> list[tuple[str, int, int, int]]:
         rep = e.get(3, 0)          # SchemaElement: 1 type, 3 repetition (0 required, 1 optional, 2 repeated),
         d = (stack[-1][2] if stack else 0) + (rep != 0)          # 4 name, 5 num_children
         r = (stack[-1][3] if stack else 0) + (rep == 2)
-        name = ".".join([x[1] for x in stack] + [e.get(4, b"").decode("utf-8", "replace")])
+        raw = e.get(4, b"")
+        name = ".".join([x[1] for x in stack] + [raw.decode("utf-8", "replace") if isinstance(raw, bytes) else "?"])
         if stack:
             stack[-1][0] -= 1
         if e.get(5):
@@ -208,13 +209,22 @@ def _footer(meta: dict) -> Footer | str:
                     len(sizes.get(3, ())) not in (0, d + 1):
                 return "a column chunk's level histograms do not fit its schema leaf"
             st = md.get(12, {})                                  # Statistics: 1/2 max/min, 5/6 max/min value
-            chunks.append(Chunk(name, typ, tuple(md.get(2, ())), _int(md.get(5)), _int(md.get(6)),
-                                st.get(6, st.get(2)), st.get(5, st.get(1))))
+            enc = md.get(2, [])
+            if not isinstance(st, dict) or not isinstance(enc, list) or not all(type(e) is int for e in enc):
+                return "a column chunk's encodings or statistics are malformed"
+            chunks.append(Chunk(name, typ, tuple(enc), _int(md.get(5)), _int(md.get(6)),
+                                _bytes(st.get(6, st.get(2))), _bytes(st.get(5, st.get(1)))))
         out.append(Group(_int(g.get(3)), _int(g.get(2)), tuple(chunks)))
     kv = {}
     for item in meta.get(5, []):                                 # FileMetaData: 5 key_value_metadata
-        kv[item.get(1, b"")] = item.get(2, b"")
+        if not isinstance(item, dict) or not isinstance(item.get(1), bytes):
+            return "key-value metadata is malformed"
+        kv[item[1]] = _bytes(item.get(2)) or b""
     return Footer(tuple(out), kv)
+
+
+def _bytes(v) -> bytes | None:
+    return v if isinstance(v, bytes) else None
 
 
 def _int(v) -> int:

@@ -272,6 +272,9 @@ class Archive:
     def _ae(self, meta: ChannelMeta, codes: np.ndarray, level: np.ndarray, L: int):
         if meta.scale > FRAC_SAFE_SCALE or codes.shape[1] == 0:
             return None
+        if codes.shape[1] != self.decoder.code_size:
+            raise ArchiveCorrupt(f"channel {meta.name}: window codes have {codes.shape[1]} values, the model takes "
+                                 f"{self.decoder.code_size}; the archive is damaged")
         return ae_prediction(self.decoder, codes, level, meta.scale, L)
 
     def _span(self, meta: ChannelMeta, start: float | None, end: float | None) -> tuple[int, int]:
