@@ -153,17 +153,24 @@ def read_footer(path: Path) -> Footer | str:
             if size < 12:
                 return "too short to be Parquet"
             fh.seek(size - 8)
-            tail = fh.read(8)
-            n = int.from_bytes(tail[:4], "little")
-            if tail[4:] != MAGIC:
-                return "no Parquet end marker (or an encrypted footer)"
+            n = int.from_bytes(fh.read(4), "little")
             if not 0 < n <= min(MAX_FOOTER, size - 12):
                 return "footer length out of range"
             fh.seek(size - 8 - n)
-            meta = _Reader(fh.read(n)).struct()
-        return _footer(meta)
+            return _footer_bytes(fh.read(n + 8))
     except OSError as exc:
         return exc.strerror or str(exc)
+
+
+def _footer_bytes(buf: bytes) -> Footer | str:
+    """A footer from the file's last bytes (Thrift ``FileMetaData``, its 4-byte length, ``PAR1``)."""
+    if len(buf) < 12 or buf[-4:] != MAGIC:
+        return "no Parquet end marker (or an encrypted footer)"
+    n = int.from_bytes(buf[-8:-4], "little")
+    if not 0 < n <= len(buf) - 8:
+        return "footer length out of range"
+    try:
+        return _footer(_Reader(buf[-8 - n:-8]).struct())
     except (_Bad, RecursionError, struct.error, TypeError, ValueError, AttributeError) as exc:
         return f"footer unreadable ({str(exc)[:60]})"
 
