@@ -2,7 +2,8 @@
 
 Errors derived from :class:`TsArchiveError` (and bad arguments) print one
 line on stderr and exit with code 2; ``verify`` exits 1 when the archive
-fails a check (also when the compared file is not the one that was packed).
+fails a check (also when the compared file is not the one that was packed), ``report`` when a
+member's SHA-256 differs from the manifest.
 When the reader of our output goes away (``tsarchive report X | head``),
 the command stops quietly with the shell's code for that, 141 (128 + SIGPIPE).
 The terminal app (``browse``, or no command) needs a terminal on stdin and
@@ -187,6 +188,7 @@ def _unpack(args) -> int:
     from .store.reader import open_archive
     from .timespec import parse_offset
     arc = open_archive(args.archive)
+    arc.check_members()                     # a full unpack reads every member anyway; hashing costs little
     start0 = arc.channels[0].start if arc.channels else None
     tl = arc.timeline
     ns0 = int(tl.values(0, 1)[0]) if tl.kind == "datetime" and tl.n else None   # exact, where start0 has µs
@@ -222,8 +224,9 @@ def _report(args) -> int:
     from .report import archive_dict, archive_table
     from .store.reader import open_archive
     arc = open_archive(args.archive)
-    print(json.dumps(archive_dict(arc), indent=1) if args.json else archive_table(arc))
-    return 0
+    d = archive_dict(arc)
+    print(json.dumps(d, indent=1) if args.json else archive_table(arc, d))
+    return 1 if d["problems"] else 0
 
 
 def _demo(args) -> int:

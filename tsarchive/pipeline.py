@@ -46,6 +46,7 @@ from .workers import workers as worker_count
 from .store.manifest import build_manifest
 from .store.sidecar import stage_sidecar
 from .store.timeaxis import check_axis
+from .store.claim import claim_target
 from .store.writer import ArchiveWriter, check_target
 from .windows import DEFAULT_WINDOW, MAX_WINDOW, MIN_WINDOW, batches, channel_scale, levels, n_windows, normalise
 
@@ -119,7 +120,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     # unless a code size was asked for, already encodes without it: a model that pays is the
     # exception, and then the speculative archive is dropped and the channels are encoded again.
     plain_ready: Future = Future()                   # the plan without a model, for the training thread
-    with ThreadPoolExecutor(1) as helper:
+    with claim_target(archive, force), ThreadPoolExecutor(1) as helper:   # no other run may write this target meanwhile
         if K > 0:
             helper.submit(_import_trainer)           # the trainer's import overlaps the reading below
         try:

@@ -49,12 +49,16 @@ def _written_utc(arc) -> str | None:
 
 
 def archive_dict(arc) -> dict:
+    """The archive's facts; its members are hashed first, and the budget is claimed only for intact members."""
+    from .store.members import member_problems
+    problems = member_problems(arc.path, arc.members)
     return {
         "archive": str(arc.path), "source": arc.manifest.get("source", {}),
         "created_utc": _written_utc(arc), "tool_version": arc.manifest.get("tool_version"),
         "format_version": arc.manifest.get("format_version"), "window": arc.window,
         "archive_bytes": arc.archive_bytes, "raw_bytes": arc.raw_bytes, "ratio": arc.ratio,
-        "within_budget": all(c.worst_error <= c.eps for c in arc.channels),
+        "bound": arc.bound, "problems": problems,
+        "within_budget": None if problems else all(c.worst_error <= c.eps for c in arc.channels),
         "times": arc.timeline.describe(), "notes": list(arc.notes),
         "channels": [{"name": c.name, "unit": c.unit, "rate": c.rate, "n_samples": c.n_samples,
                       "duration_s": c.duration, "dtype": c.dtype, "budget": c.budget, "eps": c.eps,
@@ -64,21 +68,23 @@ def archive_dict(arc) -> dict:
     }
 
 
-def archive_table(arc) -> str:
-    d = archive_dict(arc)
+def archive_table(arc, d: dict | None = None) -> str:
+    d = archive_dict(arc) if d is None else d
     rows = [[c["name"], c["unit"] or "-", c["budget"], _fmt(c["eps"]), _fmt(c["worst_error"]),
              f"{c['used_pct']:.1f}", f"{c['ratio']:.2f}", f"{c['bits_per_sample']:.3f}"] for c in d["channels"]]
     src = d["source"]
     first = arc.channels[0] if arc.channels else None
     return "\n".join([
-        f"archive {d['archive']} (format {d['format_version']}, written {d['created_utc']} by tsarchive "
-        f"{d['tool_version']})",
+        f"archive {d['archive']} (format {d['format_version']}" + ("" if d["bound"] else ", manifest not bound")
+        + f", written {d['created_utc']} by tsarchive {d['tool_version']})",
         f"source {src.get('name', '?')}: {src.get('bytes', 0)} bytes, sha256 {src.get('sha256', '')[:16]}…",
         f"{len(rows)} channel(s)" + (f" at {first.rate:g} Hz, {first.duration:g} s" if first else ""),
         arc.timeline.describe(), *(f"logger note: {s}" for s in arc.notes),
         "", _table(HEADER, rows), *[f"note: {c['name']}: {c['note']}" for c in d["channels"] if c["note"]], "",
+        *[f"problem: {p}" for p in d["problems"]],
         f"ratio {d['ratio']:.2f} ({d['raw_bytes']} raw bytes -> {d['archive_bytes']} archive bytes); "
-        + ("within budget" if d["within_budget"] else "OVER BUDGET")])
+        + {True: "within budget (member checksums match)", False: "OVER BUDGET",
+           None: "DAMAGED: the errors above are not trustworthy; run tsarchive verify"}[d["within_budget"]]])
 
 
 def verify_text(rep: VerifyReport) -> str:

@@ -15,7 +15,6 @@ from pathlib import Path
 
 import numpy as np
 
-from . import checksum
 from .errors import ArchiveCorrupt, BadInput
 from .exact import abs_errors, rounded_errors
 from .quantize import values_to_bits
@@ -39,15 +38,12 @@ def verify_archive(archive, against=None, progress=None, *, rate: float | None =
     ``source_check``).  ``rate`` is for a source that carries none (``.npy``,
     a table without a time column); the archive's rate is used otherwise.
     """
+    from .store.members import member_problems
     from .store.reader import Archive, open_archive
 
-    arc = archive if isinstance(archive, Archive) else open_archive(archive)
-    problems: list[str] = []
+    arc = archive if isinstance(archive, Archive) else open_archive(archive, strict=False)
+    problems = list(arc.damage) + member_problems(arc.path, arc.members)
     identity = None if against is None or isinstance(against, Recording) else source_identity(arc, Path(against))
-    for name, info in arc.manifest.get("members", {}).items():
-        p = arc.path / name
-        if not p.is_file() or checksum.file_sha256(p) != info.get("sha256"):
-            problems.append(f"member {name}: SHA-256 differs from the manifest (file damaged or replaced)")
     if identity is not None and identity.same is False and not even_if_changed:
         problems.insert(0, identity.message + "; its samples were not compared (pass --even-if-changed to "
                         "compare them anyway)")
@@ -68,6 +64,11 @@ def verify_archive(archive, against=None, progress=None, *, rate: float | None =
                 progress(Progress("verify", done[0], total, message))
 
     jobs = [(meta, None if rec is None else _column_index(rec, meta, j)) for j, meta in enumerate(arc.channels)]
+    if not arc.decodable:  # a member is missing or unreadable: report that, decode nothing
+        checks = [ChannelCheck(name=m.name, eps=m.eps, worst_error=None, n_bad=0, bad_windows=(),
+                               bad_checksums=()) for m, _ in jobs]
+        return VerifyReport(ok=False, checksums_ok=False, compared=rec is not None, channels=tuple(checks),
+                            problems=tuple(problems))
     workers = worker_count(len(jobs))
     if workers == 1:
         results = [_check_channel(arc, rec, meta, col, step) for meta, col in jobs]
@@ -78,7 +79,7 @@ def verify_archive(archive, against=None, progress=None, *, rate: float | None =
     checks = [c for c, _ in results]
     for _, found in results:
         problems.extend(found)
-    checksums_ok = not any(c.bad_checksums for c in checks) and \
+    checksums_ok = not arc.damage and not any(c.bad_checksums for c in checks) and \
         not any(p.startswith("member") or "cannot be decoded" in p for p in problems)
     return VerifyReport(ok=not problems, checksums_ok=checksums_ok, compared=rec is not None,
                         channels=tuple(checks), problems=tuple(problems),

@@ -10,12 +10,10 @@ from __future__ import annotations
 
 import base64
 import binascii
-import json
 import math
 import threading
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
-from datetime import datetime
 from functools import cached_property
 from pathlib import Path
 
@@ -26,50 +24,21 @@ import pyarrow.parquet as pq
 
 from .. import checksum, entropy
 from ..codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, reconstruct
-from ..errors import ArchiveCorrupt, ArchiveNotFound, BadInput, FormatVersionError
-from ..predict import Context, mode_name
-from ..predict.lpc import LpcCoefs
-from ..quantize import Grid, bits_to_values
+from ..errors import ArchiveCorrupt, BadInput, FormatVersionError
+from ..predict import PREDICTORS, Context, mode_name
+from ..quantize import bits_to_values
 from ..workers import workers as worker_count
-from . import schema as S, sidecar
+from . import parse as P
+from . import schema as S
+from .binding import check_folder, read_manifest
+from .members import inspect, member_problems
+from .parse import ChannelMeta
+from .rows import binary_parts as _binary_parts, codes as _codes, lengths as _lengths
+from . import sidecar
 from .timeaxis import Times, Timeline, load_timeline
 
 
 READ_SAMPLES = 1 << 20       # samples decoded per step of a long read (about one packing block)
-
-
-@dataclass(frozen=True)
-class ChannelMeta:
-    """A channel as the manifest describes it."""
-
-    name: str
-    unit: str
-    rate: float
-    start: datetime | None
-    dtype: str
-    n_samples: int
-    budget: str
-    eps: float
-    decimals: int | None
-    window: int
-    grid: Grid
-    scale: int
-    lpc: tuple[LpcCoefs, ...]
-    worst_error: float
-    used_pct: float
-    ratio: float
-    bits_per_sample: float
-    n_exceptions: int
-    modes: tuple[tuple[str, int], ...]
-    note: str = ""
-
-    @property
-    def duration(self) -> float:
-        return self.n_samples / self.rate if self.rate > 0 else 0.0
-
-    @property
-    def n_windows(self) -> int:
-        return -(-self.n_samples // self.window) if self.n_samples else 0
 
 
 @dataclass(frozen=True)
@@ -86,22 +55,7 @@ class WindowTable:
 
 
 def _channel_meta(d: dict, window: int) -> ChannelMeta:
-    try:
-        s = d["summary"]
-        start = d.get("start")
-        if not (math.isfinite(float(d["rate"])) and float(d["rate"]) > 0):
-            raise ValueError(f"rate {d['rate']!r} is not a positive number")
-        return ChannelMeta(
-            name=d["name"], unit=d.get("unit", ""), rate=float(d["rate"]),
-            start=None if not start else datetime.fromisoformat(start.replace("Z", "+00:00")),
-            dtype=d["dtype"], n_samples=int(d["n_samples"]), budget=d["budget"], eps=float(d["eps"]),
-            decimals=d.get("decimals"), window=window, grid=Grid.from_dict(d["grid"]), scale=int(d["scale"]),
-            lpc=_lpc_sets(d.get("lpc")),
-            worst_error=float(s["worst_error"]), used_pct=float(s["used_pct"]), ratio=float(s["ratio"]),
-            bits_per_sample=float(s["bits_per_sample"]), n_exceptions=int(s.get("n_exceptions", 0)),
-            modes=tuple(sorted(s.get("modes", {}).items())), note=str(d.get("note", "")))
-    except (KeyError, TypeError, ValueError) as exc:
-        raise ArchiveCorrupt(f"manifest channel entry is incomplete ({exc}); the archive is damaged") from None
+    return P.channel_meta(d, window)
 
 
 class Archive:
@@ -112,32 +66,42 @@ class Archive:
     serialise access; :meth:`read_many` decodes channels on threads safely.
     """
 
-    def __init__(self, path: str | Path) -> None:
+    def __init__(self, path: str | Path, *, strict: bool = True) -> None:
+        """Open and check an archive (manifest fields, member sizes, the binding, row counts, caps).
+
+        ``strict`` (reading) refuses any damage with :class:`ArchiveCorrupt`; without it (``verify``)
+        damage to the members is collected in :attr:`damage` and :attr:`decodable` says whether
+        decoding may still be tried.  A manifest that cannot be understood is refused either way.
+        """
         self.path = Path(path)
-        mpath = self.path / S.MANIFEST
-        if not self.path.exists():
-            raise ArchiveNotFound(f"archive {self.path} does not exist; check the path")
-        if not mpath.is_file():
-            raise ArchiveCorrupt(f"{self.path} is not a tsarchive archive (no {S.MANIFEST}); pass an archive folder")
-        try:
-            self.manifest = json.loads(mpath.read_text(encoding="utf-8"))
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-            raise ArchiveCorrupt(f"{mpath} cannot be read ({exc}); the archive is damaged") from None
-        if self.manifest.get("format") != S.FORMAT_NAME:
-            raise ArchiveCorrupt(f"{self.path} is not a tsarchive archive; pass an archive folder")
-        if self.manifest.get("format_version") != S.FORMAT_VERSION:
-            raise FormatVersionError(f"archive format version {self.manifest.get('format_version')} is not "
-                                     f"{S.FORMAT_VERSION}; use the tsarchive version that wrote it")
-        listed = self.manifest.get("members", {})
-        needed = S.REQUIRED_MEMBERS + ((S.MODEL,) if self.manifest.get("model") is not None else ()) \
-            + ((S.EXCEPTIONS,) if S.EXCEPTIONS in listed else ())
-        for name in needed:
-            if not (self.path / name).is_file():
-                raise ArchiveCorrupt(f"archive member {name} is missing; the archive is incomplete")
-        self.window = int(self.manifest["window"])
-        self.channels = tuple(_channel_meta(c, self.window) for c in self.manifest["channels"])
+        check_folder(self.path)
+        m = self.manifest = read_manifest(self.path)
+        v = self.format_version = P.format_version(m)
+        if v > S.FORMAT_VERSION:
+            raise FormatVersionError(f"archive {self.path.name} was written by a newer tsarchive (format {v}; "
+                                     f"this one reads {S.OLDEST_READABLE}..{S.FORMAT_VERSION}); upgrade tsarchive")
+        if v < S.OLDEST_READABLE:
+            raise FormatVersionError(f"archive {self.path.name} has format {v}, older than this tsarchive reads "
+                                     f"({S.OLDEST_READABLE}..{S.FORMAT_VERSION}); use the version that wrote it")
+        self.window = P.window(m)
+        self.members = P.members(m)
+        model = P.model_spec(m, self.window)
+        P.facts(m)
+        chans = P.channel_list(m)
+        self.channels = tuple(_channel_meta(c, self.window) for c in chans)
+        self._entries = {c.name: P.tables(d) for c, d in zip(self.channels, chans)}
         self._by_name = {c.name: c for c in self.channels}
         self._local = threading.local()
+        self._tables                                   # decoded once; a malformed table is named here
+        opened = inspect(self.path, m, v, self.members, self.window, self.channels, model, strict)
+        self._windows_file, self._groups, self._decoder = opened.windows, opened.groups, opened.decoder
+        self.bound, self.damage, self.decodable = opened.bound, opened.damage, opened.decodable
+
+    def check_members(self) -> None:
+        """Hash every member against the manifest (a full read); raise :class:`ArchiveCorrupt` on a mismatch."""
+        problems = member_problems(self.path, self.members)
+        if problems:
+            raise ArchiveCorrupt(f"{problems[0]}; run tsarchive verify for the details")
 
     # -- facts -------------------------------------------------------------------
     @property
@@ -163,13 +127,6 @@ class Archive:
             raise BadInput(f"no channel {name!r} in the archive; channels are: {', '.join(self._by_name)}") from None
 
     # -- members -----------------------------------------------------------------
-    @cached_property
-    def _windows_file(self) -> pq.ParquetFile:
-        try:
-            return pq.ParquetFile(self.path / S.WINDOWS)
-        except (OSError, pa.ArrowException) as exc:
-            raise ArchiveCorrupt(f"windows.parquet cannot be read ({exc}); the archive is damaged") from None
-
     def _thread_file(self) -> pq.ParquetFile:
         """windows.parquet opened once per thread (a ParquetFile is not shared between threads)."""
         if threading.current_thread() is threading.main_thread():
@@ -182,48 +139,31 @@ class Archive:
                 raise ArchiveCorrupt(f"windows.parquet cannot be read ({exc}); the archive is damaged") from None
         return f
 
-    @cached_property
+    @property
     def _row_groups(self) -> dict[str, list[tuple[int, int, int]]]:
-        """channel -> [(row group, first window, last window)] from Parquet statistics."""
-        md = self._windows_file.metadata
-        names = md.schema.to_arrow_schema().names
-        ci, wi = names.index("channel"), names.index("window")
-        out: dict[str, list[tuple[int, int, int]]] = {}
-        for g in range(md.num_row_groups):
-            rg = md.row_group(g)
-            cs, ws = rg.column(ci).statistics, rg.column(wi).statistics
-            if cs is None or ws is None or not cs.has_min_max or cs.min != cs.max:
-                raise ArchiveCorrupt("windows.parquet row groups lack per-channel statistics; the archive is damaged")
-            out.setdefault(cs.min, []).append((g, int(ws.min), int(ws.max)))
-        return out
+        """channel -> [(row group, first window, last window)] from Parquet statistics (checked at opening)."""
+        return self._groups
 
     @cached_property
     def _tables(self) -> dict[tuple[str, int, int], entropy.FreqTable]:
         out = {}
-        for ch in self.manifest["channels"]:
-            for t in ch.get("tables", []):
+        for name, entries in self._entries.items():
+            for t in entries:
                 try:
-                    coder, key = t["coder"], (ch["name"], int(t["mode"]), int(t["table"]))
-                    freqs = base64.b64decode(t["freqs"], validate=True)
-                except (KeyError, TypeError, ValueError, binascii.Error):
-                    raise ArchiveCorrupt(f"channel {ch.get('name')}: an entropy table entry is malformed; "
+                    freqs = base64.b64decode(t.freqs, validate=True)
+                except (ValueError, binascii.Error):
+                    raise ArchiveCorrupt(f"channel {name}: an entropy table entry is malformed; "
                                          "the archive is damaged") from None
-                if coder != CODER_ID:
-                    raise ArchiveCorrupt(f"entropy coder {coder!r} is unknown to this tsarchive version; "
+                if t.coder != CODER_ID:
+                    raise ArchiveCorrupt(f"entropy coder {t.coder[:40]!r} is unknown to this tsarchive version; "
                                          "upgrade tsarchive to read the archive")
-                out[key] = entropy.FreqTable.from_bytes(freqs)
+                out[(name, t.mode, t.table)] = entropy.FreqTable.from_bytes(freqs)
         return out
 
-    @cached_property
+    @property
     def decoder(self):
-        """The integer decoder (numpy), or None for an archive packed without a model."""
-        if self.manifest.get("model") is None:
-            return None
-        from ..model.intnet import IntDecoder
-        t = pq.read_table(self.path / S.MODEL)
-        arrays = {n: np.asarray(v, dtype=np.int64).reshape(s)
-                  for n, s, v in zip(t["name"].to_pylist(), t["shape"].to_pylist(), t["values"].to_pylist())}
-        return IntDecoder.from_arrays(arrays)
+        """The integer decoder (numpy), or None for an archive packed without a model (read once, at opening)."""
+        return self._decoder
 
     def _rows(self, channel: str, w0: int, w1: int, columns: list[str] | None = None) -> pa.Table:
         """Window rows ``w0 <= window < w1`` of a channel, reading only overlapping row groups."""
@@ -233,7 +173,10 @@ class Archive:
         groups = [g for g, a, b in self._row_groups.get(channel, []) if b >= w0 and a < w1]
         if not groups:
             return schema.empty_table() if columns is None else pa.schema([schema.field(c) for c in columns]).empty_table()
-        t = self._thread_file().read_row_groups(groups, columns=columns)
+        try:
+            t = self._thread_file().read_row_groups(groups, columns=columns)
+        except (OSError, pa.ArrowException) as exc:
+            raise ArchiveCorrupt(f"windows.parquet cannot be read ({str(exc)[:80]}); the archive is damaged") from None
         mask = pc.and_(pc.and_(pc.equal(t["channel"], channel), pc.greater_equal(t["window"], w0)),
                        pc.less(t["window"], w1))
         t = t.filter(mask)
@@ -248,6 +191,9 @@ class Archive:
         """
         meta = self.channel(channel)
         t = self._rows(channel, w0, w1)
+        if any(c.null_count for c in t.columns):
+            raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} have empty (null) fields; "
+                                 "the archive is damaged")
         nrow = t.num_rows
         windows = t["window"].to_numpy()
         if nrow != max(0, min(w1, meta.n_windows) - max(w0, 0)) or \
@@ -256,6 +202,10 @@ class Archive:
         lens = _lengths(meta, windows)
         modes = t["mode"].to_numpy()
         lpc_set = t["lpc_set"].to_numpy()
+        if not set(np.unique(modes).tolist()) <= PREDICTORS.keys() or \
+                (nrow and not 0 <= int(lpc_set.min()) <= int(lpc_set.max()) < len(meta.lpc)):
+            raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} name a predictor or a "
+                                 "linear-prediction set this archive does not have; the archive is damaged")
         classes = t["table"].to_numpy()
         level = t["level"].to_numpy()
         pbuf, poffs = _binary_parts(t["residual"])
@@ -298,15 +248,10 @@ class Archive:
         bad.sort()
         return (out if missing is None else np.ma.MaskedArray(out, mask=missing)), windows, bad
 
-    @cached_property
+    @property
     def _schema(self) -> pa.Schema:
-        """windows.parquet's columns (``code`` only in archives with a model)."""
-        schema = self._windows_file.schema_arrow.remove_metadata()
-        expected = S.windows_schema("code" in schema.names)
-        if not schema.equals(expected):
-            raise ArchiveCorrupt("windows.parquet does not have the columns of this format version; "
-                                 "the archive is damaged")
-        return expected
+        """windows.parquet's columns (``code`` only in archives with a model; checked at opening)."""
+        return S.windows_schema("code" in self._windows_file.schema_arrow.names)
 
     def _held(self, channel: str, w0: int, w1: int) -> dict[int, tuple[np.ndarray, np.ndarray]]:
         """The verbatim samples of windows ``w0..w1-1``: window -> (positions int64, raw bits int64)."""
@@ -317,8 +262,6 @@ class Archive:
                                                                   ("window", "<", w1)])
         except (OSError, pa.ArrowException) as exc:
             raise ArchiveCorrupt(f"exceptions.parquet cannot be read ({exc}); the archive is damaged") from None
-        if t.schema.remove_metadata() != S.EXCEPTIONS_SCHEMA:
-            raise ArchiveCorrupt("exceptions.parquet has unexpected columns; the archive is damaged")
         out = {}
         for w, pos, raw in zip(t["window"].to_pylist(), t["pos"].to_pylist(), t["bits"].to_pylist()):
             out[int(w)] = (np.asarray(pos, np.int64), np.asarray(raw, np.int64))
@@ -334,6 +277,9 @@ class Archive:
     def _ae(self, meta: ChannelMeta, codes: np.ndarray, level: np.ndarray, L: int):
         if meta.scale > FRAC_SAFE_SCALE or codes.shape[1] == 0:
             return None
+        if codes.shape[1] != self.decoder.code_size:
+            raise ArchiveCorrupt(f"channel {meta.name}: window codes have {codes.shape[1]} values, the model takes "
+                                 f"{self.decoder.code_size}; the archive is damaged")
         return ae_prediction(self.decoder, codes, level, meta.scale, L)
 
     # -- time axis, notes, text columns (store/timeaxis.py, store/sidecar.py) ---------
@@ -487,43 +433,6 @@ class Archive:
                             replace_original=replace_original)
 
 
-def _lpc_sets(d) -> tuple[LpcCoefs, ...]:
-    if not isinstance(d, list) or not d or len(d) > 127:
-        raise ArchiveCorrupt("linear-prediction sets are missing or malformed; the archive is damaged")
-    return tuple(LpcCoefs.from_dict(c) for c in d)
-
-
-def _binary_parts(col) -> tuple[np.ndarray, np.ndarray]:
-    """(data bytes uint8, offsets int64 with one entry more than rows) of a binary column, zero-copy."""
-    arr = col.combine_chunks() if isinstance(col, pa.ChunkedArray) else col
-    if not len(arr):
-        return np.zeros(0, np.uint8), np.zeros(1, np.int64)
-    if arr.null_count:
-        raise ArchiveCorrupt("windows.parquet has a window without a residual payload; the archive is damaged")
-    _, obuf, dbuf = arr.buffers()
-    offs = np.frombuffer(obuf, np.int32)[arr.offset:arr.offset + len(arr) + 1].astype(np.int64)
-    data = np.frombuffer(dbuf, np.uint8) if dbuf is not None else np.zeros(0, np.uint8)
-    return data, offs
-
-
-def _lengths(meta: ChannelMeta, windows: np.ndarray) -> np.ndarray:
-    """Samples in each of the given windows (every window is full but the channel's last)."""
-    w = np.asarray(windows, dtype=np.int64)
-    return np.clip(meta.n_samples - w * meta.window, 0, meta.window)
-
-
-def _codes(t: pa.Table, nrow: int) -> np.ndarray:
-    """(rows, code size) int8 codes; zero columns for an archive without a model."""
-    if "code" not in t.column_names:
-        return np.zeros((nrow, 0), np.int8)
-    col = t["code"]
-    flat = pc.list_flatten(col).to_numpy(zero_copy_only=False).astype(np.int8) if nrow else np.zeros(0, np.int8)
-    k = len(flat) // nrow if nrow else 0
-    if k * nrow != len(flat):
-        raise ArchiveCorrupt("code column has rows of different lengths; the archive is damaged")
-    return flat.reshape(nrow, k)
-
-
-def open_archive(path: str | Path) -> Archive:
-    """Open an archive directory for reading (no torch, no pickle)."""
-    return Archive(path)
+def open_archive(path: str | Path, *, strict: bool = True) -> Archive:
+    """Open an archive directory for reading (no torch, no pickle); see :class:`Archive`."""
+    return Archive(path, strict=strict)

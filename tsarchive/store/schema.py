@@ -4,6 +4,7 @@ An archive is a directory, by convention ``NAME.tsa``::
 
     manifest.json       format, tool version, channels (budgets, grids, LPC sets,
                         entropy tables), summary, SHA-256 of every member file
+                        (its own digest is in windows.parquet's footer: binding.py)
     windows.parquet     one row per channel window (residual payloads, checksums,
                         and the autoencoder code when the archive keeps a model)
     exceptions.parquet  one row per window holding samples stored verbatim
@@ -29,6 +30,9 @@ import pyarrow as pa
 
 FORMAT_NAME = "tsarchive"
 FORMAT_VERSION = 3
+OLDEST_READABLE = 3                    # the oldest format version this tool still reads
+BOUND_FROM_VERSION = 4                 # from this version on, the manifest must be bound to windows.parquet
+BINDING_KEY = b"tsarchive.manifest_sha256"   # windows.parquet footer key: SHA-256 of the manifest (binding.py)
 
 MANIFEST = "manifest.json"
 WINDOWS = "windows.parquet"
@@ -76,3 +80,19 @@ MODEL_SCHEMA = pa.schema([
 ])
 
 ROW_GROUP_WINDOWS = 256  # windows per row group: the unit of random access
+
+# Caps on what an archive may declare, checked before anything is allocated from it.
+MAX_MANIFEST_BYTES = 64 << 20          # manifest.json
+MAX_MEMBERS = 32                       # files listed in the manifest's members
+MAX_MEMBER_BYTES = 1 << 50
+MAX_CHANNELS = 1 << 16
+MAX_SAMPLES = 1 << 48                  # per channel
+MIN_RATE = 1e-9                        # Hz
+MAX_CODE_SIZE = 64
+MAX_LAYERS = 16
+MAX_MODEL_PARAMS = 1 << 24             # integer decoder parameters
+MAX_TABLES = 1024                      # entropy tables per channel
+MAX_TABLE_CHARS = 1 << 20              # base64 text of one frequency table
+# Uncompressed bytes a window row may hold: the residual payload (a range code: at most about 9 bytes per
+# sample, escapes included), the code and fixed columns; verbatim samples: position + bits per sample.
+ROW_BYTES_PER_SAMPLE, ROW_BYTES_FIXED = 16, 4096  # windows per row group: the unit of random access

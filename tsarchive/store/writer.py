@@ -1,8 +1,12 @@
 """Write an archive atomically: build it in a hidden sibling folder, then rename.
 
-Nothing half-written is ever left at the target path: on any error (or
-cancellation) the staging folder is removed, and an existing archive is
-only replaced (with ``force``) once the new one is complete.
+Nothing half-written is ever left at the target path: the target is claimed
+for the whole write (``store/claim.py``), on any error (or cancellation) the
+staging folder is removed, and an existing archive is only replaced (with
+``force``) once the new one is complete, in one atomic exchange where the
+system has one.  The manifest is bound to ``windows.parquet`` both ways
+(``store/binding.py``): its digest goes into that file's footer, and every
+member file's SHA-256 into the manifest.
 """
 
 from __future__ import annotations
@@ -10,7 +14,7 @@ from __future__ import annotations
 import json
 import os
 import shutil
-import uuid
+from contextlib import ExitStack
 from pathlib import Path
 
 import numpy as np
@@ -18,8 +22,10 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from ..checksum import file_sha256
-from ..errors import ArchiveExists, BadInput
+from ..errors import BadInput
 from . import schema as S
+from .binding import manifest_digest
+from .claim import check_target, claim_target, is_archive_dir, move_into_place, staging_name  # noqa: F401
 
 # Statistics only where the reader uses them (channel/window ranges per row group): statistics of the
 # payload columns would only add footer bytes.
@@ -39,31 +45,23 @@ def _windows_opts(schema: pa.Schema) -> dict:
     return dict(_PARQUET_OPTS, column_encoding=enc)
 
 
-def is_archive_dir(path: Path) -> bool:
-    return path.is_dir() and (path / S.MANIFEST).is_file()
-
-
-def check_target(path: Path, force: bool) -> None:
-    """Refuse a target that exists (unless ``force`` and it is an archive)."""
-    if path.exists() or path.is_symlink():
-        if not force:
-            raise ArchiveExists(f"{path} already exists; pass --force to replace it or choose another name")
-        if not is_archive_dir(path):
-            raise ArchiveExists(f"{path} exists and is not a tsarchive archive; refusing to replace it even with --force")
-    if not path.parent.exists():
-        raise BadInput(f"folder {path.parent} does not exist; create it or choose another output path")
-
-
 class ArchiveWriter:
     """Stage an archive; use as a context manager and call :meth:`commit` last."""
 
     def __init__(self, path: str | os.PathLike, *, force: bool = False, with_code: bool = False) -> None:
         self.path = Path(path)
-        check_target(self.path, force)
-        self.force = force
-        self.schema = S.windows_schema(with_code)
-        self.stage = self.path.parent / f".{self.path.name}.staging-{uuid.uuid4().hex[:8]}"
-        self.stage.mkdir()
+        self._claim = ExitStack()
+        if not self.path.parent.exists():
+            raise BadInput(f"folder {self.path.parent} does not exist; create it or choose another output path")
+        self._claim.enter_context(claim_target(self.path, force))   # held until the writer is closed
+        try:
+            self.force = force
+            self.schema = S.windows_schema(with_code)
+            self.stage = staging_name(self.path)
+            self.stage.mkdir()
+        except BaseException:
+            self._claim.close()
+            raise
         self._windows: pq.ParquetWriter | None = None
         self._exceptions: pq.ParquetWriter | None = None
         self._committed = False
@@ -72,13 +70,16 @@ class ArchiveWriter:
         return self
 
     def __exit__(self, exc_type, exc, tb) -> None:
-        self._close()
-        if not self._committed:
-            shutil.rmtree(self.stage, ignore_errors=True)
+        try:
+            self._close()
+        finally:
+            if not self._committed:
+                shutil.rmtree(self.stage, ignore_errors=True)
+            self._claim.close()
 
     # -- members ---------------------------------------------------------------
-    def _close(self) -> None:
-        for name in ("_windows", "_exceptions"):
+    def _close(self, names=("_windows", "_exceptions")) -> None:
+        for name in names:
             w = getattr(self, name)
             if w is not None:
                 w.close()
@@ -116,7 +117,8 @@ class ArchiveWriter:
                                                               "values": "BYTE_STREAM_SPLIT"})
 
     def staged_bytes(self) -> int:
-        self._close()
+        """Bytes staged so far (windows.parquet stays open for its footer: its footer is not counted)."""
+        self._close(("_exceptions",))
         return sum(p.stat().st_size for p in self.stage.iterdir())
 
     def finalize(self, manifest: dict) -> Path:
@@ -125,14 +127,16 @@ class ArchiveWriter:
         Returns the staging folder, which is a complete archive that can be
         opened and checked before :meth:`commit` moves it into place.
         """
-        if self._windows is None and not (self.stage / S.WINDOWS).exists():
+        if self._windows is None:
             self.add_windows(self.schema.empty_table())
-        self.staged_bytes()  # closes the windows writer
+        manifest = json.loads(json.dumps(manifest))          # the values exactly as a reader will see them
+        manifest.pop("members", None)
+        self._windows.add_key_value_metadata({S.BINDING_KEY: manifest_digest(manifest).encode("ascii")})
+        self._close()
         members = {}
-        for name in S.MEMBERS:
-            p = self.stage / name
-            if p.exists():
-                members[name] = {"bytes": p.stat().st_size, "sha256": file_sha256(p)}
+        for p in sorted(self.stage.iterdir()):               # every member, whoever added it, is listed
+            if p.name != S.MANIFEST:
+                members[p.name] = {"bytes": p.stat().st_size, "sha256": file_sha256(p)}
         manifest = dict(manifest, members=members)
         with open(self.stage / S.MANIFEST, "w", encoding="utf-8") as fh:
             json.dump(manifest, fh, separators=(",", ":"))
@@ -140,16 +144,26 @@ class ArchiveWriter:
         for p in self.stage.iterdir():
             with open(p, "rb") as fh:
                 os.fsync(fh.fileno())
+        _fsync_dir(self.stage)
         return self.stage
 
     def commit(self) -> Path:
-        """Move the finalized archive into place (replacing an old one with ``force``)."""
-        old = None
-        if self.path.exists():
-            old = self.path.parent / f".{self.path.name}.replaced-{uuid.uuid4().hex[:8]}"
-            os.rename(self.path, old)
-        os.rename(self.stage, self.path)
+        """Move the finalized archive into place (replacing an old one with ``force``: one atomic exchange)."""
+        move_into_place(self.stage, self.path, replace=self.force)
         self._committed = True
-        if old is not None:
-            shutil.rmtree(old, ignore_errors=True)
+        _fsync_dir(self.path.parent)
         return self.path
+
+
+def _fsync_dir(path: Path) -> None:
+    """Make a folder's entries durable (POSIX; a no-op where folders cannot be opened)."""
+    try:
+        fd = os.open(path, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)

@@ -1,0 +1,79 @@
+"""Helpers that damage or craft archives for the trust tests (test_trust.py, test_crafted.py)."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from tsarchive.cli import main
+from tsarchive.store import schema as S
+
+from conftest import make_signal
+
+
+def pack_small(folder: Path, name: str = "rig.tsa", code_size: int = 0, n: int = 3000) -> Path:
+    """A small two-channel archive packed through the CLI (window 64)."""
+    src = folder / "rig.npy"
+    if not src.exists():
+        np.save(src, make_signal(n).astype(np.float32))
+    out = folder / name
+    assert main(["pack", str(src), "-o", str(out), "--rate", "200", "--window", "64", "--code-size", str(code_size),
+                 "--budget", "0.5%"]) == 0
+    return out
+
+
+def copy(arc: Path, folder: Path, name: str) -> Path:
+    out = folder / name
+    shutil.copytree(arc, out, symlinks=True)
+    return out
+
+
+def manifest(arc: Path) -> dict:
+    return json.loads((arc / S.MANIFEST).read_text())
+
+
+def write_manifest(arc: Path, m: dict) -> None:
+    (arc / S.MANIFEST).write_text(json.dumps(m))
+
+
+def rebind(arc: Path, m: dict | None = None, rows=None, dictionary: bool = False) -> None:
+    """Write ``m`` (default: the current manifest) as a thorough forger would: the digest recomputed into a
+    rewritten windows.parquet (``rows``: a function changing its table) and every member's size and SHA-256
+    updated, so only the reader's own checks stand between the archive and the decoder."""
+    m = manifest(arc) if m is None else m
+    f = pq.ParquetFile(arc / S.WINDOWS)
+    groups = [f.read_row_group(g) for g in range(f.metadata.num_row_groups)]
+    try:
+        from tsarchive.store.binding import manifest_digest
+        schema = f.schema_arrow.with_metadata({S.BINDING_KEY: manifest_digest(m).encode()})
+    except ImportError:      # a tsarchive from before the binding: nothing to forge there
+        schema = f.schema_arrow
+    with pq.ParquetWriter(arc / S.WINDOWS, schema, compression="zstd", write_statistics=["channel", "window"],
+                          use_dictionary=True if dictionary else ["channel"], store_schema=False) as w:
+        for g in groups:
+            w.write_table((rows(g) if rows else g).cast(schema))
+    m["members"] = {p.name: {"bytes": p.stat().st_size, "sha256": hashlib.sha256(p.read_bytes()).hexdigest()}
+                    for p in sorted(arc.iterdir()) if p.name != S.MANIFEST}
+    write_manifest(arc, m)
+
+
+def snapshot(folder: Path) -> dict:
+    """Every file under ``folder`` with its bytes' SHA-256 (links and special files by kind only)."""
+    out = {}
+    for p in sorted(folder.rglob("*")):
+        if p.is_symlink() or not p.is_file():
+            out[str(p)] = "link" if p.is_symlink() else "dir" if p.is_dir() else "special"
+        else:
+            out[str(p)] = hashlib.sha256(p.read_bytes()).hexdigest()
+    return out
+
+
+def replace_column(table: pa.Table, name: str, values) -> pa.Table:
+    i = table.schema.get_field_index(name)
+    return table.set_column(i, table.schema.field(i), pa.array(values, type=table.schema.field(i).type))

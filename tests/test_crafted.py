@@ -1,0 +1,263 @@
+"""A catalogue of crafted and damaged archives: each gets its one-line message, its exit code from
+``report``, ``unpack`` and ``verify`` (2: refused; 1: verify found damage), and nothing is written.
+
+Cases marked "re-bound" are forged thoroughly (crafting.rebind: digest and member hashes recomputed),
+so the reader's own checks and caps are what stops them.  Exit codes 0/1/2 are the CLI's contract
+(cli.py module doc); the rest is common practice (no source).
+"""
+
+from __future__ import annotations
+
+import re
+import os
+import shutil
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+import tsarchive
+from tsarchive.cli import main
+from tsarchive.store import schema as S
+
+from conftest import make_signal
+from crafting import copy, manifest, rebind, replace_column, snapshot, write_manifest
+
+
+@pytest.fixture(scope="module")
+def base(tmp_path_factory):
+    """An archive with every member: a model (explicit code size) and verbatim samples (a NaN)."""
+    d = tmp_path_factory.mktemp("base")
+    x = make_signal(3000).astype(np.float32)
+    x[100, 0] = np.nan
+    np.save(d / "s.npy", x)
+    out = d / "base.tsa"
+    tsarchive.pack(d / "s.npy", out, "0.5%", rate=200.0, window=64, code_size=2, train_seconds=1)
+    assert {p.name for p in out.iterdir()} == {S.MANIFEST, S.WINDOWS, S.EXCEPTIONS, S.MODEL}
+    return out
+
+
+def _edit(fn):
+    def run(a):
+        m = manifest(a)
+        fn(m)
+        write_manifest(a, m)
+    return run
+
+
+def _ch(key, value):
+    return _edit(lambda m: m["channels"][0].__setitem__(key, value))
+
+
+def _top(key, value):
+    return _edit(lambda m: m.__setitem__(key, value))
+
+
+def _write(name, data: bytes):
+    return lambda a: (a / name).write_bytes(data)
+
+
+def _truncate(a):
+    p = a / S.WINDOWS
+    p.write_bytes(p.read_bytes()[: p.stat().st_size // 2])
+
+
+def _garbage(a):
+    p = a / S.WINDOWS
+    p.write_bytes(np.random.default_rng(1).integers(0, 256, p.stat().st_size, dtype=np.uint8).tobytes())
+
+
+def _symlinked_model(a):
+    real = a.parent / f"{a.name}-model.parquet"
+    shutil.move(a / S.MODEL, real)
+    (a / S.MODEL).symlink_to(real)
+
+
+def _model_table(a, change):
+    t = pq.read_table(a / S.MODEL)
+    pq.write_table(change(t), a / S.MODEL, use_dictionary=False)
+    rebind(a)
+
+
+def _wrong_model_shape(t):
+    shapes = t["shape"].to_pylist()
+    i = next(k for k, s in enumerate(shapes) if len(s) == 2)
+    shapes[i] = [shapes[i][0] + 1, shapes[i][1]]
+    return replace_column(t, "shape", shapes)
+
+
+def _model_bomb(t):   # 4 M zeros in a few KB of zstd: 32 MB if read
+    return pa.table({"name": ["w0"], "shape": [[2048, 2048]], "values": [np.zeros(1 << 22, np.int64)]},
+                    schema=S.MODEL_SCHEMA)
+
+
+def _null_mode(a):
+    rebind(a, rows=lambda g: replace_column(g, "mode", [None] + g["mode"].to_pylist()[1:]))
+
+
+def _payload_bomb(a):
+    rebind(a, rows=lambda g: replace_column(g, "residual", [bytes(64 << 20)] + g["residual"].to_pylist()[1:])
+           if g["window"][0].as_py() == 0 else g)
+
+
+def _dictionary_bomb(a):   # one 1 MiB payload stored once, referenced by every window: 47 MiB if read
+    rebind(a, rows=lambda g: replace_column(g, "residual", [bytes(1 << 20)] * g.num_rows), dictionary=True)
+
+
+def _many_samples(a):
+    m = manifest(a)
+    m["channels"][0]["n_samples"] = 10**12
+    m["channels"][0]["summary"]["modes"] = {}
+    rebind(a, m)
+
+
+def _member_outside(a):
+    m = manifest(a)
+    m["members"]["../outside.parquet"] = m["members"][S.WINDOWS]
+    write_manifest(a, m)
+
+
+def _eps_twice_in_one_place(m):
+    m["channels"][0]["eps"] *= 2
+
+
+def _used_pct(m):
+    m["channels"][0]["summary"]["used_pct"] = 1.0
+
+
+def _freqs_number(m):
+    m["channels"][0]["tables"][0]["freqs"] = 5
+
+
+# (id, damage, message, exit codes of report, unpack, verify)
+CASES = [
+    ("window-zero", _top("window", 0), r"window is int 0, not an integer in 8\.\.65536", (2, 2, 2)),
+    ("window-2^27", _top("window", 1 << 27), r"window is int 134217728", (2, 2, 2)),
+    ("start-number", _ch("start", 5), r"start is int 5, not a text", (2, 2, 2)),
+    ("source-null", _top("source", None), r"source is missing or not an object", (2, 2, 2)),
+    ("members-list", _top("members", []), r"members is missing or not an object", (2, 2, 2)),
+    ("name-number", _ch("name", 7), r"name is int 7, not a text", (2, 2, 2)),
+    ("n_samples-null", _ch("n_samples", None), r"n_samples is missing", (2, 2, 2)),
+    ("deep-json", _write(S.MANIFEST, b"[" * 200_000 + b"]" * 200_000), r"nests too deeply", (2, 2, 2)),
+    ("not-json", _write(S.MANIFEST, b"\x00\xff garbage"), r"manifest\.json cannot be read", (2, 2, 2)),
+    ("newer-version", _top("format_version", 99), r"written by a newer tsarchive .*upgrade tsarchive", (2, 2, 2)),
+    ("version-text", _top("format_version", "3"), r"format_version is str '3'", (2, 2, 2)),
+    ("eps-disagrees", _edit(_eps_twice_in_one_place), r"eps .* differs from its grid's eps", (2, 2, 2)),
+    ("used-disagrees", _edit(_used_pct), r"used_pct 1\.0 disagrees with worst_error / eps", (2, 2, 2)),
+    ("table-number", _edit(_freqs_number), r"entropy table entry is malformed", (2, 2, 2)),
+    ("lpc-empty", _ch("lpc", []), r"linear-prediction sets are missing or malformed", (2, 2, 2)),
+    ("member-outside", _member_outside, r"not a plain member file name", (2, 2, 2)),
+    ("windows-missing", lambda a: (a / S.WINDOWS).unlink(), r"windows\.parquet is missing", (2, 2, 1)),
+    ("windows-truncated", _truncate, r"windows\.parquet is \d+ bytes but the manifest says", (2, 2, 1)),
+    ("windows-empty", _write(S.WINDOWS, b""), r"windows\.parquet is 0 bytes but", (2, 2, 1)),
+    ("windows-garbage", _garbage, r"windows\.parquet cannot be read", (2, 2, 1)),
+    ("model-symlink", _symlinked_model, r"model\.parquet is a symbolic link", (2, 2, 2)),
+    ("fifo-inside", lambda a: os.mkfifo(a / "pipe"), r"pipe is not a regular file", (2, 2, 2)),
+    ("extra-file", _write("notes.txt", b"hello"), r"notes\.txt: not listed in the manifest", (1, 2, 1)),
+    ("model-wrong-shape (re-bound)", lambda a: _model_table(a, _wrong_model_shape),
+     r"model\.parquet cannot be used \(model array 'w\d' does not have the shape it declares", (2, 2, 1)),
+    ("model-bomb (re-bound)", lambda a: _model_table(a, _model_bomb),
+     r"model\.parquet is not the model the manifest describes", (2, 2, 1)),
+    ("payload-bomb (re-bound)", _payload_bomb, r"row group \d+ declares \d+ bytes for \d+ windows", (2, 2, 1)),
+    ("dictionary-bomb (re-bound)", _dictionary_bomb, r"windows\.parquet uses encodings or value counts this "
+     r"format never writes", (2, 2, 1)),
+    ("10^12-samples (re-bound)", _many_samples,
+     r"declares 1000000000000 samples \(15625000000 windows\) but windows\.parquet holds 47", (2, 2, 1)),
+    ("null-mode (re-bound)", _null_mode, r"have empty \(null\) fields", (0, 2, 1)),
+    ("code-length (re-bound)", lambda a: rebind(a, rows=lambda g: replace_column(g, "code", [[0]] * g.num_rows)),
+     r"window codes have 1 values, the model takes 2", (0, 2, 1)),
+]
+
+
+@pytest.mark.parametrize("name,damage,message,codes", CASES, ids=[c[0] for c in CASES])
+def test_crafted_archive(base, tmp_path, capsys, name, damage, message, codes):
+    a = copy(base, tmp_path, "x.tsa")
+    damage(a)
+    before = snapshot(tmp_path)
+    seen = []
+    for cmd, code in zip(("report", "unpack", "verify"), codes):
+        argv = [cmd, str(a)] + (["-o", str(tmp_path / "out.csv")] if cmd == "unpack" else [])
+        got = main(argv)
+        out, err = capsys.readouterr()
+        assert got == code, (cmd, out, err)
+        if code == 2:
+            assert err.startswith("tsarchive: error: ") and err.count("\n") == 1, (cmd, err)
+        seen.append(err if code == 2 else out)
+    assert any(re.search(message, s) for s in seen), seen
+    assert not (tmp_path / "out.csv").exists()
+    assert snapshot(tmp_path) == before                   # nothing written, nothing changed
+
+
+def test_a_damaged_model_is_read_once(base, tmp_path, monkeypatch):
+    # Weights outside int16 (the decoder's weight type) with the right shapes, re-bound: the decoder is
+    # refused; it used to be re-read (and refused again) for every window verify decoded.
+    from tsarchive.verifier import verify_archive
+    a = copy(base, tmp_path, "m.tsa")
+
+    def big_weights(t):
+        values = t["values"].to_pylist()
+        i = t["name"].to_pylist().index("w0")
+        values[i] = [40_000] * len(values[i])
+        return replace_column(t, "values", values)
+
+    _model_table(a, big_weights)
+    monkeypatch.setenv("TSARCHIVE_THREADS", "1")      # channels one after another: every window decoded in turn
+    reads = []
+    for name in ("read_table", "ParquetFile"):
+        real = getattr(pq, name)
+
+        def counted(source, *args, _real=real, **kw):
+            if str(source).endswith(S.MODEL):
+                reads.append(source)
+            return _real(source, *args, **kw)
+        monkeypatch.setattr(pq, name, counted)
+    rep = verify_archive(a)
+    assert len(reads) == 1
+    assert not rep.ok and any("model.parquet" in p for p in rep.problems)
+
+
+def test_a_footer_naming_another_column_type_does_not_abort_the_process(base, tmp_path):
+    # pyarrow aborts the whole process (a C++ exception it does not translate) when a column chunk's type
+    # differs from the schema's.  Thrift compact protocol (Apache Thrift spec): 0x1c = next field (ColumnChunk
+    # 3, meta_data) is a struct, whose 0x15 = field 1 (type), i32, 0x0c = zigzag(6) = BYTE_ARRAY (parquet.thrift
+    # Type): a "channel" or "residual" column chunk.  INT32 = 1 -> zigzag 0x02.
+    import subprocess
+    import sys
+    a = copy(base, tmp_path, "t.tsa")
+    p = a / S.WINDOWS
+    data = bytearray(p.read_bytes())
+    n = int.from_bytes(data[-8:-4], "little")
+    at = data.index(b"\x1c\x15\x0c", len(data) - 8 - n)     # the first row group's "channel" chunk type
+    data[at + 2] = 0x02
+    p.write_bytes(bytes(data))
+    for cmd in ("verify", "report"):
+        r = subprocess.run([sys.executable, "-m", "tsarchive", cmd, str(a)], capture_output=True, text=True,
+                           cwd=os.path.dirname(os.path.dirname(__file__)), timeout=120)
+        assert r.returncode == (1 if cmd == "verify" else 2), (cmd, r.returncode, r.stderr[-300:])
+        assert "windows.parquet cannot be read" in r.stdout + r.stderr
+
+
+def test_every_bit_flip_of_a_footer_is_read_or_refused_in_one_line(base):
+    # The footer reader sees every single-bit variant of a real footer: a Footer or a reason, never an exception
+    # (a flipped byte once turned a statistic into a Thrift bool and verify stopped on an AttributeError).
+    from tsarchive.store import footer as F
+    data = (base / S.WINDOWS).read_bytes()
+    n = int.from_bytes(data[-8:-4], "little")
+    start = len(data) - 8 - n
+    outcomes = set()
+    for at in range(start, len(data) - 8):
+        for bit in range(8):
+            b = bytearray(data)
+            b[at] ^= 1 << bit
+            got = F._footer_bytes(bytes(b))
+            assert isinstance(got, (F.Footer, str)), (at, bit, got)
+            outcomes.add(type(got))
+            if isinstance(got, F.Footer):     # every fact typed as the checks use it
+                for g in got.groups:
+                    assert type(g.num_rows) is int and type(g.total_byte_size) is int
+                    for c in g.chunks:
+                        assert all(type(v) is int for v in (c.type, c.num_values, c.uncompressed, *c.encodings))
+                        assert all(v is None or type(v) is bytes for v in (c.min, c.max)), (at, bit, c)
+                assert all(type(k) is bytes and type(v) is bytes for k, v in got.key_value.items())
+    assert outcomes == {F.Footer, str}
