@@ -14,6 +14,7 @@ import pyarrow.parquet as pq
 import pytest
 
 import tsarchive
+from crafting import rebind
 from tsarchive.cli import main
 from tsarchive.errors import ArchiveCorrupt, BadInput
 from tsarchive.recording import ChannelInfo, Recording, TimeAxis
@@ -310,13 +311,16 @@ def test_damaged_time_entries_are_named(tmp_path):
     m = json.loads((tmp_path / "g.tsa" / "manifest.json").read_text())
     m["time"]["runs"] = m["time"]["runs"][::-1]
     (tmp_path / "g.tsa" / "manifest.json").write_text(json.dumps(m))
-    with pytest.raises(ArchiveCorrupt, match="time runs"):
+    with pytest.raises(ArchiveCorrupt, match="does not match"):  # a plain edit: the binding refuses it
+        tsarchive.open(tmp_path / "g.tsa")
+    rebind(tmp_path / "g.tsa", m)                                # a forged one (binding recomputed) ...
+    with pytest.raises(ArchiveCorrupt, match="time runs"):      # ... is still refused for what it says
         tsarchive.open(tmp_path / "g.tsa").times()
     m["time"]["runs"] = [[0, timeaxis.LATEST_NS - 10 * NS]]      # 500 samples at 1 Hz would pass April 2262
-    (tmp_path / "g.tsa" / "manifest.json").write_text(json.dumps(m))
+    rebind(tmp_path / "g.tsa", m)
     with pytest.raises(ArchiveCorrupt, match="time runs"):
         tsarchive.open(tmp_path / "g.tsa").times()
-    rep = tsarchive.verify(tmp_path / "g.tsa")                   # verify names it (the manifest has no checksum)
+    rep = tsarchive.verify(tmp_path / "g.tsa")                   # verify names it
     assert not rep.ok and any("time runs" in p for p in rep.problems)
 
 

@@ -15,6 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
+from . import checksum
 from .errors import ArchiveCorrupt, BadInput
 from .exact import abs_errors, rounded_errors
 from .quantize import values_to_bits
