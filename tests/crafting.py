@@ -49,15 +49,16 @@ def rebind(arc: Path, m: dict | None = None, rows=None, dictionary: bool = False
     m = manifest(arc) if m is None else m
     f = pq.ParquetFile(arc / S.WINDOWS)
     groups = [f.read_row_group(g) for g in range(f.metadata.num_row_groups)]
-    try:
-        from tsarchive.store.binding import manifest_digest
-        schema = f.schema_arrow.with_metadata({S.BINDING_KEY: manifest_digest(m).encode()})
-    except ImportError:      # a tsarchive from before the binding: nothing to forge there
-        schema = f.schema_arrow
+    schema = f.schema_arrow.remove_metadata()
     with pq.ParquetWriter(arc / S.WINDOWS, schema, compression="zstd", write_statistics=["channel", "window"],
                           use_dictionary=True if dictionary else ["channel"], store_schema=False) as w:
         for g in groups:
             w.write_table((rows(g) if rows else g).cast(schema))
+        try:       # the digest goes where the writer puts it: the footer's key-value metadata
+            from tsarchive.store.binding import manifest_digest
+            w.add_key_value_metadata({S.BINDING_KEY: manifest_digest(m).encode("ascii")})
+        except ImportError:      # a tsarchive from before the binding: nothing to forge there
+            pass
     m["members"] = {p.name: {"bytes": p.stat().st_size, "sha256": hashlib.sha256(p.read_bytes()).hexdigest()}
                     for p in sorted(arc.iterdir()) if p.name != S.MANIFEST}
     write_manifest(arc, m)

@@ -325,7 +325,7 @@ def test_damaged_time_entries_are_named(tmp_path):
 
 
 def test_golden_archive_without_a_time_entry_reads_start_plus_i_over_rate():
-    arc = tsarchive.open("tests/golden/golden.tsa")
+    arc = tsarchive.open("tests/golden/v3/golden.tsa")
     assert "time" not in arc.manifest
     t = arc.times()
     assert t.kind == "seconds"

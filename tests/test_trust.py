@@ -112,12 +112,12 @@ def test_fuzz_every_single_digit_edit_of_the_manifest_is_detected(arc, tmp_path)
 
 def test_an_unbound_version_3_archive_is_read_and_says_so(capsys):
     # The committed golden archive predates the binding: it is read, and report says it is not bound.
-    code, out, _ = _cli(capsys, "report", ROOT / "tests" / "golden" / "golden.tsa")
+    code, out, _ = _cli(capsys, "report", ROOT / "tests" / "golden" / "v3" / "golden.tsa")
     assert code == 0 and "format 3, manifest not bound" in out and "within budget" in out
 
 
 def test_binding_is_required_from_its_version_on(tmp_path, monkeypatch):
-    a = copy(ROOT / "tests" / "golden" / "golden.tsa", tmp_path, "g4.tsa")
+    a = copy(ROOT / "tests" / "golden" / "v3" / "golden.tsa", tmp_path, "g4.tsa")
     m = manifest(a)
     m["format_version"] = S.BOUND_FROM_VERSION
     write_manifest(a, m)

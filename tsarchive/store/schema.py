@@ -1,6 +1,6 @@
-"""The archive's on-disk layout (format ``tsarchive`` version 3).
+"""The archive's on-disk layout (format ``tsarchive`` version 4).
 
-An archive is a directory, by convention ``NAME.tsa``::
+An archive is a directory::
 
     manifest.json       format, tool version, channels (budgets, grids, LPC sets,
                         entropy tables), summary, SHA-256 of every member file
@@ -11,6 +11,9 @@ An archive is a directory, by convention ``NAME.tsa``::
                         (NaN, infinities, unrepresentable values); only when any
     model.parquet       one row per decoder array (plain integers, no pickle);
                         only when the manifest names a model
+    time.parquet        the logged times when they follow no rate rule in runs
+                        (jitter); only when the manifest's ``time`` says so
+    extra.parquet       the source's text columns (status, notes); only when any
 
 Why a directory: every member is a plain Parquet or JSON file that any
 reader opens on its own; ``windows.parquet`` keeps each channel in its own
@@ -20,8 +23,10 @@ aside and renamed into place, which is atomic on one file system.
 
 The column lists below are the format: changing one is a format change (bump
 ``FORMAT_VERSION`` and regenerate the golden archive in ``tests/golden``).
-Version 3 leaves out what most archives never use: the ``code`` column
-exists only with a model, and verbatim samples live in their own member.
+Version 4 binds the manifest to the data (binding.py), keeps the logged time
+axis, notes and text columns, and adds the optional grid fields ``origin``,
+``verbatim`` and ``missing`` (exact integers, sentinels, missing samples);
+its Parquet columns are those of version 3, which this tool still reads.
 """
 
 from __future__ import annotations
@@ -29,7 +34,7 @@ from __future__ import annotations
 import pyarrow as pa
 
 FORMAT_NAME = "tsarchive"
-FORMAT_VERSION = 3
+FORMAT_VERSION = 4
 OLDEST_READABLE = 3                    # the oldest format version this tool still reads
 BOUND_FROM_VERSION = 4                 # from this version on, the manifest must be bound to windows.parquet
 BINDING_KEY = b"tsarchive.manifest_sha256"   # windows.parquet footer key: SHA-256 of the manifest (binding.py)
