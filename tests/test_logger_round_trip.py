@@ -83,3 +83,18 @@ def test_a_chamber_log_comes_back_column_by_column(tmp_path, budget, eps, capsys
     assert table.schema.field("Datum/Zeit").type.tz is None
     assert table["Datum/Zeit"].to_pylist() == [t for t, *_ in source]
     assert table["Status"].to_pylist() == [s for *_, s in source]
+
+
+def test_a_text_column_goes_back_where_it_stood(tmp_path, capsys):
+    # A status column between two channels comes back between them (CSV and Parquet), not after them.
+    src = tmp_path / "mid.csv"
+    src.write_text("time,a,status,b\n" + "".join(f"{i},{i * 0.5},{'ok' if i % 3 else 'hold'},{i}\n"
+                                                  for i in range(50)))
+    arc = tmp_path / "mid.arc"
+    assert main(["pack", str(src), "-o", str(arc), "--budget", "lossless"]) == 0
+    for out in (tmp_path / "back.csv", tmp_path / "back.parquet"):
+        assert main(["unpack", str(arc), "-o", str(out)]) == 0
+    capsys.readouterr()
+    header = next(ln for ln in (tmp_path / "back.csv").read_text().splitlines() if not ln.startswith("#"))
+    assert header.split(",")[1:] == ["a", "status", "b"]
+    assert pq.read_table(tmp_path / "back.parquet").column_names[1:] == ["a", "status", "b"]

@@ -232,11 +232,22 @@ def build_recording(path: Path, headers: list[str], cols: list[pa.ChunkedArray],
             extra.setdefault(headers[j], as_text(headers[j], cols[j], empty_is_null=False))
     start = _start(axis if dropped is None else dropped.axis)
     check_span(start, n, rate)
-    table = pa.table(extra) if extra else None
+    table = _text_table(extra, headers, reports)
     rec = Recording.from_columns(arrays, rate=float(rate), channels=channels, start=start, source=path,
                                  time=axis, notes=tuple(notes), extra=table)
     return Detected(recording=rec, columns=tuple(reports[j] for j in sorted(reports)), timing=timing,
                     time_form="" if found is None else found.form, time_notes=() if found is None else found.notes)
+
+
+def _text_table(extra: dict, headers: list[str], reports: dict) -> pa.Table | None:
+    """The text columns as a table; each field's metadata ``b"position"`` is its place among the source's
+    kept columns other than time (channels and text), so an export puts it back where it stood."""
+    if not extra:
+        return None
+    kept = [headers[j] for j in sorted(reports) if reports[j].role in ("channel", "text")]
+    fields = [pa.field(h, col.type, metadata={b"position": str(kept.index(h)).encode()} if h in kept else None)
+              for h, col in extra.items()]
+    return pa.table(list(extra.values()), schema=pa.schema(fields))
 
 
 def _first_text(extra: dict, decimal: str, opts: ReadOptions) -> str:
