@@ -1,9 +1,9 @@
-"""The tsarchive terminal app: Shelf -> Pack bench / Ledger -> Strip -> Finder, Export.
+"""The tsarchive terminal app: Shelf -> Packing / Contents -> Strip -> Shortlist, Export.
 
 The App gets its one input, a path, through its constructor:
 
 * a folder: the Shelf lists it;
-* an archive (``NAME.tsa``): the Shelf lists its folder and the Ledger opens on it;
+* an archive (``NAME.tsa``): the Shelf lists its folder and the Contents screen opens on it;
 * a recording file: the Shelf lists its folder with that file selected.
 
 Session state kept here: the verification state of each archive checked in this
@@ -91,16 +91,16 @@ class TsArchiveApp(App):
 
     # -- navigation used by the screens -------------------------------------
     def open_archive(self, path: Path) -> None:
-        """Show ``path`` in the Ledger."""
-        from tsarchive.app.screens.ledger import LedgerScreen
+        """Show ``path`` in the Contents screen."""
+        from tsarchive.app.screens.contents import ContentsScreen
 
-        self.push_screen(LedgerScreen(Path(path)))
+        self.push_screen(ContentsScreen(Path(path)))
 
-    def open_bench(self, source: Path) -> None:
-        """Show ``source`` on the Pack bench."""
-        from tsarchive.app.screens.bench import PackBenchScreen
+    def open_packing(self, source: Path) -> None:
+        """Show ``source`` on the Packing screen."""
+        from tsarchive.app.screens.packing import PackingScreen
 
-        self.push_screen(PackBenchScreen(Path(source)))
+        self.push_screen(PackingScreen(Path(source)))
 
     def action_keys(self) -> None:
         from tsarchive.app.screens.keys import KeysScreen

@@ -30,7 +30,7 @@ def window_at(starts: np.ndarray, second: float) -> int:
 
 @dataclass(frozen=True)
 class CheckLines:
-    """What the Ledger's check panel says about a :class:`VerifyReport`."""
+    """What the Contents screen's check panel says about a :class:`VerifyReport`."""
 
     state: str
     headline: str

@@ -1,6 +1,6 @@
 """Export: write a time range of an archive to CSV, Parquet or NPY (``Archive.export``).
 
-Opened from the Ledger (whole recording, all channels) or from the Strip (the range
+Opened from the Contents screen (whole recording, all channels) or from the Strip (the range
 on screen, that channel). Every field can be retyped; the file format follows the
 chosen button and the name's ending. The modal returns the written path (or None).
 

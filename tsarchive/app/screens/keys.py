@@ -14,17 +14,17 @@ from tsarchive.app.screens.base import Notices
 def key_table() -> list[tuple[str, str, str]]:
     """``(where, key, what)`` rows for the app and each screen, in the order a user meets them."""
     from tsarchive.app.app import TsArchiveApp
-    from tsarchive.app.screens.bench import PackBenchScreen
+    from tsarchive.app.screens.packing import PackingScreen
     from tsarchive.app.screens.export import ExportScreen
-    from tsarchive.app.screens.finder import FinderScreen
-    from tsarchive.app.screens.ledger import LedgerScreen
+    from tsarchive.app.screens.shortlist import ShortlistScreen
+    from tsarchive.app.screens.contents import ContentsScreen
     from tsarchive.app.screens.shelf import ShelfScreen
     from tsarchive.app.screens.strip import StripScreen
 
-    places = [("Anywhere", TsArchiveApp), ("Shelf", ShelfScreen), ("Pack bench", PackBenchScreen),
-              ("Ledger", LedgerScreen), ("Strip", StripScreen), ("Finder", FinderScreen), ("Export", ExportScreen)]
-    enter = {"Shelf": "pack the recording, or open the archive in the Ledger",
-             "Ledger": "open the channel in the Strip", "Finder": "show the window in the Strip"}
+    places = [("Anywhere", TsArchiveApp), ("Shelf", ShelfScreen), ("Packing", PackingScreen),
+              ("Contents", ContentsScreen), ("Strip", StripScreen), ("Shortlist", ShortlistScreen), ("Export", ExportScreen)]
+    enter = {"Shelf": "pack the recording, or open the archive in the Contents screen",
+             "Contents": "open the channel in the Strip", "Shortlist": "show the window in the Strip"}
     rows = []
     for where, cls in places:
         if where in enter:

@@ -34,7 +34,7 @@ def _count(n: int, noun: str) -> str:
 
 
 class ShelfScreen(Notices, Screen):
-    """Lists ``folder``; Enter packs a recording or opens an archive in the Ledger."""
+    """Lists ``folder``; Enter packs a recording or opens an archive in the Contents screen."""
 
     BINDINGS = [
         Binding("p", "pack", "Pack"),
@@ -174,7 +174,7 @@ class ShelfScreen(Notices, Screen):
                         "in this folder, or start tsarchive in another one. Press r to look again.")
             return
         d = self.details.get(e.path)
-        what = "Enter opens it in the Ledger." if e.is_archive else "Enter or p takes it to the Pack bench."
+        what = "Enter opens it in the Contents screen." if e.is_archive else "Enter or p takes it to the Packing screen."
         line = f"{e.path.name}: {what}"
         if d is not None and d.problem:
             line += f"\n{d.problem}"
@@ -189,14 +189,14 @@ class ShelfScreen(Notices, Screen):
         if e.is_archive:
             self.app.open_archive(e.path)  # type: ignore[attr-defined]
         else:
-            self.app.open_bench(e.path)  # type: ignore[attr-defined]
+            self.app.open_packing(e.path)  # type: ignore[attr-defined]
 
     def action_pack(self) -> None:
         e = self.selected
         if e is None or e.is_archive:
             self.post_message(WorkFailed("pick a recording (.npy, .csv, .parquet) to pack", title="Pack"))
             return
-        self.app.open_bench(e.path)  # type: ignore[attr-defined]
+        self.app.open_packing(e.path)  # type: ignore[attr-defined]
 
     def action_rescan(self) -> None:
         self.details.clear()

@@ -62,10 +62,10 @@ class StripScreen(Notices, Screen):
                 tooltip="pan on by half the view"),
         Binding("t", "jump", "Time", show=False, tooltip="type a time to jump to"),
         Binding("w", "worst", "Worst", tooltip="go to the window with the largest error"),
-        Binding("u", "finder('unusual')", "Unusual", tooltip="Finder: windows ranked by outlier score"),
-        Binding("l", "finder('alike')", "Alike", tooltip="Finder: windows whose codes look like this one's"),
+        Binding("u", "shortlist('unusual')", "Unusual", tooltip="Shortlist: windows ranked by outlier score"),
+        Binding("l", "shortlist('alike')", "Alike", tooltip="Shortlist: windows whose codes look like this one's"),
         Binding("e", "export", "Export", tooltip="export the range on screen"),
-        Binding("escape", "back", "Back", tooltip="back to the Ledger"),
+        Binding("escape", "back", "Back", tooltip="back to the Contents screen"),
     ]
 
     current: reactive[int] = reactive(-1, init=False)
@@ -247,12 +247,12 @@ class StripScreen(Notices, Screen):
         if self.table is not None and len(self.table.index):
             self.current = int(np.argmax(self.table.worst_error))
 
-    def action_finder(self, mode: str) -> None:
+    def action_shortlist(self, mode: str) -> None:
         if self.table is None or not len(self.table.index):
             return
-        from tsarchive.app.screens.finder import FinderScreen
+        from tsarchive.app.screens.shortlist import ShortlistScreen
 
-        self.app.push_screen(FinderScreen(self.archive, self.meta, self.table, mode, self.current),
+        self.app.push_screen(ShortlistScreen(self.archive, self.meta, self.table, mode, self.current),
                              callback=self.jump_to_window)
 
     def jump_to_window(self, window: int | None) -> None:
