@@ -82,7 +82,7 @@ def cells(table) -> list[list[str]]:
 
 @dataclass(frozen=True)
 class Lab:
-    """A test folder holding ``bench_log.csv`` (columns ``cols``) and its archive ``bench_log.tsa``."""
+    """A test folder holding ``bench_log.csv`` (columns ``cols``) and its archive ``bench_log.tsarchive``."""
 
     folder: Path
     cols: dict
@@ -93,7 +93,7 @@ class Lab:
 
     @property
     def archive(self) -> Path:
-        return self.folder / "bench_log.tsa"
+        return self.folder / "bench_log.tsarchive"
 
 
 def copy_lab(lab: Lab, dest: Path, archive: bool = True) -> Lab:

@@ -19,7 +19,7 @@ import tsarchive
 from app_helpers import (N, RATE, SPIKE_AT, WINDOW, Lab, NotedApp, cells, copy_lab, open_contents, open_strip, settle,
                          write_stream)
 from tsarchive.app import fmt
-from tsarchive.app.locate import combine_budgets, free_archive_name, parse_seconds, read_time
+from tsarchive.app.locate import combine_budgets, free_archive_name, read_time
 from tsarchive.app.screens.packing import PackingScreen
 from tsarchive.app.screens.export import ExportScreen, default_name
 from tsarchive.app.screens.shortlist import ShortlistScreen
@@ -41,7 +41,7 @@ def lab(tmp_path_factory) -> Lab:
     """A folder with the CSV, its archive (packed once) and a .npy without a rate."""
     folder = tmp_path_factory.mktemp("app_lab")
     cols = write_stream(folder / "bench_log.csv")
-    tsarchive.pack(folder / "bench_log.csv", folder / "bench_log.tsa", BUDGET, window=WINDOW, code_size=4,
+    tsarchive.pack(folder / "bench_log.csv", folder / "bench_log.tsarchive", BUDGET, window=WINDOW, code_size=4,
                    train_seconds=1.0)
     np.save(folder / "probe.npy", cols["accel"][:500])
     return Lab(folder, cols)
@@ -55,9 +55,9 @@ async def test_shelf_lists_recordings_and_archives_with_details(lab):
         shelf = app.screen
         assert isinstance(shelf, ShelfScreen)
         rows = {r[0]: r for r in cells(shelf.query_one("#shelf-table"))}
-        assert list(rows) == ["bench_log.tsa", "bench_log.csv", "probe.npy"]  # archives first, then by name
+        assert list(rows) == ["bench_log.tsarchive", "bench_log.csv", "probe.npy"]  # archives first, then by name
         arc = tsarchive.open(lab.archive)
-        name, kind, size, length, nch, ratio, check = rows["bench_log.tsa"]
+        name, kind, size, length, nch, ratio, check = rows["bench_log.tsarchive"]
         assert (kind, nch, check) == ("archive", "2", "unverified")
         assert length == fmt.duration(N / RATE) == "20 s"  # duration = samples / rate
         assert ratio == fmt.ratio(arc.ratio)
@@ -111,7 +111,7 @@ async def test_bench_refuses_bad_fields_with_notifications(lab, tmp_path):
         assert packing.result is None and any("abc" in e for e in app.errors())
         await pilot.press("ctrl+u", *"0.1%")
         packing.query_one("#packing-target").focus()
-        await pilot.press(*"bench_log", "ctrl+s")  # bench_log.tsa exists, 'replace' not ticked
+        await pilot.press(*"bench_log", "ctrl+s")  # bench_log.tsarchive exists, 'replace' not ticked
         await settle(app, pilot)
         assert any("already exists" in e for e in app.errors())
         assert packing.result is None
@@ -422,7 +422,7 @@ async def test_new_user_journey_by_keys_only(tmp_path):
         progress = packing.query_one(StageProgress)
         assert progress.lines["train"].startswith("epoch") and "loss" in progress.lines["train"]
         assert progress.lines["encode"].startswith(f"windows {2 * N_WINDOWS}/{2 * N_WINDOWS}")
-        arc = tsarchive.open(tmp_path / "soak_log.tsa")
+        arc = tsarchive.open(tmp_path / "soak_log.tsarchive")
         assert arc.channel("temp").eps == pytest.approx(0.05)
         summary = {r[0]: r for r in cells(packing.query_one("#packing-summary"))}
         for ch in arc.channels:
@@ -464,7 +464,7 @@ async def test_new_user_journey_by_keys_only(tmp_path):
 # -- the app's small text helpers ---------------------------------------------------------------------
 def test_times_typed_and_shown_agree():
     assert fmt.clock(75.25) == "1:15.25"  # 75.25 s = 1 min 15.25 s
-    assert parse_seconds("1:15.25") == 75.25 and parse_seconds("1:01:15") == 3675  # 1 h = 3600 s
+    assert read_time("1:15.25") == 75.25 and read_time("1:01:15") == 3675  # 1 h = 3600 s
     assert read_time("90s") == 90 and read_time("5min") == 300 and read_time("") is None
     with pytest.raises(tsarchive.BadInput):
         read_time("soon")
@@ -483,8 +483,8 @@ def test_budget_fields_become_one_spec_the_library_reads():
 
 def test_names_proposed_for_new_files(tmp_path):
     assert default_name("run", 5.0, 15.0) == "run_5-15s.csv" and default_name("run", None, None, ".npy") == "run.npy"
-    (tmp_path / "run.tsa").mkdir()
-    assert free_archive_name(tmp_path, "run") == "run-2.tsa" and free_archive_name(tmp_path, "new") == "new.tsa"
+    (tmp_path / "run.tsarchive").mkdir()
+    assert free_archive_name(tmp_path, "run") == "run-2.tsarchive" and free_archive_name(tmp_path, "new") == "new.tsarchive"
 
 
 def test_check_panel_names_failing_windows_with_their_start():

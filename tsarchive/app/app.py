@@ -3,7 +3,7 @@
 The App gets its one input, a path, through its constructor:
 
 * a folder: the Shelf lists it;
-* an archive (``NAME.tsa``): the Shelf lists its folder and the Contents screen opens on it;
+* an archive (``NAME.tsarchive``, or an older ``NAME.tsa``): the Shelf lists its folder and the Contents screen opens on it;
 * a recording file: the Shelf lists its folder with that file selected.
 
 Session state kept here: the verification state of each archive checked in this

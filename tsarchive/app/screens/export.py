@@ -63,7 +63,7 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
         with Vertical(id="export-box"):
             yield Static(f"Export · {self.archive.path.name}", classes="title", markup=False)
             yield Static(f"Recording length {fmt.clock(max(c.duration for c in self.archive.channels))}; "
-                         "times in seconds (12.5), minutes:seconds (1:02) or with a unit (90s, 5min). "
+                         "times from the start: 12.5, 1:02, 1:02:03, 90s, 2h1min or 3d. "
                          "Leave a time empty for the start or the end.", classes="note", markup=False)
             with Horizontal(classes="field-row"):
                 yield Label("from", classes="field-label")

@@ -23,7 +23,7 @@ from textual.widgets import Button, Checkbox, DataTable, Footer, Input, Label, S
 
 import tsarchive
 from tsarchive.app import fmt
-from tsarchive.app.locate import (ARCHIVE_SUFFIX, combine_budgets, free_archive_name, parse_optional_float,
+from tsarchive.app.locate import (ARCHIVE_SUFFIX, ARCHIVE_SUFFIXES, combine_budgets, free_archive_name, parse_optional_float,
                                   parse_optional_int)
 from tsarchive.app.messages import PackDone, PackHalted, PackStep, RecordingInspected, WorkFailed
 from tsarchive.app.screens.base import Notices
@@ -169,7 +169,7 @@ class PackingScreen(Notices, Screen):
         target = Path(name).expanduser()
         if not target.is_absolute():
             target = self.source.parent / target
-        if target.suffix != ARCHIVE_SUFFIX:
+        if target.suffix not in ARCHIVE_SUFFIXES:  # a typed older .tsa name is kept as typed
             target = target.with_name(target.name + ARCHIVE_SUFFIX)
         replace = self.query_one("#packing-replace", Checkbox).value
         if target.exists() and not replace:

@@ -170,7 +170,7 @@ class ShelfScreen(Notices, Screen):
         note = self.query_one("#shelf-note", Static)
         e = self.selected
         if e is None:
-            note.update("Nothing to show here: put recordings (.npy, .csv, .parquet) or archives (.tsa) "
+            note.update("Nothing to show here: put recordings (.npy, .csv, .parquet) or archives (.tsarchive, .tsa) "
                         "in this folder, or start tsarchive in another one. Press r to look again.")
             return
         d = self.details.get(e.path)

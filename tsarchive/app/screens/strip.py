@@ -90,7 +90,7 @@ class StripScreen(Notices, Screen):
         with Horizontal(id="strip-body"):
             with Vertical(id="strip-side"):
                 yield DataTable(id="strip-windows", cursor_type="row", zebra_stripes=True)
-                yield Input(placeholder="t: jump to time (12.5, 1:02, 90s)", id="strip-jump", compact=True)
+                yield Input(placeholder="t: jump to (12.5, 1:02:03, 2h1min)", id="strip-jump", compact=True)
             with Vertical(id="strip-main"):
                 yield StripPlot(id="strip-plot")
                 yield Static("loading windows…", id="strip-info", markup=False)
