@@ -23,6 +23,8 @@ def _table(header: list[str], rows: list[list[str]]) -> str:
 
 
 HEADER = ["channel", "unit", "budget", "eps", "worst error", "% used", "ratio", "bits/sample"]
+USED_NOTE = ("% used: the worst error as a share of the budget; near 100 is the aim (the whole budget spent on "
+             "saving space, never exceeded)")
 
 
 def pack_table(res: PackResult) -> str:
@@ -30,7 +32,7 @@ def pack_table(res: PackResult) -> str:
              f"{c.ratio:.2f}", f"{c.bits_per_sample:.3f}"] for c in res.channels]
     state = "all samples within budget" if res.within_budget else "OVER BUDGET"
     return "\n".join([
-        _table(HEADER, rows), "",
+        _table(HEADER, rows), USED_NOTE, "",
         f"archive {res.archive}: {res.archive_bytes} bytes; raw samples {res.raw_bytes} bytes; "
         f"ratio {res.ratio:.2f}; source file {res.source_bytes} bytes; {res.elapsed_s:.1f} s; {state} "
         f"(checked by decoding the archive)"])
@@ -80,7 +82,7 @@ def archive_table(arc, d: dict | None = None) -> str:
         f"source {src.get('name', '?')}: {src.get('bytes', 0)} bytes, sha256 {src.get('sha256', '')[:16]}…",
         f"{len(rows)} channel(s)" + (f" at {first.rate:g} Hz, {first.duration:g} s" if first else ""),
         arc.timeline.describe(), *(f"logger note: {s}" for s in arc.notes),
-        "", _table(HEADER, rows), *[f"note: {c['name']}: {c['note']}" for c in d["channels"] if c["note"]], "",
+        "", _table(HEADER, rows), USED_NOTE, *[f"note: {c['name']}: {c['note']}" for c in d["channels"] if c["note"]], "",
         *[f"problem: {p}" for p in d["problems"]],
         f"ratio {d['ratio']:.2f} ({d['raw_bytes']} raw bytes -> {d['archive_bytes']} archive bytes); "
         + {True: "within budget (member checksums match)", False: "OVER BUDGET",

@@ -24,7 +24,7 @@ from tsarchive.app.locate import find_source
 from tsarchive.app.messages import ArchiveReady, CheckDone, CheckStep, WorkFailed
 from tsarchive.app.screens.base import Notices
 from tsarchive.app.widgets.pick_table import PickTable
-from tsarchive.app.summary import FAILED, UNVERIFIED, archive_duration, check_lines, over_budget
+from tsarchive.app.summary import FAILED, UNVERIFIED, USED_HELP, archive_duration, check_lines, over_budget
 from tsarchive.app.widgets.caution import Caution
 from tsarchive.app.widgets.stage_progress import StageProgress
 from tsarchive.errors import ArchiveCorrupt, TsArchiveError
@@ -40,6 +40,7 @@ class ContentsScreen(Notices, Screen):
         Binding("v", "verify", "Verify"),
         Binding("e", "export", "Export"),
         Binding("escape", "back", "Back"),
+        Binding("q", "app.quit", "Quit", tooltip="quit tsarchive (also Ctrl+Q)"),
     ]
 
     check_state: reactive[str] = reactive(UNVERIFIED, init=False)
@@ -103,7 +104,7 @@ class ContentsScreen(Notices, Screen):
         self.query_one("#contents-state", Static).update(
             f"{budget}.\nCheck: {self.check_state} · {len(arc.channels)} channels · "
             f"{fmt.duration(archive_duration(arc.channels))} · {fmt.size(arc.archive_bytes)} · "
-            f"ratio {fmt.ratio(arc.ratio)} · {original}")
+            f"ratio {fmt.ratio(arc.ratio)} · {original}\n{USED_HELP}.")
 
     def watch_check_state(self, state: str) -> None:
         self.app.checks[self.path] = state  # type: ignore[attr-defined]

@@ -29,12 +29,18 @@ from tsarchive.app.messages import PackDone, PackHalted, PackStep, RecordingInsp
 from tsarchive.app.screens.base import Notices
 from tsarchive.app.widgets.budget_row import BudgetRow
 from tsarchive.app.widgets.stage_progress import StageProgress
+from tsarchive.app.summary import USED_HELP
 from tsarchive.budget import parse_budget
 from tsarchive.errors import BadInput, Cancelled, TsArchiveError
 
 SUMMARY_COLUMNS = ("Channel", "Budget", "Worst error", "Used", "Ratio", "Bits/sample")
 PROGRESS_EVERY_S = 0.1
 """Post at most one progress message per this many seconds within a stage (display only)."""
+
+
+def replace_label(on: bool) -> str:
+    """The 'replace' checkbox says its state in words (a tick drawn in colour alone vanishes under NO_COLOR)."""
+    return "replace: yes" if on else "replace: no"
 
 
 def _budget_ok(text: str) -> bool:
@@ -85,7 +91,7 @@ class PackingScreen(Notices, Screen):
             with Horizontal(classes="field-row"):
                 yield Label("archive", classes="field-label")
                 yield Input(free_archive_name(self.source.parent, self.source.stem), id="packing-target", compact=True)
-                yield Checkbox("replace", id="packing-replace", compact=True)
+                yield Checkbox(replace_label(False), id="packing-replace", compact=True)
                 yield Button("Start packing", id="packing-start", compact=True)
             yield StageProgress(id="packing-progress")
             yield DataTable(id="packing-summary", cursor_type="row")
@@ -200,6 +206,10 @@ class PackingScreen(Notices, Screen):
         self.running = True
         self.run_pack(settings, self.cancel_event)
 
+    def on_checkbox_changed(self, event: Checkbox.Changed) -> None:
+        if event.checkbox.id == "packing-replace":
+            event.checkbox.label = replace_label(event.value)
+
     def on_button_pressed(self, event: Button.Pressed) -> None:
         if event.button.id == "packing-start":
             self.action_start()
@@ -264,7 +274,7 @@ class PackingScreen(Notices, Screen):
         self.query_one("#packing-result", Static).update(
             f"{Path(res.archive).name} written: {fmt.size(res.archive_bytes)} for {fmt.size(res.source_bytes)} "
             f"of source, ratio {fmt.ratio(res.ratio)}; "
-            f"{'every channel within budget' if within else 'SOME CHANNEL OVER BUDGET'}.\n"
+            f"{'every channel within budget' if within else 'SOME CHANNEL OVER BUDGET'}.\n{USED_HELP}.\n"
             "Keep the original until the archive verifies: Ctrl+O opens it in the Contents screen, then V verifies.")
         table.focus()
         self.refresh_bindings()

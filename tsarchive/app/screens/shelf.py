@@ -39,6 +39,7 @@ class ShelfScreen(Notices, Screen):
     BINDINGS = [
         Binding("p", "pack", "Pack"),
         Binding("r", "rescan", "Rescan"),
+        Binding("q", "app.quit", "Quit", tooltip="quit tsarchive (also Ctrl+Q)"),
     ]
 
     def __init__(self, folder: Path) -> None:
@@ -74,13 +75,17 @@ class ShelfScreen(Notices, Screen):
         for e in found:
             if old_sizes.get(e.path) != e.size:
                 self.details.pop(e.path, None)
-        self.entries = found
         table = self.query_one(DataTable)
         keep = table.cursor_row
+        chosen = self.selected.path if self.selected is not None else None
+        self.entries = found
         table.clear()
         for e in found:
             table.add_row(*self._cells(e), key=str(e.path))
-        if found:
+        paths = [e.path for e in found]
+        if chosen in paths:  # the same file stays selected, wherever the rescan put it
+            table.move_cursor(row=paths.index(chosen))
+        elif found:
             table.move_cursor(row=min(keep, len(found) - 1))
         if self.pending is not None:
             self.select_path(self.pending)

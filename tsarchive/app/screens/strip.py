@@ -54,6 +54,10 @@ class StripScreen(Notices, Screen):
     BINDINGS = [
         Binding("n", "step(1)", "Next", tooltip="next window"),
         Binding("b", "step(-1)", "Prev", tooltip="previous window"),
+        Binding("down,right,pagedown", "step(1)", "Next", show=False, priority=True, key_display="↓ / → / PgDn",
+                tooltip="next window"),
+        Binding("up,left,pageup", "step(-1)", "Prev", show=False, priority=True, key_display="↑ / ← / PgUp",
+                tooltip="previous window"),
         Binding("plus,equals_sign", "zoom(0.5)", "Zoom", key_display="+", tooltip="zoom in (half the span)"),
         Binding("minus", "zoom(2)", "Wider", key_display="-", tooltip="zoom out (twice the span)"),
         Binding("left_square_bracket", "pan(-1)", "Earlier", key_display="[", show=False,
@@ -66,6 +70,7 @@ class StripScreen(Notices, Screen):
         Binding("l", "shortlist('alike')", "Alike", tooltip="Shortlist: windows whose codes look like this one's"),
         Binding("e", "export", "Export", tooltip="export the range on screen"),
         Binding("escape", "back", "Back", tooltip="back to the Contents screen"),
+        Binding("q", "app.quit", "Quit", tooltip="quit tsarchive (also Ctrl+Q)"),
     ]
 
     current: reactive[int] = reactive(-1, init=False)
@@ -269,6 +274,12 @@ class StripScreen(Notices, Screen):
         a, b = self.view
         self.app.push_screen(ExportScreen(self.archive, channels=(self.meta.name,),
                                           start=a / self.meta.rate, end=b / self.meta.rate))
+
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        """Arrow and page keys step windows, except while the jump field is being typed in."""
+        if action == "step" and isinstance(self.focused, Input):
+            return False
+        return True
 
     def action_back(self) -> None:
         if self.focused is self.query_one("#strip-jump", Input):
