@@ -105,7 +105,7 @@ def copy_lab(lab: Lab, dest: Path, archive: bool = True) -> Lab:
 
 
 async def open_contents(app, pilot) -> ContentsScreen:
-    """From the Shelf (archives are listed first), open the first archive."""
+    """From the Folder screen (archives are listed first), open the first archive."""
     await settle(app, pilot)
     await pilot.press("enter")
     await settle(app, pilot)
@@ -114,7 +114,7 @@ async def open_contents(app, pilot) -> ContentsScreen:
 
 
 async def open_strip(app, pilot, row: int) -> StripScreen:
-    """From the Shelf, open the first archive's channel on ``row`` in the Strip."""
+    """From the Folder screen, open the first archive's channel on ``row`` in the Strip."""
     await open_contents(app, pilot)
     for _ in range(row):
         await pilot.press("down")

@@ -25,7 +25,7 @@ from tsarchive.app.screens.export import ExportScreen, default_name
 from tsarchive.app.screens.shortlist import ShortlistScreen
 from tsarchive.app.screens.keys import KeysScreen
 from tsarchive.app.screens.contents import ContentsScreen
-from tsarchive.app.screens.shelf import ShelfScreen
+from tsarchive.app.screens.folder import FolderScreen
 from tsarchive.app.screens.strip import StripScreen
 from tsarchive.app.summary import FAILED, check_lines, window_at
 from tsarchive.app.widgets.caution import Caution
@@ -47,14 +47,14 @@ def lab(tmp_path_factory) -> Lab:
     return Lab(folder, cols)
 
 
-# -- 1. Shelf ---------------------------------------------------------------------------------
+# -- 1. Folder ---------------------------------------------------------------------------------
 async def test_shelf_lists_recordings_and_archives_with_details(lab):
     app = NotedApp(lab.folder)
     async with app.run_test(size=(100, 40)) as pilot:
         await settle(app, pilot)
-        shelf = app.screen
-        assert isinstance(shelf, ShelfScreen)
-        rows = {r[0]: r for r in cells(shelf.query_one("#shelf-table"))}
+        folder_screen = app.screen
+        assert isinstance(folder_screen, FolderScreen)
+        rows = {r[0]: r for r in cells(folder_screen.query_one("#folder-table"))}
         assert list(rows) == ["bench_log.tsarchive", "bench_log.csv", "probe.npy"]  # archives first, then by name
         arc = tsarchive.open(lab.archive)
         name, kind, size, length, nch, ratio, check = rows["bench_log.tsarchive"]
@@ -66,7 +66,7 @@ async def test_shelf_lists_recordings_and_archives_with_details(lab):
         assert csv_row[1:5] == ["recording", fmt.size(lab.csv.stat().st_size), "20 s", "2"]
         assert rows["probe.npy"][3] == "unreadable"  # a .npy carries no rate
         await pilot.press("down", "down")
-        note = str(shelf.query_one("#shelf-note").render())
+        note = str(folder_screen.query_one("#folder-note").render())
         assert "probe.npy" in note and "rate" in note
 
 
@@ -74,7 +74,7 @@ async def test_start_on_missing_path_is_a_notification_not_a_crash(tmp_path):
     app = NotedApp(tmp_path / "nowhere")
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
-        assert isinstance(app.screen, ShelfScreen)
+        assert isinstance(app.screen, FolderScreen)
         assert any("does not exist" in e for e in app.errors())
 
 
@@ -139,7 +139,7 @@ async def test_npy_needs_a_rate_typed_on_the_packing(lab, tmp_path):
 # -- 3. Contents ------------------------------------------------------------------------------------
 @pytest.mark.parametrize("size", [(100, 40), (80, 24)])
 async def test_contents_channels_state_and_caution(lab, size):
-    app = NotedApp(lab.archive)  # an archive path opens the Contents screen over the Shelf
+    app = NotedApp(lab.archive)  # an archive path opens the Contents screen over the Folder screen
     async with app.run_test(size=size) as pilot:
         await settle(app, pilot)
         contents = app.screen
@@ -181,7 +181,7 @@ async def test_verify_ok_is_remembered_for_the_session(lab):
         assert "verified ok" in str(contents.query_one("#contents-state").render())
         await pilot.press("escape")
         await settle(app, pilot)
-        assert cells(app.screen.query_one("#shelf-table"))[0][-1] == "verified ok"
+        assert cells(app.screen.query_one("#folder-table"))[0][-1] == "verified ok"
 
 
 async def test_verify_failure_names_the_window(lab, tmp_path):
@@ -204,7 +204,7 @@ async def test_verify_failure_names_the_window(lab, tmp_path):
         assert "bench_log.csv is not the file that was packed (SHA-256 differs" in panel  # named, then compared
         await pilot.press("escape")
         await settle(app, pilot)
-        assert cells(app.screen.query_one("#shelf-table"))[0][-1] == "failed"
+        assert cells(app.screen.query_one("#folder-table"))[0][-1] == "failed"
 
 
 async def test_broken_archive_is_reported_in_app(tmp_path):
@@ -213,7 +213,7 @@ async def test_broken_archive_is_reported_in_app(tmp_path):
     app = NotedApp(tmp_path)
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
-        assert cells(app.screen.query_one("#shelf-table"))[0][3] == "unreadable"
+        assert cells(app.screen.query_one("#folder-table"))[0][3] == "unreadable"
         await pilot.press("enter")
         await settle(app, pilot)
         assert any("not a tsarchive archive" in e for e in app.errors())
@@ -377,10 +377,10 @@ async def test_keys_screen_lists_every_screen(lab):
         assert isinstance(app.screen, KeysScreen)
         rows = cells(app.screen.query_one("#keys-table"))
         where = {r[0] for r in rows}
-        assert {"Shelf", "Packing", "Contents", "Strip", "Shortlist", "Export"} <= where
+        assert {"Folder", "Packing", "Contents", "Strip", "Shortlist", "Export"} <= where
         assert ["Strip", "w", "go to the window with the largest error"] in rows
         await pilot.press("escape")
-        assert isinstance(app.screen, ShelfScreen)
+        assert isinstance(app.screen, FolderScreen)
 
 
 async def test_runs_with_no_color(lab, monkeypatch):

@@ -23,7 +23,7 @@ from tsarchive.app.screens.contents import ContentsScreen
 from tsarchive.app.screens.export import ExportScreen
 from tsarchive.app.screens.keys import KeysScreen
 from tsarchive.app.screens.packing import PackingScreen
-from tsarchive.app.screens.shelf import ShelfScreen
+from tsarchive.app.screens.folder import FolderScreen
 from tsarchive.app.screens.shortlist import ShortlistScreen
 from tsarchive.app.screens.strip import StripScreen
 from tsarchive.cli import main
@@ -64,7 +64,7 @@ async def test_old_tsa_archives_are_listed_and_opened_beside_new_ones(lab, tmp_p
     app = NotedApp(tmp_path)
     async with app.run_test(size=(100, 40)) as pilot:
         await settle(app, pilot)
-        rows = cells(app.screen.query_one("#shelf-table"))
+        rows = cells(app.screen.query_one("#folder-table"))
         assert [(r[0], r[1]) for r in rows] == [("new_run.tsarchive", "archive"), ("old_run.tsa", "archive")]
         await pilot.press("down", "enter")
         await settle(app, pilot)
@@ -146,7 +146,7 @@ async def test_jump_to_time_takes_the_same_forms(lab):
 
 # -- keys ---------------------------------------------------------------------------------------------
 async def test_q_quits_from_the_main_screens(lab):
-    for depth in ("shelf", "contents", "strip"):
+    for depth in ("folder_screen", "contents", "strip"):
         app = QuitApp(lab.folder)
         async with app.run_test(size=(100, 40)) as pilot:
             if depth == "contents":
@@ -188,14 +188,14 @@ async def test_rescan_keeps_the_selected_file(lab, tmp_path):
     app = NotedApp(tmp_path)
     async with app.run_test(size=(100, 40)) as pilot:
         await settle(app, pilot)
-        shelf = app.screen
+        folder_screen = app.screen
         await pilot.press("down")
-        assert shelf.selected.path.name == "b_log.csv"
+        assert folder_screen.selected.path.name == "b_log.csv"
         shutil.copytree(lab.archive, tmp_path / "a_new.tsarchive")  # archives list first: rows shift by one
         await pilot.press("r")
         await settle(app, pilot)
-        assert [r[0] for r in cells(shelf.query_one("#shelf-table"))][0] == "a_new.tsarchive"
-        assert shelf.selected.path.name == "b_log.csv"
+        assert [r[0] for r in cells(folder_screen.query_one("#folder-table"))][0] == "a_new.tsarchive"
+        assert folder_screen.selected.path.name == "b_log.csv"
 
 
 # -- states in words (NO_COLOR shows no colour) -----------------------------------------------------------
@@ -244,7 +244,7 @@ async def test_keys_screen_explains_every_screen_name(lab):
         rows = cells(app.screen.query_one("#keys-table"))
         explained = {r[1]: r[2] for r in rows if r[0] == "Screen"}
         # every screen class's title word (the title bars' first word)
-        assert set(explained) == {"Shelf", "Packing", "Contents", "Strip", "Shortlist", "Export", "Keys"}
+        assert set(explained) == {"Folder", "Packing", "Contents", "Strip", "Shortlist", "Export", "Keys"}
         assert all(len(about.split()) >= 5 for about in explained.values())
         assert any(r[1] == "q" and "quit" in r[2] for r in rows if r[0] == "Strip")
         assert any("PgDn" in r[1] and "next window" in r[2] for r in rows if r[0] == "Strip")
@@ -267,8 +267,8 @@ async def test_every_screen_fits_80_by_24(lab, tmp_path):
     app = NotedApp(tmp_path)
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
-        assert isinstance(app.screen, ShelfScreen)
-        assert _all_on_screen(app.screen, ["#shelf-title", "#shelf-table", "#shelf-note", "Footer"]) == []
+        assert isinstance(app.screen, FolderScreen)
+        assert _all_on_screen(app.screen, ["#folder-title", "#folder-table", "#folder-note", "Footer"]) == []
         await pilot.press("down", "p")
         await settle(app, pilot)
         assert isinstance(app.screen, PackingScreen)

@@ -1,6 +1,7 @@
 """The tsarchive terminal app (Textual). Textual is imported only under this package.
 
-``run_app(path)`` starts it on a folder, an archive (``NAME.tsarchive``, or an older ``NAME.tsa``) or a recording file.
+``run_app(path)`` starts it on a folder, an archive (``NAME.tsarchive``, or an older ``NAME.tsa``)
+or a recording file.
 """
 
 from __future__ import annotations

@@ -1,10 +1,11 @@
-"""The tsarchive terminal app: Shelf -> Packing / Contents -> Strip -> Shortlist, Export.
+"""The tsarchive terminal app: Folder -> Packing / Contents -> Strip -> Shortlist, Export.
 
 The App gets its one input, a path, through its constructor:
 
-* a folder: the Shelf lists it;
-* an archive (``NAME.tsarchive``, or an older ``NAME.tsa``): the Shelf lists its folder and the Contents screen opens on it;
-* a recording file: the Shelf lists its folder with that file selected.
+* a folder: the Folder screen lists it;
+* an archive (``NAME.tsarchive``, or an older ``NAME.tsa``): the Folder screen lists its folder
+  and the Contents screen opens on it;
+* a recording file: the Folder screen lists its folder with that file selected.
 
 Session state kept here: the verification state of each archive checked in this
 session (:attr:`TsArchiveApp.checks`). The app drives the library only through
@@ -22,7 +23,7 @@ from textual.screen import Screen
 from textual.theme import Theme
 
 from tsarchive.app.locate import is_archive_path
-from tsarchive.app.screens.shelf import ShelfScreen
+from tsarchive.app.screens.folder import FolderScreen
 
 WORKBENCH_THEME = Theme(
     name="tsarchive-workbench",
@@ -66,7 +67,7 @@ class TsArchiveApp(App):
         """Verification state of archives checked this session: ``verified ok`` or ``failed``."""
 
     def get_default_screen(self) -> Screen:
-        return ShelfScreen(self.folder)
+        return FolderScreen(self.folder)
 
     def on_mount(self) -> None:
         self.register_theme(WORKBENCH_THEME)
@@ -80,9 +81,9 @@ class TsArchiveApp(App):
             self.call_after_refresh(self._select_start_file)
 
     def _select_start_file(self) -> None:
-        shelf = self.screen
-        if isinstance(shelf, ShelfScreen):
-            shelf.select_path(self.start_path)
+        folder_screen = self.screen
+        if isinstance(folder_screen, FolderScreen):
+            folder_screen.select_path(self.start_path)
 
     def notify(self, message: str, *, title: str = "", severity="information", timeout: float | None = None,
                markup: bool = False) -> None:

@@ -1,7 +1,7 @@
 """Finding things on disk and reading what the user typed (no Textual, no codec logic).
 
 * :func:`scan_folder` lists the recordings and archives of one folder (cheap: names
-  and sizes only; details are loaded later by the Shelf's worker).
+  and sizes only; details are loaded later by the Folder screen's worker).
 * :func:`find_source` looks for an archive's original recording next to it.
 * :func:`read_time`, :func:`parse_optional_int` and :func:`combine_budgets`
   turn text fields into the arguments the library expects, raising
@@ -23,8 +23,8 @@ EXPORT_SUFFIXES = (".csv", ".parquet", ".npy")
 
 
 @dataclass(frozen=True)
-class ShelfEntry:
-    """One row of the Shelf: a recording file or an archive directory."""
+class FolderEntry:
+    """One row of the Folder screen: a recording file or an archive directory."""
 
     path: Path
     kind: str  # "recording" or "archive"
@@ -54,7 +54,7 @@ def is_archive_path(path: Path) -> bool:
     return path.suffix in ARCHIVE_SUFFIXES and path.is_dir()
 
 
-def scan_folder(folder: Path) -> list[ShelfEntry]:
+def scan_folder(folder: Path) -> list[FolderEntry]:
     """Archives first, then recordings, each group sorted by name.
 
     Raises :class:`BadInput` when ``folder`` is not a readable directory.
@@ -63,8 +63,8 @@ def scan_folder(folder: Path) -> list[ShelfEntry]:
         children = sorted(folder.iterdir(), key=lambda p: p.name.lower())
     except OSError as exc:
         raise BadInput(f"cannot list folder {folder}: {exc.strerror or exc}; pick a readable folder") from exc
-    archives = [ShelfEntry(p, "archive", 0) for p in children if is_archive_path(p)]
-    recordings = [ShelfEntry(p, "recording", p.stat().st_size) for p in children
+    archives = [FolderEntry(p, "archive", 0) for p in children if is_archive_path(p)]
+    recordings = [FolderEntry(p, "recording", p.stat().st_size) for p in children
                   if p.is_file() and p.suffix.lower() in RECORDING_SUFFIXES]
     return archives + recordings
 

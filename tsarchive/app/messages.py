@@ -25,8 +25,8 @@ class WorkFailed(Message):
 
 
 @dataclass
-class ShelfDetailsLoaded(Message):
-    """Details of one Shelf row, read by ``inspect_source`` or ``open``.
+class FolderDetailsLoaded(Message):
+    """Details of one row of the Folder screen, read by ``inspect_source`` or ``open``.
 
     ``problem`` is the one-line error when the file could not be read (other fields None).
     """

@@ -2,7 +2,7 @@
 
 The archive is opened by ``tsarchive.open`` in a worker. ``v`` runs
 ``Archive.verify`` (against the original when it is found next to the archive or
-in the Shelf's folder) in a thread worker with progress; the check panel names any
+in the Folder screen's folder) in a thread worker with progress; the check panel names any
 failing window. Enter on a channel opens it in the Strip; ``e`` exports a range.
 """
 

@@ -14,7 +14,7 @@ from tsarchive.app.summary import USED_HELP
 
 #: Each screen's name and what it is for, in the order a user meets them (shown first on the Keys screen).
 SCREENS = (
-    ("Shelf", "the start screen: the recordings and archives of one folder, side by side like files on a shelf"),
+    ("Folder", "the start screen: the recordings and archives of one folder, with length, channels and ratio"),
     ("Packing", "one recording: set a budget per channel, pack it into an archive, see what each channel got"),
     ("Contents", "one archive: its channels, budgets, worst errors and ratios, and verifying it"),
     ("Strip", "one channel: its windows in time order and a plot of the stretch, read like a strip chart"),
@@ -31,12 +31,12 @@ def key_table() -> list[tuple[str, str, str]]:
     from tsarchive.app.screens.export import ExportScreen
     from tsarchive.app.screens.shortlist import ShortlistScreen
     from tsarchive.app.screens.contents import ContentsScreen
-    from tsarchive.app.screens.shelf import ShelfScreen
+    from tsarchive.app.screens.folder import FolderScreen
     from tsarchive.app.screens.strip import StripScreen
 
-    places = [("Anywhere", TsArchiveApp), ("Shelf", ShelfScreen), ("Packing", PackingScreen),
+    places = [("Anywhere", TsArchiveApp), ("Folder", FolderScreen), ("Packing", PackingScreen),
               ("Contents", ContentsScreen), ("Strip", StripScreen), ("Shortlist", ShortlistScreen), ("Export", ExportScreen)]
-    enter = {"Shelf": "pack the recording, or open the archive in the Contents screen",
+    enter = {"Folder": "pack the recording, or open the archive in the Contents screen",
              "Contents": "open the channel in the Strip", "Shortlist": "show the window in the Strip"}
     rows = [("Screen", name, about) for name, about in SCREENS]
     rows.append(("Figures", "Used", USED_HELP))
