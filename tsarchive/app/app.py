@@ -25,8 +25,8 @@ from textual.theme import Theme
 from tsarchive.app.locate import is_archive_path
 from tsarchive.app.screens.folder import FolderScreen
 
-WORKBENCH_THEME = Theme(
-    name="tsarchive-workbench",
+LAB_THEME = Theme(
+    name="tsarchive-lab",
     primary="#4F8A8B",
     secondary="#9C7A54",
     accent="#D9B44A",
@@ -70,8 +70,8 @@ class TsArchiveApp(App):
         return FolderScreen(self.folder)
 
     def on_mount(self) -> None:
-        self.register_theme(WORKBENCH_THEME)
-        self.theme = WORKBENCH_THEME.name
+        self.register_theme(LAB_THEME)
+        self.theme = LAB_THEME.name
         if not self.start_path.exists():
             self.notify(f"{self.start_path} does not exist; showing {self.folder} instead",
                         severity="error", timeout=8)
