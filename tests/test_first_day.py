@@ -127,7 +127,8 @@ def test_unpack_takes_clock_and_compound_times(lab, tmp_path, capsys):
                         "--end", "2s500ms")
     assert code == 0, err
     part = np.load(out)
-    # rows 1.00 s .. 2.49 s at 100 Hz = samples 100..249; temp's budget is 0.05
+    # rows 1.00 s .. 2.49 s at 100 Hz = samples 100..249 (the range is [start, end)); temp's budget is 0.05,
+    # with 1e-12 for np.round's double, which may differ by an ulp from the CSV text's (IEEE 754 rounding)
     assert part.shape[0] == 150 and np.max(np.abs(part[:, -1] - lab.cols["temp"][100:250])) <= 0.05 + 1e-12
 
 
