@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from tsarchive.app.app import TsArchiveApp
-from tsarchive.app.screens.ledger import LedgerScreen
+from tsarchive.app.screens.contents import ContentsScreen
 from tsarchive.app.screens.strip import StripScreen
 
 RATE = 100.0
@@ -82,7 +82,7 @@ def cells(table) -> list[list[str]]:
 
 @dataclass(frozen=True)
 class Lab:
-    """A test folder holding ``bench_log.csv`` (columns ``cols``) and its archive ``bench_log.tsa``."""
+    """A test folder holding ``bench_log.csv`` (columns ``cols``) and its archive ``bench_log.tsarchive``."""
 
     folder: Path
     cols: dict
@@ -93,7 +93,7 @@ class Lab:
 
     @property
     def archive(self) -> Path:
-        return self.folder / "bench_log.tsa"
+        return self.folder / "bench_log.tsarchive"
 
 
 def copy_lab(lab: Lab, dest: Path, archive: bool = True) -> Lab:
@@ -104,18 +104,18 @@ def copy_lab(lab: Lab, dest: Path, archive: bool = True) -> Lab:
     return Lab(dest, lab.cols)
 
 
-async def open_ledger(app, pilot) -> LedgerScreen:
-    """From the Shelf (archives are listed first), open the first archive."""
+async def open_contents(app, pilot) -> ContentsScreen:
+    """From the Folder screen (archives are listed first), open the first archive."""
     await settle(app, pilot)
     await pilot.press("enter")
     await settle(app, pilot)
-    assert isinstance(app.screen, LedgerScreen)
+    assert isinstance(app.screen, ContentsScreen)
     return app.screen
 
 
 async def open_strip(app, pilot, row: int) -> StripScreen:
-    """From the Shelf, open the first archive's channel on ``row`` in the Strip."""
-    await open_ledger(app, pilot)
+    """From the Folder screen, open the first archive's channel on ``row`` in the Strip."""
+    await open_contents(app, pilot)
     for _ in range(row):
         await pilot.press("down")
     await pilot.press("s")

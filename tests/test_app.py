@@ -16,16 +16,16 @@ import pyarrow.parquet as pq
 import pytest
 
 import tsarchive
-from app_helpers import (N, RATE, SPIKE_AT, WINDOW, Lab, NotedApp, cells, copy_lab, open_ledger, open_strip, settle,
+from app_helpers import (N, RATE, SPIKE_AT, WINDOW, Lab, NotedApp, cells, copy_lab, open_contents, open_strip, settle,
                          write_stream)
 from tsarchive.app import fmt
-from tsarchive.app.locate import combine_budgets, free_archive_name, parse_seconds, read_time
-from tsarchive.app.screens.bench import PackBenchScreen
+from tsarchive.app.locate import combine_budgets, free_archive_name, read_time
+from tsarchive.app.screens.packing import PackingScreen
 from tsarchive.app.screens.export import ExportScreen, default_name
-from tsarchive.app.screens.finder import FinderScreen
+from tsarchive.app.screens.shortlist import ShortlistScreen
 from tsarchive.app.screens.keys import KeysScreen
-from tsarchive.app.screens.ledger import LedgerScreen
-from tsarchive.app.screens.shelf import ShelfScreen
+from tsarchive.app.screens.contents import ContentsScreen
+from tsarchive.app.screens.folder import FolderScreen
 from tsarchive.app.screens.strip import StripScreen
 from tsarchive.app.summary import FAILED, check_lines, window_at
 from tsarchive.app.widgets.caution import Caution
@@ -41,23 +41,23 @@ def lab(tmp_path_factory) -> Lab:
     """A folder with the CSV, its archive (packed once) and a .npy without a rate."""
     folder = tmp_path_factory.mktemp("app_lab")
     cols = write_stream(folder / "bench_log.csv")
-    tsarchive.pack(folder / "bench_log.csv", folder / "bench_log.tsa", BUDGET, window=WINDOW, code_size=4,
+    tsarchive.pack(folder / "bench_log.csv", folder / "bench_log.tsarchive", BUDGET, window=WINDOW, code_size=4,
                    train_seconds=1.0)
     np.save(folder / "probe.npy", cols["accel"][:500])
     return Lab(folder, cols)
 
 
-# -- 1. Shelf ---------------------------------------------------------------------------------
+# -- 1. Folder ---------------------------------------------------------------------------------
 async def test_shelf_lists_recordings_and_archives_with_details(lab):
     app = NotedApp(lab.folder)
     async with app.run_test(size=(100, 40)) as pilot:
         await settle(app, pilot)
-        shelf = app.screen
-        assert isinstance(shelf, ShelfScreen)
-        rows = {r[0]: r for r in cells(shelf.query_one("#shelf-table"))}
-        assert list(rows) == ["bench_log.tsa", "bench_log.csv", "probe.npy"]  # archives first, then by name
+        folder_screen = app.screen
+        assert isinstance(folder_screen, FolderScreen)
+        rows = {r[0]: r for r in cells(folder_screen.query_one("#folder-table"))}
+        assert list(rows) == ["bench_log.tsarchive", "bench_log.csv", "probe.npy"]  # archives first, then by name
         arc = tsarchive.open(lab.archive)
-        name, kind, size, length, nch, ratio, check = rows["bench_log.tsa"]
+        name, kind, size, length, nch, ratio, check = rows["bench_log.tsarchive"]
         assert (kind, nch, check) == ("archive", "2", "unverified")
         assert length == fmt.duration(N / RATE) == "20 s"  # duration = samples / rate
         assert ratio == fmt.ratio(arc.ratio)
@@ -66,7 +66,7 @@ async def test_shelf_lists_recordings_and_archives_with_details(lab):
         assert csv_row[1:5] == ["recording", fmt.size(lab.csv.stat().st_size), "20 s", "2"]
         assert rows["probe.npy"][3] == "unreadable"  # a .npy carries no rate
         await pilot.press("down", "down")
-        note = str(shelf.query_one("#shelf-note").render())
+        note = str(folder_screen.query_one("#folder-note").render())
         assert "probe.npy" in note and "rate" in note
 
 
@@ -74,11 +74,11 @@ async def test_start_on_missing_path_is_a_notification_not_a_crash(tmp_path):
     app = NotedApp(tmp_path / "nowhere")
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
-        assert isinstance(app.screen, ShelfScreen)
+        assert isinstance(app.screen, FolderScreen)
         assert any("does not exist" in e for e in app.errors())
 
 
-# -- 2. Pack bench ------------------------------------------------------------------------------
+# -- 2. Packing ------------------------------------------------------------------------------
 async def test_pack_cancel_leaves_no_archive(lab, tmp_path):
     here = copy_lab(lab, tmp_path, archive=False)
     app = NotedApp(here.csv)
@@ -92,9 +92,9 @@ async def test_pack_cancel_leaves_no_archive(lab, tmp_path):
         assert app.screen.running
         await pilot.press("escape")  # while packing, Escape cancels
         await settle(app, pilot)
-        bench = app.screen
-        assert isinstance(bench, PackBenchScreen) and not bench.running and bench.result is None
-        assert "Cancelled" in str(bench.query_one("#bench-result").render())
+        packing = app.screen
+        assert isinstance(packing, PackingScreen) and not packing.running and packing.result is None
+        assert "Cancelled" in str(packing.query_one("#packing-result").render())
         assert sorted(p.name for p in here.folder.iterdir()) == ["bench_log.csv"]  # no archive, no staging
 
 
@@ -105,19 +105,19 @@ async def test_bench_refuses_bad_fields_with_notifications(lab, tmp_path):
         await settle(app, pilot)
         await pilot.press("p")
         await settle(app, pilot)
-        bench = app.screen
+        packing = app.screen
         await pilot.press(*"abc", "ctrl+s")
         await settle(app, pilot)
-        assert bench.result is None and any("abc" in e for e in app.errors())
+        assert packing.result is None and any("abc" in e for e in app.errors())
         await pilot.press("ctrl+u", *"0.1%")
-        bench.query_one("#bench-target").focus()
-        await pilot.press(*"bench_log", "ctrl+s")  # bench_log.tsa exists, 'replace' not ticked
+        packing.query_one("#packing-target").focus()
+        await pilot.press(*"bench_log", "ctrl+s")  # bench_log.tsarchive exists, 'replace' not ticked
         await settle(app, pilot)
         assert any("already exists" in e for e in app.errors())
-        assert bench.result is None
+        assert packing.result is None
 
 
-async def test_npy_needs_a_rate_typed_on_the_bench(lab, tmp_path):
+async def test_npy_needs_a_rate_typed_on_the_packing(lab, tmp_path):
     shutil.copy(lab.folder / "probe.npy", tmp_path / "probe.npy")
     app = NotedApp(tmp_path / "probe.npy")
     async with app.run_test(size=(100, 40)) as pilot:
@@ -125,27 +125,27 @@ async def test_npy_needs_a_rate_typed_on_the_bench(lab, tmp_path):
         await pilot.press("p")
         await settle(app, pilot)
         assert any("rate" in e for e in app.errors())
-        bench = app.screen
-        assert not list(bench.query(".budget-name"))
-        assert "needs a sample rate" in str(bench.query_one("#bench-info").render())
-        assert app.focused.id == "bench-rate"  # the field to fill has the focus
+        packing = app.screen
+        assert not list(packing.query(".budget-name"))
+        assert "needs a sample rate" in str(packing.query_one("#packing-info").render())
+        assert app.focused.id == "packing-rate"  # the field to fill has the focus
         await pilot.press(*"250", "enter")
         await settle(app, pilot)
-        assert "250 Hz" in str(bench.query_one("#bench-info").render())
-        assert fmt.duration(500 / 250) in str(bench.query_one("#bench-info").render())  # samples / rate
-        assert [str(w.render()) for w in bench.query(".budget-name")] == ["ch0"]
+        assert "250 Hz" in str(packing.query_one("#packing-info").render())
+        assert fmt.duration(500 / 250) in str(packing.query_one("#packing-info").render())  # samples / rate
+        assert [str(w.render()) for w in packing.query(".budget-name")] == ["ch0"]
 
 
-# -- 3. Ledger ------------------------------------------------------------------------------------
+# -- 3. Contents ------------------------------------------------------------------------------------
 @pytest.mark.parametrize("size", [(100, 40), (80, 24)])
-async def test_ledger_channels_state_and_caution(lab, size):
-    app = NotedApp(lab.archive)  # an archive path opens the Ledger over the Shelf
+async def test_contents_channels_state_and_caution(lab, size):
+    app = NotedApp(lab.archive)  # an archive path opens the Contents screen over the Folder screen
     async with app.run_test(size=size) as pilot:
         await settle(app, pilot)
-        ledger = app.screen
-        assert isinstance(ledger, LedgerScreen)
+        contents = app.screen
+        assert isinstance(contents, ContentsScreen)
         arc = tsarchive.open(lab.archive)
-        rows = cells(ledger.query_one("#ledger-table"))
+        rows = cells(contents.query_one("#contents-table"))
         assert [r[0] for r in rows] == ["temp", "accel"]
         for row, ch in zip(rows, arc.channels):
             assert row[1:4] == [ch.unit, "100 Hz", "20 s"]
@@ -153,9 +153,9 @@ async def test_ledger_channels_state_and_caution(lab, size):
             assert row[5:] == [fmt.num(ch.worst_error), fmt.pct(ch.used_pct), fmt.ratio(ch.ratio),
                                f"{ch.bits_per_sample:.2f}"]
             assert ch.worst_error <= ch.eps
-        state = str(ledger.query_one("#ledger-state").render())
+        state = str(contents.query_one("#contents-state").render())
         assert state.startswith("Within budget") and "unverified" in state and "bench_log.csv found" in state
-        caution = ledger.query_one(Caution)
+        caution = contents.query_one(Caution)
         text = str(caution.render())
         for words in ("lossy", "quality or retention rules", "Keep the original", "verifies",
                       "quality system", "regulations"):
@@ -163,8 +163,8 @@ async def test_ledger_channels_state_and_caution(lab, size):
         region = caution.region
         assert caution.display and region.height >= 2 and region.bottom <= size[1] and region.right <= size[0]
         # the mouse: a click puts the cursor on a row, a second click opens that channel in the Strip
-        await pilot.click("#ledger-table", offset=(3, 2))
-        await pilot.click("#ledger-table", offset=(3, 2))
+        await pilot.click("#contents-table", offset=(3, 2))
+        await pilot.click("#contents-table", offset=(3, 2))
         await settle(app, pilot)
         assert isinstance(app.screen, StripScreen) and app.screen.meta.name == "accel"
 
@@ -173,15 +173,15 @@ async def test_ledger_channels_state_and_caution(lab, size):
 async def test_verify_ok_is_remembered_for_the_session(lab):
     app = NotedApp(lab.folder)
     async with app.run_test(size=(100, 40)) as pilot:
-        ledger = await open_ledger(app, pilot)
+        contents = await open_contents(app, pilot)
         await pilot.press("v")
         await settle(app, pilot)
-        panel = str(ledger.query_one("#ledger-check").render())
+        panel = str(contents.query_one("#contents-check").render())
         assert panel.startswith("Verified ok") and "compared with bench_log.csv" in panel
-        assert "verified ok" in str(ledger.query_one("#ledger-state").render())
+        assert "verified ok" in str(contents.query_one("#contents-state").render())
         await pilot.press("escape")
         await settle(app, pilot)
-        assert cells(app.screen.query_one("#shelf-table"))[0][-1] == "verified ok"
+        assert cells(app.screen.query_one("#folder-table"))[0][-1] == "verified ok"
 
 
 async def test_verify_failure_names_the_window(lab, tmp_path):
@@ -193,10 +193,10 @@ async def test_verify_failure_names_the_window(lab, tmp_path):
     here.csv.write_text("\n".join(text) + "\n")
     app = NotedApp(here.folder)
     async with app.run_test(size=(100, 40)) as pilot:
-        ledger = await open_ledger(app, pilot)
+        contents = await open_contents(app, pilot)
         await pilot.press("v")
         await settle(app, pilot)
-        panel = str(ledger.query_one("#ledger-check").render())
+        panel = str(contents.query_one("#contents-check").render())
         w = k // WINDOW  # fixed windows of W samples: sample k lies in window floor(k / W) = 7
         assert panel.startswith("Verification FAILED")
         assert f"#{w} (at {w * WINDOW / RATE:.2f} s)" in panel  # start of window 7 = 448 / 100 Hz
@@ -204,7 +204,7 @@ async def test_verify_failure_names_the_window(lab, tmp_path):
         assert "bench_log.csv is not the file that was packed (SHA-256 differs" in panel  # named, then compared
         await pilot.press("escape")
         await settle(app, pilot)
-        assert cells(app.screen.query_one("#shelf-table"))[0][-1] == "failed"
+        assert cells(app.screen.query_one("#folder-table"))[0][-1] == "failed"
 
 
 async def test_broken_archive_is_reported_in_app(tmp_path):
@@ -213,7 +213,7 @@ async def test_broken_archive_is_reported_in_app(tmp_path):
     app = NotedApp(tmp_path)
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
-        assert cells(app.screen.query_one("#shelf-table"))[0][3] == "unreadable"
+        assert cells(app.screen.query_one("#folder-table"))[0][3] == "unreadable"
         await pilot.press("enter")
         await settle(app, pilot)
         assert any("not a tsarchive archive" in e for e in app.errors())
@@ -270,7 +270,7 @@ async def test_strip_without_the_original_shows_the_archive_only(lab, tmp_path):
     app = NotedApp(tmp_path / lab.archive.name)
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
-        assert "bench_log.csv not found" in str(app.screen.query_one("#ledger-state").render())
+        assert "bench_log.csv not found" in str(app.screen.query_one("#contents-state").render())
         await pilot.press("s")
         await settle(app, pilot)
         strip = app.screen
@@ -282,18 +282,18 @@ async def test_strip_without_the_original_shows_the_archive_only(lab, tmp_path):
         assert np.array_equal(strip.stretch.rebuilt, arc.read("temp", 0, 3 * WINDOW / RATE))
 
 
-# -- 5. Finder ------------------------------------------------------------------------------------
-async def test_finder_unusual_and_alike_jump_the_strip(lab):
+# -- 5. Shortlist ------------------------------------------------------------------------------------
+async def test_shortlist_unusual_and_alike_jump_the_strip(lab):
     app = NotedApp(lab.folder)
     async with app.run_test(size=(100, 40)) as pilot:
         strip = await open_strip(app, pilot, row=1)
         arc = tsarchive.open(lab.archive)
         await pilot.press("u")
         await settle(app, pilot)
-        finder = app.screen
-        assert isinstance(finder, FinderScreen)
+        shortlist = app.screen
+        assert isinstance(shortlist, ShortlistScreen)
         ranked = arc.outliers("accel", k=20)
-        assert [w for w, _ in finder.rows] == ranked
+        assert [w for w, _ in shortlist.rows] == ranked
         assert SPIKE_AT // WINDOW in ranked[:3]  # the injected spike stands out (window 19)
         await pilot.press("down", "enter")
         await settle(app, pilot)
@@ -312,7 +312,7 @@ async def test_export_typed_range_to_parquet_and_view_to_npy(lab, tmp_path):
     here = copy_lab(lab, tmp_path)
     app = NotedApp(here.folder)
     async with app.run_test(size=(100, 40)) as pilot:
-        ledger = await open_ledger(app, pilot)
+        contents = await open_contents(app, pilot)
         await pilot.press("e")
         await settle(app, pilot)
         assert isinstance(app.screen, ExportScreen)
@@ -320,7 +320,7 @@ async def test_export_typed_range_to_parquet_and_view_to_npy(lab, tmp_path):
         assert app.screen.query_one("#export-name").value == "bench_log_2-4s.parquet"
         await pilot.press("ctrl+s")
         await settle(app, pilot)
-        assert app.screen is ledger
+        assert app.screen is contents
         table = pq.read_table(here.folder / "bench_log_2-4s.parquet")
         arc = tsarchive.open(here.archive)
         assert table.num_rows == int((4 - 2) * RATE)  # samples in [2 s, 4 s) at 100 Hz
@@ -347,7 +347,7 @@ async def test_export_asks_before_replacing_and_never_replaces_the_recording(lab
     (here.folder / "old.csv").write_text("keep me\n")
     app = NotedApp(here.folder)
     async with app.run_test(size=(100, 40)) as pilot:
-        await open_ledger(app, pilot)
+        await open_contents(app, pilot)
         await pilot.press("e")
         await settle(app, pilot)
         export = app.screen
@@ -377,10 +377,10 @@ async def test_keys_screen_lists_every_screen(lab):
         assert isinstance(app.screen, KeysScreen)
         rows = cells(app.screen.query_one("#keys-table"))
         where = {r[0] for r in rows}
-        assert {"Shelf", "Pack bench", "Ledger", "Strip", "Finder", "Export"} <= where
+        assert {"Folder", "Packing", "Contents", "Strip", "Shortlist", "Export"} <= where
         assert ["Strip", "w", "go to the window with the largest error"] in rows
         await pilot.press("escape")
-        assert isinstance(app.screen, ShelfScreen)
+        assert isinstance(app.screen, FolderScreen)
 
 
 async def test_runs_with_no_color(lab, monkeypatch):
@@ -389,7 +389,7 @@ async def test_runs_with_no_color(lab, monkeypatch):
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
         assert app.no_color  # Textual reads NO_COLOR and filters all colour out
-        assert isinstance(app.screen, LedgerScreen)
+        assert isinstance(app.screen, ContentsScreen)
         assert app.screen.query_one(Caution).has_pseudo_class("nocolor")
         await pilot.press("s")
         await settle(app, pilot)
@@ -400,40 +400,40 @@ async def test_runs_with_no_color(lab, monkeypatch):
 async def test_new_user_journey_by_keys_only(tmp_path):
     """Pack a sample-like stream, open it, find the worst window plotted against its budget band,
     verify, and export a 10-second range -- only key presses, on a 80 x 24 terminal.
-    Along the way: what the Pack bench shows before and after packing."""
+    Along the way: what the Packing screen shows before and after packing."""
     cols = write_stream(tmp_path / "soak_log.csv")
     app = NotedApp(tmp_path)
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
-        await pilot.press("enter")  # the only recording -> Pack bench
+        await pilot.press("enter")  # the only recording -> Packing
         await settle(app, pilot)
-        bench = app.screen
-        assert isinstance(bench, PackBenchScreen)
-        info = str(bench.query_one("#bench-info").render())
+        packing = app.screen
+        assert isinstance(packing, PackingScreen)
+        info = str(packing.query_one("#packing-info").render())
         assert "100 Hz" in info and "2000 samples" in info
-        assert [str(w.render()) for w in bench.query(".budget-name")] == ["temp [degC]", "accel [m/s2]"]
-        assert [str(w.render()) for w in bench.query(".budget-step")] == ["step 0.01", "step 0.001"]  # as written
-        assert [i.value for i in bench.query(".budget-input")] == ["0.1%", "0.1%"]  # the default shown
+        assert [str(w.render()) for w in packing.query(".budget-name")] == ["temp [degC]", "accel [m/s2]"]
+        assert [str(w.render()) for w in packing.query(".budget-step")] == ["step 0.01", "step 0.001"]  # as written
+        assert [i.value for i in packing.query(".budget-input")] == ["0.1%", "0.1%"]  # the default shown
         # temp budget 0.05 degC (its field has focus, text selected), window 64, codes of 4 numbers (asked
         # for, so the autoencoder trains whatever it saves), 1 s of training, start
         await pilot.press(*"0.05", "tab", "tab", "tab", *"64", "tab", "4", "tab", *"1", "ctrl+s")
         await settle(app, pilot)
-        assert bench.result is not None, app.errors()
-        progress = bench.query_one(StageProgress)
+        assert packing.result is not None, app.errors()
+        progress = packing.query_one(StageProgress)
         assert progress.lines["train"].startswith("epoch") and "loss" in progress.lines["train"]
         assert progress.lines["encode"].startswith(f"windows {2 * N_WINDOWS}/{2 * N_WINDOWS}")
-        arc = tsarchive.open(tmp_path / "soak_log.tsa")
+        arc = tsarchive.open(tmp_path / "soak_log.tsarchive")
         assert arc.channel("temp").eps == pytest.approx(0.05)
-        summary = {r[0]: r for r in cells(bench.query_one("#bench-summary"))}
+        summary = {r[0]: r for r in cells(packing.query_one("#packing-summary"))}
         for ch in arc.channels:
             _name, _budget, worst, used, ratio, bits = summary[ch.name]
             assert worst == f"{fmt.num(ch.worst_error)} {ch.unit}"
             assert used == fmt.pct(100 * ch.worst_error / ch.eps)  # % of budget used = worst / eps
             assert ratio == fmt.ratio(ch.ratio) and bits == f"{ch.bits_per_sample:.2f}"
             assert np.max(np.abs(arc.read(ch.name) - cols[ch.name])) <= ch.eps  # |x^ - x| <= eps, by numpy
-        await pilot.press("ctrl+o")  # -> Ledger
+        await pilot.press("ctrl+o")  # -> Contents
         await settle(app, pilot)
-        assert isinstance(app.screen, LedgerScreen)
+        assert isinstance(app.screen, ContentsScreen)
         await pilot.press("down", "enter")  # accel -> Strip
         await settle(app, pilot)
         await pilot.press("w")  # worst window
@@ -446,9 +446,9 @@ async def test_new_user_journey_by_keys_only(tmp_path):
         # the plotted peak is the window's worst error, which the archive stores rounded up to 1/250 of eps
         peak, eps = np.max(np.abs(strip.stretch.error)), arc.channel("accel").eps
         assert worst.max() - eps / 250 <= peak <= worst.max()
-        await pilot.press("escape", "v")  # back to the Ledger, verify
+        await pilot.press("escape", "v")  # back to the Contents screen, verify
         await settle(app, pilot)
-        assert "verified ok" in str(app.screen.query_one("#ledger-state").render())
+        assert "verified ok" in str(app.screen.query_one("#contents-state").render())
         await pilot.press("e", *"5", "tab", *"15", "ctrl+s")  # 10 s, all channels, CSV
         await settle(app, pilot)
         out = tmp_path / "soak_log_5-15s.csv"
@@ -464,7 +464,7 @@ async def test_new_user_journey_by_keys_only(tmp_path):
 # -- the app's small text helpers ---------------------------------------------------------------------
 def test_times_typed_and_shown_agree():
     assert fmt.clock(75.25) == "1:15.25"  # 75.25 s = 1 min 15.25 s
-    assert parse_seconds("1:15.25") == 75.25 and parse_seconds("1:01:15") == 3675  # 1 h = 3600 s
+    assert read_time("1:15.25") == 75.25 and read_time("1:01:15") == 3675  # 1 h = 3600 s
     assert read_time("90s") == 90 and read_time("5min") == 300 and read_time("") is None
     with pytest.raises(tsarchive.BadInput):
         read_time("soon")
@@ -483,8 +483,8 @@ def test_budget_fields_become_one_spec_the_library_reads():
 
 def test_names_proposed_for_new_files(tmp_path):
     assert default_name("run", 5.0, 15.0) == "run_5-15s.csv" and default_name("run", None, None, ".npy") == "run.npy"
-    (tmp_path / "run.tsa").mkdir()
-    assert free_archive_name(tmp_path, "run") == "run-2.tsa" and free_archive_name(tmp_path, "new") == "new.tsa"
+    (tmp_path / "run.tsarchive").mkdir()
+    assert free_archive_name(tmp_path, "run") == "run-2.tsarchive" and free_archive_name(tmp_path, "new") == "new.tsarchive"
 
 
 def test_check_panel_names_failing_windows_with_their_start():

@@ -38,7 +38,9 @@ def test_pack_report_verify_unpack(tmp_path, src, capsys):
     assert rep["channels"][0]["eps"] == 0.01 and rep["within_budget"]
 
     code, out, _ = _run(capsys, "verify", arc)
-    assert code == 0 and "VERIFIED" in out
+    assert code == 0 and out.splitlines()[-2] == "Checksums match: every window decodes to its stored checksum"
+    assert out.splitlines()[:2] == ["ch0: checksums match (samples not compared)",
+                                    "ch1: checksums match (samples not compared)"]
     code, out, _ = _run(capsys, "verify", arc, "--against", src, "--json")
     assert code == 0 and json.loads(out)["ok"] and json.loads(out)["compared"]
 
@@ -72,6 +74,28 @@ def test_verify_exit_1_names_channel_and_window(tmp_path, src, capsys):
     np.save(tmp_path / "edited.npy", x)
     code, out, _ = _run(capsys, "verify", arc, "--against", tmp_path / "edited.npy", "--even-if-changed")
     assert code == 1 and "ch1" in out and "10" in out and "FAILED" in out
+    lines = out.splitlines()
+    # one sample moved by 1.0 (>> eps) in window 700 // 64 = 10: named in words, with the count and window
+    assert any(ln.startswith("ch1: out of budget: 1 sample(s) beyond ±") and "in window(s) 10;" in ln for ln in lines)
+    assert any(ln.startswith("ch0: within budget: worst error ") for ln in lines)
+    assert lines[-1] == "FAILED: see the problems above"
+
+
+def test_verify_says_within_budget_with_the_figures(tmp_path, src, capsys):
+    """verify --against names each channel's state in words and its worst error, checked with numpy."""
+    arc = tmp_path / "w.tsarchive"
+    assert _run(capsys, "pack", src, "-o", arc, "--rate", 200, "--budget", "0.01", "--code-size", 0)[0] == 0
+    assert _run(capsys, "unpack", arc, "-o", tmp_path / "back.npy")[0] == 0
+    back, x = np.load(tmp_path / "back.npy").astype(np.float64), np.load(src).astype(np.float64)
+    code, out, _ = _run(capsys, "verify", arc, "--against", src)
+    assert code == 0
+    lines = out.splitlines()
+    for j, name in enumerate(("ch0", "ch1")):
+        worst = np.max(np.abs(back[:, j] - x[:, j]))  # float32 differences are exact in float64 (IEEE 754)
+        share = 100 * worst / 0.01  # share of the budget used: worst error / eps (definition)
+        assert f"{name}: within budget: worst error {worst:.4g} of ±0.01, {share:.1f} % of the budget" in lines
+    assert lines[-1] == "All within budget: every sample within its budget and every checksum matches"
+    assert not any(ln.endswith(": ok") or ln.startswith("VERIFIED") for ln in lines)  # not a checksum tool's layout
 
 
 @pytest.mark.parametrize("argv,needle", [

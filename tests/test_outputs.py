@@ -145,7 +145,7 @@ def test_verify_names_a_changed_source_before_comparing_samples(lab, capsys):
     assert code == 1 and rep["source_same"] is False and rep["compared"] is False
     # asked for explicitly, the samples are compared, and the changed one is found
     code, out, _ = _run(capsys, "verify", d / "run.tsa", "--against", d / "edited.csv", "--even-if-changed")
-    assert code == 1 and "volt: FAILED" in out and "not the file that was packed" in out
+    assert code == 1 and "volt: out of budget: 1 sample(s) differ from the original (lossless)" in out and "not the file that was packed" in out
 
 
 def test_verify_against_the_archives_own_export_fails(lab, capsys):
@@ -155,7 +155,7 @@ def test_verify_against_the_archives_own_export_fails(lab, capsys):
     code, out, _ = _run(capsys, "verify", d / "run.tsa", "--against", d / "back.csv")
     assert code == 1 and "not the file that was packed" in out
     code, out, _ = _run(capsys, "verify", d / "run.tsa", "--against", d / "run.csv")
-    assert code == 0 and "source: run.csv is the file that was packed" in out and "VERIFIED" in out
+    assert code == 0 and "source: run.csv is the file that was packed" in out and "All within budget:" in out
 
 
 def test_verify_a_table_without_time_column_uses_the_archive_rate(tmp_path, capsys):
@@ -163,10 +163,10 @@ def test_verify_a_table_without_time_column_uses_the_archive_rate(tmp_path, caps
     assert _run(capsys, "pack", tmp_path / "plain.csv", "-o", tmp_path / "plain.tsa", "--rate", RATE,
                 "--code-size", 0)[0] == 0
     code, out, err = _run(capsys, "verify", tmp_path / "plain.tsa", "--against", tmp_path / "plain.csv")
-    assert code == 0 and "VERIFIED: every sample" in out, err
+    assert code == 0 and "All within budget: every sample" in out, err
     code, out, err = _run(capsys, "verify", tmp_path / "plain.tsa", "--against", tmp_path / "plain.csv",
                           "--rate", RATE)
-    assert code == 0 and "VERIFIED: every sample" in out, err
+    assert code == 0 and "All within budget: every sample" in out, err
 
 
 # -- 3. CSV formatting and marking ---------------------------------------------------------------------

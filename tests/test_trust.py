@@ -49,7 +49,7 @@ def test_doubled_eps_in_the_manifest_fails_a_checksum_only_verify(arc, tmp_path,
         ch["summary"]["used_pct"] /= 2
     write_manifest(a, m)
     code, out, _ = _cli(capsys, "verify", a)
-    assert code == 1 and "VERIFIED" not in out and "does not match windows.parquet" in out
+    assert code == 1 and "All within budget" not in out and "does not match windows.parquet" in out
     code, out, err = _cli(capsys, "report", a)
     assert code == 2 and "within budget" not in out and "manifest.json does not match" in err
     code, _, err = _cli(capsys, "unpack", a, "-o", tmp_path / "x.npy")

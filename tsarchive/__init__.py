@@ -5,8 +5,8 @@ short integer code; residuals on a 2ε grid keep every sample within the
 budget ε set per channel.  Archives are Parquet + zstd.
 
     >>> import tsarchive                                   # doctest: +SKIP
-    >>> tsarchive.pack("run.csv", "run.tsa", budget="0.1%")  # doctest: +SKIP
-    >>> arc = tsarchive.open("run.tsa")                    # doctest: +SKIP
+    >>> tsarchive.pack("run.csv", "run.tsarchive", budget="0.1%")  # doctest: +SKIP
+    >>> arc = tsarchive.open("run.tsarchive")                    # doctest: +SKIP
     >>> arc.read("temp", start=60, end=120)                # doctest: +SKIP
 
 Importing this package loads numpy and pyarrow only; torch is imported

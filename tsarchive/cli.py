@@ -37,11 +37,12 @@ class _Parser(argparse.ArgumentParser):
 def _parser() -> argparse.ArgumentParser:
     p = _Parser(prog="tsarchive", description="Error-bounded archives of data-logger recordings. "
                 "With no command, opens the terminal app in the current folder.", epilog=CAUTION)
+    p.add_argument("--version", action="store_true", help="print tsarchive's version and stop")
     sub = p.add_subparsers(dest="command", parser_class=_Parser)
 
     pk = sub.add_parser("pack", help="pack a recording into an archive", epilog=CAUTION)
     pk.add_argument("source", help="recording: .csv/.txt/.tsv/.dat, .parquet, .wav, .edf/.bdf, or .npy (needs --rate)")
-    pk.add_argument("-o", "--output", metavar="ARCHIVE", help="archive folder to write (e.g. run.tsa)")
+    pk.add_argument("-o", "--output", metavar="ARCHIVE", help="archive folder to write (e.g. run.tsarchive)")
     pk.add_argument("--budget", default=DEFAULT_SPEC, metavar="SPEC",
                     help=f"error budget per channel: 0.02 (absolute, channel units), 0.1%% (of the channel's "
                          f"range), lossless, or per channel temp=0.05,accel=0.1%% (default: {DEFAULT_SPEC.replace('%', '%%')})")
@@ -63,10 +64,9 @@ def _parser() -> argparse.ArgumentParser:
     up.add_argument("archive")
     up.add_argument("-o", "--output", required=True, metavar="OUT", help="output file: .npy, .csv or .parquet")
     up.add_argument("--channels", metavar="A,B", help="comma-separated channel names (default: all)")
-    up.add_argument("--start", metavar="T", help="first time to include: seconds from the first sample, or "
-                    "ISO 8601 (on the logged times; gaps count)")
-    up.add_argument("--end", metavar="T", help="time to stop before (excluded): seconds from the first sample, "
-                    "or ISO 8601")
+    up.add_argument("--start", metavar="T", help="first time to include, from the first sample: 12.5, 90s, "
+                    "2h1min, 3d, 1:02:03, or ISO 8601 (on the logged times; gaps count)")
+    up.add_argument("--end", metavar="T", help="time to stop before (excluded), in the same forms as --start")
     up.add_argument("--force", action="store_true", help="replace an existing file (never the original recording)")
     up.add_argument("--replace-original", metavar="SHA256", dest="replace_original",
                     help="allow replacing the original recording the archive was packed from: give the first 12 "
@@ -124,6 +124,10 @@ def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else list(argv)
     try:
         args = _parser().parse_args(argv)
+        if args.version:
+            from . import __version__
+            print(f"tsarchive {__version__}")
+            return 0
         if args.command is None:
             return _app(Path("."))
         code = {"pack": _pack, "unpack": _unpack, "verify": _verify, "report": _report, "demo": _demo,

@@ -9,6 +9,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from .errors import BadInput
+from .names import ARCHIVE_SUFFIX
 
 #: Rates of sample streams whose format does not carry one (.npy).
 RATES = {"shaker_run.npy": 2000.0}
@@ -34,7 +35,7 @@ def run_demo(out_dir: str | Path, samples: str | Path | None = None, budget: str
     out.mkdir(parents=True, exist_ok=True)
     results = []
     for src in sorted(p for p in src_dir.iterdir() if p.suffix.lower() in SUPPORTED):
-        target = out / (src.stem + ".tsa")
+        target = out / (src.stem + ARCHIVE_SUFFIX)
         echo(f"\n== {src.name} -> {target}")
         res = pack(src, target, budget, rate=RATES.get(src.name), force=True)
         echo(pack_table(res))

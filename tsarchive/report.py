@@ -23,6 +23,8 @@ def _table(header: list[str], rows: list[list[str]]) -> str:
 
 
 HEADER = ["channel", "unit", "budget", "eps", "worst error", "% used", "ratio", "bits/sample"]
+USED_NOTE = ("% used: the worst error as a share of the budget; near 100 is the aim (the whole budget spent on "
+             "saving space, never exceeded)")
 
 
 def pack_table(res: PackResult) -> str:
@@ -30,7 +32,7 @@ def pack_table(res: PackResult) -> str:
              f"{c.ratio:.2f}", f"{c.bits_per_sample:.3f}"] for c in res.channels]
     state = "all samples within budget" if res.within_budget else "OVER BUDGET"
     return "\n".join([
-        _table(HEADER, rows), "",
+        _table(HEADER, rows), USED_NOTE, "",
         f"archive {res.archive}: {res.archive_bytes} bytes; raw samples {res.raw_bytes} bytes; "
         f"ratio {res.ratio:.2f}; source file {res.source_bytes} bytes; {res.elapsed_s:.1f} s; {state} "
         f"(checked by decoding the archive)"])
@@ -80,24 +82,48 @@ def archive_table(arc, d: dict | None = None) -> str:
         f"source {src.get('name', '?')}: {src.get('bytes', 0)} bytes, sha256 {src.get('sha256', '')[:16]}…",
         f"{len(rows)} channel(s)" + (f" at {first.rate:g} Hz, {first.duration:g} s" if first else ""),
         arc.timeline.describe(), *(f"logger note: {s}" for s in arc.notes),
-        "", _table(HEADER, rows), *[f"note: {c['name']}: {c['note']}" for c in d["channels"] if c["note"]], "",
+        "", _table(HEADER, rows), USED_NOTE, *[f"note: {c['name']}: {c['note']}" for c in d["channels"] if c["note"]], "",
         *[f"problem: {p}" for p in d["problems"]],
         f"ratio {d['ratio']:.2f} ({d['raw_bytes']} raw bytes -> {d['archive_bytes']} archive bytes); "
         + {True: "within budget (member checksums match)", False: "OVER BUDGET",
            None: "DAMAGED: the errors above are not trustworthy; run tsarchive verify"}[d["within_budget"]]])
 
 
+#: First words of verify's last line: every sample compared and within budget (exit 0), checksums only
+#: (exit 0), something wrong (exit 1).
+VERIFY_PASSED, VERIFY_CHECKSUMS, VERIFY_FAILED = "All within budget:", "Checksums match:", "FAILED:"
+
+
+def _channel_line(c) -> str:
+    """One channel's outcome in words, with its figures."""
+    bound = "lossless" if c.eps == 0 else f"±{_fmt(c.eps)}"
+    if c.worst_error is None:  # nothing compared: only the stored checksums speak
+        state = (f"checksum differs in window(s) {', '.join(map(str, c.bad_checksums))}" if c.bad_checksums
+                 else "checksums match (samples not compared)")
+        return f"{c.name}: {state}"
+    share = f", {100 * c.worst_error / c.eps:.1f} % of the budget" if c.eps > 0 else ""
+    if c.n_bad:
+        beyond = "differ from the original (lossless)" if c.eps == 0 else f"beyond {bound}"
+        state = (f"out of budget: {c.n_bad} sample(s) {beyond} in window(s) "
+                 f"{', '.join(map(str, c.bad_windows))}; worst error {_fmt(c.worst_error)}")
+    else:
+        state = f"within budget: worst error {_fmt(c.worst_error)} of {bound}{share}"
+    if c.bad_checksums:
+        state += f"; checksum differs in window(s) {', '.join(map(str, c.bad_checksums))}"
+    return f"{c.name}: {state}"
+
+
 def verify_text(rep: VerifyReport) -> str:
+    """``verify``'s report: the source check, one line per channel, problems, and the outcome."""
     lines = [f"source: {rep.source_check}"] if rep.source_check else []
-    for c in rep.channels:
-        state = "ok" if not (c.n_bad or c.bad_checksums) else "FAILED"
-        err = "" if c.worst_error is None else f", worst error {_fmt(c.worst_error)} of ±{_fmt(c.eps)}"
-        lines.append(f"{c.name}: {state}{err}")
+    lines.extend(_channel_line(c) for c in rep.channels)
     lines.extend(f"problem: {p}" for p in rep.problems)
-    what = "every sample within budget and every checksum matches" if rep.compared else "every checksum matches"
-    if rep.ok and rep.compared and rep.source_same is False:
-        what += " (but the compared file is not the one that was packed)"
-    lines.append(("VERIFIED: " + what) if rep.ok else "FAILED: see the problems above")
-    if not rep.compared and rep.ok:
-        lines.append("(checksums only; pass --against SOURCE to compare every sample with the original)")
+    if not rep.ok:
+        lines.append(f"{VERIFY_FAILED} see the problems above")
+    elif rep.compared:
+        same = " (but the compared file is not the one that was packed)" if rep.source_same is False else ""
+        lines.append(f"{VERIFY_PASSED} every sample within its budget and every checksum matches{same}")
+    else:
+        lines.append(f"{VERIFY_CHECKSUMS} every window decodes to its stored checksum")
+        lines.append("(samples not compared; pass --against SOURCE to compare every sample with the original)")
     return "\n".join(lines)

@@ -1,6 +1,7 @@
 """The tsarchive terminal app (Textual). Textual is imported only under this package.
 
-``run_app(path)`` starts it on a folder, an archive (``NAME.tsa``) or a recording file.
+``run_app(path)`` starts it on a folder, an archive (``NAME.tsarchive``, or an older ``NAME.tsa``)
+or a recording file.
 """
 
 from __future__ import annotations
@@ -20,7 +21,7 @@ def has_terminal() -> bool:
 
 
 def run_app(path: str | Path | None = None) -> None:
-    """Run the app until the user quits (Ctrl+Q). ``path`` defaults to the current folder.
+    """Run the app until the user quits (q or Ctrl+Q). ``path`` defaults to the current folder.
 
     Raises :class:`BadInput` without a terminal on stdin and stdout (a pipe, a
     cron job, a CI log), where the app could neither read keys nor draw.

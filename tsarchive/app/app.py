@@ -1,10 +1,11 @@
-"""The tsarchive terminal app: Shelf -> Pack bench / Ledger -> Strip -> Finder, Export.
+"""The tsarchive terminal app: Folder -> Packing / Contents -> Strip -> Shortlist, Export.
 
 The App gets its one input, a path, through its constructor:
 
-* a folder: the Shelf lists it;
-* an archive (``NAME.tsa``): the Shelf lists its folder and the Ledger opens on it;
-* a recording file: the Shelf lists its folder with that file selected.
+* a folder: the Folder screen lists it;
+* an archive (``NAME.tsarchive``, or an older ``NAME.tsa``): the Folder screen lists its folder
+  and the Contents screen opens on it;
+* a recording file: the Folder screen lists its folder with that file selected.
 
 Session state kept here: the verification state of each archive checked in this
 session (:attr:`TsArchiveApp.checks`). The app drives the library only through
@@ -22,10 +23,10 @@ from textual.screen import Screen
 from textual.theme import Theme
 
 from tsarchive.app.locate import is_archive_path
-from tsarchive.app.screens.shelf import ShelfScreen
+from tsarchive.app.screens.folder import FolderScreen
 
-WORKBENCH_THEME = Theme(
-    name="tsarchive-workbench",
+LAB_THEME = Theme(
+    name="tsarchive-lab",
     primary="#4F8A8B",
     secondary="#9C7A54",
     accent="#D9B44A",
@@ -66,11 +67,11 @@ class TsArchiveApp(App):
         """Verification state of archives checked this session: ``verified ok`` or ``failed``."""
 
     def get_default_screen(self) -> Screen:
-        return ShelfScreen(self.folder)
+        return FolderScreen(self.folder)
 
     def on_mount(self) -> None:
-        self.register_theme(WORKBENCH_THEME)
-        self.theme = WORKBENCH_THEME.name
+        self.register_theme(LAB_THEME)
+        self.theme = LAB_THEME.name
         if not self.start_path.exists():
             self.notify(f"{self.start_path} does not exist; showing {self.folder} instead",
                         severity="error", timeout=8)
@@ -80,9 +81,9 @@ class TsArchiveApp(App):
             self.call_after_refresh(self._select_start_file)
 
     def _select_start_file(self) -> None:
-        shelf = self.screen
-        if isinstance(shelf, ShelfScreen):
-            shelf.select_path(self.start_path)
+        folder_screen = self.screen
+        if isinstance(folder_screen, FolderScreen):
+            folder_screen.select_path(self.start_path)
 
     def notify(self, message: str, *, title: str = "", severity="information", timeout: float | None = None,
                markup: bool = False) -> None:
@@ -91,16 +92,16 @@ class TsArchiveApp(App):
 
     # -- navigation used by the screens -------------------------------------
     def open_archive(self, path: Path) -> None:
-        """Show ``path`` in the Ledger."""
-        from tsarchive.app.screens.ledger import LedgerScreen
+        """Show ``path`` in the Contents screen."""
+        from tsarchive.app.screens.contents import ContentsScreen
 
-        self.push_screen(LedgerScreen(Path(path)))
+        self.push_screen(ContentsScreen(Path(path)))
 
-    def open_bench(self, source: Path) -> None:
-        """Show ``source`` on the Pack bench."""
-        from tsarchive.app.screens.bench import PackBenchScreen
+    def open_packing(self, source: Path) -> None:
+        """Show ``source`` on the Packing screen."""
+        from tsarchive.app.screens.packing import PackingScreen
 
-        self.push_screen(PackBenchScreen(Path(source)))
+        self.push_screen(PackingScreen(Path(source)))
 
     def action_keys(self) -> None:
         from tsarchive.app.screens.keys import KeysScreen

@@ -1,6 +1,6 @@
 """One lock per open archive, so that worker threads take turns reading it.
 
-The app reads an archive from several workers (plot stretches, Finder rankings,
+The app reads an archive from several workers (plot stretches, Shortlist rankings,
 verification, exports). An ``Archive`` keeps one Parquet reader per member file and
 is not documented as safe for concurrent use, so every worker holds the archive's
 lock while it calls the library. Work on different archives still runs in parallel.

@@ -1,9 +1,9 @@
 """Finding things on disk and reading what the user typed (no Textual, no codec logic).
 
 * :func:`scan_folder` lists the recordings and archives of one folder (cheap: names
-  and sizes only; details are loaded later by the Shelf's worker).
+  and sizes only; details are loaded later by the Folder screen's worker).
 * :func:`find_source` looks for an archive's original recording next to it.
-* :func:`parse_seconds`, :func:`parse_optional_int` and :func:`combine_budgets`
+* :func:`read_time`, :func:`parse_optional_int` and :func:`combine_budgets`
   turn text fields into the arguments the library expects, raising
   :class:`tsarchive.errors.BadInput` with a one-line message when they cannot.
 """
@@ -11,21 +11,20 @@
 from __future__ import annotations
 
 import os
-import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterable, Sequence
 
 from tsarchive.errors import BadInput
+from tsarchive.names import ARCHIVE_SUFFIX, ARCHIVE_SUFFIXES
 
 RECORDING_SUFFIXES = (".npy", ".csv", ".parquet")
-ARCHIVE_SUFFIX = ".tsa"
 EXPORT_SUFFIXES = (".csv", ".parquet", ".npy")
 
 
 @dataclass(frozen=True)
-class ShelfEntry:
-    """One row of the Shelf: a recording file or an archive directory."""
+class FolderEntry:
+    """One row of the Folder screen: a recording file or an archive directory."""
 
     path: Path
     kind: str  # "recording" or "archive"
@@ -51,10 +50,11 @@ def tree_size(path: Path) -> int:
 
 
 def is_archive_path(path: Path) -> bool:
-    return path.suffix == ARCHIVE_SUFFIX and path.is_dir()
+    """A folder whose name ends in one of :data:`ARCHIVE_SUFFIXES` (``.tsarchive``, or the older ``.tsa``)."""
+    return path.suffix in ARCHIVE_SUFFIXES and path.is_dir()
 
 
-def scan_folder(folder: Path) -> list[ShelfEntry]:
+def scan_folder(folder: Path) -> list[FolderEntry]:
     """Archives first, then recordings, each group sorted by name.
 
     Raises :class:`BadInput` when ``folder`` is not a readable directory.
@@ -63,8 +63,8 @@ def scan_folder(folder: Path) -> list[ShelfEntry]:
         children = sorted(folder.iterdir(), key=lambda p: p.name.lower())
     except OSError as exc:
         raise BadInput(f"cannot list folder {folder}: {exc.strerror or exc}; pick a readable folder") from exc
-    archives = [ShelfEntry(p, "archive", 0) for p in children if is_archive_path(p)]
-    recordings = [ShelfEntry(p, "recording", p.stat().st_size) for p in children
+    archives = [FolderEntry(p, "archive", 0) for p in children if is_archive_path(p)]
+    recordings = [FolderEntry(p, "recording", p.stat().st_size) for p in children
                   if p.is_file() and p.suffix.lower() in RECORDING_SUFFIXES]
     return archives + recordings
 
@@ -84,25 +84,6 @@ def find_source(archive_path: Path, source_name: str | None, folders: Iterable[P
         if candidate.is_file():
             return candidate
     return None
-
-
-_CLOCK = re.compile(r"^\s*(?:(\d+):)?(?:(\d+):)?(\d+(?:\.\d*)?)\s*s?\s*$")
-
-
-def parse_seconds(text: str, what: str = "time") -> float | None:
-    """``""`` -> None; ``"75"``, ``"75.5 s"``, ``"1:15.5"``, ``"1:01:15"`` -> seconds."""
-    text = text.strip()
-    if not text:
-        return None
-    m = _CLOCK.match(text)
-    if not m:
-        raise BadInput(f"{what} {text!r} is not a time; type seconds (75.5) or minutes:seconds (1:15.5)")
-    a, b, sec = m.groups()
-    if a is not None and b is not None:
-        return int(a) * 3600 + int(b) * 60 + float(sec)
-    if a is not None:
-        return int(a) * 60 + float(sec)
-    return float(sec)
 
 
 def parse_optional_int(text: str, what: str, minimum: int = 1) -> int | None:
@@ -162,22 +143,23 @@ def export_target(text: str, folder: Path) -> Path:
 def read_time(text: str, start=None, what: str = "time") -> float | None:
     """A typed time in seconds from the recording start, or None for an empty field.
 
-    ``minutes:seconds`` (as the app displays times, e.g. ``1:15.5``) is read here; every
-    other form (``12.5``, ``90s``, ``5min``, ISO 8601 datetimes) by the library's
-    :func:`tsarchive.timespec.parse_time`, as on the command line.
+    Read by the library's :func:`tsarchive.timespec.parse_time`, the parser of the command
+    line's ``--start``/``--end``: both accept the same forms (``12.5``, ``90s``, ``2h1min``,
+    ``3d``, ``1:02:03``, ``1:15.5``, ISO 8601 datetimes).
     """
     from tsarchive.timespec import parse_time
 
     text = text.strip()
     if not text:
         return None
-    if _CLOCK.match(text) and ":" in text:
-        return parse_seconds(text, what)
-    return parse_time(text, start)
+    try:
+        return parse_time(text, start)
+    except BadInput as exc:
+        raise BadInput(f"{what}: {exc}") from None
 
 
 def free_archive_name(folder: Path, stem: str) -> str:
-    """``stem.tsa``, or ``stem-2.tsa``, ``stem-3.tsa``... whichever is not taken in ``folder``."""
+    """``stem.tsarchive``, or ``stem-2.tsarchive``, ``stem-3.tsarchive``... whichever is not taken in ``folder``."""
     name = stem + ARCHIVE_SUFFIX
     n = 2
     while (folder / name).exists():

@@ -25,8 +25,8 @@ class WorkFailed(Message):
 
 
 @dataclass
-class ShelfDetailsLoaded(Message):
-    """Details of one Shelf row, read by ``inspect_source`` or ``open``.
+class FolderDetailsLoaded(Message):
+    """Details of one row of the Folder screen, read by ``inspect_source`` or ``open``.
 
     ``problem`` is the one-line error when the file could not be read (other fields None).
     """
@@ -41,7 +41,7 @@ class ShelfDetailsLoaded(Message):
 
 @dataclass
 class RecordingInspected(Message):
-    """The Pack bench's source header (a :class:`tsarchive.Recording`), or None and the
+    """The Packing screen's source header (a :class:`tsarchive.Recording`), or None and the
     one-line ``problem`` when the file could not be read as it stands (e.g. a .npy needs a rate)."""
 
     recording: Any
@@ -128,8 +128,8 @@ class StretchLoaded(Message):
 
 
 @dataclass
-class FinderFilled(Message):
-    """Ranked rows for the Finder: ``(window index, figure)`` pairs, best first."""
+class ShortlistFilled(Message):
+    """Ranked rows for the Shortlist: ``(window index, figure)`` pairs, best first."""
 
     rows: list[tuple[int, float]]
 

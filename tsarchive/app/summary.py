@@ -11,6 +11,8 @@ from dataclasses import dataclass
 import numpy as np
 
 UNVERIFIED, VERIFIED_OK, FAILED = "unverified", "verified ok", "failed"
+USED_HELP = ("Used: the worst error as a share of the budget. Near 100 % is the aim: the whole budget is "
+             "spent on saving space, and never exceeded")
 
 
 def archive_duration(channels) -> float | None:
@@ -30,7 +32,7 @@ def window_at(starts: np.ndarray, second: float) -> int:
 
 @dataclass(frozen=True)
 class CheckLines:
-    """What the Ledger's check panel says about a :class:`VerifyReport`."""
+    """What the Contents screen's check panel says about a :class:`VerifyReport`."""
 
     state: str
     headline: str

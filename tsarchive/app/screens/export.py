@@ -1,6 +1,6 @@
 """Export: write a time range of an archive to CSV, Parquet or NPY (``Archive.export``).
 
-Opened from the Ledger (whole recording, all channels) or from the Strip (the range
+Opened from the Contents screen (whole recording, all channels) or from the Strip (the range
 on screen, that channel). Every field can be retyped; the file format follows the
 chosen button and the name's ending. The modal returns the written path (or None).
 
@@ -38,6 +38,11 @@ def default_name(stem: str, start: float | None, end: float | None, suffix: str 
     return f"{stem}_{start or 0:g}-{last}s{suffix}"
 
 
+def format_label(suffix: str, chosen: bool) -> str:
+    """A format button's label; the chosen one says so in words (its dot is drawn in colour alone)."""
+    return f"{suffix[1:].upper()} (chosen)" if chosen else suffix[1:].upper()
+
+
 class ExportScreen(Notices, ModalScreen[Path | None]):
     """Range, channels, format and file name for one export of ``archive``."""
 
@@ -63,7 +68,7 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
         with Vertical(id="export-box"):
             yield Static(f"Export · {self.archive.path.name}", classes="title", markup=False)
             yield Static(f"Recording length {fmt.clock(max(c.duration for c in self.archive.channels))}; "
-                         "times in seconds (12.5), minutes:seconds (1:02) or with a unit (90s, 5min). "
+                         "times from the start: 12.5, 1:02, 1:02:03, 90s, 2h1min or 3d. "
                          "Leave a time empty for the start or the end.", classes="note", markup=False)
             with Horizontal(classes="field-row"):
                 yield Label("from", classes="field-label")
@@ -77,7 +82,7 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
                 yield Input(",".join(self.channels), placeholder="all channels", id="export-channels", compact=True)
             with RadioSet(id="export-format", compact=True):
                 for i, suffix in enumerate(FORMATS):
-                    yield RadioButton(suffix[1:].upper(), value=i == 0, id=f"format-{suffix[1:]}")
+                    yield RadioButton(format_label(suffix, i == 0), value=i == 0, id=f"format-{suffix[1:]}")
             with Horizontal(classes="field-row"):
                 yield Label("file", classes="field-label")
                 yield Input(default_name(stem, self.start, self.end), id="export-name", compact=True)
@@ -113,6 +118,8 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
             return None, None
 
     def on_radio_set_changed(self, event: RadioSet.Changed) -> None:
+        for i, suffix in enumerate(FORMATS):
+            self.query_one(f"#format-{suffix[1:]}", RadioButton).label = format_label(suffix, i == event.index)
         name = self.query_one("#export-name", Input)
         path = Path(name.value or self.archive.path.stem)
         stem = path.name[: -len(path.suffix)] if path.suffix.lower() in FORMATS else path.name

@@ -54,6 +54,10 @@ class StripScreen(Notices, Screen):
     BINDINGS = [
         Binding("n", "step(1)", "Next", tooltip="next window"),
         Binding("b", "step(-1)", "Prev", tooltip="previous window"),
+        Binding("down,right,pagedown", "step(1)", "Next", show=False, priority=True, key_display="↓ / → / PgDn",
+                tooltip="next window"),
+        Binding("up,left,pageup", "step(-1)", "Prev", show=False, priority=True, key_display="↑ / ← / PgUp",
+                tooltip="previous window"),
         Binding("plus,equals_sign", "zoom(0.5)", "Zoom", key_display="+", tooltip="zoom in (half the span)"),
         Binding("minus", "zoom(2)", "Wider", key_display="-", tooltip="zoom out (twice the span)"),
         Binding("left_square_bracket", "pan(-1)", "Earlier", key_display="[", show=False,
@@ -62,10 +66,11 @@ class StripScreen(Notices, Screen):
                 tooltip="pan on by half the view"),
         Binding("t", "jump", "Time", show=False, tooltip="type a time to jump to"),
         Binding("w", "worst", "Worst", tooltip="go to the window with the largest error"),
-        Binding("u", "finder('unusual')", "Unusual", tooltip="Finder: windows ranked by outlier score"),
-        Binding("l", "finder('alike')", "Alike", tooltip="Finder: windows whose codes look like this one's"),
+        Binding("u", "shortlist('unusual')", "Unusual", tooltip="Shortlist: windows ranked by outlier score"),
+        Binding("l", "shortlist('alike')", "Alike", tooltip="Shortlist: windows whose codes look like this one's"),
         Binding("e", "export", "Export", tooltip="export the range on screen"),
-        Binding("escape", "back", "Back", tooltip="back to the Ledger"),
+        Binding("escape", "back", "Back", tooltip="back to the Contents screen"),
+        Binding("q", "app.quit", "Quit", tooltip="quit tsarchive (also Ctrl+Q)"),
     ]
 
     current: reactive[int] = reactive(-1, init=False)
@@ -90,7 +95,7 @@ class StripScreen(Notices, Screen):
         with Horizontal(id="strip-body"):
             with Vertical(id="strip-side"):
                 yield DataTable(id="strip-windows", cursor_type="row", zebra_stripes=True)
-                yield Input(placeholder="t: jump to time (12.5, 1:02, 90s)", id="strip-jump", compact=True)
+                yield Input(placeholder="t: jump to (12.5, 1:02:03, 2h1min)", id="strip-jump", compact=True)
             with Vertical(id="strip-main"):
                 yield StripPlot(id="strip-plot")
                 yield Static("loading windows…", id="strip-info", markup=False)
@@ -247,12 +252,12 @@ class StripScreen(Notices, Screen):
         if self.table is not None and len(self.table.index):
             self.current = int(np.argmax(self.table.worst_error))
 
-    def action_finder(self, mode: str) -> None:
+    def action_shortlist(self, mode: str) -> None:
         if self.table is None or not len(self.table.index):
             return
-        from tsarchive.app.screens.finder import FinderScreen
+        from tsarchive.app.screens.shortlist import ShortlistScreen
 
-        self.app.push_screen(FinderScreen(self.archive, self.meta, self.table, mode, self.current),
+        self.app.push_screen(ShortlistScreen(self.archive, self.meta, self.table, mode, self.current),
                              callback=self.jump_to_window)
 
     def jump_to_window(self, window: int | None) -> None:
@@ -269,6 +274,12 @@ class StripScreen(Notices, Screen):
         a, b = self.view
         self.app.push_screen(ExportScreen(self.archive, channels=(self.meta.name,),
                                           start=a / self.meta.rate, end=b / self.meta.rate))
+
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        """Arrow and page keys step windows, except while the jump field is being typed in."""
+        if action == "step" and isinstance(self.focused, Input):
+            return False
+        return True
 
     def action_back(self) -> None:
         if self.focused is self.query_one("#strip-jump", Input):

@@ -1,4 +1,4 @@
-"""One channel on the Pack bench: its name, unit and resolution, and a budget field."""
+"""One channel on the Packing screen: its name, unit and resolution, and a budget field."""
 
 from __future__ import annotations
 

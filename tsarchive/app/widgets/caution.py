@@ -1,4 +1,4 @@
-"""The caution shown on every archive's Ledger (it cannot be dismissed)."""
+"""The caution shown on every archive's Contents screen (it cannot be dismissed)."""
 
 from __future__ import annotations
 

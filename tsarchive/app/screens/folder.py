@@ -1,4 +1,4 @@
-"""The Shelf: the recordings and archives of one folder (the app's start screen).
+"""The Folder screen: the recordings and archives of one folder (the app's start screen).
 
 Names and sizes are listed at once; durations, channel counts and ratios are read
 by a worker one file at a time (``tsarchive.inspect_source`` / ``tsarchive.open``)
@@ -18,8 +18,8 @@ from textual.widgets import DataTable, Footer, Static
 
 import tsarchive
 from tsarchive.app import fmt
-from tsarchive.app.locate import ShelfEntry, scan_folder, tree_size
-from tsarchive.app.messages import ShelfDetailsLoaded, WorkFailed
+from tsarchive.app.locate import FolderEntry, scan_folder, tree_size
+from tsarchive.app.messages import FolderDetailsLoaded, WorkFailed
 from tsarchive.app.screens.base import Notices
 from tsarchive.app.widgets.pick_table import PickTable
 from tsarchive.app.summary import UNVERIFIED, archive_duration
@@ -33,32 +33,33 @@ def _count(n: int, noun: str) -> str:
     return f"{n} {noun}" + ("" if n == 1 else "s")
 
 
-class ShelfScreen(Notices, Screen):
-    """Lists ``folder``; Enter packs a recording or opens an archive in the Ledger."""
+class FolderScreen(Notices, Screen):
+    """Lists ``folder``; Enter packs a recording or opens an archive in the Contents screen."""
 
     BINDINGS = [
         Binding("p", "pack", "Pack"),
         Binding("r", "rescan", "Rescan"),
+        Binding("q", "app.quit", "Quit", tooltip="quit tsarchive (also Ctrl+Q)"),
     ]
 
     def __init__(self, folder: Path) -> None:
-        super().__init__(id="shelf")
+        super().__init__(id="folder")
         self.folder = Path(folder)
-        self.entries: list[ShelfEntry] = []
-        self.details: dict[Path, ShelfDetailsLoaded] = {}
+        self.entries: list[FolderEntry] = []
+        self.details: dict[Path, FolderDetailsLoaded] = {}
         self.pending: Path | None = None
 
     def compose(self) -> ComposeResult:
-        yield Static("", id="shelf-title", classes="title", markup=False)
-        yield PickTable(id="shelf-table")
-        yield Static("", id="shelf-note", classes="note", markup=False)
+        yield Static("", id="folder-title", classes="title", markup=False)
+        yield PickTable(id="folder-table")
+        yield Static("", id="folder-note", classes="note", markup=False)
         yield Footer()
 
     def on_mount(self) -> None:
         self.query_one(DataTable).add_columns(*COLUMNS)
 
     def on_screen_resume(self) -> None:
-        """Rescan whenever the Shelf comes back (a pack may have added an archive)."""
+        """Rescan whenever the Folder screen comes back (a pack may have added an archive)."""
         self.rescan()
 
     # -- listing ---------------------------------------------------------
@@ -69,30 +70,34 @@ class ShelfScreen(Notices, Screen):
         except TsArchiveError as exc:
             self.notify(str(exc), severity="error")
             found = []
-        found = [ShelfEntry(e.path, e.kind, tree_size(e.path)) if e.is_archive else e for e in found]
+        found = [FolderEntry(e.path, e.kind, tree_size(e.path)) if e.is_archive else e for e in found]
         old_sizes = {e.path: e.size for e in self.entries}
         for e in found:
             if old_sizes.get(e.path) != e.size:
                 self.details.pop(e.path, None)
-        self.entries = found
         table = self.query_one(DataTable)
         keep = table.cursor_row
+        chosen = self.selected.path if self.selected is not None else None
+        self.entries = found
         table.clear()
         for e in found:
             table.add_row(*self._cells(e), key=str(e.path))
-        if found:
+        paths = [e.path for e in found]
+        if chosen in paths:  # the same file stays selected, wherever the rescan put it
+            table.move_cursor(row=paths.index(chosen))
+        elif found:
             table.move_cursor(row=min(keep, len(found) - 1))
         if self.pending is not None:
             self.select_path(self.pending)
         n_arc = sum(e.is_archive for e in found)
-        self.query_one("#shelf-title", Static).update(
-            f"Shelf · {self.folder} — {_count(len(found) - n_arc, 'recording')}, {_count(n_arc, 'archive')}")
+        self.query_one("#folder-title", Static).update(
+            f"Folder · {self.folder} — {_count(len(found) - n_arc, 'recording')}, {_count(n_arc, 'archive')}")
         self._update_note()
         missing = [e for e in found if e.path not in self.details]
         if missing:
             self.load_details(missing)
 
-    def _cells(self, e: ShelfEntry) -> tuple[str, ...]:
+    def _cells(self, e: FolderEntry) -> tuple[str, ...]:
         d = self.details.get(e.path)
         if e.is_archive:
             check = self.app.checks.get(e.path, UNVERIFIED)  # type: ignore[attr-defined]
@@ -106,8 +111,8 @@ class ShelfScreen(Notices, Screen):
         return (e.path.name, e.kind, fmt.size(e.size), fmt.duration(d.duration), n,
                 fmt.ratio(d.ratio) if e.is_archive else "—", check)
 
-    @work(thread=True, exclusive=True, group="shelf-details", exit_on_error=False)
-    def load_details(self, entries: list[ShelfEntry]) -> None:
+    @work(thread=True, exclusive=True, group="folder-details", exit_on_error=False)
+    def load_details(self, entries: list[FolderEntry]) -> None:
         """Read each entry's header in a thread; post one message per entry."""
         from textual.worker import get_current_worker
 
@@ -119,20 +124,20 @@ class ShelfScreen(Notices, Screen):
                 if e.is_archive:
                     arc = tsarchive.open(e.path)
                     chans = arc.channels
-                    msg = ShelfDetailsLoaded(e.path, archive_duration(chans), len(chans),
+                    msg = FolderDetailsLoaded(e.path, archive_duration(chans), len(chans),
                                              chans[0].rate if chans else None, arc.ratio)
                 else:
                     rec = tsarchive.inspect_source(e.path)
-                    msg = ShelfDetailsLoaded(e.path, rec.duration, len(rec.channels), rec.rate)
+                    msg = FolderDetailsLoaded(e.path, rec.duration, len(rec.channels), rec.rate)
             except TsArchiveError as exc:
-                msg = ShelfDetailsLoaded(e.path, problem=str(exc))
+                msg = FolderDetailsLoaded(e.path, problem=str(exc))
             except OSError as exc:
-                msg = ShelfDetailsLoaded(e.path, problem=f"cannot read {e.path.name}: {exc.strerror or exc}")
+                msg = FolderDetailsLoaded(e.path, problem=f"cannot read {e.path.name}: {exc.strerror or exc}")
             except ValueError as exc:  # e.g. a malformed table the reader did not anticipate
-                msg = ShelfDetailsLoaded(e.path, problem=f"{e.path.name} cannot be read as a recording ({exc})")
+                msg = FolderDetailsLoaded(e.path, problem=f"{e.path.name} cannot be read as a recording ({exc})")
             self.post_message(msg)
 
-    def on_shelf_details_loaded(self, message: ShelfDetailsLoaded) -> None:
+    def on_folder_details_loaded(self, message: FolderDetailsLoaded) -> None:
         self.details[message.path] = message
         entry = next((e for e in self.entries if e.path == message.path), None)
         if entry is None:
@@ -144,7 +149,7 @@ class ShelfScreen(Notices, Screen):
 
     # -- selection ---------------------------------------------------------
     @property
-    def selected(self) -> ShelfEntry | None:
+    def selected(self) -> FolderEntry | None:
         table = self.query_one(DataTable)
         if not self.entries or table.cursor_row < 0:
             return None
@@ -167,14 +172,14 @@ class ShelfScreen(Notices, Screen):
         self.action_open_row()
 
     def _update_note(self) -> None:
-        note = self.query_one("#shelf-note", Static)
+        note = self.query_one("#folder-note", Static)
         e = self.selected
         if e is None:
-            note.update("Nothing to show here: put recordings (.npy, .csv, .parquet) or archives (.tsa) "
+            note.update("Nothing to show here: put recordings (.npy, .csv, .parquet) or archives (.tsarchive, .tsa) "
                         "in this folder, or start tsarchive in another one. Press r to look again.")
             return
         d = self.details.get(e.path)
-        what = "Enter opens it in the Ledger." if e.is_archive else "Enter or p takes it to the Pack bench."
+        what = "Enter opens it in the Contents screen." if e.is_archive else "Enter or p takes it to the Packing screen."
         line = f"{e.path.name}: {what}"
         if d is not None and d.problem:
             line += f"\n{d.problem}"
@@ -189,14 +194,14 @@ class ShelfScreen(Notices, Screen):
         if e.is_archive:
             self.app.open_archive(e.path)  # type: ignore[attr-defined]
         else:
-            self.app.open_bench(e.path)  # type: ignore[attr-defined]
+            self.app.open_packing(e.path)  # type: ignore[attr-defined]
 
     def action_pack(self) -> None:
         e = self.selected
         if e is None or e.is_archive:
             self.post_message(WorkFailed("pick a recording (.npy, .csv, .parquet) to pack", title="Pack"))
             return
-        self.app.open_bench(e.path)  # type: ignore[attr-defined]
+        self.app.open_packing(e.path)  # type: ignore[attr-defined]
 
     def action_rescan(self) -> None:
         self.details.clear()

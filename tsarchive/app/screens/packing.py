@@ -1,4 +1,4 @@
-"""The Pack bench: set budgets for one recording, pack it, see what each channel got.
+"""The Packing screen: set budgets for one recording, pack it, see what each channel got.
 
 The recording's header is read by ``tsarchive.inspect_source`` in a worker; packing runs
 ``tsarchive.pack`` in a thread worker that posts :class:`PackStep` for each
@@ -23,18 +23,24 @@ from textual.widgets import Button, Checkbox, DataTable, Footer, Input, Label, S
 
 import tsarchive
 from tsarchive.app import fmt
-from tsarchive.app.locate import (ARCHIVE_SUFFIX, combine_budgets, free_archive_name, parse_optional_float,
+from tsarchive.app.locate import (ARCHIVE_SUFFIX, ARCHIVE_SUFFIXES, combine_budgets, free_archive_name, parse_optional_float,
                                   parse_optional_int)
 from tsarchive.app.messages import PackDone, PackHalted, PackStep, RecordingInspected, WorkFailed
 from tsarchive.app.screens.base import Notices
 from tsarchive.app.widgets.budget_row import BudgetRow
 from tsarchive.app.widgets.stage_progress import StageProgress
+from tsarchive.app.summary import USED_HELP
 from tsarchive.budget import parse_budget
 from tsarchive.errors import BadInput, Cancelled, TsArchiveError
 
 SUMMARY_COLUMNS = ("Channel", "Budget", "Worst error", "Used", "Ratio", "Bits/sample")
 PROGRESS_EVERY_S = 0.1
 """Post at most one progress message per this many seconds within a stage (display only)."""
+
+
+def replace_label(on: bool) -> str:
+    """The 'replace' checkbox says its state in words (a tick drawn in colour alone vanishes under NO_COLOR)."""
+    return "replace: yes" if on else "replace: no"
 
 
 def _budget_ok(text: str) -> bool:
@@ -45,7 +51,7 @@ def _budget_ok(text: str) -> bool:
     return True
 
 
-class PackBenchScreen(Notices, Screen):
+class PackingScreen(Notices, Screen):
     """Budgets, settings, progress and the per-channel outcome of packing ``source``."""
 
     BINDINGS = [
@@ -57,7 +63,7 @@ class PackBenchScreen(Notices, Screen):
     running: reactive[bool] = reactive(False, init=False)
 
     def __init__(self, source: Path) -> None:
-        super().__init__(id="bench")
+        super().__init__(id="packing")
         self.source = Path(source)
         self.recording = None
         self.result = None
@@ -65,42 +71,42 @@ class PackBenchScreen(Notices, Screen):
         self._rate_shown = ""
 
     def compose(self) -> ComposeResult:
-        yield Static(f"Pack bench · {self.source.name}", id="bench-title", classes="title", markup=False)
-        with VerticalScroll(id="bench-body", can_focus=False):
-            yield Static("reading the recording's header…", id="bench-info", markup=False)
+        yield Static(f"Packing · {self.source.name}", id="packing-title", classes="title", markup=False)
+        with VerticalScroll(id="packing-body", can_focus=False):
+            yield Static("reading the recording's header…", id="packing-info", markup=False)
             yield Label("Error budget per channel: 0.02 (channel units), 0.1% (of range) or lossless",
                         classes="section", markup=False)
-            yield VerticalScroll(id="bench-budgets", can_focus=False)
+            yield VerticalScroll(id="packing-budgets", can_focus=False)
             with Horizontal(classes="field-row"):
                 yield Label("rate Hz", classes="field-label")
-                yield Input(placeholder="from file", id="bench-rate", compact=True, classes="short")
+                yield Input(placeholder="from file", id="packing-rate", compact=True, classes="short")
                 yield Label("window", classes="field-label")
-                yield Input(placeholder="auto", id="bench-window", compact=True, classes="short")
+                yield Input(placeholder="auto", id="packing-window", compact=True, classes="short")
                 yield Label("code size", classes="field-label")
-                yield Input(placeholder="auto", id="bench-code", compact=True, classes="short",
+                yield Input(placeholder="auto", id="packing-code", compact=True, classes="short",
                             tooltip="numbers per window code; 0 packs without the autoencoder")
                 yield Label("train s", classes="field-label")
-                yield Input(placeholder="60", id="bench-train", compact=True, classes="short",
+                yield Input(placeholder="60", id="packing-train", compact=True, classes="short",
                             tooltip="at most this many seconds of autoencoder training")
             with Horizontal(classes="field-row"):
                 yield Label("archive", classes="field-label")
-                yield Input(free_archive_name(self.source.parent, self.source.stem), id="bench-target", compact=True)
-                yield Checkbox("replace", id="bench-replace", compact=True)
-                yield Button("Start packing", id="bench-start", compact=True)
-            yield StageProgress(id="bench-progress")
-            yield DataTable(id="bench-summary", cursor_type="row")
-            yield Static("", id="bench-result", markup=False)
+                yield Input(free_archive_name(self.source.parent, self.source.stem), id="packing-target", compact=True)
+                yield Checkbox(replace_label(False), id="packing-replace", compact=True)
+                yield Button("Start packing", id="packing-start", compact=True)
+            yield StageProgress(id="packing-progress")
+            yield DataTable(id="packing-summary", cursor_type="row")
+            yield Static("", id="packing-result", markup=False)
         yield Footer()
 
     def on_mount(self) -> None:
-        self.query_one("#bench-progress").display = False
-        summary = self.query_one("#bench-summary", DataTable)
+        self.query_one("#packing-progress").display = False
+        summary = self.query_one("#packing-summary", DataTable)
         summary.add_columns(*SUMMARY_COLUMNS)
         summary.display = False
         self.inspect(None)
 
     # -- reading the header ------------------------------------------------
-    @work(thread=True, exclusive=True, group="bench-inspect", exit_on_error=False)
+    @work(thread=True, exclusive=True, group="packing-inspect", exit_on_error=False)
     def inspect(self, rate: float | None) -> None:
         try:
             rec = tsarchive.inspect_source(self.source, rate=rate)
@@ -112,19 +118,19 @@ class PackBenchScreen(Notices, Screen):
 
     def on_recording_inspected(self, message: RecordingInspected) -> None:
         if message.recording is None:
-            self.query_one("#bench-info", Static).update(
+            self.query_one("#packing-info", Static).update(
                 f"Cannot read it as it stands: {message.problem}\n"
                 "If it needs a sample rate, type it in 'rate Hz' and press Enter.")
-            self.query_one("#bench-rate", Input).focus()
+            self.query_one("#packing-rate", Input).focus()
             return
         rec = self.recording = message.recording
         start = f" · starts {rec.start:%Y-%m-%d %H:%M:%S}" if rec.start is not None else ""
-        self.query_one("#bench-info", Static).update(
+        self.query_one("#packing-info", Static).update(
             f"{fmt.rate(rec.rate)} · {rec.n_samples} samples · {fmt.duration(rec.duration)} · "
             f"{len(rec.channels)} channel{'' if len(rec.channels) == 1 else 's'}{start}")
         self._rate_shown = f"{rec.rate:g}"
-        self.query_one("#bench-rate", Input).value = self._rate_shown
-        box = self.query_one("#bench-budgets", VerticalScroll)
+        self.query_one("#packing-rate", Input).value = self._rate_shown
+        box = self.query_one("#packing-budgets", VerticalScroll)
         old = {row.channel.name: row.spec for row in box.query(BudgetRow)}
         box.remove_children()
         box.mount_all([BudgetRow(i, ch, spec=old.get(ch.name, "0.1%")) for i, ch in enumerate(rec.channels)])
@@ -138,7 +144,7 @@ class PackBenchScreen(Notices, Screen):
             fields[0].focus()
 
     def on_input_submitted(self, event: Input.Submitted) -> None:
-        if event.input.id == "bench-rate":
+        if event.input.id == "packing-rate":
             try:
                 rate = float(event.value) if event.value.strip() else None
             except ValueError:
@@ -158,27 +164,27 @@ class PackBenchScreen(Notices, Screen):
             if not _budget_ok(row.spec):
                 raise BadInput(f"budget {row.spec!r} for {row.channel.name} is not 0.02, 0.1% or lossless; fix it")
         budget = combine_budgets([r.channel.name for r in rows], [r.spec for r in rows])
-        rate_text = self.query_one("#bench-rate", Input).value.strip()
+        rate_text = self.query_one("#packing-rate", Input).value.strip()
         rate = None
         if rate_text and rate_text != self._rate_shown:
             try:
                 rate = float(rate_text)
             except ValueError as exc:
                 raise BadInput(f"rate {rate_text!r} is not a number; type samples per second") from exc
-        name = self.query_one("#bench-target", Input).value.strip() or self.source.stem
+        name = self.query_one("#packing-target", Input).value.strip() or self.source.stem
         target = Path(name).expanduser()
         if not target.is_absolute():
             target = self.source.parent / target
-        if target.suffix != ARCHIVE_SUFFIX:
+        if target.suffix not in ARCHIVE_SUFFIXES:  # a typed older .tsa name is kept as typed
             target = target.with_name(target.name + ARCHIVE_SUFFIX)
-        replace = self.query_one("#bench-replace", Checkbox).value
+        replace = self.query_one("#packing-replace", Checkbox).value
         if target.exists() and not replace:
             raise BadInput(f"{target.name} already exists; tick 'replace' or type another archive name")
         settings = dict(archive=target, budget=budget,
-                        window=parse_optional_int(self.query_one("#bench-window", Input).value, "window", 2),
-                        code_size=parse_optional_int(self.query_one("#bench-code", Input).value, "code size", 0),
+                        window=parse_optional_int(self.query_one("#packing-window", Input).value, "window", 2),
+                        code_size=parse_optional_int(self.query_one("#packing-code", Input).value, "code size", 0),
                         force=replace)
-        train = parse_optional_float(self.query_one("#bench-train", Input).value, "training time")
+        train = parse_optional_float(self.query_one("#packing-train", Input).value, "training time")
         if train is not None:
             settings["train_seconds"] = train
         # the header already read is the recording itself: hand it over instead of reading the file again
@@ -200,11 +206,15 @@ class PackBenchScreen(Notices, Screen):
         self.running = True
         self.run_pack(settings, self.cancel_event)
 
+    def on_checkbox_changed(self, event: Checkbox.Changed) -> None:
+        if event.checkbox.id == "packing-replace":
+            event.checkbox.label = replace_label(event.value)
+
     def on_button_pressed(self, event: Button.Pressed) -> None:
-        if event.button.id == "bench-start":
+        if event.button.id == "packing-start":
             self.action_start()
 
-    @work(thread=True, exclusive=True, group="bench-pack", exit_on_error=False)
+    @work(thread=True, exclusive=True, group="packing-pack", exit_on_error=False)
     def run_pack(self, settings: dict, cancel: threading.Event) -> None:
         last = {"stage": None, "at": 0.0}
 
@@ -227,22 +237,22 @@ class PackBenchScreen(Notices, Screen):
     def watch_running(self, running: bool) -> None:
         for field in self.query(Input).results(Input):
             field.disabled = running
-        self.query_one("#bench-start", Button).disabled = running
-        progress = self.query_one("#bench-progress", StageProgress)
+        self.query_one("#packing-start", Button).disabled = running
+        progress = self.query_one("#packing-progress", StageProgress)
         if running:
             progress.display = True
             progress.reset()
-            self.query_one("#bench-summary").display = False
-            self.query_one("#bench-result", Static).update("packing… Escape cancels (nothing is written then).")
+            self.query_one("#packing-summary").display = False
+            self.query_one("#packing-result", Static).update("packing… Escape cancels (nothing is written then).")
         self.refresh_bindings()
 
     def on_pack_step(self, message: PackStep) -> None:
-        self.query_one("#bench-progress", StageProgress).advance(message.progress)
+        self.query_one("#packing-progress", StageProgress).advance(message.progress)
 
     def on_pack_halted(self, message: PackHalted) -> None:
         self.running = False
-        self.query_one("#bench-progress", StageProgress).halt("cancelled" if message.cancelled else "failed")
-        self.query_one("#bench-result", Static).update(
+        self.query_one("#packing-progress", StageProgress).halt("cancelled" if message.cancelled else "failed")
+        self.query_one("#packing-result", Static).update(
             "Cancelled: no archive was written." if message.cancelled else f"Packing failed: {message.text}")
         if not message.cancelled:
             self.notify(message.text, title="Packing failed", severity="error", timeout=8)
@@ -250,8 +260,8 @@ class PackBenchScreen(Notices, Screen):
     def on_pack_done(self, message: PackDone) -> None:
         res = self.result = message.result
         self.running = False
-        self.query_one("#bench-progress", StageProgress).finish(f"done in {fmt.duration(res.elapsed_s)}")
-        table = self.query_one("#bench-summary", DataTable)
+        self.query_one("#packing-progress", StageProgress).finish(f"done in {fmt.duration(res.elapsed_s)}")
+        table = self.query_one("#packing-summary", DataTable)
         table.clear()
         for ch in res.channels:
             unit = f" {ch.unit}" if ch.unit else ""
@@ -261,11 +271,11 @@ class PackBenchScreen(Notices, Screen):
         table.display = True
         within = all(ch.worst_error <= ch.eps for ch in res.channels)
         self.app.checks.pop(Path(res.archive), None)  # type: ignore[attr-defined]
-        self.query_one("#bench-result", Static).update(
+        self.query_one("#packing-result", Static).update(
             f"{Path(res.archive).name} written: {fmt.size(res.archive_bytes)} for {fmt.size(res.source_bytes)} "
             f"of source, ratio {fmt.ratio(res.ratio)}; "
-            f"{'every channel within budget' if within else 'SOME CHANNEL OVER BUDGET'}.\n"
-            "Keep the original until the archive verifies: Ctrl+O opens it in the Ledger, then V verifies.")
+            f"{'every channel within budget' if within else 'SOME CHANNEL OVER BUDGET'}.\n{USED_HELP}.\n"
+            "Keep the original until the archive verifies: Ctrl+O opens it in the Contents screen, then V verifies.")
         table.focus()
         self.refresh_bindings()
 
@@ -273,7 +283,7 @@ class PackBenchScreen(Notices, Screen):
     def action_cancel_or_back(self) -> None:
         if self.running and self.cancel_event is not None:
             self.cancel_event.set()
-            self.query_one("#bench-result", Static).update("cancelling… waiting for the library to stop")
+            self.query_one("#packing-result", Static).update("cancelling… waiting for the library to stop")
             return
         self.app.pop_screen()
 
@@ -291,6 +301,6 @@ class PackBenchScreen(Notices, Screen):
         return True
 
     def work_stopped(self, worker) -> None:
-        if worker.group == "bench-pack":
+        if worker.group == "packing-pack":
             self.running = False
-            self.query_one("#bench-progress", StageProgress).halt("stopped by an unexpected problem")
+            self.query_one("#packing-progress", StageProgress).halt("stopped by an unexpected problem")

@@ -1,4 +1,4 @@
-"""The Finder: windows worth a look, ranked; choosing one moves the Strip there.
+"""The Shortlist: windows worth a look, ranked; choosing one moves the Strip there.
 
 Three rankings, each straight from the library's figures:
 
@@ -7,7 +7,7 @@ Three rankings, each straight from the library's figures:
 * ``alike`` -- ``Archive.similar``: windows whose codes are nearest to the selected one;
 * ``worst`` -- the windows with the largest stored worst error.
 
-The Finder is a modal screen that returns the chosen window number (or None).
+The Shortlist is a modal screen that returns the chosen window number (or None).
 """
 
 from __future__ import annotations
@@ -22,22 +22,22 @@ from textual.widgets import DataTable, Footer, Static
 
 from tsarchive.app import fmt
 from tsarchive.app.guard import archive_lock
-from tsarchive.app.messages import FinderFilled, WorkFailed
+from tsarchive.app.messages import ShortlistFilled, WorkFailed
 from tsarchive.app.screens.base import Notices
 from tsarchive.app.widgets.pick_table import PickTable
 from tsarchive.errors import TsArchiveError
 
 TOP_K = 20
 TITLES = {
-    "unusual": ("Finder · unusual windows", "Ranked by outlier score: how far the code-only preview is from the "
+    "unusual": ("Shortlist · unusual windows", "Ranked by outlier score: how far the code-only preview is from the "
                 "stored samples. High scores mark shapes the model rarely saw.", "Score"),
-    "alike": ("Finder · look-alikes of window #{w}", "Windows whose codes lie nearest to window #{w}'s "
+    "alike": ("Shortlist · look-alikes of window #{w}", "Windows whose codes lie nearest to window #{w}'s "
               "(Euclidean distance between codes).", "Distance"),
-    "worst": ("Finder · largest errors", "Windows whose worst error uses most of the budget.", "Worst err"),
+    "worst": ("Shortlist · largest errors", "Windows whose worst error uses most of the budget.", "Worst err"),
 }
 
 
-class FinderScreen(Notices, ModalScreen[int | None]):
+class ShortlistScreen(Notices, ModalScreen[int | None]):
     """Ranked windows of one channel; Enter returns the chosen window number."""
 
     BINDINGS = [
@@ -48,7 +48,7 @@ class FinderScreen(Notices, ModalScreen[int | None]):
     ]
 
     def __init__(self, archive, meta, table, mode: str, current: int) -> None:
-        super().__init__(id="finder")
+        super().__init__(id="shortlist")
         self.archive, self.meta, self.table = archive, meta, table
         self.mode = mode
         self.window = int(table.index[current]) if 0 <= current < len(table.index) else 0
@@ -56,10 +56,10 @@ class FinderScreen(Notices, ModalScreen[int | None]):
         self.starts = np.asarray(table.start_sample, dtype=np.float64) / meta.rate
 
     def compose(self) -> ComposeResult:
-        with Vertical(id="finder-box"):
-            yield Static("", id="finder-title", classes="title", markup=False)
-            yield Static("", id="finder-about", markup=False)
-            yield PickTable(id="finder-table")
+        with Vertical(id="shortlist-box"):
+            yield Static("", id="shortlist-title", classes="title", markup=False)
+            yield Static("", id="shortlist-about", markup=False)
+            yield PickTable(id="shortlist-table")
             yield Static("Enter shows the window in the Strip · u / l / w switch ranking · Esc closes",
                          classes="note", markup=False)
         yield Footer(compact=True)
@@ -70,23 +70,23 @@ class FinderScreen(Notices, ModalScreen[int | None]):
     def action_rank(self, mode: str) -> None:
         self.mode = mode
         title, about, figure = TITLES[mode]
-        self.query_one("#finder-title", Static).update(title.format(w=self.window))
-        self.query_one("#finder-about", Static).update(about.format(w=self.window))
+        self.query_one("#shortlist-title", Static).update(title.format(w=self.window))
+        self.query_one("#shortlist-about", Static).update(about.format(w=self.window))
         dt = self.query_one(DataTable)
         dt.clear(columns=True)
         dt.add_columns("Rank", "Window", "Start", figure, "Worst err", "Mode")
         self.rank(mode)
 
-    @work(thread=True, exclusive=True, group="finder", exit_on_error=False)
+    @work(thread=True, exclusive=True, group="shortlist", exit_on_error=False)
     def rank(self, mode: str) -> None:
         name = self.meta.name
         try:
             with archive_lock(self.archive):
                 rows = self._ranking(mode, name)
         except TsArchiveError as exc:
-            self.post_message(WorkFailed(str(exc), title="Finder"))
+            self.post_message(WorkFailed(str(exc), title="Shortlist"))
             return
-        self.post_message(FinderFilled(rows))
+        self.post_message(ShortlistFilled(rows))
 
     def _ranking(self, mode: str, name: str) -> list[tuple[int, float]]:
         """``(window, figure)`` pairs for ``mode``, best first (library calls only)."""
@@ -102,7 +102,7 @@ class FinderScreen(Notices, ModalScreen[int | None]):
         where = {int(w): p for p, w in enumerate(np.asarray(self.table.index))}
         return [where[int(w)] for w in ids]
 
-    def on_finder_filled(self, message: FinderFilled) -> None:
+    def on_shortlist_filled(self, message: ShortlistFilled) -> None:
         self.rows = message.rows
         dt = self.query_one(DataTable)
         dt.clear()

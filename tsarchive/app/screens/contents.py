@@ -1,8 +1,8 @@
-"""The Ledger: one archive's channels, its overall state, the caution, and verification.
+"""The Contents screen: one archive's channels, its overall state, the caution, and verification.
 
 The archive is opened by ``tsarchive.open`` in a worker. ``v`` runs
 ``Archive.verify`` (against the original when it is found next to the archive or
-in the Shelf's folder) in a thread worker with progress; the check panel names any
+in the Folder screen's folder) in a thread worker with progress; the check panel names any
 failing window. Enter on a channel opens it in the Strip; ``e`` exports a range.
 """
 
@@ -24,7 +24,7 @@ from tsarchive.app.locate import find_source
 from tsarchive.app.messages import ArchiveReady, CheckDone, CheckStep, WorkFailed
 from tsarchive.app.screens.base import Notices
 from tsarchive.app.widgets.pick_table import PickTable
-from tsarchive.app.summary import FAILED, UNVERIFIED, archive_duration, check_lines, over_budget
+from tsarchive.app.summary import FAILED, UNVERIFIED, USED_HELP, archive_duration, check_lines, over_budget
 from tsarchive.app.widgets.caution import Caution
 from tsarchive.app.widgets.stage_progress import StageProgress
 from tsarchive.errors import ArchiveCorrupt, TsArchiveError
@@ -32,7 +32,7 @@ from tsarchive.errors import ArchiveCorrupt, TsArchiveError
 COLUMNS = ("Channel", "Unit", "Rate", "Length", "Budget", "Worst error", "Used", "Ratio", "Bits/sample")
 
 
-class LedgerScreen(Notices, Screen):
+class ContentsScreen(Notices, Screen):
     """Channels table, state line, caution and check panel of the archive at ``path``."""
 
     BINDINGS = [
@@ -40,33 +40,34 @@ class LedgerScreen(Notices, Screen):
         Binding("v", "verify", "Verify"),
         Binding("e", "export", "Export"),
         Binding("escape", "back", "Back"),
+        Binding("q", "app.quit", "Quit", tooltip="quit tsarchive (also Ctrl+Q)"),
     ]
 
     check_state: reactive[str] = reactive(UNVERIFIED, init=False)
     checking: reactive[bool] = reactive(False, init=False)
 
     def __init__(self, path: Path) -> None:
-        super().__init__(id="ledger")
+        super().__init__(id="contents")
         self.path = Path(path)
         self.archive = None
         self.source: Path | None = None
 
     def compose(self) -> ComposeResult:
-        yield Static(f"Ledger · {self.path.name}", id="ledger-title", classes="title", markup=False)
-        yield Caution(id="ledger-caution")
-        yield Static("opening…", id="ledger-state", markup=False)
-        yield PickTable(id="ledger-table")
-        yield StageProgress(("verify",), id="ledger-progress")
-        yield Static("", id="ledger-check", markup=False)
+        yield Static(f"Contents · {self.path.name}", id="contents-title", classes="title", markup=False)
+        yield Caution(id="contents-caution")
+        yield Static("opening…", id="contents-state", markup=False)
+        yield PickTable(id="contents-table")
+        yield StageProgress(("verify",), id="contents-progress")
+        yield Static("", id="contents-check", markup=False)
         yield Footer()
 
     def on_mount(self) -> None:
         self.query_one(DataTable).add_columns(*COLUMNS)
-        self.query_one("#ledger-progress").display = False
+        self.query_one("#contents-progress").display = False
         self.check_state = self.app.checks.get(self.path, UNVERIFIED)  # type: ignore[attr-defined]
         self.load(self.path, getattr(self.app, "folder", self.path.parent))
 
-    @work(thread=True, exclusive=True, group="ledger-open", exit_on_error=False)
+    @work(thread=True, exclusive=True, group="contents-open", exit_on_error=False)
     def load(self, path: Path, folder: Path) -> None:
         try:
             arc = tsarchive.open(path)
@@ -100,10 +101,10 @@ class LedgerScreen(Notices, Screen):
             original = f"original {self.source.name} found"
         else:
             original = f"original {arc.source_name or '(unnamed)'} not found (verify checks checksums only)"
-        self.query_one("#ledger-state", Static).update(
+        self.query_one("#contents-state", Static).update(
             f"{budget}.\nCheck: {self.check_state} · {len(arc.channels)} channels · "
             f"{fmt.duration(archive_duration(arc.channels))} · {fmt.size(arc.archive_bytes)} · "
-            f"ratio {fmt.ratio(arc.ratio)} · {original}")
+            f"ratio {fmt.ratio(arc.ratio)} · {original}\n{USED_HELP}.")
 
     def watch_check_state(self, state: str) -> None:
         self.app.checks[self.path] = state  # type: ignore[attr-defined]
@@ -111,10 +112,10 @@ class LedgerScreen(Notices, Screen):
 
     def watch_checking(self, checking: bool) -> None:
         if checking:
-            progress = self.query_one("#ledger-progress", StageProgress)
+            progress = self.query_one("#contents-progress", StageProgress)
             progress.display = True
             progress.reset()
-            self.query_one("#ledger-check", Static).update("verifying… every window is decoded and checked")
+            self.query_one("#contents-check", Static).update("verifying… every window is decoded and checked")
         self.refresh_bindings()
 
     # -- verification ----------------------------------------------------------
@@ -124,7 +125,7 @@ class LedgerScreen(Notices, Screen):
         self.checking = True
         self.run_verify(self.archive, self.source)
 
-    @work(thread=True, exclusive=True, group="ledger-verify", exit_on_error=False)
+    @work(thread=True, exclusive=True, group="contents-verify", exit_on_error=False)
     def run_verify(self, arc, source: Path | None) -> None:
         try:
             with archive_lock(arc):
@@ -142,12 +143,12 @@ class LedgerScreen(Notices, Screen):
         self.post_message(CheckDone(report, source, starts))
 
     def on_check_step(self, message: CheckStep) -> None:
-        self.query_one("#ledger-progress", StageProgress).advance(message.progress)
+        self.query_one("#contents-progress", StageProgress).advance(message.progress)
 
     def on_check_done(self, message: CheckDone) -> None:
         self.checking = False
-        progress = self.query_one("#ledger-progress", StageProgress)
-        panel = self.query_one("#ledger-check", Static)
+        progress = self.query_one("#contents-progress", StageProgress)
+        panel = self.query_one("#contents-check", Static)
         if message.report is None:
             if message.damaged:
                 progress.halt("verification FAILED: the archive is damaged")
@@ -166,7 +167,7 @@ class LedgerScreen(Notices, Screen):
             self.notify(lines.headline, title="Verification failed", severity="error", timeout=8)
 
     def work_stopped(self, worker) -> None:
-        if worker.group == "ledger-verify":
+        if worker.group == "contents-verify":
             self.checking = False
 
     # -- navigation --------------------------------------------------------------
