@@ -228,3 +228,18 @@ def test_quantizer_exponents_are_exact(x):
     fl = max(k for k in range(-80, 80) if Fraction(2) ** k <= f)
     ce = min(k for k in range(-80, 80) if Fraction(2) ** k >= f)
     assert (_floor_log2(x), _ceil_log2(x)) == (fl, ce)
+
+
+def test_training_randomness_is_built_from_the_raw_pcg64_words():
+    # numpy's Generator conversions (uniform, choice, shuffle) may change between numpy versions; the
+    # trainer's Stream uses only PCG64's raw 64-bit words (a fixed algorithm, O'Neill 2014), converted here.
+    from tsarchive.model.train import Stream
+    import numpy as np
+    words = [int(w) for w in np.random.PCG64(7).random_raw(1000)]
+    s = Stream(7)
+    assert s.random(1000).tolist() == [(w >> 11) / 2**53 for w in words]    # exact in Python floats
+    p = Stream(7).permutation(1000)
+    assert sorted(p.tolist()) == list(range(1000))
+    assert p.tolist() == sorted(range(1000), key=lambda i: (words[i], i))   # the order of the words
+    c = Stream(7).choice(1000, 10)
+    assert c.tolist() == sorted(p[:10].tolist())

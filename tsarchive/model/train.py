@@ -14,7 +14,8 @@ Contract of :func:`train_autoencoder`:
   :mod:`tsarchive.model.exact` (operands rounded to integers whose partial
   sums float64 holds exactly), everything else is elementwise ``+ - * / sqrt
   rint`` (correctly rounded everywhere), tanh is built from those, and the
-  random numbers come from numpy's PCG64 generator;
+  random numbers come from numpy's PCG64 bit stream, turned into floats and
+  orders by :class:`Stream` (numpy's own conversions may change between versions);
 * ``cancel.is_set()`` is checked every batch and raises Cancelled.
 
 Model: encoder MLP ``W -> He -> He -> K`` (ReLU; ``He = clamp(H, 64, 512)``), then ``tanh`` (from
@@ -65,7 +66,38 @@ class Layer:
     bias: np.ndarray
 
 
-def _init(rng: np.random.Generator, n_in: int, n_out: int) -> Layer:
+class Stream:
+    """Random numbers from the PCG64 bit stream itself (``random_raw``), turned into floats and orders here.
+
+    The PCG64 algorithm is fixed, but numpy's ``Generator`` methods that turn its bits into floats,
+    choices and shuffles may change between numpy versions; building them from the raw 64-bit words
+    keeps the trained weights, hence the archive's bytes, the same under every numpy in our range.
+    """
+
+    def __init__(self, seed: int) -> None:
+        self._bits = np.random.PCG64(seed)
+
+    def raw(self, n: int) -> np.ndarray:
+        return self._bits.random_raw(int(n)).astype(np.uint64)
+
+    def random(self, shape) -> np.ndarray:
+        """Uniform floats in [0, 1): the top 53 bits of each word times 2**-53 (exact)."""
+        n = int(np.prod(shape, dtype=np.int64))
+        return ((self.raw(n) >> np.uint64(11)).astype(np.float64) * 2.0 ** -53).reshape(shape)
+
+    def uniform(self, lo: float, hi: float, shape) -> np.ndarray:
+        return lo + (hi - lo) * self.random(shape)
+
+    def permutation(self, n: int) -> np.ndarray:
+        """The order of ``n`` random 64-bit keys (a stable sort: ties, as unlikely as they are, keep index order)."""
+        return np.argsort(self.raw(n), kind="stable")
+
+    def choice(self, n: int, k: int) -> np.ndarray:
+        """``k`` distinct indices of ``0..n-1``, sorted: the first ``k`` of a random order."""
+        return np.sort(self.permutation(n)[:k])
+
+
+def _init(rng: Stream, n_in: int, n_out: int) -> Layer:
     bound = 1.0 / math.sqrt(n_in)     # the usual U(-1/sqrt(fan_in), 1/sqrt(fan_in)) (as torch.nn.Linear)
     return Layer(rng.uniform(-bound, bound, (n_in, n_out)), rng.uniform(-bound, bound, n_out))
 
@@ -175,12 +207,12 @@ def train_autoencoder(X: np.ndarray, code_size: int, *, hidden: int | None = Non
     hidden = int(hidden) if hidden else choose_hidden(n, w, code_size)
     enc_hidden = int(min(512, max(_ENC_MIN, 4 * code_size, hidden)))
 
-    rng = np.random.default_rng(seed)
-    pick = np.sort(rng.choice(n, size=min(n, max_windows), replace=False))
+    rng = Stream(seed)
+    pick = rng.choice(n, min(n, max_windows))
     sample = np.asarray(X[pick], dtype=np.float64)
     if not np.all(np.isfinite(sample)):
         raise BadInput("training windows contain NaN or infinity; clean or mask the source first")
-    rng.shuffle(sample)
+    sample = sample[rng.permutation(sample.shape[0])]
     n_val = max(1, int(round(0.1 * sample.shape[0])))
     xv, xt = sample[:n_val], (sample[n_val:] if sample.shape[0] > n_val else sample)
 
@@ -217,7 +249,7 @@ def _one_blas_thread():
 class _Fit:
     """The training loop's state: layers, Adam moments, learning-rate schedule."""
 
-    def __init__(self, enc: list[Layer], dec: list[Layer], linear: bool, rng: np.random.Generator, cancel):
+    def __init__(self, enc: list[Layer], dec: list[Layer], linear: bool, rng: Stream, cancel):
         self.enc, self.dec, self.linear, self.rng, self.cancel = enc, dec, linear, rng, cancel
         self.moments = [(np.zeros_like(p), np.zeros_like(p)) for p in self._params()]
         self.t, self.lr = 0, _LR
