@@ -301,7 +301,7 @@ def _parquet_decode(blob: bytes) -> np.ndarray:
     return np.column_stack([table.column(i).to_numpy().astype(np.float64) for i in range(table.num_columns)])
 
 
-_ORDERS = (("quant", 0, "quantize step 2eps (or on the logging grid)"),
+ORDERS = (("quant", 0, "quantize step 2eps (or on the logging grid)"),
            ("prev", 1, "quantize + previous-sample predictor"),
            ("prev2", 2, "quantize + 2nd-order predictor"))
 _COMPRESSOR_NAMES = {"zstd": "zstd-19", "xz": "xz -9e", "bz2": "bzip2 -9"}
@@ -311,7 +311,7 @@ def _classic_lossy() -> tuple[Baseline, ...]:
     out = []
     for compressor in COMPRESSORS:
         for shuffle in (False, True):
-            for name, order, describe in _ORDERS:
+            for name, order, describe in ORDERS:
                 bid = name + ("" if compressor == "zstd" else f".{compressor}") + ("+shuf" if shuffle else "")
                 text = f"{describe} + {'byte shuffle + ' if shuffle else ''}{_COMPRESSOR_NAMES[compressor]}"
                 out.append(Baseline(bid, False, text, *_quant_codec(order, compressor, shuffle)))

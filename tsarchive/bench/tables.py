@@ -25,7 +25,7 @@ import math
 from dataclasses import asdict, dataclass, field
 
 from .archive_bytes import PARTS
-from .baselines import _ORDERS, BASELINES, COMPRESSORS, ZSTD_PLAIN
+from .baselines import ORDERS, BASELINES, COMPRESSORS, ZSTD_PLAIN
 
 
 @dataclass(frozen=True)
@@ -167,7 +167,7 @@ def baselines_table(rows: list[CaseRow]) -> str:
     body = []
     for r in rows:
         sizes = dict(r.baseline_bytes)
-        for name, _, _ in _ORDERS:
+        for name, _, _ in ORDERS:
             ids = [name + ("" if c == "zstd" else f".{c}") + ("+shuf" if shuf else "") for c, shuf in cols]
             body.append([r.case, f"{r.budget:g}", name] + [fmt(r.ratio(sizes.get(i))) for i in ids])
     return render(headers, body)
