@@ -395,7 +395,8 @@ def test_fixed_bytes_table_shows_every_part():
     assert r.fixed_bytes == 2650
     assert CaseRow.from_dict(json.loads(json.dumps(r.to_dict()))) == r
     cells = fixed_table([r]).splitlines()[2].split()
-    assert cells[2:] == ["2800", "2650", f"{100 * 2650 / 2800:.1f}", "1300", "900", "150", "50", "400", "0"]
+    assert cells[2:] == ["2800", "2650", f"{100 * 2650 / 2800:.1f}", "1300", "900", "150", "50", "400", "0",
+                         "502", f"{502 / 150:.2f}"]
 
 
 def test_archive_bytes_add_up_and_footers_follow_the_parquet_layout(tmp_path):

@@ -113,7 +113,8 @@ def main(argv: list[str] | None = None) -> int:
             out("\nevery lossy baseline (ratio): quantized samples (quant), first (prev) or second (prev2) "
                 "differences, through zstd-19, xz -9e or bzip2 -9, with or without byte shuffling:")
             out(baselines_table(rows))
-            out("\nwhere the archive's bytes go (bytes; fixed = all but the payload, the entropy-coded residuals):")
+            out("\nwhere the archive's bytes go (bytes; fixed = all but the payload, the entropy-coded residuals; "
+                "best / payload = the best classic's bytes over the payload alone):")
             out(fixed_table(rows))
             out("\ntarget 1, ratio against the best classic baseline (the smallest of all the baselines above):")
             out(summary_table(rows))
