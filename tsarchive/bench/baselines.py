@@ -161,7 +161,7 @@ def unshuffle_bytes(raw: bytes, dtype: np.dtype, n: int) -> np.ndarray:
 
 
 # Blob layout (little endian): magic, u32 channels, u64 samples, then per channel
-# (f64 step, u8 dtype-or-width code, u64 frame length), then the zstd frames.
+# (f64 step, u8 dtype-or-width code, u64 frame length), then the compressed frames.
 _HEAD = struct.Struct("<4sIQ")
 _CHAN = struct.Struct("<dBQ")
 
@@ -302,8 +302,8 @@ def _parquet_decode(blob: bytes) -> np.ndarray:
 
 
 ORDERS = (("quant", 0, "quantize step 2eps (or on the logging grid)"),
-           ("prev", 1, "quantize + previous-sample predictor"),
-           ("prev2", 2, "quantize + 2nd-order predictor"))
+          ("prev", 1, "quantize + previous-sample predictor"),
+          ("prev2", 2, "quantize + 2nd-order predictor"))
 _COMPRESSOR_NAMES = {"zstd": "zstd-19", "xz": "xz -9e", "bz2": "bzip2 -9"}
 
 
