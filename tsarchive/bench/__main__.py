@@ -27,7 +27,7 @@ from tsarchive.errors import TsArchiveError
 
 from . import modes, runner
 from . import coder
-from .tables import LEGEND, limit_table, main_table, summary_table
+from .tables import LEGEND, baselines_table, fixed_table, limit_table, main_table, summary_table
 
 
 def _floats(text: str) -> tuple[float, ...]:
@@ -110,7 +110,13 @@ def main(argv: list[str] | None = None) -> int:
                 out(f"  {line}")
             out("\n" + main_table(rows))
             out("\n" + LEGEND)
-            out("\ntarget 1, ratio against the best classic baseline (quant, prev, prev2 + zstd-19):")
+            out("\nevery lossy baseline (ratio): quantized samples (quant), first (prev) or second (prev2) "
+                "differences, through zstd-19, xz -9e or bzip2 -9, with or without byte shuffling:")
+            out(baselines_table(rows))
+            out("\nwhere the archive's bytes go (bytes; fixed = all but the payload, the entropy-coded residuals; "
+                "best / payload = the best classic's bytes over the payload alone):")
+            out(fixed_table(rows))
+            out("\ntarget 1, ratio against the best classic baseline (the smallest of all the baselines above):")
             out(summary_table(rows))
             if any(r.entropy_bits is not None for r in rows):
                 out("\nGaussian-noise limit: H = entropy of N(0, sigma^2) quantized with step 2 eps "

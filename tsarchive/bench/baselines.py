@@ -29,6 +29,15 @@ The baselines (ids as printed in the bench tables):
 ``prev2``    second-order predictor ``r[n] = q[n] - (2 q[n-1] - q[n-2])``
              (``q[-1] = q[-2] = 0``), then narrowest width + zstd-19.
 
+Each of those three comes in six forms, ``ORDER[.COMPRESSOR][+shuf]``: the
+general-purpose compressor is zstd level 19 (no suffix), ``.xz`` (LZMA2 in the
+xz container, ``lzma.compress`` with preset ``9 | PRESET_EXTREME``, i.e.
+``xz -9e``) or ``.bz2`` (``bz2.compress`` level 9, i.e. ``bzip2 -9``: the
+Burrows-Wheeler transform); ``+shuf`` stores the integers byte-shuffled (byte
+plane k = byte k of every integer, little endian, as Blosc's shuffle filter
+does) before compressing.  The *best classic* size of a case is the smallest
+of all baselines.
+
 A uniform quantizer with step Delta has max error Delta/2 (textbook), so the
 lossy baselines meet ``|x_hat - x| <= eps``; the factor ``1 - 1e-7`` keeps
 float64 rounding of ``q * step`` from pushing an error past ``eps`` and costs
@@ -37,6 +46,8 @@ under 1e-6 bit per sample.  Reconstructions are returned in float64.
 
 from __future__ import annotations
 
+import bz2
+import lzma
 import math
 import struct
 from dataclasses import dataclass
@@ -47,6 +58,8 @@ import numpy as np
 from tsarchive.errors import BadInput
 
 ZSTD_LEVEL = 19
+XZ_PRESET = 9 | lzma.PRESET_EXTREME
+BZ2_LEVEL = 9
 STEP_SHRINK = 1.0 - 1e-7
 _MAGIC = b"TSBL"
 _INT_WIDTHS = (np.int8, np.int16, np.int32, np.int64)
@@ -126,8 +139,29 @@ def _unzstd(blob: bytes) -> bytes:
     return zstandard.ZstdDecompressor().decompress(blob)
 
 
+# General-purpose compressors a user would reach for: id -> (compress, decompress).
+COMPRESSORS: dict[str, tuple[Callable[[bytes], bytes], Callable[[bytes], bytes]]] = {
+    "zstd": (_zstd, _unzstd),
+    "xz": (lambda raw: lzma.compress(raw, format=lzma.FORMAT_XZ, preset=XZ_PRESET), lzma.decompress),
+    "bz2": (lambda raw: bz2.compress(raw, BZ2_LEVEL), bz2.decompress),
+}
+
+
+def shuffle_bytes(ints: np.ndarray) -> bytes:
+    """Byte planes of little-endian integers: all first bytes, then all second bytes, ..."""
+    le = np.ascontiguousarray(ints, dtype=ints.dtype.newbyteorder("<"))
+    return np.ascontiguousarray(le.view(np.uint8).reshape(le.size, le.itemsize).T).tobytes()
+
+
+def unshuffle_bytes(raw: bytes, dtype: np.dtype, n: int) -> np.ndarray:
+    """Inverse of :func:`shuffle_bytes` for ``n`` integers of ``dtype``."""
+    dt = np.dtype(dtype).newbyteorder("<")
+    planes = np.frombuffer(raw, dtype=np.uint8).reshape(dt.itemsize, n)
+    return np.ascontiguousarray(planes.T).view(dt).reshape(n)
+
+
 # Blob layout (little endian): magic, u32 channels, u64 samples, then per channel
-# (f64 step, u8 dtype-or-width code, u64 frame length), then the zstd frames.
+# (f64 step, u8 dtype-or-width code, u64 frame length), then the compressed frames.
 _HEAD = struct.Struct("<4sIQ")
 _CHAN = struct.Struct("<dBQ")
 
@@ -194,7 +228,9 @@ def _integrate(r: np.ndarray, order: int) -> np.ndarray:
     return q
 
 
-def _quant_codec(order: int) -> tuple[Callable, Callable]:
+def _quant_codec(order: int, compressor: str = "zstd", shuffle: bool = False) -> tuple[Callable, Callable]:
+    pack, unpack = COMPRESSORS[compressor]
+
     def encode(data: np.ndarray, eps: "np.ndarray | float", resolution=None) -> bytes:
         arr = _as_2d(data)
         e = _eps_vector(eps, arr.shape[1])
@@ -204,14 +240,17 @@ def _quant_codec(order: int) -> tuple[Callable, Callable]:
             q, step = quantize(arr[:, j], e[j], res[j])
             ints, code = _narrowest(_residual(q, order))
             metas.append((step, code))
-            frames.append(_zstd(np.ascontiguousarray(ints).astype(ints.dtype.newbyteorder("<")).tobytes()))
+            raw = shuffle_bytes(ints) if shuffle else np.ascontiguousarray(ints, ints.dtype.newbyteorder("<")).tobytes()
+            frames.append(pack(raw))
         return _frames_blob(arr.shape[0], metas, frames)
 
     def decode(blob: bytes) -> np.ndarray:
         n, metas, frames = _frames_read(blob)
         out = np.empty((n, len(frames)), dtype=np.float64)
         for j, ((step, code), frame) in enumerate(zip(metas, frames)):
-            r = np.frombuffer(_unzstd(frame), dtype=np.dtype(_INT_WIDTHS[code]).newbyteorder("<"))
+            dt = np.dtype(_INT_WIDTHS[code]).newbyteorder("<")
+            raw = unpack(frame)
+            r = unshuffle_bytes(raw, dt, n) if shuffle else np.frombuffer(raw, dtype=dt)
             out[:, j] = _integrate(r, order).astype(np.float64) * step
         return out
 
@@ -262,19 +301,31 @@ def _parquet_decode(blob: bytes) -> np.ndarray:
     return np.column_stack([table.column(i).to_numpy().astype(np.float64) for i in range(table.num_columns)])
 
 
-_q0, _dq0 = _quant_codec(0)
-_q1, _dq1 = _quant_codec(1)
-_q2, _dq2 = _quant_codec(2)
+ORDERS = (("quant", 0, "quantize step 2eps (or on the logging grid)"),
+          ("prev", 1, "quantize + previous-sample predictor"),
+          ("prev2", 2, "quantize + 2nd-order predictor"))
+_COMPRESSOR_NAMES = {"zstd": "zstd-19", "xz": "xz -9e", "bz2": "bzip2 -9"}
+
+
+def _classic_lossy() -> tuple[Baseline, ...]:
+    out = []
+    for compressor in COMPRESSORS:
+        for shuffle in (False, True):
+            for name, order, describe in ORDERS:
+                bid = name + ("" if compressor == "zstd" else f".{compressor}") + ("+shuf" if shuffle else "")
+                text = f"{describe} + {'byte shuffle + ' if shuffle else ''}{_COMPRESSOR_NAMES[compressor]}"
+                out.append(Baseline(bid, False, text, *_quant_codec(order, compressor, shuffle)))
+    return tuple(out)
+
 
 BASELINES: tuple[Baseline, ...] = (
     Baseline("zstd", True, "zstd-19 on raw sample bytes", _zstd_encode, _zstd_decode),
     Baseline("parquet", True, "Parquet BYTE_STREAM_SPLIT + zstd-19",
              lambda d, e=0.0, r=None: parquet_bytes(d), _parquet_decode),
-    Baseline("quant", False, "quantize step 2eps (or on the logging grid) + zstd-19", _q0, _dq0),
-    Baseline("prev", False, "quantize + previous-sample predictor + zstd-19", _q1, _dq1),
-    Baseline("prev2", False, "quantize + 2nd-order predictor + zstd-19", _q2, _dq2),
-)
-CLASSIC_LOSSY = ("quant", "prev", "prev2")
+) + _classic_lossy()
+CLASSIC_LOSSY = tuple(b.id for b in BASELINES if not b.lossless)
+# The first three (quant, prev, prev2 through zstd-19, unshuffled): the classic coders of earlier rounds.
+ZSTD_PLAIN = CLASSIC_LOSSY[:3]
 
 
 def get(baseline_id: str) -> Baseline:

@@ -29,6 +29,8 @@ from pathlib import Path
 
 import numpy as np
 
+from .archive_bytes import breakdown
+
 
 @dataclass(frozen=True)
 class Job:
@@ -170,7 +172,8 @@ def run_pack(job: Job) -> JobResult:
     return JobResult(True, channels=names, eps=eps, max_err=errs, nbytes=int(res.archive_bytes),
                      step_s=pack_s, read_s=read_s, rss_import_mb=rss0, rss_step_mb=rss1, rss_end_mb=rss_mb(),
                      extra={"ratio_reported": float(res.ratio), "raw_bytes": int(getattr(res, "raw_bytes", 0)),
-                            "torch_import_s": torch_s, "kernels_s": kernels_s, "payload_bytes": payload_bytes(Path(job.archive))})
+                            "torch_import_s": torch_s, "kernels_s": kernels_s, "payload_bytes": payload_bytes(Path(job.archive)),
+                            "bytes": breakdown(Path(job.archive)).to_dict()})
 
 
 def payload_bytes(archive: Path) -> int:

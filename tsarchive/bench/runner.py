@@ -27,6 +27,7 @@ import numpy as np
 from tsarchive.errors import BadInput
 
 from . import baselines, realdata, signals
+from .archive_bytes import PARTS, ArchiveBytes
 from .child import Job, JobResult
 from .tables import CaseRow, fmt
 
@@ -198,6 +199,17 @@ def _eps_notes(archive_eps: tuple[float, ...], eps: np.ndarray) -> list[str]:
     return []
 
 
+def _parts(res: JobResult) -> tuple[tuple[str, int], ...]:
+    """The archive's bytes by part, as the pack child measured them (empty when it failed)."""
+    if not res.ok or not res.extra.get("bytes"):
+        return ()
+    b = ArchiveBytes.from_dict(res.extra["bytes"])
+    if b.total != res.nbytes:
+        raise BadInput(f"archive parts add up to {b.total} bytes, the archive has {res.nbytes}; "
+                       "report this bench defect")
+    return tuple((k, getattr(b, k)) for k in PARTS)
+
+
 def run_case(case: Case, cfg: BenchConfig, workdir: Path, log: Callable[[str], None]) -> list[CaseRow]:
     """All budgets of one case: a pack child per budget, the baselines in this process."""
     data = case.data if case.data.ndim == 2 else case.data[:, None]
@@ -242,7 +254,7 @@ def run_case(case: Case, cfg: BenchConfig, workdir: Path, log: Callable[[str], N
             err_over_eps=worst,
             pack_s=res.step_s if res.ok else None, unpack_s=res.read_s if res.ok else None,
             peak_rss_mb=res.rss_step_mb if res.ok else None, entropy_bits=entropy, noise_sigma=case.noise_sigma,
-            failure="" if res.ok else res.error, notes=tuple(row_notes)))
+            failure="" if res.ok else res.error, notes=tuple(row_notes), parts=_parts(res)))
         row = rows[-1]
         if not res.ok:
             log(f"  {case.name} budget {b:g}: tsarchive failed: {res.error}")
