@@ -115,7 +115,7 @@ def run_speed(spec: LongSpec, budget: str, workdir: Path, train_seconds: float |
     if not src.exists():
         log(f"writing {spec.channels} x {spec.n_samples} float32 ({spec.raw_bytes / 1e6:.1f} MB)")
         write_long_npy(src, spec)
-    archive = workdir / "long.tsa"
+    archive = workdir / "long.tsarchive"
     log("speed: tsarchive pack + full read (child process)")
     ours = spawn(Job("pack", str(src), str(archive), budget, rate=spec.rate, train_seconds=train_seconds), workdir)
     log("speed: Parquet write + read (child process)")
@@ -152,7 +152,7 @@ def run_memory(size_mb: float, budget: str, workdir: Path, train_seconds: float 
     log(f"memory: writing {spec.raw_bytes / 1e6:.0f} MB .npy")
     write_long_npy(src, spec)
     log("memory: tsarchive pack (child process, no read-back)")
-    res = spawn(Job("pack", str(src), str(workdir / "memory.tsa"), budget, rate=spec.rate,
+    res = spawn(Job("pack", str(src), str(workdir / "memory.tsarchive"), budget, rate=spec.rate,
                     train_seconds=train_seconds, read_back=False), workdir)
     return MemoryResult(src.stat().st_size, res.nbytes, res.rss_import_mb, res.rss_step_mb, res.step_s, res.ok, res.error)
 

@@ -233,7 +233,7 @@ def run_case(case: Case, cfg: BenchConfig, workdir: Path, log: Callable[[str], N
                         for bl in baselines.BASELINES if not bl.lossless})
         worst_base = max(r.worst_ratio for r in results.values())
         log(f"  {case.name} budget {b:g}: tsarchive pack + read (child process)")
-        job = Job("pack", str(source), str(workdir / f"{case.name}-{b:g}.tsa"), f"{100 * b:.12g}%",
+        job = Job("pack", str(source), str(workdir / f"{case.name}-{b:g}.tsarchive"), f"{100 * b:.12g}%",
                   rate=case.pack_rate, train_seconds=train_s)
         res = spawn(job, workdir)
         shutil.rmtree(job.archive, ignore_errors=True)
