@@ -59,6 +59,7 @@ def _parser() -> argparse.ArgumentParser:
                          "for browsing by codes; 0 = none)")
     pk.add_argument("--force", action="store_true", help="replace an existing archive")
     pk.add_argument("--json", action="store_true", help="print the result as JSON")
+    pk.add_argument("--quiet", action="store_true", help="no progress line (it is shown on a terminal only)")
 
     up = sub.add_parser("unpack", help="decode an archive (or a time range) to .npy, .csv or .parquet")
     up.add_argument("archive")
@@ -82,6 +83,7 @@ def _parser() -> argparse.ArgumentParser:
                     help="compare the samples of a SOURCE that is not the packed file (a converted copy); "
                          "passes when every sample is within budget")
     vf.add_argument("--json", action="store_true", help="print the report as JSON")
+    vf.add_argument("--quiet", action="store_true", help="no progress line (it is shown on a terminal only)")
 
     rp = sub.add_parser("report", help="show an archive's channels, budgets, errors and ratios")
     rp.add_argument("archive")
@@ -175,8 +177,13 @@ def _pack(args) -> int:
     if not args.output:
         raise BadInput("pack: -o ARCHIVE is required (the archive folder to write); or pass --dry-run to only "
                        "look at the source")
-    res = pack(args.source, args.output, args.budget, rate=args.rate, window=args.window,
-               code_size=args.code_size, force=args.force, read_options=options)
+    from .progress_line import ProgressLine
+    line = ProgressLine(enabled=False if args.quiet else None)
+    try:
+        res = pack(args.source, args.output, args.budget, rate=args.rate, window=args.window,
+                   code_size=args.code_size, force=args.force, read_options=options, progress=line)
+    finally:
+        line.close()
     lossy = any(c.eps > 0 for c in res.channels)
     if args.json:
         print(json.dumps(res.to_dict(), indent=1))
@@ -214,8 +221,14 @@ def _unpack(args) -> int:
 
 
 def _verify(args) -> int:
+    from .progress_line import ProgressLine
     from .verifier import verify_archive
-    rep = verify_archive(args.archive, against=args.against, rate=args.rate, even_if_changed=args.even_if_changed)
+    line = ProgressLine(enabled=False if args.quiet else None)
+    try:
+        rep = verify_archive(args.archive, against=args.against, rate=args.rate, even_if_changed=args.even_if_changed,
+                             progress=line)
+    finally:
+        line.close()
     if args.json:
         print(json.dumps(rep.to_dict(), indent=1))
     else:
