@@ -186,7 +186,9 @@ def _pack(args) -> int:
         line.close()
     lossy = any(c.eps > 0 for c in res.channels)
     if args.json:
-        print(json.dumps(res.to_dict(), indent=1))
+        from .report import identity
+        from .store.reader import open_archive
+        print(json.dumps({**res.to_dict(), "identity": identity(open_archive(res.archive))}, indent=1))
         _caution_if_lossy(lossy, to_stderr=True)  # stdout stays one JSON document
         return 0
     from .report import pack_table
@@ -230,7 +232,13 @@ def _verify(args) -> int:
     finally:
         line.close()
     if args.json:
-        print(json.dumps(rep.to_dict(), indent=1))
+        from .report import identity
+        from .store.reader import open_archive
+        try:
+            ident = identity(open_archive(args.archive, strict=False))
+        except TsArchiveError as exc:          # an archive verify could not open names its damage instead
+            ident = {"archive": str(Path(args.archive).resolve()), "unreadable": str(exc)}
+        print(json.dumps({**rep.to_dict(), "against": args.against, "identity": ident}, indent=1))
     else:
         from .report import verify_text
         print(verify_text(rep))

@@ -50,6 +50,18 @@ def _written_utc(arc) -> str | None:
     return datetime.fromtimestamp(t, timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
+def identity(arc) -> dict:
+    """What a lab system files with a result: the archive, its source, the tools and the channels' units and start."""
+    from . import __version__
+    first = arc.channels[0].start if arc.channels else None
+    return {"archive": str(arc.path.resolve()), "source": dict(arc.manifest.get("source", {})),
+            "format_version": arc.manifest.get("format_version"), "written_by": arc.manifest.get("tool_version"),
+            "read_by": __version__, "start": None if first is None else first.isoformat(),
+            "times": arc.timeline.describe(),
+            "channels": [{"name": c.name, "unit": c.unit, "rate": c.rate, "n_samples": c.n_samples}
+                         for c in arc.channels]}
+
+
 def archive_dict(arc) -> dict:
     """The archive's facts; its members are hashed first, and the budget is claimed only for intact members."""
     from .store.members import member_problems
@@ -61,7 +73,7 @@ def archive_dict(arc) -> dict:
         "archive_bytes": arc.archive_bytes, "raw_bytes": arc.raw_bytes, "ratio": arc.ratio,
         "bound": arc.bound, "problems": problems,
         "within_budget": None if problems else all(c.worst_error <= c.eps for c in arc.channels),
-        "times": arc.timeline.describe(), "notes": list(arc.notes),
+        "times": arc.timeline.describe(), "notes": list(arc.notes), "identity": identity(arc),
         "channels": [{"name": c.name, "unit": c.unit, "rate": c.rate, "n_samples": c.n_samples,
                       "duration_s": c.duration, "dtype": c.dtype, "budget": c.budget, "eps": c.eps,
                       "decimals": c.decimals, "worst_error": c.worst_error, "used_pct": c.used_pct,

@@ -1,4 +1,4 @@
-"""The command line's progress line: on a terminal only, cleared at the end, never on stdout."""
+"""What the command line shows and files: the progress line (terminal only) and the JSON a lab system keeps."""
 
 import io
 
@@ -53,3 +53,24 @@ def test_pack_draws_progress_on_a_terminal_stderr_and_quiet_silences_it(tmp_path
     monkeypatch.setattr("sys.stderr", tty3)
     assert main(["verify", str(tmp_path / "a.tsarchive"), "--against", str(src)]) == 0
     assert "verifying" in tty3.getvalue()
+
+
+def test_json_of_pack_verify_and_report_carries_what_a_lab_files(tmp_path, capsys):
+    import hashlib
+    import json
+    src = tmp_path / "chamber.csv"
+    src.write_text("time,temp [degC]\n" + "".join(f"2024-03-05T14:00:{i:02d},{20 + i / 100:.2f}\n"
+                                                  for i in range(60)))
+    sha = hashlib.sha256(src.read_bytes()).hexdigest()        # reference: hashlib, not tsarchive's own hashing
+    arc = tmp_path / "chamber.tsarchive"
+    outs = []
+    for argv in (["pack", str(src), "-o", str(arc), "--json", "--quiet"],
+                 ["verify", str(arc), "--against", str(src), "--json"], ["report", str(arc), "--json"]):
+        assert main(argv) == 0
+        outs.append(json.loads(capsys.readouterr().out))
+    for d in outs:
+        ident = d["identity"]
+        assert ident["archive"] == str(arc.resolve()) and ident["source"]["sha256"] == sha
+        assert ident["source"]["name"] == "chamber.csv" and ident["format_version"] == 4
+        assert ident["written_by"] == ident["read_by"] and ident["start"] == "2024-03-05T14:00:00"
+        assert ident["channels"] == [{"name": "temp", "unit": "degC", "rate": 1.0, "n_samples": 60}]
