@@ -74,3 +74,13 @@ def test_json_of_pack_verify_and_report_carries_what_a_lab_files(tmp_path, capsy
         assert ident["source"]["name"] == "chamber.csv" and ident["format_version"] == 4
         assert ident["written_by"] == ident["read_by"] and ident["start"] == "2024-03-05T14:00:00"
         assert ident["channels"] == [{"name": "temp", "unit": "degC", "rate": 1.0, "n_samples": 60}]
+
+
+def test_per_channel_ratios_are_labelled_as_estimates(tmp_path, capsys):
+    src = tmp_path / "r.npy"
+    np.save(src, np.stack([np.sin(np.arange(5000) / 30.0), np.cos(np.arange(5000) / 7.0)], axis=1))
+    arc = tmp_path / "r.tsarchive"
+    assert main(["pack", str(src), "-o", str(arc), "--rate", "10", "--quiet"]) == 0
+    assert main(["report", str(arc)]) == 0
+    out = capsys.readouterr().out
+    assert out.count("ratio~") == 2 and out.count("~ estimates:") == 2    # the pack table and the report

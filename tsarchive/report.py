@@ -22,9 +22,11 @@ def _table(header: list[str], rows: list[list[str]]) -> str:
     return "\n".join([line(header), line(["-" * w for w in widths]), *(line(r) for r in rows)])
 
 
-HEADER = ["channel", "unit", "budget", "eps", "worst error", "% used", "ratio", "bits/sample"]
+HEADER = ["channel", "unit", "budget", "eps", "worst error", "% used", "ratio~", "bits/sample~"]
 USED_NOTE = ("% used: the worst error as a share of the budget; near 100 is the aim (the whole budget spent on "
-             "saving space, never exceeded)")
+             "saving space, never exceeded)\n"
+             "~ estimates: a channel's ratio and bits/sample charge it its own payload plus a share of the bytes "
+             "all channels share (manifest, framing, model); the archive's ratio below is exact")
 
 
 def pack_table(res: PackResult) -> str:
