@@ -24,6 +24,7 @@ even, as ``np.rint``).
 
 from __future__ import annotations
 
+from contextlib import nullcontext
 from fractions import Fraction
 
 import numpy as np
@@ -31,15 +32,17 @@ import numpy as np
 _EXACT = 53                   # float64 holds every integer below 2**53
 
 
-def _limbs(a: np.ndarray, s: int, k: int) -> list[np.ndarray]:
-    """``a == sum(limb[j] * 2**(s*j))``: low limbs in [0, 2**s), the top one signed (``|top| <= 2**s``
-    when ``|a| < 2**(s*k)``), as float64 integers."""
-    out, rest = [], a
-    for _ in range(k - 1):
-        out.append((rest & ((1 << s) - 1)).astype(np.float64))
+def _limbs(a: np.ndarray, s: int, k: int) -> np.ndarray:
+    """``[limb_0 | limb_1 | ...]`` (float64, column-major) with ``a == sum(limb_j * 2**(s*j))``: low limbs
+    in [0, 2**s), the top one signed (``|top| <= 2**s`` when ``|a| < 2**(s*k)``)."""
+    cols = a.shape[1]
+    z = np.empty((a.shape[0], k * cols), dtype=np.float64, order="F")
+    rest = a
+    for j in range(k - 1):
+        z[:, j * cols:(j + 1) * cols] = rest & ((1 << s) - 1)
         rest = rest >> s
-    out.append(rest.astype(np.float64))
-    return out
+    z[:, (k - 1) * cols:] = rest
+    return z
 
 
 def gram(a: np.ndarray) -> list[list[int]]:
@@ -53,23 +56,36 @@ def gram(a: np.ndarray) -> list[list[int]]:
         raise ValueError("too many rows for an exact product")
     peak = int(np.abs(a).max(initial=0))
     k = max(1, -(-(peak.bit_length() + 1) // s))      # |a| < 2**(s*k)
-    z = np.concatenate(_limbs(a, s, k), axis=1)       # limb j of column c at j * cols + c
-    zz = z.T @ z                                      # every partial sum an integer below 2**53: exact
+    z = _limbs(a, s, k)                               # limb j of column c at j * cols + c
+    with _one_blas_thread():
+        zz = (z.T @ z).tolist()                       # every partial sum an integer below 2**53: exact
     out = [[0] * cols for _ in range(cols)]
     for i in range(cols):
         for j in range(i, cols):
             v = 0
             for li in range(k):
+                row = zz[li * cols + i]
                 for lj in range(k):
-                    v += int(zz[li * cols + i, lj * cols + j]) << (s * (li + lj))
+                    v += int(row[lj * cols + j]) << (s * (li + lj))
             out[i][j] = out[j][i] = v
     return out
 
 
+def _one_blas_thread():
+    """The BLAS on one thread for these small products: a second thread on a busy core only spins
+    (the planner already runs channels side by side).  Speed only: the sums are exact on any count."""
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:
+        return nullcontext()
+    return threadpool_limits(limits=1, user_api="blas")
+
+
 def _eliminate(G: list[list[int]], g: list[int]) -> tuple[list[list[int]], set[int]]:
     """Bareiss forward elimination of ``[G | g]``: row ``k`` is final after step ``k - 1`` and holds
-    only rows ``< k``, so the same rows serve every leading block.  Returns the rows and the indices
-    of the zero pivots."""
+    only rows ``< k``, so the same rows serve every leading block.  ``G`` is symmetric and so is each
+    reduced matrix (its entries are minors of ``G``): only the upper triangle is kept up to date, and
+    ``m[i][k]`` is read as ``m[k][i]``.  Returns the rows and the indices of the zero pivots."""
     n = len(G)
     m = [list(G[i]) + [g[i]] for i in range(n)]
     prev, free = 1, set()
@@ -80,10 +96,9 @@ def _eliminate(G: list[list[int]], g: list[int]) -> tuple[list[list[int]], set[i
             continue
         rk = m[k]
         for i in range(k + 1, n):
-            ri, mik = m[i], m[i][k]
-            for j in range(k + 1, n + 1):
+            ri, mik = m[i], rk[i]
+            for j in range(i, n + 1):
                 ri[j] = (ri[j] * piv - mik * rk[j]) // prev    # exact division (Sylvester's identity)
-            ri[k] = 0
         prev = piv
     return m, free
 
