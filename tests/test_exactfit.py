@@ -174,3 +174,37 @@ def test_build_table_and_cost_ignore_sample_order():
     ta, tb = build_table(a), build_table(b)
     assert ta == tb
     assert entropy.cost_bits(a, ta) == entropy.cost_bits(b, ta)
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+def test_gram_identical_and_exact_on_any_blas_thread_count(monkeypatch, threads):
+    # reference: Python integer arithmetic (exact) for three of the columns; the product itself runs
+    # on the BLAS with 1 or 2 threads (the module's own one-thread limit is lifted for this test)
+    monkeypatch.setattr(exactls, "_one_blas_thread", lambda: threadpool_limits(limits=threads, user_api="blas"))
+    rng = np.random.default_rng(8)
+    a = rng.integers(-(1 << 35), 1 << 35, size=(lpc.FIT_ROWS, 33))
+    got = exactls.gram(a)
+    cols = [[int(v) for v in a[:, j]] for j in (0, 17, 32)]
+    want = [[sum(x * y for x, y in zip(ci, cj)) for cj in cols] for ci in cols]
+    assert [[got[i][j] for j in (0, 17, 32)] for i in (0, 17, 32)] == want
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+def test_mode_choice_identical_under_blas_thread_counts(threads):
+    # common practice (no source): predictor, class, LPC set and table choices with the BLAS on 1 or 2
+    # threads equal the default's
+    from tsarchive.codec import choose_modes
+    from tsarchive.encoder import _tables
+    from tsarchive.predict import Context
+    x = make_signal(150 * 64, seed=5)[:, 0]
+    q = np.rint(x * 2 ** 14).astype(np.int64).reshape(150, 64)
+    level = q.mean(axis=1).round().astype(np.int64)
+
+    def run():
+        sets = lpc.fit_sets(q, level, proxy_bits)
+        tables, bits = _tables([(q, level, None)], sets, use_ae=False)
+        modes, cls, res, chosen = choose_modes(q, Context(level, None, sets), tables)
+        return sets, bits, sorted(tables.tables.items()), modes.tolist(), cls.tolist(), chosen.tolist()
+    want = run()
+    with threadpool_limits(limits=threads, user_api="blas"):
+        assert run() == want
