@@ -12,8 +12,8 @@ only:
   ``2**-24`` relative, 1e-7 bit);
 * ``log2(1 + f)`` by linear interpolation in a table of ``2**TABLE_BITS + 1``
   values, themselves computed once by the bit-by-bit squaring method on
-  Python integers (Knuth, TAOCP vol. 1, 1.2.2, exercise 25) with 64 guard
-  bits: no float operation anywhere.
+  uint64 (Knuth, TAOCP vol. 1, 1.2.2, exercise 25) with 31 guard bits: no
+  float operation anywhere.
 
 Costs are sums of these integers (int64 does not overflow below ``2**40``
 samples), or ``float64`` values ``n / 2**FRAC`` whose sums stay exact (and so
@@ -35,30 +35,31 @@ _MANT = 24                    # mantissa bits kept below the leading one
 _SMALL = 1 << 16              # direct table for x < _SMALL
 
 
-def _log2_1p(i: int, k: int, frac: int, guard: int = 64) -> int:
-    """``round(2**frac * log2(1 + i / 2**k))`` for ``0 <= i <= 2**k``, in integers only.
+def _log2_1p(i: np.ndarray, k: int, frac: int, guard: int = 31) -> np.ndarray:
+    """``2**frac * log2(1 + i / 2**k)`` (int64, within 2**(frac - guard + 2) of it) for
+    ``0 <= i <= 2**k``, in integer operations only.
 
     Bit by bit: for ``y`` in [1, 2), square it; a square >= 2 gives the next
     binary digit 1 (and is halved).  ``y`` is kept to ``guard`` fractional
-    bits, truncated, which moves the result by far less than its last unit.
+    bits, truncated (``y**2 < 2**64``: uint64), and a truncation at digit
+    ``j`` moves the result by about ``2**-(guard + j)`` only.
     """
-    one = 1 << guard
-    y = (((1 << k) + i) << guard) >> k
-    if y >= 2 * one:                      # i = 2**k: log2(2) = 1
-        return 1 << frac
-    out = 0
+    one = np.uint64(1 << guard)
+    y = ((np.uint64(1 << k) + i.astype(np.uint64)) << np.uint64(guard)) >> np.uint64(k)
+    top = y >= 2 * one                    # i = 2**k: log2(2) = 1
+    y = np.where(top, one, y)
+    out = np.zeros(len(y), dtype=np.int64)
     for _ in range(frac + 2):             # two extra digits to round on
-        y = (y * y) >> guard
-        out <<= 1
-        if y >= 2 * one:
-            out |= 1
-            y >>= 1
-    return (out + 2) >> 2
+        y = (y * y) >> np.uint64(guard)
+        big = y >= 2 * one
+        out = (out << 1) | big
+        y = np.where(big, y >> np.uint64(1), y)
+    return np.where(top, 1 << frac, (out + 2) >> 2)
 
 
 @cache
 def _table() -> np.ndarray:
-    return np.array([_log2_1p(i, TABLE_BITS, _TFRAC) for i in range((1 << TABLE_BITS) + 1)], dtype=np.int64)
+    return _log2_1p(np.arange((1 << TABLE_BITS) + 1), TABLE_BITS, _TFRAC)
 
 
 def _top_bit(u: np.ndarray) -> np.ndarray:
