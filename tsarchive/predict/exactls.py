@@ -59,6 +59,8 @@ def gram(a: np.ndarray) -> list[list[int]]:
     z = _limbs(a, s, k)                               # limb j of column c at j * cols + c
     with _one_blas_thread():
         zz = (z.T @ z).tolist()                       # every partial sum an integer below 2**53: exact
+    if k == 1:
+        return [[int(v) for v in row] for row in zz]
     out = [[0] * cols for _ in range(cols)]
     for i in range(cols):
         for j in range(i, cols):

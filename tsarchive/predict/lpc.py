@@ -63,13 +63,13 @@ def usable(q: np.ndarray, level: np.ndarray) -> np.ndarray:
     return np.abs(q - level[:, None]).max(axis=1, initial=0) < MAX_Y
 
 
-def _design(y: np.ndarray, order: int, rows: int) -> tuple[np.ndarray, np.ndarray]:
-    """Regression rows (int64): the ``order`` previous deviations of up to ``rows`` evenly chosen samples."""
+def _design(y: np.ndarray, order: int, rows: int) -> np.ndarray:
+    """Regression rows (int64) of up to ``rows`` evenly chosen samples: column 0 the sample,
+    column ``k`` its ``k``-th previous deviation."""
     n = y.shape[1] - order
     pick = _even(y.shape[0] * n, rows)
     w, i = pick // n, pick % n + order
-    X = y[w[:, None], i[:, None] - np.arange(1, order + 1)]   # one gather: row j holds y[w_j, i_j - k]
-    return X, y[w, i]
+    return y[w[:, None], i[:, None] - np.arange(order + 1)]   # one gather: row j holds y[w_j, i_j - k]
 
 
 def _even(total: int, count: int) -> np.ndarray:
@@ -99,9 +99,8 @@ def _coefs(a) -> LpcCoefs:
 
 def _normal_equations(y: np.ndarray, order: int, rows: int) -> tuple[list[list[int]], list[int]]:
     """``X.T X`` and ``X.T t`` of the regression rows, exactly (Python integers)."""
-    X, t = _design(y, order, rows)
-    m = exactls.gram(np.concatenate([X, t[:, None]], axis=1))
-    return [row[:order] for row in m[:order]], m[order][:order]
+    m = exactls.gram(_design(y, order, rows))
+    return [row[1:] for row in m[1:]], m[0][1:]
 
 
 def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
