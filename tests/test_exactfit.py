@@ -208,3 +208,19 @@ def test_mode_choice_identical_under_blas_thread_counts(threads):
     want = run()
     with threadpool_limits(limits=threads, user_api="blas"):
         assert run() == want
+
+
+@pytest.mark.parametrize("k, j", [(46341, 46339), (40001, 50001)])
+def test_channel_scale_is_the_exactly_rounded_rms(k, j):
+    # reference: Python integers, floor(sqrt(S/N) + 1/2) = (isqrt(4S // N) + 1) // 2.  The samples
+    # r±k, r±j have mean square r**2 + r with r = (k**2 + j**2) / 2 odd, an RMS just below r + 1/2:
+    # the float64 mean rounded it to r + 1/2 exactly and round() then gave r + 1
+    from tsarchive.windows import channel_scale
+    r = (k * k + j * j) // 2
+    q = np.array([[r + k, r - k, r + j, r - j]], dtype=np.int64)
+    s = sum(int(v) ** 2 for v in q[0])
+    assert channel_scale(q, np.zeros(1, dtype=np.int64)) == (math.isqrt(4 * s // 4) + 1) // 2 == r
+    big = np.random.default_rng(9).integers(-(1 << 33), 1 << 33, size=(300, 64))
+    lv = big.mean(axis=1).round().astype(np.int64)
+    s = sum(int(v) ** 2 for v in (big - lv[:, None]).ravel())
+    assert channel_scale(big, lv) == (math.isqrt(4 * s // big.size) + 1) // 2
