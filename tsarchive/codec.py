@@ -10,7 +10,9 @@ length of the window's residuals under the channel's entropy table for
 that predictor and the window's activity class (codes and levels are
 stored for every window, whatever its predictor, because browsing uses
 them).  Before tables exist a Laplace-style proxy ``sum log2(1 + 2|r|)``
-stands in.  Classes let quiet and busy stretches of one channel use
+stands in.  Every estimate is a fixed-point integer (:mod:`.fixedlog`)
+carried in float64 where its sums stay exact, so the choices, and the
+archive bytes, are the same on every CPU.  Classes let quiet and busy stretches of one channel use
 different tables, so a quiet window is not charged for the busy ones.
 """
 
@@ -18,7 +20,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import entropy
+from . import entropy, fixedlog
 from .predict import PREDICTORS, Context, get_predictor
 from .predict import lpc as lpc_mod
 
@@ -40,15 +42,50 @@ def candidate_modes(ctx: Context) -> list[int]:
 
 
 def proxy_bits(r: np.ndarray) -> np.ndarray:
-    """Per-window bit estimate without a table: sum of log2(1 + 2|r|) + 1 per sample."""
-    a = np.abs(r).astype(np.float32)          # an estimate: float32 is plenty, and twice as fast
-    return np.log2(1.0 + 2.0 * a).sum(axis=1, dtype=np.float64) + r.shape[1]
+    """Per-window bit estimate without a table: sum of log2(1 + 2|r|) + 1 per sample.
+
+    Each log2 is :func:`fixedlog.log2q` (``|r|`` capped at ``2**61``), summed in int64, so a
+    window's estimate is the same bits whatever the order of its samples or the CPU.
+    """
+    a = np.minimum(np.abs(r), 1 << 61)                 # |-2**63| wraps negative: the cap catches it too
+    a = np.where(a < 0, 1 << 61, a)
+    small = a < (1 << 15)
+    units = fixedlog.small_table()[np.where(small, 2 * a + 1, 0)]
+    if not small.all():
+        units[~small] = fixedlog.log2q(2 * a[~small] + 1)
+    return fixedlog.bits(units.sum(axis=1) + r.shape[1] * fixedlog.ONE)
+
+
+# class k >= 1 once 1.5 log2(1 + mean|r|) >= k, i.e. mean|r| >= 2**(2k/3) - 1: thresholds times 2**20,
+# from the integer cube root of 2**(2k + 60) (no float), so a window's class is decided in integers
+_CLASS_FRAC = 20
+
+
+def _icbrt(n: int) -> int:
+    """floor(n ** (1/3)) for an integer n >= 0 (Newton's method on integers)."""
+    x = 1 << -(-n.bit_length() // 3)
+    while True:
+        y = (2 * x + n // (x * x)) // 3
+        if y >= x:
+            return x
+        x = y
+
+
+_CLASS_AT = np.array([_icbrt(1 << (2 * k + 3 * _CLASS_FRAC)) - (1 << _CLASS_FRAC) for k in range(1, N_CLASSES)],
+                     dtype=np.int64)
 
 
 def spread_class(r: np.ndarray) -> np.ndarray:
-    """Activity class of each window's residuals: ``floor(1.5 log2(1 + mean|r|))`` in 0..15."""
-    m = np.abs(r).mean(axis=1) if r.shape[1] else np.zeros(r.shape[0])
-    return np.clip(np.floor(1.5 * np.log2(1.0 + m)), 0, N_CLASSES - 1).astype(np.int8)
+    """Activity class of each window's residuals: ``floor(1.5 log2(1 + mean|r|))`` in 0..15, decided
+    exactly: ``sum|r| * 2**20 >= n * threshold_k`` (each ``|r|`` capped at ``2**40``, beyond any threshold)."""
+    n = r.shape[1]
+    if not n:
+        return np.zeros(r.shape[0], dtype=np.int8)
+    a = np.abs(r)
+    s = np.where((a < 0) | (a > (1 << 40)), 1 << 40, a).sum(axis=1)     # < 2**62 for n < 2**22
+    # s >= n t / 2**20  <=>  s >= ceil(n t / 2**20), s an integer; n t < 2**53 for n < 2**22
+    need = -((-n * _CLASS_AT) >> _CLASS_FRAC)
+    return (s[:, None] >= need[None, :]).sum(axis=1).astype(np.int8)
 
 
 def sample_costs(r: np.ndarray, table) -> np.ndarray:
@@ -144,7 +181,7 @@ def choose_modes(q: np.ndarray, ctx: Context, tables: TableSet | None
 
 def _set_bits(n_sets: int) -> float:
     """Rough cost of naming one of ``n_sets`` LPC sets in a window's row."""
-    return float(np.log2(n_sets)) if n_sets > 1 else 0.0
+    return fixedlog.bits(fixedlog.log2q_int(n_sets)) if n_sets > 1 else 0.0
 
 
 def reconstruct(modes: np.ndarray, ctx: Context, residuals: np.ndarray) -> np.ndarray:

@@ -27,6 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from tsarchive import fixedlog
 from tsarchive.errors import ArchiveCorrupt, BadInput
 
 PRECISION = 24
@@ -99,8 +100,9 @@ class FreqTable:
 
     @functools.cached_property
     def token_cost(self) -> np.ndarray:
-        """Ideal code length in bits of each token (raw bits excluded)."""
-        return PRECISION - np.log2(self.freq_array.astype(np.float64))
+        """Ideal code length in bits of each token (raw bits excluded): ``24 - log2(freq)`` from
+        :func:`fixedlog.log2q`, a multiple of 2**-16 bit, so sums of costs are exact (order-free)."""
+        return fixedlog.bits((PRECISION << fixedlog.FRAC) - fixedlog.log2q(self.freq_array))
 
     @functools.cached_property
     def direct_values(self) -> np.ndarray:
@@ -243,19 +245,31 @@ def _quantize(counts: np.ndarray) -> tuple[int, ...]:
 
 
 def _candidate(hs, hb, ev, d, m):
-    """Token counts and total raw bits for parameters (d, m) from histograms."""
+    """Token counts and total raw bits for parameters (d, m) from histograms (int64, exact)."""
     D, T = 1 << d, n_tokens(d, m)
     vs = np.arange(D, len(hs), dtype=np.int64)
     evs = ev[D:]
     tok = D + ((evs - d) << m) + ((vs >> (evs - m)) & ((1 << m) - 1))
-    counts = np.bincount(tok, weights=hs[D:], minlength=T).astype(np.float64, copy=False)   # int64 when empty
+    # bincount adds float64 weights; integer counts below 2**53 add exactly in any order
+    counts = np.rint(np.bincount(tok, weights=hs[D:], minlength=T)).astype(np.int64)
     counts[:min(D, len(hs))] += hs[:D]
     e = np.arange(64)[:, None]
     tb = D + ((e - d) << m) + (np.arange(8)[None, :] >> (MAX_MANTISSA_BITS - m))
     nz = hb > 0
-    counts += np.bincount(tb[nz], weights=hb[nz], minlength=T)
-    raw = float((hs[D:] * (evs - m)).sum() + (hb * (e - m)).sum())
-    return np.rint(counts).astype(np.int64), raw
+    counts += np.rint(np.bincount(tb[nz], weights=hb[nz], minlength=T)).astype(np.int64)
+    raw = int((hs[D:] * (evs - m)).sum() + (hb * (e - m)).sum())
+    return counts, raw
+
+
+def _entropy_units(c: np.ndarray, n: int) -> int:
+    """``-sum c log2(c / n)`` = ``n log2 n - sum c log2 c`` in units of 2**-16 bit, exactly in integers
+    (Python integers: ``c log2 c`` may pass int64 for large channels)."""
+    lc = fixedlog.log2q(c)
+    if n < (1 << 31):                                  # c * log2q(c) <= 2**31 * 2**21, sum < 2**63
+        part = int((c * lc).sum())
+    else:
+        part = sum(int(a) * int(b) for a, b in zip(c.tolist(), lc.tolist()))
+    return n * fixedlog.log2q_int(n) - part
 
 
 def build_table(samples, max_symbols: int = 4096) -> FreqTable:
@@ -264,7 +278,8 @@ def build_table(samples, max_symbols: int = 4096) -> FreqTable:
     Chooses ``center`` (median) and the binning parameters with at most
     ``max_symbols`` tokens that minimise the estimated size: entropy of the
     tokens + raw bits + table bytes.  Every token gets frequency >= 1, so any
-    int64 stays codable.  Deterministic for a given input on a given machine;
+    int64 stays codable.  The estimate is an integer (units of 2**-16 bit,
+    :mod:`tsarchive.fixedlog`), so the choice is the same on every machine;
     decoding depends only on the stored integers.
     """
     a = _as_int64(np.ravel(np.asarray(samples)))
@@ -283,7 +298,7 @@ def build_table(samples, max_symbols: int = 4096) -> FreqTable:
         hb += np.bincount(eb * 8 + ((ub >> (eb - 3).astype(_U64)) & _U64(7)).astype(np.int64), minlength=64 * 8)
     used_hs = np.flatnonzero(hs)
     hs = hs[:used_hs[-1] + 1 if used_hs.size else 1]     # trailing empty bins change no candidate's counts
-    hs, hb = hs.astype(np.float64), hb.reshape(64, 8).astype(np.float64)
+    hb = hb.reshape(64, 8)
     ev = _top_bit(np.maximum(np.arange(len(hs), dtype=_U64), _U64(1)))
     n = max(a.size, 1)
     best = None
@@ -292,13 +307,17 @@ def build_table(samples, max_symbols: int = 4096) -> FreqTable:
             if n_tokens(d, m) > max_symbols:
                 continue
             counts, raw = _candidate(hs, hb, ev, d, m)
-            c = counts[counts > 0].astype(np.float64)
             used = np.flatnonzero(counts)
             span = int(used[-1]) + 1 if used.size else 0
             table_bits = 8 * (12 + 3 * used.size + (span - used.size))
-            floor_bits = n * n_tokens(d, m) / TOTAL / np.log(2)  # mass given to unused tokens
-            cost = float(-(c * np.log2(c / n)).sum()) + raw + table_bits + floor_bits
+            # mass given to unused tokens: n T / 2**24 / ln 2 bits, with 1/ln 2 = 1.4426950408889634 as
+            # the integer 94548 / 2**16 (rounded once, a constant)
+            floor_units = n * n_tokens(d, m) * _INV_LN2_UNITS >> PRECISION
+            cost = _entropy_units(counts[used], n) + ((raw + table_bits) << fixedlog.FRAC) + floor_units
             if best is None or cost < best[0]:
                 best = (cost, d, m, counts)
     _, d, m, counts = best
     return FreqTable(center, d, m, _quantize(counts))
+
+
+_INV_LN2_UNITS = 94548        # round(2**16 / ln 2)

@@ -8,7 +8,11 @@ normalised for the autoencoder by a per-channel integer *scale*.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
+
+from .predict.exactls import gram
 
 DEFAULT_WINDOW = 1024
 MIN_WINDOW, MAX_WINDOW = 8, 65536
@@ -53,8 +57,12 @@ def normalise(q: np.ndarray, level: np.ndarray, scale: int, window: int) -> np.n
 
 
 def channel_scale(q_sample: np.ndarray, level: np.ndarray) -> int:
-    """Integer normalisation scale: RMS deviation from the window level (>= 1)."""
+    """Integer normalisation scale: RMS deviation from the window level, rounded half up (>= 1).
+
+    Exact (it is stored, and it shapes every code): the sum of squares in integers
+    (:func:`.predict.exactls.gram`), then ``floor(sqrt(S / N) + 1/2) = (isqrt(4 S // N) + 1) // 2``.
+    """
     if q_sample.size == 0:
         return 1
-    dev = (q_sample - level[:, None]).astype(np.float64)
-    return max(1, int(round(float(np.sqrt(np.mean(dev * dev))))))
+    dev = np.ascontiguousarray(q_sample - level[:, None], dtype=np.int64).reshape(-1, 1)
+    return max(1, (math.isqrt(4 * gram(dev)[0][0] // dev.size) + 1) // 2)

@@ -2,9 +2,12 @@
 
 Within a window, ``y = q - level`` is predicted from ``y[i-1], …, y[i-p]``
 (zero before the window start) as ``P = (Σ A_k y[i-k] + 2**(S-1)) >> S``.
-The integer coefficients ``A_k`` are fitted by least squares
-(numpy.linalg.lstsq) on a sample of the channel's windows, for a few orders,
-keeping the cheapest; they are stored in the manifest.  All arithmetic is
+The integer coefficients ``A_k`` are fitted by least squares on a sample of
+the channel's windows, for a few orders, keeping the cheapest; they are
+stored in the manifest.  The fit is exact (integer covariances, a rational
+solve: :mod:`.exactls`) and the costs are integers in disguise
+(:mod:`tsarchive.fixedlog`), so the same samples give the same coefficients
+on every machine and BLAS.  All arithmetic is
 int64 and exact; decoding runs the recursion sample by sample in a numba
 kernel (compiled on first use and cached on disk), or vectorised across
 windows with numpy where numba cannot be imported.  Both give the same bits.
@@ -17,7 +20,9 @@ from functools import cache
 
 import numpy as np
 
+from .. import fixedlog
 from ..errors import ArchiveCorrupt
+from . import exactls
 
 SHIFT = 14                 # fixed-point bits of the coefficients
 MAX_COEF = 1 << 18         # |A_k| bound
@@ -58,14 +63,22 @@ def usable(q: np.ndarray, level: np.ndarray) -> np.ndarray:
     return np.abs(q - level[:, None]).max(axis=1, initial=0) < MAX_Y
 
 
-def _design(y: np.ndarray, order: int, rows: int) -> tuple[np.ndarray, np.ndarray]:
-    """Regression rows: the ``order`` previous deviations of up to ``rows`` evenly chosen samples."""
+def _design(y: np.ndarray, order: int, rows: int) -> np.ndarray:
+    """Regression rows (int64) of up to ``rows`` evenly chosen samples: column 0 the sample,
+    column ``k`` its ``k``-th previous deviation."""
     n = y.shape[1] - order
-    starts = np.arange(n)
-    pick = np.linspace(0, y.shape[0] * n - 1, min(rows, y.shape[0] * n)).astype(np.int64)
-    w, i = pick // n, starts[pick % n] + order
-    X = y[w[:, None], i[:, None] - np.arange(1, order + 1)]   # one gather: row j holds y[w_j, i_j - k]
-    return X, y[w, i]
+    pick = _even(y.shape[0] * n, rows)
+    w, i = pick // n, pick % n + order
+    return y[w[:, None], i[:, None] - np.arange(order + 1)]   # one gather: row j holds y[w_j, i_j - k]
+
+
+def _even(total: int, count: int) -> np.ndarray:
+    """``min(total, count)`` indices ``floor(j (total - 1) / (count - 1))`` spread over ``range(total)``,
+    in integers (distinct: the step is at least 1)."""
+    count = min(total, count)
+    if count <= 1:
+        return np.zeros(count, dtype=np.int64)
+    return np.arange(count, dtype=np.int64) * (total - 1) // (count - 1)
 
 
 def _windows_for(samples: int, n: int, least: int) -> int:
@@ -76,20 +89,26 @@ def _windows_for(samples: int, n: int, least: int) -> int:
 
 def _spread(total: int, count: int) -> np.ndarray:
     """Up to ``count`` indices spread evenly over ``range(total)``."""
-    return np.unique(np.linspace(0, total - 1, min(total, count)).astype(np.int64))
+    return _even(total, count)
 
 
-def _coefs(a: np.ndarray) -> LpcCoefs:
-    A = np.clip(np.rint(a * (1 << SHIFT)), -MAX_COEF, MAX_COEF).astype(np.int64)
-    return LpcCoefs(tuple(int(v) for v in A))
+def _coefs(a) -> LpcCoefs:
+    """Rational least-squares coefficients -> ``round(a 2**SHIFT)`` within ``±MAX_COEF``."""
+    return LpcCoefs(tuple(min(MAX_COEF, max(-MAX_COEF, exactls.fixed_point(v, SHIFT))) for v in a))
+
+
+def _normal_equations(y: np.ndarray, order: int, rows: int) -> tuple[list[list[int]], list[int]]:
+    """``X.T X`` and ``X.T t`` of the regression rows, exactly (Python integers)."""
+    m = exactls.gram(_design(y, order, rows))
+    return [row[1:] for row in m[1:]], m[0][1:]
 
 
 def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
     """The cheapest of the candidate orders on windows ``q`` under ``cost(residuals) -> bits``.
 
     Least squares by the covariance method: one Gram matrix of the largest
-    order serves every order (its leading block), solved with
-    numpy.linalg.lstsq; each order is then scored on evenly spread windows
+    order serves every order (its leading block), computed and solved
+    exactly (:mod:`.exactls`); each order is then scored on evenly spread windows
     holding about :data:`SCORE_SAMPLES` samples, and on at least
     :data:`SCORE_MIN_WINDOWS` (fewer long windows made the choice noisy:
     16 windows of 8192 cost the seismometer case 0.9 % at 1e-2).
@@ -99,15 +118,13 @@ def fit(q: np.ndarray, level: np.ndarray, cost) -> LpcCoefs:
     orders = [p for p in ORDERS if q.shape[1] > 2 * p]
     if len(q) == 0 or not orders:
         return LpcCoefs(())
-    y = (q - level[:, None]).astype(np.float64)
-    X, t = _design(y, orders[-1], FIT_ROWS)
-    G, g = X.T @ X, X.T @ t
+    G, g = _normal_equations(q - level[:, None], orders[-1], FIT_ROWS)
+    solved = exactls.solve_leading(G, g, orders)
     score = _spread(len(q), _windows_for(SCORE_SAMPLES, q.shape[1], SCORE_MIN_WINDOWS))
     qs, ls = q[score], level[score]
     best, best_bits = LpcCoefs(()), float(cost(residuals(qs, ls, LpcCoefs(()))).sum())
     for p in orders:
-        a, *_ = np.linalg.lstsq(G[:p, :p], g[:p], rcond=None)
-        c = _coefs(a)
+        c = _coefs(solved[p])
         bits = float(cost(residuals(qs, ls, c)).sum()) + 32 * p
         if bits < best_bits:
             best, best_bits = c, bits
@@ -123,10 +140,8 @@ COEF_BITS = 40             # what one stored coefficient costs (JSON in the mani
 
 def _fit_order(q: np.ndarray, level: np.ndarray, order: int) -> LpcCoefs:
     """Least-squares coefficients of one given order on windows ``q``."""
-    y = (q - level[:, None]).astype(np.float64)
-    X, t = _design(y, order, SET_FIT_ROWS)
-    a, *_ = np.linalg.lstsq(X.T @ X, X.T @ t, rcond=None)   # normal equations: order x order
-    return _coefs(a)
+    G, g = _normal_equations(q - level[:, None], order, SET_FIT_ROWS)
+    return _coefs(exactls.solve_leading(G, g, [order])[order])
 
 
 def fit_sets(q: np.ndarray, level: np.ndarray, cost) -> tuple[LpcCoefs, ...]:
@@ -157,7 +172,9 @@ def fit_sets(q: np.ndarray, level: np.ndarray, cost) -> tuple[LpcCoefs, ...]:
 
     def total(c, sets):
         k = len(sets)
-        return float(c.min(axis=0).sum()) + COEF_BITS * sum(s.order for s in sets) + np.log2(k) * len(q)
+        # every term a multiple of 2**-16 bit far below 2**37 bits: exact sums (tsarchive.fixedlog)
+        return float(c.min(axis=0).sum()) + COEF_BITS * sum(s.order for s in sets) \
+            + fixedlog.bits(fixedlog.log2q_int(k) * len(q))
 
     sets = [first]
     c = costs(sets)
