@@ -216,3 +216,27 @@ async def test_largest_errors_show_the_share_of_the_budget_not_the_error_twice(s
         used = 100 * table.worst_error[top] / meta.eps                # share of the budget (definition)
         assert rows[0][heads.index("Used")] == f"{used:.1f} %"
         assert rows[0][heads.index("Worst err")] == f"{table.worst_error[top]:.3g}"
+
+
+# -- true progress -----------------------------------------------------------------------------------
+async def test_step_marks_do_not_fill_the_bar_while_work_goes_on():
+    from textual.app import App
+    from textual.widgets import ProgressBar
+
+    from tsarchive.app.widgets.stage_progress import StageProgress
+
+    class One(App):
+        def compose(self):
+            yield StageProgress()
+
+    app = One()
+    async with app.run_test(size=(80, 24)) as pilot:
+        widget = app.query_one(StageProgress)
+        bar = widget.query_one(ProgressBar)
+        # pack says "read 1 of 1" when the file is parsed, then keeps planning before "encode" (pipeline.py)
+        widget.advance(tsarchive.Progress("read", 1, 1, "2 channel(s), 2000 samples"))
+        await pilot.pause()
+        assert bar.percentage is None                  # pulsing, not a full bar
+        widget.advance(tsarchive.Progress("encode", 30, 120))
+        await pilot.pause()
+        assert bar.percentage == pytest.approx(30 / 120)  # counted work: its true share
