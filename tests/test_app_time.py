@@ -240,3 +240,14 @@ async def test_step_marks_do_not_fill_the_bar_while_work_goes_on():
         widget.advance(tsarchive.Progress("encode", 30, 120))
         await pilot.pause()
         assert bar.percentage == pytest.approx(30 / 120)  # counted work: its true share
+
+
+async def test_contents_names_the_real_start_or_says_times_are_elapsed(shelves):
+    for folder, want in ((shelves["clock"], "Started 2026-03-04 09:15:00.00 (no zone logged)"),
+                         (shelves["gap"], "Start time not logged (times are elapsed)")):
+        app = NotedApp(folder)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.press("enter")
+            await settle(app, pilot)
+            state = str(app.screen.query_one("#contents-state").render())
+            assert want in state.replace("\n", " ")

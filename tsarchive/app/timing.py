@@ -96,12 +96,14 @@ class TimeLabels:
             return since(seconds)
         return time_of_day(self.first, seconds, with_date=self.long)
 
-    def start_line(self) -> str:
+    def start_line(self, capital: bool = False) -> str:
         """The recording's real start, for titles and panels."""
         if self.first is None:
-            return "start time not logged (times are elapsed)"
-        zone = f" {self.zone}" if self.zone else " (no zone logged)"
-        return f"started {time_of_day(self.first, 0.0, with_date=True)}{zone}"
+            text = "start time not logged (times are elapsed)"
+        else:
+            zone = f" {self.zone}" if self.zone else " (no zone logged)"
+            text = f"started {time_of_day(self.first, 0.0, with_date=True)}{zone}"
+        return text[0].upper() + text[1:] if capital else text
 
 
 def ticks(lo: float, hi: float, labels: TimeLabels, count: int = 4) -> tuple[list[float], list[str]]:

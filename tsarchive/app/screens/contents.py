@@ -23,6 +23,7 @@ from tsarchive.app.guard import archive_lock
 from tsarchive.app.locate import find_source
 from tsarchive.app.messages import ArchiveReady, CheckDone, CheckStep, WorkFailed
 from tsarchive.app.screens.base import Notices
+from tsarchive.app.timing import TimeLabels
 from tsarchive.app.widgets.pick_table import PickTable
 from tsarchive.app.summary import FAILED, UNVERIFIED, USED_HELP, archive_duration, check_lines, over_budget
 from tsarchive.app.widgets.caution import Caution
@@ -71,6 +72,7 @@ class ContentsScreen(Notices, Screen):
     def load(self, path: Path, folder: Path) -> None:
         try:
             arc = tsarchive.open(path)
+            arc.timeline  # the logged time axis, read here rather than on the screen's thread
         except TsArchiveError as exc:
             self.post_message(WorkFailed(str(exc), title="Cannot open the archive"))
             return
@@ -104,7 +106,8 @@ class ContentsScreen(Notices, Screen):
         self.query_one("#contents-state", Static).update(
             f"{budget}.\nCheck: {self.check_state} · {len(arc.channels)} channels · "
             f"{fmt.duration(archive_duration(arc.channels))} · {fmt.size(arc.archive_bytes)} · "
-            f"ratio {fmt.ratio(arc.ratio)} · {original}\n{USED_HELP}.")
+            f"ratio {fmt.ratio(arc.ratio)} · {original}\n"
+            f"{TimeLabels(arc.timeline, archive_duration(arc.channels)).start_line(capital=True)}. {USED_HELP}.")
 
     def watch_check_state(self, state: str) -> None:
         self.app.checks[self.path] = state  # type: ignore[attr-defined]
