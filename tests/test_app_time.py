@@ -251,3 +251,39 @@ async def test_contents_names_the_real_start_or_says_times_are_elapsed(shelves):
             await settle(app, pilot)
             state = str(app.screen.query_one("#contents-state").render())
             assert want in state.replace("\n", " ")
+
+
+# -- the original, picked by hand --------------------------------------------------------------------
+async def test_original_picked_by_path_gives_the_error_plot_and_is_remembered(shelves, tmp_path):
+    import shutil
+
+    from tsarchive.app.screens.contents import ContentsScreen
+
+    lab = shelves["lab"]
+    shutil.copytree(lab / "bench_log.tsarchive", tmp_path / "bench_log.tsarchive")  # alone, as demo leaves it
+    app = NotedApp(tmp_path / "bench_log.tsarchive")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        contents = app.screen
+        assert "bench_log.csv not found" in str(contents.query_one("#contents-state").render())
+        await pilot.press("o")
+        field = contents.query_one("#contents-original")
+        assert field.has_focus
+        field.value = str(tmp_path / "nowhere.csv")
+        await pilot.press("enter")
+        assert app.errors() and "is not a file" in app.errors()[-1]
+        field.value = str(lab / "bench_log.csv")
+        await pilot.press("enter")
+        await settle(app, pilot)
+        assert "original bench_log.csv found" in str(contents.query_one("#contents-state").render())
+        await pilot.press("down", "s")                    # accel in the Strip
+        await settle(app, pilot)
+        plot = app.screen.query_one(StripPlot)
+        assert "error" in plot.drawn and plot.band == pytest.approx(
+            tsarchive.open(tmp_path / "bench_log.tsarchive").channel("accel").eps)
+        await pilot.press("escape", "escape")            # Strip -> Contents -> Folder
+        await settle(app, pilot)
+        await pilot.press("enter")                       # the archive again: the choice is kept
+        await settle(app, pilot)
+        assert isinstance(app.screen, ContentsScreen) and app.screen is not contents
+        assert "original bench_log.csv found" in str(app.screen.query_one("#contents-state").render())

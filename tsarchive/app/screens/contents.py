@@ -3,7 +3,9 @@
 The archive is opened by ``tsarchive.open`` in a worker. ``v`` runs
 ``Archive.verify`` (against the original when it is found next to the archive or
 in the Folder screen's folder) in a thread worker with progress; the check panel names any
-failing window. Enter on a channel opens it in the Strip; ``e`` exports a range.
+failing window. Enter on a channel opens it in the Strip; ``e`` exports a range; ``o`` lets the
+user type where the original is when it is not beside the archive (kept for the session, in
+``TsArchiveApp.sources``), so verification and the Strip's error plot can use it.
 """
 
 from __future__ import annotations
@@ -15,7 +17,7 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.reactive import reactive
 from textual.screen import Screen
-from textual.widgets import DataTable, Footer, Static
+from textual.widgets import DataTable, Footer, Input, Static
 
 import tsarchive
 from tsarchive.app import fmt
@@ -40,6 +42,7 @@ class ContentsScreen(Notices, Screen):
         Binding("s", "strip", "Strip"),
         Binding("v", "verify", "Verify"),
         Binding("e", "export", "Export"),
+        Binding("o", "original", "Original", tooltip="type where the original recording is (kept for this session)"),
         Binding("escape", "back", "Back"),
         Binding("q", "app.quit", "Quit", tooltip="quit tsarchive (also Ctrl+Q)"),
     ]
@@ -57,6 +60,8 @@ class ContentsScreen(Notices, Screen):
         yield Static(f"Contents · {self.path.name}", id="contents-title", classes="title", markup=False)
         yield Caution(id="contents-caution")
         yield Static("opening…", id="contents-state", markup=False)
+        yield Input(placeholder="original recording: type its path, Enter to use, Esc to leave",
+                    id="contents-original", compact=True)
         yield PickTable(id="contents-table")
         yield StageProgress(("verify",), id="contents-progress")
         yield Static("", id="contents-check", markup=False)
@@ -65,6 +70,7 @@ class ContentsScreen(Notices, Screen):
     def on_mount(self) -> None:
         self.query_one(DataTable).add_columns(*COLUMNS)
         self.query_one("#contents-progress").display = False
+        self.query_one("#contents-original").display = False
         self.check_state = self.app.checks.get(self.path, UNVERIFIED)  # type: ignore[attr-defined]
         self.load(self.path, getattr(self.app, "folder", self.path.parent))
 
@@ -80,7 +86,7 @@ class ContentsScreen(Notices, Screen):
 
     def on_archive_ready(self, message: ArchiveReady) -> None:
         arc = self.archive = message.archive
-        self.source = message.source
+        self.source = self.app.sources.get(self.path, message.source)  # type: ignore[attr-defined]
         table = self.query_one(DataTable)
         table.clear()
         for ch in arc.channels:
@@ -102,7 +108,8 @@ class ContentsScreen(Notices, Screen):
         if self.source is not None:
             original = f"original {self.source.name} found"
         else:
-            original = f"original {arc.source_name or '(unnamed)'} not found (verify checks checksums only)"
+            original = (f"original {arc.source_name or '(unnamed)'} not found (verify checks checksums only; "
+                        "o: say where it is)")
         self.query_one("#contents-state", Static).update(
             f"{budget}.\nCheck: {self.check_state} · {len(arc.channels)} channels · "
             f"{fmt.duration(archive_duration(arc.channels))} · {fmt.size(arc.archive_bytes)} · "
@@ -173,6 +180,35 @@ class ContentsScreen(Notices, Screen):
         if worker.group == "contents-verify":
             self.checking = False
 
+    # -- the original recording, picked by hand --------------------------------------
+    def action_original(self) -> None:
+        field = self.query_one("#contents-original", Input)
+        field.value = str(self.source) if self.source is not None else ""
+        field.display = True
+        field.focus()
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        if event.input.id != "contents-original":
+            return
+        event.stop()
+        text = event.value.strip()
+        if not text:
+            self._close_original()
+            return
+        path = Path(text).expanduser()
+        if not path.is_file():
+            self.notify(f"{path} is not a file; type the path of the original recording", title="Original",
+                        severity="error")
+            return
+        self.source = path.resolve()
+        self.app.sources[self.path] = self.source  # type: ignore[attr-defined]
+        self._close_original()
+        self._show_state()
+
+    def _close_original(self) -> None:
+        self.query_one("#contents-original", Input).display = False
+        self.query_one(DataTable).focus()
+
     # -- navigation --------------------------------------------------------------
     def action_strip(self) -> None:
         if self.archive is None or not self.archive.channels:
@@ -195,10 +231,15 @@ class ContentsScreen(Notices, Screen):
         self.app.push_screen(ExportScreen(self.archive))
 
     def action_back(self) -> None:
+        if self.query_one("#contents-original", Input).display:
+            self._close_original()
+            return
         self.app.pop_screen()
 
     def check_action(self, action: str, parameters: tuple) -> bool | None:
-        if action in ("strip", "export", "verify") and self.archive is None:
+        if isinstance(self.focused, Input) and action in ("strip", "export", "verify", "original"):
+            return False  # letters typed into the path field are text
+        if action in ("strip", "export", "verify", "original") and self.archive is None:
             return None
         if action == "verify" and self.checking:
             return None

@@ -232,7 +232,8 @@ class StripScreen(Notices, Screen):
                          f"mode {self.table.mode[pos]}")
         if self.original is None:
             missing = self.archive.source_name or "the original"
-            parts.append(f"original not at hand: put {missing} next to the archive to compare")
+            parts.append(f"original not at hand: put {missing} next to the archive, or press o on Contents "
+                         "to say where it is, to compare")
         self.query_one("#strip-info", Static).update("\n".join(parts))
 
     def work_failed(self, message: WorkFailed) -> None:
