@@ -59,6 +59,11 @@ def shelves(tmp_path_factory):
     (d / "dense.csv").write_text("time,v\n" + "".join(f"{k / 10_000:.4f},{v:.3f}\n" for k, v in enumerate(y)))
     _pack(d, "dense.csv", "0.01")
     out["dense"] = d
+    d = root / "steps"; d.mkdir()  # noqa: E702 - lossless, two levels 0.06 apart
+    (d / "steps.csv").write_text("time,temp\n" + "".join(
+        f"{i / 10:.1f},{20.06 if (i // 40) % 2 else 20.0:.2f}\n" for i in range(400)))
+    _pack(d, "steps.csv", "lossless")
+    out["steps"] = d
     d = root / "lab"; d.mkdir()  # noqa: E702 - the app tests' stream, no codes
     write_stream(d / "bench_log.csv")
     _pack(d, "bench_log.csv", "temp=0.05,accel=0.5%")
@@ -287,3 +292,13 @@ async def test_original_picked_by_path_gives_the_error_plot_and_is_remembered(sh
         await settle(app, pilot)
         assert isinstance(app.screen, ContentsScreen) and app.screen is not contents
         assert "original bench_log.csv found" in str(app.screen.query_one("#contents-state").render())
+
+
+async def test_lossless_small_step_is_not_stretched_to_full_height(shelves):
+    app = NotedApp(shelves["steps"])
+    async with app.run_test(size=(80, 24)) as pilot:
+        strip = await open_strip(app, pilot, row=0)
+        lo, hi = strip.query_one(StripPlot).y_limits
+        x = strip.stretch.rebuilt
+        assert set(np.unique(x).tolist()) == {20.0, 20.06}      # both levels in view (as written)
+        assert (x.max() - x.min()) / (hi - lo) <= 0.1           # one 0.06 step in at least 10 steps of height

@@ -110,6 +110,12 @@ def y_range(values: list[np.ndarray], floor: float) -> tuple[float, float] | Non
     return mid - 0.55 * span, mid + 0.55 * span
 
 
+def finest_step(y: np.ndarray) -> float:
+    """The smallest gap between distinct finite values of ``y`` (0 when there are fewer than two)."""
+    v = np.unique(y[np.isfinite(y)])
+    return float(np.diff(v).min()) if len(v) > 1 else 0.0
+
+
 class StripPlot(Vertical):
     """Draws a :class:`StretchLoaded`; ``drawn`` names the lines on screen (for tests too).
 
@@ -166,7 +172,8 @@ class StripPlot(Vertical):
         self.title = "  ".join(names)
         plt.title(self.title)
         plt.ylabel(unit or "value")
-        self.y_limits = y_range([stretch.rebuilt, stretch.original, stretch.preview], floor=10 * stretch.eps)
+        self.y_limits = y_range([stretch.rebuilt, stretch.original, stretch.preview],
+                                floor=10 * (stretch.eps if stretch.eps > 0 else finest_step(stretch.rebuilt)))
         if self.y_limits is not None:
             plt.ylim(*self.y_limits)
         self._axis(plt, stretch, labels)
