@@ -302,3 +302,51 @@ async def test_lossless_small_step_is_not_stretched_to_full_height(shelves):
         x = strip.stretch.rebuilt
         assert set(np.unique(x).tolist()) == {20.0, 20.06}      # both levels in view (as written)
         assert (x.max() - x.min()) / (hi - lo) <= 0.1           # one 0.06 step in at least 10 steps of height
+
+
+# -- a verification kept beside the archive ---------------------------------------------------------
+async def test_demo_verification_is_kept_and_listed_as_verified(shelves, tmp_path):
+    import hashlib
+    import shutil
+
+    from tsarchive.demo import run_demo
+
+    samples, out = tmp_path / "samples", tmp_path / "out"
+    samples.mkdir()
+    shutil.copy(shelves["steps"] / "steps.csv", samples / "steps.csv")
+    run_demo(out, samples=samples, echo=lambda *_: None)   # packs and verifies against the source
+    arc = out / "steps.tsarchive"
+    sha = hashlib.sha256((arc / "manifest.json").read_bytes()).hexdigest()  # hashlib: the record's name
+    assert (out / ".tsarchive-checks" / f"{sha}.json").is_file()
+    app = NotedApp(out)                                     # a new session: nothing checked in it yet
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        rows = {r[0]: r for r in cells(app.screen.query_one("#folder-table"))}
+        assert rows["steps.tsarchive"][-1] == "verified ok"
+        await pilot.press("enter")
+        await settle(app, pilot)
+        assert "on record (against steps.csv" in str(app.screen.query_one("#contents-check").render())
+    (arc / "manifest.json").write_bytes((arc / "manifest.json").read_bytes() + b" ")  # another archive now
+    app = NotedApp(out)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        rows = {r[0]: r for r in cells(app.screen.query_one("#folder-table"))}
+        assert rows["steps.tsarchive"][-1] == "unverified"
+
+
+async def test_a_verification_in_the_app_is_kept_for_the_next_session(shelves, tmp_path):
+    import shutil
+
+    for name in ("bench_log.csv", "bench_log.tsarchive"):
+        (shutil.copytree if name.endswith("archive") else shutil.copy)(shelves["lab"] / name, tmp_path / name)
+    app = NotedApp(tmp_path / "bench_log.tsarchive")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        await pilot.press("v")
+        await settle(app, pilot)
+        assert app.screen.check_state == "verified ok"
+    app = NotedApp(tmp_path)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        rows = {r[0]: r for r in cells(app.screen.query_one("#folder-table"))}
+        assert rows["bench_log.tsarchive"][-1] == "verified ok"

@@ -21,6 +21,7 @@ from textual.widgets import DataTable, Footer, Input, Static
 
 import tsarchive
 from tsarchive.app import fmt
+from tsarchive.app.checkrecord import read_record, write_record
 from tsarchive.app.guard import archive_lock
 from tsarchive.app.locate import find_source
 from tsarchive.app.messages import ArchiveReady, CheckDone, CheckStep, WorkFailed
@@ -71,7 +72,11 @@ class ContentsScreen(Notices, Screen):
         self.query_one(DataTable).add_columns(*COLUMNS)
         self.query_one("#contents-progress").display = False
         self.query_one("#contents-original").display = False
-        self.check_state = self.app.checks.get(self.path, UNVERIFIED)  # type: ignore[attr-defined]
+        kept = None if self.path in self.app.checks else read_record(self.path)  # type: ignore[attr-defined]
+        self.check_state = self.app.checks.get(  # type: ignore[attr-defined]
+            self.path, kept.state if kept is not None else UNVERIFIED)
+        if kept is not None:
+            self.query_one("#contents-check", Static).update(f"Check {kept.line()}; v checks again now.")
         self.load(self.path, getattr(self.app, "folder", self.path.parent))
 
     @work(thread=True, exclusive=True, group="contents-open", exit_on_error=False)
@@ -142,6 +147,7 @@ class ContentsScreen(Notices, Screen):
                 # a changed original is named first, and its samples are still compared to show where
                 report = arc.verify(against=source, progress=lambda p: self.post_message(CheckStep(p)),
                                     even_if_changed=True)
+                write_record(self.path, report, source)  # kept beside the archive, by its manifest's SHA-256
                 starts = {ch.name: arc.windows(ch.name).start_sample / arc.channel(ch.name).rate
                           for ch in report.channels if ch.bad_windows or ch.bad_checksums}
         except ArchiveCorrupt as exc:
