@@ -38,12 +38,6 @@ def elapsed_at(timeline, samples: np.ndarray) -> np.ndarray:
     return np.array([elapsed(timeline, int(k), int(k) + 1)[0] for k in samples])
 
 
-def sample_at(times: np.ndarray, second: float) -> int:
-    """The sample whose elapsed time is nearest at or before ``second`` (``times`` ascending)."""
-    i = int(np.searchsorted(times, second, side="right")) - 1
-    return min(max(i, 0), max(len(times) - 1, 0))
-
-
 def first_time(timeline) -> np.datetime64 | None:
     """The first sample's logged time of day (naive as logged), or None for an elapsed-only axis."""
     if timeline.kind != DATETIME or timeline.n == 0:

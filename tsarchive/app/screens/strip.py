@@ -221,7 +221,8 @@ class StripScreen(Notices, Screen):
         a, b = self.view
         unit = f" {self.meta.unit}" if self.meta.unit else ""
         lo, hi = self.seconds(a), self.seconds(b)
-        parts = [f"view {self.labels.at(lo)}–{self.labels.at(hi)} ({fmt.duration(hi - lo)}); {self.labels.start_line()}"]
+        parts = [f"view {self.labels.at(lo)}–{self.labels.at(hi)} ({fmt.duration(hi - lo)}); "
+                 f"{self.labels.start_line()}"]
         if self.table is not None and 0 <= self.current < len(self.table.index):
             pos = self.current
             worst = float(self.table.worst_error[pos])
@@ -315,7 +316,8 @@ class StripScreen(Notices, Screen):
 
         a, b = self.view
         self.app.push_screen(ExportScreen(self.archive, channels=(self.meta.name,),
-                                          start=self.seconds(a), end=self.seconds(b) if b < self.meta.n_samples else None))
+                                          start=self.seconds(a),
+                                          end=self.seconds(b) if b < self.meta.n_samples else None))
 
     def check_action(self, action: str, parameters: tuple) -> bool | None:
         """Arrow and page keys step windows, except while the jump field is being typed in."""
