@@ -350,3 +350,15 @@ async def test_a_verification_in_the_app_is_kept_for_the_next_session(shelves, t
         await settle(app, pilot)
         rows = {r[0]: r for r in cells(app.screen.query_one("#folder-table"))}
         assert rows["bench_log.tsarchive"][-1] == "verified ok"
+
+
+def test_window_starts_read_in_chunks_match_the_whole_axis(shelves, monkeypatch):
+    from tsarchive.app import timing
+
+    tl = tsarchive.open(shelves["gap"] / "gap.tsarchive").timeline
+    starts = np.arange(0, 600, W)
+    whole = timing.elapsed(tl, 0, tl.n)[starts]
+    monkeypatch.setattr(timing, "WHOLE", 7)                 # many small chunks, edges inside windows
+    got = timing.elapsed_at(tl, starts)
+    assert np.array_equal(got, whole)
+    assert np.array_equal(got, shelves["gap_t"][starts])    # the times written to gap.csv (t0 = 0)

@@ -15,7 +15,7 @@ import numpy as np
 DATETIME = "datetime"
 NS = 10**9
 WHOLE = 1 << 22
-"""Up to this many samples the window starts are taken from one pass over the axis."""
+"""Samples of the time axis read at once when looking up window starts."""
 
 
 def elapsed(timeline, a: int, b: int) -> np.ndarray:
@@ -29,13 +29,14 @@ def elapsed(timeline, a: int, b: int) -> np.ndarray:
 
 
 def elapsed_at(timeline, samples: np.ndarray) -> np.ndarray:
-    """:func:`elapsed` of the listed sample numbers (ascending)."""
-    samples = np.asarray(samples, dtype=np.int64)
-    if not len(samples):
-        return np.zeros(0)
-    if timeline.n <= WHOLE:
-        return elapsed(timeline, 0, timeline.n)[np.minimum(samples, timeline.n - 1)]
-    return np.array([elapsed(timeline, int(k), int(k) + 1)[0] for k in samples])
+    """:func:`elapsed` of the listed sample numbers (ascending), read in bounded chunks of the axis."""
+    samples = np.minimum(np.asarray(samples, dtype=np.int64), max(timeline.n - 1, 0))
+    out = np.zeros(len(samples))
+    for c0 in range(0, timeline.n if len(samples) else 0, WHOLE):
+        lo, hi = np.searchsorted(samples, [c0, c0 + WHOLE])
+        if hi > lo:
+            out[lo:hi] = elapsed(timeline, c0, min(c0 + WHOLE, timeline.n))[samples[lo:hi] - c0]
+    return out
 
 
 def first_time(timeline) -> np.datetime64 | None:

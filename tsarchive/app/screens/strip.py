@@ -262,8 +262,9 @@ class StripScreen(Notices, Screen):
             return
         if second is None or not len(self.starts):
             return
-        if second > self.meta.duration:
-            self.notify(f"{text} is past the end ({self.labels.at(self.meta.duration)})", severity="warning")
+        last = self.seconds(self.meta.n_samples - 1)
+        if second > last:
+            self.notify(f"{text} is past the end ({self.labels.at(last)})", severity="warning")
         self.centre_on(second)
         self.query_one(DataTable).focus()
 
