@@ -154,7 +154,8 @@ async def test_dense_recording_is_drawn_as_a_min_max_envelope(shelves):
         a, b = strip.view
         width = plot.query_one("#plot-signal").size.width
         assert b - a > 2 * width and plot.drawn["archive"] <= width  # one point per column, not a zigzag
-        assert "lowest and highest per column" in plot.title
+        assert plot.enveloped and "each column's lowest and highest value" in str(
+            strip.query_one("#strip-info").render())
 
 
 def test_envelope_keeps_each_columns_extremes():

@@ -223,6 +223,8 @@ class StripScreen(Notices, Screen):
         lo, hi = self.seconds(a), self.seconds(b)
         parts = [f"view {self.labels.at(lo)}–{self.labels.at(hi)} ({fmt.duration(hi - lo)}); "
                  f"{self.labels.start_line()}"]
+        if self.query_one(StripPlot).enveloped:
+            parts[0] += "; lines show each column's lowest and highest value"
         if self.table is not None and 0 <= self.current < len(self.table.index):
             pos = self.current
             worst = float(self.table.worst_error[pos])

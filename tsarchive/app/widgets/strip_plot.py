@@ -130,6 +130,8 @@ class StripPlot(Vertical):
         self.y_limits: tuple[float, float] | None = None
         self.x_ticks: tuple[list[float], list[str]] = ([], [])
         self.title = ""
+        self.enveloped = False
+        """Whether the lines were drawn as each column's lowest and highest value."""
 
     def compose(self) -> ComposeResult:
         yield CachedPlot(id="plot-signal")
@@ -163,8 +165,7 @@ class StripPlot(Vertical):
         names.append("▀ archive")
         self._line(plt, "preview", t, stretch.preview, "+", columns)
         names.append(f"+ {preview_name}")
-        if len(t) > 2 * columns:
-            names.append("(lowest and highest per column)")
+        self.enveloped = len(t) > 2 * columns
         if marks is not None:
             for x in marks:
                 if stretch.start <= x <= stretch.end:
@@ -187,7 +188,8 @@ class StripPlot(Vertical):
             return
         from tsarchive.app.timing import ticks
 
-        self.x_ticks = ticks(stretch.start, stretch.end, labels)
+        width = self.query_one("#plot-signal", CachedPlot).size.width
+        self.x_ticks = ticks(stretch.start, stretch.end, labels, count=max(2, (width - 8) // 14))
         plt.xticks(*self.x_ticks)
         plt.xlabel(labels.axis_name)
 
