@@ -229,7 +229,7 @@ async def test_strip_windows_plot_and_keys(lab):
         meta, table = arc.channel("accel"), arc.windows("accel")
         rows = cells(strip.query_one("#strip-windows"))
         assert len(rows) == N_WINDOWS
-        assert [r[1] for r in rows[:3]] == ["0:00.00", "0:00.64", "0:01.28"]  # starts k * 64 / 100 Hz
+        assert [r[1] for r in rows[:3]] == ["+0:00.00", "+0:00.64", "+0:01.28"]  # elapsed starts k * 64 / 100 Hz
         assert [r[4] for r in rows] == list(table.mode)
         plot = strip.query_one(StripPlot)
         assert set(plot.drawn) == {"original", "archive", "preview", "error"}

@@ -80,7 +80,8 @@ def test_demo_writes_archives_with_the_new_name(tmp_path, capsys):
     write_stream(samples / "tiny.csv", n=400)
     code, out, err = _cli(capsys, "demo", "--samples", samples, "--out", tmp_path / "out", "--no-app")
     assert code == 0, err
-    assert sorted(p.name for p in (tmp_path / "out").iterdir()) == ["tiny.tsarchive"]
+    # the archive, and its verification kept beside it (.tsarchive-checks/)
+    assert sorted(p.name for p in (tmp_path / "out").iterdir()) == [".tsarchive-checks", "tiny.tsarchive"]
 
 
 def test_version_is_the_installed_one(capsys):

@@ -8,7 +8,8 @@ The App gets its one input, a path, through its constructor:
 * a recording file: the Folder screen lists its folder with that file selected.
 
 Session state kept here: the verification state of each archive checked in this
-session (:attr:`TsArchiveApp.checks`). The app drives the library only through
+session (:attr:`TsArchiveApp.checks`), and the originals the user pointed archives at
+(:attr:`TsArchiveApp.sources`). The app drives the library only through
 ``tsarchive.pack``, ``tsarchive.open``, ``tsarchive.inspect_source`` and the
 ``Archive`` methods; it holds no codec logic.
 """
@@ -65,6 +66,8 @@ class TsArchiveApp(App):
             self.folder = Path.cwd()
         self.checks: dict[Path, str] = {}
         """Verification state of archives checked this session: ``verified ok`` or ``failed``."""
+        self.sources: dict[Path, Path] = {}
+        """Originals the user pointed archives at this session (archive path -> recording)."""
 
     def get_default_screen(self) -> Screen:
         return FolderScreen(self.folder)

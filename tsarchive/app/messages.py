@@ -108,6 +108,8 @@ class WindowsLoaded(Message):
 
     table: Any
     original: np.ndarray | None = None
+    starts: np.ndarray | None = None
+    """Each window's start, seconds from the first sample on the logged time axis."""
 
 
 @dataclass
@@ -125,6 +127,8 @@ class StretchLoaded(Message):
     original: np.ndarray | None
     error: np.ndarray | None
     eps: float
+    first: int = 0
+    """The sample number of ``t[0]``."""
 
 
 @dataclass

@@ -3,7 +3,9 @@
 The archive is opened by ``tsarchive.open`` in a worker. ``v`` runs
 ``Archive.verify`` (against the original when it is found next to the archive or
 in the Folder screen's folder) in a thread worker with progress; the check panel names any
-failing window. Enter on a channel opens it in the Strip; ``e`` exports a range.
+failing window. Enter on a channel opens it in the Strip; ``e`` exports a range; ``o`` lets the
+user type where the original is when it is not beside the archive (kept for the session, in
+``TsArchiveApp.sources``), so verification and the Strip's error plot can use it.
 """
 
 from __future__ import annotations
@@ -15,14 +17,16 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.reactive import reactive
 from textual.screen import Screen
-from textual.widgets import DataTable, Footer, Static
+from textual.widgets import DataTable, Footer, Input, Static
 
 import tsarchive
 from tsarchive.app import fmt
+from tsarchive.app.checkrecord import read_record, write_record
 from tsarchive.app.guard import archive_lock
 from tsarchive.app.locate import find_source
 from tsarchive.app.messages import ArchiveReady, CheckDone, CheckStep, WorkFailed
 from tsarchive.app.screens.base import Notices
+from tsarchive.app.timing import TimeLabels
 from tsarchive.app.widgets.pick_table import PickTable
 from tsarchive.app.summary import FAILED, UNVERIFIED, USED_HELP, archive_duration, check_lines, over_budget
 from tsarchive.app.widgets.caution import Caution
@@ -39,6 +43,7 @@ class ContentsScreen(Notices, Screen):
         Binding("s", "strip", "Strip"),
         Binding("v", "verify", "Verify"),
         Binding("e", "export", "Export"),
+        Binding("o", "original", "Original", tooltip="type where the original recording is (kept for this session)"),
         Binding("escape", "back", "Back"),
         Binding("q", "app.quit", "Quit", tooltip="quit tsarchive (also Ctrl+Q)"),
     ]
@@ -56,6 +61,8 @@ class ContentsScreen(Notices, Screen):
         yield Static(f"Contents · {self.path.name}", id="contents-title", classes="title", markup=False)
         yield Caution(id="contents-caution")
         yield Static("opening…", id="contents-state", markup=False)
+        yield Input(placeholder="original recording: type its path, Enter to use, Esc to leave",
+                    id="contents-original", compact=True)
         yield PickTable(id="contents-table")
         yield StageProgress(("verify",), id="contents-progress")
         yield Static("", id="contents-check", markup=False)
@@ -64,13 +71,19 @@ class ContentsScreen(Notices, Screen):
     def on_mount(self) -> None:
         self.query_one(DataTable).add_columns(*COLUMNS)
         self.query_one("#contents-progress").display = False
-        self.check_state = self.app.checks.get(self.path, UNVERIFIED)  # type: ignore[attr-defined]
+        self.query_one("#contents-original").display = False
+        kept = None if self.path in self.app.checks else read_record(self.path)  # type: ignore[attr-defined]
+        self.check_state = self.app.checks.get(  # type: ignore[attr-defined]
+            self.path, kept.state if kept is not None else UNVERIFIED)
+        if kept is not None:
+            self.query_one("#contents-check", Static).update(f"Check {kept.line()}; v checks again now.")
         self.load(self.path, getattr(self.app, "folder", self.path.parent))
 
     @work(thread=True, exclusive=True, group="contents-open", exit_on_error=False)
     def load(self, path: Path, folder: Path) -> None:
         try:
             arc = tsarchive.open(path)
+            arc.timeline  # the logged time axis, read here rather than on the screen's thread
         except TsArchiveError as exc:
             self.post_message(WorkFailed(str(exc), title="Cannot open the archive"))
             return
@@ -78,7 +91,7 @@ class ContentsScreen(Notices, Screen):
 
     def on_archive_ready(self, message: ArchiveReady) -> None:
         arc = self.archive = message.archive
-        self.source = message.source
+        self.source = self.app.sources.get(self.path, message.source)  # type: ignore[attr-defined]
         table = self.query_one(DataTable)
         table.clear()
         for ch in arc.channels:
@@ -100,11 +113,13 @@ class ContentsScreen(Notices, Screen):
         if self.source is not None:
             original = f"original {self.source.name} found"
         else:
-            original = f"original {arc.source_name or '(unnamed)'} not found (verify checks checksums only)"
+            original = (f"original {arc.source_name or '(unnamed)'} not found (verify checks checksums only; "
+                        "o: say where it is)")
         self.query_one("#contents-state", Static).update(
             f"{budget}.\nCheck: {self.check_state} · {len(arc.channels)} channels · "
             f"{fmt.duration(archive_duration(arc.channels))} · {fmt.size(arc.archive_bytes)} · "
-            f"ratio {fmt.ratio(arc.ratio)} · {original}\n{USED_HELP}.")
+            f"ratio {fmt.ratio(arc.ratio)} · {original}\n"
+            f"{TimeLabels(arc.timeline, archive_duration(arc.channels)).start_line(capital=True)}. {USED_HELP}.")
 
     def watch_check_state(self, state: str) -> None:
         self.app.checks[self.path] = state  # type: ignore[attr-defined]
@@ -132,6 +147,7 @@ class ContentsScreen(Notices, Screen):
                 # a changed original is named first, and its samples are still compared to show where
                 report = arc.verify(against=source, progress=lambda p: self.post_message(CheckStep(p)),
                                     even_if_changed=True)
+                write_record(self.path, report, source)  # kept beside the archive, by its manifest's SHA-256
                 starts = {ch.name: arc.windows(ch.name).start_sample / arc.channel(ch.name).rate
                           for ch in report.channels if ch.bad_windows or ch.bad_checksums}
         except ArchiveCorrupt as exc:
@@ -170,6 +186,35 @@ class ContentsScreen(Notices, Screen):
         if worker.group == "contents-verify":
             self.checking = False
 
+    # -- the original recording, picked by hand --------------------------------------
+    def action_original(self) -> None:
+        field = self.query_one("#contents-original", Input)
+        field.value = str(self.source) if self.source is not None else ""
+        field.display = True
+        field.focus()
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        if event.input.id != "contents-original":
+            return
+        event.stop()
+        text = event.value.strip()
+        if not text:
+            self._close_original()
+            return
+        path = Path(text).expanduser()
+        if not path.is_file():
+            self.notify(f"{path} is not a file; type the path of the original recording", title="Original",
+                        severity="error")
+            return
+        self.source = path.resolve()
+        self.app.sources[self.path] = self.source  # type: ignore[attr-defined]
+        self._close_original()
+        self._show_state()
+
+    def _close_original(self) -> None:
+        self.query_one("#contents-original", Input).display = False
+        self.query_one(DataTable).focus()
+
     # -- navigation --------------------------------------------------------------
     def action_strip(self) -> None:
         if self.archive is None or not self.archive.channels:
@@ -192,10 +237,15 @@ class ContentsScreen(Notices, Screen):
         self.app.push_screen(ExportScreen(self.archive))
 
     def action_back(self) -> None:
+        if self.query_one("#contents-original", Input).display:
+            self._close_original()
+            return
         self.app.pop_screen()
 
     def check_action(self, action: str, parameters: tuple) -> bool | None:
-        if action in ("strip", "export", "verify") and self.archive is None:
+        if isinstance(self.focused, Input) and action in ("strip", "export", "verify", "original"):
+            return False  # letters typed into the path field are text
+        if action in ("strip", "export", "verify", "original") and self.archive is None:
             return None
         if action == "verify" and self.checking:
             return None

@@ -22,6 +22,7 @@ from tsarchive.app.locate import FolderEntry, scan_folder, tree_size
 from tsarchive.app.messages import FolderDetailsLoaded, WorkFailed
 from tsarchive.app.screens.base import Notices
 from tsarchive.app.widgets.pick_table import PickTable
+from tsarchive.app.checkrecord import read_record
 from tsarchive.app.summary import UNVERIFIED, archive_duration
 from tsarchive.errors import TsArchiveError
 
@@ -100,7 +101,8 @@ class FolderScreen(Notices, Screen):
     def _cells(self, e: FolderEntry) -> tuple[str, ...]:
         d = self.details.get(e.path)
         if e.is_archive:
-            check = self.app.checks.get(e.path, UNVERIFIED)  # type: ignore[attr-defined]
+            kept = read_record(e.path) if e.path not in self.app.checks else None  # type: ignore[attr-defined]
+            check = self.app.checks.get(e.path, kept.state if kept else UNVERIFIED)  # type: ignore[attr-defined]
         else:
             check = "—"
         if d is None:

@@ -28,12 +28,18 @@ from tsarchive.app.locate import read_time
 from tsarchive.app.messages import StretchLoaded, WindowsLoaded, WorkFailed
 from tsarchive.app.screens.base import Notices
 from tsarchive.app.summary import window_at
+from tsarchive.app.timing import TimeLabels, elapsed, elapsed_at
 from tsarchive.app.widgets.strip_plot import StripPlot
 from tsarchive.errors import TsArchiveError
 
-COLUMNS = ("#", "Start", "Worst err", "Score", "Mode")
+COLUMNS = ("#", "Worst err", "Score", "Mode")
 MIN_SPAN = 8
 """Narrowest view in samples."""
+
+
+def as_plotted(x) -> np.ndarray:
+    """Samples as float64 for drawing; missing samples of integer channels (masked) become NaN gaps."""
+    return np.ma.filled(np.ma.asarray(x).astype(np.float64), np.nan)
 
 
 def source_column(source: Path, meta, position: int) -> np.ndarray:
@@ -87,6 +93,8 @@ class StripScreen(Notices, Screen):
         self.starts = np.zeros(0)
         self.span = min(3 * self.meta.window, max(self.meta.n_samples, MIN_SPAN))
         self.stretch: StretchLoaded | None = None
+        self.labels = TimeLabels(archive.timeline, self.meta.duration)
+        self._keep_view = False
 
     def compose(self) -> ComposeResult:
         unit = f" [{self.meta.unit}]" if self.meta.unit else ""
@@ -102,7 +110,7 @@ class StripScreen(Notices, Screen):
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
-        self.query_one(DataTable).add_columns(*COLUMNS)
+        self.query_one(DataTable).add_columns(COLUMNS[0], self.labels.column, *COLUMNS[1:])
         self.load_windows()
 
     # -- loading -------------------------------------------------------------------
@@ -114,21 +122,22 @@ class StripScreen(Notices, Screen):
         except TsArchiveError as exc:
             self.post_message(WorkFailed(str(exc), title="Cannot list the windows"))
             return
+        starts = elapsed_at(self.archive.timeline, table.start_sample)
         original = None
         if self.source is not None:
             try:
                 original = source_column(self.source, self.meta, self.position)
             except TsArchiveError as exc:
                 self.post_message(WorkFailed(str(exc), title="Original not used"))
-        self.post_message(WindowsLoaded(table, original))
+        self.post_message(WindowsLoaded(table, original, starts))
 
     def on_windows_loaded(self, message: WindowsLoaded) -> None:
         self.table, self.original = message.table, message.original
-        self.starts = np.asarray(self.table.start_sample, dtype=np.float64) / self.meta.rate
+        self.starts = message.starts
         dt = self.query_one(DataTable)
         dt.clear()
         for pos in range(len(self.table.index)):
-            dt.add_row(str(int(self.table.index[pos])), fmt.clock(self.starts[pos]),
+            dt.add_row(str(int(self.table.index[pos])), self.labels.at(self.starts[pos]),
                        fmt.num(self.table.worst_error[pos], 3), fmt.num(self.table.score[pos], 3),
                        str(self.table.mode[pos]), key=str(pos))
         dt.focus()
@@ -137,29 +146,40 @@ class StripScreen(Notices, Screen):
 
     @work(thread=True, exclusive=True, group="strip-stretch", exit_on_error=False)
     def load_stretch(self, a: int, b: int) -> None:
-        rate, name = self.meta.rate, self.meta.name
+        name, n = self.meta.name, self.meta.n_samples
         try:
             with archive_lock(self.archive):
-                rebuilt = np.asarray(self.archive.read(name, a / rate, b / rate), dtype=np.float64)
-                preview = np.asarray(self.archive.preview(name, a / rate, b / rate), dtype=np.float64)
+                t = elapsed(self.archive.timeline, a, b)  # the logged times: gaps and jitter count
+                lo, hi = float(t[0]), (float(elapsed(self.archive.timeline, b, b + 1)[0]) if b < n else None)
+                rebuilt = as_plotted(self.archive.read(name, lo, hi))
+                preview = as_plotted(self.archive.preview(name, lo, hi))
         except TsArchiveError as exc:
             self.post_message(WorkFailed(str(exc), title="Cannot read this stretch"))
             return
         original = error = None
+        t = t[:len(rebuilt)]
         if self.original is not None:
-            original = np.asarray(self.original[a:a + len(rebuilt)], dtype=np.float64)
+            original = as_plotted(self.original[a:a + len(rebuilt)])
             error = rebuilt - original
-        t = (a + np.arange(len(rebuilt))) / rate
-        self.post_message(StretchLoaded(a / rate, b / rate, t, rebuilt, preview, original, error, self.meta.eps))
+        self.post_message(StretchLoaded(float(t[0]), float(t[-1]), t, rebuilt, preview, original, error,
+                                        self.meta.eps, first=a))
 
     def on_stretch_loaded(self, message: StretchLoaded) -> None:
         self.stretch = message
         marks = None
         if self.table is not None and 0 <= self.current < len(self.starts):
-            first = self.starts[self.current]
-            marks = (first, first + int(self.table.n[self.current]) / self.meta.rate)
-        self.query_one(StripPlot).show(message, self.meta.unit, marks)
+            s0 = int(self.table.start_sample[self.current])
+            edges = (s0, s0 + int(self.table.n[self.current]) - 1)
+            marks = tuple(float(message.t[k - message.first]) for k in edges
+                          if 0 <= k - message.first < len(message.t)) or None
+        self.query_one(StripPlot).show(message, self.meta.unit, marks, self.labels, preview_name=self.preview_name)
         self._show_info()
+
+    @property
+    def preview_name(self) -> str:
+        """What ``Archive.preview`` draws here: the codes' picture, or only each window's mean level."""
+        has_codes = self.table is not None and self.table.codes.shape[1] > 0 and self.archive.decoder is not None
+        return "code-only preview" if has_codes else "window means"
 
     # -- state -----------------------------------------------------------------------
     def watch_current(self, pos: int) -> None:
@@ -168,8 +188,19 @@ class StripScreen(Notices, Screen):
         dt = self.query_one(DataTable)
         if dt.cursor_row != pos:
             dt.move_cursor(row=pos, scroll=True)
+        if self._keep_view:
+            self._keep_view = False
+            if self.stretch is not None:
+                self.on_stretch_loaded(self.stretch)  # same stretch, new window marks
+            return
         first = int(self.table.start_sample[pos])
         self._set_view(first + int(self.table.n[pos]) // 2, self.span)
+
+    def seconds(self, sample: int) -> float:
+        """Elapsed seconds of ``sample`` on the logged time axis (the end of the recording past the last)."""
+        if sample >= self.meta.n_samples:
+            return float(self.meta.duration)
+        return float(elapsed(self.archive.timeline, sample, sample + 1)[0])
 
     def _set_view(self, centre: int, span: int) -> None:
         n = self.meta.n_samples
@@ -183,13 +214,17 @@ class StripScreen(Notices, Screen):
     def watch_view(self, view: tuple[int, int]) -> None:
         a, b = view
         if b > a:
-            self.query_one("#strip-info", Static).update(f"reading {fmt.clock(a / self.meta.rate)}…")
+            self.query_one("#strip-info", Static).update(f"reading from {self.labels.at(self.seconds(a))}…")
             self.load_stretch(a, b)
 
     def _show_info(self) -> None:
         a, b = self.view
-        rate, unit = self.meta.rate, (f" {self.meta.unit}" if self.meta.unit else "")
-        parts = [f"view {fmt.clock(a / rate)}–{fmt.clock(b / rate)} ({fmt.duration((b - a) / rate)})"]
+        unit = f" {self.meta.unit}" if self.meta.unit else ""
+        lo, hi = self.seconds(a), self.seconds(b)
+        parts = [f"view {self.labels.at(lo)}–{self.labels.at(hi)} ({fmt.duration(hi - lo)}); "
+                 f"{self.labels.start_line()}"]
+        if self.query_one(StripPlot).enveloped:
+            parts[0] += "; lines show each column's lowest and highest value"
         if self.table is not None and 0 <= self.current < len(self.table.index):
             pos = self.current
             worst = float(self.table.worst_error[pos])
@@ -200,7 +235,8 @@ class StripScreen(Notices, Screen):
                          f"mode {self.table.mode[pos]}")
         if self.original is None:
             missing = self.archive.source_name or "the original"
-            parts.append(f"original not at hand: put {missing} next to the archive to compare")
+            parts.append(f"original not at hand: put {missing} next to the archive, or press o on Contents "
+                         "to say where it is, to compare")
         self.query_one("#strip-info", Static).update("\n".join(parts))
 
     def work_failed(self, message: WorkFailed) -> None:
@@ -228,10 +264,20 @@ class StripScreen(Notices, Screen):
             return
         if second is None or not len(self.starts):
             return
-        if second > self.meta.duration:
-            self.notify(f"{text} is past the end ({fmt.clock(self.meta.duration)})", severity="warning")
-        self.current = window_at(self.starts, second)
+        last = self.seconds(self.meta.n_samples - 1)
+        if second > last:
+            self.notify(f"{text} is past the end ({self.labels.at(last)})", severity="warning")
+        self.centre_on(second)
         self.query_one(DataTable).focus()
+
+    def centre_on(self, second: float) -> None:
+        """Centre the view on the sample at ``second`` (elapsed) and select the window holding it."""
+        sample = min(self.archive.span(max(second, 0.0), None)[0], self.meta.n_samples - 1)
+        row = window_at(np.asarray(self.table.start_sample, dtype=np.float64), float(sample))
+        self._set_view(sample, self.span)
+        if row != self.current:
+            self._keep_view = True
+            self.current = row
 
     def action_step(self, delta: int) -> None:
         if self.table is not None and len(self.table.index):
@@ -273,7 +319,8 @@ class StripScreen(Notices, Screen):
 
         a, b = self.view
         self.app.push_screen(ExportScreen(self.archive, channels=(self.meta.name,),
-                                          start=a / self.meta.rate, end=b / self.meta.rate))
+                                          start=self.seconds(a),
+                                          end=self.seconds(b) if b < self.meta.n_samples else None))
 
     def check_action(self, action: str, parameters: tuple) -> bool | None:
         """Arrow and page keys step windows, except while the jump field is being typed in."""

@@ -3,6 +3,8 @@
 Shows the stages as a row of words with a mark each (``✓`` done, ``▶`` running,
 ``·`` waiting) so the state reads without colour, a bar for the running stage,
 and one detail line (epochs and loss while training, windows while encoding, ETA).
+The bar shows a share only for events that count something (``total > 1``); the library's
+"0 of 1" / "1 of 1" step marks (reading, planning) leave it pulsing, as the work goes on.
 """
 
 from __future__ import annotations
@@ -84,7 +86,10 @@ class StageProgress(Vertical):
         line = describe(progress)
         self.lines[stage] = line
         bar = self.query_one(".stage-bar", ProgressBar)
-        bar.update(total=progress.total or None, progress=progress.done)
+        if progress.total > 1:
+            bar.update(total=progress.total, progress=progress.done)
+        else:  # "1 of 1" only says a step began or ended while the work goes on: no share to show
+            bar.update(total=None, progress=0)
         self.query_one(".stage-detail", Static).update(line)
 
     def finish(self, text: str) -> None:
