@@ -224,21 +224,18 @@ def _unpack(args) -> int:
 
 def _verify(args) -> int:
     from .progress_line import ProgressLine
+    from .store.reader import open_archive
     from .verifier import verify_archive
+    arc = open_archive(args.archive, strict=False)      # opened once: verified, then named in the JSON
     line = ProgressLine(enabled=False if args.quiet else None)
     try:
-        rep = verify_archive(args.archive, against=args.against, rate=args.rate, even_if_changed=args.even_if_changed,
+        rep = verify_archive(arc, against=args.against, rate=args.rate, even_if_changed=args.even_if_changed,
                              progress=line)
     finally:
         line.close()
     if args.json:
         from .report import identity
-        from .store.reader import open_archive
-        try:
-            ident = identity(open_archive(args.archive, strict=False))
-        except TsArchiveError as exc:          # an archive verify could not open names its damage instead
-            ident = {"archive": str(Path(args.archive).resolve()), "unreadable": str(exc)}
-        print(json.dumps({**rep.to_dict(), "against": args.against, "identity": ident}, indent=1))
+        print(json.dumps({**rep.to_dict(), "against": args.against, "identity": identity(arc)}, indent=1))
     else:
         from .report import verify_text
         print(verify_text(rep))

@@ -16,6 +16,7 @@ import re
 from dataclasses import dataclass
 
 from ..errors import BadInput
+from ..store.timeaxis import MAX_RATE
 
 #: ``Z``, ``+01:00``, ``-0530``: a fixed offset from UTC (ISO 8601 "time zone designator").
 ZONE_RE = re.compile(r"^(?:Z|(?P<sign>[+-])(?P<h>\d{2}):?(?P<m>\d{2}))$")
@@ -93,7 +94,7 @@ def check_rate(rate) -> float | None:
         raise BadInput(f"rate {rate!r} is not a number of samples per second; pass e.g. --rate 1000") from None
     if not (math.isfinite(r) and r > 0):
         raise BadInput(f"rate {rate!r} is not a positive number of samples per second; pass e.g. --rate 1000")
-    if r > 1e9:
+    if r > MAX_RATE:
         raise BadInput(f"rate {r:g} Hz is above 1 GHz, where samples would share a nanosecond; check the rate")
     return r
 

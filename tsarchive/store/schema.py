@@ -45,7 +45,6 @@ MODEL = "model.parquet"
 EXCEPTIONS = "exceptions.parquet"
 TIME = "time.parquet"                  # the logged time axis when it is irregular (store/timeaxis.py)
 EXTRA = "extra.parquet"                # non-numeric source columns (store/sidecar.py)
-MEMBERS = (WINDOWS, EXCEPTIONS, MODEL, TIME, EXTRA)
 REQUIRED_MEMBERS = (WINDOWS,)          # the others only when the manifest lists them
 WORST_STEPS = 250                      # per-window worst error is stored in 1/250ths of ε, rounded up
 
