@@ -347,9 +347,18 @@ def test_rate_beside_a_time_column_must_agree_and_without_time_is_explicit(tmp_p
         read_recording(p, options=ReadOptions(without_time=True))
 
 
+def test_last_sample_after_2262_is_refused_at_ingest_with_the_store_limit(tmp_path):
+    # int64 nanoseconds since 1970 end on 2262-04-11 (numpy datetime64[ns] range, numpy docs): a span ending in
+    # 2270 cannot be stored, so ingest must refuse it with the same limit the store uses (was: 2300 at ingest).
+    p = write(tmp_path, "late.csv", b"time,x\n2250-01-01T00:00:00,1\n2250-01-01T00:00:01,2\n2250-01-01T00:00:02,3\n")
+    rate = 2 / ((datetime(2270, 1, 1) - datetime(2250, 1, 1)).total_seconds())   # 3 samples from 2250 to 2270
+    with pytest.raises(BadInput, match="after 2262"):
+        read_recording(p, rate=rate, options=ReadOptions(without_time=True))
+
+
 def test_absurd_rates_are_refused(tmp_path):
     p = write(tmp_path, "z.csv", b"time,x\n2024-01-01T00:00:00,1\n2024-01-01T00:00:01,2\n2024-01-01T00:00:02,3\n")
-    with pytest.raises(BadInput, match="after 2300"):    # 3 samples at 1e-10 Hz: 317 years apart each
+    with pytest.raises(BadInput, match="after 2262"):    # 3 samples at 1e-10 Hz: 317 years apart each
         read_recording(p, rate=1e-10, options=ReadOptions(without_time=True))
     with pytest.raises(BadInput, match="share a nanosecond"):
         read_recording(p, rate=1e12, options=ReadOptions(without_time=True))

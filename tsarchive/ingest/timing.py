@@ -16,12 +16,13 @@ that go back.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import datetime, timedelta, timezone
 
 import numpy as np
 
 from ..errors import BadInput
 from ..recording import TimeAxis
+from ..store.timeaxis import EARLIEST_NS, LATEST_NS
 
 _NS = 1_000_000_000
 
@@ -30,8 +31,10 @@ SECONDS_REL_TOL = 1e-6
 #: A datetime column is regular when every step is within this many nanoseconds of the median step.
 DATETIME_ABS_TOL_NS = 1_000_000
 
-#: Rates that put a recording's timestamps outside these years are refused.
-EARLIEST, LATEST = datetime(1900, 1, 1), datetime(2300, 1, 1)
+#: Rates that put a recording's timestamps outside these years are refused: the store's limits
+#: (int64 nanoseconds since 1970 end in April 2262), so ingest and store refuse the same spans.
+EARLIEST = datetime(1970, 1, 1) + timedelta(microseconds=EARLIEST_NS // 1000)
+LATEST = datetime(1970, 1, 1) + timedelta(microseconds=LATEST_NS // 1000)
 
 
 @dataclass(frozen=True)
@@ -129,7 +132,7 @@ def check_rate_beside(rate: float, timing: Timing, name: str) -> None:
 
 
 def check_span(start: datetime | None, n: int, rate: float) -> None:
-    """BadInput when ``n`` samples at ``rate`` from ``start`` end before 1900 or after 2300."""
+    """BadInput when ``n`` samples at ``rate`` from ``start`` start before 1900 or end after 2262."""
     if start is None or n < 2:
         return
     naive = start.replace(tzinfo=None) if start.tzinfo is None else start.astimezone(timezone.utc).replace(tzinfo=None)
