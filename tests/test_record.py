@@ -138,7 +138,26 @@ def test_report_shows_the_kept_verification_after_a_restart(tmp_path, packed, ca
     last = json.loads(capsys.readouterr().out)["last_check"]
     assert (last["ok"], last["compared"], last["against"], last["against_sha256"]) == \
         (True, True, "bench log.csv", _sha(src))
-    assert main(["verify", str(arc), "--quiet"]) == 0       # a later checksums-only check replaces it
+    assert main(["verify", str(arc), "--quiet"]) == 0       # a later checksums-only pass keeps the comparison
+    capsys.readouterr()
+    main(["report", str(arc)])
+    assert f"last check: verified against bench log.csv (SHA-256 {_sha(src)[:12]}…)" in capsys.readouterr().out
+
+
+def test_a_checksums_only_check_is_kept_and_a_failure_replaces_a_pass(tmp_path, packed, capsys):
+    import shutil
+    arc, src = tmp_path / "bench.tsarchive", tmp_path / "bench log.csv"
+    shutil.copytree(packed["arc"], arc)
+    shutil.copy(packed["src"], src)
+    assert main(["verify", str(arc), "--quiet"]) == 0
     capsys.readouterr()
     main(["report", str(arc)])
     assert "last check: checksums matched (samples not compared) on " in capsys.readouterr().out
+    assert main(["verify", str(arc), "--against", str(src), "--quiet"]) == 0
+    other = tmp_path / "other.csv"                           # same samples but another file: verify fails
+    other.write_bytes(src.read_bytes() + b"\n")
+    assert main(["verify", str(arc), "--against", str(other), "--quiet"]) == 1
+    capsys.readouterr()
+    main(["report", str(arc)])
+    out = capsys.readouterr().out
+    assert "last check: failed verification (samples not compared) on " in out    # a failure replaces a pass

@@ -38,7 +38,7 @@ class CheckRecord:
         """``verified against run.csv (SHA-256 0a1b2c3d4e5f…) on 2026-12-02 17:40 UTC``."""
         when = f"on {self.when[:16].replace('T', ' ')} UTC"
         if not self.compared:
-            return f"{'checksums matched' if self.ok else 'checksums failed'} (samples not compared) {when}"
+            return f"{'checksums matched' if self.ok else 'failed verification'} (samples not compared) {when}"
         sha = f" (SHA-256 {self.against_sha256[:12]}…)" if self.against_sha256 else ""
         return f"{'verified' if self.ok else 'failed verification'} against {self.against}{sha} {when}"
 
@@ -74,10 +74,17 @@ def _against_sha256(archive: Path, report, against) -> str:
 
 
 def write_record(archive: Path, report, against: Path | None) -> Path | None:
-    """Keep ``report`` (a :class:`tsarchive.VerifyReport`) for ``archive``; None when it cannot be written."""
+    """Keep ``report`` (a :class:`tsarchive.VerifyReport`) for ``archive``; None when it cannot be written.
+
+    A passing checksums-only check does not replace a kept passing comparison with the source: the
+    manifest is the same (the note is named by it), so that comparison still stands and says more.
+    """
     path = record_path(archive)
     if path is None:
         return None
+    earlier = read_record(archive)
+    if report.ok and not report.compared and earlier is not None and earlier.ok and earlier.compared:
+        return path
     body = {"archive": Path(archive).name, "ok": bool(report.ok), "compared": bool(report.compared),
             "against": Path(against).name if against is not None else "",
             "against_sha256": _against_sha256(archive, report, against),
