@@ -130,10 +130,13 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
         return (None if start is None else float(start)), (None if end is None else float(end))
 
     def _offsets(self):
-        """The typed range, exactly (Fractions of seconds from the first sample; None for an empty field)."""
+        """The typed range (seconds from the first sample; None for an empty field): exact Fractions on a clock
+        axis (its times are exact ns); on a seconds axis the nearest doubles, as its times were logged, so a
+        typed ``1.92`` means the sample logged as ``1.92``."""
         begin, ns = self.archive.channels[0].start, self._start_ns()
-        return (read_offset(self.query_one("#export-from", Input).value, begin, "from", ns),
-                read_offset(self.query_one("#export-to", Input).value, begin, "to", ns))
+        got = (read_offset(self.query_one("#export-from", Input).value, begin, "from", ns),
+               read_offset(self.query_one("#export-to", Input).value, begin, "to", ns))
+        return got if ns is not None else tuple(None if x is None else float(x) for x in got)
 
     def on_radio_set_changed(self, event: RadioSet.Changed) -> None:
         for i, suffix in enumerate(FORMATS):
