@@ -210,6 +210,8 @@ def _unpack(args) -> int:
     ns0 = int(tl.values(0, 1)[0]) if tl.kind == "datetime" and tl.n else None   # exact, where start0 has µs
     start = None if args.start is None else parse_offset(args.start, start0, ns0)
     end = None if args.end is None else parse_offset(args.end, start0, ns0)
+    if ns0 is None:  # a seconds axis holds the logged times as doubles: a typed 1.92 is the double logged as 1.92
+        start, end = (None if x is None else float(x) for x in (start, end))
     chans = None if not args.channels else [c.strip() for c in args.channels.split(",") if c.strip()]
     out = arc.export(args.output, channels=chans, start=start, end=end, force=args.force,
                      replace_original=args.replace_original)
