@@ -84,6 +84,8 @@ async def test_logged_clock_times_are_shown_as_logged(folders, name, zone):
         screen, a, b = await _export_from_strip(app, pilot, "1:23.4")
         logged = (T0 + timedelta(milliseconds=100 * a)).isoformat(timespec="microseconds").rstrip("0").rstrip(".")
         assert _field(screen, "from") == logged + zone        # as the logger wrote it, zone and all
+        for which in ("from", "to"):                          # shown whole at 80 columns, not scrolled
+            assert screen.query_one(f"#export-{which}", Input).region.width > len(_field(screen, which))
         start, end = screen._typed_range()
         assert start == pytest.approx(a / 10, abs=1e-9) and end == pytest.approx(b / 10, abs=1e-9)
         assert "ISO 8601" in str(screen.query_one(".note").render())

@@ -66,11 +66,25 @@ async def _settle(app, pilot, rounds: int = 8) -> None:
 
 
 #: (capture name, keys pressed from the previous screen, the screen class it must show)
-STEPS = (("Folder", (), "FolderScreen"), ("Packing", ("down", "p"), "PackingScreen"),
-         ("Contents", ("escape", "up", "enter"), "ContentsScreen"), ("Strip", ("s",), "StripScreen"),
+STEPS = (("Folder", (), "FolderScreen"), ("Packing", ("to-recording", "p"), "PackingScreen"),
+         ("Contents", ("escape", "to-archive", "enter"), "ContentsScreen"), ("Strip", ("s",), "StripScreen"),
          ("Shortlist unusual", ("u",), "ShortlistScreen"), ("Shortlist look-alikes", ("l",), "ShortlistScreen"),
          ("Shortlist largest errors", ("w",), "ShortlistScreen"), ("Export", ("escape", "e"), "ExportScreen"),
          ("Keys", ("escape", "f1"), "KeysScreen"))
+
+
+def _keys(app, key: str) -> list[str]:
+    """``to-recording`` / ``to-archive``: the arrow presses from the Folder table's cursor to the first such row."""
+    if key not in ("to-recording", "to-archive"):
+        return [key]
+    from textual.widgets import DataTable
+    table = app.screen.query_one(DataTable)
+    kinds = [str(table.get_row_at(r)[1]) for r in range(table.row_count)]
+    want = [r for r, kind in enumerate(kinds) if (kind == "archive") == (key == "to-archive")]
+    if not want:
+        return []
+    step = want[0] - table.cursor_row
+    return ["down" if step > 0 else "up"] * abs(step)
 
 
 async def capture_all(folder: Path, size: tuple[int, int] = SIZE) -> list[Capture]:
@@ -85,12 +99,12 @@ async def capture_all(folder: Path, size: tuple[int, int] = SIZE) -> list[Captur
     async with app.run_test(size=size) as pilot:
         for name, keys, screen in STEPS:
             for key in keys:
-                await pilot.press(key)
+                await pilot.press(*_keys(app, key))
                 await _settle(app, pilot, rounds=3)
             await _settle(app, pilot)
             if type(app.screen).__name__ != screen:
                 raise RuntimeError(f"{name}: the keys {' '.join(keys)} showed {type(app.screen).__name__}, "
-                                   f"not {screen}; the folder needs an archive listed first and a recording")
+                                   f"not {screen}; the folder needs an archive and a recording")
             text, svg = _render(app)
             whole, missing = _footer_check(app, text)
             shots.append(Capture(name, text, svg, whole, missing))
@@ -126,7 +140,11 @@ def main(argv: list[str] | None = None) -> int:
         run_demo(folder, echo=lambda *_: None)
         recordings = sorted(p for p in find_samples().iterdir() if p.suffix in (".csv", ".parquet", ".npy"))
         shutil.copy(min(recordings, key=lambda p: p.stat().st_size), folder)   # for the Packing screen
-    shots = asyncio.run(capture_all(folder))
+    try:
+        shots = asyncio.run(capture_all(folder))
+    except RuntimeError as exc:
+        print(f"captures: {exc}", file=sys.stderr)
+        return 2
     write_captures(shots, args.out)
     for line in (args.out / "index.txt").read_text(encoding="utf-8").splitlines():
         print(line)

@@ -72,9 +72,9 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
             timeline = self.archive.timeline
             with Horizontal(classes="field-row"):
                 yield Label("from", classes="field-label")
-                yield Input(typed_time(timeline, self.start), id="export-from", compact=True, classes="short")
+                yield Input(typed_time(timeline, self.start), id="export-from", compact=True, classes="time")
                 yield Label("to", classes="field-label")
-                yield Input(typed_time(timeline, self.end), id="export-to", compact=True, classes="short")
+                yield Input(typed_time(timeline, self.end), id="export-to", compact=True, classes="time")
             with Horizontal(classes="field-row"):
                 yield Label("channels", classes="field-label")
                 yield Input(",".join(self.channels), placeholder="all channels", id="export-channels", compact=True)
