@@ -144,7 +144,7 @@ def test_report_shows_the_kept_verification_after_a_restart(tmp_path, packed, ca
     assert f"last check: verified against bench log.csv (SHA-256 {_sha(src)[:12]}…)" in capsys.readouterr().out
 
 
-def test_a_checksums_only_check_is_kept_and_a_failure_replaces_a_pass(tmp_path, packed, capsys):
+def test_a_checksums_only_check_is_kept_and_a_failure_forgets_a_pass(tmp_path, packed, capsys):
     import shutil
     arc, src = tmp_path / "bench.tsarchive", tmp_path / "bench log.csv"
     shutil.copytree(packed["arc"], arc)
@@ -160,4 +160,5 @@ def test_a_checksums_only_check_is_kept_and_a_failure_replaces_a_pass(tmp_path, 
     capsys.readouterr()
     main(["report", str(arc)])
     out = capsys.readouterr().out
-    assert "last check: failed verification (samples not compared) on " in out    # a failure replaces a pass
+    assert "last check: unverified" in out                     # a failure writes nothing and forgets the pass
+    assert not any((tmp_path / ".tsarchive-checks").iterdir())

@@ -241,8 +241,11 @@ def _verify(args) -> int:
                              progress=line)
     finally:
         line.close()
-    from .record.kept import write_record
-    write_record(arc.path, rep, args.against)  # kept beside the archive: report and the app show it later
+    from .record.kept import forget_record, write_record
+    if rep.ok:      # kept beside the archive: report and the app show it later
+        write_record(arc.path, rep, args.against)
+    else:           # a failure writes nothing, and no earlier pass outlives it
+        forget_record(arc.path)
     if args.record:
         from .record import write_verification_record
         write_verification_record(arc, args.record, against=args.against, rate=args.rate, report=rep)

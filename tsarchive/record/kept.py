@@ -1,6 +1,7 @@
 """A kept note of a verification, beside the archive (no Textual; no archive-format change).
 
-After a verification, ``tsarchive verify``, the app and ``tsarchive demo`` write a small JSON file to
+After a verification, ``tsarchive verify`` (when it passes; a failure removes the note instead), the
+app and ``tsarchive demo`` write a small JSON file to
 ``.tsarchive-checks/<SHA-256 of the archive's manifest.json>.json`` in the archive's folder.
 The note names the archive's manifest by its SHA-256, so a repacked or edited archive no
 longer matches it and reads as unverified again.  The note is a past finding (when, against
@@ -97,6 +98,17 @@ def write_record(archive: Path, report, against: Path | None) -> Path | None:
     except OSError:
         return None  # a read-only folder: the finding is simply not kept
     return path
+
+
+def forget_record(archive: Path) -> None:
+    """Remove the kept note of ``archive``, if any (``tsarchive verify`` after a failed check: a past pass
+    must not outlive it, and a failing verify writes nothing)."""
+    path = record_path(archive)
+    try:
+        if path is not None:
+            path.unlink(missing_ok=True)
+    except OSError:
+        pass  # a read-only folder: report still hashes the members and says DAMAGED
 
 
 def read_record(archive: Path) -> CheckRecord | None:
