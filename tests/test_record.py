@@ -154,8 +154,13 @@ def test_a_checksums_only_check_is_kept_and_a_failure_forgets_a_pass(tmp_path, p
     main(["report", str(arc)])
     assert "last check: checksums matched (samples not compared) on " in capsys.readouterr().out
     assert main(["verify", str(arc), "--against", str(src), "--quiet"]) == 0
-    other = tmp_path / "other.csv"                           # same samples but another file: verify fails
+    other = tmp_path / "other.csv"                           # same samples but another file
     other.write_bytes(src.read_bytes() + b"\n")
+    assert main(["verify", str(arc), "--against", str(other), "--even-if-changed", "--quiet"]) == 0
+    capsys.readouterr()
+    main(["report", str(arc)])                               # a converted copy: said so, with its own digest
+    assert f"last check: verified against other.csv (not the packed file; SHA-256 {_sha(other)[:12]}…) on " \
+        in capsys.readouterr().out
     assert main(["verify", str(arc), "--against", str(other), "--quiet"]) == 1
     capsys.readouterr()
     main(["report", str(arc)])

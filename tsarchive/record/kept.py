@@ -30,6 +30,7 @@ class CheckRecord:
     against: str
     when: str  # ISO 8601, UTC
     against_sha256: str = ""  # of the compared file; "" for a checksums-only check or a note of an older tool
+    packed_file: bool | None = None  # whether the compared file is the one packed (None: not known)
 
     @property
     def state(self) -> str:
@@ -40,7 +41,9 @@ class CheckRecord:
         when = f"on {self.when[:16].replace('T', ' ')} UTC"
         if not self.compared:
             return f"{'checksums matched' if self.ok else 'failed verification'} (samples not compared) {when}"
-        sha = f" (SHA-256 {self.against_sha256[:12]}…)" if self.against_sha256 else ""
+        notes = (["not the packed file"] if self.packed_file is False else []) + \
+            ([f"SHA-256 {self.against_sha256[:12]}…"] if self.against_sha256 else [])
+        sha = f" ({'; '.join(notes)})" if notes else ""
         return f"{'verified' if self.ok else 'failed verification'} against {self.against}{sha} {when}"
 
 
@@ -89,6 +92,7 @@ def write_record(archive: Path, report, against: Path | None) -> Path | None:
     body = {"archive": Path(archive).name, "ok": bool(report.ok), "compared": bool(report.compared),
             "against": Path(against).name if against is not None else "",
             "against_sha256": _against_sha256(archive, report, against),
+            "packed_file": report.source_same if report.compared else None,
             "when": datetime.now(timezone.utc).isoformat(timespec="seconds")}
     try:
         path.parent.mkdir(exist_ok=True)
@@ -119,6 +123,7 @@ def read_record(archive: Path) -> CheckRecord | None:
             return None
         d = json.loads(path.read_text(encoding="utf-8"))
         return CheckRecord(ok=d["ok"] is True, compared=d["compared"] is True, against=str(d["against"]),
-                           when=str(d["when"]), against_sha256=str(d.get("against_sha256") or ""))
+                           when=str(d["when"]), against_sha256=str(d.get("against_sha256") or ""),
+                           packed_file=d.get("packed_file") if isinstance(d.get("packed_file"), bool) else None)
     except (OSError, ValueError, KeyError, TypeError):
         return None  # no record, or not one of ours: unverified
