@@ -63,6 +63,7 @@ def worst_segment(path: Path, seconds: np.ndarray, x: np.ndarray, xh: np.ndarray
     ax.plot(seconds, np.ma.filled(np.ma.asarray(xh, dtype=np.float64), np.nan), color="#d0602a", linewidth=1,
             linestyle="--", marker="x", markersize=3, label="reconstruction")
     ax.axvline(at_s, color="#999999", linewidth=0.8)
+    ax.ticklabel_format(axis="y", useOffset=False)   # values as read on the instrument, not "+2e1" offsets
     ax.set_xlabel("seconds from the recording's first sample")
     ax.set_ylabel(unit or "value")
     ax.set_title(f"{name}: around the worst error (at {at_s:.6g} s)", fontsize=10)
