@@ -332,7 +332,8 @@ async def test_export_typed_range_to_parquet_and_view_to_npy(lab, tmp_path):
         await pilot.press("e")
         await settle(app, pilot)
         export = app.screen
-        assert export.query_one("#export-from").value == "0" and export.query_one("#export-to").value == "1.92"
+        assert export.query_one("#export-from").value == "0:00:00"            # elapsed h:mm:ss, read back exactly
+        assert export.query_one("#export-to").value == "0:00:01.92"
         assert export.query_one("#export-channels").value == "accel"
         export.query_one("#export-format").focus()
         await pilot.press("right", "right", "enter", "ctrl+s")

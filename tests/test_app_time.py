@@ -326,7 +326,7 @@ async def test_demo_verification_is_kept_and_listed_as_verified(shelves, tmp_pat
         assert rows["steps.tsarchive"][-1] == "verified ok"
         await pilot.press("enter")
         await settle(app, pilot)
-        assert "on record (against steps.csv" in str(app.screen.query_one("#contents-check").render())
+        assert "verified against steps.csv (SHA-256 " in str(app.screen.query_one("#contents-check").render())
     (arc / "manifest.json").write_bytes((arc / "manifest.json").read_bytes() + b" ")  # another archive now
     app = NotedApp(out)
     async with app.run_test(size=(80, 24)) as pilot:

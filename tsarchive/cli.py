@@ -82,6 +82,9 @@ def _parser() -> argparse.ArgumentParser:
     vf.add_argument("--even-if-changed", action="store_true", dest="even_if_changed",
                     help="compare the samples of a SOURCE that is not the packed file (a converted copy); "
                          "passes when every sample is within budget")
+    vf.add_argument("--record", metavar="FOLDER", help="also write a verification record to this new folder: "
+                    "record.md and record.json with per-channel RMS error, SNR and PNG plots (needs matplotlib: "
+                    "pip install 'tsarchive[record]')")
     vf.add_argument("--json", action="store_true", help="print the report as JSON")
     vf.add_argument("--quiet", action="store_true", help="no progress line (it is shown on a terminal only)")
 
@@ -207,6 +210,8 @@ def _unpack(args) -> int:
     ns0 = int(tl.values(0, 1)[0]) if tl.kind == "datetime" and tl.n else None   # exact, where start0 has µs
     start = None if args.start is None else parse_offset(args.start, start0, ns0)
     end = None if args.end is None else parse_offset(args.end, start0, ns0)
+    if ns0 is None:  # a seconds axis holds the logged times as doubles: a typed 1.92 is the double logged as 1.92
+        start, end = (None if x is None else float(x) for x in (start, end))
     chans = None if not args.channels else [c.strip() for c in args.channels.split(",") if c.strip()]
     out = arc.export(args.output, channels=chans, start=start, end=end, force=args.force,
                      replace_original=args.replace_original)
@@ -226,6 +231,9 @@ def _verify(args) -> int:
     from .progress_line import ProgressLine
     from .store.reader import open_archive
     from .verifier import verify_archive
+    if args.record:
+        from .record.document import check_record_folder
+        check_record_folder(args.record)                 # refused before the long work, not after it
     arc = open_archive(args.archive, strict=False)      # opened once: verified, then named in the JSON
     line = ProgressLine(enabled=False if args.quiet else None)
     try:
@@ -233,6 +241,15 @@ def _verify(args) -> int:
                              progress=line)
     finally:
         line.close()
+    from .record.kept import forget_record, write_record
+    if rep.ok:      # kept beside the archive: report and the app show it later
+        write_record(arc.path, rep, args.against)
+    else:           # a failure writes nothing, and no earlier pass outlives it
+        forget_record(arc.path)
+    if args.record:
+        from .record import write_verification_record
+        write_verification_record(arc, args.record, against=args.against, rate=args.rate, report=rep)
+        print(f"wrote the verification record {args.record}", file=sys.stderr)
     if args.json:
         from .report import identity
         print(json.dumps({**rep.to_dict(), "against": args.against, "identity": identity(arc)}, indent=1))

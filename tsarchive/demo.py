@@ -29,7 +29,7 @@ def run_demo(out_dir: str | Path, samples: str | Path | None = None, budget: str
     from .pipeline import pack
     from .report import pack_table, verify_text
     from .verifier import verify_archive
-    from .app.checkrecord import write_record
+    from .record.kept import write_record
 
     src_dir = find_samples(samples)
     out = Path(out_dir)
@@ -41,7 +41,7 @@ def run_demo(out_dir: str | Path, samples: str | Path | None = None, budget: str
         res = pack(src, target, budget, rate=RATES.get(src.name), force=True)
         echo(pack_table(res))
         rep = verify_archive(target, against=src)
-        write_record(target, rep, src)  # the app then lists the archive as verified (app/checkrecord.py)
+        write_record(target, rep, src)  # the app then lists the archive as verified (record/kept.py)
         echo(verify_text(rep))
         results.append((res, rep))
     return results

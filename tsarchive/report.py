@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from dataclasses import asdict
 from datetime import datetime, timezone
 
 from .results import PackResult, VerifyReport
@@ -66,8 +67,10 @@ def identity(arc) -> dict:
 
 def archive_dict(arc) -> dict:
     """The archive's facts; its members are hashed first, and the budget is claimed only for intact members."""
+    from .record.kept import read_record
     from .store.members import member_problems
     problems = member_problems(arc.path, arc.members)
+    kept = read_record(arc.path)
     return {
         "archive": str(arc.path), "source": arc.manifest.get("source", {}),
         "created_utc": _written_utc(arc), "tool_version": arc.manifest.get("tool_version"),
@@ -76,6 +79,7 @@ def archive_dict(arc) -> dict:
         "bound": arc.bound, "problems": problems,
         "within_budget": None if problems else all(c.worst_error <= c.eps for c in arc.channels),
         "times": arc.timeline.describe(), "notes": list(arc.notes), "identity": identity(arc),
+        "last_check": None if kept is None else {**asdict(kept), "line": kept.line()},
         "channels": [{"name": c.name, "unit": c.unit, "rate": c.rate, "n_samples": c.n_samples,
                       "duration_s": c.duration, "dtype": c.dtype, "budget": c.budget, "eps": c.eps,
                       "decimals": c.decimals, "worst_error": c.worst_error, "used_pct": c.used_pct,
@@ -98,6 +102,8 @@ def archive_table(arc, d: dict | None = None) -> str:
         arc.timeline.describe(), *(f"logger note: {s}" for s in arc.notes),
         "", _table(HEADER, rows), USED_NOTE, *[f"note: {c['name']}: {c['note']}" for c in d["channels"] if c["note"]], "",
         *[f"problem: {p}" for p in d["problems"]],
+        "last check: " + (d["last_check"]["line"] if d["last_check"] else "unverified (no verification kept beside "
+                          "this archive; run tsarchive verify ARCHIVE --against SOURCE)"),
         f"ratio {d['ratio']:.2f} ({d['raw_bytes']} raw bytes -> {d['archive_bytes']} archive bytes); "
         + {True: "within budget (member checksums match)", False: "OVER BUDGET",
            None: "DAMAGED: the errors above are not trustworthy; run tsarchive verify"}[d["within_budget"]]])

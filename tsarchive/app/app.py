@@ -51,7 +51,8 @@ class TsArchiveApp(App):
     BINDINGS = [
         Binding("f1", "keys", "Keys"),
         Binding("question_mark", "keys", "Keys", key_display="?", show=False),
-        Binding("ctrl+q", "quit", "Quit", priority=True),
+        # works everywhere; not in the footers, which show q (and Esc) and must fit 80 columns
+        Binding("ctrl+q", "quit", "Quit", priority=True, show=False),
     ]
 
     def __init__(self, path: str | Path | None = None) -> None:

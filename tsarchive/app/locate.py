@@ -147,13 +147,20 @@ def read_time(text: str, start=None, what: str = "time") -> float | None:
     line's ``--start``/``--end``: both accept the same forms (``12.5``, ``90s``, ``2h1min``,
     ``3d``, ``1:02:03``, ``1:15.5``, ISO 8601 datetimes).
     """
-    from tsarchive.timespec import parse_time
+    offset = read_offset(text, start, what)
+    return None if offset is None else float(offset)
+
+
+def read_offset(text: str, start=None, what: str = "time", start_ns: int | None = None):
+    """:func:`read_time` exactly, as a Fraction of seconds (``start_ns``: the first sample's exact time, as
+    ``unpack`` reads ``--start``), so that a typed logged time selects the very sample it names."""
+    from tsarchive.timespec import parse_offset
 
     text = text.strip()
     if not text:
         return None
     try:
-        return parse_time(text, start)
+        return parse_offset(text, start, start_ns)
     except BadInput as exc:
         raise BadInput(f"{what}: {exc}") from None
 

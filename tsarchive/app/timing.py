@@ -9,6 +9,8 @@ marked as elapsed (``+1:15.25``), so that it never reads like a clock.
 from __future__ import annotations
 
 import math
+from datetime import timedelta
+from decimal import Decimal
 
 import numpy as np
 
@@ -44,6 +46,30 @@ def first_time(timeline) -> np.datetime64 | None:
     if timeline.kind != DATETIME or timeline.n == 0:
         return None
     return np.datetime64(int(timeline.values(0, 1)[0]), "ns")
+
+
+def typed_time(timeline, seconds: float | None) -> str:
+    """A position as a field shows it for retyping, in a form the time parser reads back, never rounded to
+    fewer digits than it holds: the logged ISO 8601 time (naive as logged, else with its offset; to the
+    microsecond, rounded down, which still selects the same sample) or, without logged clock times,
+    the time elapsed since the first sample as ``h:mm:ss.fff`` (every digit of the shortest repr).
+    """
+    if seconds is None or not math.isfinite(seconds):
+        return ""
+    if timeline.kind == DATETIME and timeline.n:
+        ns = int(timeline.values(0, 1)[0]) + round(seconds * NS)
+        zone = getattr(timeline, "zone", None)
+        if zone is not None:
+            from tsarchive.store.timeaxis import parse_zone
+            ns += parse_zone(zone).utcoffset(None) // timedelta(microseconds=1) * 1000  # the logged wall clock in that offset
+        text = str(np.datetime64(ns // 1000, "us"))
+        text = text.rstrip("0").rstrip(".") if "." in text else text
+        return text + (zone or "")
+    d = Decimal(repr(max(float(seconds), 0.0)))
+    hours, rest = divmod(d, 3600)
+    minutes, secs = divmod(rest, 60)
+    secs_text = format(secs.normalize(), "f") if secs else "0"
+    return f"{int(hours)}:{int(minutes):02d}:{'0' if secs < 10 else ''}{secs_text}"
 
 
 def since(seconds: float | None) -> str:

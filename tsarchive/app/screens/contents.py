@@ -21,7 +21,7 @@ from textual.widgets import DataTable, Footer, Input, Static
 
 import tsarchive
 from tsarchive.app import fmt
-from tsarchive.app.checkrecord import read_record, write_record
+from tsarchive.record.kept import read_record, write_record
 from tsarchive.app.guard import archive_lock
 from tsarchive.app.locate import find_source
 from tsarchive.app.messages import ArchiveReady, CheckDone, CheckStep, WorkFailed

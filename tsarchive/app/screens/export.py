@@ -22,7 +22,8 @@ from textual.widgets import Button, Footer, Input, Label, RadioButton, RadioSet,
 
 from tsarchive.app import fmt
 from tsarchive.app.guard import archive_lock
-from tsarchive.app.locate import export_target, read_time
+from tsarchive.app.locate import export_target, read_offset
+from tsarchive.app.timing import DATETIME, TimeLabels, typed_time
 from tsarchive.app.messages import ExportDone, WorkFailed
 from tsarchive.app.screens.base import Notices
 from tsarchive.errors import BadInput, TsArchiveError
@@ -34,8 +35,8 @@ def default_name(stem: str, start: float | None, end: float | None, suffix: str 
     """``run.csv`` for everything, ``run_5-15s.csv`` for 5 s to 15 s, ``run_5-ends.csv`` from 5 s on."""
     if start is None and end is None:
         return f"{stem}{suffix}"
-    last = "end" if end is None else f"{end:g}"
-    return f"{stem}_{start or 0:g}-{last}s{suffix}"
+    last = "end" if end is None else f"{end:.15g}"
+    return f"{stem}_{start or 0:.15g}-{last}s{suffix}"
 
 
 def format_label(suffix: str, chosen: bool) -> str:
@@ -67,16 +68,13 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
         stem = self.archive.path.stem
         with Vertical(id="export-box"):
             yield Static(f"Export · {self.archive.path.name}", classes="title", markup=False)
-            yield Static(f"Recording length {fmt.clock(max(c.duration for c in self.archive.channels))}; "
-                         "times from the start: 12.5, 1:02, 1:02:03, 90s, 2h1min or 3d. "
-                         "Leave a time empty for the start or the end.", classes="note", markup=False)
+            yield Static(self._forms_note(), classes="note", markup=False)
+            timeline = self.archive.timeline
             with Horizontal(classes="field-row"):
                 yield Label("from", classes="field-label")
-                yield Input("" if self.start is None else f"{self.start:g}", id="export-from", compact=True,
-                            classes="short")
+                yield Input(typed_time(timeline, self.start), id="export-from", compact=True, classes="time")
                 yield Label("to", classes="field-label")
-                yield Input("" if self.end is None else f"{self.end:g}", id="export-to", compact=True,
-                            classes="short")
+                yield Input(typed_time(timeline, self.end), id="export-to", compact=True, classes="time")
             with Horizontal(classes="field-row"):
                 yield Label("channels", classes="field-label")
                 yield Input(",".join(self.channels), placeholder="all channels", id="export-channels", compact=True)
@@ -89,6 +87,21 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
                 yield Button("Export", id="export-go", compact=True)
             yield Static("", id="export-status", markup=False)
         yield Footer(compact=True)
+
+    def _forms_note(self) -> str:
+        """What the time fields hold and accept (the forms of ``--start``/``--end``)."""
+        length = fmt.clock(max(c.duration for c in self.archive.channels))
+        timeline = self.archive.timeline
+        if timeline.kind == DATETIME and timeline.n:
+            labels = TimeLabels(timeline, 0.0)
+            return (f"Times as logged, ISO 8601 ({labels.start_line()}; length {length}), or from the start: "
+                    "12.5, 1:02:03, 90s, 2h1min, 3d. Empty: the start or the end.")
+        return (f"Times elapsed from the first sample, h:mm:ss (length {length}); also 12.5, 90s, 2h1min, 3d. "
+                "Empty: the start or the end.")
+
+    def _start_ns(self) -> int | None:
+        timeline = self.archive.timeline
+        return int(timeline.values(0, 1)[0]) if timeline.kind == DATETIME and timeline.n else None
 
     def on_mount(self) -> None:
         self._auto_name = self.query_one("#export-name", Input).value
@@ -109,13 +122,21 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
         name.value = self._auto_name
 
     def _typed_range(self) -> tuple[float | None, float | None]:
-        """The typed range, or (None, None) while either time does not parse."""
-        begin = self.archive.channels[0].start
+        """The typed range in seconds, or (None, None) while either time does not parse."""
         try:
-            return (read_time(self.query_one("#export-from", Input).value, begin, "from"),
-                    read_time(self.query_one("#export-to", Input).value, begin, "to"))
+            start, end = self._offsets()
         except TsArchiveError:
             return None, None
+        return (None if start is None else float(start)), (None if end is None else float(end))
+
+    def _offsets(self):
+        """The typed range (seconds from the first sample; None for an empty field): exact Fractions on a clock
+        axis (its times are exact ns); on a seconds axis the nearest doubles, as its times were logged, so a
+        typed ``1.92`` means the sample logged as ``1.92``."""
+        begin, ns = self.archive.channels[0].start, self._start_ns()
+        got = (read_offset(self.query_one("#export-from", Input).value, begin, "from", ns),
+               read_offset(self.query_one("#export-to", Input).value, begin, "to", ns))
+        return got if ns is not None else tuple(None if x is None else float(x) for x in got)
 
     def on_radio_set_changed(self, event: RadioSet.Changed) -> None:
         for i, suffix in enumerate(FORMATS):
@@ -140,10 +161,9 @@ class ExportScreen(Notices, ModalScreen[Path | None]):
             self.action_export()
 
     def _request(self) -> tuple[Path, list[str] | None, float | None, float | None]:
-        start = read_time(self.query_one("#export-from", Input).value, self.archive.channels[0].start, "from")
-        end = read_time(self.query_one("#export-to", Input).value, self.archive.channels[0].start, "to")
+        start, end = self._offsets()
         if start is not None and end is not None and end <= start:
-            raise BadInput(f"'to' ({end:g} s) must come after 'from' ({start:g} s)")
+            raise BadInput(f"'to' ({float(end):g} s) must come after 'from' ({float(start):g} s)")
         text = self.query_one("#export-channels", Input).value
         names = [n.strip() for n in text.split(",") if n.strip()] or None
         path = export_target(self.query_one("#export-name", Input).value, self.archive.path.parent)

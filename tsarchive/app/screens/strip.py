@@ -58,14 +58,15 @@ class StripScreen(Notices, Screen):
     """Browse ``channel`` of ``archive``; ``source`` is the original recording if at hand."""
 
     BINDINGS = [
-        Binding("n", "step(1)", "Next", tooltip="next window"),
-        Binding("b", "step(-1)", "Prev", tooltip="previous window"),
+        Binding("n", "step(1)", "Window", key_display="n/b", tooltip="next window (b: the previous one)"),
+        Binding("b", "step(-1)", "Prev", show=False, tooltip="previous window"),
         Binding("down,right,pagedown", "step(1)", "Next", show=False, priority=True, key_display="↓ / → / PgDn",
                 tooltip="next window"),
         Binding("up,left,pageup", "step(-1)", "Prev", show=False, priority=True, key_display="↑ / ← / PgUp",
                 tooltip="previous window"),
-        Binding("plus,equals_sign", "zoom(0.5)", "Zoom", key_display="+", tooltip="zoom in (half the span)"),
-        Binding("minus", "zoom(2)", "Wider", key_display="-", tooltip="zoom out (twice the span)"),
+        Binding("plus,equals_sign", "zoom(0.5)", "Zoom", key_display="+/-",
+                tooltip="zoom in (half the span; - zooms out)"),
+        Binding("minus", "zoom(2)", "Wider", key_display="-", show=False, tooltip="zoom out (twice the span)"),
         Binding("left_square_bracket", "pan(-1)", "Earlier", key_display="[", show=False,
                 tooltip="pan back by half the view"),
         Binding("right_square_bracket", "pan(1)", "Later", key_display="]", show=False,
