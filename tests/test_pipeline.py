@@ -128,7 +128,7 @@ def test_refuses_overwrite_and_force_replaces(tmp_path):
 
 def test_self_check_refuses_to_finish(tmp_path, monkeypatch):
     # Corrupt the decoder's view of the grid: pack must notice through the reader and write nothing.
-    import tsarchive.store.reader as reader
+    import tsarchive.archive as reader
     real = reader._channel_meta
 
     def skewed(d, window):
@@ -209,7 +209,7 @@ def test_reading_channels_on_threads_gives_the_same_samples(small_archive, worke
 
 
 def test_long_reads_in_steps_give_the_same_samples(small_archive, monkeypatch):
-    from tsarchive.store import reader
+    from tsarchive import archive as reader
     arc = tsarchive.open(small_archive)
     meta = arc.channels[0]
     spans = [(None, None), (0.013, None), (None, meta.duration * 0.7), (0.5, 9.0), (3.0, 3.01)]

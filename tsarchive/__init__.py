@@ -13,7 +13,7 @@ Importing this package loads numpy and pyarrow only; torch is imported
 when a pack trains its model, textual when the app starts.
 """
 
-__version__ = "0.1.0"
+from .version import __version__
 
 from .budget import DEFAULT_SPEC, Budget, BudgetSpec, parse_budget_spec
 from .errors import (ArchiveCorrupt, ArchiveExists, ArchiveNotFound, BadInput, BoundViolation, BudgetError,
@@ -23,7 +23,7 @@ from .ingest.survey import SourceSurvey, survey_source
 from .pipeline import pack
 from .recording import ChannelInfo, Recording
 from .results import ChannelCheck, ChannelSummary, PackResult, Progress, VerifyReport
-from .store.reader import Archive, ChannelMeta, WindowTable, open_archive
+from .archive import Archive, ChannelMeta, WindowTable, open_archive
 from .store.timeaxis import Times
 
 
@@ -35,7 +35,8 @@ def open(path) -> Archive:  # noqa: A001 - the natural name for the API
 def verify(archive, against=None, progress=None, **options) -> VerifyReport:
     """Verify an archive alone (checksums) or against its source recording (``rate``, ``even_if_changed``)."""
     from .verifier import verify_archive
-    return verify_archive(archive, against=against, progress=progress, **options)
+    arc = archive if isinstance(archive, Archive) else open_archive(archive, strict=False)
+    return verify_archive(arc, against=against, progress=progress, **options)
 
 
 def inspect_source(path, rate: float | None = None, options: ReadOptions | None = None) -> Recording:

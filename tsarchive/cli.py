@@ -127,7 +127,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         args = _parser().parse_args(argv)
         if args.version:
-            from . import __version__
+            from .version import __version__
             print(f"tsarchive {__version__}")
             return 0
         if args.command is None:
@@ -187,7 +187,7 @@ def _pack(args) -> int:
     lossy = any(c.eps > 0 for c in res.channels)
     if args.json:
         from .report import identity
-        from .store.reader import open_archive
+        from .archive import open_archive
         print(json.dumps({**res.to_dict(), "identity": identity(open_archive(res.archive))}, indent=1))
         _caution_if_lossy(lossy, to_stderr=True)  # stdout stays one JSON document
         return 0
@@ -198,7 +198,7 @@ def _pack(args) -> int:
 
 
 def _unpack(args) -> int:
-    from .store.reader import open_archive
+    from .archive import open_archive
     from .timespec import parse_offset
     arc = open_archive(args.archive)
     arc.check_members()                     # a full unpack reads every member anyway; hashing costs little
@@ -224,7 +224,7 @@ def _unpack(args) -> int:
 
 def _verify(args) -> int:
     from .progress_line import ProgressLine
-    from .store.reader import open_archive
+    from .archive import open_archive
     from .verifier import verify_archive
     arc = open_archive(args.archive, strict=False)      # opened once: verified, then named in the JSON
     line = ProgressLine(enabled=False if args.quiet else None)
@@ -244,7 +244,7 @@ def _verify(args) -> int:
 
 def _report(args) -> int:
     from .report import archive_dict, archive_table
-    from .store.reader import open_archive
+    from .archive import open_archive
     arc = open_archive(args.archive)
     d = archive_dict(arc)
     print(json.dumps(d, indent=1) if args.json else archive_table(arc, d))

@@ -53,11 +53,6 @@ _M64 = (1 << 64) - 1
 _U64 = np.uint64
 
 
-def model_for(table: FreqTable):
-    """The verified constriction model of ``table`` (cached on the table)."""
-    return table.model
-
-
 def _chunk_layout(nbits: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Raw fields -> <=16-bit chunks: (owning field, bit shift, uniform size)."""
     if not len(nbits) or nbits.max() <= CHUNK_BITS:  # common case: at most one chunk per field

@@ -54,7 +54,7 @@ def _written_utc(arc) -> str | None:
 
 def identity(arc) -> dict:
     """What a lab system files with a result: the archive, its source, the tools and the channels' units and start."""
-    from . import __version__
+    from .version import __version__
     first = arc.channels[0].start if arc.channels else None
     return {"archive": str(arc.path.resolve()), "source": dict(arc.manifest.get("source", {})),
             "format_version": arc.manifest.get("format_version"), "written_by": arc.manifest.get("tool_version"),

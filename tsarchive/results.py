@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
-from typing import Callable, Optional, Protocol
+from typing import Callable, Optional
 
 
 @dataclass(frozen=True)
@@ -21,10 +21,6 @@ class Progress:
 
 
 ProgressFn = Optional[Callable[[Progress], None]]
-
-
-class CancelFlag(Protocol):
-    def is_set(self) -> bool: ...
 
 
 @dataclass(frozen=True)

@@ -133,7 +133,6 @@ PREDICTORS: dict[int, Predictor] = {p.id: p for p in (
     Predictor(3, "ae+prev", True, _aeprev_res, _aeprev_rec),
     Predictor(4, "lpc", False, _lpc_res, _lpc_rec, uses_lpc=True),
 )}
-BY_NAME = {p.name: p for p in PREDICTORS.values()}
 
 
 def get_predictor(mode: int) -> Predictor:

@@ -8,7 +8,8 @@ from datetime import datetime, timezone
 
 import numpy as np
 
-from .. import __version__, checksum
+from .. import checksum
+from ..version import __version__
 from ..codec import CODER_ID
 from ..recording import Recording
 from . import schema as S

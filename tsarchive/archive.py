@@ -22,20 +22,21 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from .. import checksum, entropy
-from ..codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, reconstruct
-from ..errors import ArchiveCorrupt, BadInput, FormatVersionError
-from ..predict import PREDICTORS, Context, mode_name
-from ..quantize import bits_to_values
-from ..workers import workers as worker_count
-from . import parse as P
-from . import schema as S
-from .binding import check_folder, read_manifest
-from .members import inspect, member_problems
-from .parse import ChannelMeta
-from .rows import binary_parts as _binary_parts, codes as _codes, lengths as _lengths
-from . import sidecar
-from .timeaxis import Times, Timeline, load_timeline
+from . import checksum, entropy
+from .codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, reconstruct
+from .errors import ArchiveCorrupt, BadInput, FormatVersionError
+from .model.intnet import IntDecoder
+from .predict import PREDICTORS, Context, mode_name
+from .quantize import bits_to_values
+from .workers import workers as worker_count
+from .store import parse as P
+from .store import schema as S
+from .store.binding import check_folder, read_manifest
+from .store.members import inspect, member_problems
+from .store.parse import ChannelMeta
+from .store.rows import binary_parts as _binary_parts, codes as _codes, lengths as _lengths
+from .store import sidecar
+from .store.timeaxis import Times, Timeline, load_timeline
 
 
 READ_SAMPLES = 1 << 20       # samples decoded per step of a long read (about one packing block)
@@ -93,7 +94,8 @@ class Archive:
         self._by_name = {c.name: c for c in self.channels}
         self._local = threading.local()
         self._tables                                   # decoded once; a malformed table is named here
-        opened = inspect(self.path, m, v, self.members, self.window, self.channels, model, strict)
+        opened = inspect(self.path, m, v, self.members, self.window, self.channels, model, strict,
+                         make_decoder=IntDecoder.from_arrays)
         self._windows_file, self._groups, self._decoder = opened.windows, opened.groups, opened.decoder
         self.bound, self.damage, self.decodable = opened.bound, opened.damage, opened.decodable
 
@@ -422,13 +424,13 @@ class Archive:
 
     def verify(self, against=None, progress=None, **options):
         """See :func:`tsarchive.verifier.verify_archive` (``rate``, ``even_if_changed``)."""
-        from ..verifier import verify_archive
+        from .verifier import verify_archive
         return verify_archive(self, against=against, progress=progress, **options)
 
     def export(self, out_path, channels=None, start=None, end=None, *, force: bool = False,
                replace_original: str | None = None) -> Path:
         """Write a reconstruction; see :func:`tsarchive.export_range.export_range` for what it refuses."""
-        from ..export_range import export_range
+        from .export_range import export_range
         return export_range(self, out_path, channels=channels, start=start, end=end, force=force,
                             replace_original=replace_original)
 
