@@ -13,6 +13,7 @@ import pytest
 
 import tsarchive
 from tsarchive import pipeline
+from tsarchive.options import DEFAULT_CODE_SIZE
 from tsarchive.errors import ArchiveExists, BadInput, BoundViolation, BudgetError, SourceNotFound
 from tsarchive.quantize import values_to_bits
 
@@ -292,7 +293,7 @@ def test_a_model_that_pays_replaces_the_speculative_archive(tmp_path, monkeypatc
                    progress=events.append)
     arc = tsarchive.open(tmp_path / "s.tsa")
     assert arc.manifest["model"] is not None and "kept" in arc.manifest["model_note"]
-    assert arc.windows("ch0").codes.shape[1] == pipeline.DEFAULT_CODE_SIZE
+    assert arc.windows("ch0").codes.shape[1] == DEFAULT_CODE_SIZE
     assert any("training it fully" in e.message for e in events) == probe
     finals = [e for e in events if e.stage == "encode" and e.total > 1 and e.done == e.total]
     assert len(finals) == 2                               # encoded twice: speculatively, then with the model

@@ -167,8 +167,10 @@ def _caution_if_lossy(lossy: bool, to_stderr: bool = False) -> None:
 
 
 def _pack(args) -> int:
+    from .options import PackOptions
     from .pipeline import pack
     options = _read_options(args)
+    settings = PackOptions.parse(args.budget, args.window, args.code_size)   # checked before the source is read
     if args.dry_run:
         from .ingest.survey import survey_source
         survey = survey_source(args.source, options=options)
@@ -180,8 +182,8 @@ def _pack(args) -> int:
     from .progress_line import ProgressLine
     line = ProgressLine(enabled=False if args.quiet else None)
     try:
-        res = pack(args.source, args.output, args.budget, rate=args.rate, window=args.window,
-                   code_size=args.code_size, force=args.force, read_options=options, progress=line)
+        res = pack(args.source, args.output, rate=args.rate, force=args.force, read_options=options,
+                   progress=line, options=settings)
     finally:
         line.close()
     lossy = any(c.eps > 0 for c in res.channels)

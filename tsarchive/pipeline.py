@@ -32,11 +32,11 @@ from pathlib import Path
 import numpy as np
 import pyarrow as pa
 
-from .budget import parse_budget_spec
 from .codec import FRAC_SAFE_SCALE
 from .encoder import TABLE_SAMPLES, ChannelPlan, coded_bytes, encode_batch, plan_channel, sample_windows
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .ingest import read_recording
+from .options import DEFAULT_TRAIN_SECONDS, PackOptions
 from .predict import PREDICTORS
 from .quantize import Grid, make_grid, quantize
 from .ranges import finite_ranges
@@ -48,10 +48,8 @@ from .store.sidecar import stage_sidecar
 from .store.timeaxis import check_axis
 from .store.claim import claim_target
 from .store.writer import ArchiveWriter, check_target
-from .windows import DEFAULT_WINDOW, MAX_WINDOW, MIN_WINDOW, batches, channel_scale, levels, n_windows, normalise
+from .windows import DEFAULT_WINDOW, batches, channel_scale, levels, n_windows, normalise
 
-DEFAULT_CODE_SIZE = 8
-MAX_CODE_SIZE = 64
 TRAIN_WINDOWS = 20000        # bound on the training sample, whatever the recording's length
 CHUNK_SAMPLES = 1 << 20      # samples per channel encoded per step (bounds memory)
 BATCH_SAMPLES = 1 << 18      # samples per encoder call within a step (bounds each thread's temporaries)
@@ -77,7 +75,8 @@ PROBE_EVAL_SAMPLES = 1 << 18  # per channel: the probe's saving is estimated on 
 
 def pack(source, archive, budget=None, *, rate: float | None = None, window: int | None = None,
          code_size: int | None = None, force: bool = False, progress: ProgressFn = None, cancel=None,
-         train_seconds: float = 60.0, seed: int = 0, read_options=None) -> PackResult:
+         train_seconds: float = DEFAULT_TRAIN_SECONDS, seed: int = 0, read_options=None,
+         options: PackOptions | None = None) -> PackResult:
     """Pack ``source`` (a path or a :class:`Recording`) into the archive directory ``archive``.
 
     Every sample of the archive is within its channel's budget; the archive
@@ -99,7 +98,10 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     (``DEFAULT_WINDOW`` when a code size > 0 is given: codes are asked for to
     browse by them, in the finer segments).  ``read_options``
     (:class:`~tsarchive.ingest.ReadOptions`) says how to read a source path.
+    ``options`` (:class:`~tsarchive.options.PackOptions`, parsed once by the
+    caller) stands for ``budget``, ``window``, ``code_size``, ``train_seconds`` and ``seed``.
     """
+    opts = options or PackOptions.parse(budget, window, code_size, train_seconds, seed)
     t0 = time.perf_counter()
     emit = _emitter(progress, cancel)
     archive = Path(archive)
@@ -108,12 +110,11 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     check_axis(rec)
     check_target(archive, force)
     names = [c.name for c in rec.channels]
-    spec = parse_budget_spec(budget)
+    spec = opts.budget
     spec.check_names(names)
-    K = _code_size(code_size)
-    explicit = code_size is not None
+    K, explicit, train_seconds, seed = opts.code, opts.explicit_code, opts.train_seconds, opts.seed
     # 0: chosen below from a sample; codes asked for (browsing by codes) keep the finer default segments
-    W = _window(window, rec.n_samples) if window is not None else (DEFAULT_WINDOW if explicit and K else 0)
+    W = opts.window if opts.window is not None else (DEFAULT_WINDOW if explicit and K else 0)
     probe = not explicit and train_seconds > PROBE_SECONDS
 
     # The autoencoder trains on a second thread (numpy releases the GIL) while this one plans and,
@@ -562,22 +563,6 @@ def _choose_window(rec: Recording, grids: list[Grid]) -> tuple[int, str]:
     if est[best] > est[DEFAULT_WINDOW] * (1 - WINDOW_MARGIN):
         best = DEFAULT_WINDOW
     return best, f"window {best} (estimated bits/sample: " + ", ".join(f"{w}: {e:.3f}" for w, e in est.items()) + ")"
-
-
-def _window(window: int | None, n: int) -> int:
-    if window is None:
-        return DEFAULT_WINDOW
-    if not (MIN_WINDOW <= int(window) <= MAX_WINDOW):
-        raise BadInput(f"window {window} is out of range; choose {MIN_WINDOW}..{MAX_WINDOW} samples")
-    return int(window)
-
-
-def _code_size(k: int | None) -> int:
-    if k is None:
-        return DEFAULT_CODE_SIZE
-    if not (0 <= int(k) <= MAX_CODE_SIZE):
-        raise BadInput(f"code size {k} is out of range; choose 0..{MAX_CODE_SIZE} (0 = no autoencoder)")
-    return int(k)
 
 
 class _emitter:

@@ -37,12 +37,21 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import ArchiveCorrupt
+from .errors import ArchiveCorrupt, BadInput
 from .exact import _as_u, within
 
 _MAX_Q = float(2**50)
 MAX_MULT = 1 << 20
+MAX_DECIMALS = 15              # decimal grids: at most this many decimals (what a manifest may hold)
 MAX_INT_STEP = 1 << 53          # integer grids: steps above this (absurd budgets) are clamped, exactly representable
+
+
+class InvalidGrid(ArchiveCorrupt):
+    """A grid description no decoder can use: damage when read from an archive."""
+
+    def __init__(self, problem: str) -> None:
+        super().__init__(f"{problem}; the archive is damaged or from a newer tool")
+        self.problem = problem
 
 
 @dataclass(frozen=True)
@@ -66,18 +75,24 @@ class Grid:
     missing: int | None = None
 
     def __post_init__(self) -> None:
+        problem = self._problem()
+        if problem is not None:      # read from an archive: damage (make_grid turns it into a user-input error)
+            raise InvalidGrid(problem)
+
+    def _problem(self) -> str | None:
         if self.kind not in ("step", "decimal"):
-            raise ArchiveCorrupt(f"unknown grid kind {self.kind!r}; the archive is damaged or from a newer tool")
+            return f"unknown grid kind {self.kind!r}"
         if self.kind == "step" and not (math.isfinite(self.step) and self.step > 0 and math.isfinite(self.offset)):
-            raise ArchiveCorrupt("grid step must be positive and finite; the archive is damaged")
-        if self.kind == "decimal" and not 0 <= self.decimals <= 15:
-            raise ArchiveCorrupt("grid decimals out of range 0..15; the archive is damaged")
+            return "grid step must be positive and finite"
+        if self.kind == "decimal" and not 0 <= self.decimals <= MAX_DECIMALS:
+            return f"grid decimals {self.decimals} out of range 0..{MAX_DECIMALS}"
         if not 1 <= self.mult <= MAX_MULT:
-            raise ArchiveCorrupt("grid multiplier out of range; the archive is damaged")
+            return "grid multiplier out of range"
         if self.origin is not None and not -(1 << 63) <= self.origin < (1 << 64):
-            raise ArchiveCorrupt("grid origin out of the 64-bit range; the archive is damaged")
+            return "grid origin out of the 64-bit range"
         if self.missing is not None and not -(1 << 63) <= self.missing < (1 << 63):
-            raise ArchiveCorrupt("grid missing mark out of the int64 range; the archive is damaged")
+            return "grid missing mark out of the int64 range"
+        return None
 
     def to_dict(self) -> dict:
         d = {"kind": self.kind, "eps": self.eps, "out_dtype": self.out_dtype, "step": self.step,
@@ -200,6 +215,17 @@ def bits_to_values(bits: np.ndarray, dtype: np.dtype) -> np.ndarray:
 
 def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float = 0.0, mult: int = 1,
               origin: int | None = None) -> Grid:
+    """Choose the grid for a channel (see :func:`_make_grid`); a channel no grid can serve is the
+    caller's input error (:class:`BadInput`), never archive damage."""
+    try:
+        return _make_grid(eps, decimals, dtype, anchor, mult, origin)
+    except InvalidGrid as exc:
+        raise BadInput(f"{exc.problem}: the channel's decimals ({decimals}) or dtype ({np.dtype(dtype)}) cannot be "
+                       f"stored; give decimals 0..{MAX_DECIMALS} or None") from None
+
+
+def _make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float, mult: int,
+               origin: int | None) -> Grid:
     """Choose the grid for a channel.
 
     ``eps == 0`` (lossless) uses the decimal grid when the channel has one;

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 from datetime import datetime, timezone
 
+from .budget import within_budget
 from .results import PackResult, VerifyReport
 
 
@@ -74,7 +75,7 @@ def archive_dict(arc) -> dict:
         "format_version": arc.manifest.get("format_version"), "window": arc.window,
         "archive_bytes": arc.archive_bytes, "raw_bytes": arc.raw_bytes, "ratio": arc.ratio,
         "bound": arc.bound, "problems": problems,
-        "within_budget": None if problems else all(c.worst_error <= c.eps for c in arc.channels),
+        "within_budget": None if problems else all(within_budget(c.worst_error, c.eps) for c in arc.channels),
         "times": arc.timeline.describe(), "notes": list(arc.notes), "identity": identity(arc),
         "channels": [{"name": c.name, "unit": c.unit, "rate": c.rate, "n_samples": c.n_samples,
                       "duration_s": c.duration, "dtype": c.dtype, "budget": c.budget, "eps": c.eps,

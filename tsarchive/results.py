@@ -6,6 +6,8 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Callable, Optional
 
+from .budget import within_budget
+
 
 @dataclass(frozen=True)
 class Progress:
@@ -59,7 +61,7 @@ class PackResult:
 
     @property
     def within_budget(self) -> bool:
-        return all(c.worst_error <= c.eps for c in self.channels)
+        return all(within_budget(c.worst_error, c.eps) for c in self.channels)
 
     def to_dict(self) -> dict:
         d = asdict(self)

@@ -10,6 +10,7 @@ import numpy as np
 
 from .. import checksum
 from ..version import __version__
+from ..budget import used_pct
 from ..codec import CODER_ID
 from ..recording import Recording
 from . import schema as S
@@ -21,10 +22,6 @@ def iso(t: datetime | None) -> str | None:
     if t is None:
         return None
     return t.isoformat().replace("+00:00", "Z") if t.tzinfo is timezone.utc else t.isoformat()
-
-
-def used_pct(worst: float, eps: float) -> float:
-    return 100.0 * worst / eps if eps > 0 else (0.0 if worst == 0 else math.inf)
 
 
 def _sig(x: float, digits: int = 6) -> float:
