@@ -442,7 +442,8 @@ def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windo
     # the probe's saving is judged on every k-th sampled window: the bits without the model must be
     # counted on those same windows, not taken from the plan over all of them
     from tsarchive.budget import parse_budget_spec
-    from tsarchive.encoder import _tables, plan_channel, predict_batch
+    from tsarchive.encoder import _tables, plan_channel
+    from tsarchive.windowcodec import predict_windows as predict_batch
     from tsarchive.model.train import train_autoencoder
     from tsarchive.recording import ChannelInfo, Recording
     W, nw = 64, 200

@@ -8,12 +8,10 @@ manifest is JSON, the model is plain integer arrays.
 
 from __future__ import annotations
 
-import base64
-import binascii
 import math
 import threading
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import cached_property
 from pathlib import Path
 
@@ -22,21 +20,20 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from . import checksum, entropy
-from .codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, reconstruct
+from .channelcodec import ChannelCodec
 from .errors import ArchiveCorrupt, BadInput, FormatVersionError
 from .model.intnet import IntDecoder
-from .predict import PREDICTORS, Context, mode_name
-from .quantize import bits_to_values
+from .predict import mode_name
 from .workers import workers as worker_count
 from .store import parse as P
 from .store import schema as S
 from .store.binding import check_folder, read_manifest
 from .store.members import inspect, member_problems
 from .store.parse import ChannelMeta
-from .store.rows import binary_parts as _binary_parts, codes as _codes, lengths as _lengths
+from .store.rows import codes as _codes, lengths as _lengths
 from .store import sidecar
 from .store.timeaxis import Times, Timeline, load_timeline
+from .windowcodec import code_prediction, decode_windows
 
 
 READ_SAMPLES = 1 << 20       # samples decoded per step of a long read (about one packing block)
@@ -90,13 +87,15 @@ class Archive:
         P.facts(m)
         chans = P.channel_list(m)
         self.channels = tuple(_channel_meta(c, self.window) for c in chans)
-        self._entries = {c.name: P.tables(d) for c, d in zip(self.channels, chans)}
+        P.budget_spec_agrees(m, self.channels)
         self._by_name = {c.name: c for c in self.channels}
         self._local = threading.local()
-        self._tables                                   # decoded once; a malformed table is named here
+        # the coders are rebuilt once, at opening (a malformed table is named here)
+        codecs = {c.name: ChannelCodec.from_entry(c, P.tables(d)) for c, d in zip(self.channels, chans)}
         opened = inspect(self.path, m, v, self.members, self.window, self.channels, model, strict,
                          make_decoder=IntDecoder.from_arrays)
         self._windows_file, self._groups, self._decoder = opened.windows, opened.groups, opened.decoder
+        self._codecs = {n: replace(c, decoder=opened.decoder) for n, c in codecs.items()}
         self.bound, self.damage, self.decodable = opened.bound, opened.damage, opened.decodable
 
     def check_members(self) -> None:
@@ -146,21 +145,10 @@ class Archive:
         """channel -> [(row group, first window, last window)] from Parquet statistics (checked at opening)."""
         return self._groups
 
-    @cached_property
-    def _tables(self) -> dict[tuple[str, int, int], entropy.FreqTable]:
-        out = {}
-        for name, entries in self._entries.items():
-            for t in entries:
-                try:
-                    freqs = base64.b64decode(t.freqs, validate=True)
-                except (ValueError, binascii.Error):
-                    raise ArchiveCorrupt(f"channel {name}: an entropy table entry is malformed; "
-                                         "the archive is damaged") from None
-                if t.coder != CODER_ID:
-                    raise ArchiveCorrupt(f"entropy coder {t.coder[:40]!r} is unknown to this tsarchive version; "
-                                         "upgrade tsarchive to read the archive")
-                out[(name, t.mode, t.table)] = entropy.FreqTable.from_bytes(freqs)
-        return out
+    def codec(self, channel: str) -> ChannelCodec:
+        """The channel's :class:`~tsarchive.channelcodec.ChannelCodec` (its grid, ε, predictors, coders)."""
+        self.channel(channel)
+        return self._codecs[channel]
 
     @property
     def decoder(self):
@@ -189,7 +177,8 @@ class Archive:
         """Decode windows ``w0..w1-1``; returns ``(values, window numbers, bad-crc windows)``.
 
         With ``check`` a CRC mismatch raises :class:`ArchiveCorrupt`;
-        without, the mismatching windows are returned for reporting.
+        without, the mismatching windows are returned for reporting
+        (see :func:`tsarchive.windowcodec.decode_windows`).
         """
         meta = self.channel(channel)
         t = self._rows(channel, w0, w1)
@@ -201,54 +190,9 @@ class Archive:
         if nrow != max(0, min(w1, meta.n_windows) - max(w0, 0)) or \
                 (nrow and not np.array_equal(windows, np.arange(windows[0], windows[0] + nrow))):
             raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} are missing rows; the archive is damaged")
-        lens = _lengths(meta, windows)
-        modes = t["mode"].to_numpy()
-        lpc_set = t["lpc_set"].to_numpy()
-        if not set(np.unique(modes).tolist()) <= PREDICTORS.keys() or \
-                (nrow and not 0 <= int(lpc_set.min()) <= int(lpc_set.max()) < len(meta.lpc)):
-            raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} name a predictor or a "
-                                 "linear-prediction set this archive does not have; the archive is damaged")
-        classes = t["table"].to_numpy()
-        level = t["level"].to_numpy()
-        pbuf, poffs = _binary_parts(t["residual"])
-        codes = _codes(t, nrow)
-        crcs = t["crc32"].to_numpy()
-        held = self._held(channel, w0, w1)          # window -> (positions, bits) stored verbatim
-        out = np.empty(int(lens.sum()), dtype=np.dtype(meta.grid.out_dtype))
-        missing = None if meta.grid.missing is None else np.zeros(len(out), dtype=bool)
-        offs = np.concatenate([[0], np.cumsum(lens)])
-        bad = []
-        for L in np.unique(lens):
-            sel = np.flatnonzero(lens == L)
-            res = np.empty((len(sel), int(L)), dtype=np.int64)
-            for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
-                pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
-                rows = sel[pick]
-                # strict=False: the per-window CRC below catches what a range code cannot
-                res[pick] = entropy.decode_flat(pbuf, poffs[rows], poffs[rows + 1], int(L), self._table(channel, m, c),
-                                                strict=False).reshape(len(pick), int(L))
-            ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
-            q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc, lpc_set[sel]), res)
-            x = meta.grid.decode(q)                                    # (windows, L), all at once
-            for k, w in enumerate(windows[sel].tolist()):               # samples stored verbatim
-                if w in held:
-                    pos, raw = held[w]
-                    if len(pos) != len(raw) or (len(pos) and not (0 <= pos.min() and pos.max() < L)):
-                        raise ArchiveCorrupt(f"channel {channel} window {w}: verbatim samples are malformed; "
-                                             "the archive is damaged")
-                    x[k, pos] = bits_to_values(raw, x.dtype)
-                    if missing is not None:                          # marked missing samples
-                        missing[offs[sel[k]] + pos[raw == meta.grid.missing]] = True
-            got = np.array([checksum.window_crc(row) for row in x], dtype=np.int64)
-            for k in np.flatnonzero(got != crcs[sel].astype(np.int64)):
-                if check:
-                    raise ArchiveCorrupt(f"channel {channel} window {windows[sel[k]]}: checksum mismatch; "
-                                         "the archive is damaged — restore it from a copy")
-                bad.append(int(windows[sel[k]]))
-            # windows are consecutive and only a channel's last one is short, so each length is one run
-            out[offs[sel[0]]:offs[sel[-1] + 1]] = x.ravel()
-        bad.sort()
-        return (out if missing is None else np.ma.MaskedArray(out, mask=missing)), windows, bad
+        x, bad = decode_windows(t, _lengths(meta, windows), self._held(channel, w0, w1), self.codec(channel),
+                                check=check)
+        return x, windows, bad
 
     @property
     def _schema(self) -> pa.Schema:
@@ -268,21 +212,6 @@ class Archive:
         for w, pos, raw in zip(t["window"].to_pylist(), t["pos"].to_pylist(), t["bits"].to_pylist()):
             out[int(w)] = (np.asarray(pos, np.int64), np.asarray(raw, np.int64))
         return out
-
-    def _table(self, channel: str, mode: int, cls: int) -> entropy.FreqTable:
-        try:
-            return self._tables[(channel, mode, cls)]
-        except KeyError:
-            raise ArchiveCorrupt(f"channel {channel}: no entropy table for predictor {mode_name(mode)} class {cls}; "
-                                 "the archive is damaged") from None
-
-    def _ae(self, meta: ChannelMeta, codes: np.ndarray, level: np.ndarray, L: int):
-        if meta.scale > FRAC_SAFE_SCALE or codes.shape[1] == 0:
-            return None
-        if codes.shape[1] != self.decoder.code_size:
-            raise ArchiveCorrupt(f"channel {meta.name}: window codes have {codes.shape[1]} values, the model takes "
-                                 f"{self.decoder.code_size}; the archive is damaged")
-        return ae_prediction(self.decoder, codes, level, meta.scale, L)
 
     # -- time axis, notes, text columns (store/timeaxis.py, store/sidecar.py) ---------
     @cached_property
@@ -353,7 +282,7 @@ class Archive:
 
     def prepare_threads(self) -> None:
         """Fill the lazy caches (row-group map, schema, tables, decoder) before threads share them."""
-        self._row_groups, self._schema, self._tables, self.decoder, self.timeline
+        self._row_groups, self._schema, self.decoder, self.timeline
 
     def preview(self, channel: str, start: float | None = None, end: float | None = None) -> np.ndarray:
         """Code-only reconstruction (no residuals), float64: what the codes alone say."""
@@ -369,7 +298,7 @@ class Archive:
         offs = np.concatenate([[0], np.cumsum(lens)])
         for L in np.unique(lens):  # one decoder call per window length (the last window may be short)
             sel = np.flatnonzero(lens == L)
-            ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
+            ae = code_prediction(self.codec(channel), codes[sel], level[sel], int(L))
             q = np.repeat(level[sel, None], int(L), axis=1) if ae is None else ae
             for k, i in enumerate(sel):
                 x[offs[i]:offs[i + 1]] = meta.grid.values(q[k])

@@ -24,17 +24,17 @@ byte for byte the stream constriction writes and reads one window per call;
 :func:`encode_reference` / :func:`decode_reference` are that constriction path,
 used without numba and as the tests' reference.
 
-Coder registry.  ``CODERS`` maps a stable id (stored in archives) to a
-frozen dataclass with ``id``, ``encode(values) -> bytes``,
-``decode(payload, n) -> int64 array`` (ArchiveCorrupt on damage), the batch
-forms ``encode_many(windows)`` / ``decode_many(payloads, lengths)``,
-``cost_bits(values) -> float``, ``get_config() -> dict`` (JSON-safe) and the
-classmethods ``from_config(dict)`` and ``fit(samples)``.
-:func:`coder_from_config` raises :class:`UnknownCodec` for unknown ids.
+Coders.  :class:`RangeCoder` and :class:`ZstdCoder` follow the codec contract of
+:mod:`tsarchive.codecs` (``id``, ``encode``, ``decode``, ``get_config``/``from_config``) and are
+registered there as kind ``coder``; beside it they have the batch forms ``encode_many(windows)`` /
+``decode_many(payloads, lengths)`` and ``cost_bits(values)``.  A range coder's config is its table's
+bytes in base64, exactly as a channel's table entry in ``manifest.json`` holds them.
 """
 
 from __future__ import annotations
 
+import base64
+import binascii
 import functools
 from dataclasses import dataclass
 from typing import ClassVar, Sequence
@@ -44,8 +44,7 @@ import numpy as np
 from tsarchive.entropy_table import (  # noqa: F401  (re-exported: the coding API lives here)
     PRECISION, TOTAL, FreqTable, _as_int64, _corrupt, _unzigzag, _zigzag, build_table, n_tokens,
     order0_entropy_bits, tokenize)
-from tsarchive import rangecoder
-from tsarchive.errors import UnknownCodec
+from tsarchive import codecs, rangecoder
 
 CHUNK_BITS = 16
 _MAX_N = (1 << 31) - 1
@@ -329,14 +328,20 @@ class RangeCoder:
     def cost_bits(self, values) -> float:
         return cost_bits(values, self.table)
 
+    def decode_flat(self, buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, lengths,
+                    strict: bool = True) -> np.ndarray:
+        return decode_flat(buf, starts, ends, lengths, self.table, strict=strict)
+
     def get_config(self) -> dict:
-        return {"table": self.table.to_dict()}
+        return {"freqs": base64.b64encode(self.table.to_bytes()).decode("ascii")}
 
     @classmethod
     def from_config(cls, config: dict) -> "RangeCoder":
-        if not isinstance(config, dict) or not isinstance(config.get("table"), dict):
-            raise _corrupt("range coder config has no table")
-        return cls(FreqTable.from_dict(config["table"]))
+        try:
+            freqs = base64.b64decode(config["freqs"], validate=True)
+        except (KeyError, TypeError, ValueError, binascii.Error):
+            raise _corrupt("an entropy table entry is malformed") from None
+        return cls(FreqTable.from_bytes(freqs))
 
     @classmethod
     def fit(cls, samples) -> "RangeCoder":
@@ -412,28 +417,5 @@ class ZstdCoder:
         return cls()
 
 
-CODERS: dict[str, type] = {RangeCoder.id: RangeCoder, ZstdCoder.id: ZstdCoder}
-
-
-def coder_from_config(coder_id: str, config: dict):
-    """Rebuild a stored coder; UnknownCodec if ``coder_id`` is not registered."""
-    cls = CODERS.get(coder_id)
-    if cls is None:
-        raise UnknownCodec(f"entropy coder {coder_id!r} is unknown to this tsarchive version; upgrade tsarchive to read it")
-    return cls.from_config(config)
-
-
-def choose_coder(windows: Sequence[np.ndarray], max_probe: int = 64):
-    """Fit every registered coder to ``windows`` and return the one whose
-    payloads are smallest on up to ``max_probe`` evenly spaced windows."""
-    if not len(windows):
-        return RangeCoder(build_table(np.zeros(0, np.int64)))
-    samples = np.concatenate([_as_int64(w) for w in windows])
-    pick = np.unique(np.linspace(0, len(windows) - 1, min(max_probe, len(windows))).astype(int))
-    best = None
-    for cls in CODERS.values():
-        coder = cls.fit(samples)
-        size = sum(len(coder.encode(windows[i])) for i in pick)
-        if best is None or size < best[0]:
-            best = (size, coder)
-    return best[1]
+for _coder in (RangeCoder, ZstdCoder):
+    codecs.register("coder", _coder.id, _coder.from_config)

@@ -33,7 +33,9 @@ import numpy as np
 import pyarrow as pa
 
 from .codec import FRAC_SAFE_SCALE
-from .encoder import TABLE_SAMPLES, ChannelPlan, coded_bytes, encode_batch, plan_channel, sample_windows
+from .channelcodec import ChannelCodec
+from .encoder import TABLE_SAMPLES, ChannelPlan, coded_bytes, plan_channel, sample_windows
+from .windowcodec import encode_windows
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .ingest import read_recording
 from .options import DEFAULT_TRAIN_SECONDS, PackOptions
@@ -286,19 +288,19 @@ def _write(job: dict, model, plans, model_note, decide=None) -> dict:
     model note or raises to drop the staging.  Returns the manifest."""
     emit, rec = job["emit"], job["rec"]
     decoder = None if model is None else model.int_decoder
-    tables = [p.tables if model is not None else p.tables_plain for p in plans]
+    codecs = [ChannelCodec.for_tables(name, job["W"], grid, scale, p.lpc, p.tables if model is not None else
+                                      p.tables_plain) for name, grid, scale, p in zip(job["names"], job["grids"],
+                                                                                      job["scales"], plans)]
     with ArchiveWriter(job["archive"], force=job["force"], with_code=decoder is not None) as writer:
-        summaries = _encode(writer, rec, job["names"], job["grids"], job["W"], model, job["scales"], plans, tables,
-                            emit)
+        summaries = _encode(writer, rec, job["names"], codecs, job["W"], model, emit)
         if decide is not None:
             model_note = decide()
         _release_memory()
         emit("write", 0, 1, "writing the model and the manifest")
         writer.write_model({} if decoder is None else decoder.to_arrays())
         sidecar = stage_sidecar(writer.stage, rec)     # time axis, notes, text columns
-        manifest = build_manifest(rec, job["spec"], job["grids"], job["scales"], [p.lpc for p in plans], tables,
-                                  job["notes"], job["W"], job["K"], decoder, model_note, summaries,
-                                  writer.staged_bytes())
+        manifest = build_manifest(rec, job["spec"], codecs, job["notes"], job["W"], job["K"], decoder, model_note,
+                                  summaries, writer.staged_bytes())
         if job["read_options"] is not None and job["read_options"].to_dict():   # so verify re-reads the source alike
             manifest["read_options"] = job["read_options"].to_dict()
         stage = writer.finalize({**manifest, **sidecar})
@@ -471,7 +473,7 @@ def _keep_model(model, gain: float, cost: float, explicit: bool, probed: bool = 
     return model, f"autoencoder kept: estimated saving {gain:.0f} B against a cost of {cost:.0f} B"
 
 
-def _encode(writer, rec: Recording, names, grids, W, model, scales, plans, tables, emit) -> list[dict]:
+def _encode(writer, rec: Recording, names, codecs, W, model, emit) -> list[dict]:
     """Stream row blocks; every channel's windows of a block become row groups of their own."""
     n = rec.n_samples
     nw = n_windows(n, W)
@@ -487,7 +489,7 @@ def _encode(writer, rec: Recording, names, grids, W, model, scales, plans, table
             for a in range(a0, b0, per_call):
                 b = min(b0, a + per_call)
                 x = block[(a - w0) * W:(a - w0) * W + (b - a) * L, j].reshape(b - a, L)
-                t, e, wb = encode_batch(x, a, names[j], grids[j], W, model, scales[j], plans[j].lpc, tables[j])
+                t, e, wb = encode_windows(x, a, codecs[j], model)
                 rows.append(t)
                 held.append(e)
                 worst = max(worst, wb)

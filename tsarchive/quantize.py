@@ -37,6 +37,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import codecs
 from .errors import ArchiveCorrupt, BadInput
 from .exact import _as_u, within
 
@@ -93,6 +94,22 @@ class Grid:
         if self.missing is not None and not -(1 << 63) <= self.missing < (1 << 63):
             return "grid missing mark out of the int64 range"
         return None
+
+    # -- the codec contract (tsarchive.codecs): the id is the kind, the config the manifest's grid entry
+    @property
+    def id(self) -> str:
+        return self.kind
+
+    def encode(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """See :func:`quantize`."""
+        return quantize(x, self)
+
+    def get_config(self) -> dict:
+        return self.to_dict()
+
+    @classmethod
+    def from_config(cls, config: dict) -> "Grid":
+        return cls.from_dict(config)
 
     def to_dict(self) -> dict:
         d = {"kind": self.kind, "eps": self.eps, "out_dtype": self.out_dtype, "step": self.step,
@@ -390,3 +407,7 @@ def fill_from_previous(q: np.ndarray, bad: np.ndarray) -> None:
     first = int(np.argmax(good))
     idx[idx < 0] = first
     q[:] = q[idx]
+
+
+for _kind in ("step", "decimal"):
+    codecs.register("grid", _kind, Grid.from_config)
