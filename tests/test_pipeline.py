@@ -464,3 +464,12 @@ def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windo
     mixed = plan_channel(part, None, nw, grids[0], W, model, scales[0], full)   # the mistake this guards
     assert mixed.ae_gain_bits - quick.ae_gain_bits == pytest.approx(
         (full.plain_bits - alone_bits) * nw / len(part))
+
+
+def test_unpack_writes_what_read_gives(small_archive, tmp_path):
+    # numpy's own .npy reader is the reference for the file unpack writes
+    out = tsarchive.unpack(small_archive, tmp_path / "back.npy")
+    arc = tsarchive.open(small_archive)
+    got = np.load(out)
+    want = np.stack([arc.read(c.name) for c in arc.channels], axis=1)
+    assert got.dtype == want.dtype and np.array_equal(got.reshape(want.shape), want, equal_nan=True)

@@ -20,10 +20,11 @@ from .errors import (ArchiveCorrupt, ArchiveExists, ArchiveNotFound, BadInput, B
                      Cancelled, FormatVersionError, SourceNotFound, TsArchiveError, UnknownCodec)
 from .ingest import ReadOptions, read_recording
 from .ingest.survey import SourceSurvey, survey_source
-from .pipeline import pack
+from .pipeline import pack, unpack
 from .recording import ChannelInfo, Recording
 from .results import ChannelCheck, ChannelSummary, PackResult, Progress, VerifyReport
-from .archive import Archive, ChannelMeta, WindowTable, open_archive
+from .archive import Archive, ChannelMeta, open_archive
+from .browse import WindowTable
 from .store.timeaxis import Times
 
 
@@ -45,7 +46,7 @@ def inspect_source(path, rate: float | None = None, options: ReadOptions | None 
 
 
 __all__ = [
-    "__version__", "pack", "open", "verify", "inspect_source", "read_recording", "ReadOptions", "survey_source", "SourceSurvey",
+    "__version__", "pack", "unpack", "open", "verify", "inspect_source", "read_recording", "ReadOptions", "survey_source", "SourceSurvey",
     "Archive", "ChannelMeta", "WindowTable", "Budget", "BudgetSpec", "DEFAULT_SPEC", "parse_budget_spec",
     "ChannelInfo", "Recording", "Times", "Progress", "PackResult", "ChannelSummary", "VerifyReport", "ChannelCheck",
     "TsArchiveError", "BadInput", "BudgetError", "SourceNotFound", "ArchiveNotFound", "ArchiveExists",

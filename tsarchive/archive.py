@@ -11,7 +11,7 @@ from __future__ import annotations
 import math
 import threading
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, replace
+from dataclasses import replace
 from functools import cached_property
 from pathlib import Path
 
@@ -23,33 +23,20 @@ import pyarrow.parquet as pq
 from .channelcodec import ChannelCodec
 from .errors import ArchiveCorrupt, BadInput, FormatVersionError
 from .model.intnet import IntDecoder
-from .predict import mode_name
 from .workers import workers as worker_count
 from .store import parse as P
 from .store import schema as S
 from .store.binding import check_folder, read_manifest
 from .store.members import inspect, member_problems
 from .store.parse import ChannelMeta
-from .store.rows import codes as _codes, lengths as _lengths
+from .store.rows import lengths as _lengths
 from .store import sidecar
 from .store.timeaxis import Times, Timeline, load_timeline
-from .windowcodec import code_prediction, decode_windows
+from .windowcodec import decode_windows
+from .windows import CHUNK_SAMPLES
 
 
-READ_SAMPLES = 1 << 20       # samples decoded per step of a long read (about one packing block)
-
-
-@dataclass(frozen=True)
-class WindowTable:
-    """Per-window facts of one channel, time-ordered (no residual payloads)."""
-
-    index: np.ndarray
-    start_sample: np.ndarray
-    n: np.ndarray
-    mode: tuple[str, ...]
-    worst_error: np.ndarray      # per window, an upper bound (stored in 1/250ths of ε, rounded up)
-    score: np.ndarray
-    codes: np.ndarray
+READ_SAMPLES = CHUNK_SAMPLES     # samples decoded per step of a long read (one packing block)
 
 
 def _channel_meta(d: dict, window: int) -> ChannelMeta:
@@ -155,7 +142,7 @@ class Archive:
         """The integer decoder (numpy), or None for an archive packed without a model (read once, at opening)."""
         return self._decoder
 
-    def _rows(self, channel: str, w0: int, w1: int, columns: list[str] | None = None) -> pa.Table:
+    def rows(self, channel: str, w0: int, w1: int, columns: list[str] | None = None) -> pa.Table:
         """Window rows ``w0 <= window < w1`` of a channel, reading only overlapping row groups."""
         schema = self._schema
         if columns is not None:       # a column this archive does not have (``code`` without a model) is left out
@@ -181,7 +168,7 @@ class Archive:
         (see :func:`tsarchive.windowcodec.decode_windows`).
         """
         meta = self.channel(channel)
-        t = self._rows(channel, w0, w1)
+        t = self.rows(channel, w0, w1)
         if any(c.null_count for c in t.columns):
             raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} have empty (null) fields; "
                                  "the archive is damaged")
@@ -239,14 +226,11 @@ class Archive:
         a, b = self.span(start, end)
         return sidecar.read_extra(self.manifest, self.path, self.timeline.n, a, b)
 
-    def _span(self, meta: ChannelMeta, start, end) -> tuple[int, int]:
-        return self.span(start, end)
-
     def read(self, channel: str, start: float | None = None, end: float | None = None) -> np.ndarray:
         """Samples of ``channel`` whose times lie in ``start <= t - t[0] < end`` (seconds from the first sample;
         on the logged time axis, so gaps and jitter count)."""
         meta = self.channel(channel)
-        a, b = self._span(meta, start, end)
+        a, b = self.span(start, end)
         if b <= a:
             return np.zeros(0, dtype=np.dtype(meta.grid.out_dtype))
         W = meta.window
@@ -284,72 +268,26 @@ class Archive:
         """Fill the lazy caches (row-group map, schema, tables, decoder) before threads share them."""
         self._row_groups, self._schema, self.decoder, self.timeline
 
+    # -- browsing (tsarchive/browse.py) ---------------------------------------------
     def preview(self, channel: str, start: float | None = None, end: float | None = None) -> np.ndarray:
-        """Code-only reconstruction (no residuals), float64: what the codes alone say."""
-        meta = self.channel(channel)
-        a, b = self._span(meta, start, end)
-        W = meta.window
-        w0, w1 = a // W, -(-b // W)
-        t = self._rows(channel, w0, w1, ["level", "code"])
-        lens = _lengths(meta, t["window"].to_numpy())
-        level = t["level"].to_numpy()
-        codes = _codes(t, t.num_rows)
-        x = np.empty(int(lens.sum()), dtype=np.float64)
-        offs = np.concatenate([[0], np.cumsum(lens)])
-        for L in np.unique(lens):  # one decoder call per window length (the last window may be short)
-            sel = np.flatnonzero(lens == L)
-            ae = code_prediction(self.codec(channel), codes[sel], level[sel], int(L))
-            q = np.repeat(level[sel, None], int(L), axis=1) if ae is None else ae
-            for k, i in enumerate(sel):
-                x[offs[i]:offs[i + 1]] = meta.grid.values(q[k])
-        return x[a - w0 * W:b - w0 * W]
+        """See :func:`tsarchive.browse.preview`."""
+        from .browse import preview
+        return preview(self, channel, start, end)
 
-    def windows(self, channel: str) -> WindowTable:
-        meta = self.channel(channel)
-        t = self._rows(channel, 0, meta.n_windows, ["mode", "worst", "score", "code"])
-        index = t["window"].to_numpy().astype(np.int64)
-        worst = t["worst"].to_numpy().astype(np.float64) * (meta.eps / S.WORST_STEPS)
-        return WindowTable(index=index, start_sample=index * meta.window, n=_lengths(meta, index),
-                           mode=tuple(mode_name(m) for m in t["mode"].to_numpy()),
-                           worst_error=worst, score=t["score"].to_numpy(), codes=_codes(t, t.num_rows))
+    def windows(self, channel: str):
+        """See :func:`tsarchive.browse.window_table`."""
+        from .browse import window_table
+        return window_table(self, channel)
 
     def outliers(self, channel: str, k: int = 20) -> list[int]:
-        """Window numbers with the highest outlier score (code-only reconstruction error), highest first."""
-        w = self.windows(channel)
-        order = np.lexsort((w.index, -w.score))
-        return [int(w.index[i]) for i in order[:k]]
+        """See :func:`tsarchive.browse.outliers`."""
+        from .browse import outliers
+        return outliers(self, channel, k)
 
     def similar(self, channel: str, window_index: int, k: int = 10) -> list[tuple[int, float]]:
-        """The ``k`` windows whose codes are nearest (Euclidean) to window ``window_index``'s.
-
-        An archive packed without an autoencoder has no codes; then each
-        window is described by its decoded shape instead (the window's mean
-        over 8 equal parts, centred and scaled by the channel's spread).
-        """
-        w = self.windows(channel)
-        if not 0 <= window_index < len(w.index):
-            raise BadInput(f"window {window_index} is out of range 0..{len(w.index) - 1}")
-        c = w.codes.astype(np.float64) if w.codes.shape[1] else self._shape_features(channel)
-        d = np.sqrt(((c - c[window_index]) ** 2).sum(axis=1))
-        d[window_index] = np.inf
-        order = np.lexsort((w.index, d))
-        return [(int(w.index[i]), float(d[i])) for i in order[:k] if np.isfinite(d[i])]
-
-    def _shape_features(self, channel: str, parts: int = 8) -> np.ndarray:
-        meta = self.channel(channel)
-        W = meta.window
-        feats = np.zeros((meta.n_windows, parts))
-        per = max(1, (1 << 20) // W)
-        for w0 in range(0, meta.n_windows, per):
-            w1 = min(meta.n_windows, w0 + per)
-            x = self.decode_windows(channel, w0, w1)[0].astype(np.float64)
-            x = np.concatenate([x, np.full((w1 - w0) * W - len(x), x[-1] if len(x) else 0.0)])
-            x = np.where(np.isfinite(x), x, 0.0).reshape(w1 - w0, W)[:, :(W // parts) * parts]
-            x = x.reshape(w1 - w0, parts, W // parts)
-            m = x.mean(axis=2)
-            feats[w0:w1] = m - m.mean(axis=1, keepdims=True)
-        spread = feats.std() or 1.0
-        return feats / spread
+        """See :func:`tsarchive.browse.similar`."""
+        from .browse import similar
+        return similar(self, channel, window_index, k)
 
     def verify(self, against=None, progress=None, **options):
         """See :func:`tsarchive.verifier.verify_archive` (``rate``, ``even_if_changed``)."""

@@ -58,12 +58,16 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from .errors import BadInput
 from .store.timeaxis import Times
 from .export_text import CellFormat, cells
+
+if TYPE_CHECKING:
+    import pyarrow as pa
 
 #: Extensions write_table understands.
 FORMATS = (".npy", ".csv", ".parquet")

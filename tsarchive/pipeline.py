@@ -1,4 +1,4 @@
-"""pack(), read top-down.
+"""pack() and unpack(), each read top-down.
 
 Packing::
 
@@ -48,10 +48,9 @@ from .store.sidecar import stage_sidecar
 from .store.timeaxis import check_axis
 from .store.writer import ArchiveWriter, check_target
 from .windowcodec import encode_windows
-from .windows import DEFAULT_WINDOW, batches, n_windows
+from .windows import CHUNK_SAMPLES, DEFAULT_WINDOW, batches, n_windows
 from .workers import workers as worker_count
 
-CHUNK_SAMPLES = 1 << 20      # samples per channel encoded per step (bounds memory)
 BATCH_SAMPLES = 1 << 18      # samples per encoder call within a step (bounds each thread's temporaries)
 WINDOW_CHOICES = tuple(DEFAULT_WINDOW << k for k in range(4))   # without --window: 1024 … 8192
 WINDOW_EVAL_SAMPLES = 1 << 18  # samples (all channels) that the window choice plans and codes
@@ -116,6 +115,25 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     return PackResult(archive=archive, channels=tuple(_summary(m) for m in arc.channels),
                       source_bytes=manifest["source"]["bytes"], raw_bytes=manifest["summary"]["raw_bytes"],
                       archive_bytes=arc.archive_bytes, ratio=arc.ratio, elapsed_s=time.perf_counter() - t0)
+
+
+def unpack(archive, out, channels=None, start: float | None = None, end: float | None = None, *,
+           force: bool = False, replace_original: str | None = None) -> Path:
+    """Decode an archive (or a time range of some channels) into ``out`` (.npy, .csv or .parquet).
+
+    The reverse of :func:`pack`, top-down::
+
+        open    -> manifest checked, a ChannelCodec per channel       (archive.py, store/)
+        members -> every member hashed against the manifest          (store/members.py)
+        decode  -> rows -> entropy -> predictor inverse -> grid       (windowcodec.decode_windows)
+        write   -> atomically, marked as a reconstruction             (export_range.py, export.py)
+    """
+    from .archive import open_archive
+    from .export_range import export_range
+    arc = open_archive(archive)
+    arc.check_members()
+    return export_range(arc, out, channels=channels, start=start, end=end, force=force,
+                        replace_original=replace_original)
 
 
 @dataclass(frozen=True)

@@ -21,9 +21,9 @@ from .exact import abs_errors, rounded_errors
 from .quantize import values_to_bits
 from .recording import Recording
 from .results import ChannelCheck, Progress, VerifyReport
+from .windows import CHUNK_SAMPLES
 from .workers import workers as worker_count
 
-CHUNK_SAMPLES = 1 << 20
 MAX_LISTED = 50  # failing windows listed per channel
 
 

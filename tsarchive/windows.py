@@ -15,6 +15,8 @@ import numpy as np
 from .predict.exactls import gram
 
 DEFAULT_WINDOW = 1024
+#: samples per channel read, encoded, decoded or compared per step: bounds every stage's memory
+CHUNK_SAMPLES = 1 << 20
 MIN_WINDOW, MAX_WINDOW = 8, 65536
 
 
