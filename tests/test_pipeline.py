@@ -473,3 +473,11 @@ def test_unpack_writes_what_read_gives(small_archive, tmp_path):
     got = np.load(out)
     want = np.stack([arc.read(c.name) for c in arc.channels], axis=1)
     assert got.dtype == want.dtype and np.array_equal(got.reshape(want.shape), want, equal_nan=True)
+
+
+def test_spread_picks_evenly_with_one_rounding():
+    from tsarchive.windows import spread
+    # by hand: 0..9 in 4 steps of 3; 0..10 in 4 steps of 10/3 = 3.33 -> 0, 3, 7, 10 (nearest); all of a short range
+    assert spread(10, 4).tolist() == [0, 3, 6, 9]
+    assert spread(11, 4).tolist() == [0, 3, 7, 10]
+    assert spread(3, 8).tolist() == [0, 1, 2] and spread(0, 5).tolist() == [] and spread(5, 0).tolist() == []

@@ -20,6 +20,7 @@ from .codec import TableSet, choose_modes, proxy_bits
 from .predict import Context
 from .predict import lpc as lpc_mod
 from .quantize import Grid
+from .windows import spread
 from .windowcodec import code_windows, predict_windows  # noqa: F401  (code_windows: the plan codes too)
 
 TABLE_SAMPLES = 1 << 20      # bound on the samples used to plan each channel (and to sample training windows)
@@ -37,10 +38,7 @@ class ChannelPlan:
 
 def sample_windows(n: int, W: int, count: int) -> np.ndarray:
     """Up to ``count`` full-window numbers spread evenly over ``n`` samples."""
-    full = n // W
-    if full == 0:
-        return np.zeros(0, dtype=np.int64)
-    return np.unique(np.linspace(0, full - 1, min(full, count)).round().astype(np.int64))
+    return spread(n // W, count)
 
 
 def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: int, grid: Grid, W: int,

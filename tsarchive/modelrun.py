@@ -30,7 +30,7 @@ from .errors import Cancelled
 from .options import PackOptions
 from .quantize import Grid, quantize
 from .recording import Recording
-from .windows import channel_scale, levels, n_windows, normalise
+from .windows import channel_scale, levels, n_windows, normalise, spread
 
 TRAIN_WINDOWS = 20000        # bound on the training sample, whatever the recording's length
 MIN_MODEL_WINDOWS = 8        # fewer full windows than this: no autoencoder
@@ -257,8 +257,7 @@ def _training_set(sampled: list[np.ndarray], grids: list[Grid], W: int, C: int, 
     of the sample."""
     per_channel = max(1, TRAIN_WINDOWS // max(C, 1))
     k = len(sampled[0]) if C else 0
-    pick = np.unique(np.linspace(0, k - 1, min(k, per_channel)).round().astype(np.int64)) \
-        if k else np.zeros(0, np.int64)
+    pick = spread(k, per_channel)
     scales, xs = [], []
     for j in range(C):
         raw = sampled[j][pick]

@@ -48,7 +48,7 @@ from .store.sidecar import stage_sidecar
 from .store.timeaxis import check_axis
 from .store.writer import ArchiveWriter, check_target
 from .windowcodec import encode_windows
-from .windows import CHUNK_SAMPLES, DEFAULT_WINDOW, batches, n_windows
+from .windows import CHUNK_SAMPLES, DEFAULT_WINDOW, batches, n_windows, spread
 from .workers import workers as worker_count
 
 BATCH_SAMPLES = 1 << 18      # samples per encoder call within a step (bounds each thread's temporaries)
@@ -311,8 +311,7 @@ def _choose_window(rec: Recording, grids: list[Grid]) -> tuple[int, str]:
     by more samples.
     """
     n, span = rec.n_samples, max(WINDOW_CHOICES)
-    chans = np.unique(np.linspace(0, len(rec.channels) - 1, min(len(rec.channels), WINDOW_EVAL_CHANNELS))
-                      .round().astype(int)).tolist()         # evenly spread channels stand for the rest
+    chans = spread(len(rec.channels), WINDOW_EVAL_CHANNELS).tolist()   # evenly spread channels stand for the rest
     C = len(chans)
     per_channel = max(WINDOW_EVAL_MIN, WINDOW_EVAL_SAMPLES // C)
     spans = sample_windows(n, span, per_channel // span)

@@ -240,11 +240,9 @@ def _source(arc, against, rate: float | None = None) -> Recording | None:
 
 
 def _column_index(rec: Recording, meta, j: int) -> int:
-    names = [c.name for c in rec.channels]
-    if meta.name in names:
-        return names.index(meta.name)
-    if j < len(names):
-        return j
+    k = rec.channel_index(meta.name, j)
+    if k is not None:
+        return k
     raise BadInput(f"the source has no channel {meta.name!r}; pass the recording the archive was packed from")
 
 
