@@ -109,3 +109,14 @@ def test_read_path_needs_neither_torch_nor_textual(tmp_path):
     assert run.returncode == 0, run.stderr[-2000:]
     assert run.stdout.strip() == "", run.stdout
     assert (tmp_path / "out.csv").stat().st_size > 0
+
+
+def test_reader_only_install_needs_no_torch_or_textual():
+    # PEP 621 (pyproject.toml metadata): dependencies are what a plain install brings
+    import re
+    import tomllib
+    project = tomllib.loads((PKG.parent / "pyproject.toml").read_text(encoding="utf-8"))["project"]
+    names = {re.split(r"[<>=!\[ ;]", d, maxsplit=1)[0].lower() for d in project["dependencies"]}
+    assert names == {"numpy", "pyarrow", "zstandard", "constriction", "numba"}
+    extras = project["optional-dependencies"]
+    assert {"pack", "app", "all", "dev"} <= set(extras) and any(d.startswith("textual") for d in extras["app"])

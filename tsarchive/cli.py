@@ -13,6 +13,7 @@ stdout; without one it refuses with exit 2.
 from __future__ import annotations
 
 import argparse
+import importlib
 import json
 import os
 import sys
@@ -265,11 +266,19 @@ def _demo(args) -> int:
 
 
 def _app(path: Path) -> int:
-    try:
-        from .app import run_app
-    except ImportError as exc:
-        raise BadInput(f"the terminal app is unavailable ({exc}); install tsarchive with its dependencies") from None
+    _require("textual", "app", "the terminal app")
+    _require("textual_plotext", "app", "the terminal app")
+    from .app import run_app
     return run_app(path) or 0
+
+
+def _require(module: str, extra: str, what: str) -> None:
+    """One line naming the extra to install when an optional dependency is missing."""
+    try:
+        importlib.import_module(module)
+    except ImportError:
+        raise BadInput(f"{what} needs {module}, which is not installed; install it with "
+                       f"pip install 'tsarchive[{extra}]'") from None
 
 
 if __name__ == "__main__":
