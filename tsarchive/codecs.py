@@ -20,7 +20,7 @@ kind           encode                                     decode
 ``grid``       ``encode(x) -> (q, positions, raw bits)``  ``decode(q) -> samples`` in the channel's dtype
 =============  =========================================  ==============================================
 
-Coders: :mod:`tsarchive.entropy` (``range``, ``zstd``); a new leaf coder with
+Coders: :mod:`tsarchive.entropy` (``range``), :mod:`tsarchive.zstdcoder` (``zstd``); a new leaf coder with
 the same four members registers itself with :func:`register` and is found
 by its id.  Predictors: :mod:`tsarchive.predict`.  Grids: :mod:`tsarchive.quantize`.
 A channel's codecs together are a :class:`tsarchive.channelcodec.ChannelCodec`,
@@ -45,7 +45,7 @@ from .errors import UnknownCodec
 
 KINDS = ("coder", "predictor", "grid")
 #: modules that register the built-in codecs when they are imported
-_BUILTIN = ("tsarchive.entropy", "tsarchive.predict", "tsarchive.quantize")
+_BUILTIN = ("tsarchive.entropy", "tsarchive.zstdcoder", "tsarchive.predict", "tsarchive.quantize")
 
 _FACTORIES: dict[tuple[str, Any], Callable[[dict], Any]] = {}
 _loaded = False

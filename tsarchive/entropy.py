@@ -35,7 +35,6 @@ from __future__ import annotations
 
 import base64
 import binascii
-import functools
 from dataclasses import dataclass
 from typing import ClassVar, Sequence
 
@@ -45,6 +44,7 @@ from tsarchive.entropy_table import (  # noqa: F401  (re-exported: the coding AP
     PRECISION, TOTAL, FreqTable, _as_int64, _corrupt, _unzigzag, _zigzag, build_table, n_tokens,
     order0_entropy_bits, tokenize)
 from tsarchive import codecs, rangecoder
+from tsarchive.zstdcoder import ZstdCoder  # noqa: F401  (re-exported beside RangeCoder)
 
 CHUNK_BITS = 16
 _MAX_N = (1 << 31) - 1
@@ -348,74 +348,4 @@ class RangeCoder:
         return cls(build_table(samples))
 
 
-@functools.lru_cache(maxsize=8)
-def _zstd_pair(level: int):
-    import zstandard as zstd
-
-    params = zstd.ZstdCompressionParameters.from_level(
-        level, format=zstd.FORMAT_ZSTD1_MAGICLESS, write_content_size=False,
-        write_checksum=False, write_dict_id=False)
-    return zstd.ZstdCompressor(compression_params=params), zstd.ZstdDecompressor(format=zstd.FORMAT_ZSTD1_MAGICLESS)
-
-
-@dataclass(frozen=True)
-class ZstdCoder:
-    """zstd (magicless frame) over zigzag values, fixed width 1/2/4/8 bytes,
-    byte planes shuffled.  Payload: u8 log2(width) + frame; all-zero -> b""."""
-
-    level: int = 19
-    id: ClassVar[str] = "zstd"
-
-    def encode(self, values) -> bytes:
-        a = _as_int64(values)
-        if not a.any():
-            return b""
-        u = _zigzag(a, 0)
-        code = int(np.searchsorted([0xFF, 0xFFFF, 0xFFFFFFFF], int(u.max())))
-        w = 1 << code
-        planes = u.astype(f"<u{w}").view(np.uint8).reshape(-1, w).T.tobytes()
-        return bytes([code]) + _zstd_pair(self.level)[0].compress(planes)
-
-    def decode(self, payload: bytes, n: int) -> np.ndarray:
-        if not 0 <= n <= _MAX_N:
-            raise _corrupt(f"window length {n} is out of range")
-        payload = bytes(payload)
-        if not payload:
-            return np.zeros(n, np.int64)
-        w = 1 << payload[0] if payload[0] <= 3 else 0
-        try:
-            raw = _zstd_pair(self.level)[1].decompress(payload[1:], max_output_size=max(n * w, 1)) if w else b""
-        except Exception as exc:  # zstandard raises its own ZstdError
-            raise _corrupt(f"zstd window cannot be decoded ({exc})") from None
-        if not w or len(raw) != n * w:
-            raise _corrupt("zstd window has the wrong size or width code")
-        u = np.frombuffer(raw, np.uint8).reshape(w, n).T.copy().view(f"<u{w}").ravel().astype(_U64)
-        return _unzigzag(u, 0)
-
-    def encode_many(self, windows) -> list[bytes]:
-        return [self.encode(w) for w in windows]
-
-    def decode_many(self, payloads: Sequence[bytes], lengths) -> list[np.ndarray]:
-        lengths = np.broadcast_to(np.asarray(lengths, dtype=np.int64), (len(payloads),))
-        return [self.decode(p, int(n)) for p, n in zip(payloads, lengths)]
-
-    def cost_bits(self, values) -> float:
-        return 8.0 * len(self.encode(values))
-
-    def get_config(self) -> dict:
-        return {"level": self.level}
-
-    @classmethod
-    def from_config(cls, config: dict) -> "ZstdCoder":
-        try:
-            return cls(int(config.get("level", 19)))
-        except (AttributeError, TypeError, ValueError):
-            raise _corrupt("zstd coder config is malformed") from None
-
-    @classmethod
-    def fit(cls, samples) -> "ZstdCoder":
-        return cls()
-
-
-for _coder in (RangeCoder, ZstdCoder):
-    codecs.register("coder", _coder.id, _coder.from_config)
+codecs.register("coder", RangeCoder.id, RangeCoder.from_config)

@@ -39,7 +39,7 @@ import numpy as np
 
 from . import codecs
 from .errors import ArchiveCorrupt, BadInput
-from .exact import _as_u, within
+from .exact import _as_u, bits_to_values, values_to_bits, within  # noqa: F401  (the bits API is used from here)
 
 _MAX_Q = float(2**50)
 MAX_MULT = 1 << 20
@@ -210,24 +210,6 @@ class Grid:
                 mask[exc_pos[np.asarray(exc_bits) == self.missing]] = True
                 return np.ma.MaskedArray(out, mask=mask)
         return out
-
-
-def values_to_bits(x: np.ndarray) -> np.ndarray:
-    """Raw bits of samples as int64 (floats by bit pattern, ints by value)."""
-    x = np.asarray(x)
-    if x.dtype.kind == "f":
-        width = {2: np.int16, 4: np.int32, 8: np.int64}[x.dtype.itemsize]
-        return x.view(width).astype(np.int64)
-    return x.astype(np.int64)
-
-
-def bits_to_values(bits: np.ndarray, dtype: np.dtype) -> np.ndarray:
-    dtype = np.dtype(dtype)
-    bits = np.asarray(bits, dtype=np.int64)
-    if dtype.kind == "f":
-        width = {2: np.int16, 4: np.int32, 8: np.int64}[dtype.itemsize]
-        return bits.astype(width).view(dtype)
-    return bits.astype(dtype)
 
 
 def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float = 0.0, mult: int = 1,
