@@ -9,8 +9,9 @@ budget ε set per channel.  Archives are Parquet + zstd.
     >>> arc = tsarchive.open("run.tsarchive")                    # doctest: +SKIP
     >>> arc.read("temp", start=60, end=120)                # doctest: +SKIP
 
-Importing this package loads numpy and pyarrow only; torch is imported
-when a pack trains its model, textual when the app starts.
+Importing this package loads numpy and pyarrow only; textual is imported
+when the app starts.  Training is numpy: torch is needed by no part of the
+tool (the tests use it as a reference for the integer decoder).
 """
 
 from .version import __version__

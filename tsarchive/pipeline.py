@@ -2,21 +2,24 @@
 
 Packing::
 
-    ingest  -> read the recording (streams .npy through fresh memory maps)
+    options -> PackOptions, checked once                              (options.py, budget.py)
+    ingest  -> read the recording (streams .npy through fresh memory maps)   (ingest/)
     budget  -> ε per channel, then an integer grid per channel      (budget.py, quantize.py)
     windows -> fixed windows of W samples with a level each          (windows.py; W chosen from
                1024 … 8192 by the size of a planned and coded sample, unless given)
-    codes   -> a small autoencoder learned from a bounded sample      (model/; on a helper thread)
+    sample  -> a bounded sample of windows, per-channel scales        (modelrun.PackSample)
+    codes   -> a small autoencoder learned from the sample            (modelrun.ModelRun, model/; on a helper thread)
     plan    -> LPC coefficients, entropy tables, does the model pay?  (encoder.py)
-    residuals -> per window the cheapest integer predictor            (codec.py, predict/)
-    entropy -> range coding, integer tables per channel/predictor/class (entropy.py, rangecoder.py)
+    residuals, entropy -> per window the cheapest integer predictor, range coded
+                                                                     (windowcodec.encode_windows)
     Parquet -> staged archive, checked through the reader, renamed    (store/)
 
 While the autoencoder trains, the main thread plans without it and (unless a
 code size was asked for) encodes every channel without it; the staging is
-dropped and the channels encoded again only if the model pays.
+dropped and the channels encoded again only if the model pays (:class:`~tsarchive.modelrun.ModelRun`).
 
-Reading reverses it in :mod:`tsarchive.archive` (numpy, pyarrow and the compiled kernels; no torch).
+Unpacking (:func:`unpack`) reverses it through :mod:`tsarchive.archive` and
+:func:`tsarchive.windowcodec.decode_windows` (numpy, pyarrow and the compiled kernels; no torch).
 """
 
 from __future__ import annotations
@@ -58,7 +61,6 @@ WINDOW_EVAL_MIN = 1 << 15      # per channel at least (and no choice on a record
 WINDOW_EVAL_CHANNELS = 4       # channels (evenly spread) that the window choice looks at
 WINDOW_MARGIN = 0.03           # a longer window must save this share of the estimate (its noise is ~±3 %)
 WINDOW_ROW_BYTES = 10.5        # measured framing of one window row (CRC, level, score, lengths; Parquet+zstd)
-
 
 
 def pack(source, archive, budget=None, *, rate: float | None = None, window: int | None = None,
