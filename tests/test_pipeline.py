@@ -481,3 +481,11 @@ def test_spread_picks_evenly_with_one_rounding():
     assert spread(10, 4).tolist() == [0, 3, 6, 9]
     assert spread(11, 4).tolist() == [0, 3, 7, 10]
     assert spread(3, 8).tolist() == [0, 1, 2] and spread(0, 5).tolist() == [] and spread(5, 0).tolist() == []
+
+
+def test_members_are_handed_out_by_name(small_archive):
+    # pyarrow's own reader of the file is the reference; an unlisted name is no member
+    arc = tsarchive.open(small_archive)
+    got = arc.member_table("windows.parquet", columns=["channel", "window"])
+    assert got.equals(pq.read_table(small_archive / "windows.parquet", columns=["channel", "window"]))
+    assert arc.member_table("index.parquet") is None and arc.member_table("../windows.parquet") is None

@@ -91,6 +91,16 @@ class Archive:
         if problems:
             raise ArchiveCorrupt(f"{problems[0]}; run tsarchive verify for the details")
 
+    def member_table(self, name: str, columns: list[str] | None = None, filters=None) -> pa.Table | None:
+        """A Parquet member listed in the manifest (e.g. an optional ``index.parquet``), read by name;
+        None when the archive has no such member.  Its size was checked at opening; ``verify`` hashes it."""
+        if name not in {m.name for m in self.members}:
+            return None
+        try:
+            return pq.read_table(self.path / name, columns=columns, filters=filters)
+        except (OSError, pa.ArrowException) as exc:
+            raise ArchiveCorrupt(f"{name} cannot be read ({str(exc)[:80]}); the archive is damaged") from None
+
     # -- facts -------------------------------------------------------------------
     @property
     def source_name(self) -> str:
