@@ -44,7 +44,7 @@ from .predict import PREDICTORS
 from .quantize import Grid, make_grid
 from .ranges import finite_ranges
 from .recording import Recording
-from .results import ChannelSummary, PackResult, Progress, ProgressFn
+from .results import ChannelSummary, ChannelTally, PackResult, Progress, ProgressFn
 from .store.claim import claim_target
 from .store.manifest import build_manifest
 from .store.sidecar import stage_sidecar
@@ -243,13 +243,12 @@ def _grid_note(budget, grid: Grid) -> str:
     return f"budget {budget.spec} of a zero range is 0, so the channel is stored exactly"
 
 
-def _encode(writer, rec: Recording, names, codecs, W, model, emit) -> list[dict]:
+def _encode(writer, rec: Recording, names, codecs, W, model, emit) -> list[ChannelTally]:
     """Stream row blocks; every channel's windows of a block become row groups of their own."""
     n = rec.n_samples
     nw = n_windows(n, W)
     per_block = max(1, CHUNK_SAMPLES // W)
-    stats = [{"worst_error": 0.0, "bytes_est": 0, "n_exceptions": 0,
-              "modes": {p.name: 0 for p in PREDICTORS.values()}} for _ in names]
+    stats = [ChannelTally() for _ in names]
     code_bytes = 8 + (model.code_size if model is not None else 0)
     # channels are encoded side by side (numba and numpy release the GIL); rows are written in order
     with ThreadPoolExecutor(worker_count(len(names))) as pool:
@@ -258,7 +257,7 @@ def _encode(writer, rec: Recording, names, codecs, W, model, emit) -> list[dict]
             block = rec.rows(w0 * W, min(n, w1 * W))
             jobs = [(block[:, j], w0, w1, n, c, model) for j, c in enumerate(codecs)]
             for j, (table, held, worst) in enumerate(pool.map(_channel_rows, *zip(*jobs))):
-                stats[j]["worst_error"] = max(stats[j]["worst_error"], worst)
+                stats[j].worst_error = max(stats[j].worst_error, worst)
                 _add_rows(writer, table, held, stats[j], code_bytes)
             emit("encode", w1 * len(names), nw * len(names), f"window {w1}/{nw}")
     return stats
@@ -280,13 +279,13 @@ def _channel_rows(x, w0: int, w1: int, n: int, codec: ChannelCodec, model) -> tu
     return pa.concat_tables(rows), pa.concat_tables(held), worst
 
 
-def _add_rows(writer, table: pa.Table, held: pa.Table, s: dict, code_bytes: int) -> None:
+def _add_rows(writer, table: pa.Table, held: pa.Table, s: ChannelTally, code_bytes: int) -> None:
     """Write one channel's rows of a block (and its verbatim samples) and add them to its summary counts."""
     for m, c in zip(*np.unique(table.column("mode").to_numpy(), return_counts=True)):
-        s["modes"][PREDICTORS[int(m)].name] += int(c)
+        s.modes[PREDICTORS[int(m)].name] += int(c)
     n_exc = int(pa.compute.sum(pa.compute.list_value_length(held.column("pos"))).as_py() or 0)
-    s["n_exceptions"] += n_exc
-    s["bytes_est"] += int(pa.compute.sum(pa.compute.binary_length(table.column("residual"))).as_py() or 0) \
+    s.n_exceptions += n_exc
+    s.bytes_est += int(pa.compute.sum(pa.compute.binary_length(table.column("residual"))).as_py() or 0) \
         + table.num_rows * code_bytes + 12 * n_exc
     writer.add_windows(table)
     writer.add_exceptions(held)

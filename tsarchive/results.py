@@ -7,6 +7,7 @@ from pathlib import Path
 from typing import Callable, Optional
 
 from .budget import within_budget
+from .predict import PREDICTORS
 
 
 @dataclass(frozen=True)
@@ -23,6 +24,17 @@ class Progress:
 
 
 ProgressFn = Optional[Callable[[Progress], None]]
+
+
+@dataclass
+class ChannelTally:
+    """One channel's counts while its rows are written (then its manifest summary): the worst error,
+    the estimated bytes of its own rows, its verbatim samples, and windows per predictor."""
+
+    worst_error: float = 0.0
+    bytes_est: int = 0
+    n_exceptions: int = 0
+    modes: dict = field(default_factory=lambda: {p.name: 0 for p in PREDICTORS.values()})
 
 
 @dataclass(frozen=True)

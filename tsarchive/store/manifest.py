@@ -28,7 +28,7 @@ def _sig(x: float, digits: int = 6) -> float:
 
 
 def build_manifest(rec: Recording, spec, codecs, notes, W: int, K: int, decoder,
-                   model_note: str, summaries: list[dict], archive_bytes: int) -> dict:
+                   model_note: str, summaries: list, archive_bytes: int) -> dict:
     """Everything a reader needs besides the Parquet members (whose checksums the writer adds).
 
     Nothing here depends on when or where packing ran (no clock, no host), so
@@ -45,19 +45,19 @@ def build_manifest(rec: Recording, spec, codecs, notes, W: int, K: int, decoder,
     src = rec.source
     src_bytes = src.stat().st_size if src is not None and src.is_file() else int(rec.data.nbytes)
     raw_bytes = sum(rec.n_samples * np.dtype(c.dtype).itemsize for c in rec.channels)
-    est_total = sum(s["bytes_est"] for s in summaries) or 1
+    est_total = sum(s.bytes_est for s in summaries) or 1
     channels = []
     for j, ch in enumerate(rec.channels):
         s, g = summaries[j], codecs[j].grid
-        share = archive_bytes * s["bytes_est"] / est_total
+        share = archive_bytes * s.bytes_est / est_total
         raw = rec.n_samples * np.dtype(ch.dtype).itemsize
         channels.append({
             **ch.to_dict(), "rate": rec.rate, "start": iso(axis_start(rec)), "n_samples": rec.n_samples,
             "budget": spec.for_channel(ch.name).spec, **codecs[j].to_dict(), "note": notes[j],
-            "summary": {"worst_error": s["worst_error"], "used_pct": _sig(used_pct(s["worst_error"], g.eps)),
+            "summary": {"worst_error": s.worst_error, "used_pct": _sig(used_pct(s.worst_error, g.eps)),
                         "ratio": _sig(raw / share if share else math.inf),
                         "bits_per_sample": _sig(8 * share / max(rec.n_samples, 1)),
-                        "n_exceptions": s["n_exceptions"], "modes": s["modes"]},
+                        "n_exceptions": s.n_exceptions, "modes": dict(s.modes)},
         })
     return {
         "format": S.FORMAT_NAME, "format_version": S.FORMAT_VERSION, "tool_version": __version__,
