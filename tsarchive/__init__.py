@@ -21,6 +21,7 @@ from .errors import (ArchiveCorrupt, ArchiveExists, ArchiveNotFound, BadInput, B
                      Cancelled, FormatVersionError, SourceNotFound, TsArchiveError, UnknownCodec)
 from .ingest import ReadOptions, read_recording
 from .ingest.survey import SourceSurvey, survey_source
+from .options import PackOptions
 from .pipeline import pack, unpack
 from .recording import ChannelInfo, Recording
 from .results import ChannelCheck, ChannelSummary, PackResult, Progress, VerifyReport
@@ -48,7 +49,7 @@ def inspect_source(path, rate: float | None = None, options: ReadOptions | None 
 
 __all__ = [
     "__version__", "pack", "unpack", "open", "verify", "inspect_source", "read_recording", "ReadOptions", "survey_source", "SourceSurvey",
-    "Archive", "ChannelMeta", "WindowTable", "Budget", "BudgetSpec", "DEFAULT_SPEC", "parse_budget_spec",
+    "Archive", "ChannelMeta", "WindowTable", "PackOptions", "Budget", "BudgetSpec", "DEFAULT_SPEC", "parse_budget_spec",
     "ChannelInfo", "Recording", "Times", "Progress", "PackResult", "ChannelSummary", "VerifyReport", "ChannelCheck",
     "TsArchiveError", "BadInput", "BudgetError", "SourceNotFound", "ArchiveNotFound", "ArchiveExists",
     "ArchiveCorrupt", "FormatVersionError", "UnknownCodec", "BoundViolation", "Cancelled",
