@@ -11,6 +11,7 @@ parsed (:func:`tsarchive.store.parse.channel_meta`).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 from . import codecs
 from .codec import CODER_ID, TableSet
@@ -50,8 +51,9 @@ class ChannelCodec:
             raise ArchiveCorrupt(f"channel {self.name}: no entropy table for predictor {mode_name(mode)} class "
                                  f"{cls}; the archive is damaged") from None
 
+    @cached_property
     def table_set(self) -> TableSet:
-        """The range coders' tables, as the encoder keeps them."""
+        """The range coders' tables, as the encoder keeps them (made once)."""
         return TableSet({k: c.table for k, c in self.coders.items()})
 
     def to_dict(self) -> dict:

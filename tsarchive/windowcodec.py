@@ -57,7 +57,7 @@ def encode_windows(x: np.ndarray, first_window: int, codec: ChannelCodec, model=
     worst error in float64.  ``model`` (a trained autoencoder, pack side) gives the codes; the inverse
     is :func:`decode_windows`."""
     nb, L = x.shape
-    grid, name, tables = codec.grid, codec.name, codec.table_set()
+    grid, name, tables = codec.grid, codec.name, codec.table_set
     q, pos, bits, lv, codes, ae = predict_windows(x, grid, codec.window, model, codec.scale)
     modes, classes, res, sets = choose_modes(q, Context(lv, ae, codec.lpc), tables)
     payloads = code_windows(modes, classes, res, tables)
