@@ -19,7 +19,8 @@ import tsarchive
 from app_helpers import (N, RATE, SPIKE_AT, WINDOW, Lab, NotedApp, cells, copy_lab, open_contents, open_strip, settle,
                          write_stream)
 from tsarchive.app import fmt
-from tsarchive.app.locate import combine_budgets, free_archive_name, read_time
+from tsarchive.app.locate import free_archive_name, read_time
+from tsarchive.budget import spec_from_fields
 from tsarchive.app.screens.packing import PackingScreen
 from tsarchive.app.screens.export import ExportScreen, default_name
 from tsarchive.app.screens.shortlist import ShortlistScreen
@@ -474,12 +475,13 @@ def test_times_typed_and_shown_agree():
 
 
 def test_budget_fields_become_one_spec_the_library_reads():
-    assert combine_budgets(["temp", "accel"], ["0.1%", ""]) == "0.1%"  # empty field = the default
-    spec = combine_budgets(["temp", "accel"], ["0.02", "lossless"])
-    parsed = tsarchive.parse_budget_spec(spec)  # the library's own parser is the reference
-    assert parsed.for_channel("temp").spec == "0.02" and parsed.for_channel("accel").spec == "lossless"
+    # the library's parser of typed specs is the reference: the fields mean what "name=spec,..." means
+    assert spec_from_fields(["temp", "accel"], ["0.1%", ""]) == tsarchive.parse_budget_spec("0.1%")  # empty = default
+    spec = spec_from_fields(["temp", "accel"], ["0.02", "lossless"])
+    assert spec == tsarchive.parse_budget_spec("0.1%,temp=0.02,accel=lossless")
+    assert spec.for_channel("temp").spec == "0.02" and spec.for_channel("accel").spec == "lossless"
     with pytest.raises(tsarchive.BadInput):
-        combine_budgets(["temp"], ["a=1"])
+        spec_from_fields(["temp"], ["a=1"])
 
 
 def test_names_proposed_for_new_files(tmp_path):

@@ -61,7 +61,7 @@ def test_pack_read_within_budget(tmp_path_factory, x, budget, window):
 def test_stored_window_worst_never_understates(eps, frac):
     # The per-window worst error is stored in 1/250ths of eps, rounded up: the stored bound is >= the true error
     # and at most one step above it.
-    from tsarchive.encoder import worst_steps
+    from tsarchive.windowcodec import worst_steps
     worst = np.asarray(frac) * eps
     k = worst_steps(worst, eps)
     assert k.dtype == np.uint8 and (k <= 250).all()
@@ -75,7 +75,7 @@ def test_stored_window_worst_never_understates(eps, frac):
 def test_stored_score_keeps_eight_significant_bits_and_order(score):
     # bfloat16 precision: relative rounding error <= 2**-8 (IEEE 754 round-half-up on the magnitude), order kept.
     # Normal float32 magnitudes only: subnormal scores (< 1.2e-38) keep fewer bits, which no ranking notices.
-    from tsarchive.encoder import score_bf16
+    from tsarchive.windowcodec import score_bf16
     s = score_bf16(score)
     ref = score.astype(np.float32).astype(np.float64)
     assert (np.abs(s - ref) <= ref * 2.0 ** -8).all()

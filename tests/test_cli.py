@@ -152,3 +152,12 @@ def test_verify_alone_catches_a_damaged_window(tmp_path, src, capsys):
     code, out, _ = _run(capsys, "verify", arc)
     assert code == 1 and "FAILED" in out
     assert "windows.parquet" in out and "ch1" in out and f"window(s) {rows[target]['window']}" in out
+
+
+def test_missing_app_extra_is_named(monkeypatch, capsys):
+    # textual made unimportable (None in sys.modules makes import raise ImportError, as the import system documents)
+    import sys
+    monkeypatch.setitem(sys.modules, "textual", None)
+    assert main(["browse", "."]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "pip install 'tsarchive[app]'" in err

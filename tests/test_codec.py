@@ -128,3 +128,19 @@ def test_window_batches_cover_everything():
             covered.extend(range(a * W, a * W + (b - a) * L))
         assert covered == list(range(n))
     assert pad_to(np.array([[1, 2]]), 4).tolist() == [[1, 2, 2, 2]]
+
+
+def test_channel_codec_is_the_manifest_entry():
+    # the golden archive's manifest (written by the format-4 writer, committed) is the reference
+    import json
+    from pathlib import Path
+    import tsarchive
+    from tsarchive.store import parse as P
+    golden = Path(__file__).parent / "golden" / "v4" / "golden4"
+    entries = json.loads((golden / "manifest.json").read_text())["channels"]
+    arc = tsarchive.open(golden)
+    for entry in entries:
+        codec = arc.codec(entry["name"])
+        assert codec.to_dict() == {k: entry[k] for k in ("eps", "grid", "scale", "lpc", "tables")}
+        assert codec.eps == entry["eps"] and codec.decoder is arc.decoder
+        assert [(t.mode, t.table) for t in P.tables(entry)] == sorted(codec.coders)

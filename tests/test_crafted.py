@@ -122,6 +122,14 @@ def _eps_twice_in_one_place(m):
     m["channels"][0]["eps"] *= 2
 
 
+def _budget_says_lossless(m):
+    m["channels"][0]["budget"] = "lossless"      # while its eps (and its grid's) stay > 0
+
+
+def _spec_disagrees(m):
+    m["budget_spec"] = "0.2%"                    # the channels say 0.5%
+
+
 def _used_pct(m):
     m["channels"][0]["summary"]["used_pct"] = 1.0
 
@@ -144,6 +152,9 @@ CASES = [
     ("newer-version", _top("format_version", 99), r"written by a newer tsarchive .*upgrade tsarchive", (2, 2, 2)),
     ("version-text", _top("format_version", "3"), r"format_version is str '3'", (2, 2, 2)),
     ("eps-disagrees", _edit(_eps_twice_in_one_place), r"eps .* differs from its grid's eps", (2, 2, 2)),
+    ("budget-disagrees", _edit(_budget_says_lossless), r"eps .* disagrees with its budget lossless", (2, 2, 2)),
+    ("spec-disagrees", _edit(_spec_disagrees), r"budget_spec gives channel .* 0\.2%, the channel says 0\.5%",
+     (2, 2, 2)),
     ("used-disagrees", _edit(_used_pct), r"used_pct 1\.0 disagrees with worst_error / eps", (2, 2, 2)),
     ("table-number", _edit(_freqs_number), r"entropy table entry is malformed", (2, 2, 2)),
     ("lpc-empty", _ch("lpc", []), r"linear-prediction sets are missing or malformed", (2, 2, 2)),
@@ -192,7 +203,7 @@ def test_crafted_archive(base, tmp_path, capsys, name, damage, message, codes):
 def test_a_damaged_model_is_read_once(base, tmp_path, monkeypatch):
     # Weights outside int16 (the decoder's weight type) with the right shapes, re-bound: the decoder is
     # refused; it used to be re-read (and refused again) for every window verify decoded.
-    from tsarchive.verifier import verify_archive
+    from tsarchive import verify as verify_archive
     a = copy(base, tmp_path, "m.tsa")
 
     def big_weights(t):

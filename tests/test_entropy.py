@@ -15,9 +15,11 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 from scipy.stats import entropy as scipy_entropy
 
-from tsarchive import entropy as E
+from tsarchive import codecs, entropy as E
 from tsarchive.checksum import window_crc
 from tsarchive.errors import ArchiveCorrupt, BadInput, UnknownCodec
+
+from kit import check_codec
 
 I64_MIN, I64_MAX = -(2**63), 2**63 - 1
 # mostly small residuals with escapes anywhere in int64 (hypothesis also favours the extremes)
@@ -326,20 +328,7 @@ def test_zstd_damage_raises():
 def test_registry_config_round_trip_and_unknown_id():
     coder = E.RangeCoder.fit(laplace(10_000, 8.0))
     for c in (coder, E.ZstdCoder(level=7)):
-        cfg = json.loads(json.dumps(c.get_config()))
-        again = E.coder_from_config(c.id, cfg)
-        assert again == c
-        x = laplace(300, 8.0, seed=5)
-        assert np.array_equal(again.decode(c.encode(x), 300), x)
-    assert set(E.CODERS) == {"range", "zstd"}
+        check_codec("coder", c, [laplace(300, 8.0, seed=5), np.zeros(4, np.int64), np.array([2**40, -3])])
+    assert {"range", "zstd"} <= set(codecs.ids("coder"))
     with pytest.raises(UnknownCodec):
-        E.coder_from_config("lzma-9000", {})
-
-
-def test_choose_coder_prefers_zstd_for_repeats_and_range_for_noise():
-    rng = np.random.default_rng(6)
-    period = rng.integers(-(10**6), 10**6, 16)
-    repeats = [np.tile(period, 32) for _ in range(50)]  # order-0 model cannot see the repetition
-    noise = [laplace(512, 4.0, seed=i) for i in range(50)]
-    assert isinstance(E.choose_coder(repeats), E.ZstdCoder)
-    assert isinstance(E.choose_coder(noise), E.RangeCoder)
+        codecs.from_config("coder", "lzma-9000", {})

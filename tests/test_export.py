@@ -141,7 +141,8 @@ def test_csv_failure_leaves_no_partial_file(tmp_path, monkeypatch):
     target = tmp_path / "out.csv"
     target.write_text("old contents\n")
     monkeypatch.setattr(export, "CSV_CHUNK_ROWS", 10)
-    real = export.cells
+    from tsarchive import export_text
+    real = export_text.cells
     calls = {"n": 0}
 
     def failing(values, fmt):
@@ -150,7 +151,7 @@ def test_csv_failure_leaves_no_partial_file(tmp_path, monkeypatch):
             raise OSError("disk full (simulated)")
         return real(values, fmt)
 
-    monkeypatch.setattr(export, "cells", failing)
+    monkeypatch.setattr(export_text, "cells", failing)
     with pytest.raises(OSError, match="simulated"):
         write_table(target, {"x": np.arange(100.0), "y": np.arange(100.0)}, rate=1.0, start=None, units={},
                     replace=True)

@@ -12,7 +12,8 @@ import pyarrow.parquet as pq
 import pytest
 
 import tsarchive
-from tsarchive import pipeline
+from tsarchive import modelrun, pipeline
+from tsarchive.options import DEFAULT_CODE_SIZE
 from tsarchive.errors import ArchiveExists, BadInput, BoundViolation, BudgetError, SourceNotFound
 from tsarchive.quantize import values_to_bits
 
@@ -128,7 +129,7 @@ def test_refuses_overwrite_and_force_replaces(tmp_path):
 
 def test_self_check_refuses_to_finish(tmp_path, monkeypatch):
     # Corrupt the decoder's view of the grid: pack must notice through the reader and write nothing.
-    import tsarchive.store.reader as reader
+    import tsarchive.archive as reader
     real = reader._channel_meta
 
     def skewed(d, window):
@@ -209,7 +210,7 @@ def test_reading_channels_on_threads_gives_the_same_samples(small_archive, worke
 
 
 def test_long_reads_in_steps_give_the_same_samples(small_archive, monkeypatch):
-    from tsarchive.store import reader
+    from tsarchive import archive as reader
     arc = tsarchive.open(small_archive)
     meta = arc.channels[0]
     spans = [(None, None), (0.013, None), (None, meta.duration * 0.7), (0.5, 9.0), (3.0, 3.01)]
@@ -271,7 +272,7 @@ def test_probe_model_decides_before_a_long_training(tmp_path):
                    progress=events.append)
     arc = tsarchive.open(tmp_path / "x.tsa")
     assert arc.manifest["model"] is None
-    assert f"after a {pipeline.PROBE_SECONDS:g} s probe" in arc.manifest["model_note"]
+    assert f"after a {modelrun.PROBE_SECONDS:g} s probe" in arc.manifest["model_note"]
     assert not any("training it fully" in e.message for e in events)
 
 
@@ -280,10 +281,10 @@ def test_a_model_that_pays_replaces_the_speculative_archive(tmp_path, monkeypatc
     # Without an explicit code size the channels are encoded without a model while it trains; when the
     # model turns out to pay (forced here through the account), that staging is dropped and the channels
     # are encoded again with it (after the full training when the first run was a probe).
-    real = pipeline._model_account
-    monkeypatch.setattr(pipeline, "_model_account",
+    real = modelrun._model_account
+    monkeypatch.setattr(modelrun, "_model_account",
                         lambda model, plans, nwin, K: (1e12, real(model, plans, nwin, K)[1]) if model else (0.0, 0.0))
-    monkeypatch.setattr(pipeline, "PROBE_SECONDS", 1.0)
+    monkeypatch.setattr(modelrun, "PROBE_SECONDS", 1.0)
     x = np.sin(np.arange(60000) / 7.0).astype(np.float32)[:, None]
     src = tmp_path / "s.npy"
     np.save(src, x)
@@ -292,7 +293,7 @@ def test_a_model_that_pays_replaces_the_speculative_archive(tmp_path, monkeypatc
                    progress=events.append)
     arc = tsarchive.open(tmp_path / "s.tsa")
     assert arc.manifest["model"] is not None and "kept" in arc.manifest["model_note"]
-    assert arc.windows("ch0").codes.shape[1] == pipeline.DEFAULT_CODE_SIZE
+    assert arc.windows("ch0").codes.shape[1] == DEFAULT_CODE_SIZE
     assert any("training it fully" in e.message for e in events) == probe
     finals = [e for e in events if e.stage == "encode" and e.total > 1 and e.done == e.total]
     assert len(finals) == 2                               # encoded twice: speculatively, then with the model
@@ -302,7 +303,7 @@ def test_a_model_that_pays_replaces_the_speculative_archive(tmp_path, monkeypatc
 
 def test_a_failing_plan_stops_the_training_thread(tmp_path, monkeypatch):
     seen = []
-    real_train = pipeline._train
+    real_train = modelrun._train
 
     def spy(rec, xs, W, K, emit, *a, **kw):
         seen.append(emit)
@@ -311,8 +312,8 @@ def test_a_failing_plan_stops_the_training_thread(tmp_path, monkeypatch):
     def broken(*a, **kw):
         raise BadInput("planning failed on purpose")
 
-    monkeypatch.setattr(pipeline, "_train", spy)
-    monkeypatch.setattr(pipeline, "plan_channel", broken)
+    monkeypatch.setattr(modelrun, "_train", spy)
+    monkeypatch.setattr(modelrun, "plan_channel", broken)
     x = np.random.default_rng(6).standard_normal(30000).astype(np.float32)
     src = tmp_path / "n.npy"
     np.save(src, x)
@@ -370,7 +371,7 @@ def test_no_training_when_even_a_perfect_model_could_not_pay(tmp_path):
     assert not any(e.stage == "train" and e.message.startswith("epoch") for e in events)
     last_train = [e for e in events if e.stage == "train"][-1]       # progress ends on why, as the manifest
     assert last_train.message == arc.manifest["model_note"]
-    assert pipeline._payload_ceiling([pipeline.ChannelPlan((), None, None, 0.0, 8.0e3)], 100, 10) == 1.0e4
+    assert modelrun._payload_ceiling([modelrun.ChannelPlan((), None, None, 0.0, 8.0e3)], 100, 10) == 1.0e4
     _assert_within(x, arc)
 
 
@@ -401,7 +402,7 @@ def test_damaged_entropy_table_in_the_manifest_is_named(tmp_path):
 
 def test_sampled_windows_are_gathered_exactly():
     # Sparse samples are read window by window, runs of neighbours together: the result must equal plain indexing.
-    from tsarchive.pipeline import _gather
+    from tsarchive.modelrun import _gather
     from tsarchive.recording import ChannelInfo, Recording
     x = np.arange(100 * 8 * 2, dtype=np.float32).reshape(-1, 2)
     rec = Recording(data=x, rate=1.0, channels=(ChannelInfo("a", "", "float32", None), ChannelInfo("b", "", "float32", None)),
@@ -441,7 +442,8 @@ def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windo
     # the probe's saving is judged on every k-th sampled window: the bits without the model must be
     # counted on those same windows, not taken from the plan over all of them
     from tsarchive.budget import parse_budget_spec
-    from tsarchive.encoder import _tables, plan_channel, predict_batch
+    from tsarchive.encoder import _tables, plan_channel
+    from tsarchive.windowcodec import predict_windows as predict_batch
     from tsarchive.model.train import train_autoencoder
     from tsarchive.recording import ChannelInfo, Recording
     W, nw = 64, 200
@@ -449,8 +451,8 @@ def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windo
     x = (np.sin(t / 3.0) + 0.3 * np.sin(t / 17.0) + 0.01 * np.random.default_rng(2).standard_normal(t.size))
     rec = Recording(data=x.astype(np.float32)[:, None], rate=100.0, channels=(ChannelInfo("a", "", "float32"),))
     grids, _ = pipeline._grids(rec, parse_budget_spec("0.5%"))
-    sampled = pipeline._gather(rec, np.arange(nw), W)
-    scales, xs = pipeline._training_set(sampled, grids, W, 1)
+    sampled = modelrun._gather(rec, np.arange(nw), W)
+    scales, xs = modelrun._training_set(sampled, grids, W, 1)
     model = train_autoencoder(np.concatenate(xs), 4, max_epochs=5, seed=0)
     full = plan_channel(sampled[0], None, nw, grids[0], W, None, scales[0])
     part = sampled[0][::4]
@@ -462,3 +464,28 @@ def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windo
     mixed = plan_channel(part, None, nw, grids[0], W, model, scales[0], full)   # the mistake this guards
     assert mixed.ae_gain_bits - quick.ae_gain_bits == pytest.approx(
         (full.plain_bits - alone_bits) * nw / len(part))
+
+
+def test_unpack_writes_what_read_gives(small_archive, tmp_path):
+    # numpy's own .npy reader is the reference for the file unpack writes
+    out = tsarchive.unpack(small_archive, tmp_path / "back.npy")
+    arc = tsarchive.open(small_archive)
+    got = np.load(out)
+    want = np.stack([arc.read(c.name) for c in arc.channels], axis=1)
+    assert got.dtype == want.dtype and np.array_equal(got.reshape(want.shape), want, equal_nan=True)
+
+
+def test_spread_picks_evenly_with_one_rounding():
+    from tsarchive.windows import spread
+    # by hand: 0..9 in 4 steps of 3; 0..10 in 4 steps of 10/3 = 3.33 -> 0, 3, 7, 10 (nearest); all of a short range
+    assert spread(10, 4).tolist() == [0, 3, 6, 9]
+    assert spread(11, 4).tolist() == [0, 3, 7, 10]
+    assert spread(3, 8).tolist() == [0, 1, 2] and spread(0, 5).tolist() == [] and spread(5, 0).tolist() == []
+
+
+def test_members_are_handed_out_by_name(small_archive):
+    # pyarrow's own reader of the file is the reference; an unlisted name is no member
+    arc = tsarchive.open(small_archive)
+    got = arc.member_table("windows.parquet", columns=["channel", "window"])
+    assert got.equals(pq.read_table(small_archive / "windows.parquet", columns=["channel", "window"]))
+    assert arc.member_table("index.parquet") is None and arc.member_table("../windows.parquet") is None

@@ -19,7 +19,7 @@ import tsarchive
 from tsarchive.cli import main
 from tsarchive.errors import ArchiveCorrupt, ArchiveExists
 from tsarchive.store import schema as S
-from tsarchive.verifier import verify_archive
+from tsarchive import verify as verify_archive
 
 from crafting import copy, manifest, pack_small, snapshot, write_manifest
 

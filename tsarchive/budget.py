@@ -9,6 +9,14 @@ Spec grammar (one line, no spaces needed)::
 
 The default, when no spec is given, is :data:`DEFAULT_SPEC` (0.1 % of range).
 Every decoded sample x̂ then satisfies ``|x̂ - x| <= eps`` for its channel.
+A budget of ``0`` is refused (write ``lossless`` for an exact archive).
+
+The budget's path: the CLI, the app and the API turn the user's text into a
+:class:`BudgetSpec` once (:func:`parse_budget_spec`, :func:`spec_from_fields`);
+packing resolves it to ε per channel (:meth:`Budget.resolve`) and stores ε in
+the channel's grid; reading takes ε from there
+(:class:`tsarchive.channelcodec.ChannelCodec`).  Whether a worst error is within
+its budget is decided by :func:`within_budget` alone.
 """
 
 from __future__ import annotations
@@ -17,8 +25,11 @@ import math
 import re
 from dataclasses import dataclass, field
 
+from typing import Sequence
+
 from .errors import BudgetError
 
+#: The budget when none is given: 0.1 % of each channel's range (the one place this default is spelled).
 DEFAULT_SPEC = "0.1%"
 
 _NUMBER = re.compile(r"^[+]?(\d+(\.\d*)?|\.\d+)([eE][-+]?\d+)?$")
@@ -47,11 +58,12 @@ class Budget:
         return text + "%" if self.kind == "pct" else text
 
     def resolve(self, value_range: float, name: str = "") -> float:
-        """ε in channel units (0.0 for lossless).
+        """ε in channel units: 0.0 for lossless, the value itself for an absolute budget, and
+        ``value`` % of ``value_range`` for a percentage.
 
-        For a percentage of a channel whose finite values span zero range
-        (constant, or all NaN), ε falls back to 1e-12 of the channel's scale
-        so that the channel is still coded (exactly, in practice).
+        A percentage of a channel whose finite values span zero range
+        (constant, or all NaN) or an infinite one gives 0.0: the channel is
+        then stored exactly, and packing notes why.
         """
         if self.kind == "lossless":
             return 0.0
@@ -87,7 +99,7 @@ class BudgetSpec:
 def parse_budget(text: str) -> Budget:
     """Parse one budget entry: ``0.02``, ``0.1%`` or ``lossless``."""
     t = text.strip().lower()
-    if t in ("lossless", "exact", "0", "0%"):
+    if t in ("lossless", "exact"):
         return Budget("lossless")
     kind = "abs"
     if t.endswith("%"):
@@ -95,6 +107,9 @@ def parse_budget(text: str) -> Budget:
     if not _NUMBER.match(t):
         raise BudgetError(
             f"cannot read budget {text!r}; write an absolute value like 0.02, a percentage like 0.1% or 'lossless'")
+    if float(t) == 0:
+        raise BudgetError(f"budget {text.strip()!r} is zero; write 'lossless' for an exact archive, or a positive "
+                          "budget such as 0.02 or 0.1%")
     return Budget(kind, float(t))
 
 
@@ -127,3 +142,27 @@ def parse_budget_spec(spec: str | Budget | BudgetSpec | None) -> BudgetSpec:
                 raise BudgetError(f"budget has two defaults ({default.spec} and {entry.strip()}); name the channels")
             default = parse_budget(entry)
     return BudgetSpec(default or parse_budget(DEFAULT_SPEC), tuple(named.items()))
+
+
+def spec_from_fields(names: Sequence[str], texts: Sequence[str], default: str = DEFAULT_SPEC) -> BudgetSpec:
+    """One :class:`BudgetSpec` from one text field per channel (the app's form); an empty field takes
+    ``default``.  Each field must be a single budget (``0.02``, ``0.1%`` or ``lossless``)."""
+    cleaned = [(t.strip() or default) for t in texts]
+    for name, text in zip(names, cleaned):
+        if "," in text or "=" in text:
+            raise BudgetError(f"budget for {name!r} must be one value such as 0.02, 0.1% or lossless")
+    budgets = [parse_budget(t) for t in cleaned]
+    if len(set(cleaned)) <= 1:                      # one budget for all, as typed
+        return BudgetSpec(budgets[0] if budgets else parse_budget(default))
+    return BudgetSpec(parse_budget(DEFAULT_SPEC), tuple(zip(names, budgets)))
+
+
+def within_budget(worst_error: float | None, eps: float) -> bool:
+    """Whether a channel's worst error keeps its budget ε (the one place this is decided; ``None``,
+    an error that could not be measured, does not)."""
+    return worst_error is not None and float(worst_error) <= float(eps)
+
+
+def used_pct(worst_error: float, eps: float) -> float:
+    """The worst error as a percentage of ε (an exact channel: 0 when exact, else infinite)."""
+    return 100.0 * worst_error / eps if eps > 0 else (0.0 if worst_error == 0 else math.inf)

@@ -13,6 +13,7 @@ stdout; without one it refuses with exit 2.
 from __future__ import annotations
 
 import argparse
+import importlib
 import json
 import os
 import sys
@@ -130,7 +131,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         args = _parser().parse_args(argv)
         if args.version:
-            from . import __version__
+            from .version import __version__
             print(f"tsarchive {__version__}")
             return 0
         if args.command is None:
@@ -170,8 +171,10 @@ def _caution_if_lossy(lossy: bool, to_stderr: bool = False) -> None:
 
 
 def _pack(args) -> int:
+    from .options import PackOptions
     from .pipeline import pack
     options = _read_options(args)
+    settings = PackOptions.parse(args.budget, args.window, args.code_size)   # checked before the source is read
     if args.dry_run:
         from .ingest.survey import survey_source
         survey = survey_source(args.source, options=options)
@@ -183,14 +186,14 @@ def _pack(args) -> int:
     from .progress_line import ProgressLine
     line = ProgressLine(enabled=False if args.quiet else None)
     try:
-        res = pack(args.source, args.output, args.budget, rate=args.rate, window=args.window,
-                   code_size=args.code_size, force=args.force, read_options=options, progress=line)
+        res = pack(args.source, args.output, rate=args.rate, force=args.force, read_options=options,
+                   progress=line, options=settings)
     finally:
         line.close()
     lossy = any(c.eps > 0 for c in res.channels)
     if args.json:
         from .report import identity
-        from .store.reader import open_archive
+        from .archive import open_archive
         print(json.dumps({**res.to_dict(), "identity": identity(open_archive(res.archive))}, indent=1))
         _caution_if_lossy(lossy, to_stderr=True)  # stdout stays one JSON document
         return 0
@@ -201,7 +204,7 @@ def _pack(args) -> int:
 
 
 def _unpack(args) -> int:
-    from .store.reader import open_archive
+    from .archive import open_archive
     from .timespec import parse_offset
     arc = open_archive(args.archive)
     arc.check_members()                     # a full unpack reads every member anyway; hashing costs little
@@ -229,7 +232,7 @@ def _unpack(args) -> int:
 
 def _verify(args) -> int:
     from .progress_line import ProgressLine
-    from .store.reader import open_archive
+    from .archive import open_archive
     from .verifier import verify_archive
     if args.record:
         from .record.document import check_record_folder
@@ -261,7 +264,7 @@ def _verify(args) -> int:
 
 def _report(args) -> int:
     from .report import archive_dict, archive_table
-    from .store.reader import open_archive
+    from .archive import open_archive
     arc = open_archive(args.archive)
     d = archive_dict(arc)
     print(json.dumps(d, indent=1) if args.json else archive_table(arc, d))
@@ -280,11 +283,19 @@ def _demo(args) -> int:
 
 
 def _app(path: Path) -> int:
-    try:
-        from .app import run_app
-    except ImportError as exc:
-        raise BadInput(f"the terminal app is unavailable ({exc}); install tsarchive with its dependencies") from None
+    _require("textual", "app", "the terminal app")
+    _require("textual_plotext", "app", "the terminal app")
+    from .app import run_app
     return run_app(path) or 0
+
+
+def _require(module: str, extra: str, what: str) -> None:
+    """One line naming the extra to install when an optional dependency is missing."""
+    try:
+        importlib.import_module(module)
+    except ImportError:
+        raise BadInput(f"{what} needs {module}, which is not installed; install it with "
+                       f"pip install 'tsarchive[{extra}]'") from None
 
 
 if __name__ == "__main__":

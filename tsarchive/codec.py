@@ -24,7 +24,7 @@ from . import entropy, fixedlog
 from .predict import PREDICTORS, Context, get_predictor
 from .predict import lpc as lpc_mod
 
-CODER_ID = "range"       # entropy coder id stored with every residual payload (tsarchive.entropy.CODERS)
+CODER_ID = "range"       # entropy coder id stored with every table entry (registered in tsarchive.codecs)
 N_CLASSES = 16           # residual activity classes, each may have its own table
 FRAC_SAFE_SCALE = 2**36  # largest channel scale the autoencoder path accepts
 Y_CLIP = 2**24           # bound on the decoder's fixed-point output before scaling

@@ -24,18 +24,17 @@ byte for byte the stream constriction writes and reads one window per call;
 :func:`encode_reference` / :func:`decode_reference` are that constriction path,
 used without numba and as the tests' reference.
 
-Coder registry.  ``CODERS`` maps a stable id (stored in archives) to a
-frozen dataclass with ``id``, ``encode(values) -> bytes``,
-``decode(payload, n) -> int64 array`` (ArchiveCorrupt on damage), the batch
-forms ``encode_many(windows)`` / ``decode_many(payloads, lengths)``,
-``cost_bits(values) -> float``, ``get_config() -> dict`` (JSON-safe) and the
-classmethods ``from_config(dict)`` and ``fit(samples)``.
-:func:`coder_from_config` raises :class:`UnknownCodec` for unknown ids.
+Coders.  :class:`RangeCoder` and :class:`ZstdCoder` follow the codec contract of
+:mod:`tsarchive.codecs` (``id``, ``encode``, ``decode``, ``get_config``/``from_config``) and are
+registered there as kind ``coder``; beside it they have the batch forms ``encode_many(windows)`` /
+``decode_many(payloads, lengths)`` and ``cost_bits(values)``.  A range coder's config is its table's
+bytes in base64, exactly as a channel's table entry in ``manifest.json`` holds them.
 """
 
 from __future__ import annotations
 
-import functools
+import base64
+import binascii
 from dataclasses import dataclass
 from typing import ClassVar, Sequence
 
@@ -44,18 +43,13 @@ import numpy as np
 from tsarchive.entropy_table import (  # noqa: F401  (re-exported: the coding API lives here)
     PRECISION, TOTAL, FreqTable, _as_int64, _corrupt, _unzigzag, _zigzag, build_table, n_tokens,
     order0_entropy_bits, tokenize)
-from tsarchive import rangecoder
-from tsarchive.errors import UnknownCodec
+from tsarchive import codecs, rangecoder
+from tsarchive.zstdcoder import ZstdCoder  # noqa: F401  (re-exported beside RangeCoder)
 
 CHUNK_BITS = 16
 _MAX_N = (1 << 31) - 1
 _M64 = (1 << 64) - 1
 _U64 = np.uint64
-
-
-def model_for(table: FreqTable):
-    """The verified constriction model of ``table`` (cached on the table)."""
-    return table.model
 
 
 def _chunk_layout(nbits: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -334,111 +328,24 @@ class RangeCoder:
     def cost_bits(self, values) -> float:
         return cost_bits(values, self.table)
 
+    def decode_flat(self, buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, lengths,
+                    strict: bool = True) -> np.ndarray:
+        return decode_flat(buf, starts, ends, lengths, self.table, strict=strict)
+
     def get_config(self) -> dict:
-        return {"table": self.table.to_dict()}
+        return {"freqs": base64.b64encode(self.table.to_bytes()).decode("ascii")}
 
     @classmethod
     def from_config(cls, config: dict) -> "RangeCoder":
-        if not isinstance(config, dict) or not isinstance(config.get("table"), dict):
-            raise _corrupt("range coder config has no table")
-        return cls(FreqTable.from_dict(config["table"]))
+        try:
+            freqs = base64.b64decode(config["freqs"], validate=True)
+        except (KeyError, TypeError, ValueError, binascii.Error):
+            raise _corrupt("an entropy table entry is malformed") from None
+        return cls(FreqTable.from_bytes(freqs))
 
     @classmethod
     def fit(cls, samples) -> "RangeCoder":
         return cls(build_table(samples))
 
 
-@functools.lru_cache(maxsize=8)
-def _zstd_pair(level: int):
-    import zstandard as zstd
-
-    params = zstd.ZstdCompressionParameters.from_level(
-        level, format=zstd.FORMAT_ZSTD1_MAGICLESS, write_content_size=False,
-        write_checksum=False, write_dict_id=False)
-    return zstd.ZstdCompressor(compression_params=params), zstd.ZstdDecompressor(format=zstd.FORMAT_ZSTD1_MAGICLESS)
-
-
-@dataclass(frozen=True)
-class ZstdCoder:
-    """zstd (magicless frame) over zigzag values, fixed width 1/2/4/8 bytes,
-    byte planes shuffled.  Payload: u8 log2(width) + frame; all-zero -> b""."""
-
-    level: int = 19
-    id: ClassVar[str] = "zstd"
-
-    def encode(self, values) -> bytes:
-        a = _as_int64(values)
-        if not a.any():
-            return b""
-        u = _zigzag(a, 0)
-        code = int(np.searchsorted([0xFF, 0xFFFF, 0xFFFFFFFF], int(u.max())))
-        w = 1 << code
-        planes = u.astype(f"<u{w}").view(np.uint8).reshape(-1, w).T.tobytes()
-        return bytes([code]) + _zstd_pair(self.level)[0].compress(planes)
-
-    def decode(self, payload: bytes, n: int) -> np.ndarray:
-        if not 0 <= n <= _MAX_N:
-            raise _corrupt(f"window length {n} is out of range")
-        payload = bytes(payload)
-        if not payload:
-            return np.zeros(n, np.int64)
-        w = 1 << payload[0] if payload[0] <= 3 else 0
-        try:
-            raw = _zstd_pair(self.level)[1].decompress(payload[1:], max_output_size=max(n * w, 1)) if w else b""
-        except Exception as exc:  # zstandard raises its own ZstdError
-            raise _corrupt(f"zstd window cannot be decoded ({exc})") from None
-        if not w or len(raw) != n * w:
-            raise _corrupt("zstd window has the wrong size or width code")
-        u = np.frombuffer(raw, np.uint8).reshape(w, n).T.copy().view(f"<u{w}").ravel().astype(_U64)
-        return _unzigzag(u, 0)
-
-    def encode_many(self, windows) -> list[bytes]:
-        return [self.encode(w) for w in windows]
-
-    def decode_many(self, payloads: Sequence[bytes], lengths) -> list[np.ndarray]:
-        lengths = np.broadcast_to(np.asarray(lengths, dtype=np.int64), (len(payloads),))
-        return [self.decode(p, int(n)) for p, n in zip(payloads, lengths)]
-
-    def cost_bits(self, values) -> float:
-        return 8.0 * len(self.encode(values))
-
-    def get_config(self) -> dict:
-        return {"level": self.level}
-
-    @classmethod
-    def from_config(cls, config: dict) -> "ZstdCoder":
-        try:
-            return cls(int(config.get("level", 19)))
-        except (AttributeError, TypeError, ValueError):
-            raise _corrupt("zstd coder config is malformed") from None
-
-    @classmethod
-    def fit(cls, samples) -> "ZstdCoder":
-        return cls()
-
-
-CODERS: dict[str, type] = {RangeCoder.id: RangeCoder, ZstdCoder.id: ZstdCoder}
-
-
-def coder_from_config(coder_id: str, config: dict):
-    """Rebuild a stored coder; UnknownCodec if ``coder_id`` is not registered."""
-    cls = CODERS.get(coder_id)
-    if cls is None:
-        raise UnknownCodec(f"entropy coder {coder_id!r} is unknown to this tsarchive version; upgrade tsarchive to read it")
-    return cls.from_config(config)
-
-
-def choose_coder(windows: Sequence[np.ndarray], max_probe: int = 64):
-    """Fit every registered coder to ``windows`` and return the one whose
-    payloads are smallest on up to ``max_probe`` evenly spaced windows."""
-    if not len(windows):
-        return RangeCoder(build_table(np.zeros(0, np.int64)))
-    samples = np.concatenate([_as_int64(w) for w in windows])
-    pick = np.unique(np.linspace(0, len(windows) - 1, min(max_probe, len(windows))).astype(int))
-    best = None
-    for cls in CODERS.values():
-        coder = cls.fit(samples)
-        size = sum(len(coder.encode(windows[i])) for i in pick)
-        if best is None or size < best[0]:
-            best = (size, coder)
-    return best[1]
+codecs.register("coder", RangeCoder.id, RangeCoder.from_config)

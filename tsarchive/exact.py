@@ -100,3 +100,22 @@ def max_errors(x: np.ndarray, xh: np.ndarray, keep: np.ndarray) -> np.ndarray:
     """Per row of 2-D ``x`` the largest ``|xh - x|`` over the samples where ``keep`` (0 for a row
     with none): exact for integers (rounded up above 2**53), the nearest double for floats."""
     return np.where(keep, rounded_errors(x, xh), 0.0).max(axis=1, initial=0.0)
+
+
+def values_to_bits(x: np.ndarray) -> np.ndarray:
+    """Raw bits of samples as int64 (floats by bit pattern, ints by value)."""
+    x = np.asarray(x)
+    if x.dtype.kind == "f":
+        width = {2: np.int16, 4: np.int32, 8: np.int64}[x.dtype.itemsize]
+        return x.view(width).astype(np.int64)
+    return x.astype(np.int64)
+
+
+def bits_to_values(bits: np.ndarray, dtype: np.dtype) -> np.ndarray:
+    """Inverse of :func:`values_to_bits` for samples of ``dtype``."""
+    dtype = np.dtype(dtype)
+    bits = np.asarray(bits, dtype=np.int64)
+    if dtype.kind == "f":
+        width = {2: np.int16, 4: np.int32, 8: np.int64}[dtype.itemsize]
+        return bits.astype(width).view(dtype)
+    return bits.astype(dtype)

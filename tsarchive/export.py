@@ -56,14 +56,19 @@ import tempfile
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
-from datetime import datetime, timedelta
+from datetime import datetime
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from .errors import BadInput
 from .store.timeaxis import Times
-from .export_text import CellFormat, cells
+from .export_text import (CellFormat, csv_cells, header, iso_unit, text_cells,
+                          time_cells, time_header)
+
+if TYPE_CHECKING:
+    import pyarrow as pa
 
 #: Extensions write_table understands.
 FORMATS = (".npy", ".csv", ".parquet")
@@ -313,78 +318,6 @@ def _write_npy(tmp: str, cols: dict[str, np.ndarray], shape_1d: bool) -> None:
         np.save(f, data, allow_pickle=False)
 
 
-def _iso_unit(ns: np.ndarray) -> str:
-    """Coarsest of s/ms/us/ns that holds every time exactly (times are never rounded)."""
-    for unit, div in (("s", 10**9), ("ms", 10**6), ("us", 10**3)):
-        if not np.any(ns % div):
-            return unit
-    return "ns"
-
-
-def _zone_ns(zone: str | None) -> int:
-    """The zone's offset from UTC in ns (0 for naive and Z)."""
-    if zone is None or zone == "Z":
-        return 0
-    from .store.timeaxis import parse_zone
-    return parse_zone(zone).utcoffset(None) // timedelta(microseconds=1) * 1000
-
-
-def _iso_strings(ns: np.ndarray, unit: str, zone: str | None) -> list[str]:
-    """ISO 8601 strings of epoch ns, exact in ``unit``: wall clock plus the zone as logged (none if naive)."""
-    scale = {"s": 10**9, "ms": 10**6, "us": 10**3, "ns": 1}[unit]
-    local = (ns + _zone_ns(zone)) // scale
-    text = np.datetime_as_string(local.astype(f"datetime64[{unit}]"), unit=unit).tolist()
-    return text if zone is None else [t + zone for t in text]
-
-
-def _time_cells(times: Times, lo: int, hi: int, unit: str) -> list[str]:
-    if times.kind == "seconds":
-        return _csv_text(times.values[lo:hi])
-    return _iso_strings(times.values[lo:hi], unit, times.zone)
-
-
-def _text_cells(col) -> list[str]:
-    """CSV cells of a text column: a null is an empty cell, an empty string is ``""`` (RFC 4180 quoting)."""
-    import pyarrow as pa
-    import pyarrow.compute as pc
-    if not (pa.types.is_string(col.type) or pa.types.is_large_string(col.type)):
-        col = pc.cast(col, pa.string())
-    out = []
-    for v in col.to_pylist():
-        if v is None:
-            out.append("")
-        elif v == "" or any(c in v for c in ',"\r\n') or v != v.strip():
-            out.append('"' + v.replace('"', '""') + '"')
-        else:
-            out.append(v)
-    return out
-
-
-def _header(name: str, unit: str) -> str:
-    return f"{name} [{unit}]" if unit else name
-
-
-def _csv_text(values: np.ndarray) -> list[str]:
-    """Cells of a time column in seconds: repr (exact round trip)."""
-    return list(map(float.__repr__, values.astype(np.float64, copy=False).tolist()))
-
-
-def _csv_cells(values: np.ndarray, fmt: CellFormat) -> list[str]:
-    """Cells for one channel's column chunk (:func:`tsarchive.export_text.cells`); a missing sample is an
-    empty cell."""
-    if isinstance(values, np.ma.MaskedArray):
-        gone = np.ma.getmaskarray(values)
-        text = cells(np.ma.getdata(values), fmt)
-        return [("" if g else c) for c, g in zip(text, gone.tolist())]
-    return cells(values, fmt)
-
-
-def _time_header(times: Times) -> str:
-    if times.kind == "seconds" and times.name == "time":
-        return "time [s]"
-    return times.name
-
-
 def _write_csv(tmp: str, cols: dict[str, np.ndarray], times: Times, units: dict[str, str], text: TextParts,
                order: list[tuple[str, str]], formats: dict[str, CellFormat], origin: Origin | None) -> None:
     extra = text.extra
@@ -395,16 +328,16 @@ def _write_csv(tmp: str, cols: dict[str, np.ndarray], times: Times, units: dict[
     for line in text.notes:                                             # the preamble, as found
         head.write(line + "\n")
     csv.writer(head, lineterminator="\n").writerow(
-        [_time_header(times)] + [_header(k, units.get(k, "")) if c == "ch" else k for c, k in order])
-    unit = _iso_unit(times.values) if times.kind == "datetime" else ""
+        [time_header(times)] + [header(k, units.get(k, "")) if c == "ch" else k for c, k in order])
+    unit = iso_unit(times.values) if times.kind == "datetime" else ""
     plain = CellFormat()
     with open(tmp, "w", encoding="utf-8", newline="\n") as f:
         f.write(head.getvalue())
         for lo in range(0, n, CSV_CHUNK_ROWS):
             hi = min(n, lo + CSV_CHUNK_ROWS)
-            cells = [_time_cells(times, lo, hi, unit)] + [
-                _csv_cells(cols[k][lo:hi], formats.get(k, plain)) if c == "ch"
-                else _text_cells(extra.column(k).slice(lo, hi - lo)) for c, k in order]
+            cells = [time_cells(times, lo, hi, unit)] + [
+                csv_cells(cols[k][lo:hi], formats.get(k, plain)) if c == "ch"
+                else text_cells(extra.column(k).slice(lo, hi - lo)) for c, k in order]
             f.write("".join(",".join(row) + "\n" for row in zip(*cells)))
 
 

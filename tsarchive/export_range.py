@@ -81,7 +81,7 @@ def cell_format(meta) -> CellFormat:
 
 
 def origin_of(arc, metas) -> Origin:
-    from . import __version__
+    from .version import __version__
 
     src = arc.manifest.get("source", {})
     return Origin(archive=arc.path.name, source=str(src.get("name", "")), source_sha256=str(src.get("sha256", "")),

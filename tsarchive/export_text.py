@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from datetime import timedelta
 
 import numpy as np
 
@@ -184,3 +185,78 @@ def _possible_originals(x: np.ndarray, fmt: CellFormat, dtype: np.dtype) -> tupl
         c = ((base_hi - j) / scale).astype(dtype).astype(np.float64)
         best_hi = np.where((np.abs(c - x) <= w) & (c > best_hi), c, best_hi)
     return best_lo, best_hi
+
+
+def iso_unit(ns: np.ndarray) -> str:
+    """Coarsest of s/ms/us/ns that holds every time exactly (times are never rounded)."""
+    for unit, div in (("s", 10**9), ("ms", 10**6), ("us", 10**3)):
+        if not np.any(ns % div):
+            return unit
+    return "ns"
+
+
+def zone_ns(zone: str | None) -> int:
+    """The zone's offset from UTC in ns (0 for naive and Z)."""
+    if zone is None or zone == "Z":
+        return 0
+    from .store.timeaxis import parse_zone
+    return parse_zone(zone).utcoffset(None) // timedelta(microseconds=1) * 1000
+
+
+def iso_strings(ns: np.ndarray, unit: str, zone: str | None) -> list[str]:
+    """ISO 8601 strings of epoch ns, exact in ``unit``: wall clock plus the zone as logged (none if naive)."""
+    scale = {"s": 10**9, "ms": 10**6, "us": 10**3, "ns": 1}[unit]
+    local = (ns + zone_ns(zone)) // scale
+    text = np.datetime_as_string(local.astype(f"datetime64[{unit}]"), unit=unit).tolist()
+    return text if zone is None else [t + zone for t in text]
+
+
+def time_cells(times, lo: int, hi: int, unit: str) -> list[str]:
+    """Cells of the time column for rows ``lo..hi-1``: seconds by repr, datetimes as ISO 8601 in ``unit``."""
+    if times.kind == "seconds":
+        return csv_text(times.values[lo:hi])
+    return iso_strings(times.values[lo:hi], unit, times.zone)
+
+
+def text_cells(col) -> list[str]:
+    """CSV cells of a text column: a null is an empty cell, an empty string is ``""`` (RFC 4180 quoting)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    if not (pa.types.is_string(col.type) or pa.types.is_large_string(col.type)):
+        col = pc.cast(col, pa.string())
+    out = []
+    for v in col.to_pylist():
+        if v is None:
+            out.append("")
+        elif v == "" or any(c in v for c in ',"\r\n') or v != v.strip():
+            out.append('"' + v.replace('"', '""') + '"')
+        else:
+            out.append(v)
+    return out
+
+
+def header(name: str, unit: str) -> str:
+    """A column header with its unit in brackets."""
+    return f"{name} [{unit}]" if unit else name
+
+
+def csv_text(values: np.ndarray) -> list[str]:
+    """Cells of a time column in seconds: repr (exact round trip)."""
+    return list(map(float.__repr__, values.astype(np.float64, copy=False).tolist()))
+
+
+def csv_cells(values: np.ndarray, fmt: CellFormat) -> list[str]:
+    """Cells for one channel's column chunk (:func:`tsarchive.export_text.cells`); a missing sample is an
+    empty cell."""
+    if isinstance(values, np.ma.MaskedArray):
+        gone = np.ma.getmaskarray(values)
+        text = cells(np.ma.getdata(values), fmt)
+        return [("" if g else c) for c, g in zip(text, gone.tolist())]
+    return cells(values, fmt)
+
+
+def time_header(times) -> str:
+    """The time column's header (seconds carry their unit)."""
+    if times.kind == "seconds" and times.name == "time":
+        return "time [s]"
+    return times.name

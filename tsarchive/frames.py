@@ -47,7 +47,7 @@ class FrameParts:
 def parts(archive, channels=None, start: float | None = None, end: float | None = None) -> FrameParts:
     """Read ``channels`` (all by default) over ``start <= t - t[0] < end`` once, for any frame library."""
     import tsarchive
-    from .store.reader import Archive
+    from .archive import Archive
     arc = archive if isinstance(archive, Archive) else tsarchive.open(archive)
     names = [c.name for c in arc.channels] if channels is None else list(channels)
     metas = [arc.channel(n) for n in names]

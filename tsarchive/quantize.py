@@ -37,12 +37,22 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import ArchiveCorrupt
-from .exact import _as_u, within
+from . import codecs
+from .errors import ArchiveCorrupt, BadInput
+from .exact import _as_u, bits_to_values, values_to_bits, within  # noqa: F401  (the bits API is used from here)
 
 _MAX_Q = float(2**50)
 MAX_MULT = 1 << 20
+MAX_DECIMALS = 15              # decimal grids: at most this many decimals (what a manifest may hold)
 MAX_INT_STEP = 1 << 53          # integer grids: steps above this (absurd budgets) are clamped, exactly representable
+
+
+class InvalidGrid(ArchiveCorrupt):
+    """A grid description no decoder can use: damage when read from an archive."""
+
+    def __init__(self, problem: str) -> None:
+        super().__init__(f"{problem}; the archive is damaged or from a newer tool")
+        self.problem = problem
 
 
 @dataclass(frozen=True)
@@ -66,18 +76,40 @@ class Grid:
     missing: int | None = None
 
     def __post_init__(self) -> None:
+        problem = self._problem()
+        if problem is not None:      # read from an archive: damage (make_grid turns it into a user-input error)
+            raise InvalidGrid(problem)
+
+    def _problem(self) -> str | None:
         if self.kind not in ("step", "decimal"):
-            raise ArchiveCorrupt(f"unknown grid kind {self.kind!r}; the archive is damaged or from a newer tool")
+            return f"unknown grid kind {self.kind!r}"
         if self.kind == "step" and not (math.isfinite(self.step) and self.step > 0 and math.isfinite(self.offset)):
-            raise ArchiveCorrupt("grid step must be positive and finite; the archive is damaged")
-        if self.kind == "decimal" and not 0 <= self.decimals <= 15:
-            raise ArchiveCorrupt("grid decimals out of range 0..15; the archive is damaged")
+            return "grid step must be positive and finite"
+        if self.kind == "decimal" and not 0 <= self.decimals <= MAX_DECIMALS:
+            return f"grid decimals {self.decimals} out of range 0..{MAX_DECIMALS}"
         if not 1 <= self.mult <= MAX_MULT:
-            raise ArchiveCorrupt("grid multiplier out of range; the archive is damaged")
+            return "grid multiplier out of range"
         if self.origin is not None and not -(1 << 63) <= self.origin < (1 << 64):
-            raise ArchiveCorrupt("grid origin out of the 64-bit range; the archive is damaged")
+            return "grid origin out of the 64-bit range"
         if self.missing is not None and not -(1 << 63) <= self.missing < (1 << 63):
-            raise ArchiveCorrupt("grid missing mark out of the int64 range; the archive is damaged")
+            return "grid missing mark out of the int64 range"
+        return None
+
+    # -- the codec contract (tsarchive.codecs): the id is the kind, the config the manifest's grid entry
+    @property
+    def id(self) -> str:
+        return self.kind
+
+    def encode(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """See :func:`quantize`."""
+        return quantize(x, self)
+
+    def get_config(self) -> dict:
+        return self.to_dict()
+
+    @classmethod
+    def from_config(cls, config: dict) -> "Grid":
+        return cls.from_dict(config)
 
     def to_dict(self) -> dict:
         d = {"kind": self.kind, "eps": self.eps, "out_dtype": self.out_dtype, "step": self.step,
@@ -180,26 +212,19 @@ class Grid:
         return out
 
 
-def values_to_bits(x: np.ndarray) -> np.ndarray:
-    """Raw bits of samples as int64 (floats by bit pattern, ints by value)."""
-    x = np.asarray(x)
-    if x.dtype.kind == "f":
-        width = {2: np.int16, 4: np.int32, 8: np.int64}[x.dtype.itemsize]
-        return x.view(width).astype(np.int64)
-    return x.astype(np.int64)
-
-
-def bits_to_values(bits: np.ndarray, dtype: np.dtype) -> np.ndarray:
-    dtype = np.dtype(dtype)
-    bits = np.asarray(bits, dtype=np.int64)
-    if dtype.kind == "f":
-        width = {2: np.int16, 4: np.int32, 8: np.int64}[dtype.itemsize]
-        return bits.astype(width).view(dtype)
-    return bits.astype(dtype)
-
-
 def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float = 0.0, mult: int = 1,
               origin: int | None = None) -> Grid:
+    """Choose the grid for a channel (see :func:`_make_grid`); a channel no grid can serve is the
+    caller's input error (:class:`BadInput`), never archive damage."""
+    try:
+        return _make_grid(eps, decimals, dtype, anchor, mult, origin)
+    except InvalidGrid as exc:
+        raise BadInput(f"{exc.problem}: the channel's decimals ({decimals}) or dtype ({np.dtype(dtype)}) cannot be "
+                       f"stored; give decimals 0..{MAX_DECIMALS} or None") from None
+
+
+def _make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float, mult: int,
+               origin: int | None) -> Grid:
     """Choose the grid for a channel.
 
     ``eps == 0`` (lossless) uses the decimal grid when the channel has one;
@@ -364,3 +389,7 @@ def fill_from_previous(q: np.ndarray, bad: np.ndarray) -> None:
     first = int(np.argmax(good))
     idx[idx < 0] = first
     q[:] = q[idx]
+
+
+for _kind in ("step", "decimal"):
+    codecs.register("grid", _kind, Grid.from_config)

@@ -31,6 +31,8 @@ from functools import cache
 
 import numpy as np
 
+from .compiled import compile_kernels
+
 PRECISION = 24
 LUT_BITS = 12          # quantile >> (24 - 12) indexes the first candidate token
 
@@ -263,24 +265,9 @@ def _decode_kernel(buf, starts, ends, bounds, center, d, m, cum, freq, lut, valu
 
 @cache
 def _kernels():
-    """Compiled (encode, decode) kernels, or ``None`` without numba (then constriction codes).
-
-    numba is imported here, on first use, not with tsarchive.
-    """
-    try:
-        from numba import njit
-    except ImportError:
-        return None
-    try:
-        return _compile(njit, cache=True)
-    except RuntimeError:                     # no writable cache directory: compile once per process
-        return _compile(njit, cache=False)
-
-
-def _compile(njit, cache: bool):
-    for name in _HELPERS:                    # the kernels call these globals: compiled ones first
-        globals()[name] = njit(cache=cache, nogil=True)(globals()[name + "_py"])
-    return njit(cache=cache, nogil=True)(_encode_kernel), njit(cache=cache, nogil=True)(_decode_kernel)
+    """Compiled (encode, decode) kernels, or ``None`` without numba (then constriction codes); the
+    kernels call the ``_HELPERS`` globals, compiled first (:func:`tsarchive.compiled.compile_kernels`)."""
+    return compile_kernels((_encode_kernel, _decode_kernel), globals(), _HELPERS)
 
 
 def available() -> bool:

@@ -17,8 +17,8 @@ import numpy as np
 
 from .quantize import MAX_MULT
 from .recording import Recording
+from .windows import CHUNK_SAMPLES
 
-CHUNK_SAMPLES = 1 << 20      # samples per channel read per step
 
 
 @dataclass(frozen=True)

@@ -179,6 +179,13 @@ class Recording:
     def duration(self) -> float:
         return self.n_samples / self.rate if self.rate > 0 else 0.0
 
+    def channel_index(self, name: str, position: int) -> int | None:
+        """Where an archived channel is in this recording: by name, else at its position; None if neither."""
+        names = [c.name for c in self.channels]
+        if name in names:
+            return names.index(name)
+        return position if 0 <= position < len(names) else None
+
     def column(self, j: int) -> np.ndarray:
         """Channel ``j`` as a 1-D array (a view where possible)."""
         return self.data[:, j]

@@ -6,6 +6,7 @@ import math
 from dataclasses import asdict
 from datetime import datetime, timezone
 
+from .budget import within_budget
 from .results import PackResult, VerifyReport
 
 
@@ -55,7 +56,7 @@ def _written_utc(arc) -> str | None:
 
 def identity(arc) -> dict:
     """What a lab system files with a result: the archive, its source, the tools and the channels' units and start."""
-    from . import __version__
+    from .version import __version__
     first = arc.channels[0].start if arc.channels else None
     return {"archive": str(arc.path.resolve()), "source": dict(arc.manifest.get("source", {})),
             "format_version": arc.manifest.get("format_version"), "written_by": arc.manifest.get("tool_version"),
@@ -77,7 +78,7 @@ def archive_dict(arc) -> dict:
         "format_version": arc.manifest.get("format_version"), "window": arc.window,
         "archive_bytes": arc.archive_bytes, "raw_bytes": arc.raw_bytes, "ratio": arc.ratio,
         "bound": arc.bound, "problems": problems,
-        "within_budget": None if problems else all(c.worst_error <= c.eps for c in arc.channels),
+        "within_budget": None if problems else all(within_budget(c.worst_error, c.eps) for c in arc.channels),
         "times": arc.timeline.describe(), "notes": list(arc.notes), "identity": identity(arc),
         "last_check": None if kept is None else {**asdict(kept), "line": kept.line()},
         "channels": [{"name": c.name, "unit": c.unit, "rate": c.rate, "n_samples": c.n_samples,

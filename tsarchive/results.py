@@ -4,7 +4,10 @@ from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
-from typing import Callable, Optional, Protocol
+from typing import Callable, Optional
+
+from .budget import within_budget
+from .predict import PREDICTORS
 
 
 @dataclass(frozen=True)
@@ -23,8 +26,15 @@ class Progress:
 ProgressFn = Optional[Callable[[Progress], None]]
 
 
-class CancelFlag(Protocol):
-    def is_set(self) -> bool: ...
+@dataclass
+class ChannelTally:
+    """One channel's counts while its rows are written (then its manifest summary): the worst error,
+    the estimated bytes of its own rows, its verbatim samples, and windows per predictor."""
+
+    worst_error: float = 0.0
+    bytes_est: int = 0
+    n_exceptions: int = 0
+    modes: dict = field(default_factory=lambda: {p.name: 0 for p in PREDICTORS.values()})
 
 
 @dataclass(frozen=True)
@@ -63,7 +73,7 @@ class PackResult:
 
     @property
     def within_budget(self) -> bool:
-        return all(c.worst_error <= c.eps for c in self.channels)
+        return all(within_budget(c.worst_error, c.eps) for c in self.channels)
 
     def to_dict(self) -> dict:
         d = asdict(self)

@@ -21,15 +21,17 @@ from .exact import abs_errors, rounded_errors
 from .quantize import values_to_bits
 from .recording import Recording
 from .results import ChannelCheck, Progress, VerifyReport
+from .windows import CHUNK_SAMPLES
 from .workers import workers as worker_count
 
-CHUNK_SAMPLES = 1 << 20
 MAX_LISTED = 50  # failing windows listed per channel
 
 
 def verify_archive(archive, against=None, progress=None, *, rate: float | None = None,
                    even_if_changed: bool = False) -> VerifyReport:
-    """Check ``archive`` (a path or an open Archive); compare with ``against`` when given.
+    """Check ``archive`` (an :class:`~tsarchive.archive.Archive`, best opened with ``strict=False`` so that
+    damage is reported rather than raised; :func:`tsarchive.verify` also takes a path); compare with
+    ``against`` when given.
 
     A source given as a path is first checked to be the file that was packed
     (the manifest's size and SHA-256).  When it is not, the report fails
@@ -40,9 +42,8 @@ def verify_archive(archive, against=None, progress=None, *, rate: float | None =
     a table without a time column); the archive's rate is used otherwise.
     """
     from .store.members import member_problems
-    from .store.reader import Archive, open_archive
 
-    arc = archive if isinstance(archive, Archive) else open_archive(archive, strict=False)
+    arc = archive
     problems = list(arc.damage) + member_problems(arc.path, arc.members)
     identity = None if against is None or isinstance(against, Recording) else source_identity(arc, Path(against))
     if identity is not None and identity.same is False and not even_if_changed:
@@ -239,11 +240,9 @@ def _source(arc, against, rate: float | None = None) -> Recording | None:
 
 
 def _column_index(rec: Recording, meta, j: int) -> int:
-    names = [c.name for c in rec.channels]
-    if meta.name in names:
-        return names.index(meta.name)
-    if j < len(names):
-        return j
+    k = rec.channel_index(meta.name, j)
+    if k is not None:
+        return k
     raise BadInput(f"the source has no channel {meta.name!r}; pass the recording the archive was packed from")
 
 

@@ -15,6 +15,16 @@ import numpy as np
 from .predict.exactls import gram
 
 DEFAULT_WINDOW = 1024
+#: samples per channel read, encoded, decoded or compared per step: bounds every stage's memory
+CHUNK_SAMPLES = 1 << 20
+
+
+def spread(n: int, count: int) -> np.ndarray:
+    """Up to ``count`` indices of ``0..n-1`` spread evenly (first and last included, rounded to the
+    nearest, no repeats), int64: the one way tsarchive picks a sample of windows or channels."""
+    if n <= 0 or count <= 0:
+        return np.zeros(0, dtype=np.int64)
+    return np.unique(np.linspace(0, n - 1, min(n, count)).round().astype(np.int64))
 MIN_WINDOW, MAX_WINDOW = 8, 65536
 
 

@@ -3,7 +3,7 @@
 * :func:`scan_folder` lists the recordings and archives of one folder (cheap: names
   and sizes only; details are loaded later by the Folder screen's worker).
 * :func:`find_source` looks for an archive's original recording next to it.
-* :func:`read_time`, :func:`parse_optional_int` and :func:`combine_budgets`
+* :func:`read_time`, :func:`parse_optional_int`
   turn text fields into the arguments the library expects, raising
   :class:`tsarchive.errors.BadInput` with a one-line message when they cannot.
 """
@@ -13,7 +13,7 @@ from __future__ import annotations
 import os
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterable, Sequence
+from typing import Iterable
 
 from tsarchive.errors import BadInput
 from tsarchive.names import ARCHIVE_SUFFIX, ARCHIVE_SUFFIXES
@@ -109,22 +109,6 @@ def parse_optional_float(text: str, what: str) -> float | None:
     if not value > 0 or value == float("inf"):
         raise BadInput(f"{what} {text!r} is not a positive number; type one or leave it empty for the default")
     return value
-
-
-def combine_budgets(names: Sequence[str], specs: Sequence[str], default: str = "0.1%") -> str:
-    """One budget spec for the library from one text field per channel.
-
-    Empty fields take ``default``. When every channel has the same spec the bare spec is
-    returned, otherwise ``"name=spec,..."`` for all channels. The library parses and
-    checks the spec itself.
-    """
-    cleaned = [(s.strip() or default) for s in specs]
-    for name, spec in zip(names, cleaned):
-        if "," in spec or "=" in spec:
-            raise BadInput(f"budget for {name!r} must be one value such as 0.02, 0.1% or lossless")
-    if len(set(cleaned)) <= 1:
-        return cleaned[0] if cleaned else default
-    return ",".join(f"{n}={s}" for n, s in zip(names, cleaned))
 
 
 def export_target(text: str, folder: Path) -> Path:

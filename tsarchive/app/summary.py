@@ -10,6 +10,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from tsarchive.budget import within_budget
+
 UNVERIFIED, VERIFIED_OK, FAILED = "unverified", "verified ok", "failed"
 USED_HELP = ("Used: the worst error as a share of the budget. Near 100 % is the aim: the whole budget is "
              "spent on saving space, and never exceeded")
@@ -21,7 +23,7 @@ def archive_duration(channels) -> float | None:
 
 def over_budget(channels) -> list[str]:
     """Names of channels whose stored worst error exceeds their budget."""
-    return [ch.name for ch in channels if float(ch.worst_error) > float(ch.eps)]
+    return [ch.name for ch in channels if not within_budget(ch.worst_error, ch.eps)]
 
 
 def window_at(starts: np.ndarray, second: float) -> int:

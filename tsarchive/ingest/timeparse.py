@@ -69,7 +69,7 @@ class TimeFound:
 
 
 def normal_name(header: str) -> str:
-    from .tabular import split_header
+    from .columns import split_header
     return split_header(header)[0].lower().strip().replace(" ", "_").replace("-", "_")
 
 

@@ -151,10 +151,6 @@ class IntDecoder:
             out[a:a + rows] = h
         return out
 
-    def predict_float(self, codes: np.ndarray) -> np.ndarray:
-        """``predict(codes) / 2**frac_bits`` as float64 (convenience for previews)."""
-        return self.predict(codes).astype(np.float64) * 2.0 ** (-int(self.frac_bits))
-
     # ---------------------------------------------------------------- storage
     def to_arrays(self) -> dict[str, np.ndarray]:
         """Plain integer arrays: ``w{i}`` int16 (n_in, n_out), ``b{i}`` int64, ``shifts`` int64 (L,),

@@ -23,6 +23,7 @@ from typing import Callable
 
 import numpy as np
 
+from .. import codecs
 from ..errors import UnknownCodec
 from . import lpc as _lpc
 
@@ -125,6 +126,16 @@ class Predictor:
         # an LPC of order 0 is still a predictor: the window's level (right for white noise)
         return (ctx.ae is not None or not self.uses_ae) and (not self.uses_lpc or len(ctx.lpc) > 0)
 
+    # -- the codec contract (tsarchive.codecs): what it needs lives in the Context, so no config
+    def encode(self, q: np.ndarray, ctx: Context) -> np.ndarray:
+        return self.residuals(q, ctx)
+
+    def decode(self, r: np.ndarray, ctx: Context) -> np.ndarray:
+        return self.reconstruct(r, ctx)
+
+    def get_config(self) -> dict:
+        return {}
+
 
 PREDICTORS: dict[int, Predictor] = {p.id: p for p in (
     Predictor(0, "prev", False, _prev_res, _prev_rec),
@@ -133,7 +144,10 @@ PREDICTORS: dict[int, Predictor] = {p.id: p for p in (
     Predictor(3, "ae+prev", True, _aeprev_res, _aeprev_rec),
     Predictor(4, "lpc", False, _lpc_res, _lpc_rec, uses_lpc=True),
 )}
-BY_NAME = {p.name: p for p in PREDICTORS.values()}
+
+
+for _p in PREDICTORS.values():
+    codecs.register("predictor", _p.id, lambda config, p=_p: p)
 
 
 def get_predictor(mode: int) -> Predictor:

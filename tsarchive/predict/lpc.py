@@ -21,6 +21,7 @@ from functools import cache
 import numpy as np
 
 from .. import fixedlog
+from ..compiled import compile_kernels
 from ..errors import ArchiveCorrupt
 from . import exactls
 
@@ -354,15 +355,6 @@ def _residuals_kernel(y, rev, shift, r):
 
 @cache
 def _kernels():
-    """The numba-compiled (:func:`_reconstruct_kernel`, :func:`_residuals_kernel`), or ``None`` without numba.
-
-    numba is imported here, on the first LPC use, not with tsarchive.
-    """
-    try:
-        from numba import njit
-    except ImportError:
-        return None
-    try:
-        return tuple(njit(cache=True, nogil=True)(f) for f in (_reconstruct_kernel, _residuals_kernel))
-    except RuntimeError:                     # no writable cache directory anywhere: compile once per process
-        return tuple(njit(nogil=True)(f) for f in (_reconstruct_kernel, _residuals_kernel))
+    """The numba-compiled (:func:`_reconstruct_kernel`, :func:`_residuals_kernel`), or ``None`` without
+    numba (:func:`tsarchive.compiled.compile_kernels`)."""
+    return compile_kernels((_reconstruct_kernel, _residuals_kernel))

@@ -80,7 +80,7 @@ def write_verification_record(archive, folder, *, against=None, rate: float | No
                               even_if_changed: bool = False, report=None) -> Path:
     """Write the record of ``archive`` (a path or an open Archive) to the new ``folder``; returns it."""
     import tsarchive
-    from ..store.reader import Archive
+    from ..archive import Archive
 
     folder = check_record_folder(folder)
     arc = archive if isinstance(archive, Archive) else tsarchive.open(archive)

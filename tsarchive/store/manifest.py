@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-import base64
 import math
 from datetime import datetime, timezone
 
 import numpy as np
 
-from .. import __version__, checksum
-from ..codec import CODER_ID
+from .. import checksum
+from ..version import __version__
+from ..budget import used_pct
 from ..recording import Recording
 from . import schema as S
 from .sidecar import axis_start
@@ -22,49 +22,42 @@ def iso(t: datetime | None) -> str | None:
     return t.isoformat().replace("+00:00", "Z") if t.tzinfo is timezone.utc else t.isoformat()
 
 
-def used_pct(worst: float, eps: float) -> float:
-    return 100.0 * worst / eps if eps > 0 else (0.0 if worst == 0 else math.inf)
-
-
 def _sig(x: float, digits: int = 6) -> float:
     """A reported figure (not a decoding input) to ``digits`` significant digits: shorter JSON."""
     return float(f"{x:.{digits}g}") if math.isfinite(x) else x
 
 
-def build_manifest(rec: Recording, spec, grids, scales, lpcs, tables, notes, W: int, K: int, decoder,
-                   model_note: str, summaries: list[dict], archive_bytes: int) -> dict:
+def build_manifest(rec: Recording, spec, codecs, notes, W: int, K: int, decoder,
+                   model_note: str, summaries: list, archive_bytes: int) -> dict:
     """Everything a reader needs besides the Parquet members (whose checksums the writer adds).
 
     Nothing here depends on when or where packing ran (no clock, no host), so
     the same source, settings and tool version give the same bytes; when an
     archive was written is its files' modification time.
 
-    ``tables`` (one :class:`tsarchive.codec.TableSet` per channel) are stored
-    per channel as ``{"mode", "table", "coder", "freqs"}`` with ``freqs`` the
-    integer frequency table's bytes in base64 (a few hundred bytes; a Parquet
-    file of its own would cost more in framing than its content).
+    ``codecs`` (one :class:`tsarchive.channelcodec.ChannelCodec` per channel)
+    give each channel entry its coding fields (``eps``, ``grid``, ``scale``,
+    ``lpc``, ``tables``): the entropy tables as ``{"mode", "table", "coder",
+    "freqs"}`` with ``freqs`` the integer frequency table's bytes in base64 (a
+    few hundred bytes; a Parquet file of its own would cost more in framing
+    than its content).
     """
     src = rec.source
     src_bytes = src.stat().st_size if src is not None and src.is_file() else int(rec.data.nbytes)
     raw_bytes = sum(rec.n_samples * np.dtype(c.dtype).itemsize for c in rec.channels)
-    est_total = sum(s["bytes_est"] for s in summaries) or 1
+    est_total = sum(s.bytes_est for s in summaries) or 1
     channels = []
     for j, ch in enumerate(rec.channels):
-        s, g = summaries[j], grids[j]
-        share = archive_bytes * s["bytes_est"] / est_total
+        s, g = summaries[j], codecs[j].grid
+        share = archive_bytes * s.bytes_est / est_total
         raw = rec.n_samples * np.dtype(ch.dtype).itemsize
         channels.append({
             **ch.to_dict(), "rate": rec.rate, "start": iso(axis_start(rec)), "n_samples": rec.n_samples,
-            "budget": spec.for_channel(ch.name).spec, "eps": g.eps, "grid": g.to_dict(), "scale": int(scales[j]),
-            "lpc": [c.to_dict() for c in lpcs[j]],
-            "tables": [{"mode": int(m), "table": int(c), "coder": CODER_ID,
-                        "freqs": base64.b64encode(t.to_bytes()).decode("ascii")}
-                       for (m, c), t in sorted(tables[j].tables.items())],
-            "note": notes[j],
-            "summary": {"worst_error": s["worst_error"], "used_pct": _sig(used_pct(s["worst_error"], g.eps)),
+            "budget": spec.for_channel(ch.name).spec, **codecs[j].to_dict(), "note": notes[j],
+            "summary": {"worst_error": s.worst_error, "used_pct": _sig(used_pct(s.worst_error, g.eps)),
                         "ratio": _sig(raw / share if share else math.inf),
                         "bits_per_sample": _sig(8 * share / max(rec.n_samples, 1)),
-                        "n_exceptions": s["n_exceptions"], "modes": s["modes"]},
+                        "n_exceptions": s.n_exceptions, "modes": dict(s.modes)},
         })
     return {
         "format": S.FORMAT_NAME, "format_version": S.FORMAT_VERSION, "tool_version": __version__,

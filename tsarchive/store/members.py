@@ -44,8 +44,11 @@ class Opened:
 
 
 def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...], window: int,
-            channels: tuple[ChannelMeta, ...], model: ModelSpec | None, strict: bool) -> Opened:
-    """Every check of the module doc, in order; ``strict`` raises the first finding."""
+            channels: tuple[ChannelMeta, ...], model: ModelSpec | None, strict: bool, make_decoder=None) -> Opened:
+    """Every check of the module doc, in order; ``strict`` raises the first finding.
+
+    ``make_decoder(arrays)`` builds the model from its integer arrays (the store moves bytes only: it
+    does not know the model's class)."""
     found = Findings(strict)
     check_sizes(path, members, found)
     wf = open_parquet(path, S.WINDOWS, found) if found.decodable else None
@@ -59,7 +62,7 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
             check_exceptions(*ef, window, sum(c.n_windows for c in channels), found)
     if found.decodable and model is not None:
         mf = open_parquet(path, S.MODEL, found)
-        decoder = None if mf is None else load_model(*mf, model, found)
+        decoder = None if mf is None else load_model(*mf, model, found, make_decoder)
     return Opened(wf and wf[0], groups, decoder, bound, tuple(found.problems), found.decodable)
 
 
@@ -208,9 +211,9 @@ def check_exceptions(f: pq.ParquetFile, footer: Footer, window: int, total_windo
                   "crafted", True)
 
 
-def load_model(f: pq.ParquetFile, footer: Footer, spec: ModelSpec, found: Findings):
-    """The integer decoder, read once and checked against the manifest's sizes; None if it is damaged."""
-    from ..model.intnet import IntDecoder
+def load_model(f: pq.ParquetFile, footer: Footer, spec: ModelSpec, found: Findings, make_decoder):
+    """The integer decoder (``make_decoder(arrays)``), read once and checked against the manifest's sizes;
+    None if it is damaged."""
     cap = 16 * (spec.n_params + 64) + S.ROW_BYTES_FIXED
     if footer.num_rows > 2 * S.MAX_LAYERS + 3 or f.schema_arrow.remove_metadata() != S.MODEL_SCHEMA or \
             sum(g.total_byte_size for g in footer.groups) > cap or \
@@ -227,7 +230,7 @@ def load_model(f: pq.ParquetFile, footer: Footer, spec: ModelSpec, found: Findin
                     int(np.prod(s, dtype=object)) != len(v):
                 raise ArchiveCorrupt(f"model array {n!r} does not have the shape it declares")
             arrays[n] = np.asarray(v, dtype=np.int64).reshape(s)
-        decoder = IntDecoder.from_arrays(arrays)
+        decoder = make_decoder(arrays)
         if tuple(decoder.sizes) != spec.sizes:
             raise ArchiveCorrupt(f"model layer sizes {list(decoder.sizes)} differ from the manifest's "
                                  f"{list(spec.sizes)}")

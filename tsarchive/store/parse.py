@@ -19,7 +19,8 @@ import re
 from dataclasses import dataclass
 from datetime import datetime
 
-from ..errors import ArchiveCorrupt
+from ..budget import parse_budget, parse_budget_spec
+from ..errors import ArchiveCorrupt, BudgetError
 from ..predict import PREDICTORS
 from ..predict.lpc import LpcCoefs
 from ..quantize import Grid
@@ -224,6 +225,8 @@ def channel_meta(d: dict, W: int) -> ChannelMeta:
     eps = number(d, "eps", at, lo=0.0)
     if eps != grid.eps:
         raise corrupt(f"{at}eps {eps!r} differs from its grid's eps {grid.eps!r}")
+    budget = text(d, "budget", at)
+    _check_budget(at, budget, eps)
     n = integer(d, "n_samples", 0, S.MAX_SAMPLES, at)
     start = d.get("start")
     if start is not None:
@@ -248,13 +251,40 @@ def channel_meta(d: dict, W: int) -> ChannelMeta:
         raise ArchiveCorrupt("linear-prediction sets are missing or malformed; the archive is damaged")
     return ChannelMeta(
         name=name, unit=text(d, "unit", at, optional=True), rate=number(d, "rate", at, lo=S.MIN_RATE),
-        start=start, dtype=text(d, "dtype", at, limit=32), n_samples=n, budget=text(d, "budget", at),
+        start=start, dtype=text(d, "dtype", at, limit=32), n_samples=n, budget=budget,
         eps=eps, decimals=integer(d, "decimals", 0, 30, at, optional=True), window=W, grid=grid,
         scale=integer(d, "scale", 1, 1 << 62, at), lpc=tuple(LpcCoefs.from_dict(c) for c in lpc),
         worst_error=worst, used_pct=used, ratio=number(s, "ratio", at + "summary.", lo=0.0, finite=False),
         bits_per_sample=number(s, "bits_per_sample", at + "summary.", lo=0.0, finite=False),
         n_exceptions=integer(s, "n_exceptions", 0, max(n, 0), at + "summary.", optional=True, default=0),
         modes=tuple(sorted(modes.items())), note=text(d, "note", at, optional=True, limit=1 << 16))
+
+
+def _check_budget(at: str, budget: str, eps: float) -> None:
+    """A channel's budget text and its ε must agree: lossless is ε 0, an absolute budget is ε itself
+    (or 0 where the logged resolution already serves it exactly)."""
+    try:
+        b = parse_budget(budget)
+    except BudgetError:
+        raise corrupt(f"{at}budget {budget[:40]!r} is not a budget") from None
+    if (b.kind == "lossless" and eps != 0) or \
+            (b.kind == "abs" and eps != 0 and not math.isclose(eps, b.value, rel_tol=1e-11)):
+        raise corrupt(f"{at}eps {eps!r} disagrees with its budget {budget}")
+
+
+def budget_spec_agrees(m: dict, channels) -> None:
+    """The archive's budget spec (when stored) names each channel's budget as the channel does."""
+    spec = m.get("budget_spec")
+    if spec is None:
+        return
+    try:
+        parsed = parse_budget_spec(text(m, "budget_spec", limit=1 << 16))
+    except BudgetError:
+        raise corrupt(f"budget_spec {spec[:40]!r} is not a budget spec") from None
+    for c in channels:
+        if parsed.for_channel(c.name).spec != c.budget:
+            raise corrupt(f"budget_spec gives channel {c.name[:40]!r} {parsed.for_channel(c.name).spec}, "
+                          f"the channel says {c.budget}")
 
 
 def tables(d: dict) -> tuple[TableEntry, ...]:

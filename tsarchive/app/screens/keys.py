@@ -24,9 +24,9 @@ SCREENS = (
 )
 
 
-def key_table() -> list[tuple[str, str, str]]:
-    """``(where, key, what)`` rows for the app and each screen, in the order a user meets them."""
-    from tsarchive.app.app import TsArchiveApp
+def key_table(app_type: type) -> list[tuple[str, str, str]]:
+    """``(where, key, what)`` rows for the app (``app_type``, whose bindings apply anywhere) and each
+    screen, in the order a user meets them."""
     from tsarchive.app.screens.packing import PackingScreen
     from tsarchive.app.screens.export import ExportScreen
     from tsarchive.app.screens.shortlist import ShortlistScreen
@@ -34,7 +34,7 @@ def key_table() -> list[tuple[str, str, str]]:
     from tsarchive.app.screens.folder import FolderScreen
     from tsarchive.app.screens.strip import StripScreen
 
-    places = [("Anywhere", TsArchiveApp), ("Folder", FolderScreen), ("Packing", PackingScreen),
+    places = [("Anywhere", app_type), ("Folder", FolderScreen), ("Packing", PackingScreen),
               ("Contents", ContentsScreen), ("Strip", StripScreen), ("Shortlist", ShortlistScreen), ("Export", ExportScreen)]
     enter = {"Folder": "pack the recording, or open the archive in the Contents screen",
              "Contents": "open the channel in the Strip", "Shortlist": "show the window in the Strip"}
@@ -77,7 +77,7 @@ class KeysScreen(Notices, ModalScreen[None]):
     def on_mount(self) -> None:
         table = self.query_one(DataTable)
         table.add_columns("Where", "Name or key", "What it is or does")
-        for row in key_table():
+        for row in key_table(type(self.app)):
             table.add_row(*row)
         table.focus()
 

@@ -23,14 +23,14 @@ from textual.widgets import Button, Checkbox, DataTable, Footer, Input, Label, S
 
 import tsarchive
 from tsarchive.app import fmt
-from tsarchive.app.locate import (ARCHIVE_SUFFIX, ARCHIVE_SUFFIXES, combine_budgets, free_archive_name, parse_optional_float,
+from tsarchive.app.locate import (ARCHIVE_SUFFIX, ARCHIVE_SUFFIXES, free_archive_name, parse_optional_float,
                                   parse_optional_int)
 from tsarchive.app.messages import PackDone, PackHalted, PackStep, RecordingInspected, WorkFailed
 from tsarchive.app.screens.base import Notices
 from tsarchive.app.widgets.budget_row import BudgetRow
 from tsarchive.app.widgets.stage_progress import StageProgress
 from tsarchive.app.summary import USED_HELP
-from tsarchive.budget import parse_budget
+from tsarchive.budget import DEFAULT_SPEC, parse_budget, spec_from_fields
 from tsarchive.errors import BadInput, Cancelled, TsArchiveError
 
 SUMMARY_COLUMNS = ("Channel", "Budget", "Worst error", "Used", "Ratio", "Bits/sample")
@@ -45,7 +45,7 @@ def replace_label(on: bool) -> str:
 
 def _budget_ok(text: str) -> bool:
     try:
-        parse_budget(text or "0.1%")
+        parse_budget(text or DEFAULT_SPEC)
     except TsArchiveError:
         return False
     return True
@@ -133,7 +133,7 @@ class PackingScreen(Notices, Screen):
         box = self.query_one("#packing-budgets", VerticalScroll)
         old = {row.channel.name: row.spec for row in box.query(BudgetRow)}
         box.remove_children()
-        box.mount_all([BudgetRow(i, ch, spec=old.get(ch.name, "0.1%")) for i, ch in enumerate(rec.channels)])
+        box.mount_all([BudgetRow(i, ch, spec=old.get(ch.name, DEFAULT_SPEC)) for i, ch in enumerate(rec.channels)])
         self.call_after_refresh(self._attach_validators)
 
     def _attach_validators(self) -> None:
@@ -163,7 +163,7 @@ class PackingScreen(Notices, Screen):
         for row in rows:
             if not _budget_ok(row.spec):
                 raise BadInput(f"budget {row.spec!r} for {row.channel.name} is not 0.02, 0.1% or lossless; fix it")
-        budget = combine_budgets([r.channel.name for r in rows], [r.spec for r in rows])
+        budget = spec_from_fields([r.channel.name for r in rows], [r.spec for r in rows])
         rate_text = self.query_one("#packing-rate", Input).value.strip()
         rate = None
         if rate_text and rate_text != self._rate_shown:
@@ -269,7 +269,7 @@ class PackingScreen(Notices, Screen):
             table.add_row(ch.name, f"{ch.budget} = {bound}", f"{fmt.num(ch.worst_error)}{unit}",
                           fmt.pct(ch.used_pct), fmt.ratio(ch.ratio), f"{ch.bits_per_sample:.2f}", key=ch.name)
         table.display = True
-        within = all(ch.worst_error <= ch.eps for ch in res.channels)
+        within = res.within_budget
         self.app.checks.pop(Path(res.archive), None)  # type: ignore[attr-defined]
         self.query_one("#packing-result", Static).update(
             f"{Path(res.archive).name} written: {fmt.size(res.archive_bytes)} for {fmt.size(res.source_bytes)} "

@@ -46,9 +46,8 @@ def source_column(source: Path, meta, position: int) -> np.ndarray:
     """The channel's samples from the original recording (by name, else by position)."""
     rate = meta.rate if source.suffix.lower() == ".npy" else None
     rec = tsarchive.inspect_source(source, rate=rate)
-    names = [c.name for c in rec.channels]
-    j = names.index(meta.name) if meta.name in names else position
-    if j >= len(names) or rec.n_samples != meta.n_samples:
+    j = rec.channel_index(meta.name, position)
+    if j is None or rec.n_samples != meta.n_samples:
         raise tsarchive.BadInput(f"{source.name} does not match the archive (channels or length differ); "
                                  "the plot shows the archive without the original")
     return rec.column(j)

@@ -6,7 +6,7 @@ from textual.app import ComposeResult
 from textual.containers import Horizontal
 from textual.widgets import Input, Label
 
-DEFAULT_BUDGET = "0.1%"
+from tsarchive.budget import DEFAULT_SPEC as DEFAULT_BUDGET
 
 
 def resolution_text(decimals: int | None) -> str:

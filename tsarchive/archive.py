@@ -8,12 +8,10 @@ manifest is JSON, the model is plain integer arrays.
 
 from __future__ import annotations
 
-import base64
-import binascii
 import math
 import threading
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass
+from dataclasses import replace
 from functools import cached_property
 from pathlib import Path
 
@@ -22,36 +20,23 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from .. import checksum, entropy
-from ..codec import CODER_ID, FRAC_SAFE_SCALE, ae_prediction, reconstruct
-from ..errors import ArchiveCorrupt, BadInput, FormatVersionError
-from ..predict import PREDICTORS, Context, mode_name
-from ..quantize import bits_to_values
-from ..workers import workers as worker_count
-from . import parse as P
-from . import schema as S
-from .binding import check_folder, read_manifest
-from .members import inspect, member_problems
-from .parse import ChannelMeta
-from .rows import binary_parts as _binary_parts, codes as _codes, lengths as _lengths
-from . import sidecar
-from .timeaxis import Times, Timeline, load_timeline
+from .channelcodec import ChannelCodec
+from .errors import ArchiveCorrupt, BadInput, FormatVersionError
+from .model.intnet import IntDecoder
+from .workers import workers as worker_count
+from .store import parse as P
+from .store import schema as S
+from .store.binding import check_folder, read_manifest
+from .store.members import inspect, member_problems
+from .store.parse import ChannelMeta
+from .store.rows import lengths as _lengths
+from .store import sidecar
+from .store.timeaxis import Times, Timeline, load_timeline
+from .windowcodec import decode_windows
+from .windows import CHUNK_SAMPLES
 
 
-READ_SAMPLES = 1 << 20       # samples decoded per step of a long read (about one packing block)
-
-
-@dataclass(frozen=True)
-class WindowTable:
-    """Per-window facts of one channel, time-ordered (no residual payloads)."""
-
-    index: np.ndarray
-    start_sample: np.ndarray
-    n: np.ndarray
-    mode: tuple[str, ...]
-    worst_error: np.ndarray      # per window, an upper bound (stored in 1/250ths of ε, rounded up)
-    score: np.ndarray
-    codes: np.ndarray
+READ_SAMPLES = CHUNK_SAMPLES     # samples decoded per step of a long read (one packing block)
 
 
 def _channel_meta(d: dict, window: int) -> ChannelMeta:
@@ -89,12 +74,15 @@ class Archive:
         P.facts(m)
         chans = P.channel_list(m)
         self.channels = tuple(_channel_meta(c, self.window) for c in chans)
-        self._entries = {c.name: P.tables(d) for c, d in zip(self.channels, chans)}
+        P.budget_spec_agrees(m, self.channels)
         self._by_name = {c.name: c for c in self.channels}
         self._local = threading.local()
-        self._tables                                   # decoded once; a malformed table is named here
-        opened = inspect(self.path, m, v, self.members, self.window, self.channels, model, strict)
+        # the coders are rebuilt once, at opening (a malformed table is named here)
+        codecs = {c.name: ChannelCodec.from_entry(c, P.tables(d)) for c, d in zip(self.channels, chans)}
+        opened = inspect(self.path, m, v, self.members, self.window, self.channels, model, strict,
+                         make_decoder=IntDecoder.from_arrays)
         self._windows_file, self._groups, self._decoder = opened.windows, opened.groups, opened.decoder
+        self._codecs = {n: replace(c, decoder=opened.decoder) for n, c in codecs.items()}
         self.bound, self.damage, self.decodable = opened.bound, opened.damage, opened.decodable
 
     def check_members(self) -> None:
@@ -102,6 +90,16 @@ class Archive:
         problems = member_problems(self.path, self.members)
         if problems:
             raise ArchiveCorrupt(f"{problems[0]}; run tsarchive verify for the details")
+
+    def member_table(self, name: str, columns: list[str] | None = None, filters=None) -> pa.Table | None:
+        """A Parquet member listed in the manifest (e.g. an optional ``index.parquet``), read by name;
+        None when the archive has no such member.  Its size was checked at opening; ``verify`` hashes it."""
+        if name not in {m.name for m in self.members}:
+            return None
+        try:
+            return pq.read_table(self.path / name, columns=columns, filters=filters)
+        except (OSError, pa.ArrowException) as exc:
+            raise ArchiveCorrupt(f"{name} cannot be read ({str(exc)[:80]}); the archive is damaged") from None
 
     # -- facts -------------------------------------------------------------------
     @property
@@ -144,28 +142,17 @@ class Archive:
         """channel -> [(row group, first window, last window)] from Parquet statistics (checked at opening)."""
         return self._groups
 
-    @cached_property
-    def _tables(self) -> dict[tuple[str, int, int], entropy.FreqTable]:
-        out = {}
-        for name, entries in self._entries.items():
-            for t in entries:
-                try:
-                    freqs = base64.b64decode(t.freqs, validate=True)
-                except (ValueError, binascii.Error):
-                    raise ArchiveCorrupt(f"channel {name}: an entropy table entry is malformed; "
-                                         "the archive is damaged") from None
-                if t.coder != CODER_ID:
-                    raise ArchiveCorrupt(f"entropy coder {t.coder[:40]!r} is unknown to this tsarchive version; "
-                                         "upgrade tsarchive to read the archive")
-                out[(name, t.mode, t.table)] = entropy.FreqTable.from_bytes(freqs)
-        return out
+    def codec(self, channel: str) -> ChannelCodec:
+        """The channel's :class:`~tsarchive.channelcodec.ChannelCodec` (its grid, ε, predictors, coders)."""
+        self.channel(channel)
+        return self._codecs[channel]
 
     @property
     def decoder(self):
         """The integer decoder (numpy), or None for an archive packed without a model (read once, at opening)."""
         return self._decoder
 
-    def _rows(self, channel: str, w0: int, w1: int, columns: list[str] | None = None) -> pa.Table:
+    def rows(self, channel: str, w0: int, w1: int, columns: list[str] | None = None) -> pa.Table:
         """Window rows ``w0 <= window < w1`` of a channel, reading only overlapping row groups."""
         schema = self._schema
         if columns is not None:       # a column this archive does not have (``code`` without a model) is left out
@@ -187,10 +174,11 @@ class Archive:
         """Decode windows ``w0..w1-1``; returns ``(values, window numbers, bad-crc windows)``.
 
         With ``check`` a CRC mismatch raises :class:`ArchiveCorrupt`;
-        without, the mismatching windows are returned for reporting.
+        without, the mismatching windows are returned for reporting
+        (see :func:`tsarchive.windowcodec.decode_windows`).
         """
         meta = self.channel(channel)
-        t = self._rows(channel, w0, w1)
+        t = self.rows(channel, w0, w1)
         if any(c.null_count for c in t.columns):
             raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} have empty (null) fields; "
                                  "the archive is damaged")
@@ -199,54 +187,9 @@ class Archive:
         if nrow != max(0, min(w1, meta.n_windows) - max(w0, 0)) or \
                 (nrow and not np.array_equal(windows, np.arange(windows[0], windows[0] + nrow))):
             raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} are missing rows; the archive is damaged")
-        lens = _lengths(meta, windows)
-        modes = t["mode"].to_numpy()
-        lpc_set = t["lpc_set"].to_numpy()
-        if not set(np.unique(modes).tolist()) <= PREDICTORS.keys() or \
-                (nrow and not 0 <= int(lpc_set.min()) <= int(lpc_set.max()) < len(meta.lpc)):
-            raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} name a predictor or a "
-                                 "linear-prediction set this archive does not have; the archive is damaged")
-        classes = t["table"].to_numpy()
-        level = t["level"].to_numpy()
-        pbuf, poffs = _binary_parts(t["residual"])
-        codes = _codes(t, nrow)
-        crcs = t["crc32"].to_numpy()
-        held = self._held(channel, w0, w1)          # window -> (positions, bits) stored verbatim
-        out = np.empty(int(lens.sum()), dtype=np.dtype(meta.grid.out_dtype))
-        missing = None if meta.grid.missing is None else np.zeros(len(out), dtype=bool)
-        offs = np.concatenate([[0], np.cumsum(lens)])
-        bad = []
-        for L in np.unique(lens):
-            sel = np.flatnonzero(lens == L)
-            res = np.empty((len(sel), int(L)), dtype=np.int64)
-            for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
-                pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
-                rows = sel[pick]
-                # strict=False: the per-window CRC below catches what a range code cannot
-                res[pick] = entropy.decode_flat(pbuf, poffs[rows], poffs[rows + 1], int(L), self._table(channel, m, c),
-                                                strict=False).reshape(len(pick), int(L))
-            ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
-            q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc, lpc_set[sel]), res)
-            x = meta.grid.decode(q)                                    # (windows, L), all at once
-            for k, w in enumerate(windows[sel].tolist()):               # samples stored verbatim
-                if w in held:
-                    pos, raw = held[w]
-                    if len(pos) != len(raw) or (len(pos) and not (0 <= pos.min() and pos.max() < L)):
-                        raise ArchiveCorrupt(f"channel {channel} window {w}: verbatim samples are malformed; "
-                                             "the archive is damaged")
-                    x[k, pos] = bits_to_values(raw, x.dtype)
-                    if missing is not None:                          # marked missing samples
-                        missing[offs[sel[k]] + pos[raw == meta.grid.missing]] = True
-            got = np.array([checksum.window_crc(row) for row in x], dtype=np.int64)
-            for k in np.flatnonzero(got != crcs[sel].astype(np.int64)):
-                if check:
-                    raise ArchiveCorrupt(f"channel {channel} window {windows[sel[k]]}: checksum mismatch; "
-                                         "the archive is damaged — restore it from a copy")
-                bad.append(int(windows[sel[k]]))
-            # windows are consecutive and only a channel's last one is short, so each length is one run
-            out[offs[sel[0]]:offs[sel[-1] + 1]] = x.ravel()
-        bad.sort()
-        return (out if missing is None else np.ma.MaskedArray(out, mask=missing)), windows, bad
+        x, bad = decode_windows(t, _lengths(meta, windows), self._held(channel, w0, w1), self.codec(channel),
+                                check=check)
+        return x, windows, bad
 
     @property
     def _schema(self) -> pa.Schema:
@@ -266,21 +209,6 @@ class Archive:
         for w, pos, raw in zip(t["window"].to_pylist(), t["pos"].to_pylist(), t["bits"].to_pylist()):
             out[int(w)] = (np.asarray(pos, np.int64), np.asarray(raw, np.int64))
         return out
-
-    def _table(self, channel: str, mode: int, cls: int) -> entropy.FreqTable:
-        try:
-            return self._tables[(channel, mode, cls)]
-        except KeyError:
-            raise ArchiveCorrupt(f"channel {channel}: no entropy table for predictor {mode_name(mode)} class {cls}; "
-                                 "the archive is damaged") from None
-
-    def _ae(self, meta: ChannelMeta, codes: np.ndarray, level: np.ndarray, L: int):
-        if meta.scale > FRAC_SAFE_SCALE or codes.shape[1] == 0:
-            return None
-        if codes.shape[1] != self.decoder.code_size:
-            raise ArchiveCorrupt(f"channel {meta.name}: window codes have {codes.shape[1]} values, the model takes "
-                                 f"{self.decoder.code_size}; the archive is damaged")
-        return ae_prediction(self.decoder, codes, level, meta.scale, L)
 
     # -- time axis, notes, text columns (store/timeaxis.py, store/sidecar.py) ---------
     @cached_property
@@ -308,14 +236,11 @@ class Archive:
         a, b = self.span(start, end)
         return sidecar.read_extra(self.manifest, self.path, self.timeline.n, a, b)
 
-    def _span(self, meta: ChannelMeta, start, end) -> tuple[int, int]:
-        return self.span(start, end)
-
     def read(self, channel: str, start: float | None = None, end: float | None = None) -> np.ndarray:
         """Samples of ``channel`` whose times lie in ``start <= t - t[0] < end`` (seconds from the first sample;
         on the logged time axis, so gaps and jitter count)."""
         meta = self.channel(channel)
-        a, b = self._span(meta, start, end)
+        a, b = self.span(start, end)
         if b <= a:
             return np.zeros(0, dtype=np.dtype(meta.grid.out_dtype))
         W = meta.window
@@ -351,84 +276,38 @@ class Archive:
 
     def prepare_threads(self) -> None:
         """Fill the lazy caches (row-group map, schema, tables, decoder) before threads share them."""
-        self._row_groups, self._schema, self._tables, self.decoder, self.timeline
+        self._row_groups, self._schema, self.decoder, self.timeline
 
+    # -- browsing (tsarchive/browse.py) ---------------------------------------------
     def preview(self, channel: str, start: float | None = None, end: float | None = None) -> np.ndarray:
-        """Code-only reconstruction (no residuals), float64: what the codes alone say."""
-        meta = self.channel(channel)
-        a, b = self._span(meta, start, end)
-        W = meta.window
-        w0, w1 = a // W, -(-b // W)
-        t = self._rows(channel, w0, w1, ["level", "code"])
-        lens = _lengths(meta, t["window"].to_numpy())
-        level = t["level"].to_numpy()
-        codes = _codes(t, t.num_rows)
-        x = np.empty(int(lens.sum()), dtype=np.float64)
-        offs = np.concatenate([[0], np.cumsum(lens)])
-        for L in np.unique(lens):  # one decoder call per window length (the last window may be short)
-            sel = np.flatnonzero(lens == L)
-            ae = self._ae(meta, codes[sel], level[sel], int(L)) if self.decoder is not None else None
-            q = np.repeat(level[sel, None], int(L), axis=1) if ae is None else ae
-            for k, i in enumerate(sel):
-                x[offs[i]:offs[i + 1]] = meta.grid.values(q[k])
-        return x[a - w0 * W:b - w0 * W]
+        """See :func:`tsarchive.browse.preview`."""
+        from .browse import preview
+        return preview(self, channel, start, end)
 
-    def windows(self, channel: str) -> WindowTable:
-        meta = self.channel(channel)
-        t = self._rows(channel, 0, meta.n_windows, ["mode", "worst", "score", "code"])
-        index = t["window"].to_numpy().astype(np.int64)
-        worst = t["worst"].to_numpy().astype(np.float64) * (meta.eps / S.WORST_STEPS)
-        return WindowTable(index=index, start_sample=index * meta.window, n=_lengths(meta, index),
-                           mode=tuple(mode_name(m) for m in t["mode"].to_numpy()),
-                           worst_error=worst, score=t["score"].to_numpy(), codes=_codes(t, t.num_rows))
+    def windows(self, channel: str):
+        """See :func:`tsarchive.browse.window_table`."""
+        from .browse import window_table
+        return window_table(self, channel)
 
     def outliers(self, channel: str, k: int = 20) -> list[int]:
-        """Window numbers with the highest outlier score (code-only reconstruction error), highest first."""
-        w = self.windows(channel)
-        order = np.lexsort((w.index, -w.score))
-        return [int(w.index[i]) for i in order[:k]]
+        """See :func:`tsarchive.browse.outliers`."""
+        from .browse import outliers
+        return outliers(self, channel, k)
 
     def similar(self, channel: str, window_index: int, k: int = 10) -> list[tuple[int, float]]:
-        """The ``k`` windows whose codes are nearest (Euclidean) to window ``window_index``'s.
-
-        An archive packed without an autoencoder has no codes; then each
-        window is described by its decoded shape instead (the window's mean
-        over 8 equal parts, centred and scaled by the channel's spread).
-        """
-        w = self.windows(channel)
-        if not 0 <= window_index < len(w.index):
-            raise BadInput(f"window {window_index} is out of range 0..{len(w.index) - 1}")
-        c = w.codes.astype(np.float64) if w.codes.shape[1] else self._shape_features(channel)
-        d = np.sqrt(((c - c[window_index]) ** 2).sum(axis=1))
-        d[window_index] = np.inf
-        order = np.lexsort((w.index, d))
-        return [(int(w.index[i]), float(d[i])) for i in order[:k] if np.isfinite(d[i])]
-
-    def _shape_features(self, channel: str, parts: int = 8) -> np.ndarray:
-        meta = self.channel(channel)
-        W = meta.window
-        feats = np.zeros((meta.n_windows, parts))
-        per = max(1, (1 << 20) // W)
-        for w0 in range(0, meta.n_windows, per):
-            w1 = min(meta.n_windows, w0 + per)
-            x = self.decode_windows(channel, w0, w1)[0].astype(np.float64)
-            x = np.concatenate([x, np.full((w1 - w0) * W - len(x), x[-1] if len(x) else 0.0)])
-            x = np.where(np.isfinite(x), x, 0.0).reshape(w1 - w0, W)[:, :(W // parts) * parts]
-            x = x.reshape(w1 - w0, parts, W // parts)
-            m = x.mean(axis=2)
-            feats[w0:w1] = m - m.mean(axis=1, keepdims=True)
-        spread = feats.std() or 1.0
-        return feats / spread
+        """See :func:`tsarchive.browse.similar`."""
+        from .browse import similar
+        return similar(self, channel, window_index, k)
 
     def verify(self, against=None, progress=None, **options):
         """See :func:`tsarchive.verifier.verify_archive` (``rate``, ``even_if_changed``)."""
-        from ..verifier import verify_archive
+        from .verifier import verify_archive
         return verify_archive(self, against=against, progress=progress, **options)
 
     def export(self, out_path, channels=None, start=None, end=None, *, force: bool = False,
                replace_original: str | None = None) -> Path:
         """Write a reconstruction; see :func:`tsarchive.export_range.export_range` for what it refuses."""
-        from ..export_range import export_range
+        from .export_range import export_range
         return export_range(self, out_path, channels=channels, start=start, end=end, force=force,
                             replace_original=replace_original)
 

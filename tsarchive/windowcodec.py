@@ -1,0 +1,183 @@
+"""A channel's windows <-> rows of ``windows.parquet``, both directions side by side.
+
+* :func:`encode_windows` — windows of equal length -> grid integers -> codes ->
+  predictions -> residuals -> entropy-coded rows, with each window's CRC-32,
+  worst error and outlier score computed from exactly what decoding gives;
+* :func:`decode_windows` — the rows (and the window's verbatim samples) ->
+  residuals -> predictor inverse -> grid -> samples, every window's CRC-32 checked.
+
+Both take the channel's :class:`~tsarchive.channelcodec.ChannelCodec`; the store
+(:mod:`tsarchive.store`) only moves the rows.  Everything between the grid and
+the bytes is integer arithmetic, so decoding is bit-exact on any machine.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pyarrow as pa
+
+from . import checksum, entropy
+from .channelcodec import ChannelCodec
+from .codec import FRAC_SAFE_SCALE, TableSet, ae_prediction, choose_modes, reconstruct
+from .errors import ArchiveCorrupt
+from .exact import max_errors
+from .predict import PREDICTORS, Context
+from .quantize import Grid, bits_to_values, quantize
+from .store import schema as S
+from .store.rows import binary_parts, codes as row_codes
+from .windows import levels, normalise
+
+
+def predict_windows(x: np.ndarray, grid: Grid, W: int, model, scale: int):
+    """Quantize a batch of equal-length windows; return q, exceptions, levels, codes, AE prediction."""
+    q, pos, bits = quantize(x.ravel(), grid)
+    q = q.reshape(x.shape)
+    lv = levels(q)
+    if model is None or scale > FRAC_SAFE_SCALE:
+        return q, pos, bits, lv, np.zeros((len(q), 0), dtype=np.int8), None
+    codes = model.encode(normalise(q, lv, scale, W))
+    return q, pos, bits, lv, codes, ae_prediction(model.int_decoder, codes, lv, scale, x.shape[1])
+
+
+
+def code_windows(modes: np.ndarray, classes: np.ndarray, res: np.ndarray, tables: TableSet) -> list[bytes]:
+    """Each window's residuals range coded under its (predictor, class) table, in window order."""
+    payloads: list[bytes] = [b""] * len(res)
+    for m, k in set(zip(modes.tolist(), classes.tolist())):
+        sel = np.flatnonzero((modes == m) & (classes == k))
+        for i, p in zip(sel, entropy.encode_many(res[sel], tables[(m, k)])):
+            payloads[i] = p
+    return payloads
+
+
+def encode_windows(x: np.ndarray, first_window: int, codec: ChannelCodec, model=None
+                   ) -> tuple[pa.Table, pa.Table, float]:
+    """Window rows for ``windows.parquet`` from a batch of equal-length windows ``x`` (their first is
+    window ``first_window``), the rows of those with verbatim samples (exceptions), and the batch's
+    worst error in float64.  ``model`` (a trained autoencoder, pack side) gives the codes; the inverse
+    is :func:`decode_windows`."""
+    nb, L = x.shape
+    grid, name, tables = codec.grid, codec.name, codec.table_set
+    q, pos, bits, lv, codes, ae = predict_windows(x, grid, codec.window, model, codec.scale)
+    modes, classes, res, sets = choose_modes(q, Context(lv, ae, codec.lpc), tables)
+    payloads = code_windows(modes, classes, res, tables)
+    xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
+    x64 = np.asarray(x).astype(np.float64)
+    with np.errstate(invalid="ignore", over="ignore"):
+        fin = np.isfinite(x64) & ~np.ma.getmaskarray(x)       # missing samples have no error
+        preview = grid.to_out(grid.values(lv[:, None] + np.zeros((1, L), np.int64) if ae is None else ae))
+        # peak, not RMS: a short transient must not be diluted by the rest of its window
+        score = np.where(fin, np.abs(x64 - preview.astype(np.float64)), 0.0).max(axis=1, initial=0.0)
+    wpos = pos // L
+    worst = max_errors(np.ma.getdata(x), np.ma.getdata(xh), fin)   # exact (rounded up), integers in integers
+    rows = pa.table({
+        "channel": [name] * nb,
+        "window": np.arange(first_window, first_window + nb, dtype=np.int32),
+        "mode": modes.astype(np.int8),
+        "lpc_set": sets.astype(np.int8),
+        "table": classes.astype(np.int8),
+        "level": lv,
+        "code": list(codes.astype(np.int8)),
+        "residual": payloads,
+        "crc32": np.array([checksum.window_crc(xh[i]) for i in range(nb)], dtype=np.uint32),
+        "worst": worst_steps(worst, grid.eps),
+        "score": score_bf16(score),
+    }, schema=S.windows_schema(True))
+    held = np.unique(wpos)
+    exceptions = pa.table({
+        "channel": [name] * len(held),
+        "window": (first_window + held).astype(np.int32),
+        "pos": [(pos[wpos == i] % L).astype(np.int32) for i in held],
+        "bits": [bits[wpos == i] for i in held],
+    }, schema=S.EXCEPTIONS_SCHEMA)
+    return rows, exceptions, float(worst.max(initial=0.0))
+
+
+def worst_steps(worst: np.ndarray, eps: float) -> np.ndarray:
+    """Per-window worst errors in 1/WORST_STEPS of ``eps``, rounded up (never understating), as uint8."""
+    if eps <= 0:
+        return np.zeros(len(worst), np.uint8)
+    k = np.ceil(worst / eps * S.WORST_STEPS * (1 + 1e-12))
+    k = np.where(worst <= eps, np.minimum(k, S.WORST_STEPS), k)  # within budget: at most eps itself
+    return np.clip(k, 0, 255).astype(np.uint8)
+
+
+def score_bf16(score: np.ndarray) -> np.ndarray:
+    """Scores as float32 rounded to 8 significant bits (bfloat16 precision, 0.4 %): enough to rank
+    windows, and the two zero low bytes cost nothing after byte-stream split + zstd."""
+    big = float(np.finfo(np.float32).max) / 2
+    s = np.nan_to_num(score, nan=0.0, posinf=big).clip(0, big).astype(np.float32)
+    u = (s.view(np.uint32) + np.uint32(0x8000)) & np.uint32(0xFFFF0000)
+    return u.view(np.float32)
+
+
+def decode_windows(rows: pa.Table, lens: np.ndarray, held: dict, codec: ChannelCodec, *, check: bool = True):
+    """Samples of consecutive window ``rows`` (``lens`` samples each; ``held``: window -> (positions,
+    raw bits) stored verbatim); returns ``(values, bad-crc windows)``.
+
+    With ``check`` a CRC mismatch raises :class:`ArchiveCorrupt`; without,
+    the mismatching windows are returned for reporting.  Integer channels
+    with missing samples come back as a masked array.
+    """
+    name, grid = codec.name, codec.grid
+    windows = rows["window"].to_numpy()
+    modes, lpc_set = rows["mode"].to_numpy(), rows["lpc_set"].to_numpy()
+    if not set(np.unique(modes).tolist()) <= PREDICTORS.keys() or \
+            (len(rows) and not 0 <= int(lpc_set.min()) <= int(lpc_set.max()) < len(codec.lpc)):
+        raise ArchiveCorrupt(f"channel {name}: windows {windows[0]}..{windows[-1]} name a predictor or a "
+                             "linear-prediction set this archive does not have; the archive is damaged")
+    classes, level, crcs = rows["table"].to_numpy(), rows["level"].to_numpy(), rows["crc32"].to_numpy()
+    pbuf, poffs = binary_parts(rows["residual"])
+    codes = row_codes(rows, len(rows))
+    out = np.empty(int(lens.sum()), dtype=np.dtype(grid.out_dtype))
+    missing = None if grid.missing is None else np.zeros(len(out), dtype=bool)
+    offs = np.concatenate([[0], np.cumsum(lens)])
+    bad = []
+    for L in np.unique(lens):
+        sel = np.flatnonzero(lens == L)
+        res = np.empty((len(sel), int(L)), dtype=np.int64)
+        for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
+            pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
+            at = sel[pick]
+            # strict=False: the per-window CRC below catches what a range code cannot
+            res[pick] = codec.coder(m, c).decode_flat(pbuf, poffs[at], poffs[at + 1], int(L),
+                                                      strict=False).reshape(len(pick), int(L))
+        ae = code_prediction(codec, codes[sel], level[sel], int(L))
+        x = grid.decode(reconstruct(modes[sel], Context(level[sel], ae, codec.lpc, lpc_set[sel]), res))
+        _put_verbatim(x, windows[sel], held, offs[sel], missing, codec)
+        got = np.array([checksum.window_crc(row) for row in x], dtype=np.int64)
+        for k in np.flatnonzero(got != crcs[sel].astype(np.int64)):
+            if check:
+                raise ArchiveCorrupt(f"channel {name} window {windows[sel[k]]}: checksum mismatch; "
+                                     "the archive is damaged — restore it from a copy")
+            bad.append(int(windows[sel[k]]))
+        # windows are consecutive and only a channel's last one is short, so each length is one run
+        out[offs[sel[0]]:offs[sel[-1] + 1]] = x.ravel()
+    bad.sort()
+    return (out if missing is None else np.ma.MaskedArray(out, mask=missing)), bad
+
+
+def _put_verbatim(x: np.ndarray, windows: np.ndarray, held: dict, offs: np.ndarray, missing, codec) -> None:
+    """In place: the samples stored verbatim (and, for a channel with missing samples, which are missing)."""
+    L = x.shape[1]
+    for k, w in enumerate(windows.tolist()):
+        if w in held:
+            pos, raw = held[w]
+            if len(pos) != len(raw) or (len(pos) and not (0 <= pos.min() and pos.max() < L)):
+                raise ArchiveCorrupt(f"channel {codec.name} window {w}: verbatim samples are malformed; "
+                                     "the archive is damaged")
+            x[k, pos] = bits_to_values(raw, x.dtype)
+            if missing is not None:
+                missing[offs[k] + pos[raw == codec.grid.missing]] = True
+
+
+def code_prediction(codec: ChannelCodec, codes: np.ndarray, level: np.ndarray, L: int) -> np.ndarray | None:
+    """The autoencoder's integer prediction of windows from their codes, or None (no model, no codes,
+    or a channel whose scale the model cannot take)."""
+    decoder = codec.decoder
+    if decoder is None or codec.scale > FRAC_SAFE_SCALE or codes.shape[1] == 0:
+        return None
+    if codes.shape[1] != decoder.code_size:
+        raise ArchiveCorrupt(f"channel {codec.name}: window codes have {codes.shape[1]} values, the model takes "
+                             f"{decoder.code_size}; the archive is damaged")
+    return ae_prediction(decoder, codes, level, codec.scale, L)
