@@ -3,13 +3,8 @@
 The stream they write is specified in :mod:`tsarchive.coding.adaptive` (the
 module docstring) and written a second time, for readability and as the
 tests' reference, with Python integers in :mod:`tsarchive.coding.adaptive_ref`.
-These functions work on arrays only, so numba can compile them; without numba
-they run as they are (slowly, but the same bytes).
-
-Encoder state ``st`` (uint64[7]): low, range, cache, cache size, write
-position, "skip the next byte" flag, ideal cost in units of 2**-16 bit.
-Decoder state ``ds`` (uint64[5]): code, range, bytes read (counting the
-implicit leading zero byte), payload start, payload end.
+These functions work on arrays and integers only, so numba can compile
+them; without numba the reference codes instead.
 """
 
 from __future__ import annotations
@@ -49,97 +44,96 @@ def cost_table() -> np.ndarray:
     return (PROB_BITS << fixedlog.FRAC) - fixedlog.log2q(p)
 
 
-# ---------------------------------------------------------------- encoder helpers (compiled by _kernels)
+# ---------------------------------------------------------------- encoder helpers (compiled by _compile)
+# The interval (low, range) and the ideal cost travel as locals through return values: numba keeps
+# them in registers (a state array costs a memory round trip per bit, 8x slower).  Only the byte
+# output (cache, pending count, position, skip flag) lives in ``st``.
 
-def _emit_py(st, out, byte):
-    if st[5] != np.uint64(0):
-        st[5] = np.uint64(0)          # the leading byte is always zero: it is not stored
-        return
-    out[np.int64(st[4])] = np.uint8(byte & np.uint64(0xFF))
-    st[4] += np.uint64(1)
-
-
-def _shift_low_py(st, out):
-    low = st[0]
+def _shift_low_py(st, out, low):
+    """LZMA's ShiftLow: settle the top byte of ``low`` (and any pending 0xFF bytes); returns the new low."""
     if low < np.uint64(0xFF000000) or low >= (np.uint64(1) << np.uint64(32)):
         carry = low >> np.uint64(32)
-        temp = st[2]
+        temp = st[0]
         while True:
-            _emit(st, out, temp + carry)
+            if st[3] != np.uint64(0):
+                st[3] = np.uint64(0)          # the leading byte is always zero: it is not stored
+            else:
+                out[np.int64(st[2])] = np.uint8((temp + carry) & np.uint64(0xFF))
+                st[2] += np.uint64(1)
             temp = np.uint64(0xFF)
-            st[3] -= np.uint64(1)
-            if st[3] == np.uint64(0):
+            st[1] -= np.uint64(1)
+            if st[1] == np.uint64(0):
                 break
-        st[2] = (low >> np.uint64(24)) & np.uint64(0xFF)
-    st[3] += np.uint64(1)
-    st[0] = (low & np.uint64(0x00FFFFFF)) << np.uint64(8)
+        st[0] = (low >> np.uint64(24)) & np.uint64(0xFF)
+    st[1] += np.uint64(1)
+    return (low & np.uint64(0x00FFFFFF)) << np.uint64(8)
 
 
-def _normalize_py(st, out):
-    while st[1] < np.uint64(TOP):
-        st[1] = st[1] << np.uint64(8)
-        _shift_low(st, out)
-
-
-def _bit_py(st, out, P, N, tally, cost, idx, bit):
+def _bit_py(st, out, P, N, tally, cost, idx, bit, low, rng, acc):
     p = P[idx]
-    bound = (st[1] >> np.uint64(PROB_BITS)) * np.uint64(p)
+    bound = (rng >> np.uint64(PROB_BITS)) * np.uint64(p)
     n = N[idx]
     s = SHIFT_OF[n]
     if n < COUNT_CAP:
         N[idx] = n + 1
     if bit == 0:
-        st[1] = bound
-        st[6] += np.uint64(cost[p])
+        rng = bound
+        acc += cost[p]
         P[idx] = p + ((PROB_ONE - p) >> s)
     else:
-        st[0] += bound
-        st[1] -= bound
-        st[6] += np.uint64(cost[PROB_ONE - p])
+        low += bound
+        rng -= bound
+        acc += cost[PROB_ONE - p]
         P[idx] = p - (p >> s)
     tally[idx, bit] += 1
-    _normalize(st, out)
+    while rng < np.uint64(TOP):
+        rng = rng << np.uint64(8)
+        low = _shift_low(st, out, low)
+    return low, rng, acc
 
 
-def _bypass_py(st, out, bit):
-    st[1] = st[1] >> np.uint64(1)
+def _bypass_py(st, out, bit, low, rng, acc):
+    rng = rng >> np.uint64(1)
     if bit:
-        st[0] += st[1]
-    st[6] += np.uint64(1 << 16)
-    _normalize(st, out)
+        low += rng
+    while rng < np.uint64(TOP):
+        rng = rng << np.uint64(8)
+        low = _shift_low(st, out, low)
+    return low, rng, acc + (1 << 16)
 
 
 def _room_py(out, st, need):
-    pos = np.int64(st[4]) + np.int64(st[3]) + need
+    pos = np.int64(st[2]) + np.int64(st[1]) + need
     if pos <= out.shape[0]:
         return out
     bigger = np.empty(out.shape[0] * 2 + pos, np.uint8)
-    bigger[:np.int64(st[4])] = out[:np.int64(st[4])]
+    bigger[:np.int64(st[2])] = out[:np.int64(st[2])]
     return bigger
 
 
-def _nonzero_py(st, out, P, N, tally, cost, v, row, psign):
-    """Sign, exponent (unary, adaptive bins), two adaptive mantissa bits, the rest bypass; returns the sign state."""
+def _nonzero_py(st, out, P, N, tally, cost, v, row, psign, low, rng, acc):
+    """Sign, exponent (unary, adaptive bins), two adaptive mantissa bits, the rest bypass;
+    returns (sign state, low, range, cost)."""
     neg = 1 if v < 0 else 0
-    _bit(st, out, P, N, tally, cost, S0 + psign, neg)
+    low, rng, acc = _bit(st, out, P, N, tally, cost, S0 + psign, neg, low, rng, acc)
     m = np.uint64(0) - np.uint64(v) if neg else np.uint64(v)
     e = 0
     while e < 63 and (m >> np.uint64(e + 1)) != np.uint64(0):
         e += 1
     base = E0 + row * NE
     for j in range(e):
-        _bit(st, out, P, N, tally, cost, base + min(j, NE - 1), 1)
+        low, rng, acc = _bit(st, out, P, N, tally, cost, base + min(j, NE - 1), 1, low, rng, acc)
     if e < 63:
-        _bit(st, out, P, N, tally, cost, base + min(e, NE - 1), 0)
+        low, rng, acc = _bit(st, out, P, N, tally, cost, base + min(e, NE - 1), 0, low, rng, acc)
     if e >= 1:
         b1 = np.int64((m >> np.uint64(e - 1)) & np.uint64(1))
-        _bit(st, out, P, N, tally, cost, M0 + 3 * e, b1)
+        low, rng, acc = _bit(st, out, P, N, tally, cost, M0 + 3 * e, b1, low, rng, acc)
         if e >= 2:
             b2 = np.int64((m >> np.uint64(e - 2)) & np.uint64(1))
-            _bit(st, out, P, N, tally, cost, M0 + 3 * e + 1 + b1, b2)
+            low, rng, acc = _bit(st, out, P, N, tally, cost, M0 + 3 * e + 1 + b1, b2, low, rng, acc)
             for k in range(e - 3, -1, -1):
-                _bypass(st, out, np.int64((m >> np.uint64(k)) & np.uint64(1)))
-    return 2 if neg else 1
+                low, rng, acc = _bypass(st, out, np.int64((m >> np.uint64(k)) & np.uint64(1)), low, rng, acc)
+    return (2 if neg else 1), low, rng, acc
 
 
 def _mag_py(v):
@@ -158,43 +152,44 @@ def _context_py(a1, a2, a3):
     return c
 
 
-def _seal_py(st, out):
+def _seal_py(st, out, low, rng):
     """Pick the point of [low, low + range) with the most trailing zero bits and write it out."""
-    low = st[0]
-    hi = low + st[1]
+    hi = low + rng
     for k in range(32, -1, -1):
         mask = (np.uint64(1) << np.uint64(k)) - np.uint64(1)
         v = (low + mask) & ~mask
         if v < hi:
-            st[0] = v
+            low = v
             break
     for _ in range(5):
-        _shift_low(st, out)
+        low = _shift_low(st, out, low)
 
 
 # ---------------------------------------------------------------- kernels
 
 def _encode_kernel(values, bounds, P0, N0, cost, tally):
-    """Code windows ``values[bounds[w]:bounds[w+1]]``; returns (bytes, byte bounds, cost units per window, P, N)."""
+    """Code windows ``values[bounds[w]:bounds[w+1]]``; returns (bytes, byte bounds, cost units per window).
+
+    ``st`` (uint64[4]): cache byte, cache size, write position, "skip the next byte" flag."""
     nw = bounds.shape[0] - 1
     out = np.empty(max(1024, values.shape[0] // 2 + 1024), np.uint8)
     ob = np.zeros(nw + 1, np.int64)
     costs = np.zeros(nw, np.int64)
-    st = np.zeros(7, np.uint64)
+    st = np.zeros(4, np.uint64)
     P = P0.copy()
     N = N0.copy()
     for w in range(nw):
         a, b = bounds[w], bounds[w + 1]
-        start = np.int64(st[4])
+        start = np.int64(st[2])
         if b > a:
             P[:] = P0
             N[:] = N0
+            low = np.uint64(0)
+            rng = np.uint64(0xFFFFFFFF)
+            acc = np.int64(0)
             st[0] = np.uint64(0)
-            st[1] = np.uint64(0xFFFFFFFF)
-            st[2] = np.uint64(0)
+            st[1] = np.uint64(1)
             st[3] = np.uint64(1)
-            st[5] = np.uint64(1)
-            st[6] = np.uint64(0)
             a1 = a2 = a3 = 0
             psign = 0
             zr = 0
@@ -210,23 +205,24 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
                         out = _room(out, st, 512)
                         blk = np.int64(1) << RUN_J[ri]
                         if run >= blk:
-                            _bit(st, out, P, N, tally, cost, R0 + ri, 1)
+                            low, rng, acc = _bit(st, out, P, N, tally, cost, R0 + ri, 1, low, rng, acc)
                             i += blk
                             run -= blk
                             ri = min(ri + 1, NRUN - 1)
                             if i == b:
                                 break
                         elif i + run == b:
-                            _bit(st, out, P, N, tally, cost, R0 + ri, 1)
+                            low, rng, acc = _bit(st, out, P, N, tally, cost, R0 + ri, 1, low, rng, acc)
                             i = b
                             break
                         else:
-                            _bit(st, out, P, N, tally, cost, R0 + ri, 0)
+                            low, rng, acc = _bit(st, out, P, N, tally, cost, R0 + ri, 0, low, rng, acc)
                             for k in range(RUN_J[ri] - 1, -1, -1):
-                                _bypass(st, out, (run >> k) & 1)
+                                low, rng, acc = _bypass(st, out, (run >> k) & 1, low, rng, acc)
                             i += run
                             v = values[i]
-                            psign = _nonzero(st, out, P, N, tally, cost, v, ROWS - 1, psign)
+                            psign, low, rng, acc = _nonzero(st, out, P, N, tally, cost, v, ROWS - 1, psign,
+                                                            low, rng, acc)
                             a3 = 0 if run >= 1 else a2
                             a2 = 0
                             a1 = _mag(v)
@@ -238,101 +234,105 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
                 v = values[i]
                 c = _context(a1, a2, a3)
                 if v == 0:
-                    _bit(st, out, P, N, tally, cost, Z0 + c, 0)
+                    low, rng, acc = _bit(st, out, P, N, tally, cost, Z0 + c, 0, low, rng, acc)
                     zr += 1
                 else:
-                    _bit(st, out, P, N, tally, cost, Z0 + c, 1)
-                    psign = _nonzero(st, out, P, N, tally, cost, v, c, psign)
+                    low, rng, acc = _bit(st, out, P, N, tally, cost, Z0 + c, 1, low, rng, acc)
+                    psign, low, rng, acc = _nonzero(st, out, P, N, tally, cost, v, c, psign, low, rng, acc)
                     zr = 0
                 a3 = a2
                 a2 = a1
                 a1 = _mag(v)
                 i += 1
-            costs[w] = np.int64(st[6])
+            costs[w] = acc
             out = _room(out, st, 16)
-            _seal(st, out)
-            pos = np.int64(st[4])
+            _seal(st, out, low, rng)
+            pos = np.int64(st[2])
             while pos > start and out[pos - 1] == 0:
                 pos -= 1
-            st[4] = np.uint64(pos)
-        ob[w + 1] = np.int64(st[4])
-    return out[:np.int64(st[4])].copy(), ob, costs, P, N
+            st[2] = np.uint64(pos)
+        ob[w + 1] = np.int64(st[2])
+    return out[:np.int64(st[2])].copy(), ob, costs
 
+
+# ---------------------------------------------------------------- decoder helpers
+# ``ds`` (int64[3]): bytes read (counting the implicit leading zero byte), payload start, payload end.
 
 def _next_byte_py(ds, buf):
-    q = np.int64(ds[3]) + np.int64(ds[2]) - 1      # byte 0 is the implicit leading zero
-    ds[2] += np.uint64(1)
-    if q < np.int64(ds[4]):
+    q = ds[1] + ds[0] - 1      # byte 0 is the implicit leading zero
+    ds[0] += 1
+    if q < ds[2]:
         return np.uint64(buf[q])
     return np.uint64(0)
 
 
-def _dnorm_py(ds, buf):
-    while ds[1] < np.uint64(TOP):
-        ds[1] = ds[1] << np.uint64(8)
-        ds[0] = ((ds[0] << np.uint64(8)) | _next_byte(ds, buf)) & np.uint64(0xFFFFFFFF)
-
-
-def _dbit_py(ds, buf, P, N, idx):
+def _dbit_py(ds, buf, P, N, idx, code, rng):
     p = P[idx]
-    bound = (ds[1] >> np.uint64(PROB_BITS)) * np.uint64(p)
+    bound = (rng >> np.uint64(PROB_BITS)) * np.uint64(p)
     n = N[idx]
     s = SHIFT_OF[n]
     if n < COUNT_CAP:
         N[idx] = n + 1
-    if ds[0] < bound:
-        ds[1] = bound
+    if code < bound:
+        rng = bound
         P[idx] = p + ((PROB_ONE - p) >> s)
         bit = 0
     else:
-        ds[0] -= bound
-        ds[1] -= bound
+        code -= bound
+        rng -= bound
         P[idx] = p - (p >> s)
         bit = 1
-    _dnorm(ds, buf)
-    return bit
+    while rng < np.uint64(TOP):
+        rng = rng << np.uint64(8)
+        code = ((code << np.uint64(8)) | _next_byte(ds, buf)) & np.uint64(0xFFFFFFFF)
+    return bit, code, rng
 
 
-def _dbypass_py(ds, buf):
-    ds[1] = ds[1] >> np.uint64(1)
+def _dbypass_py(ds, buf, code, rng):
+    rng = rng >> np.uint64(1)
     bit = 0
-    if ds[0] >= ds[1]:
-        ds[0] -= ds[1]
+    if code >= rng:
+        code -= rng
         bit = 1
-    _dnorm(ds, buf)
-    return bit
+    while rng < np.uint64(TOP):
+        rng = rng << np.uint64(8)
+        code = ((code << np.uint64(8)) | _next_byte(ds, buf)) & np.uint64(0xFFFFFFFF)
+    return bit, code, rng
 
 
-def _dnonzero_py(ds, buf, P, N, row, psign, res):
-    """Inverse of ``_nonzero``: the value in ``res[0]``; returns the sign state, or -1 on an impossible value."""
-    neg = _dbit(ds, buf, P, N, S0 + psign)
+def _dnonzero_py(ds, buf, P, N, row, psign, code, rng):
+    """Inverse of ``_nonzero``: (value, sign state or -1 on an impossible value, code, range)."""
+    neg, code, rng = _dbit(ds, buf, P, N, S0 + psign, code, rng)
     base = E0 + row * NE
     e = 0
-    while e < 63 and _dbit(ds, buf, P, N, base + min(e, NE - 1)) == 1:
+    while e < 63:
+        more, code, rng = _dbit(ds, buf, P, N, base + min(e, NE - 1), code, rng)
+        if more == 0:
+            break
         e += 1
     m = np.uint64(1) << np.uint64(e)
     if e >= 1:
-        b1 = _dbit(ds, buf, P, N, M0 + 3 * e)
+        b1, code, rng = _dbit(ds, buf, P, N, M0 + 3 * e, code, rng)
         m |= np.uint64(b1) << np.uint64(e - 1)
         if e >= 2:
-            b2 = _dbit(ds, buf, P, N, M0 + 3 * e + 1 + b1)
+            b2, code, rng = _dbit(ds, buf, P, N, M0 + 3 * e + 1 + b1, code, rng)
             m |= np.uint64(b2) << np.uint64(e - 2)
             for k in range(e - 3, -1, -1):
-                m |= np.uint64(_dbypass(ds, buf)) << np.uint64(k)
+                bb, code, rng = _dbypass(ds, buf, code, rng)
+                m |= np.uint64(bb) << np.uint64(k)
     if e == 63 and (neg == 0 or m != (np.uint64(1) << np.uint64(63))):
-        return -1
-    res[0] = np.int64(np.uint64(0) - m) if neg else np.int64(m)
-    return 2 if neg else 1
+        return np.int64(0), -1, code, rng
+    v = np.int64(np.uint64(0) - m) if neg else np.int64(m)
+    return v, (2 if neg else 1), code, rng
 
 
 def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
     """Decode window ``w`` (bytes ``buf[starts[w]:ends[w]]``) into ``values[bounds[w]:bounds[w+1]]``;
     returns (first bad window or -1, error code)."""
     nw = bounds.shape[0] - 1
-    ds = np.zeros(5, np.uint64)
+    ds = np.zeros(3, np.int64)
     P = P0.copy()
     N = N0.copy()
-    res = np.zeros(1, np.int64)
     for w in range(nw):
         a, b = bounds[w], bounds[w + 1]
         if b == a:
@@ -343,14 +343,14 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
             return w, ERR_TRAILING
         P[:] = P0
         N[:] = N0
-        ds[1] = np.uint64(0xFFFFFFFF)
-        ds[2] = np.uint64(1)
-        ds[3] = np.uint64(starts[w])
-        ds[4] = np.uint64(ends[w])
-        ds[0] = np.uint64(0)
+        rng = np.uint64(0xFFFFFFFF)
+        ds[0] = 1
+        ds[1] = starts[w]
+        ds[2] = ends[w]
+        code = np.uint64(0)
         for _ in range(4):
-            ds[0] = (ds[0] << np.uint64(8)) | _next_byte(ds, buf)
-        if ds[0] >= ds[1]:
+            code = (code << np.uint64(8)) | _next_byte(ds, buf)
+        if code >= rng:
             return w, ERR_RANGE
         a1 = a2 = a3 = 0
         psign = 0
@@ -361,10 +361,10 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
             if zr >= RUN_ENTER:
                 while True:
                     blk = np.int64(1) << RUN_J[ri]
-                    if _dbit(ds, buf, P, N, R0 + ri) == 1:
+                    whole, code, rng = _dbit(ds, buf, P, N, R0 + ri, code, rng)
+                    if whole == 1:
                         take = min(blk, b - i)
-                        for k in range(take):
-                            values[i + k] = 0
+                        values[i:i + take] = 0
                         i += take
                         if take == blk:
                             ri = min(ri + 1, NRUN - 1)
@@ -373,48 +373,47 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
                     else:
                         run = 0
                         for k in range(RUN_J[ri]):
-                            run = (run << 1) | _dbypass(ds, buf)
+                            bb, code, rng = _dbypass(ds, buf, code, rng)
+                            run = (run << 1) | bb
                         if i + run >= b:
                             return w, ERR_RANGE
-                        for k in range(run):
-                            values[i + k] = 0
+                        values[i:i + run] = 0
                         i += run
-                        psign = _dnonzero(ds, buf, P, N, ROWS - 1, psign, res)
+                        v, psign, code, rng = _dnonzero(ds, buf, P, N, ROWS - 1, psign, code, rng)
                         if psign < 0:
                             return w, ERR_EXPONENT
-                        values[i] = res[0]
+                        values[i] = v
                         a3 = 0 if run >= 1 else a2
                         a2 = 0
-                        a1 = _mag(res[0])
+                        a1 = _mag(v)
                         ri = max(ri - 1, 0)
                         zr = 0
                         i += 1
                         break
                 continue
             c = _context(a1, a2, a3)
-            if _dbit(ds, buf, P, N, Z0 + c) == 0:
-                v = 0
+            nz, code, rng = _dbit(ds, buf, P, N, Z0 + c, code, rng)
+            if nz == 0:
+                v = np.int64(0)
                 zr += 1
             else:
-                psign = _dnonzero(ds, buf, P, N, c, psign, res)
+                v, psign, code, rng = _dnonzero(ds, buf, P, N, c, psign, code, rng)
                 if psign < 0:
                     return w, ERR_EXPONENT
-                v = res[0]
                 zr = 0
             values[i] = v
             a3 = a2
             a2 = a1
             a1 = _mag(v)
             i += 1
-        if np.int64(ds[2]) - 1 < ends[w] - starts[w]:   # bytes the code never reached
+        if ds[0] - 1 < ends[w] - starts[w]:   # bytes the code never reached
             return w, ERR_TRAILING
     return -1, ERR_NONE
 
 
-# the kernels' helpers, compiled and rebound by compiled()
-_emit, _shift_low, _normalize, _bit, _bypass, _room, _nonzero, _seal = (
-    _emit_py, _shift_low_py, _normalize_py, _bit_py, _bypass_py, _room_py, _nonzero_py, _seal_py)
-_next_byte, _dnorm, _dbit, _dbypass, _dnonzero = _next_byte_py, _dnorm_py, _dbit_py, _dbypass_py, _dnonzero_py
+# the kernels' helpers, compiled and rebound by adaptive._compile()
+_shift_low, _bit, _bypass, _room, _nonzero, _seal = _shift_low_py, _bit_py, _bypass_py, _room_py, _nonzero_py, _seal_py
+_next_byte, _dbit, _dbypass, _dnonzero = _next_byte_py, _dbit_py, _dbypass_py, _dnonzero_py
 _mag, _context = _mag_py, _context_py
-_HELPERS = ("_mag", "_context", "_emit", "_shift_low", "_normalize", "_bit", "_bypass", "_room", "_nonzero", "_seal",
-            "_next_byte", "_dnorm", "_dbit", "_dbypass", "_dnonzero")
+_HELPERS = ("_mag", "_context", "_shift_low", "_bit", "_bypass", "_room", "_nonzero", "_seal",
+            "_next_byte", "_dbit", "_dbypass", "_dnonzero")

@@ -151,7 +151,7 @@ class AdaptiveCoder:
             costs = np.array([8 * len(p) << 16 for p in parts], np.int64)
             return np.frombuffer(b"".join(parts), np.uint8), ob, costs
         tally = np.zeros((K.NMODELS, 2), np.int64)
-        buf, ob, costs, _, _ = kern[0](values, bounds, p0, n0, _cost(), tally)
+        buf, ob, costs = kern[0](values, bounds, p0, n0, _cost(), tally)
         return buf, ob, costs
 
     def encode_many(self, windows) -> list[bytes]:
