@@ -44,106 +44,29 @@ def cost_table() -> np.ndarray:
     return (PROB_BITS << fixedlog.FRAC) - fixedlog.log2q(p)
 
 
-# ---------------------------------------------------------------- encoder helpers (compiled by _compile)
-# The interval (low, range) and the ideal cost travel as locals through return values: numba keeps
-# them in registers (a state array costs a memory round trip per bit, 8x slower).  Only the byte
-# output (cache, pending count, position, skip flag) lives in ``st``.
+# ---------------------------------------------------------------- kernels
+# The binary coding steps are inner functions of each kernel: numba inlines those at compile time,
+# while a call to a separately compiled function that takes arrays costs about five times the bit
+# itself.  The interval (low, range or code, range) and the ideal cost travel as locals; the byte
+# output state lives in a small array.
 
-def _shift_low_py(st, out, low):
-    """LZMA's ShiftLow: settle the top byte of ``low`` (and any pending 0xFF bytes); returns the new low."""
-    if low < np.uint64(0xFF000000) or low >= (np.uint64(1) << np.uint64(32)):
-        carry = low >> np.uint64(32)
-        temp = st[0]
-        while True:
-            if st[3] != np.uint64(0):
-                st[3] = np.uint64(0)          # the leading byte is always zero: it is not stored
-            else:
-                out[np.int64(st[2])] = np.uint8((temp + carry) & np.uint64(0xFF))
-                st[2] += np.uint64(1)
-            temp = np.uint64(0xFF)
-            st[1] -= np.uint64(1)
-            if st[1] == np.uint64(0):
-                break
-        st[0] = (low >> np.uint64(24)) & np.uint64(0xFF)
-    st[1] += np.uint64(1)
-    return (low & np.uint64(0x00FFFFFF)) << np.uint64(8)
-
-
-def _bit_py(st, out, P, N, tally, cost, idx, bit, low, rng, acc):
-    p = P[idx]
-    bound = (rng >> np.uint64(PROB_BITS)) * np.uint64(p)
-    n = N[idx]
-    s = SHIFT_OF[n]
-    if n < COUNT_CAP:
-        N[idx] = n + 1
-    if bit == 0:
-        rng = bound
-        acc += cost[p]
-        P[idx] = p + ((PROB_ONE - p) >> s)
-    else:
-        low += bound
-        rng -= bound
-        acc += cost[PROB_ONE - p]
-        P[idx] = p - (p >> s)
-    tally[idx, bit] += 1
-    while rng < np.uint64(TOP):
-        rng = rng << np.uint64(8)
-        low = _shift_low(st, out, low)
-    return low, rng, acc
-
-
-def _bypass_py(st, out, bit, low, rng, acc):
-    rng = rng >> np.uint64(1)
-    if bit:
-        low += rng
-    while rng < np.uint64(TOP):
-        rng = rng << np.uint64(8)
-        low = _shift_low(st, out, low)
-    return low, rng, acc + (1 << 16)
-
-
-def _room_py(out, st, need):
-    pos = np.int64(st[2]) + np.int64(st[1]) + need
-    if pos <= out.shape[0]:
+def _grow(out, used, need):
+    """``out`` with room for ``need`` more bytes after ``used`` (a doubled copy when short)."""
+    if used + need <= out.shape[0]:
         return out
-    bigger = np.empty(out.shape[0] * 2 + pos, np.uint8)
-    bigger[:np.int64(st[2])] = out[:np.int64(st[2])]
+    bigger = np.empty(out.shape[0] * 2 + need, np.uint8)
+    bigger[:used] = out[:used]
     return bigger
 
 
-def _nonzero_py(st, out, P, N, tally, cost, v, row, psign, low, rng, acc):
-    """Sign, exponent (unary, adaptive bins), two adaptive mantissa bits, the rest bypass;
-    returns (sign state, low, range, cost)."""
-    neg = 1 if v < 0 else 0
-    low, rng, acc = _bit(st, out, P, N, tally, cost, S0 + psign, neg, low, rng, acc)
-    m = np.uint64(0) - np.uint64(v) if neg else np.uint64(v)
-    e = 0
-    while e < 63 and (m >> np.uint64(e + 1)) != np.uint64(0):
-        e += 1
-    base = E0 + row * NE
-    for j in range(e):
-        low, rng, acc = _bit(st, out, P, N, tally, cost, base + min(j, NE - 1), 1, low, rng, acc)
-    if e < 63:
-        low, rng, acc = _bit(st, out, P, N, tally, cost, base + min(e, NE - 1), 0, low, rng, acc)
-    if e >= 1:
-        b1 = np.int64((m >> np.uint64(e - 1)) & np.uint64(1))
-        low, rng, acc = _bit(st, out, P, N, tally, cost, M0 + 3 * e, b1, low, rng, acc)
-        if e >= 2:
-            b2 = np.int64((m >> np.uint64(e - 2)) & np.uint64(1))
-            low, rng, acc = _bit(st, out, P, N, tally, cost, M0 + 3 * e + 1 + b1, b2, low, rng, acc)
-            for k in range(e - 3, -1, -1):
-                low, rng, acc = _bypass(st, out, np.int64((m >> np.uint64(k)) & np.uint64(1)), low, rng, acc)
-    return (2 if neg else 1), low, rng, acc
-
-
-def _mag_py(v):
+def _mag(v):
     a = -v if v < 0 else v
     if a < 0 or a > ACT_CAP:           # -2**63 stays negative
         return ACT_CAP
     return a
 
 
-def _context_py(a1, a2, a3):
+def _context(a1, a2, a3):
     s = 2 * a1 + a2 + a3
     c = 0
     while s != 0 and c < NC - 1:
@@ -152,25 +75,10 @@ def _context_py(a1, a2, a3):
     return c
 
 
-def _seal_py(st, out, low, rng):
-    """Pick the point of [low, low + range) with the most trailing zero bits and write it out."""
-    hi = low + rng
-    for k in range(32, -1, -1):
-        mask = (np.uint64(1) << np.uint64(k)) - np.uint64(1)
-        v = (low + mask) & ~mask
-        if v < hi:
-            low = v
-            break
-    for _ in range(5):
-        low = _shift_low(st, out, low)
-
-
-# ---------------------------------------------------------------- kernels
-
 def _encode_kernel(values, bounds, P0, N0, cost, tally):
     """Code windows ``values[bounds[w]:bounds[w+1]]``; returns (bytes, byte bounds, cost units per window).
 
-    ``st`` (uint64[4]): cache byte, cache size, write position, "skip the next byte" flag."""
+    ``st`` (uint64[4]): cache byte, pending bytes, write position, "skip the next byte" flag."""
     nw = bounds.shape[0] - 1
     out = np.empty(max(1024, values.shape[0] // 2 + 1024), np.uint8)
     ob = np.zeros(nw + 1, np.int64)
@@ -178,6 +86,79 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
     st = np.zeros(4, np.uint64)
     P = P0.copy()
     N = N0.copy()
+
+    def shift_low(out, low):           # LZMA's ShiftLow: settle the top byte of low and any pending 0xFF bytes
+        if low < np.uint64(0xFF000000) or low >= (np.uint64(1) << np.uint64(32)):
+            carry = low >> np.uint64(32)
+            temp = st[0]
+            while True:
+                if st[3] != np.uint64(0):
+                    st[3] = np.uint64(0)          # the leading byte is always zero: it is not stored
+                else:
+                    out[np.int64(st[2])] = np.uint8((temp + carry) & np.uint64(0xFF))
+                    st[2] += np.uint64(1)
+                temp = np.uint64(0xFF)
+                st[1] -= np.uint64(1)
+                if st[1] == np.uint64(0):
+                    break
+            st[0] = (low >> np.uint64(24)) & np.uint64(0xFF)
+        st[1] += np.uint64(1)
+        return (low & np.uint64(0x00FFFFFF)) << np.uint64(8)
+
+    def bit(out, idx, b, low, rng, acc):
+        p = P[idx]
+        bound = (rng >> np.uint64(PROB_BITS)) * np.uint64(p)
+        n = N[idx]
+        s = SHIFT_OF[n]
+        if n < COUNT_CAP:
+            N[idx] = n + 1
+        if b == 0:
+            rng = bound
+            acc += cost[p]
+            P[idx] = p + ((PROB_ONE - p) >> s)
+        else:
+            low += bound
+            rng -= bound
+            acc += cost[PROB_ONE - p]
+            P[idx] = p - (p >> s)
+        tally[idx, b] += 1
+        while rng < np.uint64(TOP):
+            rng = rng << np.uint64(8)
+            low = shift_low(out, low)
+        return low, rng, acc
+
+    def bypass(out, b, low, rng, acc):
+        rng = rng >> np.uint64(1)
+        if b:
+            low += rng
+        while rng < np.uint64(TOP):
+            rng = rng << np.uint64(8)
+            low = shift_low(out, low)
+        return low, rng, acc + (1 << 16)
+
+    def nonzero(out, v, row, psign, low, rng, acc):
+        """Sign, exponent (unary, adaptive bins), two adaptive mantissa bits, the rest bypass."""
+        neg = 1 if v < 0 else 0
+        low, rng, acc = bit(out, S0 + psign, neg, low, rng, acc)
+        m = np.uint64(0) - np.uint64(v) if neg else np.uint64(v)
+        e = 0
+        while e < 63 and (m >> np.uint64(e + 1)) != np.uint64(0):
+            e += 1
+        base = E0 + row * NE
+        for j in range(e):
+            low, rng, acc = bit(out, base + min(j, NE - 1), 1, low, rng, acc)
+        if e < 63:
+            low, rng, acc = bit(out, base + min(e, NE - 1), 0, low, rng, acc)
+        if e >= 1:
+            b1 = np.int64((m >> np.uint64(e - 1)) & np.uint64(1))
+            low, rng, acc = bit(out, M0 + 3 * e, b1, low, rng, acc)
+            if e >= 2:
+                b2 = np.int64((m >> np.uint64(e - 2)) & np.uint64(1))
+                low, rng, acc = bit(out, M0 + 3 * e + 1 + b1, b2, low, rng, acc)
+                for k in range(e - 3, -1, -1):
+                    low, rng, acc = bypass(out, np.int64((m >> np.uint64(k)) & np.uint64(1)), low, rng, acc)
+        return (2 if neg else 1), low, rng, acc
+
     for w in range(nw):
         a, b = bounds[w], bounds[w + 1]
         start = np.int64(st[2])
@@ -196,33 +177,32 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
             ri = 0
             i = a
             while i < b:
-                out = _room(out, st, 512)
-                if zr >= RUN_ENTER:
+                out = _grow(out, np.int64(st[2] + st[1]), 512)
+                if zr >= RUN_ENTER:                                  # run mode
                     run = 0
                     while i + run < b and values[i + run] == 0:
                         run += 1
                     while True:
-                        out = _room(out, st, 512)
+                        out = _grow(out, np.int64(st[2] + st[1]), 512)
                         blk = np.int64(1) << RUN_J[ri]
                         if run >= blk:
-                            low, rng, acc = _bit(st, out, P, N, tally, cost, R0 + ri, 1, low, rng, acc)
+                            low, rng, acc = bit(out, R0 + ri, 1, low, rng, acc)
                             i += blk
                             run -= blk
                             ri = min(ri + 1, NRUN - 1)
                             if i == b:
                                 break
                         elif i + run == b:
-                            low, rng, acc = _bit(st, out, P, N, tally, cost, R0 + ri, 1, low, rng, acc)
+                            low, rng, acc = bit(out, R0 + ri, 1, low, rng, acc)
                             i = b
                             break
                         else:
-                            low, rng, acc = _bit(st, out, P, N, tally, cost, R0 + ri, 0, low, rng, acc)
+                            low, rng, acc = bit(out, R0 + ri, 0, low, rng, acc)
                             for k in range(RUN_J[ri] - 1, -1, -1):
-                                low, rng, acc = _bypass(st, out, (run >> k) & 1, low, rng, acc)
+                                low, rng, acc = bypass(out, (run >> k) & 1, low, rng, acc)
                             i += run
                             v = values[i]
-                            psign, low, rng, acc = _nonzero(st, out, P, N, tally, cost, v, ROWS - 1, psign,
-                                                            low, rng, acc)
+                            psign, low, rng, acc = nonzero(out, v, ROWS - 1, psign, low, rng, acc)
                             a3 = 0 if run >= 1 else a2
                             a2 = 0
                             a1 = _mag(v)
@@ -234,19 +214,27 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
                 v = values[i]
                 c = _context(a1, a2, a3)
                 if v == 0:
-                    low, rng, acc = _bit(st, out, P, N, tally, cost, Z0 + c, 0, low, rng, acc)
+                    low, rng, acc = bit(out, Z0 + c, 0, low, rng, acc)
                     zr += 1
                 else:
-                    low, rng, acc = _bit(st, out, P, N, tally, cost, Z0 + c, 1, low, rng, acc)
-                    psign, low, rng, acc = _nonzero(st, out, P, N, tally, cost, v, c, psign, low, rng, acc)
+                    low, rng, acc = bit(out, Z0 + c, 1, low, rng, acc)
+                    psign, low, rng, acc = nonzero(out, v, c, psign, low, rng, acc)
                     zr = 0
                 a3 = a2
                 a2 = a1
                 a1 = _mag(v)
                 i += 1
             costs[w] = acc
-            out = _room(out, st, 16)
-            _seal(st, out, low, rng)
+            out = _grow(out, np.int64(st[2] + st[1]), 16)
+            hi = low + rng                   # the point of [low, low + range) with the most trailing zero bits
+            for k in range(32, -1, -1):
+                mask = (np.uint64(1) << np.uint64(k)) - np.uint64(1)
+                pt = (low + mask) & ~mask
+                if pt < hi:
+                    low = pt
+                    break
+            for _ in range(5):
+                low = shift_low(out, low)
             pos = np.int64(st[2])
             while pos > start and out[pos - 1] == 0:
                 pos -= 1
@@ -255,84 +243,80 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
     return out[:np.int64(st[2])].copy(), ob, costs
 
 
-# ---------------------------------------------------------------- decoder helpers
-# ``ds`` (int64[3]): bytes read (counting the implicit leading zero byte), payload start, payload end.
-
-def _next_byte_py(ds, buf):
-    q = ds[1] + ds[0] - 1      # byte 0 is the implicit leading zero
-    ds[0] += 1
-    if q < ds[2]:
-        return np.uint64(buf[q])
-    return np.uint64(0)
-
-
-def _dbit_py(ds, buf, P, N, idx, code, rng):
-    p = P[idx]
-    bound = (rng >> np.uint64(PROB_BITS)) * np.uint64(p)
-    n = N[idx]
-    s = SHIFT_OF[n]
-    if n < COUNT_CAP:
-        N[idx] = n + 1
-    if code < bound:
-        rng = bound
-        P[idx] = p + ((PROB_ONE - p) >> s)
-        bit = 0
-    else:
-        code -= bound
-        rng -= bound
-        P[idx] = p - (p >> s)
-        bit = 1
-    while rng < np.uint64(TOP):
-        rng = rng << np.uint64(8)
-        code = ((code << np.uint64(8)) | _next_byte(ds, buf)) & np.uint64(0xFFFFFFFF)
-    return bit, code, rng
-
-
-def _dbypass_py(ds, buf, code, rng):
-    rng = rng >> np.uint64(1)
-    bit = 0
-    if code >= rng:
-        code -= rng
-        bit = 1
-    while rng < np.uint64(TOP):
-        rng = rng << np.uint64(8)
-        code = ((code << np.uint64(8)) | _next_byte(ds, buf)) & np.uint64(0xFFFFFFFF)
-    return bit, code, rng
-
-
-def _dnonzero_py(ds, buf, P, N, row, psign, code, rng):
-    """Inverse of ``_nonzero``: (value, sign state or -1 on an impossible value, code, range)."""
-    neg, code, rng = _dbit(ds, buf, P, N, S0 + psign, code, rng)
-    base = E0 + row * NE
-    e = 0
-    while e < 63:
-        more, code, rng = _dbit(ds, buf, P, N, base + min(e, NE - 1), code, rng)
-        if more == 0:
-            break
-        e += 1
-    m = np.uint64(1) << np.uint64(e)
-    if e >= 1:
-        b1, code, rng = _dbit(ds, buf, P, N, M0 + 3 * e, code, rng)
-        m |= np.uint64(b1) << np.uint64(e - 1)
-        if e >= 2:
-            b2, code, rng = _dbit(ds, buf, P, N, M0 + 3 * e + 1 + b1, code, rng)
-            m |= np.uint64(b2) << np.uint64(e - 2)
-            for k in range(e - 3, -1, -1):
-                bb, code, rng = _dbypass(ds, buf, code, rng)
-                m |= np.uint64(bb) << np.uint64(k)
-    if e == 63 and (neg == 0 or m != (np.uint64(1) << np.uint64(63))):
-        return np.int64(0), -1, code, rng
-    v = np.int64(np.uint64(0) - m) if neg else np.int64(m)
-    return v, (2 if neg else 1), code, rng
-
-
 def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
     """Decode window ``w`` (bytes ``buf[starts[w]:ends[w]]``) into ``values[bounds[w]:bounds[w+1]]``;
-    returns (first bad window or -1, error code)."""
+    returns (first bad window or -1, error code).
+
+    ``ds`` (int64[3]): bytes read (counting the implicit leading zero byte), payload start, payload end."""
     nw = bounds.shape[0] - 1
     ds = np.zeros(3, np.int64)
     P = P0.copy()
     N = N0.copy()
+
+    def next_byte():
+        q = ds[1] + ds[0] - 1      # byte 0 is the implicit leading zero
+        ds[0] += 1
+        if q < ds[2]:
+            return np.uint64(buf[q])
+        return np.uint64(0)
+
+    def bit(idx, code, rng):
+        p = P[idx]
+        bound = (rng >> np.uint64(PROB_BITS)) * np.uint64(p)
+        n = N[idx]
+        s = SHIFT_OF[n]
+        if n < COUNT_CAP:
+            N[idx] = n + 1
+        if code < bound:
+            rng = bound
+            P[idx] = p + ((PROB_ONE - p) >> s)
+            b = 0
+        else:
+            code -= bound
+            rng -= bound
+            P[idx] = p - (p >> s)
+            b = 1
+        while rng < np.uint64(TOP):
+            rng = rng << np.uint64(8)
+            code = ((code << np.uint64(8)) | next_byte()) & np.uint64(0xFFFFFFFF)
+        return b, code, rng
+
+    def bypass(code, rng):
+        rng = rng >> np.uint64(1)
+        b = 0
+        if code >= rng:
+            code -= rng
+            b = 1
+        while rng < np.uint64(TOP):
+            rng = rng << np.uint64(8)
+            code = ((code << np.uint64(8)) | next_byte()) & np.uint64(0xFFFFFFFF)
+        return b, code, rng
+
+    def nonzero(row, psign, code, rng):
+        """(value, sign state or -1 on an impossible value, code, range)."""
+        neg, code, rng = bit(S0 + psign, code, rng)
+        base = E0 + row * NE
+        e = 0
+        while e < 63:
+            more, code, rng = bit(base + min(e, NE - 1), code, rng)
+            if more == 0:
+                break
+            e += 1
+        m = np.uint64(1) << np.uint64(e)
+        if e >= 1:
+            b1, code, rng = bit(M0 + 3 * e, code, rng)
+            m |= np.uint64(b1) << np.uint64(e - 1)
+            if e >= 2:
+                b2, code, rng = bit(M0 + 3 * e + 1 + b1, code, rng)
+                m |= np.uint64(b2) << np.uint64(e - 2)
+                for k in range(e - 3, -1, -1):
+                    bb, code, rng = bypass(code, rng)
+                    m |= np.uint64(bb) << np.uint64(k)
+        if e == 63 and (neg == 0 or m != (np.uint64(1) << np.uint64(63))):
+            return np.int64(0), -1, code, rng
+        v = np.int64(np.uint64(0) - m) if neg else np.int64(m)
+        return v, (2 if neg else 1), code, rng
+
     for w in range(nw):
         a, b = bounds[w], bounds[w + 1]
         if b == a:
@@ -349,7 +333,7 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
         ds[2] = ends[w]
         code = np.uint64(0)
         for _ in range(4):
-            code = (code << np.uint64(8)) | _next_byte(ds, buf)
+            code = (code << np.uint64(8)) | next_byte()
         if code >= rng:
             return w, ERR_RANGE
         a1 = a2 = a3 = 0
@@ -358,10 +342,10 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
         ri = 0
         i = a
         while i < b:
-            if zr >= RUN_ENTER:
+            if zr >= RUN_ENTER:                                      # run mode
                 while True:
                     blk = np.int64(1) << RUN_J[ri]
-                    whole, code, rng = _dbit(ds, buf, P, N, R0 + ri, code, rng)
+                    whole, code, rng = bit(R0 + ri, code, rng)
                     if whole == 1:
                         take = min(blk, b - i)
                         values[i:i + take] = 0
@@ -373,13 +357,13 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
                     else:
                         run = 0
                         for k in range(RUN_J[ri]):
-                            bb, code, rng = _dbypass(ds, buf, code, rng)
+                            bb, code, rng = bypass(code, rng)
                             run = (run << 1) | bb
                         if i + run >= b:
                             return w, ERR_RANGE
                         values[i:i + run] = 0
                         i += run
-                        v, psign, code, rng = _dnonzero(ds, buf, P, N, ROWS - 1, psign, code, rng)
+                        v, psign, code, rng = nonzero(ROWS - 1, psign, code, rng)
                         if psign < 0:
                             return w, ERR_EXPONENT
                         values[i] = v
@@ -392,12 +376,12 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
                         break
                 continue
             c = _context(a1, a2, a3)
-            nz, code, rng = _dbit(ds, buf, P, N, Z0 + c, code, rng)
+            nz, code, rng = bit(Z0 + c, code, rng)
             if nz == 0:
                 v = np.int64(0)
                 zr += 1
             else:
-                v, psign, code, rng = _dnonzero(ds, buf, P, N, c, psign, code, rng)
+                v, psign, code, rng = nonzero(c, psign, code, rng)
                 if psign < 0:
                     return w, ERR_EXPONENT
                 zr = 0
@@ -411,9 +395,4 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
     return -1, ERR_NONE
 
 
-# the kernels' helpers, compiled and rebound by adaptive._compile()
-_shift_low, _bit, _bypass, _room, _nonzero, _seal = _shift_low_py, _bit_py, _bypass_py, _room_py, _nonzero_py, _seal_py
-_next_byte, _dbit, _dbypass, _dnonzero = _next_byte_py, _dbit_py, _dbypass_py, _dnonzero_py
-_mag, _context = _mag_py, _context_py
-_HELPERS = ("_mag", "_context", "_shift_low", "_bit", "_bypass", "_room", "_nonzero", "_seal",
-            "_next_byte", "_dbit", "_dbypass", "_dnonzero")
+_HELPERS = ("_grow", "_mag", "_context")     # compiled and rebound by adaptive._compile() before the kernels

@@ -94,9 +94,12 @@ def _kernels():
         return _compile(njit, cache=False)
 
 
+_PLAIN = {name: getattr(K, name) for name in K._HELPERS}
+
+
 def _compile(njit, cache: bool):
-    for name in K._HELPERS:                  # the kernels call these globals: compiled ones first
-        setattr(K, name, njit(cache=cache, nogil=True)(getattr(K, name + "_py")))
+    for name, fn in _PLAIN.items():          # the kernels call these globals: compiled ones first
+        setattr(K, name, njit(cache=cache, nogil=True)(fn))
     return njit(cache=cache, nogil=True)(K._encode_kernel), njit(cache=cache, nogil=True)(K._decode_kernel)
 
 
