@@ -25,7 +25,7 @@ are read back.  On those streams, in bits per sample over all channels:
 ``frame``       today's bytes per window row besides the payload (the residual column's framing
                 and every other column of ``windows.parquet``); ``term`` = the adaptive coder's
                 bits per window above its ideal code length (termination)
-``win``         the smallest payload of today / adaptive / fitted(+init) / +ltp / classic, and
+``win``         the smallest payload of today(+tables) / adaptive / fitted(+init) / +ltp / classic, and
                 ``best / win`` its ratio to the best classic (> 1: the lever beats the classic coder
                 on payload alone, before the archive's fixed bytes)
 """
@@ -82,8 +82,8 @@ class StudyRow:
 
     @property
     def candidates(self) -> dict[str, float]:
-        """Payload bytes of each lever (the fitted coder with its initial state)."""
-        return {"today": self.today, "adaptive": self.adaptive, "fitted": self.fitted + self.init,
+        """Payload bytes of each lever with what it stores per channel (today's tables, the fitted state)."""
+        return {"today": self.today + self.tables, "adaptive": self.adaptive, "fitted": self.fitted + self.init,
                 "+ltp": self.ltp_bits / 8, "classic": self.classic}
 
     @property

@@ -16,7 +16,7 @@ PROB_ONE = 1 << PROB_BITS
 TOP = 1 << 24
 MAX_SHIFT = 7
 COUNT_CAP = (1 << MAX_SHIFT) - 1
-NC = 20                      # regular contexts: min(bit_length(2|r1| + |r2| + |r3|), NC - 1)
+NC = 20                      # regular contexts: min(bit_length(4|r1| + 2|r2| + |r3|), NC - 1)
 NE = 24                      # adaptive exponent bins per context row (bin j >= NE - 1 shares the last)
 ROWS = NC + 1                # the last exponent row codes the sample that ends a zero run
 NRUN = 32                    # run-mode states (JPEG-LS's RUNindex)
@@ -27,7 +27,8 @@ E0 = Z0 + NC
 S0 = E0 + ROWS * NE
 M0 = S0 + 3
 R0 = M0 + 64 * 3
-NMODELS = R0 + NRUN
+L0 = R0 + NRUN                # a zero run's remainder: its top two bits per J
+NMODELS = L0 + 3 * 16
 # JPEG-LS run-length order table J (ITU-T T.87 | ISO/IEC 14495-1, A.7.1.2)
 RUN_J = np.array([0, 0, 0, 0, 1, 1, 1, 1, 2, 2, 2, 2, 3, 3, 3, 3,
                   4, 4, 5, 5, 6, 6, 7, 7, 8, 9, 10, 11, 12, 13, 14, 15], dtype=np.int64)
@@ -67,7 +68,7 @@ def _mag(v):
 
 
 def _context(a1, a2, a3):
-    s = 2 * a1 + a2 + a3
+    s = 4 * a1 + 2 * a2 + a3
     c = 0
     while s != 0 and c < NC - 1:
         s >>= 1
@@ -198,8 +199,17 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
                             break
                         else:
                             low, rng, acc = bit(out, R0 + ri, 0, low, rng, acc)
-                            for k in range(RUN_J[ri] - 1, -1, -1):
-                                low, rng, acc = bypass(out, (run >> k) & 1, low, rng, acc)
+                            J = RUN_J[ri]
+                            top = 0
+                            for k in range(J - 1, -1, -1):               # the remainder, top bits adaptive
+                                bk = (run >> k) & 1
+                                if k == J - 1:
+                                    low, rng, acc = bit(out, L0 + 3 * J, bk, low, rng, acc)
+                                    top = bk
+                                elif k == J - 2:
+                                    low, rng, acc = bit(out, L0 + 3 * J + 1 + top, bk, low, rng, acc)
+                                else:
+                                    low, rng, acc = bypass(out, bk, low, rng, acc)
                             i += run
                             v = values[i]
                             psign, low, rng, acc = nonzero(out, v, ROWS - 1, psign, low, rng, acc)
@@ -355,9 +365,17 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
                         if i == b:
                             break
                     else:
+                        J = RUN_J[ri]
                         run = 0
-                        for k in range(RUN_J[ri]):
-                            bb, code, rng = bypass(code, rng)
+                        top = 0
+                        for k in range(J - 1, -1, -1):
+                            if k == J - 1:
+                                bb, code, rng = bit(L0 + 3 * J, code, rng)
+                                top = bb
+                            elif k == J - 2:
+                                bb, code, rng = bit(L0 + 3 * J + 1 + top, code, rng)
+                            else:
+                                bb, code, rng = bypass(code, rng)
                             run = (run << 1) | bb
                         if i + run >= b:
                             return w, ERR_RANGE

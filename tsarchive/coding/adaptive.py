@@ -5,7 +5,7 @@ from the coder's initial state), so any window decodes without the others.
 
 Binarisation (per value ``v``, in order):
 
-* a **zero flag** under one of 20 contexts ``min(bit_length(2|r1| + |r2| + |r3|), 19)``
+* a **zero flag** under one of 20 contexts ``min(bit_length(4|r1| + 2|r2| + |r3|), 19)``
   from the previous three residuals of the window (``|r|`` capped at 2**40) --
   the local-activity context of LOCO-I / JPEG-LS (Weinberger, Seroussi, Sapiro,
   IEEE Trans. Image Processing 9(8), 2000) reduced to a magnitude sum;
@@ -17,7 +17,8 @@ Binarisation (per value ``v``, in order):
   CABAC (ITU-T H.264 9.3.2.3, UEGk) with adaptive prefix bins;
 * a **run mode** after two zero residuals in a row: a flag per block of
   ``2**J[k]`` zeros (1 = a whole block, or the zeros up to the window's end;
-  0 = the run stops, then its remaining length in ``J[k]`` bypass bits and the
+  0 = the run stops, then its remaining length in ``J[k]`` bits, the top two
+  adaptive per ``J``, and the
   nonzero value that ends it under its own exponent row), with ``k`` moving
   up after each whole block and down after each stop: JPEG-LS run mode
   (ITU-T T.87, A.7) with its table J, the flags adaptive.
@@ -74,7 +75,7 @@ from tsarchive.errors import ArchiveCorrupt, BadInput
 from . import _adaptive_kernel as K
 from . import adaptive_ref
 
-MAX_N = (1 << 31) - 1
+MAX_N = 1 << 24           # longest window (values) the coder takes: a garbled length cannot allocate more
 INIT_COUNT = 7          # a fitted initial probability weighs like 7 observations (first shift 3)
 _ERRORS = {K.ERR_RANGE: "a code or a zero run is impossible",
            K.ERR_EXPONENT: "a value is beyond 64 bits",
@@ -110,7 +111,7 @@ def _cost() -> np.ndarray:
 
 def _as_windows(windows) -> tuple[np.ndarray, np.ndarray]:
     """Windows (a 2-D array or a sequence of 1-D arrays) -> (flat int64 values, bounds)."""
-    if isinstance(windows, np.ndarray) and windows.ndim == 2:
+    if isinstance(windows, np.ndarray) and windows.ndim == 2 and windows.shape[1] <= MAX_N:
         n = windows.shape[1]
         return np.ascontiguousarray(windows, np.int64).ravel(), np.arange(len(windows) + 1, dtype=np.int64) * n
     parts = [np.asarray(w) for w in windows]
@@ -119,6 +120,8 @@ def _as_windows(windows) -> tuple[np.ndarray, np.ndarray]:
             raise BadInput("the adaptive coder codes 1-D integer windows; convert the values to int64 first")
         if p.dtype == np.uint64 and p.size and int(p.max()) > np.iinfo(np.int64).max:
             raise BadInput("the adaptive coder codes int64 values; a uint64 value exceeds 2**63 - 1")
+    if any(len(p) > MAX_N for p in parts):
+        raise BadInput(f"the adaptive coder takes windows of at most {MAX_N} values; split longer ones")
     bounds = np.zeros(len(parts) + 1, np.int64)
     bounds[1:] = np.cumsum([len(p) for p in parts])
     flat = np.concatenate([p.astype(np.int64) for p in parts]) if parts else np.zeros(0, np.int64)

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from tsarchive.errors import ArchiveCorrupt
 
-from ._adaptive_kernel import (ACT_CAP, COUNT_CAP, E0, M0, NC, NE, NRUN, PROB_BITS, PROB_ONE, R0, ROWS,
+from ._adaptive_kernel import (ACT_CAP, COUNT_CAP, E0, L0, M0, NC, NE, NRUN, PROB_BITS, PROB_ONE, R0, ROWS,
                                RUN_ENTER, RUN_J, S0, SHIFT_OF, TOP, Z0)
 
 _M32 = 0xFFFFFFFF
@@ -135,7 +135,7 @@ class _Decoder:
 
 
 def _context(hist: list[int]) -> int:
-    return min((2 * hist[0] + hist[1] + hist[2]).bit_length(), NC - 1)
+    return min((4 * hist[0] + 2 * hist[1] + hist[2]).bit_length(), NC - 1)
 
 
 def _push(hist: list[int], v: int) -> None:
@@ -159,6 +159,31 @@ def _code_nonzero(enc: _Encoder, v: int, row: int, psign: int) -> int:
             for k in range(e - 3, -1, -1):
                 enc.bypass((m >> k) & 1)
     return 2 if v < 0 else 1
+
+
+def _code_run_length(enc: _Encoder, run: int, J: int) -> None:
+    """The ``J`` bits of a stopped run's remainder, high first: two adaptive bits (per J), the rest bypass."""
+    for k in range(J - 1, -1, -1):
+        b = (run >> k) & 1
+        if k == J - 1:
+            enc.bit(L0 + 3 * J, b)
+        elif k == J - 2:
+            enc.bit(L0 + 3 * J + 1 + ((run >> (J - 1)) & 1), b)
+        else:
+            enc.bypass(b)
+
+
+def _decode_run_length(dec: _Decoder, J: int) -> int:
+    run = 0
+    for k in range(J - 1, -1, -1):
+        if k == J - 1:
+            b = dec.bit(L0 + 3 * J)
+        elif k == J - 2:
+            b = dec.bit(L0 + 3 * J + 1 + run)
+        else:
+            b = dec.bypass()
+        run = (run << 1) | b
+    return run
 
 
 def encode(values, p0, n0) -> bytes:
@@ -186,8 +211,7 @@ def encode(values, p0, n0) -> bytes:
                     break
                 else:
                     enc.bit(R0 + ri, 0)
-                    for k in range(int(RUN_J[ri]) - 1, -1, -1):
-                        enc.bypass((run >> k) & 1)
+                    _code_run_length(enc, run, int(RUN_J[ri]))
                     i += run
                     psign = _code_nonzero(enc, vals[i], ROWS - 1, psign)
                     hist[:] = [min(abs(vals[i]), ACT_CAP), 0, 0 if run else hist[1]]
@@ -248,9 +272,7 @@ def decode(payload: bytes, n: int, p0, n0) -> list[int]:
                     if len(out) == n:
                         break
                 else:
-                    run = 0
-                    for _ in range(int(RUN_J[ri])):
-                        run = (run << 1) | dec.bypass()
+                    run = _decode_run_length(dec, int(RUN_J[ri]))
                     if len(out) + run >= n:
                         raise ArchiveCorrupt("an adaptive-coded zero run passes the window's end; "
                                              "the archive is damaged")
