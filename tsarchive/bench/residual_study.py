@@ -114,7 +114,8 @@ def channel_streams(archive: Path) -> dict[str, ChannelStreams]:
         level = t["level"].to_numpy()
         pbuf, poffs = binary_parts(t["residual"])
         code = codes(t, len(windows))
-        q_parts, r_parts = [], []
+        q_parts: list = [None] * len(windows)
+        r_parts: list = [None] * len(windows)
         for L in np.unique(lens):
             sel = np.flatnonzero(lens == L)
             res = np.empty((len(sel), int(L)), np.int64)
@@ -125,8 +126,8 @@ def channel_streams(archive: Path) -> dict[str, ChannelStreams]:
                                                 arc._table(meta.name, m, c)).reshape(len(pick), int(L))
             ae = arc._ae(meta, code[sel], level[sel], int(L)) if arc.decoder is not None else None
             q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc, sets[sel]), res)
-            q_parts += list(q)
-            r_parts += list(res)
+            for k, i in enumerate(sel.tolist()):           # back in window order (the short last window too)
+                q_parts[i], r_parts[i] = q[k], res[k]
         tables = sum(len(e["freqs"]) * 3 // 4 for e in entries[meta.name].get("tables", []))
         out[meta.name] = ChannelStreams(q_parts, r_parts, int(poffs[-1] - poffs[0]), tables)
     return out
