@@ -98,3 +98,13 @@ def test_config():
         ClassicCoder.from_config({"id": "adaptive"})
     with pytest.raises(BadInput):
         c.encode(np.zeros((2, 2), np.int64))
+
+
+def test_registry():
+    from tsarchive.coding import AdaptiveCoder, coder_from_config
+    from tsarchive.errors import UnknownCodec
+
+    for c in (ClassicCoder(("bzip2",)), AdaptiveCoder()):
+        assert coder_from_config(json.loads(json.dumps(c.get_config()))) == c
+    with pytest.raises(UnknownCodec):
+        coder_from_config({"id": "lz4"})

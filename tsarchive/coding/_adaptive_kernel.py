@@ -37,14 +37,6 @@ SHIFT_OF = np.array([min(MAX_SHIFT, (n + 1).bit_length()) for n in range(COUNT_C
 ERR_NONE, ERR_RANGE, ERR_EXPONENT, ERR_TRAILING = 0, 1, 2, 3
 
 
-def cost_table() -> np.ndarray:
-    """``cost[p]`` = -log2(p / 2**15) in units of 2**-16 bit, from the integer log2 of :mod:`tsarchive.fixedlog`."""
-    from tsarchive import fixedlog
-    p = np.arange(PROB_ONE, dtype=np.int64)
-    p[0] = 1
-    return (PROB_BITS << fixedlog.FRAC) - fixedlog.log2q(p)
-
-
 # ---------------------------------------------------------------- kernels
 # The binary coding steps are inner functions of each kernel: numba inlines those at compile time,
 # while a call to a separately compiled function that takes arrays costs about five times the bit

@@ -25,8 +25,9 @@ Binarisation (per value ``v``, in order):
 
 Every binary decision has an adaptive model: the probability of a 0 in 15
 bits, updated by ``p += (2**15 - p) >> s`` or ``p -= p >> s`` with
-``s = min(5, bit_length(count + 1))`` (fast at first, then the exponential
-window of CABAC-like shift coders; Marpe, Schwarz, Wiegand, IEEE TCSVT 13(7), 2003).
+``s = min(7, bit_length(count + 1))`` (about 1/count at first, like a frequency
+count, then the exponential window of CABAC-like shift coders; Marpe, Schwarz,
+Wiegand, IEEE TCSVT 13(7), 2003).
 The bits are range coded with LZMA's binary range coder (Igor Pavlov, the
 LZMA SDK: 32-bit range, ``bound = (range >> 15) * p``, carries held in a cache
 byte and a count of pending 0xFF bytes, a byte out whenever the range drops
@@ -70,6 +71,7 @@ from typing import ClassVar, Sequence
 
 import numpy as np
 
+from tsarchive import fixedlog
 from tsarchive.errors import ArchiveCorrupt, BadInput
 
 from . import _adaptive_kernel as K
@@ -106,7 +108,10 @@ def _compile(njit, cache: bool):
 
 @cache
 def _cost() -> np.ndarray:
-    return K.cost_table()
+    """``cost[p]`` = -log2(p / 2**15) in units of 2**-16 bit, from the integer log2 of :mod:`tsarchive.fixedlog`."""
+    p = np.arange(K.PROB_ONE, dtype=np.int64)
+    p[0] = 1
+    return (K.PROB_BITS << fixedlog.FRAC) - fixedlog.log2q(p)
 
 
 def _as_windows(windows) -> tuple[np.ndarray, np.ndarray]:
