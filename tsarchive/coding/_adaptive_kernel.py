@@ -170,13 +170,15 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
             ri = 0
             i = a
             while i < b:
-                out = _grow(out, np.int64(st[2] + st[1]), 512)
+                if np.int64(st[2] + st[1]) + 512 > out.shape[0]:       # a call with arrays is slow: test first
+                    out = _grow(out, np.int64(st[2] + st[1]), 512)
                 if zr >= RUN_ENTER:                                  # run mode
                     run = 0
                     while i + run < b and values[i + run] == 0:
                         run += 1
                     while True:
-                        out = _grow(out, np.int64(st[2] + st[1]), 512)
+                        if np.int64(st[2] + st[1]) + 512 > out.shape[0]:       # a call with arrays is slow: test first
+                            out = _grow(out, np.int64(st[2] + st[1]), 512)
                         blk = np.int64(1) << RUN_J[ri]
                         if run >= blk:
                             low, rng, acc = bit(out, R0 + ri, 1, low, rng, acc)
@@ -227,7 +229,8 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
                 a1 = _mag(v)
                 i += 1
             costs[w] = acc
-            out = _grow(out, np.int64(st[2] + st[1]), 16)
+            if np.int64(st[2] + st[1]) + 16 > out.shape[0]:       # a call with arrays is slow: test first
+                out = _grow(out, np.int64(st[2] + st[1]), 16)
             hi = low + rng                   # the point of [low, low + range) with the most trailing zero bits
             for k in range(32, -1, -1):
                 mask = (np.uint64(1) << np.uint64(k)) - np.uint64(1)
