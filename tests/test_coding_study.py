@@ -60,20 +60,14 @@ def test_ltp_bits_never_exceed_plain_plus_flags():
     assert on == 2 and bits < 0.5 * 8 * sum(map(len, c.encode_many(periodic)))
 
 
-def _load_or_skip(name):
-    r = realdata.load(name)
-    if isinstance(r, str):
-        pytest.skip(r)
-    return r
-
-
 def test_new_real_sets():
-    airq = _load_or_skip("airq_pvlib")
+    loaded = [realdata.load(n) for n in ("airq_pvlib", "sunspots_yearly", "seismo_karc_lhz")]
+    for note in (r for r in loaded if isinstance(r, str)):
+        pytest.skip(note)
+    airq, spots, karc = loaded
     assert airq.data.shape == (365 * 24, 3) and np.isfinite(airq.data).all()
     assert (airq.data[:, 0] == 0).mean() > 0.5                  # hours without rain
-    spots = _load_or_skip("sunspots_yearly")
     assert spots.data.shape == (2008 - 1700 + 1, 1)
     assert spots.data[:5, 0].tolist() == [5, 11, 16, 23, 36]
-    karc = _load_or_skip("seismo_karc_lhz")
     with gzip.open(karc.file, "rt") as f:
         assert karc.data.shape == (sum(1 for _ in f), 1) == (86399, 1)

@@ -40,17 +40,8 @@ ERR_NONE, ERR_RANGE, ERR_EXPONENT, ERR_TRAILING = 0, 1, 2, 3
 # ---------------------------------------------------------------- kernels
 # The binary coding steps are inner functions of each kernel: numba inlines those at compile time,
 # while a call to a separately compiled function that takes arrays costs about five times the bit
-# itself.  The interval (low, range or code, range) and the ideal cost travel as locals; the byte
+# itself (the helpers below take integers only).  The interval (low, range or code, range) and the ideal cost travel as locals; the byte
 # output state lives in a small array.
-
-def _grow(out, used, need):
-    """``out`` with room for ``need`` more bytes after ``used`` (a doubled copy when short)."""
-    if used + need <= out.shape[0]:
-        return out
-    bigger = np.empty(out.shape[0] * 2 + need, np.uint8)
-    bigger[:used] = out[:used]
-    return bigger
-
 
 def _mag(v):
     a = -v if v < 0 else v
@@ -66,6 +57,11 @@ def _context(a1, a2, a3):
         s >>= 1
         c += 1
     return c
+
+
+def _after_run(v, run, a2, ri):
+    """The context history and run state after the value ``v`` that stops a run of ``run`` zeros."""
+    return _mag(v), 0, (0 if run >= 1 else a2), max(ri - 1, 0)
 
 
 def _encode_kernel(values, bounds, P0, N0, cost, tally):
@@ -170,15 +166,15 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
             ri = 0
             i = a
             while i < b:
-                if np.int64(st[2] + st[1]) + 512 > out.shape[0]:       # a call with arrays is slow: test first
-                    out = _grow(out, np.int64(st[2] + st[1]), 512)
+                if np.int64(st[2] + st[1]) + 512 > out.shape[0]:        # room for the value's bytes
+                    out = np.concatenate((out, np.empty(out.shape[0] + 512, np.uint8)))
                 if zr >= RUN_ENTER:                                  # run mode
                     run = 0
                     while i + run < b and values[i + run] == 0:
                         run += 1
                     while True:
-                        if np.int64(st[2] + st[1]) + 512 > out.shape[0]:       # a call with arrays is slow: test first
-                            out = _grow(out, np.int64(st[2] + st[1]), 512)
+                        if np.int64(st[2] + st[1]) + 512 > out.shape[0]:        # room for the value's bytes
+                            out = np.concatenate((out, np.empty(out.shape[0] + 512, np.uint8)))
                         blk = np.int64(1) << RUN_J[ri]
                         if run >= blk:
                             low, rng, acc = bit(out, R0 + ri, 1, low, rng, acc)
@@ -207,10 +203,7 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
                             i += run
                             v = values[i]
                             psign, low, rng, acc = nonzero(out, v, ROWS - 1, psign, low, rng, acc)
-                            a3 = 0 if run >= 1 else a2
-                            a2 = 0
-                            a1 = _mag(v)
-                            ri = max(ri - 1, 0)
+                            a1, a2, a3, ri = _after_run(v, run, a2, ri)
                             zr = 0
                             i += 1
                             break
@@ -229,8 +222,8 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
                 a1 = _mag(v)
                 i += 1
             costs[w] = acc
-            if np.int64(st[2] + st[1]) + 16 > out.shape[0]:       # a call with arrays is slow: test first
-                out = _grow(out, np.int64(st[2] + st[1]), 16)
+            if np.int64(st[2] + st[1]) + 16 > out.shape[0]:        # room for the value's bytes
+                out = np.concatenate((out, np.empty(out.shape[0] + 16, np.uint8)))
             hi = low + rng                   # the point of [low, low + range) with the most trailing zero bits
             for k in range(32, -1, -1):
                 mask = (np.uint64(1) << np.uint64(k)) - np.uint64(1)
@@ -380,10 +373,7 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
                         if psign < 0:
                             return w, ERR_EXPONENT
                         values[i] = v
-                        a3 = 0 if run >= 1 else a2
-                        a2 = 0
-                        a1 = _mag(v)
-                        ri = max(ri - 1, 0)
+                        a1, a2, a3, ri = _after_run(v, run, a2, ri)
                         zr = 0
                         i += 1
                         break
@@ -408,4 +398,4 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
     return -1, ERR_NONE
 
 
-_HELPERS = ("_grow", "_mag", "_context")     # compiled and rebound by adaptive._compile() before the kernels
+_HELPERS = ("_mag", "_context", "_after_run")     # compiled and rebound by adaptive._compile() before the kernels

@@ -76,6 +76,7 @@ from tsarchive.errors import ArchiveCorrupt, BadInput
 
 from . import _adaptive_kernel as K
 from . import adaptive_ref
+from .classic import expect_id
 
 MAX_N = 1 << 24           # longest window (values) the coder takes: a garbled length cannot allocate more
 INIT_COUNT = 7          # a fitted initial probability weighs like 7 observations (first shift 3)
@@ -91,10 +92,12 @@ def _kernels():
         from numba import njit
     except ImportError:
         return None
-    try:
-        return _compile(njit, cache=True)
-    except RuntimeError:                     # no writable cache directory: compile once per process
-        return _compile(njit, cache=False)
+    for on_disk in (True, False):            # without a writable cache directory: compile once per process
+        try:
+            return _compile(njit, on_disk)
+        except RuntimeError:
+            if not on_disk:
+                raise
 
 
 _PLAIN = {name: getattr(K, name) for name in K._HELPERS}
@@ -218,9 +221,7 @@ class AdaptiveCoder:
 
     @classmethod
     def from_config(cls, config: dict) -> "AdaptiveCoder":
-        if config.get("id") != cls.id:
-            raise ArchiveCorrupt(f"coder config {str(config.get('id'))[:40]!r} is not {cls.id!r}; "
-                                 "the archive is damaged")
+        expect_id(config, cls.id)
         try:
             init = base64.b64decode(str(config.get("init", "")), validate=True)
         except (ValueError, binascii.Error):

@@ -95,6 +95,13 @@ def _decompress(blob: bytes, kind: int, size: int) -> bytes:
         raise ArchiveCorrupt("a classic-coded window's compressed stream is damaged; the archive is damaged") from None
 
 
+def expect_id(config: dict, coder_id: str) -> None:
+    """Raise :class:`ArchiveCorrupt` unless ``config`` is a config of the coder ``coder_id``."""
+    if config.get("id") != coder_id:
+        raise ArchiveCorrupt(f"coder config {str(config.get('id'))[:40]!r} is not {coder_id!r}; "
+                             "the archive is damaged")
+
+
 @dataclass(frozen=True)
 class ClassicCoder:
     """Difference + byte width + shuffle + the smallest of zstd -19 / xz -9e / bzip2 -9 (module docstring)."""
@@ -165,9 +172,7 @@ class ClassicCoder:
 
     @classmethod
     def from_config(cls, config: dict) -> "ClassicCoder":
-        if config.get("id") != cls.id:
-            raise ArchiveCorrupt(f"coder config {str(config.get('id'))[:40]!r} is not {cls.id!r}; "
-                                 "the archive is damaged")
+        expect_id(config, cls.id)
         try:
             return cls(tuple(str(c) for c in config.get("compressors", COMPRESSORS)))
         except BadInput as exc:
