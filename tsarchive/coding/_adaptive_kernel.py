@@ -59,6 +59,13 @@ def _context(a1, a2, a3):
     return c
 
 
+def _adapt(p, n, b):
+    """A model after coding ``b``: probability of a 0 moved by ``2**-shift`` of the gap, count + 1 (capped)."""
+    s = SHIFT_OF[n]
+    p = p + ((PROB_ONE - p) >> s) if b == 0 else p - (p >> s)
+    return p, min(n + 1, COUNT_CAP)
+
+
 def _after_run(v, run, a2, ri):
     """The context history and run state after the value ``v`` that stops a run of ``run`` zeros."""
     return _mag(v), 0, (0 if run >= 1 else a2), max(ri - 1, 0)
@@ -97,19 +104,14 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
     def bit(out, idx, b, low, rng, acc):
         p = P[idx]
         bound = (rng >> np.uint64(PROB_BITS)) * np.uint64(p)
-        n = N[idx]
-        s = SHIFT_OF[n]
-        if n < COUNT_CAP:
-            N[idx] = n + 1
         if b == 0:
             rng = bound
             acc += cost[p]
-            P[idx] = p + ((PROB_ONE - p) >> s)
         else:
             low += bound
             rng -= bound
             acc += cost[PROB_ONE - p]
-            P[idx] = p - (p >> s)
+        P[idx], N[idx] = _adapt(p, N[idx], b)
         tally[idx, b] += 1
         while rng < np.uint64(TOP):
             rng = rng << np.uint64(8)
@@ -160,10 +162,7 @@ def _encode_kernel(values, bounds, P0, N0, cost, tally):
             st[0] = np.uint64(0)
             st[1] = np.uint64(1)
             st[3] = np.uint64(1)
-            a1 = a2 = a3 = 0
-            psign = 0
-            zr = 0
-            ri = 0
+            a1 = a2 = a3 = psign = zr = ri = 0          # context history, sign state, zeros in a row, run state
             i = a
             while i < b:
                 if np.int64(st[2] + st[1]) + 512 > out.shape[0]:        # room for the value's bytes
@@ -261,19 +260,14 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
     def bit(idx, code, rng):
         p = P[idx]
         bound = (rng >> np.uint64(PROB_BITS)) * np.uint64(p)
-        n = N[idx]
-        s = SHIFT_OF[n]
-        if n < COUNT_CAP:
-            N[idx] = n + 1
         if code < bound:
             rng = bound
-            P[idx] = p + ((PROB_ONE - p) >> s)
             b = 0
         else:
             code -= bound
             rng -= bound
-            P[idx] = p - (p >> s)
             b = 1
+        P[idx], N[idx] = _adapt(p, N[idx], b)
         while rng < np.uint64(TOP):
             rng = rng << np.uint64(8)
             code = ((code << np.uint64(8)) | next_byte()) & np.uint64(0xFFFFFFFF)
@@ -334,10 +328,7 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
             code = (code << np.uint64(8)) | next_byte()
         if code >= rng:
             return w, ERR_RANGE
-        a1 = a2 = a3 = 0
-        psign = 0
-        zr = 0
-        ri = 0
+        a1 = a2 = a3 = psign = zr = ri = 0          # context history, sign state, zeros in a row, run state
         i = a
         while i < b:
             if zr >= RUN_ENTER:                                      # run mode
@@ -398,4 +389,4 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
     return -1, ERR_NONE
 
 
-_HELPERS = ("_mag", "_context", "_after_run")     # compiled and rebound by adaptive._compile() before the kernels
+_HELPERS = ("_mag", "_context", "_adapt", "_after_run")     # compiled and rebound by adaptive._compile() before the kernels
