@@ -71,3 +71,18 @@ def test_new_real_sets():
     assert spots.data[:5, 0].tolist() == [5, 11, 16, 23, 36]
     with gzip.open(karc.file, "rt") as f:
         assert karc.data.shape == (sum(1 for _ in f), 1) == (86399, 1)
+
+
+def test_study_command(tmp_path, capsys):
+    from tsarchive.bench.__main__ import main
+
+    if isinstance(realdata.load("sunspots_yearly"), str):
+        pytest.skip("statsmodels is not installed")
+    out = tmp_path / "study.json"
+    assert main(["--study", "residuals", "--cases", "sunspots_yearly", "--budgets", "1e-2", "--json", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "sunspots_yearly" in text and "per-case winner" in text
+    import json
+    (row,) = json.loads(out.read_text())["study"]
+    assert row["n"] == 309 and row["winner"] in ("today", "adaptive", "fitted", "+ltp", "classic")
+    assert min(row["today"], row["adaptive"], row["classic"]) > 0 and row["windows"] == 1
