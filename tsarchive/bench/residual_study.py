@@ -98,7 +98,6 @@ class StudyRow:
 def channel_streams(archive: Path) -> dict[str, ChannelStreams]:
     """Each channel's residual and grid windows, decoded from the archive as its reader does (read only)."""
     import tsarchive
-    from tsarchive import entropy
     from tsarchive.codec import reconstruct
     from tsarchive.predict import Context
     from tsarchive.store.rows import binary_parts, codes, lengths
@@ -107,7 +106,8 @@ def channel_streams(archive: Path) -> dict[str, ChannelStreams]:
     entries = {c["name"]: c for c in arc.manifest["channels"]}
     out = {}
     for meta in arc.channels:
-        t = arc._rows(meta.name, 0, meta.n_windows)
+        rows, residuals, prediction, lpc = _reader_parts(arc, meta)
+        t = rows(meta.name, 0, meta.n_windows)
         windows = t["window"].to_numpy()
         lens = lengths(meta, windows)
         modes, sets, classes = t["mode"].to_numpy(), t["lpc_set"].to_numpy(), t["table"].to_numpy()
@@ -121,16 +121,32 @@ def channel_streams(archive: Path) -> dict[str, ChannelStreams]:
             res = np.empty((len(sel), int(L)), np.int64)
             for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
                 pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
-                rows = sel[pick]
-                res[pick] = entropy.decode_flat(pbuf, poffs[rows], poffs[rows + 1], int(L),
-                                                arc._table(meta.name, m, c)).reshape(len(pick), int(L))
-            ae = arc._ae(meta, code[sel], level[sel], int(L)) if arc.decoder is not None else None
-            q = reconstruct(modes[sel], Context(level[sel], ae, meta.lpc, sets[sel]), res)
+                at = sel[pick]
+                res[pick] = residuals(m, c, pbuf, poffs[at], poffs[at + 1], int(L)).reshape(len(pick), int(L))
+            q = reconstruct(modes[sel], Context(level[sel], prediction(code[sel], level[sel], int(L)), lpc,
+                                                sets[sel]), res)
             for k, i in enumerate(sel.tolist()):           # back in window order (the short last window too)
                 q_parts[i], r_parts[i] = q[k], res[k]
         tables = sum(len(e["freqs"]) * 3 // 4 for e in entries[meta.name].get("tables", []))
         out[meta.name] = ChannelStreams(q_parts, r_parts, int(poffs[-1] - poffs[0]), tables)
     return out
+
+
+def _reader_parts(arc, meta):
+    """(rows, residual decoder, autoencoder prediction, LPC sets) of a channel, from the reader of
+    either layout: the codec-contract one (``Archive.codec``) or the earlier one (``Archive._table``)."""
+    if hasattr(arc, "codec"):
+        from tsarchive.windowcodec import code_prediction
+
+        codec = arc.codec(meta.name)
+        return (arc.rows,
+                lambda m, c, buf, a, b, L: codec.coder(m, c).decode_flat(buf, a, b, L, strict=False),
+                lambda codes, level, L: code_prediction(codec, codes, level, L), codec.lpc)
+    from tsarchive import entropy
+
+    return (arc._rows,
+            lambda m, c, buf, a, b, L: entropy.decode_flat(buf, a, b, L, arc._table(meta.name, m, c)),
+            lambda codes, level, L: arc._ae(meta, codes, level, L) if arc.decoder is not None else None, meta.lpc)
 
 
 def ltp_bits(coder: AdaptiveCoder, windows: list[np.ndarray]) -> tuple[int, int]:
