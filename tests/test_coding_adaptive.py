@@ -206,3 +206,16 @@ def test_config_round_trip():
         AdaptiveCoder.from_config({"id": "adaptive", "init": "not base64!"})
     with pytest.raises(ArchiveCorrupt):
         AdaptiveCoder.from_config({"id": "adaptive", "init": "AAAA"})
+
+
+def test_decode_flat_reads_a_column_buffer():
+    rng = np.random.default_rng(8)
+    x = np.rint(rng.laplace(0, 6, (5, 512))).astype(np.int64)
+    c = AdaptiveCoder()
+    parts = c.encode_many(x)
+    buf = np.frombuffer(b"xx" + b"".join(parts), np.uint8)           # payloads at an offset, as in a column
+    ends = 2 + np.cumsum([len(p) for p in parts])
+    starts = ends - np.array([len(p) for p in parts])
+    assert np.array_equal(c.decode_flat(buf, starts, ends, 512), x.ravel())
+    with pytest.raises(ArchiveCorrupt):
+        c.decode_flat(buf, starts, ends + 10**6, 512)                  # offsets past the buffer

@@ -183,34 +183,49 @@ class AdaptiveCoder:
         flat, bounds = _as_windows([np.asarray(values)])
         return float(self.encode_flat(flat, bounds)[2].sum()) / (1 << 16)
 
+    def decode_flat(self, buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, n: int,
+                    strict: bool = True) -> np.ndarray:
+        """Windows of ``n`` values each from ``buf[starts[w]:ends[w]]`` (a Parquet binary column's data
+        buffer and offsets, no copies), as one flat int64 array."""
+        starts = np.asarray(starts, np.int64)
+        ends = np.asarray(ends, np.int64)
+        if not 0 <= n <= MAX_N:
+            raise ArchiveCorrupt(f"a window length is outside 0..{MAX_N}; the archive is damaged")
+        if len(starts) != len(ends) or (len(starts) and (np.any(ends < starts) or starts.min() < 0
+                                                         or ends.max() > len(buf))):
+            raise ArchiveCorrupt("adaptive-coded windows point outside their column; the archive is damaged")
+        p0, n0 = self._state()
+        bounds = np.arange(len(starts) + 1, dtype=np.int64) * n
+        kern = _kernels()
+        if kern is None:
+            values = np.array([v for a, b in zip(starts.tolist(), ends.tolist())
+                               for v in adaptive_ref.decode(bytes(buf[a:b]), n, p0, n0)], dtype=np.int64)
+        else:
+            values = np.empty(int(bounds[-1]), np.int64)
+            bad, err = kern[1](np.asarray(buf, np.uint8), starts, ends, bounds, p0, n0, values)
+            if bad >= 0:
+                raise ArchiveCorrupt(f"adaptive-coded window {bad}: {_ERRORS[err]}; the archive is damaged")
+        if strict:
+            buf_again, ob, _ = self.encode_flat(values, bounds)
+            for w, (a, b) in enumerate(zip(starts.tolist(), ends.tolist())):
+                if not np.array_equal(buf[a:b], buf_again[ob[w]:ob[w + 1]]):
+                    raise ArchiveCorrupt(f"adaptive-coded window {w} is not the code of what it decodes to; "
+                                         "the archive is damaged")
+        return values
+
     def decode_many(self, payloads: Sequence[bytes], lengths, strict: bool = True) -> list[np.ndarray]:
         lens = np.asarray(lengths, dtype=np.int64).reshape(-1)
         if len(lens) != len(payloads):
             raise BadInput(f"{len(payloads)} payloads but {len(lens)} lengths; give one length per payload")
-        if len(lens) and (lens.min() < 0 or lens.max() > MAX_N):
-            raise ArchiveCorrupt(f"a window length is outside 0..{MAX_N}; the archive is damaged")
-        p0, n0 = self._state()
-        bounds = np.concatenate([[0], np.cumsum(lens)]).astype(np.int64)
-        kern = _kernels()
-        if kern is None:
-            out = [np.array(adaptive_ref.decode(bytes(p), int(n), p0, n0), dtype=np.int64)
-                   for p, n in zip(payloads, lens)]
-        else:
-            raw = b"".join(bytes(p) for p in payloads)
-            ends = np.cumsum([len(p) for p in payloads]).astype(np.int64)
-            starts = ends - np.array([len(p) for p in payloads], np.int64)
-            values = np.empty(int(bounds[-1]), np.int64)
-            bad, err = kern[1](np.frombuffer(raw, np.uint8), starts, ends, bounds, p0, n0, values)
-            if bad >= 0:
-                raise ArchiveCorrupt(f"adaptive-coded window {bad}: {_ERRORS[err]}; the archive is damaged")
-            out = [values[a:b] for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist())]
-        if strict:
-            again = self.encode_many(out)
-            for w, (p, q) in enumerate(zip(payloads, again)):
-                if bytes(p) != q:
-                    raise ArchiveCorrupt(f"adaptive-coded window {w} is not the code of what it decodes to; "
-                                         "the archive is damaged")
-        return out
+        out = []
+        for n in np.unique(lens).tolist():               # one flat call per window length
+            sel = np.flatnonzero(lens == n)
+            parts = [bytes(payloads[i]) for i in sel]
+            ends = np.cumsum([len(p) for p in parts]).astype(np.int64)
+            starts = ends - np.array([len(p) for p in parts], np.int64)
+            flat = self.decode_flat(np.frombuffer(b"".join(parts), np.uint8), starts, ends, int(n), strict)
+            out += list(zip(sel.tolist(), flat.reshape(len(sel), int(n)) if n else [flat[:0]] * len(sel)))
+        return [v for _, v in sorted(out, key=lambda t: t[0])]
 
     def decode(self, payload: bytes, n: int, strict: bool = True) -> np.ndarray:
         return self.decode_many([payload], [n], strict)[0]
