@@ -4,6 +4,7 @@
                               [--budgets 1e-2,1e-3,1e-4] [--json OUT] [--samples N] [--train-seconds S]
                               [--speed] [--random-access] [--long-hours H] [--long-channels C]
                               [--memory [MB]] [--long-budget SPEC] [--no-cases]
+    python -m tsarchive.bench --study residuals [--cases real|NAME,...] [--budgets ...]
 
 The exact command is printed at the top of the output.  Exit status: 0 when
 every archive met its budget (err/eps <= 1) and every baseline round-tripped
@@ -71,6 +72,8 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("--long-hours", type=_positive(float), default=1.0, help="length of the long record (default 1 h)")
     p.add_argument("--long-channels", type=_positive(int), default=8, help="channels of the long record (default 8)")
     p.add_argument("--long-budget", default="0.1%", help="budget spec for the long modes (default 0.1%%)")
+    p.add_argument("--study", choices=("residuals",),
+                   help="instead of the case tables: the residual coders on the real sets (bench/residual_study.py)")
     return p
 
 
@@ -98,6 +101,8 @@ def main(argv: list[str] | None = None) -> int:
     report: dict = {"command": command, "budgets": list(args.budgets), "train_seconds": train}
     ok = True
     try:
+        if args.study:
+            return _study(args, report, out, log)
         if not args.no_cases:
             cfg = runner.BenchConfig(budgets=args.budgets, quick=args.quick,
                                      cases=tuple(t.strip() for t in args.cases.split(",") if t.strip()),
@@ -146,6 +151,24 @@ def main(argv: list[str] | None = None) -> int:
         args.json.write_text(json.dumps(report, indent=1, default=str))
         out(f"\nwrote {args.json}")
     return 0 if ok else 1
+
+
+def _study(args, report: dict, out, log) -> int:
+    from . import realdata, residual_study
+
+    tokens = {t.strip() for t in args.cases.split(",") if t.strip()}
+    names = [n for n in realdata.names() if tokens & {"all", "real", n}]
+    rows, skipped = residual_study.run(names, args.budgets, log)
+    for line in skipped:
+        out(f"  {line}")
+    out("\nresidual coders on the packer's own residual windows (bits/sample; see tsarchive/bench/residual_study.py):")
+    out(residual_study.study_table(rows))
+    out(residual_study.summary(rows))
+    report["study"] = [r.to_dict() for r in rows]
+    if args.json:
+        args.json.write_text(json.dumps(report, indent=1, default=str))
+        out(f"\nwrote {args.json}")
+    return 0
 
 
 def _long_modes(args, train, tmp: Path, report: dict, out, log) -> bool:

@@ -27,11 +27,18 @@ tmy3_pvlib              pvlib        data/723170TYA.CSV (TMY3 Greensboro NC: hou
                                      W/m^2, dry-bulb C, pressure mbar; one typical year)
 sst_nino_pywt           PyWavelets   data/sst_nino3.npz (monthly sea-surface temperature  1/month   MIT; data NOAA
                         (pywt)       1950-2016, regions NINO1+2, 3, 4, 3.4; ERSSTv4)                ERSSTv4 (US gov.)
+seismo_karc_lhz         obspy        signal/tests/data/KARC.LHZ.SAC.asc.gz (long-period   1 Hz      LGPL-3.0
+                                     seismometer KARC LHZ, one day, 86399 samples)
+airq_pvlib              pvlib        data/soiling_hsu_example_inputs.csv (hourly rainfall 1/hour    BSD-3-Clause
+                                     and PM2.5 / PM10 for 2015; rain is mostly zero)
+sunspots_yearly         statsmodels  datasets/sunspots/sunspots.csv (yearly sunspot       1/year    BSD-3-Clause; data
+                                     number 1700-2008: three centuries)                             "public domain"
 ======================  ===========  ===================================================  ========  ==================
 
-No package among those searched (mne, neurokit2, biosppy, wfdb, yasa, pyedflib)
-ships a real EEG recording in its wheel, and none a machine-vibration one; the
-seismometer sets are the ground-vibration cases.  The TMY3 year has no gaps
+No package among those searched (mne 1.13 -- its wheel holds head models and
+channel layouts only --, neurokit2, biosppy, wfdb, yasa, pyedflib) ships a real
+EEG recording in its wheel, and none a machine-vibration one; the seismometer
+sets are the ground-vibration cases.  The TMY3 year has no gaps
 (its months are chosen from different years); co2_maunaloa is the set with
 gaps.
 
@@ -165,6 +172,20 @@ def _load_sunspots(path: Path) -> tuple[np.ndarray, str]:
     return x.reshape(-1)[:, None], ""
 
 
+def _load_karc(path: Path) -> tuple[np.ndarray, str]:
+    with gzip.open(path, "rt") as f:
+        return np.loadtxt(f, dtype=np.float64).reshape(-1)[:, None], ""
+
+
+def _load_airq(path: Path) -> tuple[np.ndarray, str]:
+    x = np.genfromtxt(path, delimiter=",", skip_header=1, usecols=(1, 2, 3), dtype=np.float64)
+    return x, ""
+
+
+def _load_sunspots_yearly(path: Path) -> tuple[np.ndarray, str]:
+    return _csv_column(path, 1)[:, None], ""
+
+
 _TMY3_COLUMNS = ("GHI (W/m^2)", "Dry-bulb (C)", "Pressure (mbar)")
 
 
@@ -207,6 +228,16 @@ SPECS: tuple[RealSpec, ...] = (
              "(pywt.data.nino's file, ERSSTv4)", 1.0 / (30.436875 * 86400.0), "C",
              "MIT (PyWavelets package metadata); data NOAA ERSSTv4", ("nino12", "nino3", "nino4", "nino34"),
              dist="PyWavelets"),
+    RealSpec("seismo_karc_lhz", "obspy", "signal/tests/data/KARC.LHZ.SAC.asc.gz",
+             "long-period seismometer KARC, vertical LHZ channel, one day at 1 Hz (obspy's test data)",
+             1.0, "counts", "LGPL-3.0 (obspy package metadata)", ("LHZ",)),
+    RealSpec("airq_pvlib", "pvlib", "data/soiling_hsu_example_inputs.csv",
+             "hourly rainfall and PM2.5 / PM10 concentration for 2015 (pvlib's soiling example inputs)",
+             1.0 / 3600.0, "mm, g/m^3", "BSD-3-Clause (pvlib package metadata)", ("rain", "pm2_5", "pm10")),
+    RealSpec("sunspots_yearly", "statsmodels", "datasets/sunspots/sunspots.csv",
+             "yearly sunspot number 1700-2008 (statsmodels.datasets.sunspots)",
+             1.0 / (365.2425 * 86400.0), "count", "BSD-3-Clause (statsmodels); dataset marked 'public domain'",
+             ("sunactivity",)),
 )
 
 _LOADERS: dict[str, Callable[[Path], tuple[np.ndarray, str]]] = {
@@ -219,6 +250,9 @@ _LOADERS: dict[str, Callable[[Path], tuple[np.ndarray, str]]] = {
     "sunspots_pmdarima": _load_sunspots,
     "tmy3_pvlib": _load_tmy3,
     "sst_nino_pywt": _load_sst,
+    "seismo_karc_lhz": _load_karc,
+    "airq_pvlib": _load_airq,
+    "sunspots_yearly": _load_sunspots_yearly,
 }
 
 BENCH_EXTRA_PACKAGES = tuple(sorted({s.install_name for s in SPECS}))
