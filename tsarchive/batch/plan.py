@@ -156,9 +156,18 @@ def plan_batch(inputs: list[str], out: str | os.PathLike) -> BatchPlan:
 
 
 def _check_apart(jobs: list[Job]) -> None:
-    """Refuse a plan that would write an archive into a folder holding one of its sources."""
-    source_dirs = {j.source.parent for j in jobs}
-    for j in jobs:
-        if j.archive.parent in source_dirs or j.archive == j.source:
-            raise BadInput(f"{j.archive} would be written beside the source {j.source.name}; choose an output folder "
-                           "that holds no recordings (e.g. --into archives/)")
+    """Refuse a plan that would write an archive into a folder holding a recording (one of its sources or not)."""
+    source_dirs = {j.source.parent: j.source for j in jobs}
+    for folder in dict.fromkeys(j.archive.parent for j in jobs):
+        there = source_dirs.get(folder) or _recording_in(folder)
+        if there is not None:
+            raise BadInput(f"archives would be written beside the source {there}; choose an output folder that "
+                           "holds no recordings (e.g. --into archives/)")
+
+
+def _recording_in(folder: Path) -> Path | None:
+    try:
+        return next((p for p in folder.iterdir() if p.suffix.lower() in SUPPORTED and not _hidden(p.name)
+                     and p.is_file() and not is_catalog(p)), None)
+    except OSError:       # not there yet: nothing beside it
+        return None
