@@ -25,7 +25,7 @@ def run_on_dask(address: str, plan: BatchPlan, settings: BatchSettings) -> Itera
     except ImportError:
         raise BadInput("--scheduler needs Dask's distributed scheduler: pip install 'tsarchive[cluster]'") from None
     try:
-        client = Client(address, timeout=CONNECT_TIMEOUT_S, set_as_default=False)
+        client = Client(address, timeout=CONNECT_TIMEOUT_S)
     except (OSError, TimeoutError, ValueError) as exc:
         raise BadInput(f"cannot reach the Dask scheduler at {address} ({exc}); check the address "
                        "(tcp://HOST:8786) and that the scheduler is running") from None
