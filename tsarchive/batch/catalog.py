@@ -211,3 +211,22 @@ def read_catalog(folder: str | os.PathLike) -> pa.Table:
 
 def has_catalog(folder: str | os.PathLike) -> bool:
     return (Path(folder) / CATALOG).is_file()
+
+
+def current_rows(folder: str | os.PathLike) -> dict[Path, dict]:
+    """The catalog's rows by archive path, only those still describing the archive on disk (its manifest's
+    SHA-256 unchanged); empty without a readable catalog.  What a listing shows without opening archives."""
+    try:
+        rows = read_catalog(folder).to_pylist()
+    except (BadInput, ArchiveCorrupt):
+        return {}
+    found = {}
+    for r in rows:
+        path = Path(folder) / r["archive"]
+        try:
+            digest = hashlib.sha256((path / "manifest.json").read_bytes()).hexdigest()
+        except OSError:
+            continue
+        if digest == r["manifest_sha256"]:
+            found[path] = r
+    return found
