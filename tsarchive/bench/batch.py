@@ -85,16 +85,9 @@ def copy_streams(streams: Path, folder: Path, copies: int) -> list[Path]:
 
 
 def _digest(out: Path) -> dict[str, str]:
-    """SHA-256 of every archive file below ``out`` (catalog and hidden entries left out)."""
-    found = {}
-    for root, dirs, names in os.walk(out):
-        dirs[:] = [d for d in dirs if not d.startswith(".")]
-        for name in names:
-            p = Path(root) / name
-            rel = p.relative_to(out).as_posix()
-            if ".tsarchive/" in rel:
-                found[rel] = hashlib.sha256(p.read_bytes()).hexdigest()
-    return found
+    """SHA-256 of every file of every archive below ``out`` (the catalog is left out)."""
+    return {p.relative_to(out).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in sorted(out.glob("**/*.tsarchive/*")) if p.is_file()}
 
 
 def _plan(folder: Path, out: Path):
@@ -145,7 +138,7 @@ def run_set(name: str, folder: Path, tmp: Path, dask: bool, log) -> list[BatchRu
             log(f"batch bench: {name}, {len(plan.jobs)} files, {where}")
             summary = run_batch(plan, settings, **how)
             digest = _digest(out)
-            same = None if first is None else digest == first
+            same = None if first is None else (digest == first and len(digest) > 0)
             first = digest if first is None else first
             runs.append(BatchRun(name, where, len(plan.jobs), summary.elapsed_s, mb, summary.count("failed"), same))
             shutil.rmtree(out)
