@@ -144,3 +144,23 @@ def test_kill_9_partway_keeps_finished_archives_and_the_next_run_finishes_the_re
     capsys.readouterr()
     assert sorted(read_catalog(out).column("archive").to_pylist()) == \
         [s.name + ".tsarchive" for s in srcs]
+
+
+def test_a_failed_forced_repack_keeps_the_old_archive_and_its_catalog_row(tmp_path, capsys):
+    lab = tmp_path / "lab"
+    write_logger(lab / "a.csv")
+    out = tmp_path / "out"
+    assert _run(capsys, "pack", lab, "--into", out, "--jobs", "1")[0] == 0
+    before = archive_files(out)
+    # a budget naming a channel the file does not have: this repack fails for the file
+    code, _, err = _run(capsys, "pack", lab, "--into", out, "--jobs", "1", "--force", "--budget", "nosuch=0.1")
+    assert code == 1 and "a.csv:" in err
+    assert archive_files(out) == before
+    assert read_catalog(out).column("archive").to_pylist() == ["a.csv.tsarchive"]
+
+
+def test_dry_run_lists_the_plan_and_writes_nothing(tmp_path, capsys):
+    srcs = make_lab(tmp_path / "lab", 2)
+    code, text, _ = _run(capsys, "pack", tmp_path / "lab", "--into", tmp_path / "out", "--dry-run")
+    assert code == 0 and not (tmp_path / "out").exists()
+    assert f"{srcs[0].resolve()} -> log00.csv.tsarchive" in text and "sub/log01.csv.tsarchive" in text

@@ -73,6 +73,7 @@ def test_is_batch_by_arguments(tmp_path):
     (["{tmp}/*.wav", "--into", "{tmp}/out"], "no file matches"),
     (["{lab}/a.csv", "--jobs", "2"], "add --into FOLDER"),
     (["{lab}", "--into", "{tmp}/out", "--jobs", "0"], "at least 1"),
+    (["{lab}", "--into", "{tmp}/out", "--budget", "abc"], "cannot read budget 'abc'"),   # once, not per file
 ])
 def test_bad_batch_arguments_exit_2_with_one_line_and_write_nothing(tmp_path, capsys, argv, words):
     lab = tmp_path / "lab"

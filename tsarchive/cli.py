@@ -225,6 +225,8 @@ def _pack_batch(args) -> int:
         raise BadInput("several recordings (or a folder, or a pattern) need an output folder: add --into FOLDER")
     if args.jobs is not None and args.jobs < 1:
         raise BadInput(f"--jobs {args.jobs}: give a whole number of at least 1")
+    from .budget import parse_budget_spec
+    parse_budget_spec(args.budget)                      # a malformed budget is the command's error, not each file's
     plan = plan_batch(args.source, args.into)
     from .batch.console import dry_run_text, pack_many
     if args.dry_run:

@@ -112,7 +112,12 @@ def _pack_one(job: Job, settings: BatchSettings, out: Path, t0: float) -> Outcom
     opts = settings.pack_options()
     if job.rate is not None:
         opts["rate"] = job.rate
-    tsarchive.pack(job.source, job.archive, force=settings.force, **opts)
+    try:
+        tsarchive.pack(job.source, job.archive, force=settings.force, **opts)
+    except BaseException:
+        if entry is not None and entry.get("state") == "packed" and manifest_digest(job.archive) == before:
+            write_entry(out, job.rel, entry)        # the archive it describes is still there, unchanged
+        raise
     arc = tsarchive.open(job.archive)
     if arc.manifest.get("source", {}).get("sha256") != sha:
         raise BadInput(f"{job.source.name} changed while it was being packed; pack it again once the logger has "
