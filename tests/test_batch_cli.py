@@ -136,6 +136,7 @@ def test_kill_9_partway_keeps_finished_archives_and_the_next_run_finishes_the_re
     code, text, _ = _run(capsys, "pack", lab, "--into", out, "--jobs", "1")
     assert code == 0 and "0 failed" in text
     assert text.count("] packed ") == len(srcs) - len(finished) and text.count("] already packed") == len(finished)
+    assert not list(out.glob(".*.staging-*")) and not list(out.glob(".*.claim"))   # the killed run's leftovers
     for name, files in kept.items():                # what was finished before the kill is untouched
         assert archive_files(out / name) == files
     for src in srcs:                                # and every archive is the one a single pack writes
