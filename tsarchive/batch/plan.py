@@ -43,14 +43,15 @@ class BatchSettings:
     window: int | None = None
     code_size: int | None = None
     read_options: ReadOptions = field(default_factory=ReadOptions)
-    train_seconds: float = 60.0
-    seed: int = 0
+    train_seconds: float | None = None      # None: pack's own default (the tool version then names it)
+    seed: int | None = None
     force: bool = False
 
     def pack_options(self) -> dict:
         """Keyword arguments for :func:`tsarchive.pack` (all but source, archive and force)."""
+        extra = {k: v for k, v in (("train_seconds", self.train_seconds), ("seed", self.seed)) if v is not None}
         return dict(budget=self.budget, rate=self.rate, window=self.window, code_size=self.code_size,
-                    read_options=self.read_options, train_seconds=self.train_seconds, seed=self.seed)
+                    read_options=self.read_options, **extra)
 
     def to_dict(self) -> dict:
         """What decides the archive's bytes besides the source and the tool version (``force`` does not)."""
