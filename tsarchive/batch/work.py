@@ -56,8 +56,12 @@ def warm(threads: int | None = None) -> None:
     """A worker process's one-time start: cap its thread pools and import the packing code once."""
     if threads:
         os.environ.setdefault("TSARCHIVE_THREADS", str(threads))
-        from threadpoolctl import threadpool_limits
-        threadpool_limits(threads)
+        try:
+            from threadpoolctl import threadpool_limits
+        except ImportError:      # an optional speed-up: results do not depend on BLAS threads
+            pass
+        else:
+            threadpool_limits(threads)
     import tsarchive.pipeline  # noqa: F401 - paid once per worker, not once per file
 
 
