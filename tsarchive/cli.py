@@ -41,9 +41,12 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="store_true", help="print tsarchive's version and stop")
     sub = p.add_subparsers(dest="command", parser_class=_Parser)
 
-    pk = sub.add_parser("pack", help="pack a recording into an archive", epilog=CAUTION)
-    pk.add_argument("source", help="recording: .csv/.txt/.tsv/.dat, .parquet, .wav, .edf/.bdf, or .npy (needs --rate)")
+    pk = sub.add_parser("pack", help="pack a recording (or many: folders, patterns) into archives", epilog=CAUTION)
+    pk.add_argument("source", nargs="+", help="recording: .csv/.txt/.tsv/.dat, .parquet, .wav, .edf/.bdf, or .npy "
+                    "(needs --rate); or several, folders (searched below) and quoted patterns such as 'lab/*.csv', "
+                    "packed one archive each into --into FOLDER")
     pk.add_argument("-o", "--output", metavar="ARCHIVE", help="archive folder to write (e.g. run.tsarchive)")
+    _batch_options(pk)
     pk.add_argument("--budget", default=DEFAULT_SPEC, metavar="SPEC",
                     help=f"error budget per channel: 0.02 (absolute, channel units), 0.1%% (of the channel's "
                          f"range), lossless, or per channel temp=0.05,accel=0.1%% (default: {DEFAULT_SPEC.replace('%', '%%')})")
@@ -90,7 +93,7 @@ def _parser() -> argparse.ArgumentParser:
     vf.add_argument("--quiet", action="store_true", help="no progress line (it is shown on a terminal only)")
 
     rp = sub.add_parser("report", help="show an archive's channels, budgets, errors and ratios")
-    rp.add_argument("archive")
+    rp.add_argument("archive", help="an archive folder, or a batch's output folder (its catalog.parquet)")
     rp.add_argument("--json", action="store_true", help="print the report as JSON")
 
     dm = sub.add_parser("demo", help="pack and verify the bundled sample streams, then open the app on them")
@@ -102,6 +105,16 @@ def _parser() -> argparse.ArgumentParser:
     br = sub.add_parser("browse", help="open the terminal app on an archive or a folder")
     br.add_argument("path", nargs="?", default=".")
     return p
+
+
+def _batch_options(pk: argparse.ArgumentParser) -> None:
+    """Packing many recordings (see tsarchive.batch)."""
+    pk.add_argument("--into", metavar="FOLDER", help="output folder for several recordings: one archive each, "
+                    "mirroring their folders, and a catalog.parquet; files already packed alike are skipped")
+    pk.add_argument("--jobs", type=int, metavar="N", help="worker processes packing side by side (default: one "
+                    "per core)")
+    pk.add_argument("--scheduler", metavar="ADDRESS", help="run the batch on a Dask cluster (tcp://HOST:8786; "
+                    "default: $TSARCHIVE_SCHEDULER); its workers must see the same paths")
 
 
 def _source_options(pk: argparse.ArgumentParser) -> None:
@@ -171,6 +184,12 @@ def _caution_if_lossy(lossy: bool, to_stderr: bool = False) -> None:
 
 
 def _pack(args) -> int:
+    from .batch.plan import is_batch
+    if is_batch(args.source, args.into):
+        return _pack_batch(args)
+    if args.jobs is not None or args.scheduler:
+        raise BadInput("--jobs and --scheduler are for several recordings: add --into FOLDER")
+    args.source = args.source[0]
     from .options import PackOptions
     from .pipeline import pack
     options = _read_options(args)
@@ -201,6 +220,35 @@ def _pack(args) -> int:
     print(pack_table(res))
     _caution_if_lossy(lossy)
     return 0
+
+
+def _pack_batch(args) -> int:
+    from .batch.plan import BatchSettings, plan_batch
+    from .batch.run import SCHEDULER_ENV
+    if args.output:
+        raise BadInput("several recordings are packed into a folder: give it with --into FOLDER instead of -o")
+    if not args.into:
+        raise BadInput("several recordings (or a folder, or a pattern) need an output folder: add --into FOLDER")
+    if args.jobs is not None and args.jobs < 1:
+        raise BadInput(f"--jobs {args.jobs}: give a whole number of at least 1")
+    from .options import PackOptions
+    PackOptions.parse(args.budget, args.window, args.code_size)   # the command's error, not each file's
+    plan = plan_batch(args.source, args.into)
+    from .batch.console import dry_run_text, pack_many
+    if args.dry_run:
+        print(dry_run_text(plan))
+        return 0
+    settings = BatchSettings(budget=args.budget, rate=args.rate, window=args.window, code_size=args.code_size,
+                             read_options=_read_options(args), force=args.force)
+    scheduler = args.scheduler or os.environ.get(SCHEDULER_ENV, "").strip() or None
+    try:
+        summary = pack_many(plan, settings, jobs=args.jobs, scheduler=scheduler, as_json=args.json, quiet=args.quiet)
+    except KeyboardInterrupt:
+        print("tsarchive: interrupted; the archives finished so far are kept: run the same command again to "
+              "pack the rest", file=sys.stderr)
+        return 2
+    _caution_if_lossy(str(args.budget).strip().lower() != "lossless", to_stderr=args.json)
+    return 0 if summary.ok else 1
 
 
 def _unpack(args) -> int:
@@ -263,6 +311,13 @@ def _verify(args) -> int:
 
 
 def _report(args) -> int:
+    from .batch.catalog import has_catalog
+    if Path(args.archive).is_dir() and not (Path(args.archive) / "manifest.json").exists() \
+            and has_catalog(args.archive):
+        from .batch.console import catalog_report
+        text, ok = catalog_report(args.archive, args.json)
+        print(text)
+        return 0 if ok else 1
     from .report import archive_dict, archive_table
     from .archive import open_archive
     arc = open_archive(args.archive)

@@ -74,6 +74,10 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("--long-budget", default="0.1%", help="budget spec for the long modes (default 0.1%%)")
     p.add_argument("--study", choices=("residuals",),
                    help="instead of the case tables: the residual coders on the real sets (bench/residual_study.py)")
+    p.add_argument("--batch", action="store_true", help="batch throughput: files/s with 1, 2 and N jobs (bench/batch.py)")
+    p.add_argument("--batch-files", type=_positive(int), default=1000, help="short logs for --batch (default 1000)")
+    p.add_argument("--batch-copies", type=int, default=100, help="copies of the sample streams for --batch (default 100)")
+    p.add_argument("--batch-dask", action="store_true", help="--batch also on a Dask LocalCluster")
     return p
 
 
@@ -141,6 +145,8 @@ def main(argv: list[str] | None = None) -> int:
                    or r.baseline_worst > 1.0]
             ok &= not bad
             report.update(rows=[r.to_dict() for r in rows], cases=about, skipped=skipped)
+        if args.batch:
+            ok &= _batch_mode(args, report, out, log)
         if args.speed or args.random_access or args.memory:
             with tempfile.TemporaryDirectory(prefix="tsbench-long-") as tmp:
                 ok &= _long_modes(args, train, Path(tmp), report, out, log)
@@ -169,6 +175,16 @@ def _study(args, report: dict, out, log) -> int:
         args.json.write_text(json.dumps(report, indent=1, default=str))
         out(f"\nwrote {args.json}")
     return 0
+def _batch_mode(args, report: dict, out, log) -> bool:
+    from . import batch
+    streams = args.streams or runner.default_streams_dir()
+    with tempfile.TemporaryDirectory(prefix="tsbench-batch-") as tmp:
+        runs = batch.run(args.batch_files, args.batch_copies if streams else 0, streams, Path(tmp), args.batch_dask, log)
+    out("\nbatch: pack FOLDER --into OUT; 1 job = the bench's own process; same archives = every archive file's "
+        "SHA-256 equal to the 1-job run's")
+    out(batch.table(runs))
+    report["batch"] = [r.to_dict() for r in runs]
+    return all(r.failed == 0 and r.identical is not False for r in runs)
 
 
 def _long_modes(args, train, tmp: Path, report: dict, out, log) -> bool:

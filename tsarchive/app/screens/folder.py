@@ -3,7 +3,12 @@
 Names and sizes are listed at once; durations, channel counts and ratios are read
 by a worker one file at a time (``tsarchive.inspect_source`` / ``tsarchive.open``)
 so a big folder stays responsive. The check column shows this session's
-verification state of each archive (kept in the App, not on disk).
+verification state of each archive (kept in the App, not on disk), else a kept record.
+
+A batch's output folder (``pack --into``) has a catalog (``catalog.parquet``): its
+archives, also those in subfolders (named by their relative path), are listed with
+the catalog's figures and check instead of being opened one by one; a row whose
+archive changed since it was catalogued is read from the archive as usual.
 """
 
 from __future__ import annotations
@@ -23,7 +28,8 @@ from tsarchive.app.messages import FolderDetailsLoaded, WorkFailed
 from tsarchive.app.screens.base import Notices
 from tsarchive.app.widgets.pick_table import PickTable
 from tsarchive.app.checkrecord import read_record
-from tsarchive.app.summary import UNVERIFIED, archive_duration
+from tsarchive.app.summary import UNVERIFIED, VERIFIED_OK, archive_duration
+from tsarchive.batch.catalog import current_rows, is_catalog
 from tsarchive.errors import TsArchiveError
 
 COLUMNS = ("Name", "Kind", "Size", "Length", "Ch", "Ratio", "Check")
@@ -49,6 +55,7 @@ class FolderScreen(Notices, Screen):
         self.entries: list[FolderEntry] = []
         self.details: dict[Path, FolderDetailsLoaded] = {}
         self.pending: Path | None = None
+        self.catalog: dict[Path, dict] = {}      # the folder's catalog rows by archive path (see module doc)
 
     def compose(self) -> ComposeResult:
         yield Static("", id="folder-title", classes="title", markup=False)
@@ -71,11 +78,18 @@ class FolderScreen(Notices, Screen):
         except TsArchiveError as exc:
             self.notify(str(exc), severity="error")
             found = []
-        found = [FolderEntry(e.path, e.kind, tree_size(e.path)) if e.is_archive else e for e in found]
+        self.catalog = current_rows(self.folder)
+        found = [e for e in found if not is_catalog(e.path)]      # the catalog table is no recording
+        listed = {e.path for e in found}
+        below = [FolderEntry(p, "archive", 0) for p in sorted(self.catalog) if p not in listed]
+        found = [self._sized(e) if e.is_archive else e for e in below + found]
+        found.sort(key=lambda e: not e.is_archive)       # archives first, as scan_folder lists them
         old_sizes = {e.path: e.size for e in self.entries}
         for e in found:
             if old_sizes.get(e.path) != e.size:
                 self.details.pop(e.path, None)
+            if e.path in self.catalog and e.path not in self.details:
+                self.details[e.path] = self._catalogued(e.path)
         table = self.query_one(DataTable)
         keep = table.cursor_row
         chosen = self.selected.path if self.selected is not None else None
@@ -98,19 +112,37 @@ class FolderScreen(Notices, Screen):
         if missing:
             self.load_details(missing)
 
+    def _sized(self, e: FolderEntry) -> FolderEntry:
+        row = self.catalog.get(e.path)
+        return FolderEntry(e.path, e.kind, row["archive_bytes"] if row else tree_size(e.path))
+
+    def _catalogued(self, path: Path) -> FolderDetailsLoaded:
+        row = self.catalog[path]
+        return FolderDetailsLoaded(path, row["duration_s"], len(row["channels"]), row["rate_hz"], row["ratio"])
+
+    def _shown_name(self, e: FolderEntry) -> str:
+        return e.path.name if e.path.parent == self.folder else e.path.relative_to(self.folder).as_posix()
+
+    def _check(self, e: FolderEntry) -> str:
+        if not e.is_archive:
+            return "—"
+        if e.path in self.app.checks:  # type: ignore[attr-defined]
+            return self.app.checks[e.path]  # type: ignore[attr-defined]
+        kept = read_record(e.path)
+        if kept is not None:
+            return kept.state
+        return VERIFIED_OK if e.path in self.catalog else UNVERIFIED
+
     def _cells(self, e: FolderEntry) -> tuple[str, ...]:
         d = self.details.get(e.path)
-        if e.is_archive:
-            kept = read_record(e.path) if e.path not in self.app.checks else None  # type: ignore[attr-defined]
-            check = self.app.checks.get(e.path, kept.state if kept else UNVERIFIED)  # type: ignore[attr-defined]
-        else:
-            check = "—"
+        check = self._check(e)
+        name = self._shown_name(e)
         if d is None:
-            return (e.path.name, e.kind, fmt.size(e.size), WAITING, WAITING, WAITING if e.is_archive else "—", check)
+            return (name, e.kind, fmt.size(e.size), WAITING, WAITING, WAITING if e.is_archive else "—", check)
         if d.problem:
-            return (e.path.name, e.kind, fmt.size(e.size), "unreadable", "—", "—", check)
+            return (name, e.kind, fmt.size(e.size), "unreadable", "—", "—", check)
         n = "—" if d.n_channels is None else str(d.n_channels)
-        return (e.path.name, e.kind, fmt.size(e.size), fmt.duration(d.duration), n,
+        return (name, e.kind, fmt.size(e.size), fmt.duration(d.duration), n,
                 fmt.ratio(d.ratio) if e.is_archive else "—", check)
 
     @work(thread=True, exclusive=True, group="folder-details", exit_on_error=False)
@@ -182,7 +214,10 @@ class FolderScreen(Notices, Screen):
             return
         d = self.details.get(e.path)
         what = "Enter opens it in the Contents screen." if e.is_archive else "Enter or p takes it to the Packing screen."
-        line = f"{e.path.name}: {what}"
+        line = f"{self._shown_name(e)}: {what}"
+        row = self.catalog.get(e.path)
+        if row is not None and e.path not in self.app.checks:  # type: ignore[attr-defined]
+            line += f"\ncatalog: {row['check']} ({row['checked_utc']:%Y-%m-%d %H:%M} UTC)"
         if d is not None and d.problem:
             line += f"\n{d.problem}"
         elif d is not None and d.rate:
