@@ -47,6 +47,7 @@ from .store.manifest import build_manifest
 from .store.sidecar import stage_sidecar
 from .store.timeaxis import check_axis
 from .store.claim import claim_target
+from .index import build_index
 from .store.writer import ArchiveWriter, check_target
 from .windows import DEFAULT_WINDOW, MAX_WINDOW, MIN_WINDOW, batches, channel_scale, levels, n_windows, normalise
 
@@ -77,7 +78,7 @@ PROBE_EVAL_SAMPLES = 1 << 18  # per channel: the probe's saving is estimated on 
 
 def pack(source, archive, budget=None, *, rate: float | None = None, window: int | None = None,
          code_size: int | None = None, force: bool = False, progress: ProgressFn = None, cancel=None,
-         train_seconds: float = 60.0, seed: int = 0, read_options=None) -> PackResult:
+         train_seconds: float = 60.0, seed: int = 0, read_options=None, segment: int | None = None) -> PackResult:
     """Pack ``source`` (a path or a :class:`Recording`) into the archive directory ``archive``.
 
     Every sample of the archive is within its channel's budget; the archive
@@ -99,6 +100,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     (``DEFAULT_WINDOW`` when a code size > 0 is given: codes are asked for to
     browse by them, in the finer segments).  ``read_options``
     (:class:`~tsarchive.ingest.ReadOptions`) says how to read a source path.
+    ``segment`` is the learned index's samples per browse segment (None: :mod:`tsarchive.index`'s default).
     """
     t0 = time.perf_counter()
     emit = _emitter(progress, cancel)
@@ -174,7 +176,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
             bound = _model_bytes(rec, W, K, nwin)
             if not explicit and K and ceiling <= (PROBE_SHARE if probe else 1.0) * bound:
                 hopeless.set()
-            job = dict(archive=archive, force=force, rec=rec, spec=spec, grids=grids, scales=scales, notes=notes,
+            job = dict(archive=archive, force=force, rec=rec, segment=segment, seed=seed, spec=spec, grids=grids, scales=scales, notes=notes,
                        names=names, W=W, K=K, emit=emit, progress=progress,
                        read_options=None if isinstance(source, Recording) else read_options)
 
@@ -295,6 +297,7 @@ def _write(job: dict, model, plans, model_note, decide=None) -> dict:
         emit("write", 0, 1, "writing the model and the manifest")
         writer.write_model({} if decoder is None else decoder.to_arrays())
         sidecar = stage_sidecar(writer.stage, rec)     # time axis, notes, text columns
+        writer.write_index(build_index(rec, job["segment"], job["seed"]))   # index.parquet (tsarchive/index)
         manifest = build_manifest(rec, job["spec"], job["grids"], job["scales"], [p.lpc for p in plans], tables,
                                   job["notes"], job["W"], job["K"], decoder, model_note, summaries,
                                   writer.staged_bytes())
