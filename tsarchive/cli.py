@@ -57,6 +57,8 @@ def _parser() -> argparse.ArgumentParser:
                     help="autoencoder code length per window (default: auto = 8, and the autoencoder is kept only "
                          "where it saves more than its weights and codes cost; an explicit K always keeps it, "
                          "for browsing by codes; 0 = none)")
+    pk.add_argument("--segment", type=int, metavar="N", help="samples per segment of the learned index "
+                    "(what unusual, alike and glance list; default 256, fewer on short recordings)")
     pk.add_argument("--force", action="store_true", help="replace an existing archive")
     pk.add_argument("--json", action="store_true", help="print the result as JSON")
     pk.add_argument("--quiet", action="store_true", help="no progress line (it is shown on a terminal only)")
@@ -97,6 +99,8 @@ def _parser() -> argparse.ArgumentParser:
 
     br = sub.add_parser("browse", help="open the terminal app on an archive or a folder")
     br.add_argument("path", nargs="?", default=".")
+    from .cli_look import add_commands
+    add_commands(sub)                          # unusual, alike, glance (tsarchive/cli_look.py)
     return p
 
 
@@ -132,8 +136,9 @@ def main(argv: list[str] | None = None) -> int:
             return 0
         if args.command is None:
             return _app(Path("."))
+        from .cli_look import HANDLERS
         code = {"pack": _pack, "unpack": _unpack, "verify": _verify, "report": _report, "demo": _demo,
-                "browse": lambda a: _app(Path(a.path))}[args.command](args)
+                "browse": lambda a: _app(Path(a.path)), **HANDLERS}[args.command](args)
         sys.stdout.flush()  # a closed pipe shows up here, inside the handler, not at interpreter exit
         return code
     except BrokenPipeError:
@@ -181,7 +186,8 @@ def _pack(args) -> int:
     line = ProgressLine(enabled=False if args.quiet else None)
     try:
         res = pack(args.source, args.output, args.budget, rate=args.rate, window=args.window,
-                   code_size=args.code_size, force=args.force, read_options=options, progress=line)
+                   code_size=args.code_size, force=args.force, read_options=options, progress=line,
+                   segment=args.segment)
     finally:
         line.close()
     lossy = any(c.eps > 0 for c in res.channels)

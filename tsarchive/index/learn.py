@@ -11,8 +11,8 @@ codes decode to; the better one is kept and named in the member (``kind``).
   machine (a BLAS SVD is not).  A linear autoencoder trained with squared
   error spans the same subspace (Baldi & Hornik 1989).  The basis is stored
   as int8 rows with a power-of-two scale each; a code is the projection
-  divided by a power-of-two ``step`` chosen so that rounding adds at most
-  about the basis's own error, rounded to int16.
+  divided by a power-of-two ``step`` (at most the basis's own error, and at
+  most 1/16 of the leading component's spread), rounded and clipped to int8.
 * ``nonlinear`` -- :func:`tsarchive.model.train.train_autoencoder` (normalised
   inputs, learning rate 1e-3, tanh codes in int8, early stopping on held-out
   segments, a work budget) with its integer decoder; tried only on channels
@@ -37,7 +37,8 @@ AE_HIDDEN = 32
 AE_WORK = 6e9                # multiply-adds of autoencoder training (a work budget, never the clock)
 AE_LR = 1e-3                 # 1e-2 saturates the tanh codes (issue 13); 1e-3 does not
 MODEL_SHARE = 0.01           # a kept autoencoder decoder costs at most this share of the channel's raw bytes
-MAX_CODE = 32767
+MAX_CODE = 127               # codes are int8 (a segment whose projection is larger is clipped: its miss shows it)
+CODE_LEVELS = 16             # the code step is at most the leading component's spread / 16 (look-alikes need it)
 
 
 @dataclass(frozen=True, eq=False)
@@ -62,21 +63,22 @@ class Coder:
         return self.basis.astype(np.float64) * np.ldexp(1.0, -self.shifts.astype(np.int64))[:, None]
 
     def encode(self, X: np.ndarray) -> np.ndarray:
-        """int16 codes (n, K) of normalised segments (n, S); the same bits on every machine."""
+        """Codes (n, K) in int8 range, held as int16, of normalised segments (n, S); the same bits on every machine."""
         if self.kind == "nonlinear":
-            return self.encoder(X).astype(np.int16)
+            return np.clip(self.encoder(X), -MAX_CODE, MAX_CODE).astype(np.int16)
         z = exact.matmul(X, self.rows.T) / self.step
         return np.clip(np.rint(z), -MAX_CODE, MAX_CODE).astype(np.int16)
 
-    def decode(self, codes: np.ndarray, *, exact_sums: bool = True) -> np.ndarray:
-        """Normalised segments (n, S) float64 from codes; ``exact_sums`` repeats bit for bit (pack time),
-        without it a plain BLAS product (previews)."""
+    def decode(self, codes: np.ndarray, *, exact_sums: bool = True, scale: float = 1.0) -> np.ndarray:
+        """Normalised segments (n, S) float64 from codes, times ``scale``; ``exact_sums`` repeats bit for bit
+        (pack time), without it a plain BLAS product (previews)."""
         if self.kind == "nonlinear":
-            return self.decoder.predict_float(np.asarray(codes, dtype=np.int64))
-        c = np.asarray(codes, dtype=np.float64) * self.step
-        if not len(c):
+            return self.decoder.predict_float(np.asarray(codes, dtype=np.int64)) * scale
+        if not len(codes):
             return np.zeros((0, self.segment))
-        return exact.matmul(c, self.rows) if exact_sums else c @ self.rows
+        if exact_sums:
+            return exact.matmul(np.asarray(codes, dtype=np.float64) * self.step, self.rows) * scale
+        return np.asarray(codes, dtype=np.float64) @ (self.rows * (self.step * scale))
 
 
 def code_size_for(n_segments: int, n_samples: int, segment: int) -> int:
@@ -140,7 +142,7 @@ def fit_linear(train: np.ndarray, K: int, seed: int = 0) -> Coder:
     e = exact.matmul(z, plain.rows) - train
     e_res = exact.total(e * e) / max(len(train), 1)               # per segment
     top = exact.total(z[:, 0] * z[:, 0]) / max(len(train), 1) if z.size else 0.0
-    step = max(math.sqrt(12.0 * e_res / q.shape[0]), math.sqrt(top) / 4096, 2.0 ** -30)
+    step = max(min(math.sqrt(12.0 * e_res / q.shape[0]), math.sqrt(top) / CODE_LEVELS), 2.0 ** -30)
     step = math.ldexp(1.0, math.frexp(step)[1] - 1)              # a power of two at or below
     return Coder("linear", S, q.shape[0], basis=q, shifts=shifts, step=step)
 

@@ -1,8 +1,9 @@
 """The ``index.parquet`` member: one row per channel segment, the coders in the footer's key-value metadata.
 
 Columns: ``channel`` (string), ``segment`` (int32, from 0, time order),
-``level`` (int64, the segment's mean in units of ``level_step``), ``code`` (list<int16>,
-the learned code), and one uint8 column per fact of
+``level`` (int64, the segment's mean in units of ``level_step``), ``c0`` .. ``c7`` (int8, the
+learned code, one column per code value so that each is entropy-coded on its own; null past the
+channel's code size), and one uint8 column per fact of
 :data:`tsarchive.index.build.FACT_NAMES` (magnitudes on the log scale of
 :func:`tsarchive.index.segments.log_code` against the channel's ``ref``).
 Parquet's zstd stage entropy-codes the small integers.
@@ -43,8 +44,10 @@ NAME = "index.parquet"
 KEY = b"tsarchive.index"
 VERSION = 1
 ROW_GROUP = 1 << 16
-SCHEMA = pa.schema([("channel", pa.string()), ("segment", pa.int32()), ("level", pa.int64()),
-                    ("code", pa.list_(pa.int16()))] + [(n, pa.uint8()) for n in FACT_NAMES])
+MAX_CODE_SIZE = 8
+CODE_COLUMNS = tuple(f"c{k}" for k in range(MAX_CODE_SIZE))
+SCHEMA = pa.schema([("channel", pa.string()), ("segment", pa.int32()), ("level", pa.int64())]
+                   + [(c, pa.int8()) for c in CODE_COLUMNS] + [(n, pa.uint8()) for n in FACT_NAMES])
 _INT_DTYPES = {"int8": np.int8, "int16": np.int16, "int64": np.int64}
 
 
@@ -86,9 +89,8 @@ def write(folder: Path, index: list[ChannelIndex]) -> Path:
         cols = {"channel": pa.array([ci.name] * ci.n_segments, pa.string()),
                 "segment": pa.array(np.arange(ci.n_segments, dtype=np.int32)),
                 "level": pa.array(ci.level.astype(np.int64)),
-                "code": pa.ListArray.from_arrays(pa.array(np.arange(0, ci.codes.size + 1, max(ci.coder.code_size, 1),
-                                                                    dtype=np.int32)[:ci.n_segments + 1]),
-                                                 pa.array(ci.codes.ravel().astype(np.int16)))}
+                **{c: (pa.array(ci.codes[:, k].astype(np.int8)) if k < ci.coder.code_size
+                       else pa.nulls(ci.n_segments, pa.int8())) for k, c in enumerate(CODE_COLUMNS)}}
         cols.update({n: pa.array(ci.facts[:, k]) for k, n in enumerate(FACT_NAMES)})
         parts.append(pa.table(cols, schema=SCHEMA))
     table = pa.concat_tables(parts) if parts else SCHEMA.empty_table()
@@ -116,7 +118,7 @@ def _number(d: dict, key: str, lo: float, hi: float, integer: bool = False):
 
 
 def _coder(d: dict) -> Coder:
-    kind, K, S = d.get("kind"), _number(d, "code_size", 1, 64, True), _number(d, "segment", 1, 1 << 20, True)
+    kind, K, S = d.get("kind"), _number(d, "code_size", 1, MAX_CODE_SIZE, True), _number(d, "segment", 1, 1 << 20, True)
     lin = d.get("heldout_linear")
     non = d.get("heldout_nonlinear")
     common = dict(heldout_linear=math.nan if lin is None else float(lin),
@@ -137,13 +139,16 @@ def _coder(d: dict) -> Coder:
     raise ArchiveCorrupt(f"{NAME}: channel {d.get('name')!r} names an unknown coder; upgrade tsarchive or re-pack")
 
 
-def read(archive, channel: str) -> ChannelIndex:
-    """The stored index of ``channel`` (see :func:`has_index`); ArchiveCorrupt when damaged."""
+def read(archive, channel: str, *, facts: bool = True) -> ChannelIndex:
+    """The stored index of ``channel`` (see :func:`has_index`); ArchiveCorrupt when damaged.  Without
+    ``facts`` (a preview needs none) those columns are not read and come back as zeros."""
     path = Path(archive.path) / NAME
     try:
         f = pq.ParquetFile(path)
         meta = json.loads((f.metadata.metadata or {}).get(KEY, b"null"))
-        t = pq.read_table(path, filters=[("channel", "=", channel)])
+        cols = [c for c in SCHEMA.names if facts or c not in FACT_NAMES]
+        t = f.read(columns=cols)
+        t = t.filter(pc.equal(t["channel"], channel))
     except (OSError, ValueError, pa.ArrowException) as exc:
         raise ArchiveCorrupt(f"{NAME} cannot be read ({str(exc)[:80]}); the archive is damaged") from None
     if not isinstance(meta, dict) or meta.get("version") != VERSION or not isinstance(meta.get("channels"), list):
@@ -153,17 +158,18 @@ def read(archive, channel: str) -> ChannelIndex:
         raise ArchiveCorrupt(f"{NAME} has no entry for channel {channel!r}; the archive is damaged")
     coder = _coder(d)
     n = _number(d, "n_samples", 0, 1 << 62, True)
-    t = t.take(pc.sort_indices(t["segment"]))
     seg = t["segment"].to_numpy()
+    if len(seg) and not np.all(seg[1:] > seg[:-1]):
+        t = t.take(pc.sort_indices(t["segment"]))
+        seg = t["segment"].to_numpy()
+    used = [c for c in t.column_names if c not in CODE_COLUMNS[coder.code_size:]]
     if len(seg) != -(-n // coder.segment) or not np.array_equal(seg, np.arange(len(seg))) or \
-            t["code"].null_count or any(t[c].null_count for c in t.column_names):
+            any(t[c].null_count for c in used):
         raise ArchiveCorrupt(f"{NAME}: channel {channel!r} is missing segment rows; the archive is damaged")
-    flat = t["code"].combine_chunks()
-    if len(flat.values) != len(seg) * coder.code_size:
-        raise ArchiveCorrupt(f"{NAME}: channel {channel!r} has codes of the wrong length; the archive is damaged")
-    codes = flat.values.to_numpy(zero_copy_only=False).astype(np.int16).reshape(len(seg), coder.code_size)
-    facts = np.stack([t[n].to_numpy() for n in FACT_NAMES], axis=1).astype(np.uint8) if len(seg) else \
-        np.zeros((0, len(FACT_NAMES)), np.uint8)
+    codes = np.stack([t[c].to_numpy() for c in CODE_COLUMNS[:coder.code_size]], axis=1).astype(np.int16) \
+        if len(seg) else np.zeros((0, coder.code_size), np.int16)
+    facts = np.stack([t[n].to_numpy() for n in FACT_NAMES], axis=1).astype(np.uint8) if len(seg) and facts else \
+        np.zeros((len(seg), len(FACT_NAMES)), np.uint8)
     return ChannelIndex(channel, coder.segment, n, float(_number(d, "ref", 0.0, 1e300)), coder,
                         t["level"].to_numpy().astype(np.int64), float(_number(d, "level_step", 2.0 ** -1000, 1e300)),
                         codes, facts, float(_number(d, "worst", 0.0, 1e300)))

@@ -12,8 +12,8 @@ everything else elementwise IEEE operations):
 * ``peak`` -- largest distance of a sample from the mean;
 * ``flat`` -- share of first differences that are exactly zero (a stuck sensor), in 1/16ths.
 
-Magnitudes are stored as one byte each on a logarithmic scale of 4 steps
-per octave relative to the channel's spread (:func:`log_code`): about 19 %
+Magnitudes are stored as one byte each on a logarithmic scale of 8 steps
+per octave relative to the channel's spread (:func:`log_code`): about 9 %
 resolution, which is all a ranking needs and costs a few bits once entropy-coded.
 """
 
@@ -30,7 +30,7 @@ MIN_SEGMENTS = 64            # a recording is cut into at least this many segmen
 DEFAULT_SEGMENT = 256        # samples per segment for recordings long enough
 MIN_SEGMENT = 16
 MAX_SEGMENT = 1 << 16
-STEPS_PER_OCTAVE = 4
+STEPS_PER_OCTAVE = 8
 LOG_FLOOR_OCTAVES = 16       # code 1 is 2**-16 of the reference; 0 means "zero or below"
 
 
@@ -49,8 +49,8 @@ def choose_segment(n_samples: int, asked: int | None = None) -> int:
 
 
 def _log_table() -> np.ndarray:
-    """Thresholds 2**((k - 1) / 4 - 16) for k = 1..255, from sqrt and products only (each correctly rounded)."""
-    r = float(np.sqrt(np.sqrt(2.0)))              # 2**(1/4)
+    """Thresholds 2**((k - 1) / 8 - 16) for k = 1..255, from sqrt and products only (each correctly rounded)."""
+    r = float(np.sqrt(np.sqrt(np.sqrt(2.0))))     # 2**(1/8)
     steps = [1.0]
     for _ in range(STEPS_PER_OCTAVE - 1):
         steps.append(steps[-1] * r)
