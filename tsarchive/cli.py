@@ -58,7 +58,7 @@ def _parser() -> argparse.ArgumentParser:
                          "where it saves more than its weights and codes cost; an explicit K always keeps it, "
                          "for browsing by codes; 0 = none)")
     pk.add_argument("--segment", type=int, metavar="N", help="samples per segment of the learned index "
-                    "(what unusual, alike and glance list; default 256, fewer on short recordings)")
+                    "(what unusual, alike and glance list; default 256, fewer on short recordings; 0 = no index)")
     pk.add_argument("--force", action="store_true", help="replace an existing archive")
     pk.add_argument("--json", action="store_true", help="print the result as JSON")
     pk.add_argument("--quiet", action="store_true", help="no progress line (it is shown on a terminal only)")

@@ -71,6 +71,10 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("--long-hours", type=_positive(float), default=1.0, help="length of the long record (default 1 h)")
     p.add_argument("--long-channels", type=_positive(int), default=8, help="channels of the long record (default 8)")
     p.add_argument("--long-budget", default="0.1%", help="budget spec for the long modes (default 0.1%%)")
+    p.add_argument("--injection", action="store_true", help="the learned index against simple baselines: faults "
+                   "injected into the real recordings (precision@k), look-alike recall@5, query and preview costs")
+    p.add_argument("--injection-seeds", type=_positive(int), default=3, help="seeds per fault kind (default 3)")
+    p.add_argument("--injection-sets", help="comma list of real sets (default: every shipped set of >= 4096 samples)")
     return p
 
 
@@ -136,6 +140,9 @@ def main(argv: list[str] | None = None) -> int:
                    or r.baseline_worst > 1.0]
             ok &= not bad
             report.update(rows=[r.to_dict() for r in rows], cases=about, skipped=skipped)
+        if args.injection:
+            from .injection import run_all
+            report["injection"] = run_all(args, out, log)
         if args.speed or args.random_access or args.memory:
             with tempfile.TemporaryDirectory(prefix="tsbench-long-") as tmp:
                 ok &= _long_modes(args, train, Path(tmp), report, out, log)

@@ -312,3 +312,21 @@ def cost_table(query: QueryCost, rows: list[ArchiveCost]) -> str:
                      f"{100 * r.index_bytes / r.archive_bytes:>5.1f}% {r.decode_s:>9.4f} {r.preview_s:>9.4f} "
                      f"{r.decode_s / r.preview_s:>6.1f}x {r.worst / r.eps if r.eps else float('nan'):>9.1f}")
     return "\n".join(lines)
+
+
+def run_all(args, out, log) -> dict:
+    """The ``--injection`` mode of ``python -m tsarchive.bench``: both tables; returns them for ``--json``."""
+    import tempfile
+    sets = [t.strip() for t in args.injection_sets.split(",")] if args.injection_sets else None
+    res = run(sets, seeds=args.injection_seeds, log=log)
+    out(f"\ninjection: {N_INJECT} faulty segments per recording and run, {args.injection_seeds} seed(s); "
+        f"precision@k (k = {N_INJECT}), mean over sets {', '.join(res.sets)} and seeds")
+    out(table(res))
+    with tempfile.TemporaryDirectory(prefix="tsbench-index-") as tmp:
+        costs = [c for c in (archive_cost(n, tmp, log=log) for n in res.sets) if c is not None]
+    q = query_cost()
+    out("\nindex costs (packed at 0.1 % with the defaults; decode = the channel in full through the reader, "
+        "preview = codes only, best of 3; worst/eps = the preview's worst error over the budget):")
+    out(cost_table(q, costs))
+    return {"precision": {"|".join(k): v for k, v in res.precision.items()}, "recall_at_5": res.recall,
+            "query": q.__dict__, "archives": [c.__dict__ for c in costs]}

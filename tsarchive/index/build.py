@@ -116,8 +116,11 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
 
 
 def build_index(rec, segment: int | None = None, seed: int = 0, try_nonlinear: bool = True) -> list[ChannelIndex]:
-    """The index of every channel of a :class:`~tsarchive.recording.Recording`."""
+    """The index of every channel of a :class:`~tsarchive.recording.Recording` (``segment=0``: none, an
+    empty list)."""
     out = []
+    if segment == 0:
+        return out
     for j, ch in enumerate(rec.channels):
         def column(a: int, b: int, j=j):
             return rec.rows(a, b)[:, j]

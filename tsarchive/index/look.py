@@ -32,7 +32,8 @@ BASED_ON_FALLBACK = {
                "of the code-only reconstruction, or the peak distance from the window's mean)",
     "alike": "no learned index in this archive: windows whose stored codes (or, without codes, coarse shapes "
              "of the decoded window) are nearest",
-    "glance": "no learned index in this archive: each window's stored level only (approximate, error not measured)",
+    "glance": "no learned index in this archive: each window's code-only reconstruction, or its stored level "
+              "where the archive has no codes (approximate, error not measured)",
 }
 
 

@@ -38,6 +38,8 @@ def choose_segment(n_samples: int, asked: int | None = None) -> int:
     """Samples per segment: ``asked`` if given, else 256, halved (down to 16) until the recording holds
     at least :data:`MIN_SEGMENTS` segments."""
     if asked is not None:
+        if asked == 0:
+            raise BadInput("segment 0 means no index; there is nothing to cut")
         if isinstance(asked, bool) or not isinstance(asked, (int, np.integer)) or not 2 <= asked <= MAX_SEGMENT:
             raise BadInput(f"segment {asked!r} is not a whole number of samples in 2..{MAX_SEGMENT}; "
                            "choose e.g. 256")

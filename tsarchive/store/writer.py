@@ -117,9 +117,10 @@ class ArchiveWriter:
                                                               "values": "BYTE_STREAM_SPLIT"})
 
     def write_index(self, index) -> None:
-        """The learned index (optional member ``index.parquet``; :mod:`tsarchive.index.member`)."""
-        from ..index.member import write
-        write(self.stage, index)
+        """The learned index (optional member ``index.parquet``; :mod:`tsarchive.index.member`); none if empty."""
+        if index:
+            from ..index.member import write
+            write(self.stage, index)
 
     def staged_bytes(self) -> int:
         """Bytes staged so far (windows.parquet stays open for its footer: its footer is not counted)."""
