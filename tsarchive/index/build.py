@@ -56,11 +56,36 @@ class ChannelIndex:
     def fact(self, name: str) -> np.ndarray:
         return self.facts[:, FACT_NAMES.index(name)]
 
+    @property
+    def tail_shift(self) -> int:
+        """How far the last segment's coded samples reach back: a short last segment is coded as the
+        recording's last ``segment`` samples (overlapping its neighbour), so its code describes a whole
+        stretch; its own samples are the final ones of that stretch."""
+        return _tail_shift(self.n_samples, self.segment)
+
+    def own(self, a: int = 0, b: int | None = None) -> np.ndarray:
+        """(b - a, S) bool: where segment ``i``'s own samples lie in its coded stretch."""
+        return _own(self.n_samples, self.segment, a, self.n_segments if b is None else b)
+
     def lengths(self) -> np.ndarray:
         n = np.full(self.n_segments, self.segment, dtype=np.int64)
         if self.n_segments:
             n[-1] = self.n_samples - self.segment * (self.n_segments - 1)
         return n
+
+
+def _tail_shift(n: int, S: int) -> int:
+    return (S - n % S) if n % S and n >= S else 0
+
+
+def _own(n: int, S: int, a: int, b: int) -> np.ndarray:
+    L = _lengths(n, S, a, b)
+    pos = np.arange(S)[None, :]
+    own = pos < L[:, None]
+    last = -(-n // S) - 1
+    if a <= last < b and _tail_shift(n, S):
+        own[last - a] = pos[0] >= _tail_shift(n, S)
+    return own
 
 
 def _lengths(n_samples: int, S: int, a: int, b: int) -> np.ndarray:
@@ -92,6 +117,10 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
     ref = float(np.sqrt(exact.total(mags[0] * mags[0]) / max(n_seg, 1))) or 1.0
     f[:, 0] = log_code(mags[1], ref)
     level_step = math.ldexp(1.0, math.frexp(ref / LEVEL_PARTS)[1] - 1)
+    shift = _tail_shift(n_samples, S)
+    if shift:                                        # the short last segment is coded as the last S samples
+        tail = as_segments(column(n_samples - S, n_samples), S, 0.0)
+        mean[-1] = exact.total(tail, axis=1)[0] / S
     level = np.rint(mean / level_step).astype(np.int64)
     X = np.concatenate(sample) / ref if sample else np.zeros((0, S))
     K = learn.code_size_for(n_seg, n_samples, S)
@@ -102,15 +131,19 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
         b = min(n_seg, a + step)
         raw = column(a * S, min(n_samples, b * S))
         rows = as_segments(raw, S, 0.0)
+        if shift and b == n_seg:
+            rows[-1] = tail[0]
         L = _lengths(n_samples, S, a, b)
         codes[a:b] = coder.encode((rows - mean[a:b, None]) / ref)
         approx = (level[a:b, None] * level_step) + coder.decode(codes[a:b]) * ref
-        inside = np.arange(S)[None, :] < L[:, None]
+        inside = _own(n_samples, S, a, b)
         miss = np.where(inside, approx - rows, 0.0)
         f[a:b, 2] = log_code(np.sqrt(exact.total(miss * miss, axis=1) / L), ref)
         f[a:b, 3] = log_code(np.abs(miss).max(axis=1), ref)
         finite = np.isfinite(np.asarray(raw, dtype=np.float64))
-        seen = np.abs(miss).ravel()[:len(raw)][finite]
+        if shift and b == n_seg:                   # the samples of ``raw`` in coded order
+            finite = np.concatenate([finite[:-(S - shift)], np.isfinite(tail[0][shift:])])
+        seen = np.abs(miss[inside])[finite]
         worst = max(worst, float(seen.max()) if seen.size else 0.0)
     return ChannelIndex(name, S, n_samples, ref, coder, level, level_step, codes, f, worst)
 

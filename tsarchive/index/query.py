@@ -74,7 +74,7 @@ def spread_log2(ci: ChannelIndex) -> np.ndarray:
     """log2 of each segment's spread relative to ``ref``: what the code holds plus what it misses."""
     held = ci.coder.decode(ci.codes, exact_sums=False)
     L = ci.lengths()
-    inside = np.arange(ci.segment)[None, :] < L[:, None]
+    inside = ci.own()
     held = np.where(inside, held - (held * inside).sum(axis=1, keepdims=True) / L[:, None], 0.0)
     miss = 2.0 ** _log2(ci.fact("miss"))
     s2 = (held * held).sum(axis=1) / L + miss * miss
@@ -170,4 +170,5 @@ def preview(ci: ChannelIndex, a: int = 0, b: int | None = None) -> np.ndarray:
     s0, s1 = a // ci.segment, -(-b // ci.segment)
     x = ci.coder.decode(ci.codes[s0:s1], exact_sums=False, scale=ci.ref)
     x += ci.mean[s0:s1, None]
-    return x.ravel()[a - s0 * ci.segment:b - s0 * ci.segment]
+    x = x[ci.own(s0, s1)]                       # each segment's own samples (the last one's are its tail)
+    return x[a - s0 * ci.segment:b - s0 * ci.segment]
