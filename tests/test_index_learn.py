@@ -99,3 +99,15 @@ def test_channel_index_is_deterministic_and_the_linear_code_reconstructs():
     from tsarchive.index.query import preview
     err = np.max(np.abs(preview(a) - x))                        # numpy against the source samples
     assert err <= a.worst * (1 + 1e-9) and err < 0.2
+
+
+def test_huge_and_missing_samples_keep_the_index_finite():
+    # found by tests/test_bound.py (hypothesis): a sample of 1e300 overflowed the squared deviations
+    x = np.sin(np.arange(4000) / 9.0)
+    x[5], x[700], x[2000], x[3000] = 1e300, -1e300, np.nan, 1e-310
+    ci = build_channel(lambda i, j: x[i:j], "x", len(x), try_nonlinear=False)
+    assert np.all(np.isfinite(ci.codes)) and np.isfinite(ci.worst) and ci.worst >= 9e299
+    from tsarchive.index.query import unusual_scores, ranked
+    u = unusual_scores(ci)
+    assert np.all(np.isfinite(u.score))
+    assert {5 // ci.segment, 700 // ci.segment} <= set(ranked(u.score, 3).tolist())

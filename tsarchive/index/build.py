@@ -18,7 +18,7 @@ import numpy as np
 from tsarchive.model import exact
 
 from . import learn
-from .segments import as_segments, choose_segment, facts, log_code
+from .segments import as_segments, choose_segment, facts, log_code, squares
 
 LEARN_SEGMENTS = 20000
 BLOCK_SAMPLES = 1 << 20
@@ -114,7 +114,7 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
         mean[a:b], mags[:, a:b], f[a:b, 1] = fa.mean, (fa.spread, fa.slope), fa.flat
         keep = [i - a for i in range(a, b) if i in pick]
         sample.append(rows[keep] - fa.mean[keep, None])
-    ref = float(np.sqrt(exact.total(mags[0] * mags[0]) / max(n_seg, 1))) or 1.0
+    ref = float(np.sqrt(exact.total(squares(mags[0])) / max(n_seg, 1))) or 1.0
     f[:, 0] = log_code(mags[1], ref)
     level_step = math.ldexp(1.0, math.frexp(ref / LEVEL_PARTS)[1] - 1)
     shift = _tail_shift(n_samples, S)
@@ -138,12 +138,13 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
         approx = (level[a:b, None] * level_step) + coder.decode(codes[a:b]) * ref
         inside = _own(n_samples, S, a, b)
         miss = np.where(inside, approx - rows, 0.0)
-        f[a:b, 2] = log_code(np.sqrt(exact.total(miss * miss, axis=1) / L), ref)
+        f[a:b, 2] = log_code(np.sqrt(exact.total(squares(miss), axis=1) / L), ref)
         f[a:b, 3] = log_code(np.abs(miss).max(axis=1), ref)
-        finite = np.isfinite(np.asarray(raw, dtype=np.float64))
-        if shift and b == n_seg:                   # the samples of ``raw`` in coded order
-            finite = np.concatenate([finite[:-(S - shift)], np.isfinite(tail[0][shift:])])
-        seen = np.abs(miss[inside])[finite]
+        full = as_segments(raw, S, np.nan, limit=None)     # the samples as logged (NaN where not finite)
+        if shift and b == n_seg:
+            full[-1] = as_segments(column(n_samples - S, n_samples), S, np.nan, limit=None)[0]
+        err = np.abs(approx - full)[inside]
+        seen = err[np.isfinite(err)]
         worst = max(worst, float(seen.max()) if seen.size else 0.0)
     return ChannelIndex(name, S, n_samples, ref, coder, level, level_step, codes, f, worst)
 

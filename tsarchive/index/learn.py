@@ -23,6 +23,7 @@ codes decode to; the better one is kept and named in the member (``kind``).
 from __future__ import annotations
 
 import math
+from contextlib import nullcontext
 from dataclasses import dataclass
 from typing import Callable
 
@@ -30,6 +31,8 @@ import numpy as np
 
 from tsarchive.model import exact
 from tsarchive.model.intnet import IntDecoder
+
+from .segments import squares
 
 ITERATIONS = 120             # subspace iterations (bounded work; the gap of real recordings converges well before)
 AE_MIN_SEGMENTS = 512        # fewer training segments: the autoencoder is not tried
@@ -78,7 +81,17 @@ class Coder:
             return np.zeros((0, self.segment))
         if exact_sums:
             return exact.matmul(np.asarray(codes, dtype=np.float64) * self.step, self.rows) * scale
-        return np.asarray(codes, dtype=np.float64) @ (self.rows * (self.step * scale))
+        c = np.asarray(codes, dtype=np.float64)
+        with _one_thread():                    # a thin product (K <= 8): BLAS threads only contend
+            return np.matmul(c, self.rows * (self.step * scale), out=np.empty((len(c), self.segment)))
+
+
+def _one_thread():
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:
+        return nullcontext()
+    return threadpool_limits(limits=1, user_api="blas")
 
 
 def code_size_for(n_segments: int, n_samples: int, segment: int) -> int:
@@ -130,7 +143,7 @@ def _mse(coder: Coder, X: np.ndarray) -> float:
     if not len(X):
         return math.nan
     e = coder.decode(coder.encode(X)) - X
-    return exact.total(e * e) / e.size
+    return exact.total(squares(e)) / e.size
 
 
 def fit_linear(train: np.ndarray, K: int, seed: int = 0) -> Coder:
@@ -140,8 +153,8 @@ def fit_linear(train: np.ndarray, K: int, seed: int = 0) -> Coder:
     plain = Coder("linear", S, q.shape[0], basis=q, shifts=shifts, step=1.0)
     z = exact.matmul(train, plain.rows.T)
     e = exact.matmul(z, plain.rows) - train
-    e_res = exact.total(e * e) / max(len(train), 1)               # per segment
-    top = exact.total(z[:, 0] * z[:, 0]) / max(len(train), 1) if z.size else 0.0
+    e_res = exact.total(squares(e)) / max(len(train), 1)               # per segment
+    top = exact.total(squares(z[:, 0])) / max(len(train), 1) if z.size else 0.0
     step = max(min(math.sqrt(12.0 * e_res / q.shape[0]), math.sqrt(top) / CODE_LEVELS), 2.0 ** -30)
     step = math.ldexp(1.0, math.frexp(step)[1] - 1)              # a power of two at or below
     return Coder("linear", S, q.shape[0], basis=q, shifts=shifts, step=step)

@@ -170,5 +170,6 @@ def preview(ci: ChannelIndex, a: int = 0, b: int | None = None) -> np.ndarray:
     s0, s1 = a // ci.segment, -(-b // ci.segment)
     x = ci.coder.decode(ci.codes[s0:s1], exact_sums=False, scale=ci.ref)
     x += ci.mean[s0:s1, None]
-    x = x[ci.own(s0, s1)]                       # each segment's own samples (the last one's are its tail)
-    return x[a - s0 * ci.segment:b - s0 * ci.segment]
+    if ci.tail_shift and s1 == ci.n_segments:   # the last segment's own samples are the end of its stretch
+        x[-1, :ci.segment - ci.tail_shift] = x[-1, ci.tail_shift:].copy()
+    return x.reshape(-1)[a - s0 * ci.segment:b - s0 * ci.segment]

@@ -76,19 +76,32 @@ def log_value(code: np.ndarray, ref: float) -> np.ndarray:
     return np.where(c == 0, 0.0, mid) * (ref if ref > 0 else 1.0)
 
 
-def as_segments(x: np.ndarray, segment: int, fill: float) -> np.ndarray:
+TINY = 1e-100                # squares of smaller magnitudes are taken as 0 (exact sums need a finite grid scale)
+LIMIT = 1e150                # samples beyond +-LIMIT are clipped for the index: squares and sums stay finite
+
+
+def as_segments(x: np.ndarray, segment: int, fill: float, limit: float | None = LIMIT) -> np.ndarray:
     """(n_segments, segment) float64: ``x`` cut into rows; non-finite samples and a short last row are
-    filled (the last row with its last finite value, else ``fill``)."""
+    filled (the last row with its last value, else ``fill``); magnitudes beyond ``limit`` are clipped, and
+    (with a ``limit``) those below :data:`TINY` are taken as 0."""
     if isinstance(x, np.ma.MaskedArray):
         x = x.astype(np.float64).filled(np.nan)
     x = np.asarray(x, dtype=np.float64)
     x = np.where(np.isfinite(x), x, fill)
+    if limit is not None:
+        x = np.where(np.abs(x) < TINY, 0.0, np.clip(x, -limit, limit))
     n = len(x)
     rows = -(-n // segment)
     out = np.empty(rows * segment, dtype=np.float64)
     out[:n] = x
     out[n:] = x[-1] if n else fill
     return out.reshape(rows, segment)
+
+
+def squares(a: np.ndarray) -> np.ndarray:
+    """``a * a`` with magnitudes below :data:`TINY` taken as 0 (their squares would be subnormal)."""
+    a = np.where(np.abs(a) < TINY, 0.0, a)
+    return a * a
 
 
 @dataclass(frozen=True, eq=False)
@@ -109,10 +122,10 @@ def facts(rows: np.ndarray, lengths: np.ndarray) -> Facts:
     x = np.where(inside, rows, 0.0)
     mean = exact.total(x, axis=1) / lengths
     dev = np.where(inside, rows - mean[:, None], 0.0)
-    spread = np.sqrt(exact.total(dev * dev, axis=1) / lengths)
+    spread = np.sqrt(exact.total(squares(dev), axis=1) / lengths)
     d = np.where(inside[:, 1:], np.diff(rows, axis=1), 0.0)
     pairs = np.maximum(lengths - 1, 1)
-    slope = np.sqrt(exact.total(d * d, axis=1) / pairs)
+    slope = np.sqrt(exact.total(squares(d), axis=1) / pairs)
     still = ((d == 0) & inside[:, 1:]).sum(axis=1).astype(np.int64)
     flat = ((still * 16 + pairs // 2) // pairs).astype(np.uint8)
     return Facts(mean=mean, spread=spread, slope=slope, peak=np.abs(dev).max(axis=1), flat=flat)
