@@ -75,6 +75,8 @@ def parser() -> argparse.ArgumentParser:
                    "injected into the real recordings (precision@k), look-alike recall@5, query and preview costs")
     p.add_argument("--injection-seeds", type=_positive(int), default=3, help="seeds per fault kind (default 3)")
     p.add_argument("--injection-sets", help="comma list of real sets (default: every shipped set of >= 4096 samples)")
+    p.add_argument("--index-costs", action="store_true", help="only the index's costs of --injection: bytes per "
+                   "segment, preview against full decode, a 10-million-segment look-alike query")
     return p
 
 
@@ -140,7 +142,7 @@ def main(argv: list[str] | None = None) -> int:
                    or r.baseline_worst > 1.0]
             ok &= not bad
             report.update(rows=[r.to_dict() for r in rows], cases=about, skipped=skipped)
-        if args.injection:
+        if args.injection or args.index_costs:
             from .injection import run_all
             report["injection"] = run_all(args, out, log)
         if args.speed or args.random_access or args.memory:

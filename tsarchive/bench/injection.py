@@ -179,6 +179,11 @@ def recall_at_5(x: np.ndarray, ci, queries: int = 50) -> float:
     return hits / (5 * len(qs))
 
 
+def _long_enough(name: str) -> bool:
+    got = realdata.load(name, MAX_SAMPLES)
+    return not isinstance(got, str) and len(got.data) >= MIN_SAMPLES
+
+
 def run(sets=None, seeds: int = 3, kinds=KINDS, severities=SEVERITIES, try_nonlinear: bool = True,
         log=lambda m: None) -> InjectionResult:
     res = InjectionResult()
@@ -323,10 +328,13 @@ def run_all(args, out, log) -> dict:
     """The ``--injection`` mode of ``python -m tsarchive.bench``: both tables; returns them for ``--json``."""
     import tempfile
     sets = [t.strip() for t in args.injection_sets.split(",")] if args.injection_sets else None
-    res = run(sets, seeds=args.injection_seeds, log=log)
-    out(f"\ninjection: {N_INJECT} faulty segments per recording and run, {args.injection_seeds} seed(s); "
-        f"precision@k (k = {N_INJECT}), mean over sets {', '.join(res.sets)} and seeds")
-    out(table(res))
+    if args.injection:
+        res = run(sets, seeds=args.injection_seeds, log=log)
+        out(f"\ninjection: {N_INJECT} faulty segments per recording and run, {args.injection_seeds} seed(s); "
+            f"precision@k (k = {N_INJECT}), mean over sets {', '.join(res.sets)} and seeds")
+        out(table(res))
+    else:
+        res = InjectionResult(sets=[n for n in (sets or realdata.names()) if _long_enough(n)])
     with tempfile.TemporaryDirectory(prefix="tsbench-index-") as tmp:
         costs = [c for c in (archive_cost(n, tmp, log=log) for n in res.sets) if c is not None]
     q = query_cost()
