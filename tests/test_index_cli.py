@@ -77,3 +77,19 @@ def test_bad_input_is_one_line_and_exit_2(archives, capsys, argv, words):
     assert main([w.format(a=archives[0]) for w in argv]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and err[0].startswith("tsarchive: error:") and words in err[0]
+
+
+def test_pack_segment_option(tmp_path, capsys):
+    src = tmp_path / "s.npy"
+    np.save(src, np.sin(np.arange(3000) / 5.0).astype(np.float32))
+    out = tmp_path / "s.tsarchive"
+    assert main(["pack", str(src), "-o", str(out), "--rate", "50", "--code-size", "0", "--segment", "0",
+                 "--quiet"]) == 0
+    assert not (out / "index.parquet").exists()
+    capsys.readouterr()
+    bad = tmp_path / "bad.tsarchive"
+    assert main(["pack", str(src), "-o", str(bad), "--rate", "50", "--code-size", "0", "--segment", "1",
+                 "--quiet"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "segment 1" in err[0]
+    assert not bad.exists() and [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []
