@@ -176,8 +176,8 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
             bound = _model_bytes(rec, W, K, nwin)
             if not explicit and K and ceiling <= (PROBE_SHARE if probe else 1.0) * bound:
                 hopeless.set()
-            job = dict(archive=archive, force=force, rec=rec, segment=segment, seed=seed, spec=spec, grids=grids, scales=scales, notes=notes,
-                       names=names, W=W, K=K, emit=emit, progress=progress,
+            job = dict(archive=archive, force=force, rec=rec, spec=spec, grids=grids, scales=scales, notes=notes,
+                       names=names, W=W, K=K, emit=emit, progress=progress, segment=segment, seed=seed,
                        read_options=None if isinstance(source, Recording) else read_options)
 
             def judged():
