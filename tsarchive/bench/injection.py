@@ -47,6 +47,7 @@ METHODS = ("index", "diff-rms", "pca8", "mad-z")
 N_INJECT = 6
 MAX_SAMPLES = 1 << 18
 MIN_SAMPLES = 4096
+REPEATS = 7
 
 
 def _span(S: int, frac: float, rng: np.random.Generator) -> tuple[int, int]:
@@ -278,7 +279,8 @@ class ArchiveCost:
 
 def archive_cost(name: str, tmp, budget: str = "0.1%", log=lambda m: None) -> ArchiveCost | None:
     """Pack the set's first channel with the defaults (index included), then time a full decode of the
-    channel against the code-only preview (best of 3, fresh opens), and count the index's bytes."""
+    channel against the code-only preview (best of :data:`REPEATS`, fresh opens; the machine's load
+    makes single runs vary several-fold), and count the index's bytes."""
     import time
     from pathlib import Path
 
@@ -297,7 +299,7 @@ def archive_cost(name: str, tmp, budget: str = "0.1%", log=lambda m: None) -> Ar
 
     def best(fn) -> float:
         times = []
-        for _ in range(3):
+        for _ in range(REPEATS):
             arc = open_archive(out)
             t0 = time.perf_counter()
             fn(arc)
@@ -339,7 +341,7 @@ def run_all(args, out, log) -> dict:
         costs = [c for c in (archive_cost(n, tmp, log=log) for n in res.sets) if c is not None]
     q = query_cost()
     out("\nindex costs (packed at 0.1 % with the defaults; decode = the channel in full through the reader, "
-        "preview = codes only, best of 3; worst/eps = the preview's worst error over the budget):")
+        f"preview = codes only, best of {REPEATS}; worst/eps = the preview's worst error over the budget):")
     out(cost_table(q, costs))
     return {"precision": {"|".join(k): v for k, v in res.precision.items()}, "recall_at_5": res.recall,
             "query": q.__dict__, "archives": [c.__dict__ for c in costs]}

@@ -22,6 +22,7 @@ codes decode to; the better one is kept and named in the member (``kind``).
 
 from __future__ import annotations
 
+import functools
 import math
 from contextlib import nullcontext
 from dataclasses import dataclass
@@ -39,7 +40,8 @@ AE_MIN_SEGMENTS = 512        # fewer training segments: the autoencoder is not t
 AE_HIDDEN = 32
 AE_WORK = 6e9                # multiply-adds of autoencoder training (a work budget, never the clock)
 AE_LR = 1e-3                 # 1e-2 saturates the tanh codes (issue 13); 1e-3 does not
-MODEL_SHARE = 0.01           # a kept autoencoder decoder costs at most this share of the channel's raw bytes
+MODEL_SHARE = 0.001          # a kept autoencoder decoder costs at most this share of the channel's raw bytes
+                             # (0.01 let a 17 kB decoder into a 47 kB archive of a smooth respiration belt)
 MAX_CODE = 127               # codes are int8 (a segment whose projection is larger is clipped: its miss shows it)
 CODE_LEVELS = 16             # the code step is at most the leading component's spread / 16 (look-alikes need it)
 
@@ -86,12 +88,19 @@ class Coder:
             return np.matmul(c, self.rows * (self.step * scale), out=np.empty((len(c), self.segment)))
 
 
-def _one_thread():
+@functools.cache
+def _pools():
+    """threadpoolctl's view of the loaded BLAS, made once (building it lists the loaded libraries)."""
     try:
-        from threadpoolctl import threadpool_limits
+        from threadpoolctl import ThreadpoolController
     except ImportError:
-        return nullcontext()
-    return threadpool_limits(limits=1, user_api="blas")
+        return None
+    return ThreadpoolController()
+
+
+def _one_thread():
+    ctl = _pools()
+    return nullcontext() if ctl is None else ctl.limit(limits=1, user_api="blas")
 
 
 def code_size_for(n_segments: int, n_samples: int, segment: int) -> int:
