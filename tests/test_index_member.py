@@ -110,7 +110,8 @@ def _damaged(packed, tmp_path, edit):
     lambda m: m["channels"][0].update(kind="other"),
     lambda m: m["channels"][0].update(code_size=99),
     lambda m: m["channels"][0].update(n_samples=7),
-    lambda m: m["channels"][0]["basis"].update(data="!!"),
+    lambda m: m["channels"][0]["basis"].update(payload="!!"),
+    lambda m: m["channels"][0]["basis"].update(shape=[1, 2, 3]),
     lambda m: m.update(version=99),
 ])
 def test_a_damaged_index_is_refused_with_one_line(packed, tmp_path, edit):

@@ -16,7 +16,7 @@ small int8 columns spent about half as much again.
 Footer key ``tsarchive.index`` holds JSON: ``{"version": 1, "channels": [...]}``
 with, per channel: ``name``, ``segment`` (samples), ``n_samples``, ``ref``,
 ``kind`` (``linear`` / ``nonlinear``: which coder won on held-out segments),
-``code_size``, ``step``, ``level_step``, ``basis`` (base64 of int8 rows) and ``shifts``, or
+``code_size``, ``step``, ``level_step``, ``basis`` (int8 rows as first value and differences, range coded: ``shape``, ``table``, ``payload`` in base64) and ``shifts``, or
 ``decoder`` (the integer decoder's arrays, base64 of little-endian integers),
 ``heldout_linear``/``heldout_nonlinear`` (normalised mean squared errors, null
 where not tried), ``note``, ``worst`` (the code-only preview's worst error,
@@ -75,6 +75,29 @@ def _unpack_array(d) -> np.ndarray:
         raise ArchiveCorrupt(f"{NAME}: a stored array is malformed; the archive is damaged") from None
 
 
+def _pack_rows(q: np.ndarray) -> dict:
+    """int8 rows (K, S) as their first value and differences along S, range coded (smooth rows: small)."""
+    v = np.concatenate([q[:, :1], np.diff(q.astype(np.int64), axis=1)], axis=1).ravel()
+    table = entropy.build_table(v)
+    return {"shape": list(q.shape), "table": base64.b64encode(table.to_bytes()).decode("ascii"),
+            "payload": base64.b64encode(entropy.encode(v, table)).decode("ascii")}
+
+
+def _unpack_rows(d) -> np.ndarray:
+    try:
+        K, S = (int(x) for x in d["shape"])
+        if not (1 <= K <= MAX_CODE_SIZE and 1 <= S <= 1 << 16):
+            raise ValueError
+        table = entropy.FreqTable.from_bytes(base64.b64decode(d["table"], validate=True))
+        v = entropy.decode(base64.b64decode(d["payload"], validate=True), K * S, table, strict=False)
+    except (KeyError, TypeError, ValueError, binascii.Error):
+        raise ArchiveCorrupt(f"{NAME}: a stored basis is malformed; the archive is damaged") from None
+    q = np.cumsum(v.reshape(K, S), axis=1)
+    if q.min() < -127 or q.max() > 127:
+        raise ArchiveCorrupt(f"{NAME}: a stored basis is out of range; the archive is damaged")
+    return q.astype(np.int8)
+
+
 def _describe(ci: ChannelIndex) -> dict:
     c = ci.coder
     out = {"name": ci.name, "segment": ci.segment, "n_samples": ci.n_samples, "ref": ci.ref, "kind": c.kind,
@@ -82,7 +105,7 @@ def _describe(ci: ChannelIndex) -> dict:
            "heldout_linear": None if math.isnan(c.heldout_linear) else c.heldout_linear,
            "heldout_nonlinear": None if math.isnan(c.heldout_nonlinear) else c.heldout_nonlinear}
     if c.kind == "linear":
-        out.update(basis=_pack_array(c.basis), shifts=[int(s) for s in c.shifts])
+        out.update(basis=_pack_rows(c.basis), shifts=[int(s) for s in c.shifts])
     else:
         out["decoder"] = {k: _pack_array(v) for k, v in c.decoder.to_arrays().items()}
     return out
@@ -143,7 +166,7 @@ def _coder(d: dict) -> Coder:
     common = dict(heldout_linear=math.nan if lin is None else float(lin),
                   heldout_nonlinear=math.nan if non is None else float(non), note=str(d.get("note", ""))[:500])
     if kind == "linear":
-        basis = _unpack_array(d.get("basis", {}))
+        basis = _unpack_rows(d.get("basis", {}))
         shifts = np.asarray(d.get("shifts", []))
         if basis.shape != (K, S) or basis.dtype != np.int8 or shifts.shape != (K,) or \
                 not np.issubdtype(shifts.dtype, np.integer) or np.abs(shifts).max(initial=0) > 60:
