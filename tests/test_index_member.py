@@ -118,3 +118,28 @@ def test_a_damaged_index_is_refused_with_one_line(packed, tmp_path, edit):
     arc = _damaged(packed, tmp_path, edit)
     with pytest.raises(ArchiveCorrupt, match="index.parquet"):
         member.read(arc, arc.channels[0].name)
+
+
+def test_a_nonlinear_coder_round_trips(tmp_path):
+    import dataclasses
+    from tsarchive.index import learn
+    x = np.sin(np.arange(40 * 64) / 3.0) * np.repeat(np.linspace(0.5, 2.0, 40), 64)
+    ci = build_channel(lambda a, b: x[a:b], "ch", len(x), segment=64, try_nonlinear=False)
+    rows = x.reshape(40, 64)
+    X = (rows - rows.mean(axis=1, keepdims=True)) / ci.ref
+    old = learn.AE_WORK
+    try:
+        learn.AE_WORK = 2e7                                    # a small model is enough for the round trip
+        non = learn.fit_nonlinear(X, 2)
+    finally:
+        learn.AE_WORK = old
+    ci = dataclasses.replace(ci, coder=non, codes=non.encode(X))
+    member.write(tmp_path, [ci])
+
+    class Arc:
+        path = tmp_path
+    back = member.read(Arc, "ch")
+    assert back.coder.kind == "nonlinear" and np.array_equal(back.codes, ci.codes)
+    a, b = non.decoder.to_arrays(), back.coder.decoder.to_arrays()
+    assert a.keys() == b.keys() and all(np.array_equal(a[k], b[k]) for k in a)
+    assert np.array_equal(preview(back), preview(ci))          # the integer decoder: the same bits
