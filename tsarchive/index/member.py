@@ -42,6 +42,7 @@ import pyarrow.parquet as pq
 from tsarchive import entropy
 from tsarchive.errors import ArchiveCorrupt
 from tsarchive.model.intnet import IntDecoder
+from tsarchive.store.members import Findings, open_parquet
 
 from .build import FACT_NAMES, ChannelIndex
 from .learn import Coder
@@ -185,9 +186,10 @@ def read(archive, channel: str, *, facts: bool = True) -> ChannelIndex:
     """The stored index of ``channel`` (see :func:`has_index`); ArchiveCorrupt when damaged.  Without
     ``facts`` (a preview needs none) those columns are not read and come back as zeros."""
     path = Path(archive.path) / NAME
+    opened = open_parquet(path.parent, NAME, Findings(strict=True))   # footer checked before pyarrow reads it
+    f, footer = opened
     try:
-        f = pq.ParquetFile(path)
-        meta = json.loads((f.metadata.metadata or {}).get(KEY, b"null"))
+        meta = json.loads(footer.key_value.get(KEY, b"null"))
         t = f.read(use_threads=False)                 # a small file: threads cost more than they save
         t = t.filter(pc.equal(t["channel"], channel))
     except (OSError, ValueError, pa.ArrowException) as exc:
