@@ -111,3 +111,13 @@ def test_huge_and_missing_samples_keep_the_index_finite():
     u = unusual_scores(ci)
     assert np.all(np.isfinite(u.score))
     assert {5 // ci.segment, 700 // ci.segment} <= set(ranked(u.score, 3).tolist())
+
+
+def test_levels_of_large_integers_stay_exact_enough():
+    # found by the suite's warnings (tests/test_integers.py): an int64 channel near 2**62 with a small spread
+    # overflowed the level's int64 cast
+    x = (np.int64(2) ** 62 + np.arange(5000, dtype=np.int64) % 7)
+    ci = build_channel(lambda i, j: x[i:j], "x", len(x), try_nonlinear=False)
+    true_mean = np.array([float(np.mean(x[i:i + ci.segment].astype(np.float64)))
+                          for i in range(0, len(x), ci.segment)])
+    assert np.all(np.abs(ci.mean - true_mean) <= ci.level_step)   # numpy means, within one level step

@@ -117,6 +117,8 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
     ref = float(np.sqrt(exact.total(squares(mags[0])) / max(n_seg, 1))) or 1.0
     f[:, 0] = log_code(mags[1], ref)
     level_step = math.ldexp(1.0, math.frexp(ref / LEVEL_PARTS)[1] - 1)
+    top = float(np.max(np.abs(mean))) if n_seg else 0.0      # levels must fit int64: at most 2**52 steps
+    level_step = max(level_step, math.ldexp(1.0, math.frexp(top)[1] - 52))
     shift = _tail_shift(n_samples, S)
     if shift:                                        # the short last segment is coded as the last S samples
         tail = as_segments(column(n_samples - S, n_samples), S, 0.0)
