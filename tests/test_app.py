@@ -24,6 +24,7 @@ from tsarchive.budget import spec_from_fields
 from tsarchive.app.screens.packing import PackingScreen
 from tsarchive.app.screens.export import ExportScreen, default_name
 from tsarchive.app.screens.shortlist import ShortlistScreen
+from tsarchive.index import look
 from tsarchive.app.screens.keys import KeysScreen
 from tsarchive.app.screens.contents import ContentsScreen
 from tsarchive.app.screens.folder import FolderScreen
@@ -293,19 +294,22 @@ async def test_shortlist_unusual_and_alike_jump_the_strip(lab):
         await settle(app, pilot)
         shortlist = app.screen
         assert isinstance(shortlist, ShortlistScreen)
-        ranked = arc.outliers("accel", k=20)
-        assert [w for w, _ in shortlist.rows] == ranked
-        assert SPIKE_AT // WINDOW in ranked[:3]  # the injected spike stands out (window 19)
+        found = look.unusual(arc, "accel", k=20)           # the same library call as `tsarchive unusual`
+        ranked = [r.start // WINDOW for r in found.rows]
+        assert found.unit == "segment" and [w for w, _ in shortlist.rows] == ranked
+        assert ranked[0] == SPIKE_AT // WINDOW  # the injected spike stands out most (window 19)
         await pilot.press("down", "enter")
         await settle(app, pilot)
         assert app.screen is strip and strip.current == ranked[1]
         await pilot.press("l")
         await settle(app, pilot)
-        alike = arc.similar("accel", ranked[1], k=20)
-        assert app.screen.rows == [(w, pytest.approx(d)) for w, d in alike]
+        seg = ranked[1] * WINDOW // found.size
+        alike = look.alike(arc, seg, "accel", k=20).rows
+        assert app.screen.rows == [(r.start // WINDOW, pytest.approx(r.figure)) for r in alike]
+        assert f"segment #{seg}" in str(app.screen.query_one("#shortlist-title").render())
         await pilot.press("enter")
         await settle(app, pilot)
-        assert strip.current == alike[0][0]
+        assert strip.current == alike[0].start // WINDOW
 
 
 # -- 6. Export --------------------------------------------------------------------------------------

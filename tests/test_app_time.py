@@ -199,11 +199,12 @@ async def test_rankings_say_what_they_are_based_on_without_codes(shelves):
         shortlist = app.screen
         assert isinstance(shortlist, ShortlistScreen)
         about = str(shortlist.query_one("#shortlist-about").render())
-        assert "window's mean" in about and "code" not in about.replace("no learned codes", "")
+        # packed with the learned index (no window codes): the ranking names the index, not window codes
+        assert "learned index" in about and "window codes" not in about
         await pilot.press("l")
         await settle(app, pilot)
         about = str(shortlist.query_one("#shortlist-about").render())
-        assert "shape" in about and "between the learned codes" not in about
+        assert "decoded segments" in about and "window codes" not in about
 
 
 async def test_largest_errors_show_the_share_of_the_budget_not_the_error_twice(shelves):

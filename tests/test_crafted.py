@@ -34,7 +34,7 @@ def base(tmp_path_factory):
     np.save(d / "s.npy", x)
     out = d / "base.tsa"
     tsarchive.pack(d / "s.npy", out, "0.5%", rate=200.0, window=64, code_size=2, train_seconds=1)
-    assert {p.name for p in out.iterdir()} == {S.MANIFEST, S.WINDOWS, S.EXCEPTIONS, S.MODEL}
+    assert {p.name for p in out.iterdir()} == {S.MANIFEST, S.WINDOWS, S.EXCEPTIONS, S.MODEL, "index.parquet"}
     return out
 
 

@@ -278,7 +278,7 @@ def test_byte_flips_in_any_member_are_caught_or_harmless(tmp_path):
     np.save(tmp_path / "s.npy", x)
     arc = tmp_path / "f.tsa"
     tsarchive.pack(tmp_path / "s.npy", arc, "0.5%", rate=200.0, window=64, code_size=2, train_seconds=1)
-    assert {p.name for p in arc.iterdir()} == {S.MANIFEST, S.WINDOWS, S.EXCEPTIONS, S.MODEL}
+    assert {p.name for p in arc.iterdir()} == {S.MANIFEST, S.WINDOWS, S.EXCEPTIONS, S.MODEL, "index.parquet"}
     original = {k: v.copy() for k, v in tsarchive.open(arc).read_many(workers=1).items()}
     for name in [p.name for p in arc.iterdir() if p.name != S.MANIFEST]:
         p = arc / name

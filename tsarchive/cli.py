@@ -61,6 +61,8 @@ def _parser() -> argparse.ArgumentParser:
                     help="autoencoder code length per window (default: auto = 8, and the autoencoder is kept only "
                          "where it saves more than its weights and codes cost; an explicit K always keeps it, "
                          "for browsing by codes; 0 = none)")
+    pk.add_argument("--segment", type=int, metavar="N", help="samples per segment of the learned index "
+                    "(what unusual, alike and glance list; default 256, fewer on short recordings; 0 = no index)")
     pk.add_argument("--force", action="store_true", help="replace an existing archive")
     pk.add_argument("--json", action="store_true", help="print the result as JSON")
     pk.add_argument("--quiet", action="store_true", help="no progress line (it is shown on a terminal only)")
@@ -104,6 +106,8 @@ def _parser() -> argparse.ArgumentParser:
 
     br = sub.add_parser("browse", help="open the terminal app on an archive or a folder")
     br.add_argument("path", nargs="?", default=".")
+    from .cli_look import add_commands
+    add_commands(sub)                          # unusual, alike, glance (tsarchive/cli_look.py)
     return p
 
 
@@ -149,8 +153,9 @@ def main(argv: list[str] | None = None) -> int:
             return 0
         if args.command is None:
             return _app(Path("."))
+        from .cli_look import HANDLERS
         code = {"pack": _pack, "unpack": _unpack, "verify": _verify, "report": _report, "demo": _demo,
-                "browse": lambda a: _app(Path(a.path))}[args.command](args)
+                "browse": lambda a: _app(Path(a.path)), **HANDLERS}[args.command](args)
         sys.stdout.flush()  # a closed pipe shows up here, inside the handler, not at interpreter exit
         return code
     except BrokenPipeError:
@@ -193,7 +198,8 @@ def _pack(args) -> int:
     from .options import PackOptions
     from .pipeline import pack
     options = _read_options(args)
-    settings = PackOptions.parse(args.budget, args.window, args.code_size)   # checked before the source is read
+    settings = PackOptions.parse(args.budget, args.window, args.code_size,    # checked before the source is read
+                                 segment=args.segment)
     if args.dry_run:
         from .ingest.survey import survey_source
         survey = survey_source(args.source, options=options)

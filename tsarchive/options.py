@@ -38,6 +38,14 @@ def parse_code_size(k: int | None) -> int | None:
     return int(k)
 
 
+def parse_segment(segment: int | None) -> int | None:
+    """Samples per browse segment of the learned index: None (the default), 0 (no index) or 2..MAX_SEGMENT."""
+    if segment is None or segment == 0:
+        return segment
+    from .index.segments import choose_segment
+    return choose_segment(0, segment)
+
+
 def parse_train_seconds(seconds: float) -> float:
     """Nominal training seconds (a work budget, not a time limit)."""
     if not (math.isfinite(float(seconds)) and float(seconds) >= 0):
@@ -59,13 +67,15 @@ class PackOptions:
     code_size: int | None = None
     train_seconds: float = DEFAULT_TRAIN_SECONDS
     seed: int = 0
+    segment: int | None = None        # the learned index's samples per browse segment (None: default, 0: none)
 
     @classmethod
     def parse(cls, budget=None, window: int | None = None, code_size: int | None = None,
-              train_seconds: float = DEFAULT_TRAIN_SECONDS, seed: int = 0) -> "PackOptions":
+              train_seconds: float = DEFAULT_TRAIN_SECONDS, seed: int = 0,
+              segment: int | None = None) -> "PackOptions":
         """Check and parse every setting (``budget``: a spec text, a number, a Budget or a BudgetSpec)."""
         return cls(parse_budget_spec(budget), parse_window(window), parse_code_size(code_size),
-                   parse_train_seconds(train_seconds), int(seed))
+                   parse_train_seconds(train_seconds), int(seed), parse_segment(segment))
 
     @property
     def explicit_code(self) -> bool:

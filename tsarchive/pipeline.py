@@ -49,6 +49,7 @@ from .store.claim import claim_target
 from .store.manifest import build_manifest
 from .store.sidecar import stage_sidecar
 from .store.timeaxis import check_axis
+from .index import build_index
 from .store.writer import ArchiveWriter, check_target
 from .windowcodec import encode_windows
 from .windows import CHUNK_SAMPLES, DEFAULT_WINDOW, batches, n_windows, spread
@@ -66,7 +67,7 @@ WINDOW_ROW_BYTES = 10.5        # measured framing of one window row (CRC, level,
 def pack(source, archive, budget=None, *, rate: float | None = None, window: int | None = None,
          code_size: int | None = None, force: bool = False, progress: ProgressFn = None, cancel=None,
          train_seconds: float = DEFAULT_TRAIN_SECONDS, seed: int = 0, read_options=None,
-         options: PackOptions | None = None) -> PackResult:
+         options: PackOptions | None = None, segment: int | None = None) -> PackResult:
     """Pack ``source`` (a path or a :class:`Recording`) into the archive directory ``archive``.
 
     Every sample of the archive is within its channel's budget; the archive
@@ -89,9 +90,10 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     browse by them, in the finer segments).  ``read_options``
     (:class:`~tsarchive.ingest.ReadOptions`) says how to read a source path.
     ``options`` (:class:`~tsarchive.options.PackOptions`, parsed once by the
-    caller) stands for ``budget``, ``window``, ``code_size``, ``train_seconds`` and ``seed``.
+    caller) stands for ``budget``, ``window``, ``code_size``, ``train_seconds``, ``seed`` and ``segment``,
+    the learned index's samples per browse segment (None: :mod:`tsarchive.index`'s default; 0: no index).
     """
-    opts = options or PackOptions.parse(budget, window, code_size, train_seconds, seed)
+    opts = options or PackOptions.parse(budget, window, code_size, train_seconds, seed, segment)
     t0 = time.perf_counter()
     emit = _emitter(progress, cancel)
     archive = Path(archive)
@@ -182,6 +184,7 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
         _release_memory()
         emit("write", 0, 1, "writing the model and the manifest")
         writer.write_model({} if decoder is None else decoder.to_arrays())
+        writer.write_index(build_index(rec, job.opts.segment, job.opts.seed))   # index.parquet (tsarchive/index)
         sidecar = stage_sidecar(writer.stage, rec)     # time axis, notes, text columns
         manifest = build_manifest(rec, job.opts.budget, codecs, notes, sample.W, job.opts.code, decoder, note,
                                   summaries, writer.staged_bytes())

@@ -133,9 +133,10 @@ class StretchLoaded(Message):
 
 @dataclass
 class ShortlistFilled(Message):
-    """Ranked rows for the Shortlist: ``(window index, figure)`` pairs, best first."""
+    """A ranking for the Shortlist (:class:`tsarchive.index.look.Ranking`: rows best first, and what it
+    is based on)."""
 
-    rows: list[tuple[int, float]]
+    rows: object
 
 
 @dataclass

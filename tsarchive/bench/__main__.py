@@ -78,6 +78,12 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("--batch-files", type=_positive(int), default=1000, help="short logs for --batch (default 1000)")
     p.add_argument("--batch-copies", type=int, default=100, help="copies of the sample streams for --batch (default 100)")
     p.add_argument("--batch-dask", action="store_true", help="--batch also on a Dask LocalCluster")
+    p.add_argument("--injection", action="store_true", help="the learned index against simple baselines: faults "
+                   "injected into the real recordings (precision@k), look-alike recall@5, query and preview costs")
+    p.add_argument("--injection-seeds", type=_positive(int), default=3, help="seeds per fault kind (default 3)")
+    p.add_argument("--injection-sets", help="comma list of real sets (default: every shipped set of >= 4096 samples)")
+    p.add_argument("--index-costs", action="store_true", help="only the index's costs of --injection: bytes per "
+                   "segment, preview against full decode, a 10-million-segment look-alike query")
     return p
 
 
@@ -147,6 +153,9 @@ def main(argv: list[str] | None = None) -> int:
             report.update(rows=[r.to_dict() for r in rows], cases=about, skipped=skipped)
         if args.batch:
             ok &= _batch_mode(args, report, out, log)
+        if args.injection or args.index_costs:
+            from .injection import run_all
+            report["injection"] = run_all(args, out, log)
         if args.speed or args.random_access or args.memory:
             with tempfile.TemporaryDirectory(prefix="tsbench-long-") as tmp:
                 ok &= _long_modes(args, train, Path(tmp), report, out, log)

@@ -187,7 +187,7 @@ class TrainedAutoencoder:
 
 def train_autoencoder(X: np.ndarray, code_size: int, *, hidden: int | None = None, max_windows: int = 20000,
                       work: float | None = None, max_epochs: int = 300, seed: int = 0, linear: bool = False,
-                      progress: Callable[[TrainProgress], None] | None = None,
+                      lr: float = _LR, progress: Callable[[TrainProgress], None] | None = None,
                       cancel: object | None = None) -> TrainedAutoencoder:
     """Train an autoencoder on windows ``X`` (N, W) with ``code_size`` latents (see module doc).
 
@@ -223,6 +223,7 @@ def train_autoencoder(X: np.ndarray, code_size: int, *, hidden: int | None = Non
         enc = [_init(rng, a, b) for a, b in zip(sizes, sizes[1:])]
         dec = [_init(rng, code_size, hidden), _init(rng, hidden, w)]
     fit = _Fit(enc, dec, linear, rng, cancel)
+    fit.lr = float(lr)
     with _one_blas_thread():
         report = fit.run(xt, xv, max_epochs, work, progress, hidden)
     model = TrainedAutoencoder(encoder=tuple(fit.enc), decoder=tuple(fit.dec), report=report, quantized=None,

@@ -116,6 +116,12 @@ class ArchiveWriter:
                        use_dictionary=False, write_statistics=False, column_encoding={"name": "PLAIN", "shape": "PLAIN",
                                                               "values": "BYTE_STREAM_SPLIT"})
 
+    def write_index(self, index) -> None:
+        """The learned index (optional member ``index.parquet``; :mod:`tsarchive.index.member`); none if empty."""
+        if index:
+            from ..index.member import write
+            write(self.stage, index)
+
     def staged_bytes(self) -> int:
         """Bytes staged so far (windows.parquet stays open for its footer: its footer is not counted)."""
         self._close(("_exceptions",))

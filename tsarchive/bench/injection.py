@@ -1,0 +1,354 @@
+"""Injection bench: does the index find what was done to a real recording, better than simple baselines?
+
+    python -m tsarchive.bench --injection [--injection-seeds 3] [--injection-sets ecg_mitbih208,...]
+
+For every real recording the bench ships (:mod:`tsarchive.bench.realdata`;
+the first channel, at most 2**18 samples, sets of at least 4096 samples),
+every kind of fault, both severities and several seeds: ``N_INJECT``
+segments (not neighbours) get one fault each, the index is built on the
+changed recording exactly as ``pack`` builds it, and each method ranks the
+same segments.  Precision@k with k = the number of faulty segments: the
+share of the top k that are faulty.
+
+Baselines on the same segments, computed in the same run:
+
+* ``diff-rms`` -- RMS of the first difference, ranked by distance from the median;
+* ``pca8`` -- numpy SVD of the mean-removed segments, 8 components, peak residual;
+* ``mad-z`` -- rolling median / MAD z-score of every sample (window = one
+  segment), the segment's largest.
+
+Look-alikes (``recall_at_5``): 50 query segments of each unchanged
+recording; exact = the 5 nearest segments by Euclidean distance with means
+removed (on the recording's samples: a decoded archive is within its budget
+of them); ours = :func:`tsarchive.index.query.alike` (shortlist by code,
+re-ranked on those segments).
+
+Which coder (linear or nonlinear) a recording gets is decided once, on the
+unchanged recording, as ``pack`` decides it; the changed copies retrain the
+nonlinear coder only where it won there (training it for every run would
+multiply the bench's time to repeat that decision).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from tsarchive.index import build_channel
+from tsarchive.index import query as Q
+from tsarchive.model.train import Stream
+
+from . import realdata
+
+KINDS = ("spike", "flatline", "level_shift", "noise_burst", "clipping", "dropout", "shape")
+SEVERITIES = ("mild", "strong")
+METHODS = ("index", "diff-rms", "pca8", "mad-z")
+N_INJECT = 6
+MAX_SAMPLES = 1 << 18
+MIN_SAMPLES = 4096
+REPEATS = 7
+
+
+def _span(S: int, frac: float, rng: np.random.Generator) -> tuple[int, int]:
+    L = max(1, int(S * frac))
+    a = int(rng.integers(0, S - L + 1))
+    return a, a + L
+
+
+def inject(x: np.ndarray, seg: int, S: int, kind: str, severity: str, sigma: float,
+           rng: np.random.Generator) -> None:
+    """Put one fault of ``kind`` into segment ``seg`` of ``x`` (in place); ``sigma`` = the channel's std."""
+    strong = severity == "strong"
+    s = x[seg * S:(seg + 1) * S]
+    sign = 1.0 if rng.random() < 0.5 else -1.0
+    if kind == "spike":
+        s[int(rng.integers(0, S))] += sign * (8.0 if strong else 3.0) * sigma
+    elif kind == "flatline":
+        a, b = _span(S, 1.0 if strong else 0.25, rng)
+        s[a:b] = s[a]
+    elif kind == "level_shift":
+        s += sign * (2.0 if strong else 0.5) * sigma
+    elif kind == "noise_burst":
+        a, b = _span(S, 0.5, rng)
+        s[a:b] += rng.normal(0.0, (1.0 if strong else 0.3) * sigma, b - a)
+    elif kind == "clipping":
+        m = np.median(s)
+        c = (0.3 if strong else 0.6) * np.max(np.abs(s - m))
+        np.clip(s, m - c, m + c, out=s)
+    elif kind == "dropout":
+        a, b = _span(S, 0.5 if strong else 0.125, rng)
+        s[a:b] = 0.0
+    elif kind == "shape":
+        m, sd = s.mean(), s.std() or sigma
+        t = np.arange(S)
+        if strong:
+            new = np.sign(np.sin(2 * np.pi * t / max(S / 4, 2)) + 1e-9)
+        else:
+            new = np.convolve(s - m, np.ones(9) / 9, mode="same")
+        s[:] = m + sd * (new - new.mean()) / (new.std() or 1.0)
+    else:
+        raise ValueError(kind)
+
+
+def pick_segments(n_seg: int, k: int, rng: np.random.Generator) -> np.ndarray:
+    """``k`` distinct segments, no two neighbours, not the first or the last."""
+    free = np.arange(1, n_seg - 1)
+    out: list[int] = []
+    while len(out) < k and len(free):
+        c = int(rng.choice(free))
+        out.append(c)
+        free = free[np.abs(free - c) > 1]
+    return np.sort(np.array(out, dtype=np.int64))
+
+
+def precision_at_k(score: np.ndarray, truth: np.ndarray) -> float:
+    """Share of the ``len(truth)`` highest scores (ties by position) that are in ``truth``."""
+    k = len(truth)
+    if k == 0:
+        return float("nan")
+    top = Q.ranked(score, k)
+    return len(set(top.tolist()) & set(np.asarray(truth).tolist())) / k
+
+
+def segments(x: np.ndarray, S: int) -> np.ndarray:
+    n = len(x) // S * S
+    rows = x[:n].reshape(-1, S)
+    if n < len(x):
+        tail = np.full(S, x[-1])
+        tail[:len(x) - n] = x[n:]
+        rows = np.vstack([rows, tail])
+    return rows
+
+
+def baseline_diff_rms(rows: np.ndarray) -> np.ndarray:
+    r = np.sqrt(np.mean(np.diff(rows, axis=1) ** 2, axis=1))
+    return np.abs(r - np.median(r))
+
+
+def baseline_pca8(rows: np.ndarray) -> np.ndarray:
+    c = Q.centred(rows)
+    _, _, vt = np.linalg.svd(c, full_matrices=False)
+    v = vt[:8]
+    return np.abs(c - (c @ v.T) @ v).max(axis=1)
+
+
+def baseline_mad_z(x: np.ndarray, S: int) -> np.ndarray:
+    from scipy.ndimage import median_filter
+    w = S + 1 - S % 2
+    med = median_filter(x, size=w, mode="nearest")
+    dev = np.abs(x - med)
+    mad = median_filter(dev, size=w, mode="nearest")
+    z = dev / (Q._MAD_NORMAL * mad + 1e-12 * (np.std(x) or 1.0))
+    return segments(z, S).max(axis=1)
+
+
+@dataclass
+class InjectionResult:
+    """precision[(kind, severity, method)] -> list over sets and seeds; recall[set] -> recall@5."""
+
+    precision: dict = field(default_factory=dict)
+    recall: dict = field(default_factory=dict)
+    sets: list = field(default_factory=list)
+    kinds_of_coder: dict = field(default_factory=dict)
+
+    def mean(self, kind: str | None, severity: str | None, method: str) -> float:
+        vals = [v for (k, s, m), vs in self.precision.items() for v in vs
+                if m == method and (kind is None or k == kind) and (severity is None or s == severity)]
+        return float(np.mean(vals)) if vals else float("nan")
+
+
+def scores_for(y: np.ndarray, try_nonlinear: bool, seed: int = 0):
+    """Every method's segment scores on recording ``y`` (1-D), and the index built on it."""
+    ci = build_channel(lambda a, b: y[a:b], "x", len(y), seed=seed, try_nonlinear=try_nonlinear)
+    rows = segments(y, ci.segment)
+    return {"index": Q.unusual_scores(ci).score, "diff-rms": baseline_diff_rms(rows),
+            "pca8": baseline_pca8(rows), "mad-z": baseline_mad_z(y, ci.segment)}, ci
+
+
+def recall_at_5(x: np.ndarray, ci, queries: int = 50) -> float:
+    rows = segments(x, ci.segment)
+    cen = Q.centred(rows)
+    hits = 0
+    qs = np.unique(np.linspace(0, len(rows) - 1, min(queries, len(rows))).round().astype(np.int64))
+    for q in qs:
+        d = np.sqrt(((cen - cen[q]) ** 2).sum(axis=1))
+        d[q] = np.inf
+        exact = set(np.lexsort((np.arange(len(d)), d))[:5].tolist())
+        ours = {s for s, _ in Q.alike(ci, int(q), 5, lambda ids: rows[ids])}
+        hits += len(exact & ours)
+    return hits / (5 * len(qs))
+
+
+def _long_enough(name: str) -> bool:
+    got = realdata.load(name, MAX_SAMPLES)
+    return not isinstance(got, str) and len(got.data) >= MIN_SAMPLES
+
+
+def run(sets=None, seeds: int = 3, kinds=KINDS, severities=SEVERITIES, try_nonlinear: bool = True,
+        log=lambda m: None) -> InjectionResult:
+    res = InjectionResult()
+    for name in sets or realdata.names():
+        got = realdata.load(name, MAX_SAMPLES)
+        if isinstance(got, str):
+            log(got)
+            continue
+        x = np.asarray(got.data[:, 0], dtype=np.float64)
+        if len(x) < MIN_SAMPLES:
+            continue
+        res.sets.append(name)
+        sigma = float(np.std(x)) or 1.0
+        base = build_channel(lambda a, b: x[a:b], "x", len(x), try_nonlinear=try_nonlinear)
+        res.recall[name] = recall_at_5(x, base)
+        res.kinds_of_coder[name] = base.coder.kind
+        S, n_seg = base.segment, base.n_segments
+        log(f"{name}: {len(x)} samples, segments of {S}, coder {base.coder.kind}, recall@5 {res.recall[name]:.3f}")
+        for kind in kinds:
+            for sev in severities:
+                for seed in range(seeds):
+                    rng = np.random.default_rng([seed, KINDS.index(kind), SEVERITIES.index(sev)])
+                    y = x.copy()
+                    truth = pick_segments(n_seg, N_INJECT, rng)
+                    for s in truth:
+                        inject(y, int(s), S, kind, sev, sigma, rng)
+                    sc, _ = scores_for(y, try_nonlinear and base.coder.kind == "nonlinear")
+                    for m in METHODS:
+                        res.precision.setdefault((kind, sev, m), []).append(precision_at_k(sc[m], truth))
+    return res
+
+
+def table(res: InjectionResult) -> str:
+    head = f"{'kind':<12} {'severity':<8} " + " ".join(f"{m:>9}" for m in METHODS) + "  best baseline  ours better"
+    lines = [head, "-" * len(head)]
+    for kind in KINDS:
+        for sev in SEVERITIES + (None,):
+            vals = [res.mean(kind, sev, m) for m in METHODS]
+            if np.isnan(vals[0]):
+                continue
+            best = max(vals[1:])
+            lines.append(f"{kind:<12} {sev or 'both':<8} " + " ".join(f"{v:9.3f}" for v in vals)
+                         + f"  {best:13.3f}  {'yes' if vals[0] > best else 'no'}")
+    vals = [res.mean(None, None, m) for m in METHODS]
+    lines.append(f"{'all':<12} {'both':<8} " + " ".join(f"{v:9.3f}" for v in vals)
+                 + f"  {max(vals[1:]):13.3f}  {'yes' if vals[0] > max(vals[1:]) else 'no'}")
+    lines.append("")
+    lines.append("look-alikes, recall@5 against exact search (mean removed, Euclidean): "
+                 + ", ".join(f"{n} {r:.3f} ({res.kinds_of_coder[n]})" for n, r in res.recall.items()))
+    return "\n".join(lines)
+
+
+# -- the index's costs: a 10-million-segment query, the preview against a full decode, bytes ---------------
+
+@dataclass(frozen=True)
+class QueryCost:
+    segments: int
+    code_size: int
+    cache_seconds: float     # making the CodeCache (once per channel)
+    seconds: float           # one query on it (best of REPEATS)
+    peak_mib: float          # tracemalloc peak from the cache's making through the queries (numpy's buffers)
+    codes_mib: float         # the int8-range codes themselves (held as after reading the member)
+
+
+def query_cost(n: int = 10_000_000, K: int = 8, seed: int = 0) -> QueryCost:
+    """Time and memory of one look-alike shortlist over ``n`` simulated codes (normal, spread 4 steps)."""
+    import time
+    import tracemalloc
+    rng = np.random.default_rng(seed)
+    codes = np.clip(np.rint(rng.normal(0.0, 4.0, (n, K))), -127, 127).astype(np.int16)
+    tracemalloc.start()
+    t0 = time.perf_counter()
+    cache = Q.CodeCache(codes)                       # step 1: latents of a linear coder with step 1
+    made = time.perf_counter() - t0
+    times = []
+    for r in range(REPEATS):
+        t0 = time.perf_counter()
+        cache.nearest(cache.latents[(r + 1) * n // (REPEATS + 1)], Q.SHORTLIST, exclude=(r + 1) * n // (REPEATS + 1))
+        times.append(time.perf_counter() - t0)
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    return QueryCost(n, K, made, min(times), peak / 2 ** 20, codes.nbytes / 2 ** 20)
+
+
+@dataclass(frozen=True)
+class ArchiveCost:
+    name: str
+    segments: int
+    index_bytes: int
+    archive_bytes: int
+    decode_s: float
+    preview_s: float
+    worst: float
+    eps: float
+    kind: str
+
+
+def archive_cost(name: str, tmp, budget: str = "0.1%", log=lambda m: None) -> ArchiveCost | None:
+    """Pack the set's first channel with the defaults (index included), then time a full decode of the
+    channel against the code-only preview (best of :data:`REPEATS`, fresh opens; the machine's load
+    makes single runs vary several-fold), and count the index's bytes."""
+    import time
+    from pathlib import Path
+
+    import tsarchive
+    from tsarchive.index import member
+    from tsarchive.store.reader import open_archive
+    got = realdata.load(name)
+    if isinstance(got, str):
+        log(got)
+        return None
+    src = Path(tmp) / f"{name}.npy"
+    np.save(src, np.ascontiguousarray(got.data[:, 0]))
+    out = Path(tmp) / f"{name}.tsarchive"
+    tsarchive.pack(src, out, budget, rate=got.spec.rate, force=True, train_seconds=6.0)
+    ch = open_archive(out).channels[0].name
+
+    def best(fn) -> float:
+        times = []
+        for _ in range(REPEATS):
+            arc = open_archive(out)
+            t0 = time.perf_counter()
+            fn(arc)
+            times.append(time.perf_counter() - t0)
+        return min(times)
+    decode_s = best(lambda arc: arc.read(ch))
+    preview_s = best(lambda arc: Q.preview(member.read(arc, ch, facts=False)))
+    arc = open_archive(out)
+    ci = member.read(arc, ch)
+    return ArchiveCost(name, ci.n_segments, (out / member.NAME).stat().st_size, arc.archive_bytes, decode_s,
+                       preview_s, ci.worst, arc.channel(ch).eps, ci.coder.kind)
+
+
+def cost_table(query: QueryCost, rows: list[ArchiveCost]) -> str:
+    lines = [f"look-alike shortlist over {query.segments:,} simulated codes of {query.code_size}: "
+             f"{query.seconds:.3f} s per query (best of {REPEATS}) after {query.cache_seconds:.2f} s making the "
+             f"cache once; peak {query.peak_mib:.0f} MiB traced (cache and queries) beside the codes' "
+             f"{query.codes_mib:.0f} MiB",
+             "",
+             f"{'set':<18} {'segments':>8} {'coder':>9} {'index B':>8} {'B/segment':>9} {'share':>6} "
+             f"{'decode s':>9} {'preview s':>9} {'speedup':>7} {'worst/eps':>9}"]
+    for r in rows:
+        lines.append(f"{r.name:<18} {r.segments:>8} {r.kind:>9} {r.index_bytes:>8} {r.index_bytes / r.segments:>9.1f} "
+                     f"{100 * r.index_bytes / r.archive_bytes:>5.1f}% {r.decode_s:>9.4f} {r.preview_s:>9.4f} "
+                     f"{r.decode_s / r.preview_s:>6.1f}x {r.worst / r.eps if r.eps else float('nan'):>9.1f}")
+    return "\n".join(lines)
+
+
+def run_all(args, out, log) -> dict:
+    """The ``--injection`` mode of ``python -m tsarchive.bench``: both tables; returns them for ``--json``."""
+    import tempfile
+    sets = [t.strip() for t in args.injection_sets.split(",")] if args.injection_sets else None
+    if args.injection:
+        res = run(sets, seeds=args.injection_seeds, log=log)
+        out(f"\ninjection: {N_INJECT} faulty segments per recording and run, {args.injection_seeds} seed(s); "
+            f"precision@k (k = {N_INJECT}), mean over sets {', '.join(res.sets)} and seeds")
+        out(table(res))
+    else:
+        res = InjectionResult(sets=[n for n in (sets or realdata.names()) if _long_enough(n)])
+    with tempfile.TemporaryDirectory(prefix="tsbench-index-") as tmp:
+        costs = [c for c in (archive_cost(n, tmp, log=log) for n in res.sets) if c is not None]
+    q = query_cost()
+    out("\nindex costs (packed at 0.1 % with the defaults; decode = the channel in full through the reader, "
+        f"preview = codes only, best of {REPEATS}; worst/eps = the preview's worst error over the budget):")
+    out(cost_table(q, costs))
+    return {"precision": {"|".join(k): v for k, v in res.precision.items()}, "recall_at_5": res.recall,
+            "query": q.__dict__, "archives": [c.__dict__ for c in costs]}

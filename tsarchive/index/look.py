@@ -1,0 +1,131 @@
+"""Looking through an archive: the rankings and the preview that the CLI and the app both show.
+
+Each answer says what it is based on.  With the learned index (archives
+packed with it) the unit is the browse *segment*; without it (archives
+packed before the index) the answers fall back to what the archive itself
+holds, per compression *window*: the stored outlier score, the nearest
+window codes or coarse shapes, and the level-only preview.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from tsarchive.errors import BadInput
+
+from . import member
+from . import query as Q
+from .segments import as_segments
+
+BASED_ON_INDEX = {
+    "unusual": "the learned index: segments whose stored facts (what the code misses, swing, roughness, "
+               "repeated samples, level jumps) stand out most from the rest of the channel",
+    "alike": "the learned index: a shortlist of the {m} nearest codes, re-ranked by the distance between the "
+             "decoded segments with their means removed",
+    "glance": "the learned index's codes alone (approximate: within {worst} of the recording, measured when "
+              "it was packed)",
+}
+BASED_ON_FALLBACK = {
+    "unusual": "no learned index in this archive: windows ranked by their stored outlier score (peak error "
+               "of the code-only reconstruction, or the peak distance from the window's mean)",
+    "alike": "no learned index in this archive: windows whose stored codes (or, without codes, coarse shapes "
+             "of the decoded window) are nearest",
+    "glance": "no learned index in this archive: each window's code-only reconstruction, or its stored level "
+              "where the archive has no codes (approximate, error not measured)",
+}
+
+
+@dataclass(frozen=True)
+class Row:
+    number: int          # segment (with an index) or window (without) number
+    start: int           # first sample
+    figure: float        # score or distance
+    why: str = ""
+
+
+@dataclass(frozen=True)
+class Ranking:
+    channel: str
+    kind: str            # unusual | alike
+    unit: str            # segment | window
+    size: int            # samples per unit
+    based_on: str
+    rows: tuple[Row, ...]
+
+    def to_dict(self) -> dict:
+        return {"channel": self.channel, "ranking": self.kind, "unit": self.unit, "samples_per_unit": self.size,
+                "based_on": self.based_on,
+                "rows": [{self.unit: r.number, "start_sample": r.start, "figure": r.figure, "why": r.why}
+                         for r in self.rows]}
+
+
+@dataclass(frozen=True)
+class Glance:
+    channel: str
+    start: int
+    values: np.ndarray   # approximate samples
+    worst: float | None  # measured worst error (None: not measured)
+    based_on: str
+
+
+def channel_name(arc, channel: str | None) -> str:
+    if channel is None:
+        if not arc.channels:
+            raise BadInput("the archive has no channels")
+        return arc.channels[0].name
+    return arc.channel(channel).name
+
+
+def unusual(arc, channel: str | None = None, k: int = 20) -> Ranking:
+    name = channel_name(arc, channel)
+    if member.has_index(arc):
+        ci = member.read(arc, name)
+        u = Q.unusual_scores(ci)
+        rows = tuple(Row(int(i), int(i) * ci.segment, float(u.score[i]), u.because[i]) for i in Q.ranked(u.score, k))
+        return Ranking(name, "unusual", "segment", ci.segment, BASED_ON_INDEX["unusual"], rows)
+    w = arc.windows(name)
+    ids = arc.outliers(name, k=k)
+    where = {int(x): p for p, x in enumerate(w.index)}
+    rows = tuple(Row(int(i), int(w.start_sample[where[i]]), float(w.score[where[i]])) for i in ids)
+    return Ranking(name, "unusual", "window", arc.channel(name).window, BASED_ON_FALLBACK["unusual"], rows)
+
+
+def segment_samples(arc, name: str, ci, ids: np.ndarray) -> np.ndarray:
+    """The decoded samples of segments ``ids`` (len, S), filled as the index filled them."""
+    meta = arc.channel(name)
+    W, S = meta.window, ci.segment
+    out = np.empty((len(ids), S))
+    for j, s in enumerate(np.asarray(ids).tolist()):
+        a, b = s * S, min(ci.n_samples, (s + 1) * S)
+        w0, w1 = a // W, -(-b // W)
+        x = arc.decode_windows(name, w0, w1)[0]
+        out[j] = as_segments(x[a - w0 * W:b - w0 * W], S, 0.0)[0]
+    return out
+
+
+def alike(arc, number: int, channel: str | None = None, k: int = 10) -> Ranking:
+    name = channel_name(arc, channel)
+    if member.has_index(arc):
+        ci = member.read(arc, name, facts=False)
+        found = Q.alike(ci, int(number), k, lambda ids: segment_samples(arc, name, ci, ids))
+        rows = tuple(Row(s, s * ci.segment, d) for s, d in found)
+        return Ranking(name, "alike", "segment", ci.segment, BASED_ON_INDEX["alike"].format(m=Q.SHORTLIST), rows)
+    W = arc.channel(name).window
+    rows = tuple(Row(int(w), int(w) * W, float(d)) for w, d in arc.similar(name, int(number), k=k))
+    return Ranking(name, "alike", "window", W, BASED_ON_FALLBACK["alike"], rows)
+
+
+def glance(arc, channel: str | None = None, start: int = 0, end: int | None = None) -> Glance:
+    """Approximate samples ``start..end-1`` (sample numbers) without decoding the residuals."""
+    name = channel_name(arc, channel)
+    if member.has_index(arc):
+        ci = member.read(arc, name, facts=False)
+        unit = f" {arc.channel(name).unit}" if arc.channel(name).unit else ""
+        return Glance(name, start, Q.preview(ci, start, end), ci.worst,
+                      BASED_ON_INDEX["glance"].format(worst=f"±{ci.worst:.4g}{unit}"))
+    n = arc.channel(name).n_samples
+    end = n if end is None else min(end, n)
+    x = np.asarray(arc.preview(name), dtype=np.float64)[start:end]
+    return Glance(name, start, x, None, BASED_ON_FALLBACK["glance"])

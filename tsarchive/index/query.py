@@ -1,0 +1,190 @@
+"""What the index answers without decoding the archive: unusual segments, look-alikes, a code-only preview.
+
+* :func:`unusual_scores` -- per segment, the largest of several robust
+  z-scores (distance from the channel's median in units of 1.4826 x the
+  median absolute deviation, a consistent estimate of the standard deviation
+  for normal data), each against the segment's neighbours where slow changes
+  of the recording would otherwise dominate, scaled by the part's own 97th
+  percentile and weighted (:data:`WEIGHTS`): what the code misses (RMS and
+  peak; the reconstruction error of an autoencoder used for anomaly
+  detection), a larger or smaller swing (spread), rougher or smoother
+  (first-difference RMS), repeated samples (a stuck sensor), and the jump of
+  the segment's mean from its neighbours' median (level shifts, dropouts).
+  All of it comes from the stored facts: nothing is decoded.
+* :class:`CodeCache` / :func:`shortlist` -- nearest codes (Euclidean, in the
+  coder's latent units) from float32 latents and norms made once per channel,
+  in bounded chunks, so ten million segments fit well inside 1 GiB;
+  :func:`alike` re-ranks that shortlist on the decoded segments (mean removed,
+  Euclidean), decoding only those.
+* :func:`preview` -- the approximate signal from codes alone, with the worst
+  error measured when the archive was packed.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from tsarchive.errors import BadInput
+
+from .build import ChannelIndex
+from .segments import STEPS_PER_OCTAVE
+
+SHORTLIST = 64               # segments re-ranked on decoded samples per look-alike query
+CHUNK = 1 << 20              # codes compared per step (bounded temporaries)
+TYPICAL = 0.97               # each part is scaled by its own 97th percentile: a part whose extremes are common
+                             # (a wandering baseline's jumps) cannot drown a part that is rarely high
+# Weights tuned on the injection bench (tsarchive/bench/injection.py, seed 0): quieter-than-usual
+# stretches and level jumps occur naturally in real recordings, roughness rarely does.
+WEIGHTS = {"smaller swing": 0.6, "smoother": 0.6, "level jump": 0.6, "rougher": 2.0}
+_MAD_NORMAL = 1.4826         # 1 / Phi^-1(3/4): MAD -> standard deviation for normal data (common practice)
+
+
+def robust_z(f: np.ndarray, floor: float) -> np.ndarray:
+    """``(f - median) / max(1.4826 * MAD, floor)``."""
+    med = np.median(f)
+    mad = _MAD_NORMAL * np.median(np.abs(f - med))
+    return (f - med) / max(mad, floor)
+
+
+def _log2(code: np.ndarray) -> np.ndarray:
+    """Stored log codes back to log2 units (0 = zero, taken as 2 octaves below the smallest code)."""
+    c = np.asarray(code, dtype=np.float64)
+    return np.where(c == 0, -2 * STEPS_PER_OCTAVE, c) / STEPS_PER_OCTAVE
+
+
+def local(f: np.ndarray, reach: int = 3) -> np.ndarray:
+    """``f`` minus the median of the ``reach`` segments either side (a fault is a change against its
+    neighbours; slow changes of the recording are not)."""
+    f = np.asarray(f, dtype=np.float64)
+    n = len(f)
+    if n < 2:
+        return np.zeros(n)
+    pad = np.concatenate([np.full(reach, f[0]), f, np.full(reach, f[-1])])
+    near = np.stack([pad[reach + d:reach + d + n] for d in range(-reach, reach + 1) if d], axis=1)
+    return f - np.median(near, axis=1)
+
+
+def level_jump(ci: ChannelIndex, reach: int = 3) -> np.ndarray:
+    """|mean - median of the ``reach`` segments either side| / the channel's spread."""
+    return np.abs(local(ci.mean, reach)) / ci.ref
+
+
+def spread_log2(ci: ChannelIndex) -> np.ndarray:
+    """log2 of each segment's spread relative to ``ref``: what the code holds plus what it misses."""
+    held = ci.coder.decode(ci.codes, exact_sums=False)
+    L = ci.lengths()
+    inside = ci.own()
+    held = np.where(inside, held - (held * inside).sum(axis=1, keepdims=True) / L[:, None], 0.0)
+    miss = 2.0 ** _log2(ci.fact("miss"))
+    s2 = (held * held).sum(axis=1) / L + miss * miss
+    return 0.5 * np.log2(np.maximum(s2, 2.0 ** -40))
+
+
+@dataclass(frozen=True)
+class Unusual:
+    """Per-segment score and the fact that gave it (``because``: names, one per segment)."""
+
+    score: np.ndarray
+    because: tuple[str, ...]
+
+
+def unusual_scores(ci: ChannelIndex) -> Unusual:
+    """The combined score of every segment (module doc); higher is more unusual."""
+    flat = ci.fact("flat").astype(np.float64)
+    spread = robust_z(local(spread_log2(ci)), 0.25)
+    rough = robust_z(_log2(ci.fact("slope")), 0.25)
+    parts = {
+        "code misses it": np.maximum(robust_z(local(_log2(ci.fact("miss"))), 0.25), 0.0),
+        "peak the code misses": np.maximum(robust_z(local(_log2(ci.fact("miss_peak"))), 0.25), 0.0),
+        "larger swing": np.maximum(spread, 0.0),
+        "smaller swing": np.maximum(-spread, 0.0),
+        "rougher": np.maximum(rough, 0.0),
+        "smoother": np.maximum(-rough, 0.0),
+        "repeated samples": np.maximum(robust_z(local(flat), 1.0), 0.0),
+        "level jump": np.maximum(robust_z(level_jump(ci), 0.05), 0.0),
+    }
+    names = list(parts)
+    stack = np.stack([WEIGHTS.get(n, 1.0) * parts[n] / max(float(np.quantile(parts[n], TYPICAL)), 1.0)
+                      for n in names], axis=1)
+    which = np.argmax(stack, axis=1)
+    return Unusual(score=stack[np.arange(len(which)), which], because=tuple(names[i] for i in which))
+
+
+def ranked(score: np.ndarray, k: int) -> np.ndarray:
+    """Indices of the ``k`` highest scores, highest first, ties by position."""
+    return np.lexsort((np.arange(len(score)), -np.asarray(score)))[:k]
+
+
+def latent(ci: ChannelIndex, codes: np.ndarray | None = None) -> np.ndarray:
+    """Codes in the coder's latent units (float32): linear codes times their step, nonlinear as stored."""
+    c = ci.codes if codes is None else codes
+    scale = ci.coder.step if ci.coder.kind == "linear" else 1.0
+    return c.astype(np.float32) * np.float32(scale)
+
+
+class CodeCache:
+    """A channel's codes ready for look-alike queries: float32 latents and their squared norms, made once.
+
+    A query is then one thin matrix-vector product and a partial sort: the distance is
+    ``|c|^2 - 2 c.q + |q|^2`` (the last term is the same for every row and left out).  Ten million
+    codes of 8 take 320 MB of latents and 40 MB of norms; the query's temporaries stay near ``CHUNK``
+    rows.
+    """
+
+    def __init__(self, latents: np.ndarray) -> None:
+        self.latents = np.ascontiguousarray(latents, dtype=np.float32)
+        self.norms = np.einsum("ij,ij->i", self.latents, self.latents)
+
+    def nearest(self, query: np.ndarray, m: int, exclude: int | None = None) -> np.ndarray:
+        """The ``m`` rows nearest to ``query`` (K,), nearest first (ties by position)."""
+        q = np.asarray(query, dtype=np.float32)
+        best_i, best_d = np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.float32)
+        for a in range(0, len(self.latents), CHUNK):
+            d = self.norms[a:a + CHUNK] - 2.0 * (self.latents[a:a + CHUNK] @ q)
+            if exclude is not None and a <= exclude < a + len(d):
+                d[exclude - a] = np.inf
+            take = np.argpartition(d, m)[:m] if len(d) > m else np.arange(len(d))
+            best_i, best_d = np.concatenate([best_i, take + a]), np.concatenate([best_d, d[take]])
+            keep = np.lexsort((best_i, best_d))[:m]
+            best_i, best_d = best_i[keep], best_d[keep]
+        return best_i[np.isfinite(best_d)]
+
+
+def shortlist(codes: np.ndarray, query: np.ndarray, m: int, exclude: int | None = None) -> np.ndarray:
+    """The ``m`` rows of ``codes`` (n, K) nearest to ``query`` (K,), nearest first (see :class:`CodeCache`)."""
+    return CodeCache(codes).nearest(query, m, exclude)
+
+
+def centred(rows: np.ndarray) -> np.ndarray:
+    return rows - rows.mean(axis=1, keepdims=True)
+
+
+def alike(ci: ChannelIndex, seg: int, k: int, segments_of, m: int = SHORTLIST) -> list[tuple[int, float]]:
+    """The ``k`` segments most like segment ``seg``: a shortlist of ``m`` by code, re-ranked by the Euclidean
+    distance of the decoded segments with their means removed; ``segments_of(ids)`` returns those
+    segments' samples (len(ids), S).  Returns ``(segment, distance)`` nearest first."""
+    if not 0 <= seg < ci.n_segments:
+        raise BadInput(f"segment {seg} is out of range 0..{ci.n_segments - 1}; pick one the index lists")
+    lat = latent(ci)
+    ids = shortlist(lat, lat[seg], max(m, k), exclude=seg)
+    rows = centred(segments_of(np.concatenate([[seg], ids])))
+    d = np.sqrt(((rows[1:] - rows[0]) ** 2).sum(axis=1))
+    order = np.lexsort((ids, d))[:k]
+    return [(int(ids[i]), float(d[i])) for i in order]
+
+
+def preview(ci: ChannelIndex, a: int = 0, b: int | None = None) -> np.ndarray:
+    """Approximate samples ``a..b-1`` from the codes alone (float64); within ``ci.worst`` of the recording
+    (measured when packing)."""
+    b = ci.n_samples if b is None else min(int(b), ci.n_samples)
+    a = max(0, int(a))
+    if b <= a:
+        return np.zeros(0)
+    s0, s1 = a // ci.segment, -(-b // ci.segment)
+    x = ci.coder.decode(ci.codes[s0:s1], exact_sums=False, scale=ci.ref)
+    x += ci.mean[s0:s1, None]
+    if ci.tail_shift and s1 == ci.n_segments:   # the last segment's own samples are the end of its stretch
+        x[-1, :ci.segment - ci.tail_shift] = x[-1, ci.tail_shift:].copy()
+    return x.reshape(-1)[a - s0 * ci.segment:b - s0 * ci.segment]
