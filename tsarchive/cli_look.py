@@ -64,7 +64,7 @@ def _count(text: str) -> int:
 
 
 def _open(path: str):
-    from .store.reader import open_archive
+    from .archive import open_archive
     return open_archive(path)
 
 

@@ -291,7 +291,7 @@ def archive_cost(name: str, tmp, budget: str = "0.1%", log=lambda m: None) -> Ar
 
     import tsarchive
     from tsarchive.index import member
-    from tsarchive.store.reader import open_archive
+    from tsarchive.archive import open_archive
     got = realdata.load(name)
     if isinstance(got, str):
         log(got)
