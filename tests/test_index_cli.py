@@ -10,7 +10,7 @@ import pytest
 import tsarchive
 from tsarchive.cli import main
 from tsarchive.index import look
-from tsarchive.store.reader import open_archive
+from tsarchive.archive import open_archive
 
 RATE = 50.0
 

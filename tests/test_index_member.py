@@ -13,7 +13,7 @@ import tsarchive
 from tsarchive.errors import ArchiveCorrupt
 from tsarchive.index import build_channel, look, member
 from tsarchive.index.query import preview
-from tsarchive.store.reader import open_archive
+from tsarchive.archive import open_archive
 
 RATE = 100.0
 

@@ -488,4 +488,4 @@ def test_members_are_handed_out_by_name(small_archive):
     arc = tsarchive.open(small_archive)
     got = arc.member_table("windows.parquet", columns=["channel", "window"])
     assert got.equals(pq.read_table(small_archive / "windows.parquet", columns=["channel", "window"]))
-    assert arc.member_table("index.parquet") is None and arc.member_table("../windows.parquet") is None
+    assert arc.member_table("absent.parquet") is None and arc.member_table("../windows.parquet") is None

@@ -78,7 +78,8 @@ class Coder:
         """Normalised segments (n, S) float64 from codes, times ``scale``; ``exact_sums`` repeats bit for bit
         (pack time), without it a plain BLAS product (previews)."""
         if self.kind == "nonlinear":
-            return self.decoder.predict_float(np.asarray(codes, dtype=np.int64)) * scale
+            fixed = self.decoder.predict(np.asarray(codes, dtype=np.int64))      # integers, frac_bits fraction bits
+            return fixed.astype(np.float64) * 2.0 ** (-int(self.decoder.frac_bits)) * scale
         if not len(codes):
             return np.zeros((0, self.segment))
         if exact_sums:
