@@ -66,10 +66,10 @@ async def test_shelf_lists_recordings_and_archives_with_details(lab):
         assert size == fmt.size(sum(p.stat().st_size for p in lab.archive.rglob("*") if p.is_file()))
         csv_row = rows["bench_log.csv"]
         assert csv_row[1:5] == ["recording", fmt.size(lab.csv.stat().st_size), "20 s", "2"]
-        assert rows["probe.npy"][3] == "unreadable"  # a .npy carries no rate
+        assert rows["probe.npy"][3] == "needs rate"  # a .npy carries no rate: not "unreadable"
         await pilot.press("down", "down")
         note = str(folder_screen.query_one("#folder-note").render())
-        assert "probe.npy" in note and "rate" in note
+        assert "probe.npy" in note and "type its rate" in note and "--rate" not in note   # asked in the app
 
 
 async def test_start_on_missing_path_is_a_notification_not_a_crash(tmp_path):

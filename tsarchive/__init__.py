@@ -18,7 +18,7 @@ from .version import __version__
 
 from .budget import DEFAULT_SPEC, Budget, BudgetSpec, parse_budget_spec
 from .errors import (ArchiveCorrupt, ArchiveExists, ArchiveNotFound, BadInput, BoundViolation, BudgetError,
-                     Cancelled, FormatVersionError, SourceNotFound, TsArchiveError, UnknownCodec)
+                     Cancelled, FormatVersionError, NeedsRate, SourceNotFound, TsArchiveError, UnknownCodec)
 from .ingest import ReadOptions, read_recording
 from .ingest.survey import SourceSurvey, survey_source
 from .options import PackOptions
@@ -52,5 +52,5 @@ __all__ = [
     "Archive", "ChannelMeta", "WindowTable", "PackOptions", "Budget", "BudgetSpec", "DEFAULT_SPEC", "parse_budget_spec",
     "ChannelInfo", "Recording", "Times", "Progress", "PackResult", "ChannelSummary", "VerifyReport", "ChannelCheck",
     "TsArchiveError", "BadInput", "BudgetError", "SourceNotFound", "ArchiveNotFound", "ArchiveExists",
-    "ArchiveCorrupt", "FormatVersionError", "UnknownCodec", "BoundViolation", "Cancelled",
+    "ArchiveCorrupt", "FormatVersionError", "UnknownCodec", "BoundViolation", "Cancelled", "NeedsRate",
 ]

@@ -16,6 +16,10 @@ class BadInput(TsArchiveError, ValueError):
     """A source recording or an argument cannot be used as given."""
 
 
+class NeedsRate(BadInput):
+    """A source has no time axis and no rate was given (e.g. a .npy): give the samples per second."""
+
+
 class BudgetError(BadInput):
     """An error-budget spec cannot be parsed or cannot be met."""
 

@@ -28,7 +28,8 @@ class WorkFailed(Message):
 class FolderDetailsLoaded(Message):
     """Details of one row of the Folder screen, read by ``inspect_source`` or ``open``.
 
-    ``problem`` is the one-line error when the file could not be read (other fields None).
+    ``problem`` is the one-line error when the file could not be read (other fields None);
+    ``needs_rate``: it is readable once a rate is given (a .npy), which the Packing screen asks for.
     """
 
     path: Path
@@ -37,6 +38,7 @@ class FolderDetailsLoaded(Message):
     rate: float | None = None
     ratio: float | None = None
     problem: str | None = None
+    needs_rate: bool = False
 
 
 @dataclass

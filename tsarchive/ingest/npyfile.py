@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import BadInput
+from ..errors import BadInput, NeedsRate
 from ..recording import ChannelInfo, Recording
 from .grid import MAX_CHECKED, detect_decimals
 from .options import ReadOptions, check_rate
@@ -31,7 +31,7 @@ def read_npy(path: Path, rate: float | None, options: ReadOptions | None = None)
     """
     path = Path(path)
     if rate is None:
-        raise BadInput(f"{path.name}: a .npy file has no time axis; it needs --rate HZ")
+        raise NeedsRate(f"{path.name}: a .npy file has no time axis; it needs --rate HZ")
     rate = check_rate(rate)
     try:
         arr = np.load(path, mmap_mode="r", allow_pickle=False)

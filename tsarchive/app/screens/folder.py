@@ -30,7 +30,7 @@ from tsarchive.app.widgets.pick_table import PickTable
 from tsarchive.app.checkrecord import read_record
 from tsarchive.app.summary import UNVERIFIED, VERIFIED_OK, archive_duration
 from tsarchive.batch.catalog import current_rows, is_catalog
-from tsarchive.errors import TsArchiveError
+from tsarchive.errors import NeedsRate, TsArchiveError
 
 COLUMNS = ("Name", "Kind", "Size", "Length", "Ch", "Ratio", "Check")
 WAITING = "…"
@@ -140,7 +140,7 @@ class FolderScreen(Notices, Screen):
         if d is None:
             return (name, e.kind, fmt.size(e.size), WAITING, WAITING, WAITING if e.is_archive else "—", check)
         if d.problem:
-            return (name, e.kind, fmt.size(e.size), "unreadable", "—", "—", check)
+            return (name, e.kind, fmt.size(e.size), "needs rate" if d.needs_rate else "unreadable", "—", "—", check)
         n = "—" if d.n_channels is None else str(d.n_channels)
         return (name, e.kind, fmt.size(e.size), fmt.duration(d.duration), n,
                 fmt.ratio(d.ratio) if e.is_archive else "—", check)
@@ -163,6 +163,10 @@ class FolderScreen(Notices, Screen):
                 else:
                     rec = tsarchive.inspect_source(e.path)
                     msg = FolderDetailsLoaded(e.path, rec.duration, len(rec.channels), rec.rate)
+            except NeedsRate:
+                msg = FolderDetailsLoaded(e.path, problem=f"{e.path.name} has no time axis: press p and type "
+                                                          "its rate (samples per second) on the Packing screen",
+                                          needs_rate=True)
             except TsArchiveError as exc:
                 msg = FolderDetailsLoaded(e.path, problem=str(exc))
             except OSError as exc:
