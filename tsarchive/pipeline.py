@@ -35,7 +35,7 @@ import numpy as np
 import pyarrow as pa
 
 from .channelcodec import ChannelCodec
-from .encoder import coded_bytes, sample_windows
+from .encoder import choose_coder, coded_bytes, sample_windows
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .ingest import read_recording
 from .modelrun import Choice, ModelRun, PackSample, _gather, _release_memory
@@ -172,8 +172,11 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
     emit, rec, model = job.emit, job.rec, choice.model
     decoder = None if model is None else model.int_decoder
     names = [c.name for c in rec.channels]
-    codecs = [ChannelCodec.for_tables(n, sample.W, g, sc, p.lpc, p.tables if model is not None else p.tables_plain)
-              for n, g, sc, p in zip(names, grids, sample.scales, choice.plans)]
+    codecs = []
+    for n, g, sc, p, w in zip(names, grids, sample.scales, choice.plans, sample.windows):
+        tables = p.tables if model is not None else p.tables_plain
+        coder = choose_coder(w, sample.nwin, g, sample.W, model, sc, p.lpc, tables)    # plan: the residual coder
+        codecs.append(ChannelCodec.for_tables(n, sample.W, g, sc, p.lpc, tables, residual_coder=coder))
     with ArchiveWriter(job.archive, force=job.force, with_code=decoder is not None) as writer:
         summaries = _encode(writer, rec, names, codecs, sample.W, model, emit)
         note = choice.note if run is None or choice.note is not None else run.verdict()
