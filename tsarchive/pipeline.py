@@ -37,6 +37,7 @@ import pyarrow as pa
 from .channelcodec import ChannelCodec
 from .encoder import choose_coder, coded_bytes, sample_windows
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
+from .gridphase import choose_phase
 from .ingest import read_recording
 from .modelrun import Choice, ModelRun, PackSample, _gather, _release_memory
 from .options import DEFAULT_TRAIN_SECONDS, PackOptions
@@ -56,6 +57,7 @@ from .workers import workers as worker_count
 
 BATCH_SAMPLES = 1 << 18      # samples per encoder call within a step (bounds each thread's temporaries)
 WINDOW_CHOICES = tuple(DEFAULT_WINDOW << k for k in range(4))   # without --window: 1024 … 8192
+PHASE_STRETCH, PHASE_STRETCHES = 1024, 64   # the sample the grid's phase is chosen on (per channel)
 WINDOW_EVAL_SAMPLES = 1 << 18  # samples (all channels) that the window choice plans and codes
 WINDOW_EVAL_MIN = 1 << 15      # per channel at least (and no choice on a recording shorter than this)
 WINDOW_EVAL_CHANNELS = 4       # channels (evenly spread) that the window choice looks at
@@ -212,7 +214,8 @@ def _self_check(stage: Path, rec: Recording, progress, emit) -> None:
 def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
     ranges = finite_ranges(rec)
     grids, notes = [], []
-    for ch, r in zip(rec.channels, ranges):
+    stretches = _phase_sample(rec)
+    for ch, r, x in zip(rec.channels, ranges, stretches):
         budget = spec.for_channel(ch.name)
         if budget.kind == "lossless" and ch.decimals is None:
             raise BudgetError(f"channel {ch.name} is not on an integer or decimal grid, so 'lossless' is "
@@ -224,6 +227,8 @@ def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
                            "them; fill the gaps or store the column in a wider integer type")
         if r.kept or r.missing is not None:
             g = replace(g, verbatim=r.kept, missing=r.missing)
+        else:                                   # where the grid sits: the cheapest phase on a sample
+            g = choose_phase(g, x, int(r.mult) if ch.decimals is not None else 1)
         grids.append(g)
         note = _grid_note(budget, g)
         if budget.kind == "pct" and r.kept and r.span_all != r.span:
@@ -233,6 +238,15 @@ def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
                 f", not {budget.resolve(r.span_all, ch.name):.6g} {ch.unit}".rstrip())]))
         notes.append(note)
     return grids, notes
+
+
+def _phase_sample(rec: Recording) -> list[np.ndarray]:
+    """Per channel, ``PHASE_STRETCHES`` evenly spread stretches of ``PHASE_STRETCH`` samples (fewer, or
+    one short stretch, on a short recording): what the grid's phase is chosen on."""
+    L = min(PHASE_STRETCH, rec.n_samples)
+    if not L:
+        return [np.zeros((0, 0))] * len(rec.channels)
+    return _gather(rec, spread(rec.n_samples // L, PHASE_STRETCHES), L)
 
 
 def _grid_note(budget, grid: Grid) -> str:
