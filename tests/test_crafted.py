@@ -190,6 +190,8 @@ CASES = [
     ("coder-init-garbled", _coder_field("init", "%%not base64%%"), r"initial state is not base64", (2, 2, 2)),
     ("coder-init-short", _coder_field("init", "AAAA"), r"initial state is malformed", (2, 2, 2)),
     ("coder-range", _coder({"id": "range"}), r"residual coder 'range' cannot code a whole channel", (2, 2, 2)),
+    ("coder-classic", _coder({"id": "classic"}), r"residual coder 'classic' cannot code a whole channel",
+     (2, 2, 2)),
     ("coder-huge", _coder_field("init", "A" * (1 << 17)), r"residual coder is malformed", (2, 2, 2)),
     ("lpc-empty", _ch("lpc", []), r"linear-prediction sets are missing or malformed", (2, 2, 2)),
     ("member-outside", _member_outside, r"not a plain member file name", (2, 2, 2)),
