@@ -129,3 +129,26 @@ def test_choose_coder_keeps_range_coding_on_white_noise():
     plan = plan_channel(windows, None, 64, grid, W, None, 1)
     assert choose_coder(windows, 64, grid, W, None, 1, plan.lpc, plan.tables) is None
     assert choose_coder(windows[:0], 0, grid, W, None, 1, plan.lpc, TableSet({})) is None
+
+
+def test_a_garbled_adaptive_window_is_refused_in_one_line(long_archive, tmp_path):
+    # one residual byte changed in an adaptive channel's window, the archive re-bound as a forger would:
+    # the decoder or the window's CRC-32 stops it (ArchiveCorrupt), and verify reports the damage
+    from crafting import copy, rebind, replace_column
+    from tsarchive.errors import ArchiveCorrupt
+    a = copy(long_archive, tmp_path, "g.tsa")
+    name = tsarchive.open(a).channels[1].name
+
+    def garble(t):
+        res = t["residual"].to_pylist()
+        for i, (ch, w) in enumerate(zip(t["channel"].to_pylist(), t["window"].to_pylist())):
+            if ch == name and w == 3:
+                res[i] = bytes([res[i][0] ^ 0x10]) + res[i][1:]
+        return replace_column(t, "residual", res)
+    rebind(a, rows=garble)
+    arc = tsarchive.open(a)
+    with pytest.raises(ArchiveCorrupt, match=r"window 3|adaptive-coded window") as exc:
+        arc.read(name)
+    assert "\n" not in str(exc.value)
+    arc.read(arc.channels[0].name)                       # the other channel is untouched
+    assert not tsarchive.verify(a).ok
