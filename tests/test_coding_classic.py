@@ -101,10 +101,14 @@ def test_config():
 
 
 def test_registry():
-    from tsarchive.coding import AdaptiveCoder, coder_from_config
+    from tsarchive import codecs
+    from tsarchive.coding import AdaptiveCoder
     from tsarchive.errors import UnknownCodec
 
+    # the one registry of tsarchive.codecs knows the leaf coders (issue 11: one contract, one registry)
+    assert {"adaptive", "classic", "range", "zstd"} <= set(codecs.ids("coder"))
     for c in (ClassicCoder(("bzip2",)), AdaptiveCoder()):
-        assert coder_from_config(json.loads(json.dumps(c.get_config()))) == c
+        config = json.loads(json.dumps(c.get_config()))
+        assert codecs.from_config("coder", config["id"], config) == c
     with pytest.raises(UnknownCodec):
-        coder_from_config({"id": "lz4"})
+        codecs.from_config("coder", "lz4", {"id": "lz4"})

@@ -17,7 +17,10 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
+from unittest import mock
+
 import tsarchive
+from tsarchive import pipeline
 from tsarchive.cli import main
 from tsarchive.store import schema as S
 
@@ -33,9 +36,24 @@ def base(tmp_path_factory):
     x[100, 0] = np.nan
     np.save(d / "s.npy", x)
     out = d / "base.tsa"
-    tsarchive.pack(d / "s.npy", out, "0.5%", rate=200.0, window=64, code_size=2, train_seconds=1)
+    with mock.patch("tsarchive.pipeline.choose_coder", _range_then_chosen(pipeline.choose_coder)):
+        tsarchive.pack(d / "s.npy", out, "0.5%", rate=200.0, window=64, code_size=2, train_seconds=1,
+                      segment=16)
+    coders = [c.get("coder", {}).get("id") for c in manifest(out)["channels"]]
+    assert coders == [None, "adaptive"]      # both ways of coding residuals are crafted below
     assert {p.name for p in out.iterdir()} == {S.MANIFEST, S.WINDOWS, S.EXCEPTIONS, S.MODEL, "index.parquet"}
     return out
+
+
+def _range_then_chosen(choose):
+    """The packer's coder choice, except that the first of every two channels keeps the range coder
+    with its tables (the packer codes this short recording's channels adaptively)."""
+    calls = []
+
+    def pick(*args):
+        calls.append(1)
+        return None if len(calls) % 2 else choose(*args)
+    return pick
 
 
 def _edit(fn):
@@ -138,6 +156,14 @@ def _freqs_number(m):
     m["channels"][0]["tables"][0]["freqs"] = 5
 
 
+def _coder(value):
+    return _edit(lambda m: m["channels"][1].__setitem__("coder", value))
+
+
+def _coder_field(key, value):
+    return _edit(lambda m: m["channels"][1]["coder"].__setitem__(key, value))
+
+
 # (id, damage, message, exit codes of report, unpack, verify)
 CASES = [
     ("window-zero", _top("window", 0), r"window is int 0, not an integer in 8\.\.65536", (2, 2, 2)),
@@ -157,6 +183,17 @@ CASES = [
      (2, 2, 2)),
     ("used-disagrees", _edit(_used_pct), r"used_pct 1\.0 disagrees with worst_error / eps", (2, 2, 2)),
     ("table-number", _edit(_freqs_number), r"entropy table entry is malformed", (2, 2, 2)),
+    ("coder-unknown", _coder_field("id", "lz77x"), r"residual coder 'lz77x' is unknown to this tsarchive "
+     r"version; upgrade tsarchive", (2, 2, 2)),
+    ("coder-text", _coder("adaptive"), r"residual coder is malformed", (2, 2, 2)),
+    ("coder-no-id", _edit(lambda m: m["channels"][1]["coder"].pop("id")), r"residual coder is malformed",
+     (2, 2, 2)),
+    ("coder-init-garbled", _coder_field("init", "%%not base64%%"), r"initial state is not base64", (2, 2, 2)),
+    ("coder-init-short", _coder_field("init", "AAAA"), r"initial state is malformed", (2, 2, 2)),
+    ("coder-range", _coder({"id": "range"}), r"residual coder 'range' cannot code a whole channel", (2, 2, 2)),
+    ("coder-classic", _coder({"id": "classic"}), r"residual coder 'classic' cannot code a whole channel",
+     (2, 2, 2)),
+    ("coder-huge", _coder_field("init", "A" * (1 << 17)), r"residual coder is malformed", (2, 2, 2)),
     ("lpc-empty", _ch("lpc", []), r"linear-prediction sets are missing or malformed", (2, 2, 2)),
     ("member-outside", _member_outside, r"not a plain member file name", (2, 2, 2)),
     ("windows-missing", lambda a: (a / S.WINDOWS).unlink(), r"windows\.parquet is missing", (2, 2, 1)),

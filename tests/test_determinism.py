@@ -69,6 +69,33 @@ def test_same_archive_bytes_with_one_and_two_threads(tmp_path):
         assert got[1][name] == got[2][name], name
 
 
+_CODERS_CHILD = r"""
+import sys
+sys.path.insert(0, {root!r})
+sys.path.insert(0, {tests!r})
+from coder_kit import pack_with_coders
+pack_with_coders(sys.argv[1], 150_000)
+"""
+
+
+def test_same_bytes_with_one_and_two_threads_when_the_adaptive_coder_is_chosen(tmp_path):
+    # the coder choice counts bytes in integers: the channels coded adaptively (one from a fitted state)
+    # and the one range coded are the same on any thread count
+    from coder_kit import coder_ids, fitted
+    got = {}
+    for n in (1, 2):
+        env = dict(os.environ, TSARCHIVE_THREADS=str(n), OMP_NUM_THREADS=str(n), OPENBLAS_NUM_THREADS=str(n),
+                   MKL_NUM_THREADS=str(n), NUMBA_NUM_THREADS=str(n))
+        out = tmp_path / f"t{n}" / "c.tsa"
+        code = _CODERS_CHILD.format(root=PKG_ROOT, tests=str(Path(__file__).parent))
+        subprocess.run([sys.executable, "-c", code, str(out)], env=env, check=True, capture_output=True, timeout=600)
+        got[n] = _members(out)
+    assert coder_ids(tmp_path / "t1" / "c.tsa") == [None, "adaptive"] and fitted(tmp_path / "t1" / "c.tsa")[1]
+    assert sorted(got[1]) == sorted(got[2])
+    for name in got[1]:
+        assert got[1][name] == got[2][name], name
+
+
 class _FastClock:
     """time.monotonic of a very busy (or very slow) machine: half a second passes between any two readings."""
 

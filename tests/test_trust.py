@@ -88,12 +88,22 @@ def _digit_edits(text: str):
             yield i, text[:i] + str((int(c) + 1) % 10) + text[i + 1:]
 
 
+def _same_json(a: str, b: str) -> bool:
+    try:
+        return json.loads(a) == json.loads(b)
+    except ValueError:
+        return False
+
+
 def test_fuzz_every_single_digit_edit_of_the_manifest_is_detected(arc, tmp_path):
     a = copy(arc, tmp_path, "fuzz.tsa")
     original = (a / S.MANIFEST).read_text()
     members_at = original.index('"members"')
-    n, by_reader = 0, 0
+    n, by_reader, same = 0, 0, 0
     for i, edited in _digit_edits(original):
+        if _same_json(edited, original):     # the last of 17 digits of a double: the same value, no edit
+            same += 1
+            continue
         (a / S.MANIFEST).write_text(edited)
         n += 1
         try:
@@ -107,7 +117,7 @@ def test_fuzz_every_single_digit_edit_of_the_manifest_is_detected(arc, tmp_path)
         assert not verify_archive(a).ok
     (a / S.MANIFEST).write_text(original)
     assert verify_archive(a).ok
-    assert n > 300 and by_reader >= sum(c.isdigit() for c in original[:members_at])
+    assert n > 300 and by_reader + same >= sum(c.isdigit() for c in original[:members_at]) and same < 10
 
 
 def test_an_unbound_version_3_archive_is_read_and_says_so(capsys):

@@ -78,7 +78,8 @@ class Archive:
         self._by_name = {c.name: c for c in self.channels}
         self._local = threading.local()
         # the coders are rebuilt once, at opening (a malformed table is named here)
-        codecs = {c.name: ChannelCodec.from_entry(c, P.tables(d)) for c, d in zip(self.channels, chans)}
+        codecs = {c.name: ChannelCodec.from_entry(c, P.tables(d), coder=d.get("coder"))
+                  for c, d in zip(self.channels, chans)}
         opened = inspect(self.path, m, v, self.members, self.window, self.channels, model, strict,
                          make_decoder=IntDecoder.from_arrays)
         self._windows_file, self._groups, self._decoder = opened.windows, opened.groups, opened.decoder

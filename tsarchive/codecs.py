@@ -20,9 +20,10 @@ kind           encode                                     decode
 ``grid``       ``encode(x) -> (q, positions, raw bits)``  ``decode(q) -> samples`` in the channel's dtype
 =============  =========================================  ==============================================
 
-Coders: :mod:`tsarchive.entropy` (``range``), :mod:`tsarchive.zstdcoder` (``zstd``); a new leaf coder with
-the same four members registers itself with :func:`register` and is found
-by its id.  Predictors: :mod:`tsarchive.predict`.  Grids: :mod:`tsarchive.quantize`.
+Coders: :mod:`tsarchive.entropy` (``range``, per-window tables), :mod:`tsarchive.zstdcoder` (``zstd``),
+:mod:`tsarchive.coding` (``adaptive``, ``classic``: one coder for a whole channel, with its config under
+the channel's manifest ``coder``); a new leaf coder with the same four members registers itself with
+:func:`register` and is found by its id.  Predictors: :mod:`tsarchive.predict`.  Grids: :mod:`tsarchive.quantize`.
 A channel's codecs together are a :class:`tsarchive.channelcodec.ChannelCodec`,
 whose ``to_dict()`` is the channel's entry in ``manifest.json``.
 
@@ -45,7 +46,7 @@ from .errors import UnknownCodec
 
 KINDS = ("coder", "predictor", "grid")
 #: modules that register the built-in codecs when they are imported
-_BUILTIN = ("tsarchive.entropy", "tsarchive.zstdcoder", "tsarchive.predict", "tsarchive.quantize")
+_BUILTIN = ("tsarchive.entropy", "tsarchive.zstdcoder", "tsarchive.coding", "tsarchive.predict", "tsarchive.quantize")
 
 _FACTORIES: dict[tuple[str, Any], Callable[[dict], Any]] = {}
 _loaded = False

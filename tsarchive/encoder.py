@@ -4,6 +4,10 @@
   LPC coefficients, pick predictors by a proxy cost, build the entropy tables
   per (predictor, activity class), both with and without the autoencoder, and
   estimate what the autoencoder saves;
+* :func:`choose_coder` — on the same sample, the channel's residual coder: the
+  range coder under the plan's tables, or the adaptive coder (from rest or from
+  a fitted initial state), whichever codes the sample smallest, counted in
+  whole bytes with what each adds to the manifest;
 * :func:`code_windows` — residuals -> payloads under the plan's tables.
 
 The rows themselves are made by :func:`tsarchive.windowcodec.encode_windows`.
@@ -11,11 +15,13 @@ The rows themselves are made by :func:`tsarchive.windowcodec.encode_windows`.
 
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass
 
 import numpy as np
 
 from . import entropy
+from .coding.adaptive import AdaptiveCoder
 from .codec import TableSet, choose_modes, proxy_bits
 from .predict import Context
 from .predict import lpc as lpc_mod
@@ -25,6 +31,9 @@ from .windowcodec import code_windows, predict_windows  # noqa: F401  (code_wind
 
 TABLE_SAMPLES = 1 << 20      # bound on the samples used to plan each channel (and to sample training windows)
 MIN_TABLE_SAMPLES = 8192     # a table class with fewer samples is merged into its neighbour
+CHOICE_SAMPLES = 1 << 18     # bound on the samples per channel the coder choice codes each way
+FIT_MIN_SAMPLES = 1 << 17    # channels shorter than this never try a fitted initial state (its bytes
+                             # pay only on about 1e5 samples or more: bench --study residuals)
 
 
 @dataclass(frozen=True)
@@ -83,6 +92,40 @@ def coded_bytes(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int) -
     q, _, _, lv, _, _ = predict_windows(windows, grid, W, None, 1)
     modes, classes, res, _ = choose_modes(q, Context(lv, None, plan.lpc), plan.tables)
     return sum(len(p) for p in code_windows(modes, classes, res, plan.tables))
+
+
+def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, model, scale: int,
+                 lpc, tables: TableSet):
+    """The channel's residual coder: None (range coding under ``tables``, stored in the manifest) or an
+    :class:`~tsarchive.coding.adaptive.AdaptiveCoder`, whichever gives the fewest bytes.
+
+    Each candidate codes the same spread sample of the full ``windows`` (k, W) with the predictors
+    ``tables`` choose; its payload bytes are scaled to the channel's windows (integer arithmetic,
+    so the choice, and the archive, are the same on every machine) and what it adds to the manifest
+    is added: the tables' JSON text, or the coder's config (a fitted initial state in base64).  A tie
+    keeps the range coder.
+    """
+    if not len(windows):
+        return None
+    pick = spread(len(windows), max(1, CHOICE_SAMPLES // W))
+    q, _, _, lv, _, ae = predict_windows(windows[pick], grid, W, model, scale)
+    modes, classes, res, _ = choose_modes(q, Context(lv, ae, lpc), tables)
+    k = len(res)
+
+    def total(payloads: list[bytes], stored) -> int:
+        return sum(map(len, payloads)) * n_total_windows // k + len(json.dumps(stored, separators=(",", ":")))
+
+    entries = [{"mode": int(m), "table": int(c), "coder": entropy.RangeCoder.id,
+                **entropy.RangeCoder(t).get_config()} for (m, c), t in sorted(tables.tables.items())]
+    best, best_bytes = None, total(code_windows(modes, classes, res, tables), entries)
+    candidates = [AdaptiveCoder()]
+    if n_total_windows * W >= FIT_MIN_SAMPLES:
+        candidates.append(AdaptiveCoder.fit(list(res)))
+    for coder in candidates:
+        size = total(coder.encode_many(res), coder.get_config())
+        if size < best_bytes:
+            best, best_bytes = coder, size
+    return best
 
 
 def _tables(batches, lpc, use_ae: bool) -> tuple[TableSet, float]:

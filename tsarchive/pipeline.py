@@ -35,8 +35,9 @@ import numpy as np
 import pyarrow as pa
 
 from .channelcodec import ChannelCodec
-from .encoder import coded_bytes, sample_windows
+from .encoder import choose_coder, coded_bytes, sample_windows
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
+from .gridphase import choose_phase
 from .ingest import read_recording
 from .modelrun import Choice, ModelRun, PackSample, _gather, _release_memory
 from .options import DEFAULT_TRAIN_SECONDS, PackOptions
@@ -57,6 +58,7 @@ from .workers import workers as worker_count
 
 BATCH_SAMPLES = 1 << 18      # samples per encoder call within a step (bounds each thread's temporaries)
 WINDOW_CHOICES = tuple(DEFAULT_WINDOW << k for k in range(4))   # without --window: 1024 … 8192
+PHASE_STRETCH, PHASE_STRETCHES = 1024, 64   # the sample the grid's phase is chosen on (per channel)
 WINDOW_EVAL_SAMPLES = 1 << 18  # samples (all channels) that the window choice plans and codes
 WINDOW_EVAL_MIN = 1 << 15      # per channel at least (and no choice on a recording shorter than this)
 WINDOW_EVAL_CHANNELS = 4       # channels (evenly spread) that the window choice looks at
@@ -174,8 +176,11 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
     emit, rec, model = job.emit, job.rec, choice.model
     decoder = None if model is None else model.int_decoder
     names = [c.name for c in rec.channels]
-    codecs = [ChannelCodec.for_tables(n, sample.W, g, sc, p.lpc, p.tables if model is not None else p.tables_plain)
-              for n, g, sc, p in zip(names, grids, sample.scales, choice.plans)]
+    codecs = []
+    for n, g, sc, p, w in zip(names, grids, sample.scales, choice.plans, sample.windows):
+        tables = p.tables if model is not None else p.tables_plain
+        coder = choose_coder(w, sample.nwin, g, sample.W, model, sc, p.lpc, tables)    # plan: the residual coder
+        codecs.append(ChannelCodec.for_tables(n, sample.W, g, sc, p.lpc, tables, residual_coder=coder))
     with ArchiveWriter(job.archive, force=job.force, with_code=decoder is not None) as writer:
         summaries = _encode(writer, rec, names, codecs, sample.W, model, emit)
         note = choice.note if run is None or choice.note is not None else run.verdict()
@@ -212,7 +217,8 @@ def _self_check(stage: Path, rec: Recording, progress, emit) -> None:
 def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
     ranges = finite_ranges(rec)
     grids, notes = [], []
-    for ch, r in zip(rec.channels, ranges):
+    stretches = _phase_sample(rec)
+    for ch, r, x in zip(rec.channels, ranges, stretches):
         budget = spec.for_channel(ch.name)
         if budget.kind == "lossless" and ch.decimals is None:
             raise BudgetError(f"channel {ch.name} is not on an integer or decimal grid, so 'lossless' is "
@@ -224,6 +230,8 @@ def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
                            "them; fill the gaps or store the column in a wider integer type")
         if r.kept or r.missing is not None:
             g = replace(g, verbatim=r.kept, missing=r.missing)
+        else:                                   # where the grid sits: the cheapest phase on a sample
+            g = choose_phase(g, x, int(r.mult) if ch.decimals is not None else 1)
         grids.append(g)
         note = _grid_note(budget, g)
         if budget.kind == "pct" and r.kept and r.span_all != r.span:
@@ -233,6 +241,15 @@ def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
                 f", not {budget.resolve(r.span_all, ch.name):.6g} {ch.unit}".rstrip())]))
         notes.append(note)
     return grids, notes
+
+
+def _phase_sample(rec: Recording) -> list[np.ndarray]:
+    """Per channel, ``PHASE_STRETCHES`` evenly spread stretches of ``PHASE_STRETCH`` samples (fewer, or
+    one short stretch, on a short recording): what the grid's phase is chosen on."""
+    L = min(PHASE_STRETCH, rec.n_samples)
+    if not L:
+        return [np.zeros((0, 0))] * len(rec.channels)
+    return _gather(rec, spread(rec.n_samples // L, PHASE_STRETCHES), L)
 
 
 def _grid_note(budget, grid: Grid) -> str:

@@ -40,8 +40,12 @@ def predict_windows(x: np.ndarray, grid: Grid, W: int, model, scale: int):
 
 
 
-def code_windows(modes: np.ndarray, classes: np.ndarray, res: np.ndarray, tables: TableSet) -> list[bytes]:
-    """Each window's residuals range coded under its (predictor, class) table, in window order."""
+def code_windows(modes: np.ndarray, classes: np.ndarray, res: np.ndarray, tables: TableSet,
+                 residual_coder=None) -> list[bytes]:
+    """Each window's residuals range coded under its (predictor, class) table, in window order (or all
+    by ``residual_coder``, the channel's one coder, when given)."""
+    if residual_coder is not None:
+        return residual_coder.encode_many(res)
     payloads: list[bytes] = [b""] * len(res)
     for m, k in set(zip(modes.tolist(), classes.tolist())):
         sel = np.flatnonzero((modes == m) & (classes == k))
@@ -60,7 +64,9 @@ def encode_windows(x: np.ndarray, first_window: int, codec: ChannelCodec, model=
     grid, name, tables = codec.grid, codec.name, codec.table_set
     q, pos, bits, lv, codes, ae = predict_windows(x, grid, codec.window, model, codec.scale)
     modes, classes, res, sets = choose_modes(q, Context(lv, ae, codec.lpc), tables)
-    payloads = code_windows(modes, classes, res, tables)
+    payloads = code_windows(modes, classes, res, tables, codec.residual_coder)
+    if codec.residual_coder is not None:      # no table is named: the column stays constant (and tiny)
+        classes = np.zeros_like(classes)
     xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
     x64 = np.asarray(x).astype(np.float64)
     with np.errstate(invalid="ignore", over="ignore"):
