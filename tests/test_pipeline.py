@@ -167,10 +167,15 @@ def test_time_range_read_and_random_access(small_archive, small_npy):
 def test_plain_pyarrow_can_read_the_codes(small_archive):
     # Any Parquet reader: pyarrow alone, no tsarchive code.
     t = pq.read_table(small_archive / "windows.parquet")
-    assert {"channel", "window", "code", "residual", "crc32", "worst", "score"} <= set(t.column_names)
+    assert set(t.column_names) == {"key", "facts", "level", "code", "residual", "score"}   # format 5 (lean.py)
     codes = np.stack(t.column("code").to_pylist())
     assert codes.dtype.kind == "i" and codes.shape[0] == t.num_rows
-    assert t["worst"].type == pa.uint8() and int(pc.max(t["worst"]).as_py()) <= 250  # 1/250ths of eps
+    worst = (t["facts"].to_numpy() >> 32) & 0xFF            # facts = crc32 | worst << 32 | ...
+    assert t["facts"].type == pa.int64() and 0 < worst.max() <= 250    # 1/250ths of eps
+    key = t["key"].to_numpy()
+    assert sorted(set((key >> 32).tolist())) == [0, 1]                  # channel << 32 | window
+    layout = pq.read_metadata(small_archive / "windows.parquet").metadata[b"tsarchive.layout"]
+    assert b"key=channel<<32|window" in layout and b"worst<<32" in layout   # self-describing
     m = pq.read_table(small_archive / "model.parquet").to_pydict()
     assert set(m) == {"name", "shape", "values"}
     manifest = json.loads((small_archive / "manifest.json").read_text())
@@ -486,6 +491,6 @@ def test_spread_picks_evenly_with_one_rounding():
 def test_members_are_handed_out_by_name(small_archive):
     # pyarrow's own reader of the file is the reference; an unlisted name is no member
     arc = tsarchive.open(small_archive)
-    got = arc.member_table("windows.parquet", columns=["channel", "window"])
-    assert got.equals(pq.read_table(small_archive / "windows.parquet", columns=["channel", "window"]))
+    got = arc.member_table("windows.parquet", columns=["key", "facts"])
+    assert got.equals(pq.read_table(small_archive / "windows.parquet", columns=["key", "facts"]))
     assert arc.member_table("index.parquet") is None and arc.member_table("../windows.parquet") is None

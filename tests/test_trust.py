@@ -172,7 +172,7 @@ def test_commit_never_replaces_an_archive_that_appeared_meanwhile(arc, tmp_path)
     from tsarchive.store.writer import ArchiveWriter
     target = tmp_path / "late.tsa"
     with pytest.raises(ArchiveExists, match="appeared while packing"):
-        with ArchiveWriter(target) as w:
+        with ArchiveWriter(target, []) as w:
             w.finalize({"format": "tsarchive"})
             copy(arc, tmp_path, "late.tsa")        # another program put an archive there
             w.commit()

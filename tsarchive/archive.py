@@ -24,6 +24,7 @@ from .channelcodec import ChannelCodec
 from .errors import ArchiveCorrupt, BadInput, FormatVersionError
 from .model.intnet import IntDecoder
 from .workers import workers as worker_count
+from .store import lean
 from .store import parse as P
 from .store import schema as S
 from .store.binding import check_folder, read_manifest
@@ -76,6 +77,7 @@ class Archive:
         self.channels = tuple(_channel_meta(c, self.window) for c in chans)
         P.budget_spec_agrees(m, self.channels)
         self._by_name = {c.name: c for c in self.channels}
+        self._index = {c.name: i for i, c in enumerate(self.channels)}     # a channel's key in lean rows
         self._local = threading.local()
         # the coders are rebuilt once, at opening (a malformed table is named here)
         codecs = {c.name: ChannelCodec.from_entry(c, P.tables(d)) for c, d in zip(self.channels, chans)}
@@ -160,10 +162,14 @@ class Archive:
         groups = [g for g, a, b in self._row_groups.get(channel, []) if b >= w0 and a < w1]
         if not groups:
             return schema.empty_table() if columns is None else pa.schema([schema.field(c) for c in columns]).empty_table()
+        lean_rows = self.format_version >= S.LEAN_FROM_VERSION
+        wanted = lean.physical_columns(columns, "code" in schema.names) if lean_rows else columns
         try:
-            t = self._thread_file().read_row_groups(groups, columns=columns)
+            t = self._thread_file().read_row_groups(groups, columns=wanted)
         except (OSError, pa.ArrowException) as exc:
             raise ArchiveCorrupt(f"windows.parquet cannot be read ({str(exc)[:80]}); the archive is damaged") from None
+        if lean_rows:
+            return lean.unpack(lean.select(t, self._index[channel], w0, w1), channel, columns)
         mask = pc.and_(pc.and_(pc.equal(t["channel"], channel), pc.greater_equal(t["window"], w0)),
                        pc.less(t["window"], w1))
         t = t.filter(mask)

@@ -174,7 +174,7 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
     names = [c.name for c in rec.channels]
     codecs = [ChannelCodec.for_tables(n, sample.W, g, sc, p.lpc, p.tables if model is not None else p.tables_plain)
               for n, g, sc, p in zip(names, grids, sample.scales, choice.plans)]
-    with ArchiveWriter(job.archive, force=job.force, with_code=decoder is not None) as writer:
+    with ArchiveWriter(job.archive, names, force=job.force, with_code=decoder is not None) as writer:
         summaries = _encode(writer, rec, names, codecs, sample.W, model, emit)
         note = choice.note if run is None or choice.note is not None else run.verdict()
         if note is None:

@@ -25,6 +25,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from ..errors import ArchiveCorrupt
+from . import lean
 from . import schema as S
 from .binding import file_sha256, footer_digest, manifest_digest, member_size
 from .footer import BYTE_ARRAY, DICTIONARY_ENCODINGS, Footer, read_footer
@@ -55,7 +56,8 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
     bound, groups, decoder = False, {}, None
     if wf is not None:
         bound = check_binding(wf[1], manifest, version, found)
-        groups = row_groups(*wf, channels, window, found)
+        read_groups = row_groups if version < S.LEAN_FROM_VERSION else lean_groups
+        groups = read_groups(*wf, channels, window, found)
     if found.decodable and S.EXCEPTIONS in {x.name for x in members}:
         ef = open_parquet(path, S.EXCEPTIONS, found)
         if ef is not None:
@@ -196,6 +198,52 @@ def row_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, .
     if extra:
         found.add(f"{S.WINDOWS} holds windows of channel(s) the manifest does not list "
                   f"({', '.join(sorted(extra))[:60]}); the archive is damaged", True)
+    return out
+
+
+def lean_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, ...], window: int,
+                found: Findings) -> dict[str, list[tuple[int, int, int]]]:
+    """Format 5 (store/lean.py): channel -> [(row group, first window, last window)] from the ``key``
+    statistics, after checking the columns, the declared sizes and the row counts."""
+    schema = f.schema_arrow.remove_metadata()
+    if not schema.equals(lean.lean_schema("code" in schema.names)):
+        found.add(f"{S.WINDOWS} does not have the columns of this format version; the archive is damaged", True)
+        return {}
+    limit = window * S.ROW_BYTES_PER_SAMPLE + S.ROW_BYTES_FIXED
+    if not leaves_bounded(footer, {"code": S.MAX_CODE_SIZE}, limit):
+        found.add(f"{S.WINDOWS} uses encodings or value counts this format never writes; the archive is "
+                  "damaged or crafted", True)
+        return {}
+    ki, last = schema.names.index("key"), max(len(channels) - 1, 0)
+    out: dict[str, list[tuple[int, int, int]]] = {}
+    alone = [0] * len(channels)             # rows in groups that hold one channel only
+    for g, rg in enumerate(footer.groups):
+        st = rg.chunks[ki]
+        ok = st.min is not None and st.max is not None and len(st.min) == len(st.max) == 8
+        lo, hi = (int.from_bytes(st.min, "little", signed=True), int.from_bytes(st.max, "little", signed=True)) \
+            if ok else (0, -1)
+        (c0, w0), (c1, w1) = divmod(lo, 1 << lean.CHANNEL_SHIFT), divmod(hi, 1 << lean.CHANNEL_SHIFT)
+        if not ok or not 0 <= lo <= hi or c1 > last or (c0 == c1 and rg.num_rows > hi - lo + 1):
+            found.add(f"{S.WINDOWS} row group {g} lacks or contradicts its key statistics; the archive is damaged",
+                      True)
+            return {}
+        if rg.total_byte_size > rg.num_rows * limit:
+            found.add(f"{S.WINDOWS} row group {g} declares {rg.total_byte_size} bytes for {rg.num_rows} windows "
+                      f"of {window} samples; the archive is damaged or crafted", True)
+            return {}
+        for c in range(c0, c1 + 1):
+            out.setdefault(channels[c].name, []).append((g, w0 if c == c0 else 0,
+                                                         w1 if c == c1 else lean.WINDOW_MASK))
+        if c0 == c1:
+            alone[c0] += rg.num_rows
+    for ch, n in zip(channels, alone):
+        if n > ch.n_windows:
+            found.add(f"channel {ch.name}: the manifest declares {ch.n_samples} samples ({ch.n_windows} windows) "
+                      f"but {S.WINDOWS} holds {n} windows; the archive is damaged", True)
+    total = sum(c.n_windows for c in channels)
+    if footer.num_rows != total:
+        found.add(f"the manifest declares {total} windows but {S.WINDOWS} holds {footer.num_rows}; "
+                  "the archive is damaged", True)
     return out
 
 

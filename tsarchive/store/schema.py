@@ -34,8 +34,9 @@ from __future__ import annotations
 import pyarrow as pa
 
 FORMAT_NAME = "tsarchive"
-FORMAT_VERSION = 4
+FORMAT_VERSION = 5
 OLDEST_READABLE = 3                    # the oldest format version this tool still reads
+LEAN_FROM_VERSION = 5                  # from this version on, windows.parquet has the lean columns (lean.py)
 BOUND_FROM_VERSION = 4                 # from this version on, the manifest must be bound to windows.parquet
 BINDING_KEY = b"tsarchive.manifest_sha256"   # windows.parquet footer key: SHA-256 of the manifest (binding.py)
 
