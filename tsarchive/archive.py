@@ -61,14 +61,15 @@ class Archive:
         """
         self.path = Path(path)
         check_folder(self.path)
-        m = self.manifest = read_manifest(self.path)
-        v = self.format_version = P.format_version(m)
+        stored = read_manifest(self.path)
+        v = self.format_version = P.format_version(stored)
         if v > S.FORMAT_VERSION:
             raise FormatVersionError(f"archive {self.path.name} was written by a newer tsarchive (format {v}; "
                                      f"this one reads {S.OLDEST_READABLE}..{S.FORMAT_VERSION}); upgrade tsarchive")
         if v < S.OLDEST_READABLE:
             raise FormatVersionError(f"archive {self.path.name} has format {v}, older than this tsarchive reads "
                                      f"({S.OLDEST_READABLE}..{S.FORMAT_VERSION}); use the version that wrote it")
+        m = self.manifest = P.expanded(stored, v)      # format 5 stores each fact once (store/compact.py)
         self.window = P.window(m)
         self.members = P.members(m)
         model = P.model_spec(m, self.window)
@@ -81,7 +82,7 @@ class Archive:
         self._local = threading.local()
         # the coders are rebuilt once, at opening (a malformed table is named here)
         codecs = {c.name: ChannelCodec.from_entry(c, P.tables(d)) for c, d in zip(self.channels, chans)}
-        opened = inspect(self.path, m, v, self.members, self.window, self.channels, model, strict,
+        opened = inspect(self.path, stored, v, self.members, self.window, self.channels, model, strict,
                          make_decoder=IntDecoder.from_arrays)
         self._windows_file, self._groups, self._decoder = opened.windows, opened.groups, opened.decoder
         self._codecs = {n: replace(c, decoder=opened.decoder) for n, c in codecs.items()}

@@ -61,7 +61,7 @@ WRITER_OPTS = dict(
     compression={"key": "zstd", "facts": "zstd", "level": "zstd", "code.list.element": "zstd", "residual": "none",
                  "score": "zstd"},
     compression_level={"key": 9, "facts": 9, "level": 9, "code.list.element": 9, "score": 9}, store_schema=False, write_statistics=["key"], use_dictionary=False,
-    column_encoding={"key": "DELTA_BINARY_PACKED", "facts": "PLAIN", "level": "DELTA_BINARY_PACKED",
+    column_encoding={"key": "DELTA_BINARY_PACKED", "facts": "BYTE_STREAM_SPLIT", "level": "DELTA_BINARY_PACKED",
                      "residual": "DELTA_LENGTH_BYTE_ARRAY", "score": "BYTE_STREAM_SPLIT"})
 
 

@@ -26,6 +26,7 @@ from ..errors import BadInput
 from . import schema as S
 from . import lean
 from .binding import manifest_digest
+from .compact import compact
 from .claim import check_target, claim_target, is_archive_dir, move_into_place, staging_name  # noqa: F401
 
 class ArchiveWriter:
@@ -139,7 +140,7 @@ class ArchiveWriter:
         """
         self._flush_pending()
         self._windows.add_key_value_metadata({lean.LAYOUT_KEY: lean.LAYOUT})
-        manifest = json.loads(json.dumps(manifest))          # the values exactly as a reader will see them
+        manifest = json.loads(json.dumps(compact(manifest)))  # the values exactly as a reader will see them
         manifest.pop("members", None)
         self._windows.add_key_value_metadata({S.BINDING_KEY: manifest_digest(manifest).encode("ascii")})
         self._close()
