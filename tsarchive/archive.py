@@ -208,8 +208,11 @@ class Archive:
         if S.EXCEPTIONS not in self.manifest.get("members", {}):
             return {}
         try:
-            t = pq.read_table(self.path / S.EXCEPTIONS, filters=[("channel", "=", channel), ("window", ">=", w0),
-                                                                  ("window", "<", w1)])
+            where = lean.key_filter(self._index[channel], w0, w1) if self.format_version >= S.LEAN_FROM_VERSION \
+                else [("channel", "=", channel), ("window", ">=", w0), ("window", "<", w1)]
+            t = pq.read_table(self.path / S.EXCEPTIONS, filters=where)
+            if "key" in t.column_names:
+                t = t.append_column("window", pc.bit_wise_and(t["key"], lean.WINDOW_MASK))
         except (OSError, pa.ArrowException) as exc:
             raise ArchiveCorrupt(f"exceptions.parquet cannot be read ({exc}); the archive is damaged") from None
         out = {}

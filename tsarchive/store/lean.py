@@ -48,6 +48,28 @@ LEAN_SCHEMA = pa.schema([
 ])
 
 
+# exceptions.parquet of format 5: the same key instead of channel and window (statistics on it only)
+EXCEPTIONS_SCHEMA = pa.schema([
+    pa.field("key", pa.int64()),
+    pa.field("pos", pa.list_(pa.int32())),   # positions within the window of the samples stored verbatim
+    pa.field("bits", pa.list_(pa.int64())),  # their raw IEEE-754 bits (floats) or values (integers)
+])
+EXCEPTIONS_OPTS = dict(compression="zstd", compression_level=9, store_schema=False, write_statistics=["key"],
+                       use_dictionary=False)
+
+
+def pack_exceptions(rows: pa.Table, channel: int) -> pa.Table:
+    """Logical verbatim-sample rows (``schema.EXCEPTIONS_SCHEMA``) of one channel -> format 5's."""
+    key = (np.int64(channel) << CHANNEL_SHIFT) | rows["window"].to_numpy().astype(np.int64)
+    return pa.table({"key": key, "pos": rows["pos"], "bits": rows["bits"]}, schema=EXCEPTIONS_SCHEMA)
+
+
+def key_filter(channel: int, w0: int, w1: int) -> list[tuple]:
+    """A pyarrow filter for the rows of ``channel`` with ``w0 <= window < w1``."""
+    base = channel << CHANNEL_SHIFT
+    return [("key", ">=", base + max(w0, 0)), ("key", "<", base + min(w1, 1 << CHANNEL_SHIFT))]
+
+
 def lean_schema(with_code: bool) -> pa.Schema:
     """The format-5 windows.parquet schema of an archive with (or without) a model."""
     if not with_code:

@@ -61,7 +61,8 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
     if found.decodable and S.EXCEPTIONS in {x.name for x in members}:
         ef = open_parquet(path, S.EXCEPTIONS, found)
         if ef is not None:
-            check_exceptions(*ef, window, sum(c.n_windows for c in channels), found)
+            check_exceptions(*ef, window, sum(c.n_windows for c in channels), found,
+                             lean.EXCEPTIONS_SCHEMA if version >= S.LEAN_FROM_VERSION else S.EXCEPTIONS_SCHEMA)
     if found.decodable and model is not None:
         mf = open_parquet(path, S.MODEL, found)
         decoder = None if mf is None else load_model(*mf, model, found, make_decoder)
@@ -247,8 +248,9 @@ def lean_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, 
     return out
 
 
-def check_exceptions(f: pq.ParquetFile, footer: Footer, window: int, total_windows: int, found: Findings) -> None:
-    if f.schema_arrow.remove_metadata() != S.EXCEPTIONS_SCHEMA:
+def check_exceptions(f: pq.ParquetFile, footer: Footer, window: int, total_windows: int, found: Findings,
+                     schema: pa.Schema) -> None:
+    if f.schema_arrow.remove_metadata() != schema:
         found.add(f"{S.EXCEPTIONS} has unexpected columns; the archive is damaged", True)
     elif footer.num_rows > total_windows:
         found.add(f"{S.EXCEPTIONS} lists {footer.num_rows} windows, more than the archive's {total_windows}; "

@@ -99,10 +99,9 @@ class ArchiveWriter:
         if not rows.num_rows:
             return
         if self._exceptions is None:
-            self._exceptions = pq.ParquetWriter(self.stage / S.EXCEPTIONS, S.EXCEPTIONS_SCHEMA, compression="zstd",
-                                                compression_level=9, store_schema=False,
-                                                write_statistics=["channel", "window"], use_dictionary=["channel"])
-        self._exceptions.write_table(rows.cast(S.EXCEPTIONS_SCHEMA))
+            self._exceptions = pq.ParquetWriter(self.stage / S.EXCEPTIONS, lean.EXCEPTIONS_SCHEMA,
+                                                **lean.EXCEPTIONS_OPTS)
+        self._exceptions.write_table(lean.pack_exceptions(rows, self._index[rows["channel"][0].as_py()]))
 
     def write_model(self, arrays: dict[str, np.ndarray]) -> None:
         """The decoder's arrays; nothing is written for an archive without a model."""
