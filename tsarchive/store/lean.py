@@ -34,8 +34,7 @@ from ..errors import ArchiveCorrupt
 from . import schema as S
 
 LAYOUT_KEY = b"tsarchive.layout"
-LAYOUT = (b"key=channel<<32|window (channel: index in manifest channels); "
-          b"facts=crc32|worst<<32|table<<40|lpc_set<<48|mode<<56; see DEVELOPERS.md, format 5")
+LAYOUT = b"key=channel<<32|window;facts=crc32|worst<<32|table<<40|lpc_set<<48|mode<<56"   # channel: its index
 CHANNEL_SHIFT = 32
 WINDOW_MASK = (1 << CHANNEL_SHIFT) - 1
 

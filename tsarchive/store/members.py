@@ -165,17 +165,26 @@ def _stats(chunk) -> tuple[str, str] | tuple[int, int] | None:
     return int.from_bytes(chunk.min, "little", signed=True), int.from_bytes(chunk.max, "little", signed=True)
 
 
-def row_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, ...], window: int,
-               found: Findings) -> dict[str, list[tuple[int, int, int]]]:
-    """channel -> [(row group, first window, last window)], after checking rows and declared sizes."""
+def _windows_columns(f: pq.ParquetFile, footer: Footer, expected, window: int, found: Findings):
+    """(schema, uncompressed bytes a row may hold) when windows.parquet has the columns ``expected(with_code)``
+    and no leaf exceeds what a row may hold; (None, 0) after a finding."""
     schema = f.schema_arrow.remove_metadata()
-    if not schema.equals(S.windows_schema("code" in schema.names)):
+    if not schema.equals(expected("code" in schema.names)):
         found.add(f"{S.WINDOWS} does not have the columns of this format version; the archive is damaged", True)
-        return {}
+        return None, 0
     limit = window * S.ROW_BYTES_PER_SAMPLE + S.ROW_BYTES_FIXED
     if not leaves_bounded(footer, {"code": S.MAX_CODE_SIZE}, limit):
         found.add(f"{S.WINDOWS} uses encodings or value counts this format never writes; the archive is "
                   "damaged or crafted", True)
+        return None, 0
+    return schema, limit
+
+
+def row_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, ...], window: int,
+               found: Findings) -> dict[str, list[tuple[int, int, int]]]:
+    """channel -> [(row group, first window, last window)], after checking rows and declared sizes."""
+    schema, limit = _windows_columns(f, footer, S.windows_schema, window, found)
+    if schema is None:
         return {}
     ci, wi = schema.names.index("channel"), schema.names.index("window")
     out: dict[str, list[tuple[int, int, int]]] = {}
@@ -206,14 +215,8 @@ def lean_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, 
                 found: Findings) -> dict[str, list[tuple[int, int, int]]]:
     """Format 5 (store/lean.py): channel -> [(row group, first window, last window)] from the ``key``
     statistics, after checking the columns, the declared sizes and the row counts."""
-    schema = f.schema_arrow.remove_metadata()
-    if not schema.equals(lean.lean_schema("code" in schema.names)):
-        found.add(f"{S.WINDOWS} does not have the columns of this format version; the archive is damaged", True)
-        return {}
-    limit = window * S.ROW_BYTES_PER_SAMPLE + S.ROW_BYTES_FIXED
-    if not leaves_bounded(footer, {"code": S.MAX_CODE_SIZE}, limit):
-        found.add(f"{S.WINDOWS} uses encodings or value counts this format never writes; the archive is "
-                  "damaged or crafted", True)
+    schema, limit = _windows_columns(f, footer, lean.lean_schema, window, found)
+    if schema is None:
         return {}
     ki, last = schema.names.index("key"), max(len(channels) - 1, 0)
     out: dict[str, list[tuple[int, int, int]]] = {}

@@ -1,94 +1,73 @@
-"""Regenerate the format-5 golden archive (a deliberate act: only when the format changes).
+"""Make the golden archive of format 5: ``python tests/golden/v5/make_golden.py`` (once; never again after
+format 5 has shipped).
 
-    python tests/golden/v5/make_golden.py
+The source is format 4's invented bench log of rig 2 (its generator in
+``tests/golden/v4``), 8500 rows long: every predictor, several LPC sets, a
+NaN and a ``-9999`` sentinel held verbatim, the integer decoder, naive times
+with a gap and jitter (``time.parquet``), notes, a text column
+(``extra.parquet``) and an integer channel beyond 2**53 with an empty cell.
+It is packed into ``golden5`` and its decoded samples saved in
+``expected.npz``, which ``tests/test_golden_v5.py`` reproduces bit for bit.
 
-Writes ``source.csv`` (invented demo data: a fictional bench log from rig 2
-of an invented test lab), packs it into ``golden5`` with a small
-autoencoder, and stores the decoded samples in ``expected.npz``.
-``tests/test_golden_v5.py`` decodes the committed archive on every run and
-must reproduce ``expected.npz`` bit for bit.
-
-Besides every predictor, several LPC sets, a NaN held verbatim and the
-integer decoder (as in format 3), the source freezes what format 4 added:
-naive ISO times with a gap and a jittery stretch (``time.parquet``), a
-preamble (notes), a text column (``extra.parquet``), a ``-9999`` sentinel
-(grid ``verbatim``), an integer channel beyond 2**53 with an empty cell
-(grid ``origin`` and ``missing``), and the manifest's binding.
-
-Format 5 adds the lean container (``store/lean.py``, ``store/compact.py``):
-the ``key``/``facts`` window rows in full per-channel row groups and a row
-group shared by the channels' last windows (8500 rows in windows of 32: 264
-windows a channel), the lean ``exceptions.parquet`` and the compact manifest
+What format 5 adds is frozen too (``store/lean.py``, ``store/compact.py``):
+the ``key``/``facts`` window rows, in full per-channel row groups and one
+group shared by the channels' last windows (264 windows a channel in
+windows of 32), the lean ``exceptions.parquet`` and the compact manifest
 (``channel_defaults``, ε in the grid only).
 """
 
 from __future__ import annotations
 
+import importlib.util
 import json
 import shutil
-from datetime import datetime, timedelta
 from pathlib import Path
 
 import numpy as np
 
 HERE = Path(__file__).resolve().parent
-N, RATE = 8500, 50.0
-GAP = range(1500, 1560)          # rows the logger lost
-JITTER_FROM = 2200               # from here on every 7th time is late by 3 ms
+N = 8500                         # rows of the format-4 source generator (tests/golden/v4), longer
 
 
 def write_source(path: Path) -> None:
-    rng = np.random.default_rng(20261202)
-    t = np.arange(N) / RATE
-    # a steady vibration, then a sweep from 0.5 to 12 Hz (so that the channel needs several LPC sets)
-    sweep = np.sin(2 * np.pi * (0.5 * (t - 30) + (12 - 0.5) * (t - 30) ** 2 / 60))
-    strain = np.where(t < 30, 120.0 * np.sin(2 * np.pi * 0.7 * t) + 15.0 * np.sin(2 * np.pi * 4.1 * t),
-                      150.0 * sweep) + rng.normal(0, 0.3, N)
-    temp = np.round(23.0 + 0.002 * t + 0.05 * rng.standard_normal(N), 2)
-    counts = np.cumsum(rng.integers(-3, 4, N)) + 500
-    big = (1 << 60) + np.cumsum(rng.integers(0, 40, N)).astype(np.int64)
-    t0 = datetime(2031, 4, 2, 8, 0, 0)
-    lines = ["# Rig 2 bench log (invented demo data)", "# operator shift B",
-             "time,strain [ue],temp [degC],counts,serial,status"]
-    for i in range(N):
-        if i in GAP:
-            continue
-        late = timedelta(milliseconds=3) if i >= JITTER_FROM and i % 7 == 0 else timedelta(0)
-        stamp = (t0 + timedelta(seconds=i / RATE) + late).isoformat(timespec="milliseconds")
-        s = "nan" if i == 1234 else repr(float(strain[i]))
-        tc = "-9999" if i in (400, 401) else f"{temp[i]:.2f}"
-        serial = "" if i == 2500 else str(int(big[i]))
-        status = "door open" if 900 <= i < 910 else ("" if i % 500 == 3 else "ok")
-        lines.append(f"{stamp},{s},{tc},{counts[i]},{serial},{status}")
-    path.write_text("\n".join(lines) + "\n")
+    """Format 4's source (the same rig, gap, jitter, sentinel, text column), with ``N`` rows."""
+    spec = importlib.util.spec_from_file_location("make_golden_v4", HERE.parent / "v4" / "make_golden.py")
+    v4 = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(v4)
+    v4.N = N
+    v4.write_source(path)
 
 
 def main() -> None:
+    import pyarrow.parquet as pq
+
     import tsarchive
     from tsarchive.ingest import ReadOptions
 
-    src = HERE / "source.csv"
-    write_source(src)
+    write_source(HERE / "source.csv")
     out = HERE / "golden5"
-    if out.exists():
-        shutil.rmtree(out)
-    tsarchive.pack(src, out, "strain=0.5,temp=lossless,counts=lossless,serial=3", window=32, code_size=4,
-                   train_seconds=5, seed=2, read_options=ReadOptions.build(missing="-9999"))
+    shutil.rmtree(out, ignore_errors=True)
+    budget = "strain=0.5,temp=lossless,counts=lossless,serial=3"
+    tsarchive.pack(HERE / "source.csv", out, budget, window=32, code_size=4, train_seconds=5, seed=2,
+                   read_options=ReadOptions.build(missing="-9999"))
     arc = tsarchive.open(out)
-    assert len(arc.channel("strain").lpc) > 1, "the golden archive must freeze several LPC sets"
-    used = {m for c in arc.channels for m, k in c.modes if k}
-    assert used == {"prev", "prev2", "ae", "ae+prev", "lpc"}, f"every predictor must be frozen, got {used}; try a seed"
-    members = set(arc.manifest["members"])
-    assert {"time.parquet", "extra.parquet", "exceptions.parquet", "model.parquet"} <= members, members
-    import pyarrow.parquet as pq
     meta = pq.ParquetFile(out / "windows.parquet").metadata
-    spans = [(meta.row_group(g).column(0).statistics.min >> 32, meta.row_group(g).column(0).statistics.max >> 32)
-             for g in range(meta.num_row_groups)]
-    assert any(a == b for a, b in spans) and any(a < b for a, b in spans), f"row groups {spans}"
-    assert "channel_defaults" in json.loads((out / "manifest.json").read_text())
-    np.savez(HERE / "expected.npz", **{c.name: np.ma.getdata(arc.read(c.name)) for c in arc.channels},
-             **{f"{c.name}.mask": np.ma.getmaskarray(arc.read(c.name)) for c in arc.channels},
-             times=arc.times().values)
+    keys = [meta.row_group(g).column(0).statistics for g in range(meta.num_row_groups)]
+    frozen = {   # what this archive must freeze -> whether it does
+        "several LPC sets": len(arc.channel("strain").lpc) > 1,
+        "every predictor (else try another seed)": {m for c in arc.channels for m, k in c.modes if k} == {
+            "prev", "prev2", "ae", "ae+prev", "lpc"},
+        "every optional member": {"time.parquet", "extra.parquet", "exceptions.parquet", "model.parquet"} <= set(
+            arc.manifest["members"]),
+        "a row group of one channel": any(k.min >> 32 == k.max >> 32 for k in keys),
+        "a row group shared by channels": any(k.min >> 32 < k.max >> 32 for k in keys),
+        "the compact manifest": "channel_defaults" in json.loads((out / "manifest.json").read_text()),
+    }
+    missing = [what for what, ok in frozen.items() if not ok]
+    assert not missing, f"the golden archive does not freeze: {missing}"
+    x = {c.name: arc.read(c.name) for c in arc.channels}
+    np.savez(HERE / "expected.npz", **{n: np.ma.getdata(v) for n, v in x.items()},
+             **{f"{n}.mask": np.ma.getmaskarray(v) for n, v in x.items()}, times=arc.times().values)
     print(f"wrote {out} ({arc.archive_bytes} bytes) and expected.npz")
 
 
