@@ -69,7 +69,8 @@ def test_verbatim_samples_live_in_their_own_member(tmp_path):
     x[5, 0], x[17, 0], x[999, 1] = np.nan, np.inf, -np.inf
     src, out, _ = _pack(tmp_path, x)
     held = pq.read_table(out / "exceptions.parquet").to_pylist()
-    assert [(r["channel"], r["window"], r["pos"]) for r in held] == [("ch0", 0, [5, 17]), ("ch1", 31, [7])]
+    # format 5: key = channel << 32 | window (store/lean.py)
+    assert [(r["key"] >> 32, r["key"] & 0xFFFFFFFF, r["pos"]) for r in held] == [(0, 0, [5, 17]), (1, 31, [7])]
     assert "code" not in pq.read_schema(out / "windows.parquet").names        # no model, no code column
     clean = _pack(tmp_path, np.nan_to_num(x, posinf=0, neginf=0), name="clean")[1]
     assert sorted(p.name for p in clean.iterdir()) == ["manifest.json", "windows.parquet"]
@@ -179,7 +180,7 @@ def test_plain_pyarrow_can_read_the_codes(small_archive):
     m = pq.read_table(small_archive / "model.parquet").to_pydict()
     assert set(m) == {"name", "shape", "values"}
     manifest = json.loads((small_archive / "manifest.json").read_text())
-    assert manifest["format"] == "tsarchive" and manifest["channels"][0]["unit"] == ""
+    assert manifest["format"] == "tsarchive" and manifest["channel_defaults"]["unit"] == ""   # shared: stored once
     assert pq.ParquetFile(small_archive / "windows.parquet").metadata.row_group(0).column(0).compression == "ZSTD"
 
 
