@@ -77,10 +77,13 @@ def test_the_manifest_stores_shared_facts_once(lean_arc):
     stored = json.loads((out / S.MANIFEST).read_text())
     assert stored["format_version"] == 5 == S.FORMAT_VERSION
     assert stored["channel_defaults"]["n_samples"] == len(x) and stored["channel_defaults"]["rate"] == 10.0
+    assert "time" not in stored              # seconds from 0 at the rate: what a reader assumes without one
     for c in stored["channels"]:
         assert not {"rate", "n_samples", "eps", "note"} & set(c) and "used_pct" not in c["summary"]
         assert "out_dtype" not in c["grid"]
     arc = tsarchive.open(out)                     # expanded for every reader of Archive.manifest
+    assert arc.manifest["time"] == {"kind": "seconds", "zone": None, "columns": [], "runs": [[0, "0x0.0p+0"]]}
+    np.testing.assert_array_equal(arc.times().values, np.arange(len(x)) / 10.0)   # k / rate, numpy's division
     for c, d in zip(arc.channels, arc.manifest["channels"]):
         assert d["rate"] == 10.0 and d["n_samples"] == len(x) and d["eps"] == d["grid"]["eps"] == c.eps
         assert d["grid"]["out_dtype"] == "float32" and sum(d["summary"]["modes"].values()) == WINDOWS
@@ -89,14 +92,17 @@ def test_the_manifest_stores_shared_facts_once(lean_arc):
 
 def test_compact_then_expand_gives_the_full_manifest_back():
     # by hand: two channels sharing everything but their names and grids; a channel's own value wins
-    full = {"format": "tsarchive", "channels": [
-        {"name": n, "unit": "V", "dtype": "float64", "rate": 5.0, "n_samples": 9, "budget": "1%", "note": "",
+    full = {"format": "tsarchive", "time": {"kind": "seconds", "zone": None, "columns": [], "runs": [[0, "0x0.0p+0"]]},
+            "channels": [
+        {"name": n, "unit": "V", "dtype": "float64", "rate": 5.0, "start": None, "n_samples": 9, "budget": "1%",
+         "note": "",
          "eps": e, "grid": {"kind": "step", "eps": e, "out_dtype": "float64"}, "scale": s,
          "summary": {"worst_error": e / 2, "used_pct": 50.0, "n_exceptions": 0, "modes": {"prev": 2, "lpc": 0}}}
         for n, e, s in (("a", 0.5, 1), ("b", 0.25, 2))]}
     small = compact(full)
-    assert small["channel_defaults"] == {"unit": "V", "dtype": "float64", "rate": 5.0, "n_samples": 9,
-                                         "budget": "1%", "note": ""}
+    assert small["channel_defaults"] == {"unit": "V", "dtype": "float64", "rate": 5.0, "start": None,
+                                         "n_samples": 9, "budget": "1%", "note": ""}
+    assert "time" not in small                            # the plain axis: no start, seconds from 0
     assert small["channels"][1] == {"name": "b", "grid": {"kind": "step", "eps": 0.25}, "scale": 2,
                                     "summary": {"worst_error": 0.125, "modes": {"prev": 2}}}
     assert expand(small, ("prev", "lpc")) == full

@@ -11,7 +11,10 @@ Format 5 writes each fact once:
 * a channel's ε only in its ``grid`` (``eps``), and the grid's ``out_dtype``
   only when it differs from the channel's ``dtype``;
 * a channel's ``summary`` without ``used_pct`` (derived), without zero
-  predictor counts and without a zero ``n_exceptions``; no empty ``note``.
+  predictor counts and without a zero ``n_exceptions``; no empty ``note``;
+* no ``time`` entry for the plain axis of a source without times (seconds
+  from 0 at the rate, no start: :data:`PLAIN_AXIS`), which is what a reader
+  assumes without one.
 
 :func:`expand` rebuilds the format-4 shape, so every check of ``parse.py``
 and every reader of ``Archive.manifest`` sees the fields they always saw.
@@ -24,6 +27,7 @@ import copy
 
 SHARED = ("unit", "dtype", "decimals", "rate", "start", "n_samples", "budget", "scale", "note")
 DEFAULTS = "channel_defaults"
+PLAIN_AXIS = {"kind": "seconds", "zone": None, "columns": [], "runs": [[0, "0x0.0p+0"]]}
 
 
 def compact(manifest: dict) -> dict:
@@ -48,6 +52,8 @@ def compact(manifest: dict) -> dict:
             del s["n_exceptions"]
     if shared:
         m[DEFAULTS] = shared
+    if m.get("time") == PLAIN_AXIS and all(c.get("start", shared.get("start")) is None for c in chans):
+        del m["time"]
     return m
 
 
@@ -60,6 +66,8 @@ def expand(manifest: dict, predictors: tuple[str, ...]) -> dict:
     chans = m.get("channels")
     if not isinstance(shared, dict) or not isinstance(chans, list):
         return m
+    if "time" not in m and all(isinstance(c, dict) and {**shared, **c}.get("start") is None for c in chans):
+        m["time"] = copy.deepcopy(PLAIN_AXIS)
     for i, c in enumerate(chans):
         if not isinstance(c, dict):
             continue
