@@ -42,15 +42,17 @@ def write_manifest(arc: Path, m: dict) -> None:
     (arc / S.MANIFEST).write_text(json.dumps(m))
 
 
-def rebind(arc: Path, m: dict | None = None, rows=None, dictionary: bool = False) -> None:
+def rebind(arc: Path, m: dict | None = None, rows=None, dictionary: bool = False, nullable: bool = False) -> None:
     """Write ``m`` (default: the current manifest) as a thorough forger would: the digest recomputed into a
     rewritten windows.parquet (``rows``: a function changing each row group's table, as stored: the lean
     columns of format 5, store/lean.py) and every member's size and SHA-256 updated, so only the reader's
-    own checks stand between the archive and the decoder."""
+    own checks stand between the archive and the decoder.  ``nullable`` lets every column hold nulls."""
     m = manifest(arc) if m is None else m
     f = pq.ParquetFile(arc / S.WINDOWS)
     groups = [f.read_row_group(g) for g in range(f.metadata.num_row_groups)]
     schema = f.schema_arrow.remove_metadata()
+    if nullable:
+        schema = pa.schema([x.with_nullable(True) for x in schema])
     lean_rows = "key" in schema.names
     if lean_rows:
         from tsarchive.store import lean

@@ -35,11 +35,11 @@ def test_golden_schema_and_manifest_are_version_5():
     assert set(manifest["members"]) == {"windows.parquet", "exceptions.parquet", "model.parquet", "time.parquet",
                                         "extra.parquet"}
     # the lean columns, by name and type as DEVELOPERS.md lists them (format 5)
-    assert [(f.name, str(f.type)) for f in pq.read_schema(ARC / S.WINDOWS).remove_metadata()] == [
-        ("key", "int64"), ("facts", "int64"), ("level", "int64"), ("code", "list<element: int8>"),
-        ("residual", "binary"), ("score", "float")]
-    assert [(f.name, str(f.type)) for f in pq.read_schema(ARC / S.EXCEPTIONS).remove_metadata()] == [
-        ("key", "int64"), ("pos", "list<element: int32>"), ("bits", "list<element: int64>")]
+    assert [(f.name, str(f.type), f.nullable) for f in pq.read_schema(ARC / S.WINDOWS).remove_metadata()] == [
+        ("key", "int64", False), ("facts", "int64", False), ("level", "int64", False),
+        ("code", "list<element: int8>", True), ("residual", "binary", False), ("score", "float", False)]
+    assert [(f.name, str(f.type), f.nullable) for f in pq.read_schema(ARC / S.EXCEPTIONS).remove_metadata()] == [
+        ("key", "int64", False), ("pos", "list<element: int32>", True), ("bits", "list<element: int64>", True)]
     # the compact manifest: shared facts once, eps in the grid only
     assert manifest["channel_defaults"]["rate"] == 50.0 and manifest["channel_defaults"]["n_samples"] == 8440
     assert all("eps" not in c and "rate" not in c for c in manifest["channels"])

@@ -38,18 +38,18 @@ LAYOUT = b"key=channel<<32|window;facts=crc32|worst<<32|table<<40|lpc_set<<48|mo
 CHANNEL_SHIFT = 32
 WINDOW_MASK = (1 << CHANNEL_SHIFT) - 1
 
-LEAN_SCHEMA = pa.schema([
-    pa.field("key", pa.int64()),
-    pa.field("facts", pa.int64()),
-    pa.field("level", pa.int64()),
-    pa.field("residual", pa.binary()),
-    pa.field("score", pa.float32()),
+LEAN_SCHEMA = pa.schema([        # required columns: no definition levels in the pages, no level histograms
+    pa.field("key", pa.int64(), nullable=False),
+    pa.field("facts", pa.int64(), nullable=False),
+    pa.field("level", pa.int64(), nullable=False),
+    pa.field("residual", pa.binary(), nullable=False),
+    pa.field("score", pa.float32(), nullable=False),
 ])
 
 
 # exceptions.parquet of format 5: the same key instead of channel and window (statistics on it only)
 EXCEPTIONS_SCHEMA = pa.schema([
-    pa.field("key", pa.int64()),
+    pa.field("key", pa.int64(), nullable=False),
     pa.field("pos", pa.list_(pa.int32())),   # positions within the window of the samples stored verbatim
     pa.field("bits", pa.list_(pa.int64())),  # their raw IEEE-754 bits (floats) or values (integers)
 ])
