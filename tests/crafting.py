@@ -42,16 +42,27 @@ def write_manifest(arc: Path, m: dict) -> None:
     (arc / S.MANIFEST).write_text(json.dumps(m))
 
 
-def rebind(arc: Path, m: dict | None = None, rows=None, dictionary: bool = False) -> None:
+def rebind(arc: Path, m: dict | None = None, rows=None, dictionary: bool = False, nullable: bool = False) -> None:
     """Write ``m`` (default: the current manifest) as a thorough forger would: the digest recomputed into a
-    rewritten windows.parquet (``rows``: a function changing its table) and every member's size and SHA-256
-    updated, so only the reader's own checks stand between the archive and the decoder."""
+    rewritten windows.parquet (``rows``: a function changing each row group's table, as stored: the lean
+    columns of format 5, store/lean.py) and every member's size and SHA-256 updated, so only the reader's
+    own checks stand between the archive and the decoder.  ``nullable`` lets every column hold nulls."""
     m = manifest(arc) if m is None else m
     f = pq.ParquetFile(arc / S.WINDOWS)
     groups = [f.read_row_group(g) for g in range(f.metadata.num_row_groups)]
     schema = f.schema_arrow.remove_metadata()
-    with pq.ParquetWriter(arc / S.WINDOWS, schema, compression="zstd", write_statistics=["channel", "window"],
-                          use_dictionary=True if dictionary else ["channel"], store_schema=False) as w:
+    if nullable:
+        schema = pa.schema([x.with_nullable(True) for x in schema])
+    lean_rows = "key" in schema.names
+    if lean_rows:
+        from tsarchive.store import lean
+        opts = lean.writer_opts(schema)
+        if dictionary:
+            opts = dict(opts, use_dictionary=True, column_encoding=None)
+    else:
+        opts = dict(compression="zstd", write_statistics=["channel", "window"],
+                    use_dictionary=True if dictionary else ["channel"], store_schema=False)
+    with pq.ParquetWriter(arc / S.WINDOWS, schema, **opts) as w:
         for g in groups:
             w.write_table((rows(g) if rows else g).cast(schema))
         try:       # the digest goes where the writer puts it: the footer's key-value metadata
@@ -62,6 +73,11 @@ def rebind(arc: Path, m: dict | None = None, rows=None, dictionary: bool = False
     m["members"] = {p.name: {"bytes": p.stat().st_size, "sha256": hashlib.sha256(p.read_bytes()).hexdigest()}
                     for p in sorted(arc.iterdir()) if p.name != S.MANIFEST}
     write_manifest(arc, m)
+
+
+def first_window(g: pa.Table) -> int:
+    """The window number of a stored row group's first row (format 5: the low half of its key)."""
+    return g["key"][0].as_py() & 0xFFFFFFFF if "key" in g.column_names else g["window"][0].as_py()
 
 
 def snapshot(folder: Path) -> dict:

@@ -140,15 +140,16 @@ def test_verify_alone_catches_a_damaged_window(tmp_path, src, capsys):
 
     arc = tmp_path / "d.tsa"
     assert _run(capsys, "pack", src, "-o", arc, "--rate", 200, "--window", 64, "--code-size", 0)[0] == 0
+    from tsarchive.store import lean
     t = pq.read_table(arc / "windows.parquet")
-    rows = t.to_pylist()
-    target = next(i for i, r in enumerate(rows) if r["channel"] == "ch1" and len(r["residual"]) > 4)
+    rows = t.to_pylist()          # format 5: key = channel << 32 | window (store/lean.py); ch1 is channel 1
+    target = next(i for i, r in enumerate(rows) if r["key"] >> 32 == 1 and len(r["residual"]) > 4)
     payload = bytearray(rows[target]["residual"])
     payload[1] ^= 0x5A
     rows[target]["residual"] = bytes(payload)
-    with pq.ParquetWriter(arc / "windows.parquet", t.schema, compression="zstd") as w:
-        for ch in ("ch0", "ch1"):  # keep one channel per row group, as the writer does
-            w.write_table(pa.Table.from_pylist([r for r in rows if r["channel"] == ch], schema=t.schema))
+    rows[target]["window"] = rows[target]["key"] & 0xFFFFFFFF
+    with pq.ParquetWriter(arc / "windows.parquet", t.schema, **lean.writer_opts(t.schema)) as w:
+        w.write_table(pa.Table.from_pylist(rows, schema=t.schema))
     code, out, _ = _run(capsys, "verify", arc)
     assert code == 1 and "FAILED" in out
     assert "windows.parquet" in out and "ch1" in out and f"window(s) {rows[target]['window']}" in out

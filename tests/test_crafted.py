@@ -8,6 +8,7 @@ so the reader's own checks and caps are what stops them.  Exit codes 0/1/2 are t
 
 from __future__ import annotations
 
+import hashlib
 import re
 import os
 import shutil
@@ -25,7 +26,7 @@ from tsarchive.cli import main
 from tsarchive.store import schema as S
 
 from conftest import make_signal
-from crafting import copy, manifest, rebind, replace_column, snapshot, write_manifest
+from crafting import copy, first_window, manifest, rebind, replace_column, snapshot, write_manifest
 
 
 @pytest.fixture(scope="module")
@@ -110,13 +111,13 @@ def _model_bomb(t):   # 4 M zeros in a few KB of zstd: 32 MB if read
                     schema=S.MODEL_SCHEMA)
 
 
-def _null_mode(a):
-    rebind(a, rows=lambda g: replace_column(g, "mode", [None] + g["mode"].to_pylist()[1:]))
+def _null_facts(a):     # format 5's columns are required: a file whose facts may be null is not format 5
+    rebind(a, rows=lambda g: replace_column(g, "facts", [None] + g["facts"].to_pylist()[1:]), nullable=True)
 
 
 def _payload_bomb(a):
     rebind(a, rows=lambda g: replace_column(g, "residual", [bytes(64 << 20)] + g["residual"].to_pylist()[1:])
-           if g["window"][0].as_py() == 0 else g)
+           if first_window(g) == 0 else g)
 
 
 def _dictionary_bomb(a):   # one 1 MiB payload stored once, referenced by every window: 47 MiB if read
@@ -126,7 +127,7 @@ def _dictionary_bomb(a):   # one 1 MiB payload stored once, referenced by every 
 def _many_samples(a):
     m = manifest(a)
     m["channels"][0]["n_samples"] = 10**12
-    m["channels"][0]["summary"]["modes"] = {}
+    m["channels"][0]["summary"]["modes"] = {"prev": 15625000000}   # agrees, so the rows are what is left
     rebind(a, m)
 
 
@@ -136,8 +137,20 @@ def _member_outside(a):
     write_manifest(a, m)
 
 
-def _eps_twice_in_one_place(m):
-    m["channels"][0]["eps"] *= 2
+def _footer_cut(a):     # the footer's last 100 bytes gone, the manifest's member entry updated to match
+    p = a / S.WINDOWS
+    p.write_bytes(p.read_bytes()[:-108] + p.read_bytes()[-8:])
+    m = manifest(a)
+    m["members"][S.WINDOWS] = {"bytes": p.stat().st_size, "sha256": hashlib.sha256(p.read_bytes()).hexdigest()}
+    write_manifest(a, m)
+
+
+def _key_beyond_channels(a):     # format 5 keys name the channel by position: a third channel the manifest lacks
+    rebind(a, rows=lambda g: replace_column(g, "key", [k + (2 << 32) for k in g["key"].to_pylist()]))
+
+
+def _eps_twice_in_one_place(m):     # format 5 stores eps in the grid only: a second copy must agree
+    m["channels"][0]["eps"] = m["channels"][0]["grid"]["eps"] * 2
 
 
 def _budget_says_lossless(m):
@@ -211,8 +224,13 @@ CASES = [
     ("dictionary-bomb (re-bound)", _dictionary_bomb, r"windows\.parquet uses encodings or value counts this "
      r"format never writes", (2, 2, 1)),
     ("10^12-samples (re-bound)", _many_samples,
-     r"declares 1000000000000 samples \(15625000000 windows\) but windows\.parquet holds 47", (2, 2, 1)),
-    ("null-mode (re-bound)", _null_mode, r"have empty \(null\) fields", (0, 2, 1)),
+     r"manifest declares 15625000047 windows but windows\.parquet holds 94", (2, 2, 1)),
+    ("defaults-list", _top("channel_defaults", []), r"is incomplete|is missing", (2, 2, 2)),
+    ("footer-cut", _footer_cut, r"windows\.parquet cannot be read", (2, 2, 1)),
+    ("key-beyond-channels (re-bound)", _key_beyond_channels, r"row group 0 lacks or contradicts its key statistics",
+     (2, 2, 1)),
+    ("null-facts (re-bound)", _null_facts, r"windows\.parquet does not have the columns of this format version",
+     (2, 2, 1)),
     ("code-length (re-bound)", lambda a: rebind(a, rows=lambda g: replace_column(g, "code", [[0]] * g.num_rows)),
      r"window codes have 1 values, the model takes 2", (0, 2, 1)),
 ]

@@ -69,7 +69,8 @@ def test_verbatim_samples_live_in_their_own_member(tmp_path):
     x[5, 0], x[17, 0], x[999, 1] = np.nan, np.inf, -np.inf
     src, out, _ = _pack(tmp_path, x)
     held = pq.read_table(out / "exceptions.parquet").to_pylist()
-    assert [(r["channel"], r["window"], r["pos"]) for r in held] == [("ch0", 0, [5, 17]), ("ch1", 31, [7])]
+    # format 5: key = channel << 32 | window (store/lean.py)
+    assert [(r["key"] >> 32, r["key"] & 0xFFFFFFFF, r["pos"]) for r in held] == [(0, 0, [5, 17]), (1, 31, [7])]
     assert "code" not in pq.read_schema(out / "windows.parquet").names        # no model, no code column
     clean = _pack(tmp_path, np.nan_to_num(x, posinf=0, neginf=0), name="clean")[1]
     assert sorted(p.name for p in clean.iterdir()) == ["index.parquet", "manifest.json", "windows.parquet"]
@@ -167,14 +168,19 @@ def test_time_range_read_and_random_access(small_archive, small_npy):
 def test_plain_pyarrow_can_read_the_codes(small_archive):
     # Any Parquet reader: pyarrow alone, no tsarchive code.
     t = pq.read_table(small_archive / "windows.parquet")
-    assert {"channel", "window", "code", "residual", "crc32", "worst", "score"} <= set(t.column_names)
+    assert set(t.column_names) == {"key", "facts", "level", "code", "residual", "score"}   # format 5 (lean.py)
     codes = np.stack(t.column("code").to_pylist())
     assert codes.dtype.kind == "i" and codes.shape[0] == t.num_rows
-    assert t["worst"].type == pa.uint8() and int(pc.max(t["worst"]).as_py()) <= 250  # 1/250ths of eps
+    worst = (t["facts"].to_numpy() >> 32) & 0xFF            # facts = crc32 | worst << 32 | ...
+    assert t["facts"].type == pa.int64() and 0 < worst.max() <= 250    # 1/250ths of eps
+    key = t["key"].to_numpy()
+    assert sorted(set((key >> 32).tolist())) == [0, 1]                  # channel << 32 | window
+    layout = pq.read_metadata(small_archive / "windows.parquet").metadata[b"tsarchive.layout"]
+    assert layout == b"key=channel<<32|window;facts=crc32|worst<<32|table<<40|lpc_set<<48|mode<<56"   # DEVELOPERS
     m = pq.read_table(small_archive / "model.parquet").to_pydict()
     assert set(m) == {"name", "shape", "values"}
     manifest = json.loads((small_archive / "manifest.json").read_text())
-    assert manifest["format"] == "tsarchive" and manifest["channels"][0]["unit"] == ""
+    assert manifest["format"] == "tsarchive" and manifest["channel_defaults"]["unit"] == ""   # shared: stored once
     assert pq.ParquetFile(small_archive / "windows.parquet").metadata.row_group(0).column(0).compression == "ZSTD"
 
 
@@ -486,6 +492,6 @@ def test_spread_picks_evenly_with_one_rounding():
 def test_members_are_handed_out_by_name(small_archive):
     # pyarrow's own reader of the file is the reference; an unlisted name is no member
     arc = tsarchive.open(small_archive)
-    got = arc.member_table("windows.parquet", columns=["channel", "window"])
-    assert got.equals(pq.read_table(small_archive / "windows.parquet", columns=["channel", "window"]))
+    got = arc.member_table("windows.parquet", columns=["key", "facts"])
+    assert got.equals(pq.read_table(small_archive / "windows.parquet", columns=["key", "facts"]))
     assert arc.member_table("absent.parquet") is None and arc.member_table("../windows.parquet") is None

@@ -39,15 +39,16 @@ def test_the_snippets_run_and_agree_with_pyarrow(tmp_path, monkeypatch):
     ns: dict = {}
     for code in blocks:
         exec(compile(code, str(README), "exec"), ns)      # the README's text, as a reader would paste it
-    t = pq.read_table("run.tsarchive/windows.parquet", columns=["channel", "window", "mode", "worst", "score"])
-    ch, win = t["channel"].to_numpy(zero_copy_only=False), t["window"].to_numpy()
-    worst, score, mode = t["worst"].to_numpy(), t["score"].to_numpy(), t["mode"].to_numpy()
-    names = sorted(set(ch))
-    assert [r[0] for r in ns["per_channel"]] == names == ["rh", "temp"]
+    t = pq.read_table("run.tsarchive/windows.parquet", columns=["key", "facts", "score"])
+    key, facts = t["key"].to_numpy(), t["facts"].to_numpy()    # the bit layout of DEVELOPERS.md, format 5
+    ch, win, worst, mode = key >> 32, key & 0xFFFFFFFF, (facts >> 32) & 0xFF, facts >> 56
+    score = t["score"].to_numpy()
+    assert ns["names"] == ["temp", "rh"]
+    assert [r[0] for r in ns["per_channel"]] == [0, 1]
     for name, count, share, top in ns["per_channel"]:
         m = ch == name
         assert count == m.sum() and share == worst[m].max() / 250.0 and top == pytest.approx(score[m].max())
-    m = ch == "temp"
+    m = ch == 0                                           # temp
     order = np.lexsort((win[m], -score[m].astype(np.float64)))[:5]   # score descending, then window
     assert [r[0] for r in ns["outliers"]] == win[m][order].tolist()
     assert [r[1] for r in ns["outliers"]] == (win[m][order] * 1024).tolist()

@@ -24,6 +24,7 @@ from .channelcodec import ChannelCodec
 from .errors import ArchiveCorrupt, BadInput, FormatVersionError
 from .model.intnet import IntDecoder
 from .workers import workers as worker_count
+from .store import lean
 from .store import parse as P
 from .store import schema as S
 from .store.binding import check_folder, read_manifest
@@ -60,14 +61,15 @@ class Archive:
         """
         self.path = Path(path)
         check_folder(self.path)
-        m = self.manifest = read_manifest(self.path)
-        v = self.format_version = P.format_version(m)
+        stored = read_manifest(self.path)
+        v = self.format_version = P.format_version(stored)
         if v > S.FORMAT_VERSION:
             raise FormatVersionError(f"archive {self.path.name} was written by a newer tsarchive (format {v}; "
                                      f"this one reads {S.OLDEST_READABLE}..{S.FORMAT_VERSION}); upgrade tsarchive")
         if v < S.OLDEST_READABLE:
             raise FormatVersionError(f"archive {self.path.name} has format {v}, older than this tsarchive reads "
                                      f"({S.OLDEST_READABLE}..{S.FORMAT_VERSION}); use the version that wrote it")
+        m = self.manifest = P.expanded(stored, v)      # format 5 stores each fact once (store/compact.py)
         self.window = P.window(m)
         self.members = P.members(m)
         model = P.model_spec(m, self.window)
@@ -76,11 +78,12 @@ class Archive:
         self.channels = tuple(_channel_meta(c, self.window) for c in chans)
         P.budget_spec_agrees(m, self.channels)
         self._by_name = {c.name: c for c in self.channels}
+        self._index = {c.name: i for i, c in enumerate(self.channels)}     # a channel's key in lean rows
         self._local = threading.local()
         # the coders are rebuilt once, at opening (a malformed table is named here)
         codecs = {c.name: ChannelCodec.from_entry(c, P.tables(d), coder=d.get("coder"))
                   for c, d in zip(self.channels, chans)}
-        opened = inspect(self.path, m, v, self.members, self.window, self.channels, model, strict,
+        opened = inspect(self.path, stored, v, self.members, self.window, self.channels, model, strict,
                          make_decoder=IntDecoder.from_arrays)
         self._windows_file, self._groups, self._decoder = opened.windows, opened.groups, opened.decoder
         self._codecs = {n: replace(c, decoder=opened.decoder) for n, c in codecs.items()}
@@ -161,10 +164,14 @@ class Archive:
         groups = [g for g, a, b in self._row_groups.get(channel, []) if b >= w0 and a < w1]
         if not groups:
             return schema.empty_table() if columns is None else pa.schema([schema.field(c) for c in columns]).empty_table()
+        lean_rows = self.format_version >= S.LEAN_FROM_VERSION
+        wanted = lean.physical_columns(columns, "code" in schema.names) if lean_rows else columns
         try:
-            t = self._thread_file().read_row_groups(groups, columns=columns)
+            t = self._thread_file().read_row_groups(groups, columns=wanted)
         except (OSError, pa.ArrowException) as exc:
             raise ArchiveCorrupt(f"windows.parquet cannot be read ({str(exc)[:80]}); the archive is damaged") from None
+        if lean_rows:
+            return lean.unpack(lean.select(t, self._index[channel], w0, w1), channel, columns)
         mask = pc.and_(pc.and_(pc.equal(t["channel"], channel), pc.greater_equal(t["window"], w0)),
                        pc.less(t["window"], w1))
         t = t.filter(mask)
@@ -202,8 +209,11 @@ class Archive:
         if S.EXCEPTIONS not in self.manifest.get("members", {}):
             return {}
         try:
-            t = pq.read_table(self.path / S.EXCEPTIONS, filters=[("channel", "=", channel), ("window", ">=", w0),
-                                                                  ("window", "<", w1)])
+            where = lean.key_filter(self._index[channel], w0, w1) if self.format_version >= S.LEAN_FROM_VERSION \
+                else [("channel", "=", channel), ("window", ">=", w0), ("window", "<", w1)]
+            t = pq.read_table(self.path / S.EXCEPTIONS, filters=where)
+            if "key" in t.column_names:
+                t = t.append_column("window", pc.bit_wise_and(t["key"], lean.WINDOW_MASK))
         except (OSError, pa.ArrowException) as exc:
             raise ArchiveCorrupt(f"exceptions.parquet cannot be read ({exc}); the archive is damaged") from None
         out = {}

@@ -181,7 +181,7 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
         tables = p.tables if model is not None else p.tables_plain
         coder = choose_coder(w, sample.nwin, g, sample.W, model, sc, p.lpc, tables)    # plan: the residual coder
         codecs.append(ChannelCodec.for_tables(n, sample.W, g, sc, p.lpc, tables, residual_coder=coder))
-    with ArchiveWriter(job.archive, force=job.force, with_code=decoder is not None) as writer:
+    with ArchiveWriter(job.archive, names, force=job.force, with_code=decoder is not None) as writer:
         summaries = _encode(writer, rec, names, codecs, sample.W, model, emit)
         note = choice.note if run is None or choice.note is not None else run.verdict()
         if note is None:

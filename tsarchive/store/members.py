@@ -25,6 +25,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from ..errors import ArchiveCorrupt
+from . import lean
 from . import schema as S
 from .binding import file_sha256, footer_digest, manifest_digest, member_size
 from .footer import BYTE_ARRAY, DICTIONARY_ENCODINGS, Footer, read_footer
@@ -55,11 +56,13 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
     bound, groups, decoder = False, {}, None
     if wf is not None:
         bound = check_binding(wf[1], manifest, version, found)
-        groups = row_groups(*wf, channels, window, found)
+        read_groups = row_groups if version < S.LEAN_FROM_VERSION else lean_groups
+        groups = read_groups(*wf, channels, window, found)
     if found.decodable and S.EXCEPTIONS in {x.name for x in members}:
         ef = open_parquet(path, S.EXCEPTIONS, found)
         if ef is not None:
-            check_exceptions(*ef, window, sum(c.n_windows for c in channels), found)
+            check_exceptions(*ef, window, sum(c.n_windows for c in channels), found,
+                             lean.EXCEPTIONS_SCHEMA if version >= S.LEAN_FROM_VERSION else S.EXCEPTIONS_SCHEMA)
     if found.decodable and model is not None:
         mf = open_parquet(path, S.MODEL, found)
         decoder = None if mf is None else load_model(*mf, model, found, make_decoder)
@@ -162,17 +165,26 @@ def _stats(chunk) -> tuple[str, str] | tuple[int, int] | None:
     return int.from_bytes(chunk.min, "little", signed=True), int.from_bytes(chunk.max, "little", signed=True)
 
 
-def row_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, ...], window: int,
-               found: Findings) -> dict[str, list[tuple[int, int, int]]]:
-    """channel -> [(row group, first window, last window)], after checking rows and declared sizes."""
+def _windows_columns(f: pq.ParquetFile, footer: Footer, expected, window: int, found: Findings):
+    """(schema, uncompressed bytes a row may hold) when windows.parquet has the columns ``expected(with_code)``
+    and no leaf exceeds what a row may hold; (None, 0) after a finding."""
     schema = f.schema_arrow.remove_metadata()
-    if not schema.equals(S.windows_schema("code" in schema.names)):
+    if not schema.equals(expected("code" in schema.names)):
         found.add(f"{S.WINDOWS} does not have the columns of this format version; the archive is damaged", True)
-        return {}
+        return None, 0
     limit = window * S.ROW_BYTES_PER_SAMPLE + S.ROW_BYTES_FIXED
     if not leaves_bounded(footer, {"code": S.MAX_CODE_SIZE}, limit):
         found.add(f"{S.WINDOWS} uses encodings or value counts this format never writes; the archive is "
                   "damaged or crafted", True)
+        return None, 0
+    return schema, limit
+
+
+def row_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, ...], window: int,
+               found: Findings) -> dict[str, list[tuple[int, int, int]]]:
+    """channel -> [(row group, first window, last window)], after checking rows and declared sizes."""
+    schema, limit = _windows_columns(f, footer, S.windows_schema, window, found)
+    if schema is None:
         return {}
     ci, wi = schema.names.index("channel"), schema.names.index("window")
     out: dict[str, list[tuple[int, int, int]]] = {}
@@ -199,8 +211,49 @@ def row_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, .
     return out
 
 
-def check_exceptions(f: pq.ParquetFile, footer: Footer, window: int, total_windows: int, found: Findings) -> None:
-    if f.schema_arrow.remove_metadata() != S.EXCEPTIONS_SCHEMA:
+def lean_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, ...], window: int,
+                found: Findings) -> dict[str, list[tuple[int, int, int]]]:
+    """Format 5 (store/lean.py): channel -> [(row group, first window, last window)] from the ``key``
+    statistics, after checking the columns, the declared sizes and the row counts."""
+    schema, limit = _windows_columns(f, footer, lean.lean_schema, window, found)
+    if schema is None:
+        return {}
+    ki, last = schema.names.index("key"), max(len(channels) - 1, 0)
+    out: dict[str, list[tuple[int, int, int]]] = {}
+    alone = [0] * len(channels)             # rows in groups that hold one channel only
+    for g, rg in enumerate(footer.groups):
+        st = rg.chunks[ki]
+        ok = st.min is not None and st.max is not None and len(st.min) == len(st.max) == 8
+        lo, hi = (int.from_bytes(st.min, "little", signed=True), int.from_bytes(st.max, "little", signed=True)) \
+            if ok else (0, -1)
+        (c0, w0), (c1, w1) = divmod(lo, 1 << lean.CHANNEL_SHIFT), divmod(hi, 1 << lean.CHANNEL_SHIFT)
+        if not ok or not 0 <= lo <= hi or c1 > last or (c0 == c1 and rg.num_rows > hi - lo + 1):
+            found.add(f"{S.WINDOWS} row group {g} lacks or contradicts its key statistics; the archive is damaged",
+                      True)
+            return {}
+        if rg.total_byte_size > rg.num_rows * limit:
+            found.add(f"{S.WINDOWS} row group {g} declares {rg.total_byte_size} bytes for {rg.num_rows} windows "
+                      f"of {window} samples; the archive is damaged or crafted", True)
+            return {}
+        for c in range(c0, c1 + 1):
+            out.setdefault(channels[c].name, []).append((g, w0 if c == c0 else 0,
+                                                         w1 if c == c1 else lean.WINDOW_MASK))
+        if c0 == c1:
+            alone[c0] += rg.num_rows
+    for ch, n in zip(channels, alone):
+        if n > ch.n_windows:
+            found.add(f"channel {ch.name}: the manifest declares {ch.n_samples} samples ({ch.n_windows} windows) "
+                      f"but {S.WINDOWS} holds {n} windows; the archive is damaged", True)
+    total = sum(c.n_windows for c in channels)
+    if footer.num_rows != total:
+        found.add(f"the manifest declares {total} windows but {S.WINDOWS} holds {footer.num_rows}; "
+                  "the archive is damaged", True)
+    return out
+
+
+def check_exceptions(f: pq.ParquetFile, footer: Footer, window: int, total_windows: int, found: Findings,
+                     schema: pa.Schema) -> None:
+    if f.schema_arrow.remove_metadata() != schema:
         found.add(f"{S.EXCEPTIONS} has unexpected columns; the archive is damaged", True)
     elif footer.num_rows > total_windows:
         found.add(f"{S.EXCEPTIONS} lists {footer.num_rows} windows, more than the archive's {total_windows}; "

@@ -26,6 +26,7 @@ from ..predict.lpc import LpcCoefs
 from ..quantize import Grid
 from ..windows import MAX_WINDOW, MIN_WINDOW
 from . import schema as S
+from .compact import expand
 
 _HEX64 = re.compile(r"[0-9a-f]{64}")
 _MEMBER_NAME = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.-]{0,99}")
@@ -144,6 +145,13 @@ def format_version(m) -> int:
     if type(v) is not int:
         raise corrupt(f"format_version is {_show(v)}, not an integer")
     return v
+
+
+def expanded(m: dict, version: int) -> dict:
+    """The manifest in its full shape: format 5's compact form expanded (store/compact.py), older as stored."""
+    if version < S.LEAN_FROM_VERSION:
+        return m
+    return expand(m, tuple(p.name for p in PREDICTORS.values()))
 
 
 def members(m: dict) -> tuple[Member, ...]:

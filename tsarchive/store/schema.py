@@ -1,12 +1,15 @@
-"""The archive's on-disk layout (format ``tsarchive`` version 4).
+"""The archive's on-disk layout (format ``tsarchive`` version 5).
 
 An archive is a directory::
 
     manifest.json       format, tool version, channels (budgets, grids, LPC sets,
                         entropy tables), summary, SHA-256 of every member file
-                        (its own digest is in windows.parquet's footer: binding.py)
+                        (its own digest is in windows.parquet's footer: binding.py);
+                        compact from format 5 on: facts shared by every channel
+                        once, in ``channel_defaults`` (compact.py)
     windows.parquet     one row per channel window (residual payloads, checksums,
-                        and the autoencoder code when the archive keeps a model)
+                        and the autoencoder code when the archive keeps a model);
+                        from format 5 on in the lean columns of lean.py
     exceptions.parquet  one row per window holding samples stored verbatim
                         (NaN, infinities, unrepresentable values); only when any
     model.parquet       one row per decoder array (plain integers, no pickle);
@@ -16,17 +19,19 @@ An archive is a directory::
     extra.parquet       the source's text columns (status, notes); only when any
 
 Why a directory: every member is a plain Parquet or JSON file that any
-reader opens on its own; ``windows.parquet`` keeps each channel in its own
-row groups ordered by time, so a time range is read through row-group
-statistics without touching the rest; and the whole directory is built
-aside and renamed into place, which is atomic on one file system.
+reader opens on its own, optional members (and new ones, such as an index)
+are added by name without touching the others, and the whole directory is
+built aside and renamed into place, which is atomic on one file system.
 
 The column lists below are the format: changing one is a format change (bump
-``FORMAT_VERSION`` and regenerate the golden archive in ``tests/golden``).
+``FORMAT_VERSION`` and add a golden archive in ``tests/golden``).
 Version 4 binds the manifest to the data (binding.py), keeps the logged time
 axis, notes and text columns, and adds the optional grid fields ``origin``,
-``verbatim`` and ``missing`` (exact integers, sentinels, missing samples);
-its Parquet columns are those of version 3, which this tool still reads.
+``verbatim`` and ``missing``.  Version 5 is the lean container: the window
+facts packed into ``key`` and ``facts`` (lean.py), the channels' last windows
+sharing a row group, and the compact manifest (compact.py).  The columns
+below (``WINDOWS_SCHEMA``, ``EXCEPTIONS_SCHEMA``) are the logical rows every
+version is read as, and those stored by versions 3 and 4.
 """
 
 from __future__ import annotations
@@ -34,8 +39,9 @@ from __future__ import annotations
 import pyarrow as pa
 
 FORMAT_NAME = "tsarchive"
-FORMAT_VERSION = 4
+FORMAT_VERSION = 5
 OLDEST_READABLE = 3                    # the oldest format version this tool still reads
+LEAN_FROM_VERSION = 5                  # from this version on, windows.parquet has the lean columns (lean.py)
 BOUND_FROM_VERSION = 4                 # from this version on, the manifest must be bound to windows.parquet
 BINDING_KEY = b"tsarchive.manifest_sha256"   # windows.parquet footer key: SHA-256 of the manifest (binding.py)
 

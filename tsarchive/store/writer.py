@@ -24,39 +24,27 @@ import pyarrow.parquet as pq
 from ..checksum import file_sha256
 from ..errors import BadInput
 from . import schema as S
+from . import lean
 from .binding import manifest_digest
+from .compact import compact
 from .claim import check_target, claim_target, is_archive_dir, move_into_place, staging_name  # noqa: F401
-
-# Statistics only where the reader uses them (channel/window ranges per row group): statistics of the
-# payload columns would only add footer bytes.
-# The small integer columns are delta-packed (runs of one predictor cost ~0 bits, and no dictionary page).
-_PARQUET_OPTS = dict(compression="zstd", compression_level=9, store_schema=False, write_statistics=["channel", "window"],
-                     use_dictionary=["channel"],
-                     column_encoding={"window": "DELTA_BINARY_PACKED", "level": "DELTA_BINARY_PACKED",
-                                      "mode": "DELTA_BINARY_PACKED", "lpc_set": "DELTA_BINARY_PACKED",
-                                      "table": "DELTA_BINARY_PACKED",
-                                      "crc32": "PLAIN", "worst": "PLAIN", "score": "BYTE_STREAM_SPLIT",
-                                      "residual": "DELTA_LENGTH_BYTE_ARRAY"})
-
-
-def _windows_opts(schema: pa.Schema) -> dict:
-    """Writer options for the columns this schema has."""
-    enc = {k: v for k, v in _PARQUET_OPTS["column_encoding"].items() if k in schema.names}
-    return dict(_PARQUET_OPTS, column_encoding=enc)
-
 
 class ArchiveWriter:
     """Stage an archive; use as a context manager and call :meth:`commit` last."""
 
-    def __init__(self, path: str | os.PathLike, *, force: bool = False, with_code: bool = False) -> None:
+    def __init__(self, path: str | os.PathLike, channels: list[str], *, force: bool = False,
+                 with_code: bool = False) -> None:
         self.path = Path(path)
+        self._index = {name: i for i, name in enumerate(channels)}   # a row's channel -> its key (lean.py)
+        self._pending: dict[int, list[pa.Table]] = {}                # rows not yet in a full row group
         self._claim = ExitStack()
         if not self.path.parent.exists():
             raise BadInput(f"folder {self.path.parent} does not exist; create it or choose another output path")
         self._claim.enter_context(claim_target(self.path, force))   # held until the writer is closed
         try:
             self.force = force
-            self.schema = S.windows_schema(with_code)
+            self.with_code = with_code
+            self.schema = lean.lean_schema(with_code)
             self.stage = staging_name(self.path)
             self.stage.mkdir()
         except BaseException:
@@ -86,21 +74,34 @@ class ArchiveWriter:
                 setattr(self, name, None)
 
     def add_windows(self, rows: pa.Table) -> None:
-        """Append window rows of one channel; each call starts new row groups."""
+        """Append logical window rows (``schema.WINDOWS_SCHEMA``) of one channel, in window order.
+
+        A channel's rows go out in full row groups of ``ROW_GROUP_WINDOWS``; what is left of every channel
+        goes out at :meth:`finalize`, together in channel order (so a short recording is one row group)."""
+        if not rows.num_rows:
+            return
+        channel = self._index[rows["channel"][0].as_py()]
+        pending = self._pending.setdefault(channel, [])
+        pending.append(lean.pack(rows, channel, self.with_code))
+        held = pa.concat_tables(pending)
+        full = held.num_rows - held.num_rows % S.ROW_GROUP_WINDOWS
+        if full:
+            self._write(held.slice(0, full))
+        self._pending[channel] = [held.slice(full)] if full < held.num_rows else []
+
+    def _write(self, rows: pa.Table) -> None:
         if self._windows is None:
-            self._windows = pq.ParquetWriter(self.stage / S.WINDOWS, self.schema, **_windows_opts(self.schema))
-        self._windows.write_table(rows.select(self.schema.names).cast(self.schema),
-                                  row_group_size=S.ROW_GROUP_WINDOWS)
+            self._windows = pq.ParquetWriter(self.stage / S.WINDOWS, self.schema, **lean.writer_opts(self.schema))
+        self._windows.write_table(rows, row_group_size=S.ROW_GROUP_WINDOWS)
 
     def add_exceptions(self, rows: pa.Table) -> None:
         """Append one channel's windows with verbatim samples (the member exists only if this is called)."""
         if not rows.num_rows:
             return
         if self._exceptions is None:
-            self._exceptions = pq.ParquetWriter(self.stage / S.EXCEPTIONS, S.EXCEPTIONS_SCHEMA, compression="zstd",
-                                                compression_level=9, store_schema=False,
-                                                write_statistics=["channel", "window"], use_dictionary=["channel"])
-        self._exceptions.write_table(rows.cast(S.EXCEPTIONS_SCHEMA))
+            self._exceptions = pq.ParquetWriter(self.stage / S.EXCEPTIONS, lean.EXCEPTIONS_SCHEMA,
+                                                **lean.EXCEPTIONS_OPTS)
+        self._exceptions.write_table(lean.pack_exceptions(rows, self._index[rows["channel"][0].as_py()]))
 
     def write_model(self, arrays: dict[str, np.ndarray]) -> None:
         """The decoder's arrays; nothing is written for an archive without a model."""
@@ -122,8 +123,17 @@ class ArchiveWriter:
             from ..index.member import write
             write(self.stage, index)
 
+    def _flush_pending(self) -> None:
+        """Every channel's remaining rows, together in channel order (rows arrive no more after this)."""
+        rest = [t for c in sorted(self._pending) for t in self._pending[c]]
+        self._pending = {}
+        if rest or self._windows is None:
+            self._write(pa.concat_tables(rest) if rest else self.schema.empty_table())
+
     def staged_bytes(self) -> int:
-        """Bytes staged so far (windows.parquet stays open for its footer: its footer is not counted)."""
+        """Bytes staged so far, every window row included (windows.parquet stays open for its footer: its
+        footer is not counted)."""
+        self._flush_pending()
         self._close(("_exceptions",))
         return sum(p.stat().st_size for p in self.stage.iterdir())
 
@@ -133,9 +143,9 @@ class ArchiveWriter:
         Returns the staging folder, which is a complete archive that can be
         opened and checked before :meth:`commit` moves it into place.
         """
-        if self._windows is None:
-            self.add_windows(self.schema.empty_table())
-        manifest = json.loads(json.dumps(manifest))          # the values exactly as a reader will see them
+        self._flush_pending()
+        self._windows.add_key_value_metadata({lean.LAYOUT_KEY: lean.LAYOUT})
+        manifest = json.loads(json.dumps(compact(manifest)))  # the values exactly as a reader will see them
         manifest.pop("members", None)
         self._windows.add_key_value_metadata({S.BINDING_KEY: manifest_digest(manifest).encode("ascii")})
         self._close()

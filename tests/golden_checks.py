@@ -1,0 +1,52 @@
+"""Checks every golden archive from format 4 on passes (test_golden_v4.py, test_golden_v5.py): the same rig
+log, decoded bit for bit against the ``expected.npz`` frozen beside it and verified against its source."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+import tsarchive
+from tsarchive.quantize import values_to_bits
+
+CHANNELS = ["strain", "temp", "counts", "serial"]
+
+
+def decodes_bit_for_bit(here: Path, arc_dir: Path) -> None:
+    arc = tsarchive.open(arc_dir)
+    expected = np.load(here / "expected.npz")
+    assert [c.name for c in arc.channels] == CHANNELS
+    for c in arc.channels:
+        got = arc.read(c.name)
+        assert got.dtype == expected[c.name].dtype
+        np.testing.assert_array_equal(values_to_bits(np.ma.getdata(got)), values_to_bits(expected[c.name]))
+        np.testing.assert_array_equal(np.ma.getmaskarray(got), expected[f"{c.name}.mask"])
+    np.testing.assert_array_equal(arc.times().values, expected["times"])
+
+
+def within_budget_of_source(here: Path, arc_dir: Path) -> None:
+    rep = tsarchive.verify(arc_dir, against=here / "source.csv")
+    assert rep.ok and rep.checksums_ok and rep.compared, rep.problems
+    arc = tsarchive.open(arc_dir)
+    assert arc.channel("strain").eps == 0.5 and arc.channel("temp").eps == 0.0 and arc.channel("serial").eps == 3
+    assert arc.manifest["model"] is not None  # the golden archive exercises the integer decoder
+
+
+def text_column_and_gap_come_back(arc_dir: Path) -> None:
+    arc = tsarchive.open(arc_dir)
+    status = arc.extra().column("status").to_pylist()
+    assert status.count("door open") == 10 and None in status          # an empty cell stays a null
+    steps = np.diff(arc.times().values)
+    assert steps.max() == 61 * 20_000_000                                  # the 60 lost rows: one 1.22 s step
+    assert arc.read("serial").mask.sum() == 1
+
+
+def format_4_fields(manifest: dict) -> None:
+    """What format 4 added, as the stored manifest holds it (a sentinel, exact integers, times, notes, text)."""
+    grids = {c["name"]: c["grid"] for c in manifest["channels"]}
+    assert grids["temp"]["verbatim"] == [-9999.0]                               # a sentinel, kept verbatim
+    assert isinstance(grids["serial"]["origin"], int) and "missing" in grids["serial"]   # beyond 2**53, a gap
+    assert manifest["time"]["listed"] is True and manifest["time"]["zone"] is None      # jitter, naive times
+    assert manifest["notes"] == ["# Rig 2 bench log (invented demo data)", "# operator shift B"]
+    assert manifest["extra"]["columns"] == ["status"]
