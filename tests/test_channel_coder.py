@@ -137,12 +137,12 @@ def test_a_garbled_adaptive_window_is_refused_in_one_line(long_archive, tmp_path
     from crafting import copy, rebind, replace_column
     from tsarchive.errors import ArchiveCorrupt
     a = copy(long_archive, tmp_path, "g.tsa")
-    name = tsarchive.open(a).channels[1].name
+    name = tsarchive.open(a).channels[1].name          # channel position 1 in the manifest
 
     def garble(t):
         res = t["residual"].to_pylist()
-        for i, (ch, w) in enumerate(zip(t["channel"].to_pylist(), t["window"].to_pylist())):
-            if ch == name and w == 3:
+        for i, key in enumerate(t["key"].to_pylist()):      # format 5: key = channel << 32 | window
+            if key == (1 << 32 | 3):
                 res[i] = bytes([res[i][0] ^ 0x10]) + res[i][1:]
         return replace_column(t, "residual", res)
     rebind(a, rows=garble)
