@@ -50,7 +50,7 @@ CODE_LEVELS = 16             # the code step is at most the leading component's 
 class Coder:
     """How one channel's normalised segments map to codes and back (see module doc)."""
 
-    kind: str                          # "linear" or "nonlinear"
+    kind: str                          # "linear", "nonlinear" or "facts" (no codes: the byte budget kept facts only)
     segment: int
     code_size: int
     basis: np.ndarray | None = None    # int8 (K, S), linear
@@ -69,6 +69,8 @@ class Coder:
 
     def encode(self, X: np.ndarray) -> np.ndarray:
         """Codes (n, K) in int8 range, held as int16, of normalised segments (n, S); the same bits on every machine."""
+        if self.kind == "facts":
+            return np.zeros((len(X), 0), dtype=np.int16)
         if self.kind == "nonlinear":
             return np.clip(self.encoder(X), -MAX_CODE, MAX_CODE).astype(np.int16)
         z = exact.matmul(X, self.rows.T) / self.step
@@ -77,6 +79,8 @@ class Coder:
     def decode(self, codes: np.ndarray, *, exact_sums: bool = True, scale: float = 1.0) -> np.ndarray:
         """Normalised segments (n, S) float64 from codes, times ``scale``; ``exact_sums`` repeats bit for bit
         (pack time), without it a plain BLAS product (previews)."""
+        if self.kind == "facts":
+            return np.zeros((len(codes), self.segment))
         if self.kind == "nonlinear":
             fixed = self.decoder.predict(np.asarray(codes, dtype=np.int64))      # integers, frac_bits fraction bits
             return fixed.astype(np.float64) * 2.0 ** (-int(self.decoder.frac_bits)) * scale
@@ -175,6 +179,11 @@ def fit_nonlinear(train: np.ndarray, K: int, seed: int = 0) -> Coder:
     model = train_autoencoder(train, K, hidden=AE_HIDDEN, work=AE_WORK, seed=seed, lr=AE_LR)
     return Coder("nonlinear", train.shape[1], K, decoder=model.int_decoder, encoder=model.encode,
                  note=f"trained {model.report.epochs_run} epochs, stopped by {model.report.stopped_by}")
+
+
+def facts_only(segment: int, why: str) -> Coder:
+    """No codes at all: the index keeps each segment's level and facts (its byte budget allowed no more)."""
+    return Coder("facts", segment, 0, note=why)
 
 
 def choose(X: np.ndarray, K: int, raw_bytes: int, seed: int = 0, try_nonlinear: bool = True) -> Coder:

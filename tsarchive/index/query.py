@@ -119,6 +119,9 @@ def ranked(score: np.ndarray, k: int) -> np.ndarray:
 
 def latent(ci: ChannelIndex, codes: np.ndarray | None = None) -> np.ndarray:
     """Codes in the coder's latent units (float32): linear codes times their step, nonlinear as stored."""
+    if ci.coder.kind == "facts":           # no codes: a segment's roughness and swing stand in for its shape
+        rows = slice(None) if codes is None else codes
+        return np.stack([_log2(ci.fact("slope")), _log2(ci.fact("miss"))], axis=1)[rows].astype(np.float32)
     c = ci.codes if codes is None else codes
     scale = ci.coder.step if ci.coder.kind == "linear" else 1.0
     return c.astype(np.float32) * np.float32(scale)
