@@ -90,12 +90,12 @@ class Unusual:
     because: tuple[str, ...]
 
 
-def unusual_scores(ci: ChannelIndex) -> Unusual:
-    """The combined score of every segment (module doc); higher is more unusual."""
+def parts(ci: ChannelIndex) -> dict[str, np.ndarray]:
+    """Every part of the score (module doc), each a one-sided robust z-score (0 where not unusual)."""
     flat = ci.fact("flat").astype(np.float64)
     spread = robust_z(local(spread_log2(ci)), 0.25)
     rough = robust_z(_log2(ci.fact("slope")), 0.25)
-    parts = {
+    return {
         "code misses it": np.maximum(robust_z(local(_log2(ci.fact("miss"))), 0.25), 0.0),
         "peak the code misses": np.maximum(robust_z(local(_log2(ci.fact("miss_peak"))), 0.25), 0.0),
         "larger swing": np.maximum(spread, 0.0),
@@ -105,8 +105,13 @@ def unusual_scores(ci: ChannelIndex) -> Unusual:
         "repeated samples": np.maximum(robust_z(local(flat), 1.0), 0.0),
         "level jump": np.maximum(robust_z(level_jump(ci), 0.05), 0.0),
     }
-    names = list(parts)
-    stack = np.stack([WEIGHTS.get(n, 1.0) * parts[n] / max(float(np.quantile(parts[n], TYPICAL)), 1.0)
+
+
+def unusual_scores(ci: ChannelIndex) -> Unusual:
+    """The combined score of every segment (module doc); higher is more unusual."""
+    got = parts(ci)
+    names = list(got)
+    stack = np.stack([WEIGHTS.get(n, 1.0) * got[n] / max(float(np.quantile(got[n], TYPICAL)), 1.0)
                       for n in names], axis=1)
     which = np.argmax(stack, axis=1)
     return Unusual(score=stack[np.arange(len(which)), which], because=tuple(names[i] for i in which))
