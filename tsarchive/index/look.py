@@ -20,7 +20,7 @@ from . import query as Q
 from .segments import as_segments
 
 BASED_ON_INDEX = {
-    "unusual": "the learned index: segments whose stored facts (what the code misses, swing, roughness, "
+    "unusual": "the learned index: segments whose stored facts (what the code misses, swing, roughness, sharp peaks, "
                "repeated samples, level jumps) stand out most from the rest of the channel",
     "alike": "the learned index: a shortlist of the {m} nearest codes, re-ranked by the distance between the "
              "decoded segments with their means removed",
