@@ -30,9 +30,22 @@ def test_an_index_too_large_is_rebuilt_smaller_and_fits():
     assert got, "a coarser rung fits"
     small = len(member.to_bytes(got))
     assert 100 * small <= 3 * payload                        # the budget, checked with integers here
-    assert got[0].segment > ci.segment or got[0].coder.code_size < ci.coder.code_size
+    g = got[0]
+    coarser = g.coder.kind == "linear" and int(np.abs(g.coder.basis.astype(int)).max()) <= 15  # 4-bit basis
+    assert g.segment > ci.segment or g.coder.code_size < ci.coder.code_size or coarser
     again = budget.fit_index([_channel()], payload)          # deterministic: the same bytes again
     assert member.to_bytes(again) == member.to_bytes(got)
+
+
+def test_a_coarser_basis_spans_nearly_the_same_subspace():
+    ci = _channel()
+    small = budget.rebuild(ci, 1, None, 4)
+    assert int(np.abs(small.coder.basis.astype(int)).max()) <= 15 < int(np.abs(ci.coder.basis.astype(int)).max())
+    # principal angles between the two row spaces (numpy SVD of Q1^T Q2): cosines near 1 (Golub & Van Loan 6.4.3)
+    q1, _ = np.linalg.qr(ci.coder.rows.T)
+    q2, _ = np.linalg.qr(small.coder.rows.T)
+    assert np.linalg.svd(q1.T @ q2, compute_uv=False).min() > 0.95
+    assert len(member.to_bytes([small])) < len(member.to_bytes([ci]))
 
 
 def test_facts_only_when_codes_do_not_fit_and_it_says_so(tmp_path):

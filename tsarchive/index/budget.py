@@ -9,8 +9,9 @@ is exact integer arithmetic on byte counts (``100 * index <= 3 * payload``),
 so the same recording gives the same index on every machine.
 
 When the index as built is too large, :func:`fit_index` builds it again down
-a fixed ladder (:data:`LADDER`) and keeps the first rung that fits: fewer
-codes per segment, longer segments (a smaller basis and fewer rows), then
+a fixed ladder (:data:`LADDER`) and keeps the first rung that fits: a
+coarser basis (4 or 3 bits a value instead of 7), fewer codes per segment,
+longer segments (a smaller basis and fewer rows), then
 facts only (levels and facts, no basis and no codes: ``kind`` ``facts`` in
 the member, which the queries and the app name), at longer and longer
 segments.  When not even the coarsest rung fits, the archive gets no index
@@ -28,9 +29,9 @@ from .segments import MAX_SEGMENT
 
 SHARE_PERCENT = 3            # index bytes <= 3 % of the archive's other bytes (module doc)
 MIN_SEGMENTS = 8             # a rung that leaves fewer segments per channel is not an index worth keeping
-# (segment multiple of the default, codes at most (None: as learned; 0: facts only)), tried in order
-LADDER = ((1, None), (1, 4), (1, 2), (2, 2), (2, 1), (4, 1),
-          (1, 0), (2, 0), (4, 0), (8, 0), (16, 0), (32, 0), (64, 0), (128, 0))
+# (segment multiple of the default, codes at most (None: as learned; 0: facts only), basis bits), in order
+LADDER = ((1, None, 7), (1, None, 4), (1, 4, 4), (1, 2, 4), (2, 2, 4), (2, 1, 3), (4, 1, 3),
+          (1, 0, 0), (2, 0, 0), (4, 0, 0), (8, 0, 0), (16, 0, 0), (32, 0, 0), (64, 0, 0), (128, 0, 0))
 
 
 def fits(index_bytes: int, payload_bytes: int) -> bool:
@@ -43,10 +44,10 @@ def staged_bytes(folder: Path, leave_out: str) -> int:
     return sum(p.stat().st_size for p in Path(folder).iterdir() if p.is_file() and p.name != leave_out)
 
 
-def rebuild(ci: ChannelIndex, longer: int, max_codes: int | None) -> ChannelIndex:
+def rebuild(ci: ChannelIndex, longer: int, max_codes: int | None, basis_bits: int = 7) -> ChannelIndex:
     src = ci.source
     return build_channel(src.column, ci.name, ci.n_samples, None, src.seed, src.itemsize, src.try_nonlinear,
-                         longer=longer, max_codes=max_codes)
+                         longer=longer, max_codes=max_codes, basis_bits=max(basis_bits, 1))
 
 
 def fit_index(index: list[ChannelIndex], payload_bytes: int) -> list[ChannelIndex]:
@@ -55,13 +56,13 @@ def fit_index(index: list[ChannelIndex], payload_bytes: int) -> list[ChannelInde
     from .member import to_bytes
     if not index or any(ci.source is None or ci.source.asked is not None for ci in index):
         return index
-    for longer, codes in LADDER:
+    for longer, codes, bits in LADDER:
         if any(ci.segment * longer > MAX_SEGMENT or ci.n_samples < MIN_SEGMENTS * ci.segment * longer
                for ci in index):
             continue
-        if codes is not None and codes >= max(ci.coder.code_size for ci in index) and longer == 1:
-            continue                                  # the same as the index as built
-        got = index if (longer, codes) == (1, None) else [rebuild(ci, longer, codes) for ci in index]
+        if codes is not None and codes >= max(ci.coder.code_size for ci in index) and longer == 1 and bits == 4:
+            continue                                  # the same as the rung before
+        got = index if (longer, codes, bits) == (1, None, 7) else [rebuild(ci, longer, codes, bits) for ci in index]
         if fits(len(to_bytes(got)), payload_bytes):
             return got
     return []

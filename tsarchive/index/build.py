@@ -111,10 +111,10 @@ def _lengths(n_samples: int, S: int, a: int, b: int) -> np.ndarray:
 
 def build_channel(column, name: str, n_samples: int, segment: int | None = None, seed: int = 0,
                   itemsize: int = 8, try_nonlinear: bool = True, *, longer: int = 1,
-                  max_codes: int | None = None) -> ChannelIndex:
+                  max_codes: int | None = None, basis_bits: int = 7) -> ChannelIndex:
     """The index of one channel; ``column(a, b)`` returns its samples ``a..b-1``.  ``longer`` multiplies
     the default segment (not an explicit ``segment``), ``max_codes`` caps the codes per segment (0: facts
-    only); both are how :mod:`tsarchive.index.budget` makes an index smaller."""
+    only), ``basis_bits`` (< 7) stores a linear basis coarser; all three are how :mod:`tsarchive.index.budget` makes an index smaller."""
     S = choose_segment(n_samples, segment) * (1 if segment else longer)
     n_seg = -(-n_samples // S)
     step = max(1, BLOCK_SAMPLES // S)
@@ -145,7 +145,7 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
     X = np.concatenate(sample) / ref if sample else np.zeros((0, S))
     K = learn.code_size_for(n_seg, n_samples, S)
     K = K if max_codes is None else min(K, max_codes)
-    coder = learn.choose(X, K, n_samples * itemsize, seed, try_nonlinear=try_nonlinear) if K else \
+    coder = learn.choose(X, K, n_samples * itemsize, seed, try_nonlinear, basis_bits) if K else \
         learn.facts_only(S, "facts only: codes did not fit the index's byte budget")
     codes = np.zeros((n_seg, coder.code_size), dtype=np.int16)
     worst = 0.0
