@@ -26,14 +26,14 @@ def test_an_index_too_large_is_rebuilt_smaller_and_fits():
     ci = _channel()
     full = len(member.to_bytes([ci]))
     payload = (100 * full) // 3 - 1                          # one byte short of letting the index as built in
-    got = budget.fit_index([ci], payload)
+    got = budget.fit_index([ci], payload, member.to_bytes)
     assert got, "a coarser rung fits"
     small = len(member.to_bytes(got))
     assert 100 * small <= 3 * payload                        # the budget, checked with integers here
     g = got[0]
     coarser = g.coder.kind == "linear" and int(np.abs(g.coder.basis.astype(int)).max()) <= 15  # 4-bit basis
     assert g.segment > ci.segment or g.coder.code_size < ci.coder.code_size or coarser
-    again = budget.fit_index([_channel()], payload)          # deterministic: the same bytes again
+    again = budget.fit_index([_channel()], payload, member.to_bytes)          # deterministic: the same bytes again
     assert member.to_bytes(again) == member.to_bytes(got)
 
 
@@ -53,7 +53,7 @@ def test_facts_only_when_codes_do_not_fit_and_it_says_so(tmp_path):
     facts = budget.rebuild(ci, 4, 0)
     assert facts.coder.kind == "facts" and facts.codes.shape == (facts.n_segments, 0)
     payload = (100 * len(member.to_bytes([facts]))) // 3 + 1
-    got = budget.fit_index([ci], payload)
+    got = budget.fit_index([ci], payload, member.to_bytes)
     assert got and got[0].coder.kind == "facts"
     member.write(tmp_path, got, fit=False)
 
@@ -67,9 +67,9 @@ def test_facts_only_when_codes_do_not_fit_and_it_says_so(tmp_path):
 
 def test_no_index_when_nothing_fits_and_an_explicit_segment_wins():
     ci = _channel(n=20_000)
-    assert budget.fit_index([ci], 10) == []
+    assert budget.fit_index([ci], 10, member.to_bytes) == []
     asked = _channel(n=20_000, segment=128)
-    assert budget.fit_index([asked], 10) == [asked]          # --segment given: kept as built
+    assert budget.fit_index([asked], 10, member.to_bytes) == [asked]          # --segment given: kept as built
 
 
 def test_a_short_recording_packs_without_an_index_and_the_answers_say_so(tmp_path):

@@ -23,6 +23,7 @@ built.
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Callable
 
 from .build import ChannelIndex, build_channel
 from .segments import MAX_SEGMENT
@@ -50,10 +51,10 @@ def rebuild(ci: ChannelIndex, longer: int, max_codes: int | None, basis_bits: in
                          longer=longer, max_codes=max_codes, basis_bits=max(basis_bits, 1))
 
 
-def fit_index(index: list[ChannelIndex], payload_bytes: int) -> list[ChannelIndex]:
+def fit_index(index: list[ChannelIndex], payload_bytes: int, to_bytes: Callable) -> list[ChannelIndex]:
     """``index`` if it fits its budget beside ``payload_bytes``, else the first rung of :data:`LADDER` that
-    does, else ``[]`` (module doc).  Indexes built without a source or with an explicit segment are kept."""
-    from .member import to_bytes
+    does, else ``[]`` (module doc); ``to_bytes`` is the member's encoding (:func:`tsarchive.index.member.
+    to_bytes`).  Indexes built without a source or with an explicit segment are kept."""
     if not index or any(ci.source is None or ci.source.asked is not None for ci in index):
         return index
     for longer, codes, bits in LADDER:

@@ -45,6 +45,7 @@ from tsarchive.errors import ArchiveCorrupt
 from tsarchive.model.intnet import IntDecoder
 from tsarchive.store.members import Findings, open_parquet
 
+from .budget import fit_index, staged_bytes
 from .build import FACT_NAMES, ChannelIndex
 from .learn import Coder
 
@@ -130,8 +131,7 @@ def write(folder: Path, index: list[ChannelIndex], *, fit: bool = True) -> Path 
     byte budget against the bytes already staged there (:mod:`tsarchive.index.budget`; ``fit=False``:
     as built).  Nothing is written (None) when not even the coarsest index fits."""
     if fit:
-        from .budget import fit_index, staged_bytes
-        index = fit_index(index, staged_bytes(folder, NAME))
+        index = fit_index(index, staged_bytes(folder, NAME), to_bytes)
     if not index:
         return None
     path = Path(folder) / NAME
