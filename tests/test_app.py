@@ -43,8 +43,9 @@ def lab(tmp_path_factory) -> Lab:
     """A folder with the CSV, its archive (packed once) and a .npy without a rate."""
     folder = tmp_path_factory.mktemp("app_lab")
     cols = write_stream(folder / "bench_log.csv")
+    # segment given: a recording this short gets no index within its byte budget (tsarchive/index/budget.py)
     tsarchive.pack(folder / "bench_log.csv", folder / "bench_log.tsarchive", BUDGET, window=WINDOW, code_size=4,
-                   train_seconds=1.0)
+                   train_seconds=1.0, segment=16)
     np.save(folder / "probe.npy", cols["accel"][:500])
     return Lab(folder, cols)
 

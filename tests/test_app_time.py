@@ -27,7 +27,7 @@ GAP_AT, GAP_TO = 300, 1000.0  # the gapped recording: samples 300.. start at 100
 
 def _pack(folder, name, budget="0.05", **options):
     tsarchive.pack(folder / name, folder / (folder / name).with_suffix(".tsarchive").name, budget, window=W,
-                   code_size=options.pop("code_size", 0), **options)
+                   code_size=options.pop("code_size", 0), segment=options.pop("segment", 16), **options)
 
 
 @pytest.fixture(scope="module")

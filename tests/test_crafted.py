@@ -39,7 +39,7 @@ def base(tmp_path_factory):
     out = d / "base.tsa"
     with mock.patch("tsarchive.pipeline.choose_coder", _range_then_chosen(pipeline.choose_coder)):
         tsarchive.pack(d / "s.npy", out, "0.5%", rate=200.0, window=64, code_size=2, train_seconds=1,
-                      segment=16)
+                      segment=16)      # segment given: a recording this short gets no index within its byte budget
     coders = [c.get("coder", {}).get("id") for c in manifest(out)["channels"]]
     assert coders == [None, "adaptive"]      # both ways of coding residuals are crafted below
     assert {p.name for p in out.iterdir()} == {S.MANIFEST, S.WINDOWS, S.EXCEPTIONS, S.MODEL, "index.parquet"}

@@ -48,3 +48,9 @@ def test_small_bench_runs_on_one_set():
             assert len(v) == 1 and 0.0 <= v[0] <= 1.0
     assert 0.0 <= res.recall["ppg_heartpy"] <= 1.0
     assert any(line.startswith("spike        strong") for line in I.table(res).splitlines())
+
+
+def test_reported_seeds_never_include_the_tuning_seeds():
+    # common practice (no source): figures are reported on data the design was not chosen on
+    for n in (1, 3, 10, 200):
+        assert not set(I.reported_seeds(n)) & set(I.TUNING_SEEDS) and len(I.reported_seeds(n)) == n

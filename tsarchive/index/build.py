@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 
@@ -26,6 +27,18 @@ BLOCK_SAMPLES = 1 << 20
 # the per-segment byte columns, in order
 FACT_NAMES = ("slope", "flat", "miss", "miss_peak")
 LEVEL_PARTS = 16             # a segment's mean is kept on a power-of-two grid of at most ref / 16
+
+
+@dataclass(frozen=True, eq=False)
+class Source:
+    """What :func:`build_channel` was given, kept at pack time so the byte budget
+    (:mod:`tsarchive.index.budget`) can build the channel again with longer segments or fewer codes."""
+
+    column: Callable
+    itemsize: int
+    seed: int
+    try_nonlinear: bool
+    asked: int | None                  # the segment the user gave (it wins over the budget), else None
 
 
 @dataclass(frozen=True, eq=False)
@@ -44,6 +57,8 @@ class ChannelIndex:
     codes: np.ndarray
     facts: np.ndarray
     worst: float
+    source: Source | None = None       # pack time only (not stored): how to build it again coarser
+
 
     @property
     def n_segments(self) -> int:
@@ -95,9 +110,12 @@ def _lengths(n_samples: int, S: int, a: int, b: int) -> np.ndarray:
 
 
 def build_channel(column, name: str, n_samples: int, segment: int | None = None, seed: int = 0,
-                  itemsize: int = 8, try_nonlinear: bool = True) -> ChannelIndex:
-    """The index of one channel; ``column(a, b)`` returns its samples ``a..b-1``."""
-    S = choose_segment(n_samples, segment)
+                  itemsize: int = 8, try_nonlinear: bool = True, *, longer: int = 1,
+                  max_codes: int | None = None, basis_bits: int = 7) -> ChannelIndex:
+    """The index of one channel; ``column(a, b)`` returns its samples ``a..b-1``.  ``longer`` multiplies
+    the default segment (not an explicit ``segment``), ``max_codes`` caps the codes per segment (0: facts
+    only), ``basis_bits`` (< 7) stores a linear basis coarser; all three are how :mod:`tsarchive.index.budget` makes an index smaller."""
+    S = choose_segment(n_samples, segment) * (1 if segment else longer)
     n_seg = -(-n_samples // S)
     step = max(1, BLOCK_SAMPLES // S)
     pick = set(np.unique(np.linspace(0, n_seg - 1, min(n_seg, LEARN_SEGMENTS)).round().astype(np.int64)).tolist()) \
@@ -126,7 +144,9 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
     level = np.rint(mean / level_step).astype(np.int64)
     X = np.concatenate(sample) / ref if sample else np.zeros((0, S))
     K = learn.code_size_for(n_seg, n_samples, S)
-    coder = learn.choose(X, K, n_samples * itemsize, seed, try_nonlinear=try_nonlinear)
+    K = K if max_codes is None else min(K, max_codes)
+    coder = learn.choose(X, K, n_samples * itemsize, seed, try_nonlinear, basis_bits) if K else \
+        learn.facts_only(S, "facts only: codes did not fit the index's byte budget")
     codes = np.zeros((n_seg, coder.code_size), dtype=np.int16)
     worst = 0.0
     for a in range(0, n_seg, step):                  # pass 2: codes and what they miss
@@ -148,7 +168,8 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
         err = np.abs(approx - full)[inside]
         seen = err[np.isfinite(err)]
         worst = max(worst, float(seen.max()) if seen.size else 0.0)
-    return ChannelIndex(name, S, n_samples, ref, coder, level, level_step, codes, f, worst)
+    return ChannelIndex(name, S, n_samples, ref, coder, level, level_step, codes, f, worst,
+                        Source(column, itemsize, seed, try_nonlinear, segment))
 
 
 def build_index(rec, segment: int | None = None, seed: int = 0, try_nonlinear: bool = True) -> list[ChannelIndex]:

@@ -18,6 +18,9 @@ codes decode to; the better one is kept and named in the member (``kind``).
   segments, a work budget) with its integer decoder; tried only on channels
   with enough segments, and kept only when its decoder costs at most
   :data:`MODEL_SHARE` of the channel's raw bytes.
+* ``facts`` -- no coder and no codes (:func:`facts_only`): what the index's
+  byte budget (:mod:`tsarchive.index.budget`) keeps when not even a small
+  basis fits; the preview is then the segment levels.
 """
 
 from __future__ import annotations
@@ -50,7 +53,7 @@ CODE_LEVELS = 16             # the code step is at most the leading component's 
 class Coder:
     """How one channel's normalised segments map to codes and back (see module doc)."""
 
-    kind: str                          # "linear" or "nonlinear"
+    kind: str                          # "linear", "nonlinear" or "facts" (no codes: the byte budget kept facts only)
     segment: int
     code_size: int
     basis: np.ndarray | None = None    # int8 (K, S), linear
@@ -69,6 +72,8 @@ class Coder:
 
     def encode(self, X: np.ndarray) -> np.ndarray:
         """Codes (n, K) in int8 range, held as int16, of normalised segments (n, S); the same bits on every machine."""
+        if self.kind == "facts":
+            return np.zeros((len(X), 0), dtype=np.int16)
         if self.kind == "nonlinear":
             return np.clip(self.encoder(X), -MAX_CODE, MAX_CODE).astype(np.int16)
         z = exact.matmul(X, self.rows.T) / self.step
@@ -77,6 +82,8 @@ class Coder:
     def decode(self, codes: np.ndarray, *, exact_sums: bool = True, scale: float = 1.0) -> np.ndarray:
         """Normalised segments (n, S) float64 from codes, times ``scale``; ``exact_sums`` repeats bit for bit
         (pack time), without it a plain BLAS product (previews)."""
+        if self.kind == "facts":
+            return np.zeros((len(codes), self.segment))
         if self.kind == "nonlinear":
             fixed = self.decoder.predict(np.asarray(codes, dtype=np.int64))      # integers, frac_bits fraction bits
             return fixed.astype(np.float64) * 2.0 ** (-int(self.decoder.frac_bits)) * scale
@@ -141,11 +148,13 @@ def principal_basis(X: np.ndarray, K: int, seed: int = 0) -> np.ndarray:
     return V * np.where(V[top, np.arange(K)] < 0, -1.0, 1.0)
 
 
-def _int8_rows(V: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(int8 (K, S), shifts): row k ~ q[k] * 2**-shift[k], the largest entry near 127."""
+def _int8_rows(V: np.ndarray, bits: int = 7) -> tuple[np.ndarray, np.ndarray]:
+    """(int8 (K, S), shifts): row k ~ q[k] * 2**-shift[k], the largest entry near 2**bits - 1 (127 by default;
+    fewer ``bits`` store the basis coarser and smaller)."""
+    top = (1 << bits) - 1
     peak = np.abs(V).max(axis=0)
-    shifts = np.array([7 - int(np.frexp(p)[1]) if p > 0 else 0 for p in peak], dtype=np.int64)
-    q = np.clip(np.rint(V.T * np.ldexp(1.0, shifts)[:, None]), -127, 127).astype(np.int8)
+    shifts = np.array([bits - int(np.frexp(p)[1]) if p > 0 else 0 for p in peak], dtype=np.int64)
+    q = np.clip(np.rint(V.T * np.ldexp(1.0, shifts)[:, None]), -top, top).astype(np.int8)
     return q, shifts
 
 
@@ -156,10 +165,10 @@ def _mse(coder: Coder, X: np.ndarray) -> float:
     return exact.total(squares(e)) / e.size
 
 
-def fit_linear(train: np.ndarray, K: int, seed: int = 0) -> Coder:
+def fit_linear(train: np.ndarray, K: int, seed: int = 0, basis_bits: int = 7) -> Coder:
     """The principal basis of ``train`` (normalised segments) with its code step."""
     S = train.shape[1]
-    q, shifts = _int8_rows(principal_basis(train, K, seed))
+    q, shifts = _int8_rows(principal_basis(train, K, seed), basis_bits)
     plain = Coder("linear", S, q.shape[0], basis=q, shifts=shifts, step=1.0)
     z = exact.matmul(train, plain.rows.T)
     e = exact.matmul(z, plain.rows) - train
@@ -177,11 +186,17 @@ def fit_nonlinear(train: np.ndarray, K: int, seed: int = 0) -> Coder:
                  note=f"trained {model.report.epochs_run} epochs, stopped by {model.report.stopped_by}")
 
 
-def choose(X: np.ndarray, K: int, raw_bytes: int, seed: int = 0, try_nonlinear: bool = True) -> Coder:
+def facts_only(segment: int, why: str) -> Coder:
+    """No codes at all: the index keeps each segment's level and facts (its byte budget allowed no more)."""
+    return Coder("facts", segment, 0, note=why)
+
+
+def choose(X: np.ndarray, K: int, raw_bytes: int, seed: int = 0, try_nonlinear: bool = True,
+           basis_bits: int = 7) -> Coder:
     """Fit both coders on nine segments in ten and keep the one with the lower held-out error (module doc)."""
     held = np.arange(len(X)) % 10 == 9
     train, test = (X[~held], X[held]) if held.any() and (~held).any() else (X, X)
-    lin = fit_linear(train, K, seed)
+    lin = fit_linear(train, K, seed, basis_bits)
     err_lin = _mse(lin, test)
     if not try_nonlinear or len(train) < AE_MIN_SEGMENTS:
         return _with(lin, err_lin, math.nan, f"linear: the nonlinear coder needs {AE_MIN_SEGMENTS} segments "

@@ -20,12 +20,21 @@ from . import query as Q
 from .segments import as_segments
 
 BASED_ON_INDEX = {
-    "unusual": "the learned index: segments whose stored facts (what the code misses, swing, roughness, "
+    "unusual": "the learned index: segments whose stored facts (what the code misses, swing, roughness, sharp peaks, "
                "repeated samples, level jumps) stand out most from the rest of the channel",
     "alike": "the learned index: a shortlist of the {m} nearest codes, re-ranked by the distance between the "
              "decoded segments with their means removed",
     "glance": "the learned index's codes alone (approximate: within {worst} of the recording, measured when "
               "it was packed)",
+}
+BASED_ON_FACTS = {    # kind "facts": the byte budget kept no codes (tsarchive/index/budget.py)
+    "unusual": "the index's facts only (no codes fitted its byte budget): segments whose swing, roughness, "
+               "repeated samples or level jumps stand out most from the rest of the channel",
+    "alike": "the index's facts only (no codes fitted its byte budget): a shortlist of the {m} segments "
+             "nearest in roughness and swing, re-ranked by the distance between the decoded segments with "
+             "their means removed",
+    "glance": "the index's segment levels alone (facts only: no codes fitted its byte budget; approximate: within {worst} "
+              "of the recording, measured when it was packed)",
 }
 BASED_ON_FALLBACK = {
     "unusual": "no learned index in this archive: windows ranked by their stored outlier score (peak error "
@@ -70,6 +79,11 @@ class Glance:
     based_on: str
 
 
+def based_on(ci, kind: str) -> str:
+    """What a ranking of ``kind`` on index ``ci`` is based on: codes and facts, or facts only."""
+    return (BASED_ON_FACTS if ci.coder.kind == "facts" else BASED_ON_INDEX)[kind]
+
+
 def channel_name(arc, channel: str | None) -> str:
     if channel is None:
         if not arc.channels:
@@ -84,7 +98,7 @@ def unusual(arc, channel: str | None = None, k: int = 20) -> Ranking:
         ci = member.read(arc, name)
         u = Q.unusual_scores(ci)
         rows = tuple(Row(int(i), int(i) * ci.segment, float(u.score[i]), u.because[i]) for i in Q.ranked(u.score, k))
-        return Ranking(name, "unusual", "segment", ci.segment, BASED_ON_INDEX["unusual"], rows)
+        return Ranking(name, "unusual", "segment", ci.segment, based_on(ci, "unusual"), rows)
     w = arc.windows(name)
     ids = arc.outliers(name, k=k)
     where = {int(x): p for p, x in enumerate(w.index)}
@@ -108,10 +122,10 @@ def segment_samples(arc, name: str, ci, ids: np.ndarray) -> np.ndarray:
 def alike(arc, number: int, channel: str | None = None, k: int = 10) -> Ranking:
     name = channel_name(arc, channel)
     if member.has_index(arc):
-        ci = member.read(arc, name, facts=False)
+        ci = member.read(arc, name)
         found = Q.alike(ci, int(number), k, lambda ids: segment_samples(arc, name, ci, ids))
         rows = tuple(Row(s, s * ci.segment, d) for s, d in found)
-        return Ranking(name, "alike", "segment", ci.segment, BASED_ON_INDEX["alike"].format(m=Q.SHORTLIST), rows)
+        return Ranking(name, "alike", "segment", ci.segment, based_on(ci, "alike").format(m=Q.SHORTLIST), rows)
     W = arc.channel(name).window
     rows = tuple(Row(int(w), int(w) * W, float(d)) for w, d in arc.similar(name, int(number), k=k))
     return Ranking(name, "alike", "window", W, BASED_ON_FALLBACK["alike"], rows)
@@ -124,7 +138,7 @@ def glance(arc, channel: str | None = None, start: int = 0, end: int | None = No
         ci = member.read(arc, name, facts=False)
         unit = f" {arc.channel(name).unit}" if arc.channel(name).unit else ""
         return Glance(name, start, Q.preview(ci, start, end), ci.worst,
-                      BASED_ON_INDEX["glance"].format(worst=f"±{ci.worst:.4g}{unit}"))
+                      based_on(ci, "glance").format(worst=f"±{ci.worst:.4g}{unit}"))
     n = arc.channel(name).n_samples
     end = n if end is None else min(end, n)
     x = np.asarray(arc.preview(name), dtype=np.float64)[start:end]

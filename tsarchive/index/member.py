@@ -15,7 +15,8 @@ small int8 columns spent about half as much again.
 
 Footer key ``tsarchive.index`` holds JSON: ``{"version": 1, "channels": [...]}``
 with, per channel: ``name``, ``segment`` (samples), ``n_samples``, ``ref``,
-``kind`` (``linear`` / ``nonlinear``: which coder won on held-out segments),
+``kind`` (``linear`` / ``nonlinear``: which coder won on held-out segments; ``facts``: no codes, the
+byte budget kept only levels and facts, ``code_size`` 0; optional on reading, as the member is),
 ``code_size``, ``step``, ``level_step``, ``basis`` (int8 rows as first value and differences, range coded: ``shape``, ``table``, ``payload`` in base64) and ``shifts``, or
 ``decoder`` (the integer decoder's arrays, base64 of little-endian integers),
 ``heldout_linear``/``heldout_nonlinear`` (normalised mean squared errors, null
@@ -44,6 +45,7 @@ from tsarchive.errors import ArchiveCorrupt
 from tsarchive.model.intnet import IntDecoder
 from tsarchive.store.members import Findings, open_parquet
 
+from .budget import fit_index, staged_bytes
 from .build import FACT_NAMES, ChannelIndex
 from .learn import Coder
 
@@ -107,7 +109,7 @@ def _describe(ci: ChannelIndex) -> dict:
            "heldout_nonlinear": None if math.isnan(c.heldout_nonlinear) else c.heldout_nonlinear}
     if c.kind == "linear":
         out.update(basis=_pack_rows(c.basis), shifts=[int(s) for s in c.shifts])
-    else:
+    elif c.kind == "nonlinear":
         out["decoder"] = {k: _pack_array(v) for k, v in c.decoder.to_arrays().items()}
     return out
 
@@ -124,8 +126,21 @@ def _block_values(part: str, v: np.ndarray) -> np.ndarray:
     return np.concatenate([v[:1], np.diff(v)]) if part == "level" and len(v) else v
 
 
-def write(folder: Path, index: list[ChannelIndex]) -> Path:
-    """Write ``index.parquet`` into ``folder`` (the staging folder of an archive)."""
+def write(folder: Path, index: list[ChannelIndex], *, fit: bool = True) -> Path | None:
+    """Write ``index.parquet`` into ``folder`` (the staging folder of an archive), first made to fit its
+    byte budget against the bytes already staged there (:mod:`tsarchive.index.budget`; ``fit=False``:
+    as built).  Nothing is written (None) when not even the coarsest index fits."""
+    if fit:
+        index = fit_index(index, staged_bytes(folder, NAME), to_bytes)
+    if not index:
+        return None
+    path = Path(folder) / NAME
+    path.write_bytes(to_bytes(index))
+    return path
+
+
+def to_bytes(index: list[ChannelIndex]) -> bytes:
+    """The member's bytes for ``index`` (the same bytes for the same index)."""
     rows: dict[str, list] = {n: [] for n in SCHEMA.names}
     for ci in index:
         for part, v in _parts(ci).items():
@@ -139,12 +154,13 @@ def write(folder: Path, index: list[ChannelIndex]) -> Path:
                 rows["table"].append(table.to_bytes())
                 rows["payload"].append(entropy.encode(vals, table))
     meta = {"version": VERSION, "channels": [_describe(ci) for ci in index]}
-    path = Path(folder) / NAME
-    with pq.ParquetWriter(path, SCHEMA, compression="zstd", compression_level=19, store_schema=False,
-                          write_statistics=["channel", "first"], use_dictionary=["channel", "part"]) as w:
+    sink = pa.BufferOutputStream()
+    # no statistics and no dictionaries: the reader reads the whole (small) member, and both cost footer bytes
+    with pq.ParquetWriter(sink, SCHEMA, compression="zstd", compression_level=19, store_schema=False,
+                          write_statistics=False, use_dictionary=False) as w:
         w.write_table(pa.table(rows, schema=SCHEMA))
         w.add_key_value_metadata({KEY: json.dumps(meta, separators=(",", ":"), sort_keys=True).encode("ascii")})
-    return path
+    return sink.getvalue().to_pybytes()
 
 
 def has_index(archive) -> bool:
@@ -161,7 +177,8 @@ def _number(d: dict, key: str, lo: float, hi: float, integer: bool = False):
 
 
 def _coder(d: dict) -> Coder:
-    kind, K, S = d.get("kind"), _number(d, "code_size", 1, MAX_CODE_SIZE, True), _number(d, "segment", 1, 1 << 20, True)
+    kind, S = d.get("kind"), _number(d, "segment", 1, 1 << 20, True)
+    K = _number(d, "code_size", 0 if kind == "facts" else 1, 0 if kind == "facts" else MAX_CODE_SIZE, True)
     lin = d.get("heldout_linear")
     non = d.get("heldout_nonlinear")
     common = dict(heldout_linear=math.nan if lin is None else float(lin),
@@ -174,6 +191,8 @@ def _coder(d: dict) -> Coder:
             raise ArchiveCorrupt(f"{NAME}: channel {d.get('name')!r} has a malformed basis; the archive is damaged")
         return Coder("linear", S, K, basis=basis, shifts=shifts.astype(np.int64),
                      step=float(_number(d, "step", 2.0 ** -60, 2.0 ** 60)), **common)
+    if kind == "facts":
+        return Coder("facts", S, 0, **common)
     if kind == "nonlinear" and isinstance(d.get("decoder"), dict):
         dec = IntDecoder.from_arrays({k: _unpack_array(v) for k, v in d["decoder"].items()})
         if dec.code_size != K or dec.window != S:
@@ -192,7 +211,7 @@ def read(archive, channel: str, *, facts: bool = True) -> ChannelIndex:
         meta = json.loads(footer.key_value.get(KEY, b"null"))
         t = f.read(use_threads=False)                 # a small file: threads cost more than they save
         t = t.filter(pc.equal(t["channel"], channel))
-    except (OSError, ValueError, pa.ArrowException) as exc:
+    except (OSError, ValueError, KeyError, pa.ArrowException) as exc:   # KeyError: a renamed column
         raise ArchiveCorrupt(f"{NAME} cannot be read ({str(exc)[:80]}); the archive is damaged") from None
     if not isinstance(meta, dict) or meta.get("version") != VERSION or not isinstance(meta.get("channels"), list):
         raise ArchiveCorrupt(f"{NAME} has no readable description; the archive is damaged or newer than this tsarchive")
@@ -204,8 +223,8 @@ def read(archive, channel: str, *, facts: bool = True) -> ChannelIndex:
     n_seg = -(-n // coder.segment)
     wanted = ["level", *CODE_COLUMNS[:coder.code_size]] + (list(FACT_NAMES) if facts else [])
     got = {p: _decode_part(t, channel, p, n_seg) for p in wanted}
-    codes = np.stack([got[c] for c in CODE_COLUMNS[:coder.code_size]], axis=1) if n_seg else \
-        np.zeros((0, coder.code_size))
+    codes = np.stack([got[c] for c in CODE_COLUMNS[:coder.code_size]], axis=1) if n_seg and coder.code_size else \
+        np.zeros((n_seg, coder.code_size))
     if codes.size and (codes.min() < -127 or codes.max() > 127) or \
             facts and any(got[p].size and (got[p].min() < 0 or got[p].max() > 255) for p in FACT_NAMES):
         raise ArchiveCorrupt(f"{NAME}: channel {channel!r} has codes or facts out of range; the archive is damaged")
