@@ -121,6 +121,7 @@ class ArchiveWriter:
         """The learned index (optional member ``index.parquet``; :mod:`tsarchive.index.member`); none if empty."""
         if index:
             from ..index.member import write
+            self._flush_pending()          # every window row staged first: the index's byte budget is measured on them
             write(self.stage, index)
 
     def _flush_pending(self) -> None:

@@ -49,7 +49,7 @@ def main() -> None:
     shutil.rmtree(out, ignore_errors=True)
     budget = "strain=0.5,temp=lossless,counts=lossless,serial=3"
     tsarchive.pack(HERE / "source.csv", out, budget, window=32, code_size=4, train_seconds=5, seed=2,
-                   read_options=ReadOptions.build(missing="-9999"))
+                   read_options=ReadOptions.build(missing="-9999"), segment=64)
     arc = tsarchive.open(out)
     meta = pq.ParquetFile(out / "windows.parquet").metadata
     keys = [meta.row_group(g).column(0).statistics for g in range(meta.num_row_groups)]
@@ -57,8 +57,8 @@ def main() -> None:
         "several LPC sets": len(arc.channel("strain").lpc) > 1,
         "every predictor (else try another seed)": {m for c in arc.channels for m, k in c.modes if k} == {
             "prev", "prev2", "ae", "ae+prev", "lpc"},
-        "every optional member": {"time.parquet", "extra.parquet", "exceptions.parquet", "model.parquet"} <= set(
-            arc.manifest["members"]),
+        "every optional member": {"time.parquet", "extra.parquet", "exceptions.parquet", "model.parquet",
+                                  "index.parquet"} <= set(arc.manifest["members"]),
         "a row group of one channel": any(k.min >> 32 == k.max >> 32 for k in keys),
         "a row group shared by channels": any(k.min >> 32 < k.max >> 32 for k in keys),
         "the compact manifest": "channel_defaults" in json.loads((out / "manifest.json").read_text()),
@@ -69,6 +69,28 @@ def main() -> None:
     np.savez(HERE / "expected.npz", **{n: np.ma.getdata(v) for n, v in x.items()},
              **{f"{n}.mask": np.ma.getmaskarray(v) for n, v in x.items()}, times=arc.times().values)
     print(f"wrote {out} ({arc.archive_bytes} bytes) and expected.npz")
+    coders()
+
+
+def coders() -> None:
+    """A second, small golden archive whose channels are range coded and adaptive coded (the packer's own
+    choice on exact byte counts, tests/coder_kit.py), with its decoded samples in ``expected_coders.npz``."""
+    import sys
+
+    import tsarchive
+    sys.path.insert(0, str(HERE.parents[1]))
+    from coder_kit import coder_ids, pack_with_coders
+
+    out = HERE / "coders5"
+    shutil.rmtree(out, ignore_errors=True)
+    pack_with_coders(out, 20_000, segment=256)
+    out.with_suffix(".npy").unlink()
+    ids = coder_ids(out)
+    assert None in ids and "adaptive" in ids, f"the coders archive does not freeze both coders: {ids}"
+    assert "index.parquet" in tsarchive.open(out).manifest["members"]
+    arc = tsarchive.open(out)
+    np.savez_compressed(HERE / "expected_coders.npz", **{c.name: arc.read(c.name) for c in arc.channels})
+    print(f"wrote {out} ({arc.archive_bytes} bytes, coders {ids}) and expected_coders.npz")
 
 
 if __name__ == "__main__":
