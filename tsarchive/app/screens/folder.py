@@ -27,7 +27,7 @@ from tsarchive.app.locate import FolderEntry, scan_folder, tree_size
 from tsarchive.app.messages import FolderDetailsLoaded, WorkFailed
 from tsarchive.app.screens.base import Notices
 from tsarchive.app.widgets.pick_table import PickTable
-from tsarchive.app.checkrecord import read_record
+from tsarchive.record.kept import read_record
 from tsarchive.app.summary import UNVERIFIED, VERIFIED_OK, archive_duration
 from tsarchive.batch.catalog import current_rows, is_catalog
 from tsarchive.errors import NeedsRate, TsArchiveError
