@@ -165,3 +165,20 @@ def test_dry_run_lists_the_plan_and_writes_nothing(tmp_path, capsys):
     code, text, _ = _run(capsys, "pack", tmp_path / "lab", "--into", tmp_path / "out", "--dry-run")
     assert code == 0 and not (tmp_path / "out").exists()
     assert f"{srcs[0].resolve()} -> log00.csv.tsarchive" in text and "sub/log01.csv.tsarchive" in text
+
+
+def test_a_rerun_tidies_what_a_killed_run_left_beside_an_archive_it_skips(tmp_path, capsys):
+    """A run killed after an archive's commit but before its claim was released leaves ``.NAME.claim`` (and
+    perhaps a staging folder); the next run skips that archive and must still remove them.  (This failed before
+    the skip check took the claim: the kill -9 test above caught it on CI once.)"""
+    lab = tmp_path / "lab"
+    write_logger(lab / "log00.csv", n=600, seed=0)
+    out = tmp_path / "out"
+    code, _, _ = _run(capsys, "pack", lab, "--into", out, "--jobs", "1")
+    assert code == 0
+    (out / ".log00.csv.tsarchive.claim").write_bytes(b"")          # as a SIGKILL leaves them: no lock held
+    (out / ".log00.csv.tsarchive.staging-0badf00d").mkdir()
+    (out / ".log00.csv.tsarchive.staging-0badf00d" / "windows.parquet").write_bytes(b"half")
+    code, text, _ = _run(capsys, "pack", lab, "--into", out, "--jobs", "1")
+    assert code == 0 and "] already packed" in text
+    assert sorted(p.name for p in out.iterdir() if p.name.startswith(".log00")) == []

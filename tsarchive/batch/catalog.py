@@ -42,6 +42,7 @@ except ImportError:  # pragma: no cover - not POSIX: compaction then relies on t
 CATALOG = "catalog.parquet"
 FOLDER = ".tsarchive-catalog"
 MAX_ENTRY_BYTES = 1 << 20
+MAX_CATALOG_BYTES = 1 << 32          # 4 GiB: millions of rows; a size read from disk is capped before reading
 
 #: The table's columns.  Times are ISO 8601 text as logged (naive stays naive) or UTC timestamps.
 SCHEMA = pa.schema([
@@ -198,7 +199,15 @@ def read_catalog(folder: str | os.PathLike) -> pa.Table:
         raise BadInput(f"{folder} has no {CATALOG} (pack --into FOLDER writes one); give an archive folder or a "
                        "batch's output folder")
     try:
-        table = pq.read_table(path)
+        # One open, read whole: a compaction renames a new table over the path at any moment, and a reader that
+        # opens the path twice (footer first, pages later, as a dataset scan does) can mix the two files.
+        with open(path, "rb") as f:
+            size = os.fstat(f.fileno()).st_size
+            if size > MAX_CATALOG_BYTES:
+                raise ArchiveCorrupt(f"{path} is {size} bytes, over the {MAX_CATALOG_BYTES}-byte cap for a "
+                                     "catalog; run the batch's pack command again to rebuild it")
+            data = f.read(size)
+        table = pq.ParquetFile(pa.BufferReader(data)).read()
     except (OSError, pa.ArrowException) as exc:
         raise ArchiveCorrupt(f"{path} cannot be read ({exc}); run the batch's pack command again to rebuild it") \
             from None

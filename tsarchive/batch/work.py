@@ -93,10 +93,20 @@ def manifest_digest(archive: Path) -> str | None:
 
 
 def _pack_one(job: Job, settings: BatchSettings, out: Path, t0: float) -> Outcome:
-    import tsarchive
     from ..checksum import file_sha256
+    from ..store.claim import claim_target
 
     sha = file_sha256(job.source)
+    job.archive.parent.mkdir(parents=True, exist_ok=True)
+    # The claim covers the skip check as well as the pack: another run cannot pack the same archive meanwhile,
+    # and taking it tidies what a killed run left beside the archive (its claim file and staging folders).
+    with claim_target(job.archive):
+        return _claimed(job, settings, out, t0, sha)
+
+
+def _claimed(job: Job, settings: BatchSettings, out: Path, t0: float, sha: str) -> Outcome:
+    import tsarchive
+
     entry = read_entry(out, job.rel)
     before = None
     if os.path.lexists(job.archive):
@@ -112,7 +122,6 @@ def _pack_one(job: Job, settings: BatchSettings, out: Path, t0: float) -> Outcom
         before = manifest_digest(job.archive)
     write_entry(out, job.rel, {"state": "packing", "archive": job.rel, "source_sha256": sha, "before": before,
                                "settings_sha256": settings.fingerprint(), "tool_version": tsarchive.__version__})
-    job.archive.parent.mkdir(parents=True, exist_ok=True)
     opts = settings.pack_options()
     if job.rate is not None:
         opts["rate"] = job.rate
