@@ -17,7 +17,6 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 import tsarchive
-from tsarchive import pipeline
 from tsarchive.channelcodec import ChannelCodec
 from tsarchive.codec import TableSet
 from tsarchive.coding.adaptive import AdaptiveCoder

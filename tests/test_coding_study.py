@@ -15,7 +15,6 @@ import numpy as np
 import pytest
 
 import tsarchive
-from tsarchive import entropy
 from tsarchive.bench import realdata, residual_study
 from tsarchive.bench.archive_bytes import breakdown
 from tsarchive.coding.adaptive import AdaptiveCoder

@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 
 import tsarchive
-from app_helpers import N, RATE, WINDOW, Lab, NotedApp, cells, open_contents, open_strip, settle, write_stream
+from app_helpers import RATE, WINDOW, Lab, NotedApp, cells, open_contents, open_strip, settle, write_stream
 from tsarchive.app.locate import read_time
 from tsarchive.app.screens.contents import ContentsScreen
 from tsarchive.app.screens.export import ExportScreen

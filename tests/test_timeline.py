@@ -174,7 +174,7 @@ def test_iso_range_is_exact_to_the_nanosecond(tmp_path):
     # the first time has 500 ns past the microsecond: a datetime (us) start would shift the range by 500 ns
     times = T0 + np.arange(50, dtype=np.int64) * 250_000_000
     times[0] += 500
-    arc = _pack(_rec(50, times, rate=4.0), tmp_path / "ns.tsa")
+    _pack(_rec(50, times, rate=4.0), tmp_path / "ns.tsa")
     assert main(["unpack", str(tmp_path / "ns.tsa"), "-o", str(tmp_path / "ns.csv"),
                  "--start", "2024-03-05T14:00:01.000000", "--end", "2024-03-05T14:00:02"]) == 0
     cells = [r[0] for r in _csv_rows(tmp_path / "ns.csv")[1:]]
