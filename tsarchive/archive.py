@@ -71,7 +71,7 @@ class Archive:
                                      f"({S.OLDEST_READABLE}..{S.FORMAT_VERSION}); use the version that wrote it")
         m = self.manifest = P.expanded(stored, v)      # format 5 stores each fact once (store/compact.py)
         self.window = P.window(m)
-        self.members = P.members(m)
+        self.members = P.members(m, v)
         model = P.model_spec(m, self.window)
         P.facts(m)
         chans = P.channel_list(m)

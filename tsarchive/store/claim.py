@@ -31,6 +31,7 @@ from contextlib import contextmanager
 from pathlib import Path
 
 from ..errors import ArchiveExists, BadInput
+from .inside import is_archive
 
 try:
     import fcntl
@@ -43,7 +44,7 @@ _held: dict[Path, list] = {}          # target -> [claim fd, depth]
 
 
 def is_archive_dir(path: Path) -> bool:
-    return path.is_dir() and (path / "manifest.json").is_file()
+    return is_archive(path)
 
 
 def check_target(path: Path, force: bool) -> None:

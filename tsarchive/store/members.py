@@ -29,6 +29,7 @@ from . import lean
 from . import schema as S
 from .binding import file_sha256, footer_digest, manifest_digest, member_size
 from .footer import BYTE_ARRAY, DICTIONARY_ENCODINGS, Footer, read_footer
+from .inside import digest_problem, stored_in
 from .parse import ChannelMeta, Member, ModelSpec
 
 
@@ -70,13 +71,19 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
 
 
 def member_problems(path: Path, members: tuple[Member, ...]) -> list[str]:
-    """Every listed member hashed against the manifest's SHA-256 (a full read), and files it does not list."""
+    """Every listed member hashed against the manifest's SHA-256 (a full read), format 6's windows.parquet
+    against the digest in its own footer (inside.py), and files the manifest does not list."""
     out = []
+    listed = {m.name for m in members} | {S.MANIFEST}
+    if S.WINDOWS not in listed:          # format 6: windows.parquet holds the manifest and its own digest
+        listed.add(S.WINDOWS)
+        if member_size(path / S.WINDOWS) is not None:
+            found = digest_problem(path / S.WINDOWS)
+            out.extend([found] if found else [])
     for m in members:
         p = path / m.name
         if member_size(p) is not None and file_sha256(p) != m.sha256:
             out.append(f"member {m.name}: SHA-256 differs from the manifest (file damaged or replaced)")
-    listed = {m.name for m in members} | {S.MANIFEST}
     out.extend(f"member {p.name}: not listed in the manifest (added after packing)"
                for p in sorted(path.iterdir()) if p.name not in listed)
     return out
@@ -142,7 +149,12 @@ def leaves_bounded(footer: Footer, per_row: dict[str, int], row_bytes: int) -> b
 
 
 def check_binding(footer: Footer, manifest: dict, version: int, found: Findings) -> bool:
-    """True when the manifest is bound to windows.parquet (False: an unbound version-3 archive)."""
+    """True when the manifest is bound to windows.parquet (False: an unbound version-3 archive).  Format 6
+    keeps it inside that file, under the file's digest (checked with the members: :func:`member_problems`)."""
+    if version >= S.INSIDE_FROM_VERSION:
+        if stored_in(footer) is None or len((footer.key_value or {}).get(S.DIGEST_KEY, b"")) != 32:
+            found.add(f"{S.WINDOWS} does not carry the manifest and its digest; the archive is damaged", True)
+        return True
     stored = footer_digest(footer.key_value)
     if stored is None:
         if version >= S.BOUND_FROM_VERSION:

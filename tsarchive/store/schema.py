@@ -1,4 +1,4 @@
-"""The archive's on-disk layout (format ``tsarchive`` version 5).
+"""The archive's on-disk layout (format ``tsarchive`` version 6; the member list is version 5's).
 
 An archive is a directory::
 
@@ -29,7 +29,9 @@ Version 4 binds the manifest to the data (binding.py), keeps the logged time
 axis, notes and text columns, and adds the optional grid fields ``origin``,
 ``verbatim`` and ``missing``.  Version 5 is the lean container: the window
 facts packed into ``key`` and ``facts`` (lean.py), the channels' last windows
-sharing a row group, and the compact manifest (compact.py).  The columns
+sharing a row group, and the compact manifest (compact.py).  Version 6
+keeps that manifest zstd-compressed inside ``windows.parquet``'s footer with
+a digest of the whole file (inside.py): no ``manifest.json``.  The columns
 below (``WINDOWS_SCHEMA``, ``EXCEPTIONS_SCHEMA``) are the logical rows every
 version is read as, and those stored by versions 3 and 4.
 """
@@ -39,13 +41,16 @@ from __future__ import annotations
 import pyarrow as pa
 
 FORMAT_NAME = "tsarchive"
-FORMAT_VERSION = 5
+FORMAT_VERSION = 6
 OLDEST_READABLE = 3                    # the oldest format version this tool still reads
 LEAN_FROM_VERSION = 5                  # from this version on, windows.parquet has the lean columns (lean.py)
 BOUND_FROM_VERSION = 4                 # from this version on, the manifest must be bound to windows.parquet
 BINDING_KEY = b"tsarchive.manifest_sha256"   # windows.parquet footer key: SHA-256 of the manifest (binding.py)
+INSIDE_FROM_VERSION = 6                # from this version on, the manifest is inside windows.parquet (inside.py)
+MANIFEST_KEY = b"tsarchive"            # windows.parquet footer key of format 6: the manifest, zstd (inside.py)
+DIGEST_KEY = b"tsarchive.sha256"       # ... and the file's own SHA-256, taken with these 32 bytes zeroed
 
-MANIFEST = "manifest.json"
+MANIFEST = "manifest.json"             # formats 3 to 5 (format 6 keeps it inside windows.parquet)
 WINDOWS = "windows.parquet"
 MODEL = "model.parquet"
 EXCEPTIONS = "exceptions.parquet"

@@ -4,9 +4,9 @@ Nothing half-written is ever left at the target path: the target is claimed
 for the whole write (``store/claim.py``), on any error (or cancellation) the
 staging folder is removed, and an existing archive is only replaced (with
 ``force``) once the new one is complete, in one atomic exchange where the
-system has one.  The manifest is bound to ``windows.parquet`` both ways
-(``store/binding.py``): its digest goes into that file's footer, and every
-member file's SHA-256 into the manifest.
+system has one.  The manifest goes into ``windows.parquet``'s footer with
+every other member's SHA-256, and that file's own digest into its footer
+(``store/inside.py``): every byte is bound.
 """
 
 from __future__ import annotations
@@ -25,7 +25,7 @@ from ..checksum import file_sha256
 from ..errors import BadInput
 from . import schema as S
 from . import lean
-from .binding import manifest_digest
+from . import inside
 from .compact import compact
 from .claim import check_target, claim_target, is_archive_dir, move_into_place, staging_name  # noqa: F401
 
@@ -139,25 +139,23 @@ class ArchiveWriter:
         return sum(p.stat().st_size for p in self.stage.iterdir())
 
     def finalize(self, manifest: dict) -> Path:
-        """Write the manifest (with member checksums) into the staging folder.
+        """Seal the staged archive: the manifest (compact, with every other member's size and SHA-256) goes
+        into windows.parquet's footer, zstd-compressed, and the file's own digest into its slot (inside.py).
 
         Returns the staging folder, which is a complete archive that can be
         opened and checked before :meth:`commit` moves it into place.
         """
         self._flush_pending()
-        self._windows.add_key_value_metadata({lean.LAYOUT_KEY: lean.LAYOUT})
+        self._close(("_exceptions",))
         manifest = json.loads(json.dumps(compact(manifest)))  # the values exactly as a reader will see them
-        manifest.pop("members", None)
-        self._windows.add_key_value_metadata({S.BINDING_KEY: manifest_digest(manifest).encode("ascii")})
-        self._close()
         members = {}
         for p in sorted(self.stage.iterdir()):               # every member, whoever added it, is listed
-            if p.name != S.MANIFEST:
+            if p.name != S.WINDOWS:
                 members[p.name] = {"bytes": p.stat().st_size, "sha256": file_sha256(p)}
-        manifest = dict(manifest, members=members)
-        with open(self.stage / S.MANIFEST, "w", encoding="utf-8") as fh:
-            json.dump(manifest, fh, separators=(",", ":"))
-            fh.write("\n")
+        manifest = dict(manifest, layout=lean.LAYOUT.decode("ascii"), members=members)
+        self._windows.add_key_value_metadata({S.MANIFEST_KEY: inside.compress(manifest), S.DIGEST_KEY: inside.ZERO})
+        self._close()
+        inside.seal(self.stage / S.WINDOWS)
         for p in self.stage.iterdir():
             with open(p, "rb") as fh:
                 os.fsync(fh.fileno())
