@@ -35,26 +35,34 @@ def copy(arc: Path, folder: Path, name: str) -> Path:
 
 
 def manifest(arc: Path) -> dict:
-    return json.loads((arc / S.MANIFEST).read_text())
+    """The manifest as stored: manifest.json (formats 3 to 5) or inside windows.parquet (format 6)."""
+    from tsarchive.store.binding import read_manifest
+    return read_manifest(arc)
 
 
-def write_manifest(arc: Path, m: dict) -> None:
-    (arc / S.MANIFEST).write_text(json.dumps(m))
+def write_manifest(arc: Path, m: dict, seal: bool = True) -> None:
+    """Store ``m`` as the archive's manifest as it is (members included).  Format 6: windows.parquet is
+    rewritten with it and sealed (its file digest recomputed: only the manifest's own checks stand), or,
+    without ``seal``, keeps the digest of the file as it was (an edit the digest finds)."""
+    if (arc / S.MANIFEST).exists():
+        (arc / S.MANIFEST).write_text(json.dumps(m))
+    else:
+        _rewrite_windows(arc, m, seal=seal)
 
 
-def rebind(arc: Path, m: dict | None = None, rows=None, dictionary: bool = False, nullable: bool = False) -> None:
-    """Write ``m`` (default: the current manifest) as a thorough forger would: the digest recomputed into a
-    rewritten windows.parquet (``rows``: a function changing each row group's table, as stored: the lean
-    columns of format 5, store/lean.py) and every member's size and SHA-256 updated, so only the reader's
-    own checks stand between the archive and the decoder.  ``nullable`` lets every column hold nulls."""
-    m = manifest(arc) if m is None else m
+def _rewrite_windows(arc: Path, m: dict | None, rows=None, dictionary: bool = False, nullable: bool = False,
+                     seal: bool = True, blob: bytes | None = None) -> None:
     f = pq.ParquetFile(arc / S.WINDOWS)
     groups = [f.read_row_group(g) for g in range(f.metadata.num_row_groups)]
     schema = f.schema_arrow.remove_metadata()
+    inside = (f.metadata.metadata or {}).get(S.MANIFEST_KEY) is not None if hasattr(S, "MANIFEST_KEY") else False
+    old_slot = None
+    if inside:
+        from tsarchive.store import inside as I
+        old_slot = I._slot(arc / S.WINDOWS)
     if nullable:
         schema = pa.schema([x.with_nullable(True) for x in schema])
-    lean_rows = "key" in schema.names
-    if lean_rows:
+    if "key" in schema.names:
         from tsarchive.store import lean
         opts = lean.writer_opts(schema)
         if dictionary:
@@ -65,11 +73,40 @@ def rebind(arc: Path, m: dict | None = None, rows=None, dictionary: bool = False
     with pq.ParquetWriter(arc / S.WINDOWS, schema, **opts) as w:
         for g in groups:
             w.write_table((rows(g) if rows else g).cast(schema))
-        try:       # the digest goes where the writer puts it: the footer's key-value metadata
-            from tsarchive.store.binding import manifest_digest
-            w.add_key_value_metadata({S.BINDING_KEY: manifest_digest(m).encode("ascii")})
-        except ImportError:      # a tsarchive from before the binding: nothing to forge there
-            pass
+        if inside:           # format 6: the manifest and the file digest's slot in the footer (store/inside.py)
+            w.add_key_value_metadata({S.MANIFEST_KEY: I.compress(m) if blob is None else blob, S.DIGEST_KEY: I.ZERO})
+        elif m is not None:
+            try:       # the digest goes where the writer puts it: the footer's key-value metadata
+                from tsarchive.store.binding import manifest_digest
+                w.add_key_value_metadata({S.BINDING_KEY: manifest_digest(m).encode("ascii")})
+            except ImportError:      # a tsarchive from before the binding: nothing to forge there
+                pass
+    if inside and seal:
+        I.seal(arc / S.WINDOWS)
+    elif inside:
+        at, _ = I._slot(arc / S.WINDOWS)
+        with open(arc / S.WINDOWS, "r+b") as fh:
+            fh.seek(at)
+            fh.write(old_slot[1])
+
+
+def write_blob(arc: Path, blob: bytes) -> None:
+    """Format 6: ``blob`` stored as the manifest's bytes in windows.parquet's footer, the file sealed."""
+    _rewrite_windows(arc, None, blob=blob)
+
+
+def rebind(arc: Path, m: dict | None = None, rows=None, dictionary: bool = False, nullable: bool = False) -> None:
+    """Write ``m`` (default: the current manifest) as a thorough forger would: the digest recomputed into a
+    rewritten windows.parquet (``rows``: a function changing each row group's table, as stored: the lean
+    columns of format 5, store/lean.py) and every member's size and SHA-256 updated, so only the reader's
+    own checks stand between the archive and the decoder.  ``nullable`` lets every column hold nulls."""
+    m = manifest(arc) if m is None else m
+    if not (arc / S.MANIFEST).exists():         # format 6: the members first, then windows.parquet sealed
+        m["members"] = {p.name: {"bytes": p.stat().st_size, "sha256": hashlib.sha256(p.read_bytes()).hexdigest()}
+                        for p in sorted(arc.iterdir()) if p.name != S.WINDOWS}
+        _rewrite_windows(arc, m, rows, dictionary, nullable)
+        return
+    _rewrite_windows(arc, m, rows, dictionary, nullable)
     m["members"] = {p.name: {"bytes": p.stat().st_size, "sha256": hashlib.sha256(p.read_bytes()).hexdigest()}
                     for p in sorted(arc.iterdir()) if p.name != S.MANIFEST}
     write_manifest(arc, m)
