@@ -59,7 +59,8 @@ def _rewrite_windows(arc: Path, m: dict | None, rows=None, dictionary: bool = Fa
     old_slot = None
     if inside:
         from tsarchive.store import inside as I
-        old_slot = I._slot(arc / S.WINDOWS)
+        tail = I._tail(arc / S.WINDOWS)
+        old_slot = tail[1][I._slot_in(tail[1]):][:32]
     if nullable:
         schema = pa.schema([x.with_nullable(True) for x in schema])
     if "key" in schema.names:
@@ -70,10 +71,13 @@ def _rewrite_windows(arc: Path, m: dict | None, rows=None, dictionary: bool = Fa
     else:
         opts = dict(compression="zstd", write_statistics=["channel", "window"],
                     use_dictionary=True if dictionary else ["channel"], store_schema=False)
-    with pq.ParquetWriter(arc / S.WINDOWS, schema, **opts) as w:
+    sink = pa.OSFile(str(arc / S.WINDOWS), "wb")
+    with pq.ParquetWriter(sink, schema, **opts) as w:
         for g in groups:
             w.write_table((rows(g) if rows else g).cast(schema))
-        if inside:           # format 6: the manifest and the file digest's slot in the footer (store/inside.py)
+        if inside:     # format 6: the manifest (with the rows' digest) and the footer digest's slot (store/inside.py)
+            if blob is None and seal:
+                m["data"] = {"bytes": sink.tell(), "sha256": I.prefix_sha256(arc / S.WINDOWS, sink.tell())}
             w.add_key_value_metadata({S.MANIFEST_KEY: I.compress(m) if blob is None else blob, S.DIGEST_KEY: I.ZERO})
         elif m is not None:
             try:       # the digest goes where the writer puts it: the footer's key-value metadata
@@ -81,13 +85,14 @@ def _rewrite_windows(arc: Path, m: dict | None, rows=None, dictionary: bool = Fa
                 w.add_key_value_metadata({S.BINDING_KEY: manifest_digest(m).encode("ascii")})
             except ImportError:      # a tsarchive from before the binding: nothing to forge there
                 pass
+    sink.close()
     if inside and seal:
         I.seal(arc / S.WINDOWS)
     elif inside:
-        at, _ = I._slot(arc / S.WINDOWS)
+        start, footer = I._tail(arc / S.WINDOWS)
         with open(arc / S.WINDOWS, "r+b") as fh:
-            fh.seek(at)
-            fh.write(old_slot[1])
+            fh.seek(start + I._slot_in(footer))
+            fh.write(old_slot)
 
 
 def write_blob(arc: Path, blob: bytes) -> None:

@@ -156,6 +156,13 @@ def _edited_unsealed(a):      # a valid edit of the manifest, the file digest le
     write_manifest(a, m, seal=False)
 
 
+def _rows_edited(a):          # one byte of the window rows changed, the footer left as it was
+    p = a / S.WINDOWS
+    b = bytearray(p.read_bytes())
+    b[10] ^= 0x01
+    p.write_bytes(bytes(b))
+
+
 def _swapped(a):              # another member's file in the model's place (same name, other bytes)
     (a / S.MODEL).write_bytes((a / S.EXCEPTIONS).read_bytes())
 
@@ -207,8 +214,10 @@ CASES = [
      (2, 2, 2)),
     ("manifest-oversized", _blob(bytes((64 << 20) + 1), dictionary=False),
      r"manifest in windows\.parquet declares 67108865 bytes", (2, 2, 2)),
-    ("manifest-edited", _edited_unsealed, r"windows\.parquet: SHA-256 differs from the digest in its footer",
-     (1, 2, 1)),
+    ("manifest-edited", _edited_unsealed, r"the manifest or footer in windows\.parquet was edited or damaged",
+     (2, 2, 1)),
+    ("rows-edited (re-sealed footer)", lambda a: _rows_edited(a),
+     r"windows\.parquet: SHA-256 differs from the manifest", (1, 2, 1)),
     ("members-swapped", _swapped, r"model\.parquet is \d+ bytes but the manifest says", (2, 2, 1)),
     ("newer-version", _top("format_version", 99), r"written by a newer tsarchive .*upgrade tsarchive", (2, 2, 2)),
     ("version-text", _top("format_version", "3"), r"format_version is str '3'", (2, 2, 2)),

@@ -6,12 +6,15 @@
                       and checksum in the frame header, no dictionary id) compressed with the raw-content
                       dictionary ``manifest6.zdict`` shipped beside this module (its SHA-256 is
                       pinned by ``tests/test_store_inside.py``; it never changes within format 6)
-``tsarchive.sha256``  32 bytes: the SHA-256 of the whole file with these 32 bytes set to zero
+``tsarchive.sha256``  32 bytes: the SHA-256 of the footer (the Thrift ``FileMetaData`` before the
+                      file's last 8 bytes) with these 32 bytes set to zero
 
-The manifest lists every other member file with its size and SHA-256
-(``members``), so every byte of the archive is bound: the file digest covers
-the window rows, the footer and the manifest, and the manifest covers the
-other members.  A reader with pyarrow and zstandard gets the manifest out
+The manifest's ``data`` entry holds the size and SHA-256 of the file's bytes
+before the footer (the window rows), and its ``members`` every other member
+file's, so every byte of the archive is bound: the footer digest covers the
+schema, the row groups and the manifest (checked at opening: the footer is
+read anyway), the manifest covers the window rows and the other members
+(hashed by ``verify``, ``report`` and ``unpack``).  A reader with pyarrow and zstandard gets the manifest out
 with :func:`one_liner`'s text (DEVELOPERS.md, "Archive format").
 """
 
@@ -83,8 +86,8 @@ def read_inside(path: Path) -> dict:
     return decompress(blob)
 
 
-def _slot(path: Path) -> tuple[int, bytes] | None:
-    """(offset in the file, the 32 bytes) of the digest slot, None when the footer has none."""
+def _tail(path: Path) -> tuple[int, bytes] | None:
+    """(where the footer starts, its bytes) of a Parquet file, None when its tail is not a Parquet tail."""
     size = path.stat().st_size
     with open(path, "rb") as fh:
         fh.seek(max(size - 8, 0))
@@ -93,55 +96,62 @@ def _slot(path: Path) -> tuple[int, bytes] | None:
         if tail[4:] != b"PAR1" or not 0 < n <= min(size - 12, 64 << 20):
             return None
         fh.seek(size - 8 - n)
-        footer = fh.read(n)
+        return size - 8 - n, fh.read(n)
+
+
+def _slot_in(footer: bytes) -> int | None:
     at = footer.rfind(S.DIGEST_KEY + _SLOT_TAG)
-    if at < 0:
-        return None
-    at += len(S.DIGEST_KEY) + len(_SLOT_TAG)
-    return size - 8 - n + at, footer[at:at + 32]
+    return None if at < 0 or at + len(S.DIGEST_KEY) + 2 + 32 > len(footer) else at + len(S.DIGEST_KEY) + 2
 
 
-def file_digest(path: Path, skip: int) -> bytes:
-    """SHA-256 of a file with the 32 bytes at ``skip`` read as zeros (opened without following a link)."""
-    h = hashlib.sha256()
-    fd = os.open(path, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0))
-    with os.fdopen(fd, "rb") as fh:
-        pos = 0
-        while chunk := fh.read(1 << 20):
-            lo, hi = max(skip - pos, 0), min(skip + 32 - pos, len(chunk))
-            if lo < hi:
-                chunk = chunk[:lo] + bytes(hi - lo) + chunk[hi:]
-            h.update(chunk)
-            pos += len(chunk)
-    return h.digest()
+def footer_digest(footer: bytes, at: int) -> bytes:
+    """SHA-256 of the footer's bytes with the 32 bytes of its digest slot read as zeros."""
+    return hashlib.sha256(footer[:at] + ZERO + footer[at + 32:]).digest()
 
 
 def seal(path: Path) -> bytes:
-    """Write the file digest into the zeroed slot of a just-closed ``windows.parquet``; returns it."""
-    found = _slot(path)
-    if found is None or found[1] != ZERO:
+    """Write the footer's digest into the zeroed slot of a just-closed ``windows.parquet``; returns it."""
+    start, footer = _tail(path)
+    at = _slot_in(footer)
+    if at is None or footer[at:at + 32] != ZERO:
         raise RuntimeError(f"{path.name} has no empty digest slot")   # the writer's own slip, never the user's
-    digest = file_digest(path, found[0])
+    digest = footer_digest(footer, at)
     with open(path, "r+b") as fh:
-        fh.seek(found[0])
+        fh.seek(start + at)
         fh.write(digest)
     return digest
 
 
-def digest_problem(path: Path) -> str | None:
-    """None when ``windows.parquet`` matches its stored digest, else the one-line finding."""
-    found = _slot(path)
-    if found is None or len(found[1]) != 32:
-        return f"member {S.WINDOWS}: its footer carries no file digest (damaged or edited)"
-    if file_digest(path, found[0]) != found[1]:
-        return (f"member {S.WINDOWS}: SHA-256 differs from the digest in its footer (the window rows, the "
-                "footer or the manifest were damaged or edited)")
+def footer_problem(path: Path, data_bytes: int) -> str | None:
+    """None when ``windows.parquet``'s footer matches its digest and follows the ``data_bytes`` bytes of
+    window rows the manifest declares; else the one-line finding (cheap: the footer alone is read)."""
+    got = _tail(path)
+    at = None if got is None else _slot_in(got[1])
+    if at is None:
+        return f"{S.WINDOWS} has no footer digest; the archive is damaged"
+    if footer_digest(got[1], at) != got[1][at:at + 32]:
+        return (f"the manifest or footer in {S.WINDOWS} was edited or damaged (its digest differs); "
+                "restore the archive from a copy")
+    if got[0] != data_bytes:
+        return (f"{S.WINDOWS} holds {got[0]} bytes of window rows but the manifest says {data_bytes}; "
+                "the archive is damaged")
     return None
 
 
+def prefix_sha256(path: Path, n: int) -> str:
+    """SHA-256 (hex) of a file's first ``n`` bytes, opened without following a link."""
+    h = hashlib.sha256()
+    fd = os.open(path, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0))
+    with os.fdopen(fd, "rb") as fh:
+        while n > 0 and (chunk := fh.read(min(n, 1 << 20))):
+            h.update(chunk)
+            n -= len(chunk)
+    return h.hexdigest()
+
+
 def identity(folder: Path) -> str | None:
-    """The archive's identity as hex: the SHA-256 of ``manifest.json`` (formats 3 to 5) or the file digest
-    stored in ``windows.parquet`` (format 6, which binds the manifest and, through it, every member); None
+    """The archive's identity as hex: the SHA-256 of ``manifest.json`` (formats 3 to 5) or the footer digest
+    stored in ``windows.parquet`` (format 6, which binds the manifest and, through it, every byte); None
     when the folder holds neither."""
     folder = Path(folder)
     try:
@@ -149,10 +159,11 @@ def identity(folder: Path) -> str | None:
     except OSError:
         pass
     try:
-        found = _slot(folder / S.WINDOWS)
+        got = _tail(folder / S.WINDOWS)
     except OSError:
         return None
-    return None if found is None else found[1].hex()
+    at = None if got is None else _slot_in(got[1])
+    return None if at is None else got[1][at:at + 32].hex()
 
 
 def is_archive(folder: Path) -> bool:

@@ -29,7 +29,7 @@ from . import lean
 from . import schema as S
 from .binding import file_sha256, footer_digest, manifest_digest, member_size
 from .footer import BYTE_ARRAY, DICTIONARY_ENCODINGS, Footer, read_footer
-from .inside import digest_problem, stored_in
+from .inside import footer_problem, prefix_sha256, stored_in
 from .parse import ChannelMeta, Member, ModelSpec
 
 
@@ -56,7 +56,7 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
     wf = open_parquet(path, S.WINDOWS, found) if found.decodable else None
     bound, groups, decoder = False, {}, None
     if wf is not None:
-        bound = check_binding(wf[1], manifest, version, found)
+        bound = check_binding(path, wf[1], manifest, version, found)
         read_groups = row_groups if version < S.LEAN_FROM_VERSION else lean_groups
         groups = read_groups(*wf, channels, window, found)
     if found.decodable and S.EXCEPTIONS in {x.name for x in members}:
@@ -71,18 +71,14 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
 
 
 def member_problems(path: Path, members: tuple[Member, ...]) -> list[str]:
-    """Every listed member hashed against the manifest's SHA-256 (a full read), format 6's windows.parquet
-    against the digest in its own footer (inside.py), and files the manifest does not list."""
+    """Every listed member hashed against the manifest's SHA-256 (a full read; format 6's windows.parquet up
+    to its footer, which its own digest covers: inside.py), and files the manifest does not list."""
     out = []
     listed = {m.name for m in members} | {S.MANIFEST}
-    if S.WINDOWS not in listed:          # format 6: windows.parquet holds the manifest and its own digest
-        listed.add(S.WINDOWS)
-        if member_size(path / S.WINDOWS) is not None:
-            found = digest_problem(path / S.WINDOWS)
-            out.extend([found] if found else [])
     for m in members:
         p = path / m.name
-        if member_size(p) is not None and file_sha256(p) != m.sha256:
+        size = member_size(p)
+        if size is not None and (prefix_sha256(p, m.bytes) if m.prefix else file_sha256(p)) != m.sha256:
             out.append(f"member {m.name}: SHA-256 differs from the manifest (file damaged or replaced)")
     out.extend(f"member {p.name}: not listed in the manifest (added after packing)"
                for p in sorted(path.iterdir()) if p.name not in listed)
@@ -109,7 +105,10 @@ def check_sizes(path: Path, members: tuple[Member, ...], found: Findings) -> Non
         size = member_size(path / m.name)
         if size is None:
             found.add(f"archive member {m.name} is missing; the archive is incomplete", fatal=True)
-        elif size != m.bytes:
+        elif m.prefix and size < m.bytes + 12:
+            found.add(f"archive member {m.name} is {size} bytes, shorter than the {m.bytes} bytes of window rows "
+                      "the manifest declares: it was truncated; restore the archive from a copy")
+        elif size != m.bytes and not m.prefix:
             found.add(f"archive member {m.name} is {size} bytes but the manifest says {m.bytes}: it was truncated "
                       "or replaced; restore the archive from a copy")
 
@@ -148,12 +147,17 @@ def leaves_bounded(footer: Footer, per_row: dict[str, int], row_bytes: int) -> b
     return True
 
 
-def check_binding(footer: Footer, manifest: dict, version: int, found: Findings) -> bool:
+def check_binding(path: Path, footer: Footer, manifest: dict, version: int, found: Findings) -> bool:
     """True when the manifest is bound to windows.parquet (False: an unbound version-3 archive).  Format 6
     keeps it inside that file, under the file's digest (checked with the members: :func:`member_problems`)."""
     if version >= S.INSIDE_FROM_VERSION:
         if stored_in(footer) is None or len((footer.key_value or {}).get(S.DIGEST_KEY, b"")) != 32:
             found.add(f"{S.WINDOWS} does not carry the manifest and its digest; the archive is damaged", True)
+        else:
+            data = manifest.get("data", {})
+            problem = footer_problem(path / S.WINDOWS, data.get("bytes") if isinstance(data, dict) else None)
+            if problem:
+                found.add(problem)
         return True
     stored = footer_digest(footer.key_value)
     if stored is None:

@@ -83,6 +83,7 @@ class Member:
     name: str
     bytes: int
     sha256: str
+    prefix: bool = False     # bytes and SHA-256 of the file's first bytes only (format 6's windows.parquet rows)
 
 
 @dataclass(frozen=True)
@@ -175,6 +176,12 @@ def members(m: dict, version: int = S.FORMAT_VERSION) -> tuple[Member, ...]:
     for need in S.REQUIRED_MEMBERS:
         if (need in names) == inside:
             raise corrupt(f"members {'lists' if inside else 'does not list'} {need}")
+    if inside:
+        d = obj(m, "data")
+        sha = text(d, "sha256", "data.", limit=64)
+        if not _HEX64.fullmatch(sha):
+            raise corrupt("data.sha256 is not 64 lowercase hex digits")
+        out.append(Member(S.WINDOWS, integer(d, "bytes", 4, S.MAX_MEMBER_BYTES, "data."), sha, prefix=True))
     if (S.MODEL in names) != (m.get("model") is not None):
         raise corrupt(f"model and members disagree on whether {S.MODEL} exists")
     return tuple(out)

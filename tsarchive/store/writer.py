@@ -51,6 +51,7 @@ class ArchiveWriter:
             self._claim.close()
             raise
         self._windows: pq.ParquetWriter | None = None
+        self._sink: pa.OSFile | None = None
         self._exceptions: pq.ParquetWriter | None = None
         self._committed = False
 
@@ -72,6 +73,9 @@ class ArchiveWriter:
             if w is not None:
                 w.close()
                 setattr(self, name, None)
+        if "_windows" in names and getattr(self, "_sink", None) is not None:
+            self._sink.close()
+            self._sink = None
 
     def add_windows(self, rows: pa.Table) -> None:
         """Append logical window rows (``schema.WINDOWS_SCHEMA``) of one channel, in window order.
@@ -90,8 +94,9 @@ class ArchiveWriter:
         self._pending[channel] = [held.slice(full)] if full < held.num_rows else []
 
     def _write(self, rows: pa.Table) -> None:
-        if self._windows is None:
-            self._windows = pq.ParquetWriter(self.stage / S.WINDOWS, self.schema, **lean.writer_opts(self.schema))
+        if self._windows is None:    # an unbuffered sink: every row group is in the file once written (finalize)
+            self._sink = pa.OSFile(str(self.stage / S.WINDOWS), "wb")
+            self._windows = pq.ParquetWriter(self._sink, self.schema, **lean.writer_opts(self.schema))
         self._windows.write_table(rows, row_group_size=S.ROW_GROUP_WINDOWS)
 
     def add_exceptions(self, rows: pa.Table) -> None:
@@ -152,7 +157,9 @@ class ArchiveWriter:
         for p in sorted(self.stage.iterdir()):               # every member, whoever added it, is listed
             if p.name != S.WINDOWS:
                 members[p.name] = {"bytes": p.stat().st_size, "sha256": file_sha256(p)}
-        manifest = dict(manifest, layout=lean.LAYOUT.decode("ascii"), members=members)
+        data = self._sink.tell()                              # the window rows, before the footer
+        manifest = dict(manifest, layout=lean.LAYOUT.decode("ascii"), members=members,
+                        data={"bytes": data, "sha256": inside.prefix_sha256(self.stage / S.WINDOWS, data)})
         self._windows.add_key_value_metadata({S.MANIFEST_KEY: inside.compress(manifest), S.DIGEST_KEY: inside.ZERO})
         self._close()
         inside.seal(self.stage / S.WINDOWS)
