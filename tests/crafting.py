@@ -136,3 +136,12 @@ def snapshot(folder: Path) -> dict:
 def replace_column(table: pa.Table, name: str, values) -> pa.Table:
     i = table.schema.get_field_index(name)
     return table.set_column(i, table.schema.field(i), pa.array(values, type=table.schema.field(i).type))
+
+
+def archive_identity(arc: Path) -> str:
+    """The archive's identity as a lab system files it, read without tsarchive: the SHA-256 of manifest.json
+    (formats 3 to 5; hashlib, FIPS 180-4) or the footer digest format 6 stores in windows.parquet's footer
+    (read by pyarrow)."""
+    if (arc / S.MANIFEST).exists():
+        return hashlib.sha256((arc / S.MANIFEST).read_bytes()).hexdigest()
+    return pq.read_metadata(arc / S.WINDOWS).metadata[b"tsarchive.sha256"].hex()

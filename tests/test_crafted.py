@@ -8,7 +8,6 @@ so the reader's own checks and caps are what stops them.  Exit codes 0/1/2 are t
 
 from __future__ import annotations
 
-import hashlib
 import re
 import os
 import shutil

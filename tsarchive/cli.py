@@ -318,8 +318,8 @@ def _verify(args) -> int:
 
 def _report(args) -> int:
     from .batch.catalog import has_catalog
-    if Path(args.archive).is_dir() and not (Path(args.archive) / "manifest.json").exists() \
-            and has_catalog(args.archive):
+    from .store.inside import is_archive
+    if Path(args.archive).is_dir() and not is_archive(Path(args.archive)) and has_catalog(args.archive):
         from .batch.console import catalog_report
         text, ok = catalog_report(args.archive, args.json)
         print(text)
