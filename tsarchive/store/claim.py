@@ -138,7 +138,7 @@ def _tidy(path: Path) -> None:
     """Restore an archive left aside by a killed replacement, then remove the leftovers of killed runs."""
     name = glob.escape(path.name)
     asides = sorted(path.parent.glob(f".{name}.replaced-*"), key=lambda p: p.stat(follow_symlinks=False).st_mtime)
-    if asides and not os.path.lexists(path) and (asides[-1] / "manifest.json").is_file():
+    if asides and not os.path.lexists(path) and is_archive(asides[-1]):
         os.rename(asides.pop(), path)
     for p in [*asides, *path.parent.glob(f".{name}.staging-*")]:
         if p.is_dir() and not p.is_symlink():
