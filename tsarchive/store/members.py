@@ -25,7 +25,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from ..errors import ArchiveCorrupt
-from . import lean
+from . import lean, lean6
 from . import schema as S
 from .binding import file_sha256, footer_digest, manifest_digest, member_size
 from .footer import BYTE_ARRAY, DICTIONARY_ENCODINGS, Footer, read_footer
@@ -43,6 +43,7 @@ class Opened:
     bound: bool
     damage: tuple[str, ...]
     decodable: bool
+    runs: tuple = ()           # format 6: per row group, its (channel, first window, end window) runs (lean6.py)
 
 
 def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...], window: int,
@@ -54,11 +55,13 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
     found = Findings(strict)
     check_sizes(path, members, found)
     wf = open_parquet(path, S.WINDOWS, found) if found.decodable else None
-    bound, groups, decoder = False, {}, None
+    bound, groups, decoder, runs = False, {}, None, ()
     if wf is not None:
         bound = check_binding(path, wf[1], manifest, version, found)
-        read_groups = row_groups if version < S.LEAN_FROM_VERSION else lean_groups
-        groups = read_groups(*wf, channels, window, found)
+        if version >= S.INSIDE_FROM_VERSION:
+            groups, runs = lean6_groups(*wf, channels, window, found, manifest.get("groups"))
+        else:
+            groups = (row_groups if version < S.LEAN_FROM_VERSION else lean_groups)(*wf, channels, window, found)
     if found.decodable and S.EXCEPTIONS in {x.name for x in members}:
         ef = open_parquet(path, S.EXCEPTIONS, found)
         if ef is not None:
@@ -67,7 +70,7 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
     if found.decodable and model is not None:
         mf = open_parquet(path, S.MODEL, found)
         decoder = None if mf is None else load_model(*mf, model, found, make_decoder)
-    return Opened(wf and wf[0], groups, decoder, bound, tuple(found.problems), found.decodable)
+    return Opened(wf and wf[0], groups, decoder, bound, tuple(found.problems), found.decodable, runs)
 
 
 def member_problems(path: Path, members: tuple[Member, ...]) -> list[str]:
@@ -265,6 +268,36 @@ def lean_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, 
         found.add(f"the manifest declares {total} windows but {S.WINDOWS} holds {footer.num_rows}; "
                   "the archive is damaged", True)
     return out
+
+
+def lean6_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, ...], window: int,
+                 found: Findings, starts) -> tuple[dict[str, list[tuple[int, int, int]]], tuple]:
+    """Format 6 (store/lean6.py): channel -> [(row group, first window, last window)] and each group's runs,
+    from the manifest's ``groups``, after checking the columns, the declared sizes and that the groups tile
+    every channel's windows exactly once."""
+    schema, limit = _windows_columns(f, footer, lean6.lean6_schema, window, found)
+    if schema is None:
+        return {}, ()
+    for g, rg in enumerate(footer.groups):
+        if rg.total_byte_size > rg.num_rows * limit:
+            found.add(f"{S.WINDOWS} row group {g} declares {rg.total_byte_size} bytes for {rg.num_rows} windows "
+                      f"of {window} samples; the archive is damaged or crafted", True)
+            return {}, ()
+    total = sum(c.n_windows for c in channels)
+    if footer.num_rows != total:
+        found.add(f"the manifest declares {total} windows but {S.WINDOWS} holds {footer.num_rows}; "
+                  "the archive is damaged", True)
+        return {}, ()
+    try:
+        runs = lean6.runs(starts, [rg.num_rows for rg in footer.groups], [c.n_windows for c in channels])
+    except ValueError as exc:
+        found.add(f"{exc}; the archive is damaged", True)
+        return {}, ()
+    out: dict[str, list[tuple[int, int, int]]] = {}
+    for g, mine in enumerate(runs):
+        for c, a, b in mine:
+            out.setdefault(channels[c].name, []).append((g, a, b - 1))
+    return out, tuple(tuple(m) for m in runs)
 
 
 def check_exceptions(f: pq.ParquetFile, footer: Footer, window: int, total_windows: int, found: Findings,

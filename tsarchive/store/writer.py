@@ -24,7 +24,7 @@ import pyarrow.parquet as pq
 from ..checksum import file_sha256
 from ..errors import BadInput
 from . import schema as S
-from . import lean
+from . import lean, lean6
 from . import inside
 from .compact import compact
 from .claim import check_target, claim_target, is_archive_dir, move_into_place, staging_name  # noqa: F401
@@ -44,7 +44,7 @@ class ArchiveWriter:
         try:
             self.force = force
             self.with_code = with_code
-            self.schema = lean.lean_schema(with_code)
+            self.schema = lean6.lean6_schema(with_code)
             self.stage = staging_name(self.path)
             self.stage.mkdir()
         except BaseException:
@@ -52,6 +52,7 @@ class ArchiveWriter:
             raise
         self._windows: pq.ParquetWriter | None = None
         self._sink: pa.OSFile | None = None
+        self._groups: list[list[int]] = []      # [channel, first window] of each row group (lean6.py)
         self._exceptions: pq.ParquetWriter | None = None
         self._committed = False
 
@@ -86,18 +87,26 @@ class ArchiveWriter:
             return
         channel = self._index[rows["channel"][0].as_py()]
         pending = self._pending.setdefault(channel, [])
-        pending.append(lean.pack(rows, channel, self.with_code))
+        key = (np.int64(channel) << lean.CHANNEL_SHIFT) | rows["window"].to_numpy().astype(np.int64)
+        pending.append(lean6.pack(rows, self.with_code).append_column("key", pa.array(key)))
         held = pa.concat_tables(pending)
         full = held.num_rows - held.num_rows % S.ROW_GROUP_WINDOWS
         if full:
             self._write(held.slice(0, full))
         self._pending[channel] = [held.slice(full)] if full < held.num_rows else []
 
-    def _write(self, rows: pa.Table) -> None:
+    def _open_windows(self) -> None:
         if self._windows is None:    # an unbuffered sink: every row group is in the file once written (finalize)
             self._sink = pa.OSFile(str(self.stage / S.WINDOWS), "wb")
-            self._windows = pq.ParquetWriter(self._sink, self.schema, **lean.writer_opts(self.schema))
-        self._windows.write_table(rows, row_group_size=S.ROW_GROUP_WINDOWS)
+            self._windows = pq.ParquetWriter(self._sink, self.schema, **lean6.writer_opts(self.schema))
+
+    def _write(self, rows: pa.Table) -> None:
+        """Rows (with their ``key``, which the file does not keep) in row groups of ``ROW_GROUP_WINDOWS``;
+        each group's first window goes to the manifest's ``groups`` (lean6.py)."""
+        self._open_windows()
+        if rows.num_rows:
+            self._groups += lean6.group_starts(rows["key"].to_numpy())
+        self._windows.write_table(rows.drop_columns(["key"]), row_group_size=S.ROW_GROUP_WINDOWS)
 
     def add_exceptions(self, rows: pa.Table) -> None:
         """Append one channel's windows with verbatim samples (the member exists only if this is called)."""
@@ -133,8 +142,9 @@ class ArchiveWriter:
         """Every channel's remaining rows, together in channel order (rows arrive no more after this)."""
         rest = [t for c in sorted(self._pending) for t in self._pending[c]]
         self._pending = {}
-        if rest or self._windows is None:
-            self._write(pa.concat_tables(rest) if rest else self.schema.empty_table())
+        if rest:
+            self._write(pa.concat_tables(rest))
+        self._open_windows()
 
     def staged_bytes(self) -> int:
         """Bytes staged so far, every window row included (windows.parquet stays open for its footer: its
@@ -158,7 +168,7 @@ class ArchiveWriter:
             if p.name != S.WINDOWS:
                 members[p.name] = {"bytes": p.stat().st_size, "sha256": file_sha256(p)}
         data = self._sink.tell()                              # the window rows, before the footer
-        manifest = dict(manifest, layout=lean.LAYOUT.decode("ascii"), members=members,
+        manifest = dict(manifest, layout=lean6.LAYOUT, groups=self._groups, members=members,
                         data={"bytes": data, "sha256": inside.prefix_sha256(self.stage / S.WINDOWS, data)})
         self._windows.add_key_value_metadata({S.MANIFEST_KEY: inside.compress(manifest), S.DIGEST_KEY: inside.ZERO})
         self._close()
