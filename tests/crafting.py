@@ -118,8 +118,11 @@ def rebind(arc: Path, m: dict | None = None, rows=None, dictionary: bool = False
 
 
 def first_window(g: pa.Table) -> int:
-    """The window number of a stored row group's first row (format 5: the low half of its key)."""
-    return g["key"][0].as_py() & 0xFFFFFFFF if "key" in g.column_names else g["window"][0].as_py()
+    """The window number of a stored row group's first row (format 5: the low half of its key; format 6 keeps
+    it in the manifest's ``groups``: 0 for every group here)."""
+    if "key" in g.column_names:
+        return g["key"][0].as_py() & 0xFFFFFFFF
+    return 0 if "facts" in g.column_names else g["window"][0].as_py()   # format 6: the manifest's groups say
 
 
 def snapshot(folder: Path) -> dict:

@@ -72,6 +72,14 @@ def _top(key, value):
     return _edit(lambda m: m.__setitem__(key, value))
 
 
+def _top_rebound(key, value):
+    def run(a):
+        m = manifest(a)
+        m[key] = value
+        rebind(a, m)
+    return run
+
+
 def _write(name, data: bytes):
     return lambda a: (a / name).write_bytes(data)
 
@@ -166,8 +174,17 @@ def _swapped(a):              # another member's file in the model's place (same
     (a / S.MODEL).write_bytes((a / S.EXCEPTIONS).read_bytes())
 
 
-def _key_beyond_channels(a):     # format 5 keys name the channel by position: a third channel the manifest lacks
-    rebind(a, rows=lambda g: replace_column(g, "key", [k + (2 << 32) for k in g["key"].to_pylist()]))
+def _groups_beyond_channels(a):   # format 6's groups name the channel by position: a third channel the manifest lacks
+    m = manifest(a)
+    m["groups"] = [[c + 2, w] for c, w in m["groups"]]
+    rebind(a, m)
+
+
+def _groups_shifted(a):           # the (one) row group said to start a window late: its rows run past the end
+    m = manifest(a)
+    assert m["groups"] == [[0, 0]]
+    m["groups"] = [[0, 1]]
+    rebind(a, m)
 
 
 def _eps_twice_in_one_place(m):     # format 5 stores eps in the grid only: a second copy must agree
@@ -257,8 +274,10 @@ CASES = [
      r"manifest declares 15625000047 windows but windows\.parquet holds 94", (2, 2, 1)),
     ("defaults-list", _top("channel_defaults", []), r"is incomplete|is missing", (2, 2, 2)),
     ("footer-cut", _footer_cut, r"windows\.parquet cannot be read", (2, 2, 2)),
-    ("key-beyond-channels (re-bound)", _key_beyond_channels, r"row group 0 lacks or contradicts its key statistics",
-     (2, 2, 1)),
+    ("groups-beyond-channels (re-bound)", _groups_beyond_channels,
+     r"manifest's entry for row group 0 does not name a window", (2, 2, 1)),
+    ("groups-shifted (re-bound)", _groups_shifted, r"row group 0 runs past the last channel's windows", (2, 2, 1)),
+    ("groups-missing (re-bound)", _top_rebound("groups", None), r"manifest lists no row groups", (2, 2, 1)),
     ("null-facts (re-bound)", _null_facts, r"windows\.parquet does not have the columns of this format version",
      (2, 2, 1)),
     ("code-length (re-bound)", lambda a: rebind(a, rows=lambda g: replace_column(g, "code", [[0]] * g.num_rows)),
