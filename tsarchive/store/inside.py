@@ -175,7 +175,7 @@ def is_archive(folder: Path) -> bool:
 
 def one_liner(archive: str = "run.tsarchive") -> str:
     """The manifest out of a format-6 archive with nothing but pyarrow and zstandard (and this dictionary)."""
-    return ("import json, pyarrow.parquet as pq, zstandard as z; "
+    return ("import pyarrow.parquet as pq, zstandard as z; "
             f"blob = pq.read_metadata('{archive}/windows.parquet').metadata[b'tsarchive']; "
             "d = z.ZstdCompressionDict(open('manifest6.zdict', 'rb').read(), dict_type=z.DICT_TYPE_RAWCONTENT); "
-            "print(json.loads(z.ZstdDecompressor(dict_data=d).decompress(blob)))")
+            "print(z.ZstdDecompressor(dict_data=d).decompress(blob).decode())")
