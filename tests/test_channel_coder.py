@@ -7,6 +7,7 @@ promise; common practice (no source)); sizes are the members' bytes on disk.
 
 from __future__ import annotations
 
+from tsarchive.store.binding import read_manifest
 import json
 from pathlib import Path
 from unittest import mock
@@ -73,7 +74,7 @@ def test_the_choice_is_never_bigger_than_the_range_coder(tmp_path):
     assert coder_ids(ranged) == [None, None]
     size = {k: sum(len(b) for b in _members(a).values()) for k, a in (("chosen", chosen), ("ranged", ranged))}
     assert size["chosen"] < size["ranged"]
-    m = json.loads((chosen / "manifest.json").read_text())
+    m = read_manifest(chosen)
     assert m["channels"][1]["tables"] == []                 # an adaptive channel stores no tables
 
 

@@ -82,6 +82,14 @@ def _payload(path: Path) -> int:
     return int(pc.sum(pc.binary_length(col)).as_py() or 0)
 
 
+def _key_value_bytes(key: bytes, value: bytes) -> int:
+    """Bytes of one KeyValue in a Thrift compact-protocol footer: two field headers, each string's varint
+    length and bytes, and the struct's stop byte (Apache Thrift, "Thrift Compact protocol encoding")."""
+    def varint(n: int) -> int:
+        return max(1, -(-n.bit_length() // 7))
+    return 3 + varint(len(key)) + len(key) + varint(len(value)) + len(value)
+
+
 def breakdown(archive: Path) -> ArchiveBytes:
     """The bytes of the archive folder ``archive`` by part (see the module docstring)."""
     import pyarrow.parquet as pq
@@ -100,7 +108,7 @@ def breakdown(archive: Path) -> ArchiveBytes:
         meta = pq.ParquetFile(p).metadata
         footer = meta.serialized_size + 4 + 2 * len(_PARQUET_MAGIC)
         inside = (meta.metadata or {}).get(b"tsarchive")     # format 6: the manifest in the footer's metadata
-        held = 0 if inside is None else len(inside) + len(b"tsarchive") + 4   # + Thrift headers and lengths
+        held = 0 if inside is None else _key_value_bytes(b"tsarchive", inside)
         manifest += held
         footers += footer - held
         other_cols += size - footer          # less the column chunks below: page indexes, if any
