@@ -96,3 +96,13 @@ def test_row_group_runs_tile_every_channel_once():
                               (None, [256], "lists no row groups")):
         with pytest.raises(ValueError, match=why):
             lean6.runs(groups, rows, n)
+
+
+def test_report_prints_the_manifest_as_stored(arc, capsys):
+    from tsarchive.cli import main
+    assert main(["report", str(arc), "--manifest"]) == 0
+    shown = json.loads(capsys.readouterr().out)
+    code = inside.one_liner(str(arc))                 # the same manifest as pyarrow + zstandard read it
+    r = subprocess.run([sys.executable, "-c", code], cwd=inside.DICT_FILE.parent, capture_output=True, text=True,
+                       timeout=120)
+    assert shown == json.loads(r.stdout) and shown["format_version"] == 6 and "groups" in shown
