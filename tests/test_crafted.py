@@ -41,7 +41,7 @@ def base(tmp_path_factory):
                       segment=16)      # segment given: a recording this short gets no index within its byte budget
     coders = [c.get("coder", {}).get("id") for c in manifest(out)["channels"]]
     assert coders == [None, "adaptive"]      # both ways of coding residuals are crafted below
-    assert {p.name for p in out.iterdir()} == {S.WINDOWS, S.EXCEPTIONS, S.MODEL, "index.parquet"}   # format 6
+    assert {p.name for p in out.iterdir()} == {S.WINDOWS, S.EXCEPTIONS, S.MODEL, "index.zst"}   # format 6
     return out
 
 

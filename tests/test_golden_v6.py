@@ -46,7 +46,7 @@ def test_golden_layout_and_manifest_are_version_6():
     assert not (ARC / "manifest.json").exists()
     manifest = _stored(ARC)
     assert manifest["format"] == "tsarchive" and manifest["format_version"] == 6 == S.FORMAT_VERSION
-    assert set(manifest["members"]) == {"index.parquet", "exceptions.parquet", "model.parquet", "time.parquet",
+    assert set(manifest["members"]) == {"index.zst", "exceptions.parquet", "model.parquet", "time.parquet",
                                         "extra.parquet"}
     # every byte bound: the rows before the footer and each member by SHA-256 (hashlib, FIPS 180-4), the
     # footer by the digest in its slot (Thrift compact: KeyValue field 2, binary, length 32)
@@ -103,5 +103,5 @@ def test_coders_golden_decodes_bit_for_bit_with_both_residual_coders_and_its_ind
         assert got.dtype == expected[c.name].dtype
         assert np.array_equal(got.view(np.uint8), expected[c.name].view(np.uint8))
     assert tsarchive.verify(arc_path).ok                                  # every byte's digest
-    assert "index.parquet" in arc.manifest["members"]
+    assert "index.zst" in arc.manifest["members"]
     assert len(look.unusual(arc, arc.channels[1].name, k=3).rows) == 3

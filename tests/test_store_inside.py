@@ -106,3 +106,21 @@ def test_report_prints_the_manifest_as_stored(arc, capsys):
     r = subprocess.run([sys.executable, "-c", code], cwd=inside.DICT_FILE.parent, capture_output=True, text=True,
                        timeout=120)
     assert shown == json.loads(r.stdout) and shown["format_version"] == 6 and "groups" in shown
+
+
+def test_an_index_member_that_declares_too_much_or_runs_short_is_refused(tmp_path, monkeypatch):
+    # index.zst (format 6): one zstd frame of <4-byte LE length> <JSON> <blobs>; its declared size is capped
+    # before decompressing, and a row whose blobs run past the end is refused (zstandard writes the frames)
+    import zstandard
+    from tsarchive.index import member
+
+    class Arc:
+        path = tmp_path
+    meta = json.dumps({"version": 2, "channels": [], "rows": [["ch", "level", 0, 3, 5, 9]]}).encode()
+    raw = len(meta).to_bytes(4, "little") + meta + b"x" * 10          # 14 bytes of blobs promised, 10 there
+    (tmp_path / member.NAME).write_bytes(zstandard.ZstdCompressor(write_content_size=True).compress(raw))
+    with pytest.raises(ArchiveCorrupt, match="index.zst cannot be read .a row runs past the member"):
+        member.read(Arc, "ch")
+    monkeypatch.setattr(member, "MAX_BYTES", len(raw) - 1)
+    with pytest.raises(ArchiveCorrupt, match=f"index.zst cannot be read .declares {len(raw)} bytes"):
+        member.read(Arc, "ch")

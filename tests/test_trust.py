@@ -291,7 +291,7 @@ def test_byte_flips_in_any_member_are_caught_or_harmless(tmp_path):
     arc = tmp_path / "f.tsa"
     tsarchive.pack(tmp_path / "s.npy", arc, "0.5%", rate=200.0, window=64, code_size=2, train_seconds=1,
                    segment=16)  # segment given: a recording this short gets no index within its byte budget
-    assert {p.name for p in arc.iterdir()} == {S.WINDOWS, S.EXCEPTIONS, S.MODEL, "index.parquet"}   # format 6
+    assert {p.name for p in arc.iterdir()} == {S.WINDOWS, S.EXCEPTIONS, S.MODEL, "index.zst"}   # format 6
     original = {k: v.copy() for k, v in tsarchive.open(arc).read_many(workers=1).items()}
     for name in [p.name for p in arc.iterdir() if p.name != S.MANIFEST]:
         p = arc / name

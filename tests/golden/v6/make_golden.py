@@ -52,7 +52,7 @@ def main() -> None:
         "every predictor (else try another seed)": {m for c in arc.channels for m, k in c.modes if k} == {
             "prev", "prev2", "ae", "ae+prev", "lpc"},
         "every optional member": {"time.parquet", "extra.parquet", "exceptions.parquet", "model.parquet",
-                                  "index.parquet"} <= set(arc.manifest["members"]),
+                                  "index.zst"} <= set(arc.manifest["members"]),
         "no manifest.json": not (out / "manifest.json").exists(),
         "a row group of one channel": 256 in rows,
         "a row group shared by channels": any(n == 32 for n in rows),
