@@ -88,20 +88,4 @@ def test_golden_text_column_and_gap_come_back():
 
 
 def test_coders_golden_decodes_bit_for_bit_with_both_residual_coders_and_its_index():
-    # tests/golden/v6/coders6: channel 0 range coded under its tables, channel 1 adaptive coded (the packer's
-    # own choice, tests/coder_kit.py); the expected samples were decoded when it was made and are compared
-    # bit for bit (numpy array_equal on the raw bits).
-    from coder_kit import coder_ids
-    from tsarchive.index import look
-
-    arc_path = HERE / "coders6"
-    assert coder_ids(arc_path) == [None, "adaptive"]
-    expected = np.load(HERE / "expected_coders.npz")
-    arc = tsarchive.open(arc_path)
-    for c in arc.channels:
-        got = np.asarray(arc.read(c.name))
-        assert got.dtype == expected[c.name].dtype
-        assert np.array_equal(got.view(np.uint8), expected[c.name].view(np.uint8))
-    assert tsarchive.verify(arc_path).ok                                  # every byte's digest
-    assert "index.zst" in arc.manifest["members"]
-    assert len(look.unusual(arc, arc.channels[1].name, k=3).rows) == 3
+    golden_checks.coders_bit_for_bit(HERE, HERE / "coders6", "index.zst")

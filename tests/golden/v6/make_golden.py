@@ -62,11 +62,16 @@ def main() -> None:
     }
     missing = [what for what, ok in frozen.items() if not ok]
     assert not missing, f"the golden archive does not freeze: {missing}"
-    x = {c.name: arc.read(c.name) for c in arc.channels}
-    np.savez(HERE / "expected.npz", **{n: np.ma.getdata(v) for n, v in x.items()},
-             **{f"{n}.mask": np.ma.getmaskarray(v) for n, v in x.items()}, times=arc.times().values)
-    print(f"wrote {out} ({arc.archive_bytes} bytes) and expected.npz")
+    _expect(arc, "expected.npz", times=arc.times().values)
     coders()
+
+
+def _expect(arc, name: str, **more) -> None:
+    """The archive's decoded samples (data and masks) saved beside it for the bit-for-bit test."""
+    x = {c.name: arc.read(c.name) for c in arc.channels}
+    np.savez_compressed(HERE / name, **{n: np.ma.getdata(v) for n, v in x.items()},
+                        **{f"{n}.mask": np.ma.getmaskarray(v) for n, v in x.items()}, **more)
+    print(f"wrote {arc.path} ({arc.archive_bytes} bytes) and {name}")
 
 
 def coders() -> None:
@@ -80,11 +85,8 @@ def coders() -> None:
     shutil.rmtree(out, ignore_errors=True)
     pack_with_coders(out, 20_000, segment=256)
     out.with_suffix(".npy").unlink()
-    ids = coder_ids(out)
-    assert None in ids and "adaptive" in ids, f"the coders archive does not freeze both coders: {ids}"
-    arc = tsarchive.open(out)
-    np.savez_compressed(HERE / "expected_coders.npz", **{c.name: arc.read(c.name) for c in arc.channels})
-    print(f"wrote {out} ({arc.archive_bytes} bytes, coders {ids}) and expected_coders.npz")
+    assert set(coder_ids(out)) == {None, "adaptive"}, "the coders archive does not freeze both coders"
+    _expect(tsarchive.open(out), "expected_coders.npz")
 
 
 if __name__ == "__main__":
