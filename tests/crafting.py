@@ -63,9 +63,9 @@ def _rewrite_windows(arc: Path, m: dict | None, rows=None, dictionary: bool = Fa
         old_slot = tail[1][I._slot_in(tail[1]):][:32]
     if nullable:
         schema = pa.schema([x.with_nullable(True) for x in schema])
-    if "key" in schema.names:
-        from tsarchive.store import lean
-        opts = lean.writer_opts(schema)
+    if "facts" in schema.names:           # format 6's columns (format 5's are no longer written)
+        from tsarchive.store import lean6
+        opts = lean6.writer_opts(schema)
         if dictionary:
             opts = dict(opts, use_dictionary=True, column_encoding=None)
     else:
