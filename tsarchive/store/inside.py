@@ -1,4 +1,4 @@
-"""Format 6: the manifest inside ``windows.parquet``'s footer, and the digest that binds the whole file.
+"""Format 6: the manifest inside ``windows.parquet``'s footer, and the digests that bind every byte.
 
 ``windows.parquet``'s footer key-value metadata holds two entries:
 

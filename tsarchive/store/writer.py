@@ -5,8 +5,8 @@ for the whole write (``store/claim.py``), on any error (or cancellation) the
 staging folder is removed, and an existing archive is only replaced (with
 ``force``) once the new one is complete, in one atomic exchange where the
 system has one.  The manifest goes into ``windows.parquet``'s footer with
-every other member's SHA-256, and that file's own digest into its footer
-(``store/inside.py``): every byte is bound.
+every other member's SHA-256 and the window rows' SHA-256, and the footer's
+own digest into it (``store/inside.py``): every byte is bound.
 """
 
 from __future__ import annotations
@@ -155,7 +155,7 @@ class ArchiveWriter:
 
     def finalize(self, manifest: dict) -> Path:
         """Seal the staged archive: the manifest (compact, with every other member's size and SHA-256) goes
-        into windows.parquet's footer, zstd-compressed, and the file's own digest into its slot (inside.py).
+        into windows.parquet's footer, zstd-compressed, and the footer's digest into its slot (inside.py).
 
         Returns the staging folder, which is a complete archive that can be
         opened and checked before :meth:`commit` moves it into place.
