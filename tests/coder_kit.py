@@ -25,15 +25,15 @@ def slow_walk(n: int, seed: int = 3) -> np.ndarray:
 
 def coder_ids(archive: Path) -> list[str | None]:
     """Each channel's residual coder id in the manifest (None: range coded under its tables)."""
-    import json
-    m = json.loads((Path(archive) / "manifest.json").read_text())
+    from tsarchive.store.binding import read_manifest
+    m = read_manifest(Path(archive))
     return [c.get("coder", {}).get("id") if "coder" in c else None for c in m["channels"]]
 
 
 def fitted(archive: Path) -> list[bool]:
     """Whether each channel's adaptive coder starts from a fitted initial state."""
-    import json
-    m = json.loads((Path(archive) / "manifest.json").read_text())
+    from tsarchive.store.binding import read_manifest
+    m = read_manifest(Path(archive))
     return [bool(c.get("coder", {}).get("init")) for c in m["channels"]]
 
 

@@ -1,4 +1,4 @@
-"""Checks every golden archive from format 4 on passes (test_golden_v4.py, test_golden_v5.py): the same rig
+"""Checks every golden archive from format 4 on passes (test_golden_v4.py ... test_golden_v6.py): the same rig
 log, decoded bit for bit against the ``expected.npz`` frozen beside it and verified against its source."""
 
 from __future__ import annotations
@@ -50,3 +50,23 @@ def format_4_fields(manifest: dict) -> None:
     assert manifest["time"]["listed"] is True and manifest["time"]["zone"] is None      # jitter, naive times
     assert manifest["notes"] == ["# Rig 2 bench log (invented demo data)", "# operator shift B"]
     assert manifest["extra"]["columns"] == ["status"]
+
+
+def coders_bit_for_bit(here: Path, arc_path: Path, index_member: str) -> None:
+    """The coders golden archive (test_golden_v5.py, test_golden_v6.py): channel 0 range coded under its
+    tables, channel 1 adaptive coded (the packer's own choice, tests/coder_kit.py); the expected samples were
+    decoded when it was made and are compared bit for bit (numpy array_equal on the raw bits): a decoder
+    change that moves one bit fails here."""
+    from coder_kit import coder_ids
+    from tsarchive.index import look
+
+    assert coder_ids(arc_path) == [None, "adaptive"]
+    expected = np.load(here / "expected_coders.npz")
+    arc = tsarchive.open(arc_path)
+    for c in arc.channels:
+        got = np.asarray(arc.read(c.name))
+        assert got.dtype == expected[c.name].dtype
+        assert np.array_equal(got.view(np.uint8), expected[c.name].view(np.uint8))
+    assert tsarchive.verify(arc_path).ok                                  # every member's checksum
+    assert index_member in arc.manifest["members"]
+    assert len(look.unusual(arc, arc.channels[1].name, k=3).rows) == 3

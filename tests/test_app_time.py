@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from datetime import datetime, timedelta
 
+from crafting import archive_identity, manifest, write_manifest
 import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -308,7 +309,6 @@ async def test_lossless_small_step_is_not_stretched_to_full_height(shelves):
 
 # -- a verification kept beside the archive ---------------------------------------------------------
 async def test_demo_verification_is_kept_and_listed_as_verified(shelves, tmp_path):
-    import hashlib
     import shutil
 
     from tsarchive.demo import run_demo
@@ -318,7 +318,7 @@ async def test_demo_verification_is_kept_and_listed_as_verified(shelves, tmp_pat
     shutil.copy(shelves["steps"] / "steps.csv", samples / "steps.csv")
     run_demo(out, samples=samples, echo=lambda *_: None)   # packs and verifies against the source
     arc = out / "steps.tsarchive"
-    sha = hashlib.sha256((arc / "manifest.json").read_bytes()).hexdigest()  # hashlib: the record's name
+    sha = archive_identity(arc)                             # the record's name (crafting: read without tsarchive)
     assert (out / ".tsarchive-checks" / f"{sha}.json").is_file()
     app = NotedApp(out)                                     # a new session: nothing checked in it yet
     async with app.run_test(size=(80, 24)) as pilot:
@@ -328,7 +328,9 @@ async def test_demo_verification_is_kept_and_listed_as_verified(shelves, tmp_pat
         await pilot.press("enter")
         await settle(app, pilot)
         assert "verified against steps.csv (SHA-256 " in str(app.screen.query_one("#contents-check").render())
-    (arc / "manifest.json").write_bytes((arc / "manifest.json").read_bytes() + b" ")  # another archive now
+    m = manifest(arc)
+    m["model_note"] += " "
+    write_manifest(arc, m)                                  # another archive now (another footer digest)
     app = NotedApp(out)
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)

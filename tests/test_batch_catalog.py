@@ -17,6 +17,8 @@ from tsarchive.batch.catalog import SCHEMA, write_entry
 from tsarchive.cli import main
 
 
+from crafting import archive_identity  # noqa: E402
+
 def _pack(capsys, *argv) -> int:
     code = main(["pack", *map(str, argv)])
     capsys.readouterr()
@@ -46,7 +48,7 @@ def test_rows_describe_sources_and_archives(tmp_path, capsys):
         assert r["archive_bytes"] == on_disk
         assert r["raw_bytes"] == 600 * 2 * 8                               # two float64 channels
         assert r["ratio"] == pytest.approx(r["raw_bytes"] / on_disk, rel=1e-3)
-        assert r["manifest_sha256"] == hashlib.sha256((folder / "manifest.json").read_bytes()).hexdigest()
+        assert r["manifest_sha256"] == archive_identity(folder)
         assert r["check"] == "within budget, checked by pack against the source"
         assert r["tool_version"] and r["format_version"] >= 4 and json.loads(r["settings"])["budget"]
 

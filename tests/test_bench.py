@@ -405,6 +405,7 @@ def test_archive_bytes_add_up_and_footers_follow_the_parquet_layout(tmp_path):
     import struct
 
     import tsarchive
+    import pyarrow.parquet as pq
     from tsarchive.bench.archive_bytes import breakdown
 
     src = tmp_path / "s.npy"
@@ -413,8 +414,12 @@ def test_archive_bytes_add_up_and_footers_follow_the_parquet_layout(tmp_path):
     b = breakdown(tmp_path / "s.tsa")
     files = {str(p.relative_to(tmp_path / "s.tsa")): p for p in (tmp_path / "s.tsa").rglob("*") if p.is_file()}
     assert b.total == sum(os.stat(p).st_size for p in files.values())
-    assert b.manifest == os.stat(files["manifest.json"]).st_size
-    footers = 0
+    # format 6: the manifest is windows.parquet's footer key "tsarchive" (pyarrow reads it) with its Thrift
+    # compact framing (two field headers, a stop byte, the key's 1-byte length, the value's 2-byte varint length
+    # for 128..16383 bytes: Apache Thrift compact protocol); the rest of the footer is "footers"
+    blob = pq.read_metadata(files["windows.parquet"]).metadata[b"tsarchive"]
+    assert 128 <= len(blob) < 16384 and b.manifest == len(blob) + len(b"tsarchive") + 3 + 1 + 2
+    footers = -b.manifest
     for p in files.values():
         raw = p.read_bytes()
         if raw[:4] == raw[-4:] == b"PAR1":
@@ -422,7 +427,6 @@ def test_archive_bytes_add_up_and_footers_follow_the_parquet_layout(tmp_path):
             footers += struct.unpack("<I", raw[-8:-4])[0] + 12
     assert b.footers == footers
     # the payload is the residual values' bytes: the lengths of the binary values, read with pyarrow
-    import pyarrow.parquet as pq
 
     res = pq.read_table(files["windows.parquet"], columns=["residual"])["residual"].to_pylist()
     assert b.payload == sum(len(v) for v in res) and b.fixed == b.total - b.payload

@@ -135,24 +135,21 @@ def test_help_states_default_budget(capsys):
 def test_verify_alone_catches_a_damaged_window(tmp_path, src, capsys):
     # Flip one byte of one window's residual payload and rewrite the table: the member's
     # SHA-256 and that window's CRC-32 must both fail, and verify must name the window.
-    import pyarrow as pa
-    import pyarrow.parquet as pq
 
     arc = tmp_path / "d.tsa"
     assert _run(capsys, "pack", src, "-o", arc, "--rate", 200, "--window", 64, "--code-size", 0)[0] == 0
-    from tsarchive.store import lean
-    t = pq.read_table(arc / "windows.parquet")
-    rows = t.to_pylist()          # format 5: key = channel << 32 | window (store/lean.py); ch1 is channel 1
-    target = next(i for i, r in enumerate(rows) if r["key"] >> 32 == 1 and len(r["residual"]) > 4)
-    payload = bytearray(rows[target]["residual"])
-    payload[1] ^= 0x5A
-    rows[target]["residual"] = bytes(payload)
-    rows[target]["window"] = rows[target]["key"] & 0xFFFFFFFF
-    with pq.ParquetWriter(arc / "windows.parquet", t.schema, **lean.writer_opts(t.schema)) as w:
-        w.write_table(pa.Table.from_pylist(rows, schema=t.schema))
+    import tsarchive
+    rows = tsarchive.open(arc).rows("ch1", 0, 1 << 20).to_pylist()
+    window = next(r["window"] for r in rows if len(r["residual"]) > 4)
+    payload = rows[window]["residual"]
+    p = arc / "windows.parquet"          # format 6: residuals stored as they are; flipped in place, same size
+    data = bytearray(p.read_bytes())
+    at = bytes(data).index(payload)
+    data[at + 1] ^= 0x5A
+    p.write_bytes(bytes(data))
     code, out, _ = _run(capsys, "verify", arc)
     assert code == 1 and "FAILED" in out
-    assert "windows.parquet" in out and "ch1" in out and f"window(s) {rows[target]['window']}" in out
+    assert "windows.parquet" in out and "ch1" in out and f"window(s) {window}" in out
 
 
 def test_missing_app_extra_is_named(monkeypatch, capsys):

@@ -8,7 +8,6 @@ so the reader's own checks and caps are what stops them.  Exit codes 0/1/2 are t
 
 from __future__ import annotations
 
-import hashlib
 import re
 import os
 import shutil
@@ -26,7 +25,7 @@ from tsarchive.cli import main
 from tsarchive.store import schema as S
 
 from conftest import make_signal
-from crafting import copy, first_window, manifest, rebind, replace_column, snapshot, write_manifest
+from crafting import copy, first_window, manifest, rebind, replace_column, snapshot, write_blob, write_manifest
 
 
 @pytest.fixture(scope="module")
@@ -42,7 +41,7 @@ def base(tmp_path_factory):
                       segment=16)      # segment given: a recording this short gets no index within its byte budget
     coders = [c.get("coder", {}).get("id") for c in manifest(out)["channels"]]
     assert coders == [None, "adaptive"]      # both ways of coding residuals are crafted below
-    assert {p.name for p in out.iterdir()} == {S.MANIFEST, S.WINDOWS, S.EXCEPTIONS, S.MODEL, "index.parquet"}
+    assert {p.name for p in out.iterdir()} == {S.WINDOWS, S.EXCEPTIONS, S.MODEL, "index.zst"}   # format 6
     return out
 
 
@@ -71,6 +70,14 @@ def _ch(key, value):
 
 def _top(key, value):
     return _edit(lambda m: m.__setitem__(key, value))
+
+
+def _top_rebound(key, value):
+    def run(a):
+        m = manifest(a)
+        m[key] = value
+        rebind(a, m)
+    return run
 
 
 def _write(name, data: bytes):
@@ -133,20 +140,51 @@ def _many_samples(a):
 
 def _member_outside(a):
     m = manifest(a)
-    m["members"]["../outside.parquet"] = m["members"][S.WINDOWS]
+    m["members"]["../outside.parquet"] = m["members"][S.MODEL]
     write_manifest(a, m)
 
 
-def _footer_cut(a):     # the footer's last 100 bytes gone, the manifest's member entry updated to match
+def _footer_cut(a):     # the footer's last 100 bytes gone (format 6: the manifest inside it goes with them)
     p = a / S.WINDOWS
     p.write_bytes(p.read_bytes()[:-108] + p.read_bytes()[-8:])
+
+
+def _blob(data: bytes, dictionary: bool = True):
+    """Format 6: ``data`` as the manifest's JSON text, zstd-compressed (with the format's dictionary)."""
+    import zstandard
+    from tsarchive.store import inside
+    z = zstandard.ZstdCompressor(level=1, dict_data=inside._dictionary() if dictionary else None)
+    return lambda a: write_blob(a, z.compress(data))
+
+
+def _edited_unsealed(a):      # a valid edit of the manifest, the file digest left as it was
     m = manifest(a)
-    m["members"][S.WINDOWS] = {"bytes": p.stat().st_size, "sha256": hashlib.sha256(p.read_bytes()).hexdigest()}
-    write_manifest(a, m)
+    m["channels"][0]["note"] = "checked by hand"
+    write_manifest(a, m, seal=False)
 
 
-def _key_beyond_channels(a):     # format 5 keys name the channel by position: a third channel the manifest lacks
-    rebind(a, rows=lambda g: replace_column(g, "key", [k + (2 << 32) for k in g["key"].to_pylist()]))
+def _rows_edited(a):          # one byte of the window rows changed, the footer left as it was
+    p = a / S.WINDOWS
+    b = bytearray(p.read_bytes())
+    b[10] ^= 0x01
+    p.write_bytes(bytes(b))
+
+
+def _swapped(a):              # another member's file in the model's place (same name, other bytes)
+    (a / S.MODEL).write_bytes((a / S.EXCEPTIONS).read_bytes())
+
+
+def _groups_beyond_channels(a):   # format 6's groups name the channel by position: a third channel the manifest lacks
+    m = manifest(a)
+    m["groups"] = [[c + 2, w] for c, w in m["groups"]]
+    rebind(a, m)
+
+
+def _groups_shifted(a):           # the (one) row group said to start a window late: its rows run past the end
+    m = manifest(a)
+    assert m["groups"] == [[0, 0]]
+    m["groups"] = [[0, 1]]
+    rebind(a, m)
 
 
 def _eps_twice_in_one_place(m):     # format 5 stores eps in the grid only: a second copy must agree
@@ -186,8 +224,17 @@ CASES = [
     ("members-list", _top("members", []), r"members is missing or not an object", (2, 2, 2)),
     ("name-number", _ch("name", 7), r"name is int 7, not a text", (2, 2, 2)),
     ("n_samples-null", _ch("n_samples", None), r"n_samples is missing", (2, 2, 2)),
-    ("deep-json", _write(S.MANIFEST, b"[" * 200_000 + b"]" * 200_000), r"nests too deeply", (2, 2, 2)),
-    ("not-json", _write(S.MANIFEST, b"\x00\xff garbage"), r"manifest\.json cannot be read", (2, 2, 2)),
+    ("deep-json", _blob(b"[" * 200_000 + b"]" * 200_000), r"nests too deeply", (2, 2, 2)),
+    ("not-json", _blob(b"\x00\xff garbage"), r"manifest in windows\.parquet cannot be read", (2, 2, 2)),
+    ("not-zstd", lambda a: write_blob(a, b"\x00\xff garbage"), r"manifest in windows\.parquet cannot be read",
+     (2, 2, 2)),
+    ("manifest-oversized", _blob(bytes((64 << 20) + 1), dictionary=False),
+     r"manifest in windows\.parquet declares 67108865 bytes", (2, 2, 2)),
+    ("manifest-edited", _edited_unsealed, r"the manifest or footer in windows\.parquet was edited or damaged",
+     (2, 2, 1)),
+    ("rows-edited (re-sealed footer)", lambda a: _rows_edited(a),
+     r"windows\.parquet: SHA-256 differs from the manifest", (1, 2, 1)),
+    ("members-swapped", _swapped, r"model\.parquet is \d+ bytes but the manifest says", (2, 2, 1)),
     ("newer-version", _top("format_version", 99), r"written by a newer tsarchive .*upgrade tsarchive", (2, 2, 2)),
     ("version-text", _top("format_version", "3"), r"format_version is str '3'", (2, 2, 2)),
     ("eps-disagrees", _edit(_eps_twice_in_one_place), r"eps .* differs from its grid's eps", (2, 2, 2)),
@@ -209,10 +256,10 @@ CASES = [
     ("coder-huge", _coder_field("init", "A" * (1 << 17)), r"residual coder is malformed", (2, 2, 2)),
     ("lpc-empty", _ch("lpc", []), r"linear-prediction sets are missing or malformed", (2, 2, 2)),
     ("member-outside", _member_outside, r"not a plain member file name", (2, 2, 2)),
-    ("windows-missing", lambda a: (a / S.WINDOWS).unlink(), r"windows\.parquet is missing", (2, 2, 1)),
-    ("windows-truncated", _truncate, r"windows\.parquet is \d+ bytes but the manifest says", (2, 2, 1)),
-    ("windows-empty", _write(S.WINDOWS, b""), r"windows\.parquet is 0 bytes but", (2, 2, 1)),
-    ("windows-garbage", _garbage, r"windows\.parquet cannot be read", (2, 2, 1)),
+    ("windows-missing", lambda a: (a / S.WINDOWS).unlink(), r"no manifest\.json or windows\.parquet", (2, 2, 2)),
+    ("windows-truncated", _truncate, r"windows\.parquet cannot be read", (2, 2, 2)),
+    ("windows-empty", _write(S.WINDOWS, b""), r"windows\.parquet cannot be read", (2, 2, 2)),
+    ("windows-garbage", _garbage, r"windows\.parquet cannot be read", (2, 2, 2)),
     ("model-symlink", _symlinked_model, r"model\.parquet is a symbolic link", (2, 2, 2)),
     ("fifo-inside", lambda a: os.mkfifo(a / "pipe"), r"pipe is not a regular file", (2, 2, 2)),
     ("extra-file", _write("notes.txt", b"hello"), r"notes\.txt: not listed in the manifest", (1, 2, 1)),
@@ -226,9 +273,11 @@ CASES = [
     ("10^12-samples (re-bound)", _many_samples,
      r"manifest declares 15625000047 windows but windows\.parquet holds 94", (2, 2, 1)),
     ("defaults-list", _top("channel_defaults", []), r"is incomplete|is missing", (2, 2, 2)),
-    ("footer-cut", _footer_cut, r"windows\.parquet cannot be read", (2, 2, 1)),
-    ("key-beyond-channels (re-bound)", _key_beyond_channels, r"row group 0 lacks or contradicts its key statistics",
-     (2, 2, 1)),
+    ("footer-cut", _footer_cut, r"windows\.parquet cannot be read", (2, 2, 2)),
+    ("groups-beyond-channels (re-bound)", _groups_beyond_channels,
+     r"manifest's entry for row group 0 does not name a window", (2, 2, 1)),
+    ("groups-shifted (re-bound)", _groups_shifted, r"row group 0 runs past the last channel's windows", (2, 2, 1)),
+    ("groups-missing (re-bound)", _top_rebound("groups", None), r"manifest lists no row groups", (2, 2, 1)),
     ("null-facts (re-bound)", _null_facts, r"windows\.parquet does not have the columns of this format version",
      (2, 2, 1)),
     ("code-length (re-bound)", lambda a: rebind(a, rows=lambda g: replace_column(g, "code", [[0]] * g.num_rows)),
@@ -300,7 +349,7 @@ def test_a_footer_naming_another_column_type_does_not_abort_the_process(base, tm
     for cmd in ("verify", "report"):
         r = subprocess.run([sys.executable, "-m", "tsarchive", cmd, str(a)], capture_output=True, text=True,
                            cwd=os.path.dirname(os.path.dirname(__file__)), timeout=120)
-        assert r.returncode == (1 if cmd == "verify" else 2), (cmd, r.returncode, r.stderr[-300:])
+        assert r.returncode == 2, (cmd, r.returncode, r.stderr[-300:])   # format 6: the manifest is in that footer
         assert "windows.parquet cannot be read" in r.stdout + r.stderr
 
 

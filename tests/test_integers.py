@@ -5,7 +5,7 @@ code under test: an int64 near 2**62 has float64 neighbours 1024 apart, so
 any float64 detour shows here.
 """
 
-import json
+from tsarchive.store.binding import read_manifest
 
 import numpy as np
 import pyarrow as pa
@@ -67,7 +67,7 @@ def test_worst_error_between_2_53_and_2_62_is_reported_exactly(tmp_path):
     exact = _max_err(x, back)
     assert 0 < exact <= 900
     assert res.channels[0].worst_error == exact
-    assert json.loads((arc / "manifest.json").read_text())["channels"][0]["summary"]["worst_error"] == exact
+    assert read_manifest(arc)["channels"][0]["summary"]["worst_error"] == exact
 
 
 def test_verify_compares_integers_exactly():

@@ -1,6 +1,7 @@
 """End to end through the library API: pack -> archive -> read / verify."""
 
-import json
+from crafting import write_manifest
+from tsarchive.store.binding import read_manifest
 import os
 import subprocess
 import sys
@@ -72,7 +73,7 @@ def test_verbatim_samples_live_in_their_own_member(tmp_path):
     assert [(r["key"] >> 32, r["key"] & 0xFFFFFFFF, r["pos"]) for r in held] == [(0, 0, [5, 17]), (1, 31, [7])]
     assert "code" not in pq.read_schema(out / "windows.parquet").names        # no model, no code column
     clean = _pack(tmp_path, np.nan_to_num(x, posinf=0, neginf=0), name="clean", segment=16)[1]  # segment given: a recording this short gets no index within its byte budget
-    assert sorted(p.name for p in clean.iterdir()) == ["index.parquet", "manifest.json", "windows.parquet"]
+    assert sorted(p.name for p in clean.iterdir()) == ["index.zst", "windows.parquet"]   # format 6: the manifest inside
     # the manifest lists the member: an archive that lost it is refused, not read without its NaNs
     broken = tmp_path / "broken.tsa"
     shutil.copytree(out, broken)
@@ -167,18 +168,16 @@ def test_time_range_read_and_random_access(small_archive, small_npy):
 def test_plain_pyarrow_can_read_the_codes(small_archive):
     # Any Parquet reader: pyarrow alone, no tsarchive code.
     t = pq.read_table(small_archive / "windows.parquet")
-    assert set(t.column_names) == {"key", "facts", "level", "code", "residual", "score"}   # format 5 (lean.py)
+    assert t.column_names == ["facts", "code", "residual"]               # format 6 (lean6.py)
     codes = np.stack(t.column("code").to_pylist())
     assert codes.dtype.kind == "i" and codes.shape[0] == t.num_rows
-    worst = (t["facts"].to_numpy() >> 32) & 0xFF            # facts = crc32 | worst << 32 | ...
-    assert t["facts"].type == pa.int64() and 0 < worst.max() <= 250    # 1/250ths of eps
-    key = t["key"].to_numpy()
-    assert sorted(set((key >> 32).tolist())) == [0, 1]                  # channel << 32 | window
-    layout = pq.read_metadata(small_archive / "windows.parquet").metadata[b"tsarchive.layout"]
-    assert layout == b"key=channel<<32|window;facts=crc32|worst<<32|table<<40|lpc_set<<48|mode<<56"   # DEVELOPERS
+    raw = np.frombuffer(t["facts"].combine_chunks().buffers()[1], np.uint8)[:20 * t.num_rows].reshape(-1, 20)
+    worst = raw[:, 16]                                     # facts: crc32 u32, level i64, score f32, worst u8, ...
+    assert t["facts"].type == pa.binary(20) and 0 < worst.max() <= 250    # 1/250ths of eps
     m = pq.read_table(small_archive / "model.parquet").to_pydict()
     assert set(m) == {"name", "shape", "values"}
-    manifest = json.loads((small_archive / "manifest.json").read_text())
+    manifest = read_manifest(small_archive)
+    assert manifest["layout"].startswith("facts=crc32:u32,level:i64,score:f32,worst:u8")   # DEVELOPERS.md
     assert manifest["format"] == "tsarchive" and manifest["channel_defaults"]["unit"] == ""   # shared: stored once
     assert pq.ParquetFile(small_archive / "windows.parquet").metadata.row_group(0).column(0).compression == "ZSTD"
 
@@ -397,10 +396,10 @@ def test_damaged_entropy_table_in_the_manifest_is_named(tmp_path):
     from tsarchive.errors import ArchiveCorrupt
     x = np.random.default_rng(9).standard_normal(5000).astype(np.float32)
     src, out, res = _pack(tmp_path, x, budget="1%", window=256)
-    m = json.loads((out / "manifest.json").read_text())
+    m = read_manifest(out)
     assert not (out / "tables.parquet").exists() and m["channels"][0]["tables"]
     m["channels"][0]["tables"][0]["freqs"] = "not base64!"
-    (out / "manifest.json").write_text(json.dumps(m))
+    write_manifest(out, m)
     with pytest.raises(ArchiveCorrupt, match="entropy table entry is malformed"):
         tsarchive.open(out).read("ch0")
 
@@ -491,6 +490,6 @@ def test_spread_picks_evenly_with_one_rounding():
 def test_members_are_handed_out_by_name(small_archive):
     # pyarrow's own reader of the file is the reference; an unlisted name is no member
     arc = tsarchive.open(small_archive)
-    got = arc.member_table("windows.parquet", columns=["key", "facts"])
-    assert got.equals(pq.read_table(small_archive / "windows.parquet", columns=["key", "facts"]))
+    got = arc.member_table("windows.parquet", columns=["facts"])
+    assert got.equals(pq.read_table(small_archive / "windows.parquet", columns=["facts"]))
     assert arc.member_table("absent.parquet") is None and arc.member_table("../windows.parquet") is None

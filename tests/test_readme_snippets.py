@@ -7,13 +7,9 @@ import re
 from pathlib import Path
 
 import numpy as np
-import pyarrow.parquet as pq
 import pytest
 
 import tsarchive
-
-pytest.importorskip("duckdb")
-pytest.importorskip("polars")
 
 README = Path(__file__).resolve().parents[1] / "README.md"
 
@@ -24,7 +20,7 @@ def _snippets() -> list[str]:
     return re.findall(r"```python\n(.*?)```", part, flags=re.S)
 
 
-def test_the_snippets_run_and_agree_with_pyarrow(tmp_path, monkeypatch):
+def test_the_snippets_run_and_agree_with_the_archive(tmp_path, monkeypatch):
     rng = np.random.default_rng(11)
     n = 9000
     temp = 21.0 + np.cumsum(rng.standard_normal(n)) * 0.02
@@ -35,27 +31,15 @@ def test_the_snippets_run_and_agree_with_pyarrow(tmp_path, monkeypatch):
     tsarchive.pack(tmp_path / "run.csv", tmp_path / "run.tsarchive", "0.05", window=1024)
     monkeypatch.chdir(tmp_path)
     blocks = _snippets()
-    assert len(blocks) == 2
+    assert len(blocks) == 1
     ns: dict = {}
     for code in blocks:
         exec(compile(code, str(README), "exec"), ns)      # the README's text, as a reader would paste it
-    t = pq.read_table("run.tsarchive/windows.parquet", columns=["key", "facts", "score"])
-    key, facts = t["key"].to_numpy(), t["facts"].to_numpy()    # the bit layout of DEVELOPERS.md, format 5
-    ch, win, worst, mode = key >> 32, key & 0xFFFFFFFF, (facts >> 32) & 0xFF, facts >> 56
-    score = t["score"].to_numpy()
+    arc = tsarchive.open(tmp_path / "run.tsarchive")
     assert ns["names"] == ["temp", "rh"]
-    assert [r[0] for r in ns["per_channel"]] == [0, 1]
-    for name, count, share, top in ns["per_channel"]:
-        m = ch == name
-        assert count == m.sum() and share == worst[m].max() / 250.0 and top == pytest.approx(score[m].max())
-    m = ch == 0                                           # temp
-    order = np.lexsort((win[m], -score[m].astype(np.float64)))[:5]   # score descending, then window
-    assert [r[0] for r in ns["outliers"]] == win[m][order].tolist()
-    assert [r[1] for r in ns["outliers"]] == (win[m][order] * 1024).tolist()
-    assert ns["outliers"][0][1] <= 6000 < ns["outliers"][0][1] + 1024  # the spiked window ranks first
-    pairs = sorted(set(zip(ch.tolist(), mode.tolist())))
-    got = ns["predictors"]
-    assert list(zip(got["channel"].to_list(), got["mode"].to_list())) == pairs
-    assert got["len"].to_list() == [int(((ch == c) & (mode == md)).sum()) for c, md in pairs]
-    near = ns["near_budget"]
-    assert near.height == int((worst >= 240).sum())
+    for c in arc.channels:                                # the reader's own window table, another code path
+        t = arc.windows(c.name)
+        assert ns["worst_share"][c.name] == pytest.approx(max(t.worst_error) / c.eps, abs=1 / 250)
+    t = arc.windows("temp")
+    assert ns["outliers"].tolist() == np.argsort(-t.score, kind="stable")[:5].tolist()
+    assert ns["outliers"][0] == 6000 // 1024              # the spiked window ranks first

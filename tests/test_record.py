@@ -21,6 +21,8 @@ RATE, N = 10.0, 3000
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # the PNG specification (ISO/IEC 15948, section 5.2): the first 8 bytes
 
 
+from crafting import archive_identity, manifest as manifest_of  # noqa: E402
+
 def _sha(p: Path) -> str:
     return hashlib.sha256(p.read_bytes()).hexdigest()  # hashlib: FIPS 180-4 SHA-256
 
@@ -52,10 +54,10 @@ def test_record_against_the_source_states_identity_and_figures(packed, capsys):
                  "--quiet"]) == 0
     rec = json.loads((out / "record.json").read_text(encoding="utf-8"))
     arc, src = packed["arc"], packed["src"]
-    manifest = json.loads((arc / "manifest.json").read_text(encoding="utf-8"))
+    manifest = manifest_of(arc)
     assert rec["archive"]["name"] == "bench.tsarchive"
     assert rec["archive"]["bytes"] == sum(p.stat().st_size for p in arc.iterdir() if p.is_file())
-    assert rec["archive"]["manifest_sha256"] == _sha(arc / "manifest.json")
+    assert rec["archive"]["manifest_sha256"] == archive_identity(arc)
     assert rec["source"] == {"name": "bench log.csv", "bytes": src.stat().st_size, "sha256": _sha(src)}
     assert rec["compared_with"] == {"name": "bench log.csv", "bytes": src.stat().st_size, "sha256": _sha(src),
                                     "is_packed_file": True}
@@ -90,7 +92,7 @@ def test_record_against_the_source_states_identity_and_figures(packed, capsys):
             assert (out / name).read_bytes()[:8] == PNG_SIGNATURE
             assert (out / name).read_bytes()[12:16] == b"IHDR"  # first chunk: IHDR (same specification, 11.2.2)
     md = (out / "record.md").read_text(encoding="utf-8")
-    assert "**PASSED**" in md and _sha(src) in md and _sha(arc / "manifest.json") in md
+    assert "**PASSED**" in md and _sha(src) in md and archive_identity(arc) in md
     assert {p.name for p in out.glob("*.png")} == {n for c in rec["channels"] for n in c["plots"].values()}
     assert all(f"]({n})" in md for n in (p.name for p in out.glob("*.png")))
     assert "wrote the verification record" in capsys.readouterr().err
@@ -100,7 +102,7 @@ def test_record_without_a_source_says_checksums_only(packed):
     out = packed["dir"] / "record-checksums"
     assert main(["verify", str(packed["arc"]), "--record", str(out), "--quiet"]) == 0
     rec = json.loads((out / "record.json").read_text(encoding="utf-8"))
-    manifest = json.loads((packed["arc"] / "manifest.json").read_text(encoding="utf-8"))
+    manifest = manifest_of(packed["arc"])
     assert rec["checked"] == "checksums only (samples not compared)" and rec["compared_with"] is None
     for c, m in zip(rec["channels"], manifest["channels"]):
         assert c["worst_from"] == "recorded when packed" and c["worst_error"] == m["summary"]["worst_error"]

@@ -1,10 +1,12 @@
-"""Format 5's lean container: window rows packed into key/facts (store/lean.py), row groups shared by the
-channels' last windows, and the compact manifest (store/compact.py).  The references are the source samples
-(numpy), pyarrow's own reading of the footer statistics, and the format's bit layout as DEVELOPERS.md states it."""
+"""The lean container (format 6): window facts in one fixed-width column (store/lean6.py), row groups mapped by
+the manifest's ``groups``, shared by the channels' last windows, and the compact manifest (store/compact.py)
+inside windows.parquet's footer (store/inside.py).  The references are the source samples (numpy), pyarrow's
+and zstandard's own reading of the file, and the format's byte layout as DEVELOPERS.md states it."""
 
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pyarrow.parquet as pq
@@ -29,19 +31,25 @@ def lean_arc(tmp_path_factory):
     return out, x
 
 
+def _stored(out) -> dict:
+    """The manifest as stored, read with pyarrow and zstandard only (the documented recipe, DEVELOPERS.md)."""
+    import zstandard
+    blob = pq.read_metadata(out / S.WINDOWS).metadata[b"tsarchive"]
+    d = zstandard.ZstdCompressionDict((Path(tsarchive.__file__).parent / "store" / "manifest6.zdict").read_bytes(),
+                                      dict_type=zstandard.DICT_TYPE_RAWCONTENT)
+    return json.loads(zstandard.ZstdDecompressor(dict_data=d).decompress(blob))
+
+
 def test_row_groups_hold_one_channel_or_the_channels_last_windows(lean_arc):
     out, _ = lean_arc
     meta = pq.ParquetFile(out / S.WINDOWS).metadata               # pyarrow's reading of the footer
-    spans = []
-    for g in range(meta.num_row_groups):
-        st = meta.row_group(g).column(0).statistics
-        assert meta.row_group(g).column(0).path_in_schema == "key" and st.has_min_max
-        spans.append((st.min >> 32, st.min & 0xFFFFFFFF, st.max >> 32, st.max & 0xFFFFFFFF,
-                      meta.row_group(g).num_rows))
-    # 256 = ROW_GROUP_WINDOWS rows a channel, then 3 x 45 rows together: (channel, window) from and to, rows
-    assert sorted(spans) == [(0, 0, 0, 255, 256), (0, 256, 2, 300, 135), (1, 0, 1, 255, 256), (2, 0, 2, 255, 256)]
-    for g in range(meta.num_row_groups):      # only the key column carries statistics
-        assert all(not meta.row_group(g).column(c).is_stats_set for c in range(1, meta.num_columns))
+    groups = _stored(out)["groups"]
+    spans = sorted((c, w, meta.row_group(g).num_rows) for g, (c, w) in enumerate(groups))
+    # 256 = ROW_GROUP_WINDOWS rows a channel, then 3 x 45 rows together starting at channel 0's window 256
+    assert spans == [(0, 0, 256), (0, 256, 135), (1, 0, 256), (2, 0, 256)]
+    assert meta.schema.to_arrow_schema().names == ["facts", "residual"]
+    for g in range(meta.num_row_groups):      # no statistics: the manifest maps the groups
+        assert all(not meta.row_group(g).column(c).is_stats_set for c in range(meta.num_columns))
 
 
 def test_any_range_reads_as_the_full_read_and_within_budget(lean_arc):
@@ -56,31 +64,39 @@ def test_any_range_reads_as_the_full_read_and_within_budget(lean_arc):
             np.testing.assert_array_equal(arc.read(c.name, a, b), full[lo:max(lo, hi)])
 
 
-def test_facts_unpack_as_the_documented_bit_layout(lean_arc):
+# the facts' 20 bytes as DEVELOPERS.md lists them (little-endian), as a numpy record
+LAYOUT = np.dtype([("crc32", "<u4"), ("level", "<i8"), ("score", "<f4"), ("worst", "u1"), ("table", "i1"),
+                   ("lpc_set", "i1"), ("mode", "i1")])
+
+
+def test_facts_unpack_as_the_documented_byte_layout(lean_arc):
     out, _ = lean_arc
     arc = tsarchive.open(out)
-    t = pq.read_table(out / S.WINDOWS, columns=["key", "facts"])
-    key, facts = t["key"].to_numpy(), t["facts"].to_numpy()
-    for j, c in enumerate(arc.channels):
-        rows = arc.rows(c.name, 0, WINDOWS)
-        m = key >> 32 == j
-        order = np.argsort(key[m] & 0xFFFFFFFF)
-        f = facts[m][order]
-        assert rows["window"].to_numpy().tolist() == list(range(WINDOWS)) == (key[m][order] & 0xFFFFFFFF).tolist()
-        assert rows["crc32"].to_numpy().tolist() == (f & 0xFFFFFFFF).tolist()
-        assert rows["worst"].to_numpy().tolist() == ((f >> 32) & 0xFF).tolist()
-        assert rows["mode"].to_numpy().tolist() == (f >> 56).tolist()
+    f = pq.ParquetFile(out / S.WINDOWS)
+    groups = _stored(out)["groups"]
+    for g, (c, w) in enumerate(groups):
+        col = f.read_row_group(g, columns=["facts"])["facts"].combine_chunks()
+        facts = np.frombuffer(col.buffers()[1], np.uint8)[:20 * len(col)].view(LAYOUT)
+        if w + len(col) <= WINDOWS:               # a group of one channel: its windows w, w + 1, ...
+            rows = arc.rows(arc.channels[c].name, w, w + len(col))
+        else:                                     # the shared group: 45 windows of each channel in turn
+            rows = [arc.rows(ch.name, 256, WINDOWS) for ch in arc.channels]
+            rows = {k: np.concatenate([r[k].to_numpy() for r in rows]) for k in LAYOUT.names}
+        for k in LAYOUT.names:
+            got = rows[k] if isinstance(rows, dict) else rows[k].to_numpy()
+            np.testing.assert_array_equal(got, facts[k])
 
 
 def test_the_manifest_stores_shared_facts_once(lean_arc):
     out, x = lean_arc
-    stored = json.loads((out / S.MANIFEST).read_text())
-    assert stored["format_version"] == 5 == S.FORMAT_VERSION
+    assert sorted(p.name for p in out.iterdir()) == [S.WINDOWS]     # the manifest is inside it
+    stored = _stored(out)
+    assert stored["format_version"] == 6 == S.FORMAT_VERSION
     assert stored["channel_defaults"]["n_samples"] == len(x) and stored["channel_defaults"]["rate"] == 10.0
     assert "time" not in stored              # seconds from 0 at the rate: what a reader assumes without one
     for c in stored["channels"]:
         assert not {"rate", "n_samples", "eps", "note"} & set(c) and "used_pct" not in c["summary"]
-        assert "out_dtype" not in c["grid"]
+        assert "out_dtype" not in c["grid"] and "step" not in c["grid"] and "ratio" not in c["summary"]
     arc = tsarchive.open(out)                     # expanded for every reader of Archive.manifest
     assert arc.manifest["time"] == {"kind": "seconds", "zone": None, "columns": [], "runs": [[0, "0x0.0p+0"]]}
     np.testing.assert_array_equal(arc.times().values, np.arange(len(x)) / 10.0)   # k / rate, numpy's division
@@ -88,6 +104,9 @@ def test_the_manifest_stores_shared_facts_once(lean_arc):
         assert d["rate"] == 10.0 and d["n_samples"] == len(x) and d["eps"] == d["grid"]["eps"] == c.eps
         assert d["grid"]["out_dtype"] == "float32" and sum(d["summary"]["modes"].values()) == WINDOWS
         assert d["summary"]["used_pct"] == 100.0 * d["summary"]["worst_error"] / d["eps"]
+        assert d["grid"]["step"] == 2 * d["eps"] == c.grid.step                # exact: doubling a double
+        # float32 (4 bytes) = 32 bits a sample: the ratio is 32 / bits per sample, to 6 significant digits
+        assert d["summary"]["ratio"] == float(f"{32 / d['summary']['bits_per_sample']:.6g}")
 
 
 def test_compact_then_expand_gives_the_full_manifest_back():
@@ -96,13 +115,16 @@ def test_compact_then_expand_gives_the_full_manifest_back():
             "channels": [
         {"name": n, "unit": "V", "dtype": "float64", "rate": 5.0, "start": None, "n_samples": 9, "budget": "1%",
          "note": "",
-         "eps": e, "grid": {"kind": "step", "eps": e, "out_dtype": "float64"}, "scale": s,
-         "summary": {"worst_error": e / 2, "used_pct": 50.0, "n_exceptions": 0, "modes": {"prev": 2, "lpc": 0}}}
-        for n, e, s in (("a", 0.5, 1), ("b", 0.25, 2))]}
+         "eps": e, "grid": {"kind": "step", "eps": e, "out_dtype": "float64", "step": 2 * e}, "scale": s,
+         "summary": {"worst_error": e / 2, "used_pct": 50.0, "n_exceptions": 0, "modes": {"prev": 2, "lpc": 0},
+                     "bits_per_sample": 3.0, "ratio": r}}
+        for n, e, s, r in (("a", 0.5, 1, 21.3333), ("b", 0.25, 2, 21.3))]}   # 64 / 3 = 21.3333 (6 digits)
     small = compact(full)
     assert small["channel_defaults"] == {"unit": "V", "dtype": "float64", "rate": 5.0, "start": None,
                                          "n_samples": 9, "budget": "1%", "note": ""}
     assert "time" not in small                            # the plain axis: no start, seconds from 0
+    assert small["channels"][0]["summary"] == {"worst_error": 0.25, "modes": {"prev": 2}, "bits_per_sample": 3.0}
     assert small["channels"][1] == {"name": "b", "grid": {"kind": "step", "eps": 0.25}, "scale": 2,
-                                    "summary": {"worst_error": 0.125, "modes": {"prev": 2}}}
+                                    "summary": {"worst_error": 0.125, "modes": {"prev": 2}, "bits_per_sample": 3.0,
+                                                "ratio": 21.3}}     # not what its bits give: kept
     assert expand(small, ("prev", "lpc")) == full

@@ -24,7 +24,7 @@ from .channelcodec import ChannelCodec
 from .errors import ArchiveCorrupt, BadInput, FormatVersionError
 from .model.intnet import IntDecoder
 from .workers import workers as worker_count
-from .store import lean
+from .store import lean, lean6
 from .store import parse as P
 from .store import schema as S
 from .store.binding import check_folder, read_manifest
@@ -71,7 +71,7 @@ class Archive:
                                      f"({S.OLDEST_READABLE}..{S.FORMAT_VERSION}); use the version that wrote it")
         m = self.manifest = P.expanded(stored, v)      # format 5 stores each fact once (store/compact.py)
         self.window = P.window(m)
-        self.members = P.members(m)
+        self.members = P.members(m, v)
         model = P.model_spec(m, self.window)
         P.facts(m)
         chans = P.channel_list(m)
@@ -86,6 +86,7 @@ class Archive:
         opened = inspect(self.path, stored, v, self.members, self.window, self.channels, model, strict,
                          make_decoder=IntDecoder.from_arrays)
         self._windows_file, self._groups, self._decoder = opened.windows, opened.groups, opened.decoder
+        self._runs = opened.runs                  # format 6: each row group's windows (store/lean6.py)
         self._codecs = {n: replace(c, decoder=opened.decoder) for n, c in codecs.items()}
         self.bound, self.damage, self.decodable = opened.bound, opened.damage, opened.decodable
 
@@ -164,12 +165,20 @@ class Archive:
         groups = [g for g, a, b in self._row_groups.get(channel, []) if b >= w0 and a < w1]
         if not groups:
             return schema.empty_table() if columns is None else pa.schema([schema.field(c) for c in columns]).empty_table()
-        lean_rows = self.format_version >= S.LEAN_FROM_VERSION
-        wanted = lean.physical_columns(columns, "code" in schema.names) if lean_rows else columns
+        lean_rows, inside = self.format_version >= S.LEAN_FROM_VERSION, self.format_version >= S.INSIDE_FROM_VERSION
+        with_code = "code" in schema.names
+        wanted = (lean6.physical_columns if inside else lean.physical_columns)(columns, with_code) if lean_rows \
+            else columns
         try:
             t = self._thread_file().read_row_groups(groups, columns=wanted)
         except (OSError, pa.ArrowException) as exc:
             raise ArchiveCorrupt(f"windows.parquet cannot be read ({str(exc)[:80]}); the archive is damaged") from None
+        if inside:
+            keys = np.concatenate([lean6.keys(self._runs[g]) for g in groups])
+            if len(keys) != t.num_rows:
+                raise ArchiveCorrupt("windows.parquet holds other row counts than its footer; the archive is damaged")
+            t = lean.select(t.append_column("key", pa.array(keys)), self._index[channel], w0, w1)
+            return lean6.unpack(t.drop_columns(["key"]), channel, t["key"].to_numpy() & lean.WINDOW_MASK, columns)
         if lean_rows:
             return lean.unpack(lean.select(t, self._index[channel], w0, w1), channel, columns)
         mask = pc.and_(pc.and_(pc.equal(t["channel"], channel), pc.greater_equal(t["window"], w0)),
@@ -202,7 +211,7 @@ class Archive:
     @property
     def _schema(self) -> pa.Schema:
         """windows.parquet's columns (``code`` only in archives with a model; checked at opening)."""
-        return S.windows_schema("code" in self._windows_file.schema_arrow.names)
+        return S.windows_schema("code" in self._windows_file.schema_arrow.names)   # every version's logical rows
 
     def _held(self, channel: str, w0: int, w1: int) -> dict[int, tuple[np.ndarray, np.ndarray]]:
         """The verbatim samples of windows ``w0..w1-1``: window -> (positions int64, raw bits int64)."""

@@ -97,6 +97,7 @@ def _parser() -> argparse.ArgumentParser:
     rp = sub.add_parser("report", help="show an archive's channels, budgets, errors and ratios")
     rp.add_argument("archive", help="an archive folder, or a batch's output folder (its catalog.parquet)")
     rp.add_argument("--json", action="store_true", help="print the report as JSON")
+    rp.add_argument("--manifest", action="store_true", help="print the archive's manifest as stored (JSON)")
 
     dm = sub.add_parser("demo", help="pack and verify the bundled sample streams, then open the app on them")
     dm.add_argument("--out", default="demo_archives", metavar="DIR", help="folder for the archives (default demo_archives)")
@@ -318,8 +319,8 @@ def _verify(args) -> int:
 
 def _report(args) -> int:
     from .batch.catalog import has_catalog
-    if Path(args.archive).is_dir() and not (Path(args.archive) / "manifest.json").exists() \
-            and has_catalog(args.archive):
+    from .store.inside import is_archive
+    if Path(args.archive).is_dir() and not is_archive(Path(args.archive)) and has_catalog(args.archive):
         from .batch.console import catalog_report
         text, ok = catalog_report(args.archive, args.json)
         print(text)
@@ -327,6 +328,10 @@ def _report(args) -> int:
     from .report import archive_dict, archive_table
     from .archive import open_archive
     arc = open_archive(args.archive)
+    if args.manifest:                     # as stored (format 6: inside windows.parquet, store/inside.py)
+        from .store.binding import read_manifest
+        print(json.dumps(read_manifest(arc.path), indent=1))
+        return 0
     d = archive_dict(arc)
     print(json.dumps(d, indent=1) if args.json else archive_table(arc, d))
     return 1 if d["problems"] else 0

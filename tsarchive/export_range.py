@@ -89,7 +89,7 @@ def origin_of(arc, metas) -> Origin:
 
 
 def is_archive_folder(path: Path) -> bool:
-    return (path / "manifest.json").is_file() and (path / "windows.parquet").is_file()
+    return (path / "windows.parquet").is_file()      # with manifest.json (formats 3 to 5) or holding it (6)
 
 
 def is_recorded_source(arc, path: Path) -> bool:

@@ -48,7 +48,7 @@ def _written_utc(arc) -> str | None:
     if arc.manifest.get("created_utc"):
         return str(arc.manifest["created_utc"])
     try:
-        t = (arc.path / "manifest.json").stat().st_mtime
+        t = (arc.path / ("manifest.json" if arc.format_version < 6 else "windows.parquet")).stat().st_mtime
     except (OSError, TypeError):
         return None
     return datetime.fromtimestamp(t, timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")

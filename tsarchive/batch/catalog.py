@@ -33,6 +33,7 @@ from pathlib import Path
 import pyarrow as pa
 
 from ..errors import ArchiveCorrupt, BadInput
+from ..store.inside import identity
 
 try:
     import fcntl
@@ -232,9 +233,8 @@ def current_rows(folder: str | os.PathLike) -> dict[Path, dict]:
     found = {}
     for r in rows:
         path = Path(folder) / r["archive"]
-        try:
-            digest = hashlib.sha256((path / "manifest.json").read_bytes()).hexdigest()
-        except OSError:
+        digest = identity(path)            # manifest.json's SHA-256, or format 6's footer digest
+        if digest is None:
             continue
         if digest == r["manifest_sha256"]:
             found[path] = r

@@ -28,6 +28,7 @@ from ..errors import BadInput
 from ..ingest import SUPPORTED
 from ..ingest.options import ReadOptions
 from ..names import ARCHIVE_SUFFIX, ARCHIVE_SUFFIXES
+from ..store.inside import is_archive
 from .catalog import is_catalog
 
 #: Characters that make an input a glob pattern (``glob.has_magic``'s).
@@ -98,7 +99,7 @@ def _walk(folder: Path, out: Path) -> list[Path]:
     for root, dirs, files in os.walk(folder):
         here = Path(root)
         dirs[:] = sorted(d for d in dirs if not _hidden(d) and not d.endswith(ARCHIVE_SUFFIXES)
-                         and not (here / d / "manifest.json").is_file() and (here / d).resolve() != out)
+                         and not is_archive(here / d) and (here / d).resolve() != out)
         found.extend(here / f for f in sorted(files) if not _hidden(f) and Path(f).suffix.lower() in SUPPORTED
                      and (here / f).is_file() and not is_catalog(here / f))
     return found
@@ -133,7 +134,7 @@ def plan_batch(inputs: list[str], out: str | os.PathLike) -> BatchPlan:
     out = Path(out).resolve()
     if out.exists() and not out.is_dir():
         raise BadInput(f"{out} is a file; the output folder must be a folder (it is created when missing)")
-    if out.suffix in ARCHIVE_SUFFIXES or (out / "manifest.json").is_file():
+    if out.suffix in ARCHIVE_SUFFIXES or is_archive(out):
         raise BadInput(f"{out} is an archive's name; give a plain folder for the archives (e.g. archives/)")
     bases, files = [], []
     for item in inputs:

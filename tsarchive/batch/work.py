@@ -17,7 +17,6 @@ naming what happened in one line, so the batch goes on.  Its steps:
 
 from __future__ import annotations
 
-import hashlib
 import os
 import time
 from dataclasses import asdict, dataclass
@@ -86,10 +85,8 @@ def _now() -> str:
 
 
 def manifest_digest(archive: Path) -> str | None:
-    try:
-        return hashlib.sha256((Path(archive) / "manifest.json").read_bytes()).hexdigest()
-    except OSError:
-        return None
+    from ..store.inside import identity      # manifest.json's SHA-256, or format 6's footer digest
+    return identity(Path(archive))
 
 
 def _pack_one(job: Job, settings: BatchSettings, out: Path, t0: float) -> Outcome:

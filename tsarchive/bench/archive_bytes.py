@@ -3,7 +3,9 @@
 :func:`breakdown` splits an archive folder's bytes into parts that add up to
 its size on disk (``os.stat`` of every member file):
 
-``manifest``          ``manifest.json``
+``manifest``          ``manifest.json`` (formats 3 to 5), or the compressed manifest
+                      held in ``windows.parquet``'s footer metadata (format 6: its
+                      bytes, key and Thrift framing, taken out of ``footers``)
 ``footers``           each Parquet member's footer: the Thrift FileMetaData
                       (pyarrow ``FileMetaData.serialized_size``) plus its
                       4-byte length and the two 4-byte ``PAR1`` magics
@@ -80,6 +82,14 @@ def _payload(path: Path) -> int:
     return int(pc.sum(pc.binary_length(col)).as_py() or 0)
 
 
+def _key_value_bytes(key: bytes, value: bytes) -> int:
+    """Bytes of one KeyValue in a Thrift compact-protocol footer: two field headers, each string's varint
+    length and bytes, and the struct's stop byte (Apache Thrift, "Thrift Compact protocol encoding")."""
+    def varint(n: int) -> int:
+        return max(1, -(-n.bit_length() // 7))
+    return 3 + varint(len(key)) + len(key) + varint(len(value)) + len(value)
+
+
 def breakdown(archive: Path) -> ArchiveBytes:
     """The bytes of the archive folder ``archive`` by part (see the module docstring)."""
     import pyarrow.parquet as pq
@@ -97,7 +107,10 @@ def breakdown(archive: Path) -> ArchiveBytes:
             continue
         meta = pq.ParquetFile(p).metadata
         footer = meta.serialized_size + 4 + 2 * len(_PARQUET_MAGIC)
-        footers += footer
+        inside = (meta.metadata or {}).get(b"tsarchive")     # format 6: the manifest in the footer's metadata
+        held = 0 if inside is None else _key_value_bytes(b"tsarchive", inside)
+        manifest += held
+        footers += footer - held
         other_cols += size - footer          # less the column chunks below: page indexes, if any
         names = meta.schema.names
         for g in range(meta.num_row_groups):
@@ -114,3 +127,65 @@ def breakdown(archive: Path) -> ArchiveBytes:
             payload += got
             framing -= got
     return ArchiveBytes(manifest, footers, payload, framing, other_cols, other, members)
+
+
+def _streams() -> list[tuple[str, object, float | None]]:
+    """(name, source, rate) of the three sample streams and every real bench set found installed."""
+    import numpy as np
+
+    from . import realdata
+
+    root = Path(__file__).resolve().parents[2] / "sample_streams"
+    out = [(p.stem, p, 2000.0 if p.suffix == ".npy" else None)
+           for p in (root / "climate_soak.csv", root / "psu_ripple.parquet", root / "shaker_run.npy") if p.is_file()]
+    for name in realdata.names():
+        got = realdata.load(name)
+        if not isinstance(got, str):
+            out.append((name, np.ascontiguousarray(got.data), got.spec.rate))
+    return out
+
+
+def main(argv: list[str] | None = None) -> int:
+    """``python -m tsarchive.bench.archive_bytes [--budget 1%] [--json out.json]``: pack every sample stream and
+    real bench set without a model and print where each archive's bytes go (one row per archive)."""
+    import argparse
+    import json
+    import tempfile
+
+    import numpy as np
+
+    from .. import pack
+
+    ap = argparse.ArgumentParser(prog="python -m tsarchive.bench.archive_bytes")
+    ap.add_argument("--budget", default="1%")
+    ap.add_argument("--json")
+    args = ap.parse_args(argv)
+    rows = []
+    head = f"{'stream':22s} {'samples':>8s} " + " ".join(f"{p[:9]:>9s}" for p in PARTS) + \
+        f" {'index':>6s} {'fixed':>6s} {'total':>6s}"
+    print(head)
+    with tempfile.TemporaryDirectory() as tmp:
+        for name, src, rate in _streams():
+            if isinstance(src, np.ndarray):
+                path = Path(tmp) / f"{name}.npy"
+                np.save(path, src)
+                src, n = path, len(src)
+            else:
+                n = None
+            arc = Path(tmp) / f"{name}.tsarchive"
+            pack(src, arc, args.budget, rate=rate, code_size=0, force=True)
+            b = breakdown(arc)
+            index = sum(size for m, size in b.members if m.startswith("index"))
+            from .. import open as open_archive
+            n = open_archive(arc).channels[0].n_samples if n is None else n
+            rows.append({"stream": name, "samples": n, **b.to_dict(), "index": index, "fixed": b.fixed,
+                         "total": b.total})
+            print(f"{name:22s} {n:8d} " + " ".join(f"{getattr(b, p):9d}" for p in PARTS) +
+                  f" {index:6d} {b.fixed:6d} {b.total:6d}", flush=True)
+    if args.json:
+        Path(args.json).write_text(json.dumps(rows, indent=1))
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

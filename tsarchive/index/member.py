@@ -1,4 +1,8 @@
-"""The ``index.parquet`` member: range-coded columns of the segment table, the coders in the footer metadata.
+"""The index member: range-coded columns of the segment table and the coders' description.
+
+Format 6 stores it as ``index.zst`` (:func:`to_bytes`: one zstd frame of the description's JSON, the
+rows, and their tables and payloads, without Parquet framing), format 5 as ``index.parquet``
+(:func:`parquet_bytes`; both are read).  What they hold:
 
 The index of a channel is a table of one row per segment: ``level`` (the
 segment's mean in units of ``level_step``), the code ``c0`` .. ``c{K-1}``
@@ -39,6 +43,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
+import zstandard
 
 from tsarchive import entropy
 from tsarchive.errors import ArchiveCorrupt
@@ -49,7 +54,9 @@ from .budget import fit_index, staged_bytes
 from .build import FACT_NAMES, ChannelIndex
 from .learn import Coder
 
-NAME = "index.parquet"
+NAME = "index.zst"            # format 6 (to_bytes); format 5 wrote PARQUET_NAME
+PARQUET_NAME = "index.parquet"
+MAX_BYTES = 1 << 30          # what an index.zst may declare it decompresses to
 KEY = b"tsarchive.index"
 VERSION = 1
 MAX_CODE_SIZE = 8
@@ -140,7 +147,35 @@ def write(folder: Path, index: list[ChannelIndex], *, fit: bool = True) -> Path 
 
 
 def to_bytes(index: list[ChannelIndex]) -> bytes:
-    """The member's bytes for ``index`` (the same bytes for the same index)."""
+    """The member's bytes for ``index`` (the same bytes for the same index): format 6's ``index.zst``, one
+    zstd frame (level 19, content size in its header) of ``<4-byte little-endian length> <JSON> <blobs>``:
+    the JSON is ``{"version": 2, "channels": [...], "rows": [[channel, part, first, n, table bytes,
+    payload bytes], ...]}`` (the columns of :data:`SCHEMA`) and the rows' tables and payloads follow it,
+    concatenated in row order.  No Parquet framing: a small index fits its byte budget."""
+    t = _rows(index)
+    blobs = [b for pair in zip(t["table"], t["payload"]) for b in pair]
+    rows = [[c, p, f, n, len(a), len(b)] for c, p, f, n, a, b in zip(*(t[k] for k in SCHEMA.names))]
+    meta = json.dumps({"version": 2, "channels": [_describe(ci) for ci in index], "rows": rows},
+                      separators=(",", ":"), sort_keys=True).encode("ascii")
+    raw = len(meta).to_bytes(4, "little") + meta + b"".join(blobs)
+    return zstandard.ZstdCompressor(level=19, write_content_size=True).compress(raw)
+
+
+def parquet_bytes(index: list[ChannelIndex]) -> bytes:
+    """The ``index.parquet`` member of format 5 for ``index`` (kept to make and read format-5 archives)."""
+    rows = _rows(index)
+    meta = {"version": VERSION, "channels": [_describe(ci) for ci in index]}
+    sink = pa.BufferOutputStream()
+    # no statistics and no dictionaries: the reader reads the whole (small) member, and both cost footer bytes
+    with pq.ParquetWriter(sink, SCHEMA, compression="zstd", compression_level=19, store_schema=False,
+                          write_statistics=False, use_dictionary=False) as w:
+        w.write_table(pa.table(rows, schema=SCHEMA))
+        w.add_key_value_metadata({KEY: json.dumps(meta, separators=(",", ":"), sort_keys=True).encode("ascii")})
+    return sink.getvalue().to_pybytes()
+
+
+def _rows(index: list[ChannelIndex]) -> dict[str, list]:
+    """The index's rows (columns of :data:`SCHEMA`), each part of each channel in blocks of :data:`BLOCK`."""
     rows: dict[str, list] = {n: [] for n in SCHEMA.names}
     for ci in index:
         for part, v in _parts(ci).items():
@@ -153,19 +188,35 @@ def to_bytes(index: list[ChannelIndex]) -> bytes:
                 rows["n"].append(len(vals))
                 rows["table"].append(table.to_bytes())
                 rows["payload"].append(entropy.encode(vals, table))
-    meta = {"version": VERSION, "channels": [_describe(ci) for ci in index]}
-    sink = pa.BufferOutputStream()
-    # no statistics and no dictionaries: the reader reads the whole (small) member, and both cost footer bytes
-    with pq.ParquetWriter(sink, SCHEMA, compression="zstd", compression_level=19, store_schema=False,
-                          write_statistics=False, use_dictionary=False) as w:
-        w.write_table(pa.table(rows, schema=SCHEMA))
-        w.add_key_value_metadata({KEY: json.dumps(meta, separators=(",", ":"), sort_keys=True).encode("ascii")})
-    return sink.getvalue().to_pybytes()
+    return rows
 
 
 def has_index(archive) -> bool:
     """Whether the archive lists an index member (archives packed before the index have none)."""
-    return NAME in archive.manifest.get("members", {})
+    listed = archive.manifest.get("members", {})
+    return NAME in listed or PARQUET_NAME in listed
+
+
+def _load_zst(path: Path) -> tuple[dict, pa.Table]:
+    """(description, rows) of a format-6 ``index.zst``, its declared size capped before decompressing."""
+    try:
+        blob = path.read_bytes()
+        size = zstandard.frame_content_size(blob)
+        if not 4 <= size <= MAX_BYTES:
+            raise ValueError(f"declares {size} bytes")
+        raw = zstandard.ZstdDecompressor().decompress(blob, max_output_size=size)
+        n = int.from_bytes(raw[:4], "little")
+        meta = json.loads(raw[4:4 + n])
+        rows, at = {k: [] for k in SCHEMA.names}, 4 + n
+        for c, p, f, k, lt, lp in meta["rows"]:
+            if not all(type(v) is int and v >= 0 for v in (f, k, lt, lp)) or at + lt + lp > len(raw):
+                raise ValueError("a row runs past the member")
+            for key, v in zip(SCHEMA.names, (c, p, f, k, raw[at:at + lt], raw[at + lt:at + lt + lp])):
+                rows[key].append(v)
+            at += lt + lp
+        return meta, pa.table(rows, schema=SCHEMA)
+    except (OSError, KeyError, TypeError, ValueError, zstandard.ZstdError, pa.ArrowException) as exc:
+        raise ArchiveCorrupt(f"{NAME} cannot be read ({str(exc)[:80]}); the archive is damaged") from None
 
 
 def _number(d: dict, key: str, lo: float, hi: float, integer: bool = False):
@@ -204,16 +255,22 @@ def _coder(d: dict) -> Coder:
 def read(archive, channel: str, *, facts: bool = True) -> ChannelIndex:
     """The stored index of ``channel`` (see :func:`has_index`); ArchiveCorrupt when damaged.  Without
     ``facts`` (a preview needs none) those columns are not read and come back as zeros."""
-    path = Path(archive.path) / NAME
-    opened = open_parquet(path.parent, NAME, Findings(strict=True))   # footer checked before pyarrow reads it
-    f, footer = opened
-    try:
-        meta = json.loads(footer.key_value.get(KEY, b"null"))
-        t = f.read(use_threads=False)                 # a small file: threads cost more than they save
+    folder = Path(archive.path)
+    if (folder / NAME).is_file():                     # format 6
+        meta, t = _load_zst(folder / NAME)
         t = t.filter(pc.equal(t["channel"], channel))
-    except (OSError, ValueError, KeyError, pa.ArrowException) as exc:   # KeyError: a renamed column
-        raise ArchiveCorrupt(f"{NAME} cannot be read ({str(exc)[:80]}); the archive is damaged") from None
-    if not isinstance(meta, dict) or meta.get("version") != VERSION or not isinstance(meta.get("channels"), list):
+        versions = (VERSION + 1,)
+    else:                                             # format 5: index.parquet
+        f, footer = open_parquet(folder, PARQUET_NAME, Findings(strict=True))   # footer checked first
+        try:
+            meta = json.loads(footer.key_value.get(KEY, b"null"))
+            t = f.read(use_threads=False)                 # a small file: threads cost more than they save
+            t = t.filter(pc.equal(t["channel"], channel))
+        except (OSError, ValueError, KeyError, pa.ArrowException) as exc:   # KeyError: a renamed column
+            raise ArchiveCorrupt(f"{PARQUET_NAME} cannot be read ({str(exc)[:80]}); the archive is damaged") \
+                from None
+        versions = (VERSION,)
+    if not isinstance(meta, dict) or meta.get("version") not in versions or not isinstance(meta.get("channels"), list):
         raise ArchiveCorrupt(f"{NAME} has no readable description; the archive is damaged or newer than this tsarchive")
     d = next((c for c in meta["channels"] if isinstance(c, dict) and c.get("name") == channel), None)
     if d is None:

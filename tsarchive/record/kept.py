@@ -11,7 +11,6 @@ Nothing in the archive folder itself is written.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 from dataclasses import dataclass
@@ -49,7 +48,8 @@ class CheckRecord:
 
 def manifest_sha256(archive: Path) -> str | None:
     try:
-        return hashlib.sha256((Path(archive) / MANIFEST).read_bytes()).hexdigest()
+        from tsarchive.store.inside import identity     # manifest.json's SHA-256, or format 6's footer digest
+        return identity(Path(archive))
     except OSError:
         return None
 
@@ -65,9 +65,11 @@ def _against_sha256(archive: Path, report, against) -> str:
         return ""
     if report.source_same:
         try:
-            src = json.loads((Path(archive) / MANIFEST).read_text(encoding="utf-8")).get("source", {})
+            from tsarchive.errors import TsArchiveError
+            from tsarchive.store.binding import read_manifest
+            src = read_manifest(Path(archive)).get("source", {})
             return str(src.get("sha256") or "")
-        except (OSError, ValueError, AttributeError):
+        except (OSError, ValueError, AttributeError, TsArchiveError):
             return ""
     from tsarchive.checksum import file_sha256
     from tsarchive.errors import TsArchiveError

@@ -76,11 +76,16 @@ def member_size(path: Path) -> int | None:
 
 
 def read_manifest(path: Path) -> dict:
-    """The manifest's JSON, read with a size cap; any failure is ArchiveCorrupt in one line."""
+    """The manifest's JSON (``manifest.json``, else the one inside ``windows.parquet``: format 6), read with a
+    size cap; any failure is ArchiveCorrupt in one line."""
     mpath = path / S.MANIFEST
     size = member_size(mpath)
     if size is None:
-        raise ArchiveCorrupt(f"{path} is not a tsarchive archive (no {S.MANIFEST}); pass an archive folder")
+        if member_size(path / S.WINDOWS) is None:
+            raise ArchiveCorrupt(f"{path} is not a tsarchive archive (no {S.MANIFEST} or {S.WINDOWS}); "
+                                 "pass an archive folder")
+        from .inside import read_inside       # format 6: the manifest inside windows.parquet's footer
+        return read_inside(path)
     if size > S.MAX_MANIFEST_BYTES:
         raise ArchiveCorrupt(f"{S.MANIFEST} is {size} bytes, more than {S.MAX_MANIFEST_BYTES}; "
                              "the archive is damaged or not a tsarchive archive")

@@ -31,6 +31,7 @@ from contextlib import contextmanager
 from pathlib import Path
 
 from ..errors import ArchiveExists, BadInput
+from .inside import is_archive
 
 try:
     import fcntl
@@ -43,7 +44,7 @@ _held: dict[Path, list] = {}          # target -> [claim fd, depth]
 
 
 def is_archive_dir(path: Path) -> bool:
-    return path.is_dir() and (path / "manifest.json").is_file()
+    return is_archive(path)
 
 
 def check_target(path: Path, force: bool) -> None:
@@ -137,7 +138,7 @@ def _tidy(path: Path) -> None:
     """Restore an archive left aside by a killed replacement, then remove the leftovers of killed runs."""
     name = glob.escape(path.name)
     asides = sorted(path.parent.glob(f".{name}.replaced-*"), key=lambda p: p.stat(follow_symlinks=False).st_mtime)
-    if asides and not os.path.lexists(path) and (asides[-1] / "manifest.json").is_file():
+    if asides and not os.path.lexists(path) and is_archive(asides[-1]):
         os.rename(asides.pop(), path)
     for p in [*asides, *path.parent.glob(f".{name}.staging-*")]:
         if p.is_dir() and not p.is_symlink():

@@ -12,6 +12,9 @@ Format 5 writes each fact once:
   only when it differs from the channel's ``dtype``;
 * a channel's ``summary`` without ``used_pct`` (derived), without zero
   predictor counts and without a zero ``n_exceptions``; no empty ``note``;
+* from format 6 on also without a step grid's ``step`` when it is exactly
+  ``2 x eps`` and without a channel's ``ratio`` when it is exactly what its
+  ``bits_per_sample`` gives (``8 x itemsize / bits``, 6 significant digits);
 * no ``time`` entry for the plain axis of a source without times (seconds
   from 0 at the rate, no start: :data:`PLAIN_AXIS`), which is what a reader
   assumes without one.
@@ -43,10 +46,14 @@ def compact(manifest: dict) -> dict:
         c.pop("eps", None)
         if grid.get("out_dtype") == c.get("dtype", shared.get("dtype")):
             del grid["out_dtype"]
+        if grid.get("kind") == "step" and _number(grid.get("eps")) and grid.get("step") == 2 * grid["eps"]:
+            del grid["step"]                  # format 6: a step grid's step is 2 eps (doubling is exact)
         if c.get("note") == "":
             del c["note"]
         s = c.get("summary", {})
         s.pop("used_pct", None)
+        if _number(s.get("bits_per_sample")) and s.get("ratio") == _ratio(s["bits_per_sample"], c, shared):
+            del s["ratio"]                    # format 6: 8 x the dtype's bytes / bits per sample
         s["modes"] = {k: v for k, v in s.get("modes", {}).items() if v}
         if s.get("n_exceptions") == 0:
             del s["n_exceptions"]
@@ -76,12 +83,18 @@ def expand(manifest: dict, predictors: tuple[str, ...]) -> dict:
         if isinstance(grid, dict):
             c.setdefault("eps", grid.get("eps"))
             grid.setdefault("out_dtype", c.get("dtype"))
+            if grid.get("kind") == "step" and _number(grid.get("eps")):
+                grid.setdefault("step", 2 * grid["eps"])
         c.setdefault("note", "")
         s = c.get("summary")
         if isinstance(s, dict):
             worst, eps = s.get("worst_error"), c.get("eps")
             if _number(worst) and _number(eps):
                 s.setdefault("used_pct", 100.0 * worst / eps if eps > 0 else (0.0 if worst == 0 else float("inf")))
+            if _number(s.get("bits_per_sample")) and "ratio" not in s:
+                got = _ratio(s["bits_per_sample"], c, {})
+                if got is not None:
+                    s["ratio"] = got
             if isinstance(s.get("modes"), dict):
                 s["modes"] = {**{p: 0 for p in predictors}, **s["modes"]}
             s.setdefault("n_exceptions", 0)
@@ -90,3 +103,18 @@ def expand(manifest: dict, predictors: tuple[str, ...]) -> dict:
 
 def _number(v) -> bool:
     return type(v) in (int, float)
+
+
+def _ratio(bits: float, channel: dict, shared: dict) -> float | None:
+    """A channel's reported ratio from its bits per sample (both from the same share of the archive's
+    bytes: ratio = 8 x itemsize / bits), to the 6 significant digits the manifest writes; None when the
+    channel's dtype is not a numpy dtype name."""
+    import math
+
+    import numpy as np
+    try:
+        size = np.dtype(channel.get("dtype", shared.get("dtype"))).itemsize
+    except TypeError:
+        return None
+    r = 8 * size / bits if bits > 0 else math.inf
+    return float(f"{r:.6g}") if math.isfinite(r) else r

@@ -1,4 +1,5 @@
-"""The lean window rows of format 5: a window's small facts packed into two integer columns.
+"""The lean window rows of format 5 (read only; format 6 writes lean6.py's): a window's small facts packed
+into two integer columns.
 
 Format 5 stores what formats 3 and 4 spread over ten columns in five (six
 with a model); the reader unpacks them into the same logical rows
@@ -74,42 +75,6 @@ def lean_schema(with_code: bool) -> pa.Schema:
     if not with_code:
         return LEAN_SCHEMA
     return LEAN_SCHEMA.insert(LEAN_SCHEMA.get_field_index("level") + 1, S.CODE_FIELD)
-
-
-# Statistics on ``key`` only; the entropy-coded residuals are stored as they are (zstd finds nothing in
-# them and its frame costs bytes); CRCs are PLAIN (random), the rest delta-packed or byte-split.
-WRITER_OPTS = dict(
-    compression={"key": "zstd", "facts": "zstd", "level": "zstd", "code.list.element": "zstd", "residual": "none",
-                 "score": "zstd"},
-    compression_level={"key": 9, "facts": 9, "level": 9, "code.list.element": 9, "score": 9}, store_schema=False, write_statistics=["key"], use_dictionary=False,
-    column_encoding={"key": "DELTA_BINARY_PACKED", "facts": "BYTE_STREAM_SPLIT", "level": "DELTA_BINARY_PACKED",
-                     "residual": "DELTA_LENGTH_BYTE_ARRAY", "score": "BYTE_STREAM_SPLIT"})
-
-
-def writer_opts(schema: pa.Schema) -> dict:
-    """Writer options for the columns this schema has."""
-    keep = set(schema.names) | ({"code.list.element"} if "code" in schema.names else set())
-    return dict(WRITER_OPTS, compression={k: v for k, v in WRITER_OPTS["compression"].items() if k in keep},
-                compression_level={k: v for k, v in WRITER_OPTS["compression_level"].items() if k in keep},
-                column_encoding={k: v for k, v in WRITER_OPTS["column_encoding"].items() if k in keep})
-
-
-def _u8(col) -> np.ndarray:
-    return np.asarray(col.to_numpy() if hasattr(col, "to_numpy") else col).astype(np.int8).view(np.uint8).astype(
-        np.int64)
-
-
-def pack(rows: pa.Table, channel: int, with_code: bool) -> pa.Table:
-    """Logical window rows of one channel -> lean rows."""
-    window = rows["window"].to_numpy().astype(np.int64)
-    facts = (rows["crc32"].to_numpy().astype(np.int64)
-             | rows["worst"].to_numpy().astype(np.int64) << 32 | _u8(rows["table"]) << 40
-             | _u8(rows["lpc_set"]) << 48 | _u8(rows["mode"]) << 56)
-    cols = {"key": (np.int64(channel) << CHANNEL_SHIFT) | window, "facts": facts, "level": rows["level"]}
-    if with_code:
-        cols["code"] = rows["code"]
-    cols.update(residual=rows["residual"], score=rows["score"])
-    return pa.table(cols, schema=lean_schema(with_code))
 
 
 def unpack(t: pa.Table, name: str, columns: list[str] | None) -> pa.Table:

@@ -50,13 +50,13 @@ def build_manifest(rec: Recording, spec, codecs, notes, W: int, K: int, decoder,
     for j, ch in enumerate(rec.channels):
         s, g = summaries[j], codecs[j].grid
         share = archive_bytes * s.bytes_est / est_total
-        raw = rec.n_samples * np.dtype(ch.dtype).itemsize
+        bits = _sig(8 * share / max(rec.n_samples, 1))
         channels.append({
             **ch.to_dict(), "rate": rec.rate, "start": iso(axis_start(rec)), "n_samples": rec.n_samples,
             "budget": spec.for_channel(ch.name).spec, **codecs[j].to_dict(), "note": notes[j],
             "summary": {"worst_error": s.worst_error, "used_pct": _sig(used_pct(s.worst_error, g.eps)),
-                        "ratio": _sig(raw / share if share else math.inf),
-                        "bits_per_sample": _sig(8 * share / max(rec.n_samples, 1)),
+                        "ratio": _sig(8 * np.dtype(ch.dtype).itemsize / bits if bits else math.inf),   # = raw / share
+                        "bits_per_sample": bits,
                         "n_exceptions": s.n_exceptions, "modes": dict(s.modes)},
         })
     return {

@@ -25,10 +25,11 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from ..errors import ArchiveCorrupt
-from . import lean
+from . import lean, lean6
 from . import schema as S
 from .binding import file_sha256, footer_digest, manifest_digest, member_size
 from .footer import BYTE_ARRAY, DICTIONARY_ENCODINGS, Footer, read_footer
+from .inside import footer_problem, prefix_sha256, stored_in
 from .parse import ChannelMeta, Member, ModelSpec
 
 
@@ -42,6 +43,7 @@ class Opened:
     bound: bool
     damage: tuple[str, ...]
     decodable: bool
+    runs: tuple = ()           # format 6: per row group, its (channel, first window, end window) runs (lean6.py)
 
 
 def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...], window: int,
@@ -53,11 +55,13 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
     found = Findings(strict)
     check_sizes(path, members, found)
     wf = open_parquet(path, S.WINDOWS, found) if found.decodable else None
-    bound, groups, decoder = False, {}, None
+    bound, groups, decoder, runs = False, {}, None, ()
     if wf is not None:
-        bound = check_binding(wf[1], manifest, version, found)
-        read_groups = row_groups if version < S.LEAN_FROM_VERSION else lean_groups
-        groups = read_groups(*wf, channels, window, found)
+        bound = check_binding(path, wf[1], manifest, version, found)
+        if version >= S.INSIDE_FROM_VERSION:
+            groups, runs = lean6_groups(*wf, channels, window, found, manifest.get("groups"))
+        else:
+            groups = (row_groups if version < S.LEAN_FROM_VERSION else lean_groups)(*wf, channels, window, found)
     if found.decodable and S.EXCEPTIONS in {x.name for x in members}:
         ef = open_parquet(path, S.EXCEPTIONS, found)
         if ef is not None:
@@ -66,17 +70,19 @@ def inspect(path: Path, manifest: dict, version: int, members: tuple[Member, ...
     if found.decodable and model is not None:
         mf = open_parquet(path, S.MODEL, found)
         decoder = None if mf is None else load_model(*mf, model, found, make_decoder)
-    return Opened(wf and wf[0], groups, decoder, bound, tuple(found.problems), found.decodable)
+    return Opened(wf and wf[0], groups, decoder, bound, tuple(found.problems), found.decodable, runs)
 
 
 def member_problems(path: Path, members: tuple[Member, ...]) -> list[str]:
-    """Every listed member hashed against the manifest's SHA-256 (a full read), and files it does not list."""
+    """Every listed member hashed against the manifest's SHA-256 (a full read; format 6's windows.parquet up
+    to its footer, which its own digest covers: inside.py), and files the manifest does not list."""
     out = []
+    listed = {m.name for m in members} | {S.MANIFEST}
     for m in members:
         p = path / m.name
-        if member_size(p) is not None and file_sha256(p) != m.sha256:
+        size = member_size(p)
+        if size is not None and (prefix_sha256(p, m.bytes) if m.prefix else file_sha256(p)) != m.sha256:
             out.append(f"member {m.name}: SHA-256 differs from the manifest (file damaged or replaced)")
-    listed = {m.name for m in members} | {S.MANIFEST}
     out.extend(f"member {p.name}: not listed in the manifest (added after packing)"
                for p in sorted(path.iterdir()) if p.name not in listed)
     return out
@@ -102,7 +108,10 @@ def check_sizes(path: Path, members: tuple[Member, ...], found: Findings) -> Non
         size = member_size(path / m.name)
         if size is None:
             found.add(f"archive member {m.name} is missing; the archive is incomplete", fatal=True)
-        elif size != m.bytes:
+        elif m.prefix and size < m.bytes + 12:
+            found.add(f"archive member {m.name} is {size} bytes, shorter than the {m.bytes} bytes of window rows "
+                      "the manifest declares: it was truncated; restore the archive from a copy")
+        elif size != m.bytes and not m.prefix:
             found.add(f"archive member {m.name} is {size} bytes but the manifest says {m.bytes}: it was truncated "
                       "or replaced; restore the archive from a copy")
 
@@ -141,8 +150,18 @@ def leaves_bounded(footer: Footer, per_row: dict[str, int], row_bytes: int) -> b
     return True
 
 
-def check_binding(footer: Footer, manifest: dict, version: int, found: Findings) -> bool:
-    """True when the manifest is bound to windows.parquet (False: an unbound version-3 archive)."""
+def check_binding(path: Path, footer: Footer, manifest: dict, version: int, found: Findings) -> bool:
+    """True when the manifest is bound to windows.parquet (False: an unbound version-3 archive).  Format 6
+    keeps it inside that file, under the file's digest (checked with the members: :func:`member_problems`)."""
+    if version >= S.INSIDE_FROM_VERSION:
+        if stored_in(footer) is None or len((footer.key_value or {}).get(S.DIGEST_KEY, b"")) != 32:
+            found.add(f"{S.WINDOWS} does not carry the manifest and its digest; the archive is damaged", True)
+        else:
+            data = manifest.get("data", {})
+            problem = footer_problem(path / S.WINDOWS, data.get("bytes") if isinstance(data, dict) else None)
+            if problem:
+                found.add(problem)
+        return True
     stored = footer_digest(footer.key_value)
     if stored is None:
         if version >= S.BOUND_FROM_VERSION:
@@ -249,6 +268,36 @@ def lean_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, 
         found.add(f"the manifest declares {total} windows but {S.WINDOWS} holds {footer.num_rows}; "
                   "the archive is damaged", True)
     return out
+
+
+def lean6_groups(f: pq.ParquetFile, footer: Footer, channels: tuple[ChannelMeta, ...], window: int,
+                 found: Findings, starts) -> tuple[dict[str, list[tuple[int, int, int]]], tuple]:
+    """Format 6 (store/lean6.py): channel -> [(row group, first window, last window)] and each group's runs,
+    from the manifest's ``groups``, after checking the columns, the declared sizes and that the groups tile
+    every channel's windows exactly once."""
+    schema, limit = _windows_columns(f, footer, lean6.lean6_schema, window, found)
+    if schema is None:
+        return {}, ()
+    for g, rg in enumerate(footer.groups):
+        if rg.total_byte_size > rg.num_rows * limit:
+            found.add(f"{S.WINDOWS} row group {g} declares {rg.total_byte_size} bytes for {rg.num_rows} windows "
+                      f"of {window} samples; the archive is damaged or crafted", True)
+            return {}, ()
+    total = sum(c.n_windows for c in channels)
+    if footer.num_rows != total:
+        found.add(f"the manifest declares {total} windows but {S.WINDOWS} holds {footer.num_rows}; "
+                  "the archive is damaged", True)
+        return {}, ()
+    try:
+        runs = lean6.runs(starts, [rg.num_rows for rg in footer.groups], [c.n_windows for c in channels])
+    except ValueError as exc:
+        found.add(f"{exc}; the archive is damaged", True)
+        return {}, ()
+    out: dict[str, list[tuple[int, int, int]]] = {}
+    for g, mine in enumerate(runs):
+        for c, a, b in mine:
+            out.setdefault(channels[c].name, []).append((g, a, b - 1))
+    return out, tuple(tuple(m) for m in runs)
 
 
 def check_exceptions(f: pq.ParquetFile, footer: Footer, window: int, total_windows: int, found: Findings,

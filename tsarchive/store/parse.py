@@ -83,6 +83,7 @@ class Member:
     name: str
     bytes: int
     sha256: str
+    prefix: bool = False     # bytes and SHA-256 of the file's first bytes only (format 6's windows.parquet rows)
 
 
 @dataclass(frozen=True)
@@ -154,7 +155,8 @@ def expanded(m: dict, version: int) -> dict:
     return expand(m, tuple(p.name for p in PREDICTORS.values()))
 
 
-def members(m: dict) -> tuple[Member, ...]:
+def members(m: dict, version: int = S.FORMAT_VERSION) -> tuple[Member, ...]:
+    """The member files the manifest lists (format 6 lists every file but windows.parquet, which holds it)."""
     d = obj(m, "members")
     if len(d) > S.MAX_MEMBERS:
         raise corrupt(f"members lists {len(d)} files, more than {S.MAX_MEMBERS}")
@@ -170,9 +172,16 @@ def members(m: dict) -> tuple[Member, ...]:
             raise corrupt(f"{where}sha256 is not 64 lowercase hex digits")
         out.append(Member(name, integer(info, "bytes", 0, S.MAX_MEMBER_BYTES, where), sha))
     names = {x.name for x in out}
+    inside = version >= S.INSIDE_FROM_VERSION
     for need in S.REQUIRED_MEMBERS:
-        if need not in names:
-            raise corrupt(f"members does not list {need}")
+        if (need in names) == inside:
+            raise corrupt(f"members {'lists' if inside else 'does not list'} {need}")
+    if inside:
+        d = obj(m, "data")
+        sha = text(d, "sha256", "data.", limit=64)
+        if not _HEX64.fullmatch(sha):
+            raise corrupt("data.sha256 is not 64 lowercase hex digits")
+        out.append(Member(S.WINDOWS, integer(d, "bytes", 4, S.MAX_MEMBER_BYTES, "data."), sha, prefix=True))
     if (S.MODEL in names) != (m.get("model") is not None):
         raise corrupt(f"model and members disagree on whether {S.MODEL} exists")
     return tuple(out)

@@ -1,15 +1,15 @@
-"""The archive's on-disk layout (format ``tsarchive`` version 5).
+"""The archive's on-disk layout (format ``tsarchive`` version 6).
 
 An archive is a directory::
 
-    manifest.json       format, tool version, channels (budgets, grids, LPC sets,
-                        entropy tables), summary, SHA-256 of every member file
-                        (its own digest is in windows.parquet's footer: binding.py);
-                        compact from format 5 on: facts shared by every channel
-                        once, in ``channel_defaults`` (compact.py)
     windows.parquet     one row per channel window (residual payloads, checksums,
-                        and the autoencoder code when the archive keeps a model);
-                        from format 5 on in the lean columns of lean.py
+                        and the autoencoder code when the archive keeps a model),
+                        in lean6.py's columns; its footer holds the manifest
+                        (format, tool version, channels with budgets, grids, LPC
+                        sets, entropy tables, summary, the row-group map, the
+                        rows' and every other member's SHA-256; compact: facts
+                        shared by every channel once, compact.py), zstd, and the
+                        footer's own digest (inside.py)
     exceptions.parquet  one row per window holding samples stored verbatim
                         (NaN, infinities, unrepresentable values); only when any
     model.parquet       one row per decoder array (plain integers, no pickle);
@@ -17,6 +17,11 @@ An archive is a directory::
     time.parquet        the logged times when they follow no rate rule in runs
                         (jitter); only when the manifest's ``time`` says so
     extra.parquet       the source's text columns (status, notes); only when any
+    index.zst           the learned index (tsarchive/index/member.py); optional
+
+Formats 3 to 5 kept the manifest in ``manifest.json`` (its digest in
+windows.parquet's footer: binding.py), format 5 the window rows in lean.py's
+columns and the index in ``index.parquet``.
 
 Why a directory: every member is a plain Parquet or JSON file that any
 reader opens on its own, optional members (and new ones, such as an index)
@@ -29,7 +34,10 @@ Version 4 binds the manifest to the data (binding.py), keeps the logged time
 axis, notes and text columns, and adds the optional grid fields ``origin``,
 ``verbatim`` and ``missing``.  Version 5 is the lean container: the window
 facts packed into ``key`` and ``facts`` (lean.py), the channels' last windows
-sharing a row group, and the compact manifest (compact.py).  The columns
+sharing a row group, and the compact manifest (compact.py).  Version 6
+keeps that manifest zstd-compressed inside ``windows.parquet``'s footer with
+its footer's digest and the rows' digest (inside.py): no ``manifest.json``, and
+the window rows in lean6.py's columns.  The columns
 below (``WINDOWS_SCHEMA``, ``EXCEPTIONS_SCHEMA``) are the logical rows every
 version is read as, and those stored by versions 3 and 4.
 """
@@ -39,13 +47,16 @@ from __future__ import annotations
 import pyarrow as pa
 
 FORMAT_NAME = "tsarchive"
-FORMAT_VERSION = 5
+FORMAT_VERSION = 6
 OLDEST_READABLE = 3                    # the oldest format version this tool still reads
 LEAN_FROM_VERSION = 5                  # from this version on, windows.parquet has the lean columns (lean.py)
 BOUND_FROM_VERSION = 4                 # from this version on, the manifest must be bound to windows.parquet
 BINDING_KEY = b"tsarchive.manifest_sha256"   # windows.parquet footer key: SHA-256 of the manifest (binding.py)
+INSIDE_FROM_VERSION = 6                # from this version on, the manifest is inside windows.parquet (inside.py)
+MANIFEST_KEY = b"tsarchive"            # windows.parquet footer key of format 6: the manifest, zstd (inside.py)
+DIGEST_KEY = b"tsarchive.sha256"       # ... and the footer's SHA-256, taken with these 32 bytes zeroed
 
-MANIFEST = "manifest.json"
+MANIFEST = "manifest.json"             # formats 3 to 5 (format 6 keeps it inside windows.parquet)
 WINDOWS = "windows.parquet"
 MODEL = "model.parquet"
 EXCEPTIONS = "exceptions.parquet"

@@ -4,9 +4,9 @@ Nothing half-written is ever left at the target path: the target is claimed
 for the whole write (``store/claim.py``), on any error (or cancellation) the
 staging folder is removed, and an existing archive is only replaced (with
 ``force``) once the new one is complete, in one atomic exchange where the
-system has one.  The manifest is bound to ``windows.parquet`` both ways
-(``store/binding.py``): its digest goes into that file's footer, and every
-member file's SHA-256 into the manifest.
+system has one.  The manifest goes into ``windows.parquet``'s footer with
+every other member's SHA-256 and the window rows' SHA-256, and the footer's
+own digest into it (``store/inside.py``): every byte is bound.
 """
 
 from __future__ import annotations
@@ -24,8 +24,8 @@ import pyarrow.parquet as pq
 from ..checksum import file_sha256
 from ..errors import BadInput
 from . import schema as S
-from . import lean
-from .binding import manifest_digest
+from . import lean, lean6
+from . import inside
 from .compact import compact
 from .claim import check_target, claim_target, is_archive_dir, move_into_place, staging_name  # noqa: F401
 
@@ -44,13 +44,15 @@ class ArchiveWriter:
         try:
             self.force = force
             self.with_code = with_code
-            self.schema = lean.lean_schema(with_code)
+            self.schema = lean6.lean6_schema(with_code)
             self.stage = staging_name(self.path)
             self.stage.mkdir()
         except BaseException:
             self._claim.close()
             raise
         self._windows: pq.ParquetWriter | None = None
+        self._sink: pa.OSFile | None = None
+        self._groups: list[list[int]] = []      # [channel, first window] of each row group (lean6.py)
         self._exceptions: pq.ParquetWriter | None = None
         self._committed = False
 
@@ -72,6 +74,9 @@ class ArchiveWriter:
             if w is not None:
                 w.close()
                 setattr(self, name, None)
+        if "_windows" in names and getattr(self, "_sink", None) is not None:
+            self._sink.close()
+            self._sink = None
 
     def add_windows(self, rows: pa.Table) -> None:
         """Append logical window rows (``schema.WINDOWS_SCHEMA``) of one channel, in window order.
@@ -82,17 +87,26 @@ class ArchiveWriter:
             return
         channel = self._index[rows["channel"][0].as_py()]
         pending = self._pending.setdefault(channel, [])
-        pending.append(lean.pack(rows, channel, self.with_code))
+        key = (np.int64(channel) << lean.CHANNEL_SHIFT) | rows["window"].to_numpy().astype(np.int64)
+        pending.append(lean6.pack(rows, self.with_code).append_column("key", pa.array(key)))
         held = pa.concat_tables(pending)
         full = held.num_rows - held.num_rows % S.ROW_GROUP_WINDOWS
         if full:
             self._write(held.slice(0, full))
         self._pending[channel] = [held.slice(full)] if full < held.num_rows else []
 
+    def _open_windows(self) -> None:
+        if self._windows is None:    # an unbuffered sink: every row group is in the file once written (finalize)
+            self._sink = pa.OSFile(str(self.stage / S.WINDOWS), "wb")
+            self._windows = pq.ParquetWriter(self._sink, self.schema, **lean6.writer_opts(self.schema))
+
     def _write(self, rows: pa.Table) -> None:
-        if self._windows is None:
-            self._windows = pq.ParquetWriter(self.stage / S.WINDOWS, self.schema, **lean.writer_opts(self.schema))
-        self._windows.write_table(rows, row_group_size=S.ROW_GROUP_WINDOWS)
+        """Rows (with their ``key``, which the file does not keep) in row groups of ``ROW_GROUP_WINDOWS``;
+        each group's first window goes to the manifest's ``groups`` (lean6.py)."""
+        self._open_windows()
+        if rows.num_rows:
+            self._groups += lean6.group_starts(rows["key"].to_numpy())
+        self._windows.write_table(rows.drop_columns(["key"]), row_group_size=S.ROW_GROUP_WINDOWS)
 
     def add_exceptions(self, rows: pa.Table) -> None:
         """Append one channel's windows with verbatim samples (the member exists only if this is called)."""
@@ -128,8 +142,9 @@ class ArchiveWriter:
         """Every channel's remaining rows, together in channel order (rows arrive no more after this)."""
         rest = [t for c in sorted(self._pending) for t in self._pending[c]]
         self._pending = {}
-        if rest or self._windows is None:
-            self._write(pa.concat_tables(rest) if rest else self.schema.empty_table())
+        if rest:
+            self._write(pa.concat_tables(rest))
+        self._open_windows()
 
     def staged_bytes(self) -> int:
         """Bytes staged so far, every window row included (windows.parquet stays open for its footer: its
@@ -139,25 +154,25 @@ class ArchiveWriter:
         return sum(p.stat().st_size for p in self.stage.iterdir())
 
     def finalize(self, manifest: dict) -> Path:
-        """Write the manifest (with member checksums) into the staging folder.
+        """Seal the staged archive: the manifest (compact, with every other member's size and SHA-256) goes
+        into windows.parquet's footer, zstd-compressed, and the footer's digest into its slot (inside.py).
 
         Returns the staging folder, which is a complete archive that can be
         opened and checked before :meth:`commit` moves it into place.
         """
         self._flush_pending()
-        self._windows.add_key_value_metadata({lean.LAYOUT_KEY: lean.LAYOUT})
+        self._close(("_exceptions",))
         manifest = json.loads(json.dumps(compact(manifest)))  # the values exactly as a reader will see them
-        manifest.pop("members", None)
-        self._windows.add_key_value_metadata({S.BINDING_KEY: manifest_digest(manifest).encode("ascii")})
-        self._close()
         members = {}
         for p in sorted(self.stage.iterdir()):               # every member, whoever added it, is listed
-            if p.name != S.MANIFEST:
+            if p.name != S.WINDOWS:
                 members[p.name] = {"bytes": p.stat().st_size, "sha256": file_sha256(p)}
-        manifest = dict(manifest, members=members)
-        with open(self.stage / S.MANIFEST, "w", encoding="utf-8") as fh:
-            json.dump(manifest, fh, separators=(",", ":"))
-            fh.write("\n")
+        data = self._sink.tell()                              # the window rows, before the footer
+        manifest = dict(manifest, layout=lean6.LAYOUT, groups=self._groups, members=members,
+                        data={"bytes": data, "sha256": inside.prefix_sha256(self.stage / S.WINDOWS, data)})
+        self._windows.add_key_value_metadata({S.MANIFEST_KEY: inside.compress(manifest), S.DIGEST_KEY: inside.ZERO})
+        self._close()
+        inside.seal(self.stage / S.WINDOWS)
         for p in self.stage.iterdir():
             with open(p, "rb") as fh:
                 os.fsync(fh.fileno())

@@ -1,0 +1,93 @@
+"""Make the golden archives of format 6: ``python tests/golden/v6/make_golden.py`` (once; never again after
+format 6 has shipped).
+
+The source is format 5's committed ``tests/golden/v5/source.csv`` (the invented bench log of rig 2,
+8500 rows): every predictor, several LPC sets, a NaN and a ``-9999`` sentinel held verbatim,
+the integer decoder, naive times with a gap and jitter (``time.parquet``), notes, a text column
+(``extra.parquet``) and an integer channel beyond 2**53 with an empty cell.  It is packed into
+``golden6`` and its decoded samples saved in ``expected.npz``, which ``tests/test_golden_v6.py``
+reproduces bit for bit; ``coders6`` (one range-coded and one adaptive-coded channel, no model) with
+``expected_coders.npz`` likewise.
+
+What format 6 adds is frozen too (``store/inside.py``, ``store/lean6.py``): no ``manifest.json``, the
+manifest zstd-compressed with ``manifest6.zdict`` in ``windows.parquet``'s footer with the footer's
+digest and the rows' digest, the 20-byte ``facts`` column, the row groups mapped by the manifest's
+``groups`` (264 windows a channel in windows of 32: a full group each and one shared group), and the
+compact manifest without a step grid's ``step`` and a channel's derivable ``ratio``.
+"""
+
+from __future__ import annotations
+
+import shutil
+import sys
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parents[2]
+SOURCE = HERE.parent / "v5" / "source.csv"     # format 5's committed source, used as it is
+
+
+def main() -> None:
+    sys.path.insert(0, str(ROOT))          # this worktree's tsarchive, whatever the install points at
+    import pyarrow.parquet as pq
+
+    import tsarchive
+    from tsarchive.ingest import ReadOptions
+    from tsarchive.store.binding import read_manifest
+    assert Path(tsarchive.__file__).parent == ROOT / "tsarchive", tsarchive.__file__
+
+    out = HERE / "golden6"
+    shutil.rmtree(out, ignore_errors=True)
+    budget = "strain=0.5,temp=lossless,counts=lossless,serial=3"
+    tsarchive.pack(SOURCE, out, budget, window=32, code_size=4, train_seconds=5, seed=2,
+                   read_options=ReadOptions.build(missing="-9999"), segment=64)
+    arc = tsarchive.open(out)
+    stored = read_manifest(out)
+    meta = pq.ParquetFile(out / "windows.parquet").metadata
+    rows = [meta.row_group(g).num_rows for g in range(meta.num_row_groups)]
+    frozen = {   # what this archive must freeze -> whether it does
+        "several LPC sets": len(arc.channel("strain").lpc) > 1,
+        "every predictor (else try another seed)": {m for c in arc.channels for m, k in c.modes if k} == {
+            "prev", "prev2", "ae", "ae+prev", "lpc"},
+        "every optional member": {"time.parquet", "extra.parquet", "exceptions.parquet", "model.parquet",
+                                  "index.zst"} <= set(arc.manifest["members"]),
+        "no manifest.json": not (out / "manifest.json").exists(),
+        "a row group of one channel": 256 in rows,
+        "a row group shared by channels": any(n == 32 for n in rows),
+        "the compact manifest": "channel_defaults" in stored,
+        "a step grid without its step": any(c["grid"]["kind"] == "step" and "step" not in c["grid"]
+                                            for c in stored["channels"]),
+    }
+    missing = [what for what, ok in frozen.items() if not ok]
+    assert not missing, f"the golden archive does not freeze: {missing}"
+    _expect(arc, "expected.npz", times=arc.times().values)
+    coders()
+
+
+def _expect(arc, name: str, **more) -> None:
+    """The archive's decoded samples (data and masks) saved beside it for the bit-for-bit test."""
+    x = {c.name: arc.read(c.name) for c in arc.channels}
+    np.savez_compressed(HERE / name, **{n: np.ma.getdata(v) for n, v in x.items()},
+                        **{f"{n}.mask": np.ma.getmaskarray(v) for n, v in x.items()}, **more)
+    print(f"wrote {arc.path} ({arc.archive_bytes} bytes) and {name}")
+
+
+def coders() -> None:
+    """The small archive whose channels are range coded and adaptive coded (the packer's own choice,
+    tests/coder_kit.py), with its decoded samples in ``expected_coders.npz``."""
+    import tsarchive
+    sys.path.insert(0, str(HERE.parents[1]))
+    from coder_kit import coder_ids, pack_with_coders
+
+    out = HERE / "coders6"
+    shutil.rmtree(out, ignore_errors=True)
+    pack_with_coders(out, 20_000, segment=256)
+    out.with_suffix(".npy").unlink()
+    assert set(coder_ids(out)) == {None, "adaptive"}, "the coders archive does not freeze both coders"
+    _expect(tsarchive.open(out), "expected_coders.npz")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,91 @@
+"""Format 6 (the manifest inside windows.parquet) frozen: ``tests/golden/v6/golden6`` and ``coders6`` are
+decoded bit for bit on every run.
+
+A failure here means the archive format changed.  Changing it is deliberate:
+a new FORMAT_VERSION, this archive still read, a new golden archive beside
+it (DEVELOPERS.md, "Changing the format") and a CHANGELOG entry.
+"""
+
+import hashlib
+import json
+from pathlib import Path
+
+import golden_checks
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+import zstandard
+
+import tsarchive
+from tsarchive.predict import PREDICTORS
+from tsarchive.store import schema as S
+
+HERE = Path(__file__).resolve().parent / "golden" / "v6"
+ARC = HERE / "golden6"
+SOURCE = HERE.parent / "v5" / "source.csv"        # format 5's source, packed again
+DICTIONARY = Path(tsarchive.__file__).parent / "store" / "manifest6.zdict"
+
+
+def _stored(arc: Path) -> dict:
+    """The manifest with pyarrow and zstandard only, as DEVELOPERS.md documents it."""
+    blob = pq.read_metadata(arc / S.WINDOWS).metadata[b"tsarchive"]
+    d = zstandard.ZstdCompressionDict(DICTIONARY.read_bytes(), dict_type=zstandard.DICT_TYPE_RAWCONTENT)
+    return json.loads(zstandard.ZstdDecompressor(dict_data=d).decompress(blob))
+
+
+def test_golden_decodes_bit_for_bit_and_within_budget_of_its_source():
+    golden_checks.decodes_bit_for_bit(HERE, ARC)
+    rep = tsarchive.verify(ARC, against=SOURCE)
+    assert rep.ok and rep.checksums_ok and rep.compared, rep.problems
+    arc = tsarchive.open(ARC)
+    assert arc.channel("strain").eps == 0.5 and arc.channel("temp").eps == 0.0 and arc.channel("serial").eps == 3
+    assert arc.manifest["model"] is not None  # the golden archive exercises the integer decoder
+
+
+def test_golden_layout_and_manifest_are_version_6():
+    assert not (ARC / "manifest.json").exists()
+    manifest = _stored(ARC)
+    assert manifest["format"] == "tsarchive" and manifest["format_version"] == 6 == S.FORMAT_VERSION
+    assert set(manifest["members"]) == {"index.zst", "exceptions.parquet", "model.parquet", "time.parquet",
+                                        "extra.parquet"}
+    # every byte bound: the rows before the footer and each member by SHA-256 (hashlib, FIPS 180-4), the
+    # footer by the digest in its slot (Thrift compact: KeyValue field 2, binary, length 32)
+    raw = (ARC / S.WINDOWS).read_bytes()
+    n = int.from_bytes(raw[-8:-4], "little")
+    footer = raw[len(raw) - 8 - n:-8]
+    assert manifest["data"] == {"bytes": len(raw) - 8 - n, "sha256": hashlib.sha256(raw[:len(raw) - 8 - n]).hexdigest()}
+    at = footer.rindex(b"tsarchive.sha256\x18\x20") + 18
+    assert footer[at:at + 32] == hashlib.sha256(footer[:at] + bytes(32) + footer[at + 32:]).digest()
+    for name, m in manifest["members"].items():
+        assert m == {"bytes": (ARC / name).stat().st_size,
+                     "sha256": hashlib.sha256((ARC / name).read_bytes()).hexdigest()}
+    # the columns, by name and type as DEVELOPERS.md lists them (format 6), no statistics
+    assert [(f.name, str(f.type), f.nullable) for f in pq.read_schema(ARC / S.WINDOWS).remove_metadata()] == [
+        ("facts", "fixed_size_binary[20]", False), ("code", "list<element: int8>", True),
+        ("residual", "binary", False)]
+    meta = pq.ParquetFile(ARC / S.WINDOWS).metadata
+    rows = [meta.row_group(g).num_rows for g in range(meta.num_row_groups)]
+    # 264 windows a channel: a full row group of 256 each, and one group of the 4 x 8 left over
+    assert sorted(zip(map(tuple, manifest["groups"]), rows)) == [
+        ((0, 0), 256), ((0, 256), 32), ((1, 0), 256), ((2, 0), 256), ((3, 0), 256)]
+    assert not any(meta.row_group(g).column(c).is_stats_set for g in range(len(rows)) for c in range(3))
+    layout = np.dtype([("crc32", "<u4"), ("level", "<i8"), ("score", "<f4"), ("worst", "u1"), ("table", "i1"),
+                       ("lpc_set", "i1"), ("mode", "i1")])
+    col = pq.read_table(ARC / S.WINDOWS, columns=["facts"])["facts"].combine_chunks()
+    assert col.type == pa.binary(20)
+    facts = np.frombuffer(col.buffers()[1], np.uint8)[:20 * len(col)].view(layout)
+    assert set(facts["mode"].tolist()) == set(PREDICTORS)          # every predictor is frozen here
+    assert len(set(facts["lpc_set"].tolist())) >= 2                 # and more than one LPC set
+    # the compact manifest: shared facts once, eps in the grid only, no step = 2 eps
+    assert manifest["channel_defaults"]["rate"] == 50.0 and manifest["channel_defaults"]["n_samples"] == 8440
+    assert all("eps" not in c and "rate" not in c for c in manifest["channels"])
+    assert any(c["grid"]["kind"] == "step" and "step" not in c["grid"] for c in manifest["channels"])
+    golden_checks.format_4_fields(manifest)
+
+
+def test_golden_text_column_and_gap_come_back():
+    golden_checks.text_column_and_gap_come_back(ARC)
+
+
+def test_coders_golden_decodes_bit_for_bit_with_both_residual_coders_and_its_index():
+    golden_checks.coders_bit_for_bit(HERE, HERE / "coders6", "index.zst")
