@@ -121,3 +121,26 @@ def test_levels_of_large_integers_stay_exact_enough():
     true_mean = np.array([float(np.mean(x[i:i + ci.segment].astype(np.float64)))
                           for i in range(0, len(x), ci.segment)])
     assert np.all(np.abs(ci.mean - true_mean) <= ci.level_step)   # numpy means, within one level step
+
+
+def test_a_nonlinear_coder_too_big_to_keep_is_not_trained(monkeypatch):
+    # speed (issue 12): the decoder's size is known before training; one that the byte rule would drop
+    # anyway must not cost its training (it took 4 s a channel of the bench's speed record)
+    X = _low_rank(n=700, S=32)
+    K = 3
+    lin = learn.choose(X, K, raw_bytes=10 ** 12, try_nonlinear=False)
+
+    def refuse(*a, **k):
+        raise AssertionError("trained a decoder that cannot be kept")
+    monkeypatch.setattr(learn, "fit_nonlinear", refuse)
+    small = 2 * (K * learn.AE_HIDDEN + learn.AE_HIDDEN + learn.AE_HIDDEN * 32 + 32)   # K -> hidden -> S, with biases
+    got = learn.choose(X, K, raw_bytes=int(small / learn.MODEL_SHARE) - 1)
+    assert got.kind == "linear" and np.isnan(got.heldout_nonlinear) and "not trained" in got.note
+    assert np.array_equal(got.basis, lin.basis) and got.step == lin.step
+
+
+def test_the_decoder_size_known_before_training_is_the_trained_one():
+    X = _low_rank(n=80, S=32)
+    model = train_autoencoder(X, 3, hidden=learn.AE_HIDDEN, work=1e6, seed=0)
+    from tsarchive.model.spec import decoder_params
+    assert model.int_decoder.n_params == decoder_params(3, learn.AE_HIDDEN, 32)

@@ -16,8 +16,8 @@ codes decode to; the better one is kept and named in the member (``kind``).
 * ``nonlinear`` -- :func:`tsarchive.model.train.train_autoencoder` (normalised
   inputs, learning rate 1e-3, tanh codes in int8, early stopping on held-out
   segments, a work budget) with its integer decoder; tried only on channels
-  with enough segments, and kept only when its decoder costs at most
-  :data:`MODEL_SHARE` of the channel's raw bytes.
+  with enough segments whose decoder (its size is known before training)
+  costs at most :data:`MODEL_SHARE` of the channel's raw bytes.
 * ``facts`` -- no coder and no codes (:func:`facts_only`): what the index's
   byte budget (:mod:`tsarchive.index.budget`) keeps when not even a small
   basis fits; the preview is then the segment levels.
@@ -34,6 +34,7 @@ from typing import Callable
 import numpy as np
 
 from tsarchive.model import exact
+from tsarchive.model.spec import decoder_params
 from tsarchive.model.intnet import IntDecoder
 
 from .segments import squares
@@ -201,13 +202,15 @@ def choose(X: np.ndarray, K: int, raw_bytes: int, seed: int = 0, try_nonlinear: 
     if not try_nonlinear or len(train) < AE_MIN_SEGMENTS:
         return _with(lin, err_lin, math.nan, f"linear: the nonlinear coder needs {AE_MIN_SEGMENTS} segments "
                      f"to learn from, this channel has {len(train)}" if try_nonlinear else "linear: only tried")
+    weight_bytes = 2 * decoder_params(K, AE_HIDDEN, train.shape[1])   # known before training: skip what can't be kept
+    if weight_bytes > MODEL_SHARE * raw_bytes:
+        return _with(lin, err_lin, math.nan, f"linear: a nonlinear decoder ({weight_bytes} B) would cost more than "
+                     f"{100 * MODEL_SHARE:g} % of the channel's raw bytes, so it was not trained")
     non = fit_nonlinear(train, K, seed)
     err_non = _mse(non, test)
-    weight_bytes = 2 * non.decoder.n_params
-    if err_non < err_lin and weight_bytes <= MODEL_SHARE * raw_bytes:
+    if err_non < err_lin:
         return _with(non, err_lin, err_non, f"nonlinear: lower held-out error ({non.note})")
-    why = "its decoder costs too much beside the data" if err_non < err_lin else "higher held-out error"
-    return _with(lin, err_lin, err_non, f"linear: the nonlinear coder had {why} ({non.note})")
+    return _with(lin, err_lin, err_non, f"linear: the nonlinear coder had higher held-out error ({non.note})")
 
 
 def _with(c: Coder, lin: float, non: float, note: str) -> Coder:
