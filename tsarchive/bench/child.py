@@ -30,6 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from .archive_bytes import breakdown
+from .stages import StageClock
 
 
 @dataclass(frozen=True)
@@ -154,8 +155,9 @@ def run_pack(job: Job) -> JobResult:
     kwargs = {"rate": job.rate, "budget": job.budget, "force": True}
     if job.train_seconds is not None:
         kwargs["train_seconds"] = job.train_seconds
+    clock = StageClock()
     t0 = time.perf_counter()
-    res = tsarchive.pack(job.source, job.archive, **kwargs)
+    res = tsarchive.pack(job.source, job.archive, progress=clock, **kwargs)
     pack_s = time.perf_counter() - t0
     rss1 = rss_mb()
     arc = tsarchive.open(job.archive)
@@ -173,6 +175,7 @@ def run_pack(job: Job) -> JobResult:
                      step_s=pack_s, read_s=read_s, rss_import_mb=rss0, rss_step_mb=rss1, rss_end_mb=rss_mb(),
                      extra={"ratio_reported": float(res.ratio), "raw_bytes": int(getattr(res, "raw_bytes", 0)),
                             "torch_import_s": torch_s, "kernels_s": kernels_s, "payload_bytes": payload_bytes(Path(job.archive)),
+                            "stages": clock.stages(t0 + pack_s - clock.t0),
                             "bytes": breakdown(Path(job.archive)).to_dict()})
 
 

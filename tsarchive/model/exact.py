@@ -1,4 +1,4 @@
-"""Arithmetic whose result is the same bits on every machine and thread count (numpy only).
+"""Arithmetic whose result is the same bits on every machine and thread count (numpy; numba for one loop).
 
 Training feeds the stored integer decoder and the keep/drop decision, so it
 must repeat bit for bit.  What does and does not repeat in float64 numpy:
@@ -22,9 +22,12 @@ precision of float32 training, but reproducible.
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
+
+from ..compiled import compile_kernels
 
 _SUM_BITS = 52          # |exact partial sums| <= 2**52 < 2**53: every one is a float64 integer
 
@@ -44,12 +47,54 @@ def to_grid(a: np.ndarray, bits: int, axis: int | None = None) -> tuple[np.ndarr
     a = np.asarray(a, dtype=np.float64)
     if not a.size:
         return np.zeros_like(a), np.ones((1,) * a.ndim)
-    peak = np.maximum(np.max(a, axis=axis, keepdims=True), -np.min(a, axis=axis, keepdims=True))
+    kern = _kernels() if a.ndim == 2 and axis in (0, 1) else None
+    if kern is None:
+        peak = np.maximum(np.max(a, axis=axis, keepdims=True), -np.min(a, axis=axis, keepdims=True))
+    else:            # one compiled pass instead of max, min and a finiteness check (the same peaks: max does not round)
+        flip = not a.flags.c_contiguous and a.T.flags.c_contiguous     # walk the memory in its own order
+        rows = a.T if flip else a
+        peak = kern[0](rows, axis ^ flip)
+        peak = peak[:, None] if axis == 1 else peak[None, :]
     if not np.all(np.isfinite(peak)):
         raise FloatingPointError("training diverged (a value is not finite)")
     scale = np.ldexp(1.0, bits - np.frexp(peak)[1])      # peak < 2**frexp(peak)[1]
+    if kern is not None:
+        q = kern[1](rows, scale.ravel(), axis ^ flip)
+        return (q.T if flip else q), scale
     q = a * scale
     return np.rint(q, out=q), scale
+
+
+def _peaks(a, axis):
+    """max |a| along ``axis`` (0 or 1) of a 2-D array; inf where a slice holds a value that is not finite."""
+    n, m = a.shape
+    out = np.zeros(m if axis == 0 else n)
+    for i in range(n):
+        for j in range(m):
+            v = abs(a[i, j])
+            k = j if axis == 0 else i
+            if not v <= 1.7976931348623157e308:          # NaN or infinity
+                out[k] = np.inf
+            elif v > out[k]:
+                out[k] = v
+    return out
+
+
+def _scaled(a, scale, axis):
+    """``rint(a * scale)`` with ``scale`` per slice along ``axis``: each element one IEEE product and one rounding
+    to nearest even, as numpy's ``a * scale`` and ``rint``."""
+    n, m = a.shape
+    q = np.empty((n, m))
+    for i in range(n):
+        for j in range(m):
+            q[i, j] = np.rint(a[i, j] * scale[j if axis == 0 else i])
+    return q
+
+
+@functools.cache
+def _kernels():
+    """The compiled (:func:`_peaks`, :func:`_scaled`), or None without numba (the numpy path gives the same bits)."""
+    return compile_kernels((_peaks, _scaled))
 
 
 def matmul(a: np.ndarray, b: np.ndarray) -> np.ndarray:
