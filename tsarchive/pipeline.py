@@ -29,6 +29,7 @@ import threading
 import time
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
@@ -155,6 +156,11 @@ class _Job:
     progress: ProgressFn
     read_options: object | None      # kept in the manifest so that verify re-reads the source alike
 
+    @cached_property
+    def index(self) -> list:
+        """The learned index (tsarchive/index), built once however often the channels are encoded."""
+        return build_index(self.rec, self.opts.segment, self.opts.seed)
+
 
 def _window(rec: Recording, grids: list[Grid], opts: PackOptions, emit) -> int:
     """The window length asked for, else the default when codes are asked for (browsing by codes keeps
@@ -190,6 +196,8 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
         codecs = list(pool.map(codec, range(len(names))))
     with ArchiveWriter(job.archive, names, force=job.force, with_code=decoder is not None) as writer:
         summaries = _encode(writer, rec, names, codecs, sample.W, model, emit)
+        emit("write", 0, 1, "building the index")
+        index = job.index                      # while the model may still train: the index does not depend on it
         if run is not None and choice.note is None:
             emit("encode", 1, 1, "every window encoded; waiting for the model's verdict")
         note = choice.note if run is None or choice.note is not None else run.verdict()
@@ -198,8 +206,7 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
         _release_memory()
         emit("write", 0, 1, "writing the model and the manifest")
         writer.write_model({} if decoder is None else decoder.to_arrays())
-        emit("write", 0, 1, "building the index")
-        writer.write_index(build_index(rec, job.opts.segment, job.opts.seed))   # index.parquet (tsarchive/index)
+        writer.write_index(index)                                             # index.parquet (tsarchive/index)
         emit("write", 0, 1, "writing the manifest")
         sidecar = stage_sidecar(writer.stage, rec)     # time axis, notes, text columns
         manifest = build_manifest(rec, job.opts.budget, codecs, notes, sample.W, job.opts.code, decoder, note,

@@ -23,7 +23,7 @@ LABELS = (
     ("choosing each channel's residual coder", "coder choice"),
     ("coding the windows", "encode"),
     ("every window encoded", "model verdict wait"),
-    ("writing the model", "model write"),
+    ("writing the model", "model + index member"),
     ("building the index", "index"),
     ("writing the manifest", "manifest + footer"),
     ("staged", "staged"),

@@ -204,8 +204,8 @@ def choose(X: np.ndarray, K: int, raw_bytes: int, seed: int = 0, try_nonlinear: 
                      f"to learn from, this channel has {len(train)}" if try_nonlinear else "linear: only tried")
     weight_bytes = 2 * decoder_params(K, AE_HIDDEN, train.shape[1])   # known before training: skip what can't be kept
     if weight_bytes > MODEL_SHARE * raw_bytes:
-        return _with(lin, err_lin, math.nan, f"linear: a nonlinear decoder ({weight_bytes} B) would cost more than "
-                     f"{100 * MODEL_SHARE:g} % of the channel's raw bytes, so it was not trained")
+        return _with(lin, err_lin, math.nan, f"linear: a nonlinear decoder ({weight_bytes} B) would exceed "
+                     f"{100 * MODEL_SHARE:g} % of the raw bytes; not trained")
     non = fit_nonlinear(train, K, seed)
     err_non = _mse(non, test)
     if err_non < err_lin:
