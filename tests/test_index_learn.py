@@ -144,3 +144,28 @@ def test_the_decoder_size_known_before_training_is_the_trained_one():
     model = train_autoencoder(X, 3, hidden=learn.AE_HIDDEN, work=1e6, seed=0)
     from tsarchive.model.spec import decoder_params
     assert model.int_decoder.n_params == decoder_params(3, learn.AE_HIDDEN, 32)
+
+
+def test_compiled_gram_schmidt_equals_the_numpy_one():
+    # the compiled Gram-Schmidt of the principal basis against its numpy form, bit for bit: the same
+    # IEEE-754 operations in the same order (a vanished column restarts from a unit vector in both)
+    if learn._kernels() is None:
+        pytest.skip("numba is not installed")
+    rng = np.random.default_rng(3)
+    for S, K in ((256, 8), (32, 3), (5, 5), (1, 1)):
+        V = rng.standard_normal((S, K)) * 10.0 ** rng.integers(-60, 60, (1, K))
+        if K > 2:
+            V[:, 2] = 3.0 * V[:, 0]                      # dependent: vanishes after projection
+        got, ok = learn._kernels()[0](V, learn.exact._bits_for(S))
+        assert ok and np.array_equal(got.view(np.int64), learn._orthonormal_numpy(V).view(np.int64))
+    X = _low_rank()
+    assert np.array_equal(learn.principal_basis(X, 3), _numpy_basis(X, 3))
+
+
+def _numpy_basis(X, K):
+    old = learn._kernels
+    try:
+        learn._kernels = lambda: None
+        return learn.principal_basis(X, K)
+    finally:
+        learn._kernels = old
