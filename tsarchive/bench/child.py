@@ -143,6 +143,12 @@ def _preload_kernels() -> float:
     coefs = lpc.LpcCoefs((1 << (lpc.SHIFT - 1), 1 << (lpc.SHIFT - 2)))
     lv = np.zeros(1, np.int64)
     lpc.reconstruct(lpc.residuals(v[None, :], lv, coefs), lv, coefs)
+    from tsarchive.coding.adaptive import AdaptiveCoder
+    from tsarchive.index import learn
+    from tsarchive.model import exact
+    AdaptiveCoder().decode(AdaptiveCoder().encode(v), len(v))
+    exact.matmul(np.ones((2, 3)), np.ones((3, 2)))
+    learn._orthonormal(np.eye(3))
     return time.perf_counter() - t0
 
 
