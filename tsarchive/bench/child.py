@@ -165,6 +165,7 @@ def run_pack(job: Job) -> JobResult:
     t0 = time.perf_counter()
     res = tsarchive.pack(job.source, job.archive, progress=clock, **kwargs)
     pack_s = time.perf_counter() - t0
+    stages = clock.stages(t0 + pack_s - clock.t0)
     rss1 = rss_mb()
     arc = tsarchive.open(job.archive)
     names = tuple(c.name for c in arc.channels)
@@ -181,7 +182,7 @@ def run_pack(job: Job) -> JobResult:
                      step_s=pack_s, read_s=read_s, rss_import_mb=rss0, rss_step_mb=rss1, rss_end_mb=rss_mb(),
                      extra={"ratio_reported": float(res.ratio), "raw_bytes": int(getattr(res, "raw_bytes", 0)),
                             "torch_import_s": torch_s, "kernels_s": kernels_s, "payload_bytes": payload_bytes(Path(job.archive)),
-                            "stages": clock.stages(t0 + pack_s - clock.t0),
+                            "stages": stages,
                             "bytes": breakdown(Path(job.archive)).to_dict()})
 
 

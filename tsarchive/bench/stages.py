@@ -42,14 +42,15 @@ def label(message: str) -> str:
 class StageClock:
     """A progress callback that times the stages of one pack (module doc)."""
 
-    def __init__(self) -> None:
-        self.t0 = time.perf_counter()
+    def __init__(self, now=time.perf_counter) -> None:
+        self.now = now
+        self.t0 = now()
         self.main = threading.get_ident()
         self.marks: list[tuple[float, str]] = []
         self.train: list[float] = []
 
     def __call__(self, p) -> None:
-        now = time.perf_counter() - self.t0
+        now = self.now() - self.t0
         if threading.get_ident() != self.main:
             self.train.append(now)
         elif p.done == 0 or p.done >= p.total:
