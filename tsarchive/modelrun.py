@@ -31,7 +31,6 @@ from .options import PackOptions
 from .quantize import Grid, quantize
 from .recording import Recording
 from .windows import channel_scale, levels, n_windows, normalise, spread
-from .workers import workers as worker_count
 
 TRAIN_WINDOWS = 20000        # bound on the training sample, whatever the recording's length
 MIN_MODEL_WINDOWS = 8        # fewer full windows than this: no autoencoder
@@ -72,13 +71,10 @@ class PackSample:
     def plan(self, model, base=None, quick: bool = False) -> list[ChannelPlan]:
         """Every channel's plan; ``quick``: the probe's gain, judged on every k-th sampled window only."""
         step = max(1, len(self.index) * self.W // PROBE_EVAL_SAMPLES) if quick else 1
-
-        def one(j: int) -> ChannelPlan:
-            return plan_channel(self.windows[j][::step], None if self.tail is None or quick else self.tail[:, j],
-                                self.nwin, self.grids[j], self.W, model, self.scales[j],
-                                None if base is None else base[j], subset=step > 1)
-        with ThreadPoolExecutor(worker_count(len(self.windows))) as pool:    # channels side by side
-            return list(pool.map(one, range(len(self.windows))))
+        return [plan_channel(w[::step], None if self.tail is None or quick else self.tail[:, j], self.nwin,
+                             self.grids[j], self.W, model, self.scales[j], None if base is None else base[j],
+                             subset=step > 1)
+                for j, w in enumerate(self.windows)]   # one channel at a time: side by side, the peak RSS rose 110 MiB
 
     def training_windows(self) -> list[np.ndarray]:
         return _training_set(list(self.windows), self.grids, self.W, len(self.windows))[1]
