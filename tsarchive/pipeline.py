@@ -196,14 +196,14 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
         codecs = list(pool.map(codec, range(len(names))))
     with ArchiveWriter(job.archive, names, force=job.force, with_code=decoder is not None) as writer:
         summaries = _encode(writer, rec, names, codecs, sample.W, model, emit)
-        emit("write", 0, 1, "building the index")
-        index = job.index                      # while the model may still train: the index does not depend on it
         if run is not None and choice.note is None:
             emit("encode", 1, 1, "every window encoded; waiting for the model's verdict")
         note = choice.note if run is None or choice.note is not None else run.verdict()
         if note is None:
             return None
         _release_memory()
+        emit("write", 0, 1, "building the index")
+        index = job.index
         emit("write", 0, 1, "writing the model and the manifest")
         writer.write_model({} if decoder is None else decoder.to_arrays())
         writer.write_index(index)                                             # index.parquet (tsarchive/index)
