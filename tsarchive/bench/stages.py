@@ -33,6 +33,9 @@ LABELS = (
 
 
 def label(message: str) -> str:
+    """The stage a message starts; the encoder's own ``window k/n`` counts continue the stage they are in."""
+    if message.startswith("window ") and "/" in message.split()[1]:
+        return ""
     for prefix, name in LABELS:
         if message.startswith(prefix) or (prefix == "channel(s)" and prefix in message):
             return name
@@ -55,7 +58,7 @@ class StageClock:
             self.train.append(now)
         elif p.done == 0 or p.done >= p.total:
             name = label(p.message)
-            if not self.marks or self.marks[-1][1] != name:
+            if name and (not self.marks or self.marks[-1][1] != name):
                 self.marks.append((now, name))
 
     def stages(self, end_s: float) -> list[tuple[str, float]]:
