@@ -29,7 +29,6 @@ import threading
 import time
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
-from functools import cached_property
 from pathlib import Path
 
 import numpy as np
@@ -156,11 +155,6 @@ class _Job:
     progress: ProgressFn
     read_options: object | None      # kept in the manifest so that verify re-reads the source alike
 
-    @cached_property
-    def index(self) -> list:
-        """The learned index (tsarchive/index), built once however often the channels are encoded."""
-        return build_index(self.rec, self.opts.segment, self.opts.seed)
-
 
 def _window(rec: Recording, grids: list[Grid], opts: PackOptions, emit) -> int:
     """The window length asked for, else the default when codes are asked for (browsing by codes keeps
@@ -203,8 +197,8 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
             return None
         _release_memory()
         emit("write", 0, 1, "building the index")
-        index = job.index
-        emit("write", 0, 1, "writing the model and the manifest")
+        index = build_index(rec, job.opts.segment, job.opts.seed)
+        emit("write", 0, 1, "writing the model and the index")
         writer.write_model({} if decoder is None else decoder.to_arrays())
         writer.write_index(index)                                             # index.parquet (tsarchive/index)
         emit("write", 0, 1, "writing the manifest")
