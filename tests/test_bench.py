@@ -10,6 +10,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
+import tsarchive
 from tsarchive.bench import baselines as B
 from tsarchive.bench import coder, realdata, signals
 from tsarchive.bench.tables import CaseRow, limit_table, main_table, summary_table
@@ -503,3 +504,23 @@ def test_long_modes_smoke_run(tmp_path):
     ours, parquet = report["speed"]
     assert ours["ok"] and parquet["ok"] and 0 < parquet["nbytes"]
     assert report["random_access"]["spans_equal"] and len(report["random_access"]["minute_read_s"]) == 5
+
+
+def test_stage_clock_names_every_stage_of_a_real_pack(tmp_path):
+    # the --speed mode's stage line (bench/stages.py) is read off pack's own progress events: every packing
+    # stage must be named by its label, none by a raw message, and the times must add up to the clock's end
+    import itertools
+    from tsarchive.bench import stages
+    ticks = itertools.count()
+    x = np.sin(np.arange(40_000) / 7.0)[:, None] * np.array([1.0, 2.0])
+    src = tmp_path / "x.npy"
+    np.save(src, x)
+    clock = stages.StageClock(now=lambda: float(next(ticks)))      # a clock of whole ticks
+    tsarchive.pack(src, tmp_path / "x.tsarchive", "0.1%", rate=100.0, progress=clock, code_size=0)
+    end = float(next(ticks))
+    got = clock.stages(end)
+    names = [n for n, _ in got]
+    known = {label for _, label in stages.LABELS} | {"training thread"}
+    assert set(names) <= known, set(names) - known
+    assert {"ingest", "grid + phase", "plan", "coder choice", "encode", "index", "self-check"} <= set(names)
+    assert sum(s for n, s in got if n != "training thread") == end - clock.marks[0][0]

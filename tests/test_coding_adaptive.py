@@ -219,3 +219,13 @@ def test_decode_flat_reads_a_column_buffer():
     assert np.array_equal(c.decode_flat(buf, starts, ends, 512), x.ravel())
     with pytest.raises(ArchiveCorrupt):
         c.decode_flat(buf, starts, ends + 10**6, 512)                  # offsets past the buffer
+
+
+def test_fit_sized_gives_the_rest_coders_sizes_and_the_same_fit():
+    # the coder choice (encoder.choose_coder) takes the rest coder's sizes from the fitting pass: they must
+    # be the lengths of what AdaptiveCoder() writes, window by window, and the fit the same as fit()'s
+    x = np.rint(np.random.default_rng(8).laplace(0, 6, (12, 700))).astype(np.int64)
+    x[3, 100:400] = 0
+    fitted, sizes = AdaptiveCoder.fit_sized(x)
+    assert fitted == AdaptiveCoder.fit(list(x))
+    assert sizes.tolist() == [len(p) for p in AdaptiveCoder().encode_many(x)]

@@ -271,3 +271,31 @@ def test_training_randomness_is_built_from_the_raw_pcg64_words():
     assert p.tolist() == sorted(range(1000), key=lambda i: (words[i], i))   # the order of the words
     c = Stream(7).choice(1000, 10)
     assert c.tolist() == sorted(p[:10].tolist())
+
+
+def test_compiled_grid_equals_numpy_grid():
+    # The compiled one-pass grid (model/exact.py) against numpy's max/min/frexp/rint path, bit for bit:
+    # rows, columns, transposed views, zeros, subnormals, huge values, halves (round half to even,
+    # IEEE 754 roundTiesToEven) and non-finite values (both refuse).
+    if exact._kernels() is None:
+        pytest.skip("numba is not installed")
+    rng = np.random.default_rng(4)
+    a = rng.standard_normal((37, 53)) * 10.0 ** rng.integers(-300, 300, (37, 1))
+    a[0], a[1, :5], a[2] = 0.0, [5e-324, -2.5, 0.5, 1.5, -0.0], -0.0
+    a[3] = np.arange(53) + 0.5
+    for x in (a, a.T, a[::2, 1::3], np.ascontiguousarray(a.T)):
+        for axis in (0, 1):
+            for bits in (1, 12, 26):
+                got = exact.to_grid(x, bits, axis=axis)
+                peak = np.maximum(np.max(x, axis=axis, keepdims=True), -np.min(x, axis=axis, keepdims=True))
+                scale = np.ldexp(1.0, bits - np.frexp(peak)[1])
+                with np.errstate(invalid="ignore", over="ignore"):
+                    want = np.rint(x * scale)
+                assert np.array_equal(got[1], scale)
+                assert np.array_equal(got[0].view(np.int64), want.view(np.int64))
+    for bad in (np.nan, np.inf, -np.inf):
+        b = a.copy()
+        b[4, 7] = bad
+        for axis in (0, 1):
+            with pytest.raises(FloatingPointError):
+                exact.to_grid(b, 20, axis=axis)

@@ -121,3 +121,51 @@ def test_levels_of_large_integers_stay_exact_enough():
     true_mean = np.array([float(np.mean(x[i:i + ci.segment].astype(np.float64)))
                           for i in range(0, len(x), ci.segment)])
     assert np.all(np.abs(ci.mean - true_mean) <= ci.level_step)   # numpy means, within one level step
+
+
+def test_a_nonlinear_coder_too_big_to_keep_is_not_trained(monkeypatch):
+    # speed (issue 12): the decoder's size is known before training; one that the byte rule would drop
+    # anyway must not cost its training (it took 4 s a channel of the bench's speed record)
+    X = _low_rank(n=700, S=32)
+    K = 3
+    lin = learn.choose(X, K, raw_bytes=10 ** 12, try_nonlinear=False)
+
+    def refuse(*a, **k):
+        raise AssertionError("trained a decoder that cannot be kept")
+    monkeypatch.setattr(learn, "fit_nonlinear", refuse)
+    small = 2 * (K * learn.AE_HIDDEN + learn.AE_HIDDEN + learn.AE_HIDDEN * 32 + 32)   # K -> hidden -> S, with biases
+    got = learn.choose(X, K, raw_bytes=int(small / learn.MODEL_SHARE) - 1)
+    assert got.kind == "linear" and np.isnan(got.heldout_nonlinear) and "not trained" in got.note
+    assert np.array_equal(got.basis, lin.basis) and got.step == lin.step
+
+
+def test_the_decoder_size_known_before_training_is_the_trained_one():
+    X = _low_rank(n=80, S=32)
+    model = train_autoencoder(X, 3, hidden=learn.AE_HIDDEN, work=1e6, seed=0)
+    from tsarchive.model.spec import decoder_params
+    assert model.int_decoder.n_params == decoder_params(3, learn.AE_HIDDEN, 32)
+
+
+def test_compiled_gram_schmidt_equals_the_numpy_one():
+    # the compiled Gram-Schmidt of the principal basis against its numpy form, bit for bit: the same
+    # IEEE-754 operations in the same order (a vanished column restarts from a unit vector in both)
+    if learn._kernels() is None:
+        pytest.skip("numba is not installed")
+    rng = np.random.default_rng(3)
+    for S, K in ((256, 8), (32, 3), (5, 5), (1, 1)):
+        V = rng.standard_normal((S, K)) * 10.0 ** rng.integers(-60, 60, (1, K))
+        if K > 2:
+            V[:, 2] = 3.0 * V[:, 0]                      # dependent: vanishes after projection
+        got, ok = learn._kernels()[0](V, learn.exact._bits_for(S))
+        assert ok and np.array_equal(got.view(np.int64), learn._orthonormal_numpy(V).view(np.int64))
+    X = _low_rank()
+    assert np.array_equal(learn.principal_basis(X, 3), _numpy_basis(X, 3))
+
+
+def _numpy_basis(X, K):
+    old = learn._kernels
+    try:
+        learn._kernels = lambda: None
+        return learn.principal_basis(X, K)
+    finally:
+        learn._kernels = old

@@ -112,17 +112,20 @@ def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, 
     modes, classes, res, _ = choose_modes(q, Context(lv, ae, lpc), tables)
     k = len(res)
 
-    def total(payloads: list[bytes], stored) -> int:
-        return sum(map(len, payloads)) * n_total_windows // k + len(json.dumps(stored, separators=(",", ":")))
+    def total(payload_bytes: int, stored) -> int:
+        return payload_bytes * n_total_windows // k + len(json.dumps(stored, separators=(",", ":")))
 
     entries = [{"mode": int(m), "table": int(c), "coder": entropy.RangeCoder.id,
                 **entropy.RangeCoder(t).get_config()} for (m, c), t in sorted(tables.tables.items())]
-    best, best_bytes = None, total(code_windows(modes, classes, res, tables), entries)
-    candidates = [AdaptiveCoder()]
+    best, best_bytes = None, total(sum(map(len, code_windows(modes, classes, res, tables))), entries)
+    rest, fitted, rest_sizes = AdaptiveCoder(), None, None
     if n_total_windows * W >= FIT_MIN_SAMPLES:
-        candidates.append(AdaptiveCoder.fit(list(res)))
-    for coder in candidates:
-        size = total(coder.encode_many(res), coder.get_config())
+        fitted, rest_sizes = AdaptiveCoder.fit_sized(res)      # its pass codes from rest too: rest's sizes for free
+    for coder, sizes in ((rest, rest_sizes), (fitted, None)):
+        if coder is None:
+            continue
+        size = total(int(sizes.sum()) if sizes is not None else sum(map(len, coder.encode_many(res))),
+                     coder.get_config())
         if size < best_bytes:
             best, best_bytes = coder, size
     return best

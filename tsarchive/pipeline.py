@@ -106,6 +106,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     opts.budget.check_names([c.name for c in rec.channels])
     job = _Job(archive, force, rec, opts, emit, progress, None if isinstance(source, Recording) else read_options)
     with claim_target(archive, force), ModelRun(rec, opts, emit) as run:   # no other run may write this target
+        emit("read", 0, 1, "placing each channel's grid")
         grids, notes = _grids(rec, opts.budget)                           # budget -> ε -> integer grid
         emit("read", 1, 1, f"{len(rec.channels)} channel(s), {rec.n_samples} samples")
         W = _window(rec, grids, opts, emit)                                # windows
@@ -176,20 +177,31 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
     emit, rec, model = job.emit, job.rec, choice.model
     decoder = None if model is None else model.int_decoder
     names = [c.name for c in rec.channels]
-    codecs = []
-    for n, g, sc, p, w in zip(names, grids, sample.scales, choice.plans, sample.windows):
+    emit("encode", 0, 1, "choosing each channel's residual coder")
+
+    def codec(j: int) -> ChannelCodec:                   # plan: the residual coder
+        p = choice.plans[j]
         tables = p.tables if model is not None else p.tables_plain
-        coder = choose_coder(w, sample.nwin, g, sample.W, model, sc, p.lpc, tables)    # plan: the residual coder
-        codecs.append(ChannelCodec.for_tables(n, sample.W, g, sc, p.lpc, tables, residual_coder=coder))
+        coder = choose_coder(sample.windows[j], sample.nwin, grids[j], sample.W, model, sample.scales[j], p.lpc,
+                             tables)
+        return ChannelCodec.for_tables(names[j], sample.W, grids[j], sample.scales[j], p.lpc, tables,
+                                       residual_coder=coder)
+    with ThreadPoolExecutor(worker_count(len(names))) as pool:     # channels side by side
+        codecs = list(pool.map(codec, range(len(names))))
     with ArchiveWriter(job.archive, names, force=job.force, with_code=decoder is not None) as writer:
         summaries = _encode(writer, rec, names, codecs, sample.W, model, emit)
+        if run is not None and choice.note is None:
+            emit("encode", 1, 1, "every window encoded; waiting for the model's verdict")
         note = choice.note if run is None or choice.note is not None else run.verdict()
         if note is None:
             return None
         _release_memory()
-        emit("write", 0, 1, "writing the model and the manifest")
+        emit("write", 0, 1, "building the index")
+        index = build_index(rec, job.opts.segment, job.opts.seed)
+        emit("write", 0, 1, "writing the model and the index")
         writer.write_model({} if decoder is None else decoder.to_arrays())
-        writer.write_index(build_index(rec, job.opts.segment, job.opts.seed))   # index.parquet (tsarchive/index)
+        writer.write_index(index)                                             # index.parquet (tsarchive/index)
+        emit("write", 0, 1, "writing the manifest")
         sidecar = stage_sidecar(writer.stage, rec)     # time axis, notes, text columns
         manifest = build_manifest(rec, job.opts.budget, codecs, notes, sample.W, job.opts.code, decoder, note,
                                   summaries, writer.staged_bytes())
@@ -271,6 +283,7 @@ def _encode(writer, rec: Recording, names, codecs, W, model, emit) -> list[Chann
     stats = [ChannelTally() for _ in names]
     code_bytes = 8 + (model.code_size if model is not None else 0)
     # channels are encoded side by side (numba and numpy release the GIL); rows are written in order
+    emit("encode", 0, nw * len(names), "coding the windows")
     with ThreadPoolExecutor(worker_count(len(names))) as pool:
         for w0 in range(0, nw, per_block):
             w1 = min(nw, w0 + per_block)

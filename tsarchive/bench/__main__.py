@@ -211,6 +211,8 @@ def _long_modes(args, train, tmp: Path, report: dict, out, log) -> bool:
             out(modes.speed_table(steps))
             if modes.setup_note(steps):
                 out(modes.setup_note(steps))
+            if modes.stages_note(steps):
+                out(modes.stages_note(steps))
             report["speed"] = [s.to_dict() for s in steps]
     if args.random_access:
         if archive is None:

@@ -30,6 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from .archive_bytes import breakdown
+from .stages import StageClock
 
 
 @dataclass(frozen=True)
@@ -142,6 +143,12 @@ def _preload_kernels() -> float:
     coefs = lpc.LpcCoefs((1 << (lpc.SHIFT - 1), 1 << (lpc.SHIFT - 2)))
     lv = np.zeros(1, np.int64)
     lpc.reconstruct(lpc.residuals(v[None, :], lv, coefs), lv, coefs)
+    from tsarchive.coding.adaptive import AdaptiveCoder
+    from tsarchive.index import learn
+    from tsarchive.model import exact
+    AdaptiveCoder().decode(AdaptiveCoder().encode(v), len(v))
+    exact.matmul(np.ones((2, 3)), np.ones((3, 2)))
+    learn._orthonormal(np.eye(3))
     return time.perf_counter() - t0
 
 
@@ -154,9 +161,11 @@ def run_pack(job: Job) -> JobResult:
     kwargs = {"rate": job.rate, "budget": job.budget, "force": True}
     if job.train_seconds is not None:
         kwargs["train_seconds"] = job.train_seconds
+    clock = StageClock()
     t0 = time.perf_counter()
-    res = tsarchive.pack(job.source, job.archive, **kwargs)
+    res = tsarchive.pack(job.source, job.archive, progress=clock, **kwargs)
     pack_s = time.perf_counter() - t0
+    stages = clock.stages(t0 + pack_s - clock.t0)
     rss1 = rss_mb()
     arc = tsarchive.open(job.archive)
     names = tuple(c.name for c in arc.channels)
@@ -173,6 +182,7 @@ def run_pack(job: Job) -> JobResult:
                      step_s=pack_s, read_s=read_s, rss_import_mb=rss0, rss_step_mb=rss1, rss_end_mb=rss_mb(),
                      extra={"ratio_reported": float(res.ratio), "raw_bytes": int(getattr(res, "raw_bytes", 0)),
                             "torch_import_s": torch_s, "kernels_s": kernels_s, "payload_bytes": payload_bytes(Path(job.archive)),
+                            "stages": stages,
                             "bytes": breakdown(Path(job.archive)).to_dict()})
 
 

@@ -16,7 +16,7 @@ chunks through a memory map, so the parent never holds it.
 from __future__ import annotations
 
 import statistics
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from pathlib import Path
 from typing import Callable
 
@@ -24,6 +24,7 @@ import numpy as np
 
 from .child import Job, JobResult
 from .runner import spawn
+from .stages import stage_line
 from .tables import fmt, render
 
 LONG_RATE = 1000.0
@@ -76,6 +77,7 @@ class TimedStep:
     ok: bool
     error: str = ""
     setup: tuple[tuple[str, float], ...] = ()   # one-off costs before the clock started (name, seconds)
+    stages: tuple[tuple[str, float], ...] = ()  # where the write's time went (bench/stages.py), tsarchive only
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -86,7 +88,8 @@ def _timed(tool: str, res: JobResult, raw: int) -> TimedStep:
         return TimedStep(tool, 0, raw, None, None, None, False, res.error)
     setup = tuple((k, float(v)) for k, v in (("torch import", res.extra.get("torch_import_s")),
                                              ("numba kernels", res.extra.get("kernels_s"))) if v is not None)
-    return TimedStep(tool, res.nbytes, raw, res.step_s, res.read_s, res.rss_step_mb, True, setup=setup)
+    stages = tuple((str(k), float(v)) for k, v in res.extra.get("stages", ()))
+    return TimedStep(tool, res.nbytes, raw, res.step_s, res.read_s, res.rss_step_mb, True, setup=setup, stages=stages)
 
 
 def setup_note(steps: list[TimedStep]) -> str:
@@ -96,6 +99,17 @@ def setup_note(steps: list[TimedStep]) -> str:
         return ""
     return ("before the write clock (once per process; numba compiles its kernels on first use after "
             "installing and loads them from its cache later): " + "; ".join(parts))
+
+
+def stages_note(steps: list[TimedStep]) -> str:
+    """One line per tool that timed its stages (bench/stages.py), and each step's time against Parquet's."""
+    lines = [stage_line(s.tool, s.stages) for s in steps if s.stages]
+    pq = next((s for s in steps if s.tool.startswith("parquet") and s.ok), None)
+    for s in steps:
+        if pq is not None and s is not pq and s.ok and pq.write_s and pq.read_s:
+            lines.append(f"{s.tool} against Parquet: pack {s.write_s / pq.write_s:.1f}x its write, "
+                         f"read {s.read_s / pq.read_s:.1f}x its read")
+    return "\n".join(lines)
 
 
 def speed_table(steps: list[TimedStep]) -> str:
@@ -124,8 +138,7 @@ def run_speed(spec: LongSpec, budget: str, workdir: Path, train_seconds: float |
     worst = max((e / p if p > 0 else (0.0 if e == 0 else float("inf")) for e, p in zip(ours.max_err, ours.eps)),
                 default=0.0)
     if ours.ok and (worst > 1.0 or len(ours.max_err) != len(ours.eps)):
-        steps[0] = TimedStep(steps[0].tool, steps[0].nbytes, spec.raw_bytes, steps[0].write_s, steps[0].read_s,
-                             steps[0].rss_mb, False, f"err/eps {worst:.3f} > 1 against the archive's eps")
+        steps[0] = replace(steps[0], ok=False, error=f"err/eps {worst:.3f} > 1 against the archive's eps")
     return steps, archive if ours.ok else None
 
 

@@ -246,15 +246,21 @@ class AdaptiveCoder:
     @classmethod
     def fit(cls, samples: Sequence[np.ndarray]) -> "AdaptiveCoder":
         """A coder whose models start at their frequencies when coding the windows ``samples``."""
+        return cls.fit_sized(samples)[0]
+
+    @classmethod
+    def fit_sized(cls, samples) -> tuple["AdaptiveCoder", np.ndarray | None]:
+        """:meth:`fit`, and the byte length of each window of ``samples`` coded from rest (by ``AdaptiveCoder()``),
+        which the fitting pass codes anyway (None without numba)."""
         flat, bounds = _as_windows(samples)
         kern = _kernels()
         if kern is None or not len(flat):
-            return cls()
+            return cls(), None
         p0, n0 = _initial_state(b"")
         tally = np.zeros((K.NMODELS, 2), np.int64)
-        kern[0](flat, bounds, p0, n0, _cost(), tally)
+        ob = kern[0](flat, bounds, p0, n0, _cost(), tally)[1]
         p = (2 * tally[:, 0] + 1) * 256 // (2 * tally.sum(axis=1) + 2)        # KT estimate of P(0), 8 bits
-        return cls(zlib.compress(np.clip(p, 0, 255).astype(np.uint8).tobytes(), 9))
+        return cls(zlib.compress(np.clip(p, 0, 255).astype(np.uint8).tobytes(), 9)), np.diff(ob)
 
 
 @cache

@@ -16,8 +16,8 @@ codes decode to; the better one is kept and named in the member (``kind``).
 * ``nonlinear`` -- :func:`tsarchive.model.train.train_autoencoder` (normalised
   inputs, learning rate 1e-3, tanh codes in int8, early stopping on held-out
   segments, a work budget) with its integer decoder; tried only on channels
-  with enough segments, and kept only when its decoder costs at most
-  :data:`MODEL_SHARE` of the channel's raw bytes.
+  with enough segments whose decoder (its size is known before training)
+  costs at most :data:`MODEL_SHARE` of the channel's raw bytes.
 * ``facts`` -- no coder and no codes (:func:`facts_only`): what the index's
   byte budget (:mod:`tsarchive.index.budget`) keeps when not even a small
   basis fits; the preview is then the segment levels.
@@ -33,7 +33,9 @@ from typing import Callable
 
 import numpy as np
 
+from tsarchive.compiled import compile_kernels
 from tsarchive.model import exact
+from tsarchive.model.spec import decoder_params
 from tsarchive.model.intnet import IntDecoder
 
 from .segments import squares
@@ -118,6 +120,15 @@ def code_size_for(n_segments: int, n_samples: int, segment: int) -> int:
 
 def _orthonormal(V: np.ndarray) -> np.ndarray:
     """Gram-Schmidt on the columns (sums through exact.total; elementwise otherwise)."""
+    kern = _kernels()
+    if kern is not None and V.ndim == 2 and V.shape[0]:
+        out, ok = kern[0](np.ascontiguousarray(V, dtype=np.float64), exact._bits_for(V.shape[0]))
+        if ok:
+            return out
+    return _orthonormal_numpy(V)
+
+
+def _orthonormal_numpy(V: np.ndarray) -> np.ndarray:
     V = V.copy()
     for k in range(V.shape[1]):
         v = V[:, k]
@@ -134,6 +145,63 @@ def _orthonormal(V: np.ndarray) -> np.ndarray:
     return V
 
 
+def _total_py(v, bits):
+    """:func:`tsarchive.model.exact.total` of a 1-D vector, compiled (NaN when a value is not finite)."""
+    peak = 0.0
+    for x in v:
+        a = abs(x)
+        if not a <= 1.7976931348623157e308:
+            return np.nan
+        peak = max(peak, a)
+    scale = math.ldexp(1.0, bits - math.frexp(peak)[1])
+    s = 0.0
+    for x in v:
+        s += np.rint(x * scale)        # integers below 2**52: the sum is exact in any order
+    return s / scale
+
+
+def _orthonormal_kernel(V, bits):
+    """:func:`_orthonormal_numpy`, the same operations one element at a time: (columns, every sum finite)."""
+    S, K = V.shape
+    V = V.copy()
+    v = np.empty(S)
+    w = np.empty(S)
+    for k in range(K):
+        for i in range(S):
+            v[i] = V[i, k]
+        for attempt in range(2):
+            if attempt == 1:                   # a column that vanished: start again from a unit vector
+                v[:] = 0.0
+                v[k % S] = 1.0
+            for j in range(k):
+                for i in range(S):
+                    w[i] = v[i] * V[i, j]
+                t = _total(w, bits)
+                if not t == t:
+                    return V, False
+                for i in range(S):
+                    v[i] = v[i] - t * V[i, j]
+            for i in range(S):
+                w[i] = v[i] * v[i]
+            sq = _total(w, bits)
+            if not sq == sq:
+                return V, False
+            norm = math.sqrt(sq)
+            if norm > 0 or attempt == 1:
+                break
+        if not norm > 0:
+            norm = 1.0
+        for i in range(S):
+            V[i, k] = v[i] / norm
+    return V, True
+
+
+@functools.cache
+def _kernels():
+    """The compiled :func:`_orthonormal_kernel`, or None without numba (:func:`_orthonormal_numpy` then)."""
+    return compile_kernels((_orthonormal_kernel,), globals(), helpers=("_total",))
+
+
 def principal_basis(X: np.ndarray, K: int, seed: int = 0) -> np.ndarray:
     """The leading ``K`` principal directions of rows ``X`` (n, S) as columns (S, K), by subspace iteration
     on ``X^T X`` (exact sums); each column's largest entry is positive."""
@@ -142,8 +210,10 @@ def principal_basis(X: np.ndarray, K: int, seed: int = 0) -> np.ndarray:
     K = min(K, S)
     G = exact.matmul(X.T, X)
     V = _orthonormal(Stream(seed).uniform(-1.0, 1.0, (S, K)))
-    for _ in range(ITERATIONS):
-        V = _orthonormal(exact.matmul(G, V))
+    left = exact.left_grid(G)                # the same every iteration
+    with _one_thread():                      # thin products (K <= 8 columns): BLAS threads only contend
+        for _ in range(ITERATIONS):
+            V = _orthonormal(exact.matmul(G, V, left))
     top = np.argmax(np.abs(V), axis=0)
     return V * np.where(V[top, np.arange(K)] < 0, -1.0, 1.0)
 
@@ -201,13 +271,15 @@ def choose(X: np.ndarray, K: int, raw_bytes: int, seed: int = 0, try_nonlinear: 
     if not try_nonlinear or len(train) < AE_MIN_SEGMENTS:
         return _with(lin, err_lin, math.nan, f"linear: the nonlinear coder needs {AE_MIN_SEGMENTS} segments "
                      f"to learn from, this channel has {len(train)}" if try_nonlinear else "linear: only tried")
+    weight_bytes = 2 * decoder_params(K, AE_HIDDEN, train.shape[1])   # known before training: skip what can't be kept
+    if weight_bytes > MODEL_SHARE * raw_bytes:
+        return _with(lin, err_lin, math.nan, f"linear: a nonlinear decoder ({weight_bytes} B) would exceed "
+                     f"{100 * MODEL_SHARE:g} % of the raw bytes; not trained")
     non = fit_nonlinear(train, K, seed)
     err_non = _mse(non, test)
-    weight_bytes = 2 * non.decoder.n_params
-    if err_non < err_lin and weight_bytes <= MODEL_SHARE * raw_bytes:
+    if err_non < err_lin:
         return _with(non, err_lin, err_non, f"nonlinear: lower held-out error ({non.note})")
-    why = "its decoder costs too much beside the data" if err_non < err_lin else "higher held-out error"
-    return _with(lin, err_lin, err_non, f"linear: the nonlinear coder had {why} ({non.note})")
+    return _with(lin, err_lin, err_non, f"linear: the nonlinear coder had higher held-out error ({non.note})")
 
 
 def _with(c: Coder, lin: float, non: float, note: str) -> Coder:

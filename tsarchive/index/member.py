@@ -137,12 +137,18 @@ def write(folder: Path, index: list[ChannelIndex], *, fit: bool = True) -> Path 
     """Write ``index.parquet`` into ``folder`` (the staging folder of an archive), first made to fit its
     byte budget against the bytes already staged there (:mod:`tsarchive.index.budget`; ``fit=False``:
     as built).  Nothing is written (None) when not even the coarsest index fits."""
+    made: list = [None, b""]                 # the last index encoded and its bytes: the one that fits is not encoded twice
+
+    def encoded(ix: list[ChannelIndex]) -> bytes:
+        if made[0] is None or len(made[0]) != len(ix) or any(a is not b for a, b in zip(made[0], ix)):
+            made[:] = [list(ix), to_bytes(ix)]
+        return made[1]
     if fit:
-        index = fit_index(index, staged_bytes(folder, NAME), to_bytes)
+        index = fit_index(index, staged_bytes(folder, NAME), encoded)
     if not index:
         return None
     path = Path(folder) / NAME
-    path.write_bytes(to_bytes(index))
+    path.write_bytes(encoded(index))
     return path
 
 

@@ -1,4 +1,4 @@
-"""Arithmetic whose result is the same bits on every machine and thread count (numpy only).
+"""Arithmetic whose result is the same bits on every machine and thread count (numpy; numba for one loop).
 
 Training feeds the stored integer decoder and the keep/drop decision, so it
 must repeat bit for bit.  What does and does not repeat in float64 numpy:
@@ -22,9 +22,12 @@ precision of float32 training, but reproducible.
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
+
+from ..compiled import compile_kernels
 
 _SUM_BITS = 52          # |exact partial sums| <= 2**52 < 2**53: every one is a float64 integer
 
@@ -44,24 +47,81 @@ def to_grid(a: np.ndarray, bits: int, axis: int | None = None) -> tuple[np.ndarr
     a = np.asarray(a, dtype=np.float64)
     if not a.size:
         return np.zeros_like(a), np.ones((1,) * a.ndim)
-    peak = np.maximum(np.max(a, axis=axis, keepdims=True), -np.min(a, axis=axis, keepdims=True))
+    flip = a.ndim == 2 and not a.flags.c_contiguous and a.T.flags.c_contiguous   # walk memory in its own order
+    rows = a.T if flip else a
+    kern = _kernels() if a.ndim == 2 and axis in (0, 1) and rows.flags.c_contiguous else None
+    if kern is None:
+        peak = np.maximum(np.max(a, axis=axis, keepdims=True), -np.min(a, axis=axis, keepdims=True))
+    else:     # one compiled pass for max |a| and finiteness: on |a|'s IEEE bits (an order-keeping integer view)
+        top = kern[0](rows.view(np.int64), axis ^ flip)
+        if np.any(top >= _NOT_FINITE):
+            raise FloatingPointError("training diverged (a value is not finite)")
+        peak = top.view(np.float64)
+        peak = peak[:, None] if axis == 1 else peak[None, :]
     if not np.all(np.isfinite(peak)):
         raise FloatingPointError("training diverged (a value is not finite)")
     scale = np.ldexp(1.0, bits - np.frexp(peak)[1])      # peak < 2**frexp(peak)[1]
+    if kern is not None:
+        q = kern[1](rows, scale.ravel(), axis ^ flip)
+        return (q.T if flip else q), scale
     q = a * scale
     return np.rint(q, out=q), scale
 
 
-def matmul(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+_NOT_FINITE = 0x7FF0000000000000     # |x|'s bits at or above this: infinity or NaN
+
+
+def _peaks(bits, axis):
+    """max over ``axis`` (0 or 1) of ``|x|``'s IEEE-754 bits, ``bits`` being the int64 view of a 2-D float64
+    array: for non-negative floats the bits order as the values do, and NaN and infinity sort above every
+    finite value (IEEE 754 3.4), so the max is max |x| exactly, or says that a value is not finite."""
+    n, m = bits.shape
+    out = np.zeros(m if axis == 0 else n, np.int64)
+    for i in range(n):
+        if axis == 0:
+            for j in range(m):
+                out[j] = max(out[j], bits[i, j] & 0x7FFFFFFFFFFFFFFF)
+        else:
+            top = 0
+            for j in range(m):
+                top = max(top, bits[i, j] & 0x7FFFFFFFFFFFFFFF)
+            out[i] = top
+    return out
+
+
+def _scaled(a, scale, axis):
+    """``rint(a * scale)`` with ``scale`` per slice along ``axis``: each element one IEEE product and one rounding
+    to nearest even, as numpy's ``a * scale`` and ``rint``."""
+    n, m = a.shape
+    q = np.empty((n, m))
+    for i in range(n):
+        for j in range(m):
+            q[i, j] = np.rint(a[i, j] * scale[j if axis == 0 else i])
+    return q
+
+
+@functools.cache
+def _kernels():
+    """The compiled (:func:`_peaks`, :func:`_scaled`), or None without numba (the numpy path gives the same bits)."""
+    return compile_kernels((_peaks, _scaled))
+
+
+def matmul(a: np.ndarray, b: np.ndarray, left: tuple | None = None) -> np.ndarray:
     """``a @ b`` (2-D) with each row of ``a`` and each column of ``b`` rounded to its own grid (module
-    doc): identical bits on any BLAS and thread count, and a row's result does not depend on the others."""
+    doc): identical bits on any BLAS and thread count, and a row's result does not depend on the others.
+    ``left``: ``a``'s grid from :func:`left_grid`, for an ``a`` multiplied again and again."""
     bits = _bits_for(a.shape[-1])
-    qa, sa = to_grid(a, bits // 2, axis=1)
+    qa, sa = left if left is not None else left_grid(a)
     qb, sb = to_grid(b, bits - bits // 2, axis=0)
     out = qa @ qb
     out /= sa                              # powers of two: exact
     out /= sb
     return out
+
+
+def left_grid(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The grid :func:`matmul` puts the left operand ``a`` on."""
+    return to_grid(a, _bits_for(a.shape[-1]) // 2, axis=1)
 
 
 def total(a: np.ndarray, axis: int | None = None) -> np.ndarray | float:
