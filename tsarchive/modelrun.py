@@ -13,6 +13,10 @@ thread plans (and, without an explicit code size, encodes) without a model.
   keeps it, or None when the model pays (the staging is then dropped);
 * :meth:`ModelRun.second` — the model to encode with after a None verdict
   (trained fully first when the first run was a probe).
+
+A :class:`GivenModel` (a batch's shared model, :mod:`tsarchive.batch.shared`)
+replaces the training: its autoencoder is planned with and kept or left out
+by the same rule, and its index coders replace the index's own learning.
 """
 
 from __future__ import annotations
@@ -84,6 +88,25 @@ class PackSample:
         return len(self.index) + (self.tail is not None)
 
 
+@dataclass(frozen=True, eq=False)
+class GivenModel:
+    """A model learned elsewhere, used instead of training one: for recordings with exactly these channels
+    (names, in order), packed in windows of ``window`` samples.  ``autoencoder``: a
+    :class:`~tsarchive.model.train.TrainedAutoencoder` or None (pack without one); ``index``: per channel
+    an index :class:`~tsarchive.index.learn.Coder`, used where the channel's segment and code size match it."""
+
+    channels: tuple[str, ...]
+    window: int
+    autoencoder: object | None = None
+    index: tuple = ()
+
+    def fits(self, names, opts: PackOptions) -> bool:
+        """Whether a recording with channels ``names`` packed with ``opts`` can use this model."""
+        ae = self.autoencoder
+        return (tuple(names) == self.channels and opts.window in (None, self.window)
+                and (ae is None or ae.code_size == opts.code))
+
+
 @dataclass(frozen=True)
 class Choice:
     """What to encode with: the model (or None), the plans, and the note the manifest keeps."""
@@ -96,10 +119,10 @@ class Choice:
 class ModelRun:
     """Training on a helper thread and the decision to keep the model (see the module doc)."""
 
-    def __init__(self, rec: Recording, opts: PackOptions, emit) -> None:
-        self.rec, self.opts, self.emit = rec, opts, emit
+    def __init__(self, rec: Recording, opts: PackOptions, emit, given: GivenModel | None = None) -> None:
+        self.rec, self.opts, self.emit, self.given = rec, opts, emit, given
         self.K, self.explicit = opts.code, opts.explicit_code
-        self.probe = not self.explicit and opts.train_seconds > PROBE_SECONDS
+        self.probe = not self.explicit and opts.train_seconds > PROBE_SECONDS and given is None
         self._pool = ThreadPoolExecutor(1)
         self._plain: Future = Future()          # the plans without a model, for the training thread
         self._hopeless = threading.Event()      # even a perfect model could not pay: training stops
@@ -107,7 +130,7 @@ class ModelRun:
         self._stopped_note = ""
 
     def __enter__(self) -> "ModelRun":
-        if self.K > 0:
+        if self.K > 0 and self.given is None:
             self._pool.submit(_import_trainer)  # the trainer's import overlaps reading and planning
         return self
 
@@ -175,8 +198,9 @@ class ModelRun:
         """On the helper thread: the model and its plans, or (None, None)."""
         s = self.sample
         try:       # the training windows live only while training (a full run after a probe makes them again)
-            model = _train(self.rec, s.training_windows(), s.W, self.K, self.emit, seconds, self.opts.seed,
-                           cancel=_Either(self.emit, self._hopeless))
+            model = self.given.autoencoder if self.given is not None else \
+                _train(self.rec, s.training_windows(), s.W, self.K, self.emit, seconds, self.opts.seed,
+                       cancel=_Either(self.emit, self._hopeless))
         except Cancelled:
             if self._hopeless.is_set() and not self.emit.is_set():
                 return None, None
