@@ -16,7 +16,8 @@ channel (:mod:`tsarchive.index.learn`).  The steps:
    the first file, for the batch's training budget (none where that file is
    too short for one to pay, by pack's own rule); and per channel an index
    coder learned on the files' segments pooled (each file cut to whole
-   segments of the first file's length);
+   segments of the first file's length; the nonlinear coder tried only where
+   the first file alone has segments enough for its own index to try it);
 4. **pack** -- every file with the model of its channels
    (``tsarchive.pack(model=...)``): no training, the autoencoder kept or
    left out by the file's own estimate of what it saves against its bytes.
@@ -110,7 +111,7 @@ def _index_coders(recs: list, opts) -> tuple:
     """Per channel, an index coder learned on every file's whole segments pooled (first file's segment and
     code size, so that the files like it use it)."""
     from ..index.build import build_channel
-    from ..index.learn import code_size_for
+    from ..index.learn import AE_MIN_SEGMENTS, code_size_for
     from ..index.segments import choose_segment
     first = recs[0]
     n = first.n_samples
@@ -118,12 +119,13 @@ def _index_coders(recs: list, opts) -> tuple:
     if n < S:
         return ()
     K = code_size_for(-(-n // S), n, S)
+    nonlinear = 0.9 * (n // S) >= AE_MIN_SEGMENTS     # tried where a file's own index would try it (learn.choose)
     coders = []
     for j, ch in enumerate(first.channels):
         parts = [r.rows(0, r.n_samples // S * S)[:, j] for r in recs]
         join = np.ma.concatenate if any(isinstance(p, np.ma.MaskedArray) for p in parts) else np.concatenate
         x = join(parts)
         ci = build_channel(lambda a, b: x[a:b], ch.name, len(x), S, opts.seed, np.dtype(ch.dtype).itemsize,
-                           max_codes=K)
+                           nonlinear, max_codes=K)
         coders.append(replace(ci.coder, note=f"shared by a batch ({len(recs)} files): {ci.coder.note}"))
     return tuple(coders)
