@@ -107,9 +107,9 @@ def _in_pool(plan: BatchPlan, settings: BatchSettings, n: int, learned) -> Itera
     for attempt in range(POOL_RESTARTS + 1):
         died: list[Job] = []
         pool = ProcessPoolExecutor(n, mp_context=multiprocessing.get_context("spawn"), initializer=warm,
-                                   initargs=(threads,))
+                                   initargs=(threads, learned))   # the shared models, once a worker
         try:
-            futures = {pool.submit(pack_one, job, settings, plan.out, learned): job for job in todo}
+            futures = {pool.submit(pack_one, job, settings, plan.out): job for job in todo}
             for fut in as_completed(futures):
                 try:
                     yield fut.result()

@@ -54,8 +54,16 @@ class Outcome:
         return asdict(self)
 
 
-def warm(threads: int | None = None) -> None:
-    """A worker process's one-time start: cap its thread pools and import the packing code once."""
+#: A local worker process's copy of the batch's shared models, handed over once when it starts (:func:`warm`)
+#: rather than with every file (an autoencoder's float encoder weighs megabytes).
+_worker_learned = None
+
+
+def warm(threads: int | None = None, learned=None) -> None:
+    """A worker process's one-time start: cap its thread pools, keep the batch's shared models (or None) and
+    import the packing code once."""
+    global _worker_learned
+    _worker_learned = learned
     if threads:
         os.environ.setdefault("TSARCHIVE_THREADS", str(threads))
         try:
@@ -69,8 +77,10 @@ def warm(threads: int | None = None) -> None:
 
 def pack_one(job: Job, settings: BatchSettings, out: Path, learned=None) -> Outcome:
     """Pack ``job`` into its archive and catalog entry (see the module doc); never raises for a bad file.
-    ``learned``: the batch's shared models (:class:`tsarchive.batch.shared.Learned`), or None."""
+    ``learned``: the batch's shared models (:class:`tsarchive.batch.shared.Learned`), or None: those this
+    worker process was started with (:func:`warm`), if any."""
     t0 = time.perf_counter()
+    learned = _worker_learned if learned is None else learned
     try:
         return _pack_one(job, settings, Path(out), t0, learned)
     except TsArchiveError as exc:
