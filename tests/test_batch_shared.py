@@ -120,3 +120,10 @@ def test_batch_options_need_into(tmp_path, capsys, bad):
     src = write_logger(tmp_path / "log.csv")
     code, got = _pack(capsys, "pack", src, "-o", tmp_path / "x.tsarchive", bad, *(["2"] if bad == "--jobs" else []))
     assert code == 2 and "add --into FOLDER" in got.err
+
+
+def test_the_manifest_says_the_model_was_the_batch_s(tmp_path, capsys):
+    make_lab(tmp_path / "lab", 2)
+    assert _pack(capsys, "pack", tmp_path / "lab", "--into", tmp_path / "out", "--shared-model")[0] == 0
+    for arc in sorted((tmp_path / "out").rglob("*.tsarchive")):
+        assert open_archive(arc).manifest["model_note"] == "no autoencoder: the batch's shared model has none"

@@ -171,13 +171,13 @@ class ModelRun:
         if self._hopeless.is_set():
             wait([self._training])              # the stopped trainer has had its say: this is the last
             self.emit("train", 1, 1, self._stopped_note)
-            return self._stopped_note
+            return self._whose(self._stopped_note)
         model, plans = self._training.result()
         gain, cost = _model_account(model, plans, self.sample.nwin, self.K)
         if model is not None and (gain > PROBE_SHARE * cost if self.probe else gain > cost):
             self._worth = (model, plans, gain, cost)
             return None
-        return _keep_model(model, gain, cost, False, probed=self.probe)[1]
+        return self._whose(_keep_model(model, gain, cost, False, probed=self.probe)[1])
 
     def second(self) -> Choice:
         """The model that pays, trained fully on this thread first when the first run was a probe."""
@@ -192,7 +192,15 @@ class ModelRun:
     def _kept(self, model, plans, explicit: bool, probed: bool) -> Choice:
         gain, cost = _model_account(model, plans, self.sample.nwin, self.K)
         model, note = _keep_model(model, gain, cost, explicit, probed=probed)
-        return Choice(model, plans if model is not None else self._plain.result(), note)
+        return Choice(model, plans if model is not None else self._plain.result(), self._whose(note))
+
+    def _whose(self, note: str) -> str:
+        """The manifest's note, naming a given model (the archive stores it as its own either way)."""
+        if self.given is None:
+            return note
+        if self.given.autoencoder is None:
+            return "no autoencoder: the batch's shared model has none"
+        return "the batch's shared model: " + note.replace("autoencoder not trained", "autoencoder left out")
 
     def _train_and_plan(self, seconds: float):
         """On the helper thread: the model and its plans, or (None, None)."""
