@@ -106,6 +106,12 @@ class GivenModel:
         return (tuple(names) == self.channels and opts.window in (None, self.window)
                 and (ae is None or ae.code_size == opts.code))
 
+    @staticmethod
+    def pick(model, names, opts: PackOptions) -> "GivenModel | None":
+        """``model`` (one, several or None): the first that :meth:`fits`, else None."""
+        models = () if model is None else (model,) if isinstance(model, GivenModel) else tuple(model)
+        return next((m for m in models if m.fits(names, opts)), None)
+
 
 @dataclass(frozen=True)
 class Choice:

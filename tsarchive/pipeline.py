@@ -107,7 +107,7 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     check_axis(rec)
     check_target(archive, force)
     opts.budget.check_names([c.name for c in rec.channels])
-    given = _given(model, rec, opts)
+    given = GivenModel.pick(model, [c.name for c in rec.channels], opts)
     job = _Job(archive, force, rec, opts, emit, progress, None if isinstance(source, Recording) else read_options,
                given)
     with claim_target(archive, force), ModelRun(rec, opts, emit, given) as run:   # no other run writes this target
@@ -159,12 +159,6 @@ class _Job:
     progress: ProgressFn
     read_options: object | None      # kept in the manifest so that verify re-reads the source alike
     given: GivenModel | None = None  # a model learned elsewhere (a batch's shared model), or None
-
-
-def _given(model, rec: Recording, opts: PackOptions) -> GivenModel | None:
-    """The given model (or the first of several) that fits ``rec``'s channels, else None."""
-    models = () if model is None else (model,) if isinstance(model, GivenModel) else tuple(model)
-    return next((m for m in models if m.fits([c.name for c in rec.channels], opts)), None)
 
 
 def _window(rec: Recording, grids: list[Grid], opts: PackOptions, emit, given=None) -> int:
