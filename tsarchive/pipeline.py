@@ -162,8 +162,8 @@ class _Job:
 
 
 def _window(rec: Recording, grids: list[Grid], opts: PackOptions, emit, given=None) -> int:
-    """The window length asked for, else a given model's, else the default when codes are asked for (browsing by codes keeps
-    the finer segments), else the one a planned and coded sample says is smallest."""
+    """The window length asked for, else a given model's, else the default when codes are asked for
+    (browsing by codes keeps the finer segments), else the one a planned and coded sample says is smallest."""
     if opts.window is not None:
         return opts.window
     if given is not None:
