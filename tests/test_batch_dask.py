@@ -36,3 +36,17 @@ def test_unreachable_scheduler_is_one_line(tmp_path, capsys, monkeypatch):
     code = main(["pack", str(tmp_path / "lab"), "--into", str(tmp_path / "out"), "--scheduler", "tcp://127.0.0.1:9"])
     err = capsys.readouterr().err
     assert code == 2 and len(err.strip().splitlines()) == 1 and "cannot reach the Dask scheduler" in err
+
+
+def test_dask_batch_with_a_shared_model_matches_the_local_one(tmp_path, capsys):
+    make_lab(tmp_path / "lab", 3)
+    local, remote = tmp_path / "local", tmp_path / "dask"
+    assert main(["pack", str(tmp_path / "lab"), "--into", str(local), "--jobs", "1", "--shared-model"]) == 0
+    capsys.readouterr()
+    with distributed.LocalCluster(n_workers=2, processes=True, threads_per_worker=1, dashboard_address=None) as c:
+        code = main(["pack", str(tmp_path / "lab"), "--into", str(remote), "--scheduler", c.scheduler_address,
+                     "--shared-model"])
+    text = capsys.readouterr().out
+    assert code == 0 and text.count("shared model\n") == 3
+    want = archive_files(local)
+    assert len(want) >= 3 * 2 and archive_files(remote) == want      # every file of every archive, byte for byte

@@ -79,3 +79,18 @@ def test_a_short_recording_packs_without_an_index_and_the_answers_say_so(tmp_pat
     arc = open_archive(tmp_path / "s.tsarchive")
     assert not member.has_index(arc)
     assert look.unusual(arc).based_on.startswith("no learned index")
+
+
+def test_no_rung_is_built_when_not_even_an_empty_member_fits():
+    # a member always carries its schema and footer, so one with rows is at least as large as one without
+    # (Parquet footer layout, https://parquet.apache.org/docs/file-format/); below that nothing is encoded
+    ci = _channel(n=20_000)
+    floor = len(member.to_bytes([]))
+    asked = []
+
+    def counting(index):
+        asked.append(len(index))
+        return member.to_bytes(index)
+    payload = (100 * floor) // 3 - 1                          # one byte short of letting an empty member in
+    assert budget.fit_index([ci], payload, counting) == []
+    assert asked == [0]                                       # only the empty member was measured

@@ -120,6 +120,9 @@ def _batch_options(pk: argparse.ArgumentParser) -> None:
                     "per core)")
     pk.add_argument("--scheduler", metavar="ADDRESS", help="run the batch on a Dask cluster (tcp://HOST:8786; "
                     "default: $TSARCHIVE_SCHEDULER); its workers must see the same paths")
+    pk.add_argument("--shared-model", action="store_true", help="learn one model (autoencoder and index coders) "
+                    "from a sample of the batch's files and pack every file with the same channels with it; each "
+                    "archive stores it, so it stays self-contained")
 
 
 def _source_options(pk: argparse.ArgumentParser) -> None:
@@ -193,8 +196,8 @@ def _pack(args) -> int:
     from .batch.plan import is_batch
     if is_batch(args.source, args.into):
         return _pack_batch(args)
-    if args.jobs is not None or args.scheduler:
-        raise BadInput("--jobs and --scheduler are for several recordings: add --into FOLDER")
+    if args.jobs is not None or args.scheduler or args.shared_model:
+        raise BadInput("--jobs, --scheduler and --shared-model are for several recordings: add --into FOLDER")
     args.source = args.source[0]
     from .options import PackOptions
     from .pipeline import pack
@@ -246,7 +249,7 @@ def _pack_batch(args) -> int:
         print(dry_run_text(plan))
         return 0
     settings = BatchSettings(budget=args.budget, rate=args.rate, window=args.window, code_size=args.code_size,
-                             read_options=_read_options(args), force=args.force)
+                             read_options=_read_options(args), force=args.force, shared_model=args.shared_model)
     scheduler = args.scheduler or os.environ.get(SCHEDULER_ENV, "").strip() or None
     try:
         summary = pack_many(plan, settings, jobs=args.jobs, scheduler=scheduler, as_json=args.json, quiet=args.quiet)

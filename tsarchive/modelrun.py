@@ -13,6 +13,10 @@ thread plans (and, without an explicit code size, encodes) without a model.
   keeps it, or None when the model pays (the staging is then dropped);
 * :meth:`ModelRun.second` — the model to encode with after a None verdict
   (trained fully first when the first run was a probe).
+
+A :class:`GivenModel` (a batch's shared model, :mod:`tsarchive.batch.shared`)
+replaces the training: its autoencoder is planned with and kept or left out
+by the same rule, and its index coders replace the index's own learning.
 """
 
 from __future__ import annotations
@@ -84,6 +88,31 @@ class PackSample:
         return len(self.index) + (self.tail is not None)
 
 
+@dataclass(frozen=True, eq=False)
+class GivenModel:
+    """A model learned elsewhere, used instead of training one: for recordings with exactly these channels
+    (names, in order), packed in windows of ``window`` samples.  ``autoencoder``: a
+    :class:`~tsarchive.model.train.TrainedAutoencoder` or None (pack without one); ``index``: per channel
+    an index :class:`~tsarchive.index.learn.Coder`, used where the channel's segment and code size match it."""
+
+    channels: tuple[str, ...]
+    window: int
+    autoencoder: object | None = None
+    index: tuple = ()
+
+    def fits(self, names, opts: PackOptions) -> bool:
+        """Whether a recording with channels ``names`` packed with ``opts`` can use this model."""
+        ae = self.autoencoder
+        return (tuple(names) == self.channels and opts.window in (None, self.window)
+                and (ae is None or ae.code_size == opts.code))
+
+    @staticmethod
+    def pick(model, names, opts: PackOptions) -> "GivenModel | None":
+        """``model`` (one, several or None): the first that :meth:`fits`, else None."""
+        models = () if model is None else (model,) if isinstance(model, GivenModel) else tuple(model)
+        return next((m for m in models if m.fits(names, opts)), None)
+
+
 @dataclass(frozen=True)
 class Choice:
     """What to encode with: the model (or None), the plans, and the note the manifest keeps."""
@@ -96,10 +125,10 @@ class Choice:
 class ModelRun:
     """Training on a helper thread and the decision to keep the model (see the module doc)."""
 
-    def __init__(self, rec: Recording, opts: PackOptions, emit) -> None:
-        self.rec, self.opts, self.emit = rec, opts, emit
+    def __init__(self, rec: Recording, opts: PackOptions, emit, given: GivenModel | None = None) -> None:
+        self.rec, self.opts, self.emit, self.given = rec, opts, emit, given
         self.K, self.explicit = opts.code, opts.explicit_code
-        self.probe = not self.explicit and opts.train_seconds > PROBE_SECONDS
+        self.probe = not self.explicit and opts.train_seconds > PROBE_SECONDS and given is None
         self._pool = ThreadPoolExecutor(1)
         self._plain: Future = Future()          # the plans without a model, for the training thread
         self._hopeless = threading.Event()      # even a perfect model could not pay: training stops
@@ -107,7 +136,7 @@ class ModelRun:
         self._stopped_note = ""
 
     def __enter__(self) -> "ModelRun":
-        if self.K > 0:
+        if self.K > 0 and self.given is None:
             self._pool.submit(_import_trainer)  # the trainer's import overlaps reading and planning
         return self
 
@@ -148,13 +177,13 @@ class ModelRun:
         if self._hopeless.is_set():
             wait([self._training])              # the stopped trainer has had its say: this is the last
             self.emit("train", 1, 1, self._stopped_note)
-            return self._stopped_note
+            return self._whose(self._stopped_note)
         model, plans = self._training.result()
         gain, cost = _model_account(model, plans, self.sample.nwin, self.K)
         if model is not None and (gain > PROBE_SHARE * cost if self.probe else gain > cost):
             self._worth = (model, plans, gain, cost)
             return None
-        return _keep_model(model, gain, cost, False, probed=self.probe)[1]
+        return self._whose(_keep_model(model, gain, cost, False, probed=self.probe)[1])
 
     def second(self) -> Choice:
         """The model that pays, trained fully on this thread first when the first run was a probe."""
@@ -169,14 +198,23 @@ class ModelRun:
     def _kept(self, model, plans, explicit: bool, probed: bool) -> Choice:
         gain, cost = _model_account(model, plans, self.sample.nwin, self.K)
         model, note = _keep_model(model, gain, cost, explicit, probed=probed)
-        return Choice(model, plans if model is not None else self._plain.result(), note)
+        return Choice(model, plans if model is not None else self._plain.result(), self._whose(note))
+
+    def _whose(self, note: str) -> str:
+        """The manifest's note, naming a given model (the archive stores it as its own either way)."""
+        if self.given is None:
+            return note
+        if self.given.autoencoder is None:
+            return "no autoencoder: the batch's shared model has none"
+        return "the batch's shared model: " + note.replace("autoencoder not trained", "autoencoder left out")
 
     def _train_and_plan(self, seconds: float):
         """On the helper thread: the model and its plans, or (None, None)."""
         s = self.sample
         try:       # the training windows live only while training (a full run after a probe makes them again)
-            model = _train(self.rec, s.training_windows(), s.W, self.K, self.emit, seconds, self.opts.seed,
-                           cancel=_Either(self.emit, self._hopeless))
+            model = self.given.autoencoder if self.given is not None else \
+                _train(self.rec, s.training_windows(), s.W, self.K, self.emit, seconds, self.opts.seed,
+                       cancel=_Either(self.emit, self._hopeless))
         except Cancelled:
             if self._hopeless.is_set() and not self.emit.is_set():
                 return None, None

@@ -39,7 +39,7 @@ from .encoder import choose_coder, coded_bytes, sample_windows
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .gridphase import choose_phase
 from .ingest import read_recording
-from .modelrun import Choice, ModelRun, PackSample, _gather, _release_memory
+from .modelrun import Choice, GivenModel, ModelRun, PackSample, _gather, _release_memory
 from .options import DEFAULT_TRAIN_SECONDS, PackOptions
 from .predict import PREDICTORS
 from .quantize import Grid, make_grid
@@ -69,7 +69,7 @@ WINDOW_ROW_BYTES = 10.5        # measured framing of one window row (CRC, level,
 def pack(source, archive, budget=None, *, rate: float | None = None, window: int | None = None,
          code_size: int | None = None, force: bool = False, progress: ProgressFn = None, cancel=None,
          train_seconds: float = DEFAULT_TRAIN_SECONDS, seed: int = 0, read_options=None,
-         options: PackOptions | None = None, segment: int | None = None) -> PackResult:
+         options: PackOptions | None = None, segment: int | None = None, model=None) -> PackResult:
     """Pack ``source`` (a path or a :class:`Recording`) into the archive directory ``archive``.
 
     Every sample of the archive is within its channel's budget; the archive
@@ -94,6 +94,9 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     ``options`` (:class:`~tsarchive.options.PackOptions`, parsed once by the
     caller) stands for ``budget``, ``window``, ``code_size``, ``train_seconds``, ``seed`` and ``segment``,
     the learned index's samples per browse segment (None: :mod:`tsarchive.index`'s default; 0: no index).
+    ``model`` (a :class:`~tsarchive.modelrun.GivenModel`, or several: the first that fits the recording's
+    channels) is used instead of training an autoencoder and learning index coders; the archive stores it
+    as it stores its own (self-contained); a recording it does not fit gets its own.
     """
     opts = options or PackOptions.parse(budget, window, code_size, train_seconds, seed, segment)
     t0 = time.perf_counter()
@@ -104,12 +107,14 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     check_axis(rec)
     check_target(archive, force)
     opts.budget.check_names([c.name for c in rec.channels])
-    job = _Job(archive, force, rec, opts, emit, progress, None if isinstance(source, Recording) else read_options)
-    with claim_target(archive, force), ModelRun(rec, opts, emit) as run:   # no other run may write this target
+    given = GivenModel.pick(model, [c.name for c in rec.channels], opts)
+    job = _Job(archive, force, rec, opts, emit, progress, None if isinstance(source, Recording) else read_options,
+               given)
+    with claim_target(archive, force), ModelRun(rec, opts, emit, given) as run:   # no other run writes this target
         emit("read", 0, 1, "placing each channel's grid")
         grids, notes = _grids(rec, opts.budget)                           # budget -> ε -> integer grid
         emit("read", 1, 1, f"{len(rec.channels)} channel(s), {rec.n_samples} samples")
-        W = _window(rec, grids, opts, emit)                                # windows
+        W = _window(rec, grids, opts, emit, given)                         # windows
         sample = PackSample.take(rec, grids, W)                            # a bounded sample -> scales
         run.start(sample)                                                  # codes: training on a helper thread
         emit("encode", 0, 1, "choosing predictors and entropy tables")
@@ -154,13 +159,16 @@ class _Job:
     emit: "_emitter"
     progress: ProgressFn
     read_options: object | None      # kept in the manifest so that verify re-reads the source alike
+    given: GivenModel | None = None  # a model learned elsewhere (a batch's shared model), or None
 
 
-def _window(rec: Recording, grids: list[Grid], opts: PackOptions, emit) -> int:
-    """The window length asked for, else the default when codes are asked for (browsing by codes keeps
-    the finer segments), else the one a planned and coded sample says is smallest."""
+def _window(rec: Recording, grids: list[Grid], opts: PackOptions, emit, given=None) -> int:
+    """The window length asked for, else a given model's, else the default when codes are asked for
+    (browsing by codes keeps the finer segments), else the one a planned and coded sample says is smallest."""
     if opts.window is not None:
         return opts.window
+    if given is not None:
+        return given.window
     if opts.explicit_code and opts.code:
         return DEFAULT_WINDOW
     W, why = _choose_window(rec, grids)
@@ -197,10 +205,11 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
             return None
         _release_memory()
         emit("write", 0, 1, "building the index")
-        index = build_index(rec, job.opts.segment, job.opts.seed)
+        index = build_index(rec, job.opts.segment, job.opts.seed,
+                            coders=() if job.given is None else job.given.index)
         emit("write", 0, 1, "writing the model and the index")
         writer.write_model({} if decoder is None else decoder.to_arrays())
-        writer.write_index(index)                                             # index.parquet (tsarchive/index)
+        writer.write_index(index)                                             # index.zst (tsarchive/index)
         emit("write", 0, 1, "writing the manifest")
         sidecar = stage_sidecar(writer.stage, rec)     # time axis, notes, text columns
         manifest = build_manifest(rec, job.opts.budget, codecs, notes, sample.W, job.opts.code, decoder, note,

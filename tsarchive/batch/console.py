@@ -27,7 +27,7 @@ def status_line(o: Outcome, done: int, total: int) -> str:
     if o.status == FAILED:
         return f"{head} {o.rel.removesuffix(ARCHIVE_SUFFIX)}: {o.message}"
     head += f" {o.rel}"
-    return f"{head}  ratio {o.ratio:.2f}  {o.elapsed_s:.1f} s"
+    return f"{head}  ratio {o.ratio:.2f}  {o.elapsed_s:.1f} s" + (f"  {o.model}" if o.model else "")
 
 
 def summary_text(s: BatchSummary) -> str:
@@ -35,6 +35,9 @@ def summary_text(s: BatchSummary) -> str:
     lines = [f"{len(s.outcomes)} file(s) in {s.elapsed_s:.1f} s on {s.where}: {s.count(PACKED)} packed, "
              f"{len(s.outcomes) - s.count(PACKED) - failed} already packed, {failed} failed; "
              f"catalog {s.out / 'catalog.parquet'}"]
+    if s.learned is not None:
+        lines.insert(0, f"shared model(s) learned from {s.learned.files} file(s) in {s.learned.seconds:.1f} s"
+                     + "".join(f"\n  {n}" for n in s.learned.notes))
     if failed:
         lines.append("the failed files are listed above with their reasons; run the same command again after "
                      "fixing them (finished archives are kept and skipped)")

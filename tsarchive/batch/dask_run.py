@@ -5,7 +5,8 @@ worker is free; a Dask worker is a long-lived process, so the packing code is
 imported once per worker.  Workers read the sources and write the archives and
 their catalog entries themselves: every worker must see the sources and the
 output folder at the same paths as this machine (shared storage, see README).
-Only outcomes (a few hundred bytes each) travel back to the scheduler.
+Only outcomes (a few hundred bytes each) travel back to the scheduler; the
+batch's shared models (made by this process) are sent to each worker once.
 """
 
 from __future__ import annotations
@@ -19,7 +20,7 @@ from .work import FAILED, Outcome, pack_one
 CONNECT_TIMEOUT_S = 20
 
 
-def run_on_dask(address: str, plan: BatchPlan, settings: BatchSettings) -> Iterator[Outcome]:
+def run_on_dask(address: str, plan: BatchPlan, settings: BatchSettings, learned=None) -> Iterator[Outcome]:
     try:
         from distributed import Client, as_completed
     except ImportError:
@@ -30,7 +31,8 @@ def run_on_dask(address: str, plan: BatchPlan, settings: BatchSettings) -> Itera
         raise BadInput(f"cannot reach the Dask scheduler at {address} ({exc}); check the address "
                        "(tcp://HOST:8786) and that the scheduler is running") from None
     try:
-        futures = client.map(pack_one, list(plan.jobs), settings=settings, out=plan.out, pure=False)
+        shared = None if learned is None else client.scatter([learned], broadcast=True)[0]   # sent once a worker
+        futures = client.map(pack_one, list(plan.jobs), settings=settings, out=plan.out, learned=shared, pure=False)
         jobs = dict(zip((f.key for f in futures), plan.jobs))
         for fut in as_completed(futures):
             try:

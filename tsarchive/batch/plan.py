@@ -47,6 +47,7 @@ class BatchSettings:
     train_seconds: float | None = None      # None: pack's own default (the tool version then names it)
     seed: int | None = None
     force: bool = False
+    shared_model: bool = False              # one model for the batch (tsarchive.batch.shared)
 
     def pack_options(self) -> dict:
         """Keyword arguments for :func:`tsarchive.pack` (all but source, archive and force)."""
@@ -57,7 +58,14 @@ class BatchSettings:
     def to_dict(self) -> dict:
         """What decides the archive's bytes besides the source and the tool version (``force`` does not)."""
         return {"budget": self.budget, "rate": self.rate, "window": self.window, "code_size": self.code_size,
-                "read_options": self.read_options.to_dict(), "train_seconds": self.train_seconds, "seed": self.seed}
+                "read_options": self.read_options.to_dict(), "train_seconds": self.train_seconds, "seed": self.seed,
+                **({"shared_model": True} if self.shared_model else {})}    # per-file batches keep their digest
+
+    def parsed(self):
+        """The :class:`~tsarchive.options.PackOptions` every file is packed with."""
+        from ..options import PackOptions
+        extra = {k: v for k, v in (("train_seconds", self.train_seconds), ("seed", self.seed)) if v is not None}
+        return PackOptions.parse(self.budget, self.window, self.code_size, **extra)
 
     def fingerprint(self) -> str:
         """SHA-256 of :meth:`to_dict`'s canonical JSON (sorted keys, no spaces)."""

@@ -38,6 +38,7 @@ class BatchSummary:
     outcomes: tuple[Outcome, ...]
     elapsed_s: float
     where: str               # "this process", "N local workers" or the scheduler's address
+    learned: object = None   # the shared models (tsarchive.batch.shared.Learned), or None
 
     def count(self, status: str) -> int:
         return sum(o.status == status for o in self.outcomes)
@@ -47,7 +48,10 @@ class BatchSummary:
         return all(o.ok for o in self.outcomes)
 
     def to_dict(self) -> dict:
+        shared = None if self.learned is None else {"files": self.learned.files, "notes": list(self.learned.notes),
+                                                     "seconds": round(self.learned.seconds, 3)}
         return {"output": str(self.out), "where": self.where, "elapsed_s": round(self.elapsed_s, 3),
+                "shared_model": shared,
                 "packed": self.count(PACKED), "already_packed": self.count(SKIPPED), "failed": self.count(FAILED),
                 "files": [o.to_dict() for o in self.outcomes]}
 
@@ -59,19 +63,24 @@ def default_jobs() -> int:
 def run_batch(plan: BatchPlan, settings: BatchSettings, *, jobs: int | None = None, scheduler: str | None = None,
               on_outcome: Callable[[Outcome, int, int], None] | None = None) -> BatchSummary:
     """Pack every job of ``plan``; see the module doc.  ``jobs`` local processes (1: this process), or the
-    Dask scheduler at ``scheduler``."""
+    Dask scheduler at ``scheduler``.  With ``settings.shared_model`` the models are learned here first
+    (:func:`tsarchive.batch.shared.learn_models`) and handed to every worker."""
     t0 = time.perf_counter()
     plan.out.mkdir(parents=True, exist_ok=True)
     compactor = Compactor(plan.out)
     jobs = default_jobs() if jobs is None else jobs
+    learned = None
+    if settings.shared_model:
+        from .shared import learn_models
+        learned = learn_models(plan, settings)
     if scheduler:
         from .dask_run import run_on_dask
-        stream, where = run_on_dask(scheduler, plan, settings), scheduler
+        stream, where = run_on_dask(scheduler, plan, settings, learned), scheduler
     elif jobs <= 1 or len(plan.jobs) <= 1:
-        stream, where = _in_process(plan, settings), "this process"
+        stream, where = _in_process(plan, settings, learned), "this process"
     else:
         n = min(jobs, len(plan.jobs))
-        stream, where = _in_pool(plan, settings, n), f"{n} local worker processes"
+        stream, where = _in_pool(plan, settings, n, learned), f"{n} local worker processes"
     outcomes: list[Outcome] = []
     try:
         for outcome in stream:
@@ -82,15 +91,15 @@ def run_batch(plan: BatchPlan, settings: BatchSettings, *, jobs: int | None = No
     finally:
         stream.close()
         compactor.final()
-    return BatchSummary(plan.out, tuple(outcomes), time.perf_counter() - t0, where)
+    return BatchSummary(plan.out, tuple(outcomes), time.perf_counter() - t0, where, learned)
 
 
-def _in_process(plan: BatchPlan, settings: BatchSettings) -> Iterator[Outcome]:
+def _in_process(plan: BatchPlan, settings: BatchSettings, learned) -> Iterator[Outcome]:
     for job in plan.jobs:
-        yield pack_one(job, settings, plan.out)
+        yield pack_one(job, settings, plan.out, learned)
 
 
-def _in_pool(plan: BatchPlan, settings: BatchSettings, n: int) -> Iterator[Outcome]:
+def _in_pool(plan: BatchPlan, settings: BatchSettings, n: int, learned) -> Iterator[Outcome]:
     """Pack in ``n`` worker processes (started fresh, not forked from this one); a pool whose worker died is
     started again for the files not yet finished, at most :data:`POOL_RESTARTS` times."""
     threads = max(1, (os.cpu_count() or 1) // n)
@@ -98,7 +107,7 @@ def _in_pool(plan: BatchPlan, settings: BatchSettings, n: int) -> Iterator[Outco
     for attempt in range(POOL_RESTARTS + 1):
         died: list[Job] = []
         pool = ProcessPoolExecutor(n, mp_context=multiprocessing.get_context("spawn"), initializer=warm,
-                                   initargs=(threads,))
+                                   initargs=(threads, learned))   # the shared models, once a worker
         try:
             futures = {pool.submit(pack_one, job, settings, plan.out): job for job in todo}
             for fut in as_completed(futures):

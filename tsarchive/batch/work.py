@@ -11,7 +11,8 @@ naming what happened in one line, so the batch goes on.  Its steps:
 3. an entry saying "packing" (with the manifest digest of any archive it
    replaces), so that a run killed between pack's commit and the final entry
    is recognised by the next one;
-4. :func:`tsarchive.pack` (atomic: the archive appears whole or not at all);
+4. :func:`tsarchive.pack` (atomic: the archive appears whole or not at all), with the batch's shared
+   models when it has them (:mod:`.shared`);
 5. the catalog entry, built from the archive as written.
 """
 
@@ -42,6 +43,7 @@ class Outcome:
     source_bytes: int = 0
     archive_bytes: int = 0
     elapsed_s: float = 0.0
+    model: str = ""          # with shared models: which one this file packed with (Learned.which)
 
     @property
     def ok(self) -> bool:
@@ -51,8 +53,16 @@ class Outcome:
         return asdict(self)
 
 
-def warm(threads: int | None = None) -> None:
-    """A worker process's one-time start: cap its thread pools and import the packing code once."""
+#: A local worker process's copy of the batch's shared models, handed over once when it starts (:func:`warm`)
+#: rather than with every file (an autoencoder's float encoder weighs megabytes).
+_worker_learned = None
+
+
+def warm(threads: int | None = None, learned=None) -> None:
+    """A worker process's one-time start: cap its thread pools, keep the batch's shared models (or None) and
+    import the packing code once."""
+    global _worker_learned
+    _worker_learned = learned
     if threads:
         os.environ.setdefault("TSARCHIVE_THREADS", str(threads))
         try:
@@ -64,11 +74,14 @@ def warm(threads: int | None = None) -> None:
     import tsarchive.pipeline  # noqa: F401 - paid once per worker, not once per file
 
 
-def pack_one(job: Job, settings: BatchSettings, out: Path) -> Outcome:
-    """Pack ``job`` into its archive and catalog entry (see the module doc); never raises for a bad file."""
+def pack_one(job: Job, settings: BatchSettings, out: Path, learned=None) -> Outcome:
+    """Pack ``job`` into its archive and catalog entry (see the module doc); never raises for a bad file.
+    ``learned``: the batch's shared models (:class:`tsarchive.batch.shared.Learned`), or None: those this
+    worker process was started with (:func:`warm`), if any."""
     t0 = time.perf_counter()
+    learned = _worker_learned if learned is None else learned
     try:
-        return _pack_one(job, settings, Path(out), t0)
+        return _pack_one(job, settings, Path(out), t0, learned)
     except TsArchiveError as exc:
         message = str(exc)
     except OSError as exc:
@@ -89,7 +102,7 @@ def manifest_digest(archive: Path) -> str | None:
     return identity(Path(archive))
 
 
-def _pack_one(job: Job, settings: BatchSettings, out: Path, t0: float) -> Outcome:
+def _pack_one(job: Job, settings: BatchSettings, out: Path, t0: float, learned) -> Outcome:
     from ..checksum import file_sha256
     from ..store.claim import claim_target
 
@@ -98,10 +111,10 @@ def _pack_one(job: Job, settings: BatchSettings, out: Path, t0: float) -> Outcom
     # The claim covers the skip check as well as the pack: another run cannot pack the same archive meanwhile,
     # and taking it tidies what a killed run left beside the archive (its claim file and staging folders).
     with claim_target(job.archive):
-        return _claimed(job, settings, out, t0, sha)
+        return _claimed(job, settings, out, t0, sha, learned)
 
 
-def _claimed(job: Job, settings: BatchSettings, out: Path, t0: float, sha: str) -> Outcome:
+def _claimed(job: Job, settings: BatchSettings, out: Path, t0: float, sha: str, learned) -> Outcome:
     import tsarchive
 
     entry = read_entry(out, job.rel)
@@ -123,7 +136,8 @@ def _claimed(job: Job, settings: BatchSettings, out: Path, t0: float, sha: str) 
     if job.rate is not None:
         opts["rate"] = job.rate
     try:
-        tsarchive.pack(job.source, job.archive, force=settings.force, **opts)
+        tsarchive.pack(job.source, job.archive, force=settings.force, model=learned.models if learned else None,
+                       **opts)
     except BaseException:
         if entry is not None and entry.get("state") == "packed" and manifest_digest(job.archive) == before:
             write_entry(out, job.rel, entry)        # the archive it describes is still there, unchanged
@@ -134,7 +148,7 @@ def _claimed(job: Job, settings: BatchSettings, out: Path, t0: float, sha: str) 
                        "finished writing it")
     write_entry(out, job.rel, catalog_entry(arc, job, settings, CHECK_PACKED))
     return Outcome(job.rel, str(job.source), PACKED, "", arc.ratio, job.source.stat().st_size, arc.archive_bytes,
-                   time.perf_counter() - t0)
+                   time.perf_counter() - t0, learned.which(c.name for c in arc.channels) if learned else "")
 
 
 def _why_not_done(job: Job, settings: BatchSettings, sha: str, entry: dict | None) -> tuple[str | None, bool]:

@@ -78,6 +78,8 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("--batch-files", type=_positive(int), default=1000, help="short logs for --batch (default 1000)")
     p.add_argument("--batch-copies", type=int, default=100, help="copies of the sample streams for --batch (default 100)")
     p.add_argument("--batch-dask", action="store_true", help="--batch also on a Dask LocalCluster")
+    p.add_argument("--batch-shared", action="store_true", help="--batch also with one model for the batch "
+                   "(--shared-model), 1 and N jobs")
     p.add_argument("--injection", action="store_true", help="the learned index against simple baselines: faults "
                    "injected into the real recordings (precision@k), look-alike recall@5, query and preview costs")
     p.add_argument("--injection-seeds", type=_positive(int), default=3, help="seeds per fault kind (default 3)")
@@ -188,11 +190,17 @@ def _batch_mode(args, report: dict, out, log) -> bool:
     from . import batch
     streams = args.streams or runner.default_streams_dir()
     with tempfile.TemporaryDirectory(prefix="tsbench-batch-") as tmp:
-        runs = batch.run(args.batch_files, args.batch_copies if streams else 0, streams, Path(tmp), args.batch_dask, log)
+        [one] = batch.make_short_logs(Path(tmp) / "one", 1)
+        cold, warm = batch.stages(one, Path(tmp)), batch.stages(one, Path(tmp))
+        out("\none short log (1 h at 1 Hz, 4 channels) packed as a batch worker packs it:")
+        out(batch.stages_table(cold, warm))
+        runs = batch.run(args.batch_files, args.batch_copies if streams else 0, streams, Path(tmp), args.batch_dask,
+                         log, args.batch_shared)
     out("\nbatch: pack FOLDER --into OUT; 1 job = the bench's own process; same archives = every archive file's "
-        "SHA-256 equal to the 1-job run's")
+        "SHA-256 equal to the 1-job run's (shared-model runs: to the 1-job shared-model run's)")
     out(batch.table(runs))
     report["batch"] = [r.to_dict() for r in runs]
+    report["batch_stages"] = {"first_file": dict(cold), "next_file": dict(warm)}
     return all(r.failed == 0 and r.identical is not False for r in runs)
 
 

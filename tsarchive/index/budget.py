@@ -15,7 +15,10 @@ longer segments (a smaller basis and fewer rows), then
 facts only (levels and facts, no basis and no codes: ``kind`` ``facts`` in
 the member, which the queries and the app name), at longer and longer
 segments.  When not even the coarsest rung fits, the archive gets no index
-(the queries then fall back to the archive's windows and say so).  A segment
+(the queries then fall back to the archive's windows and say so); when not
+even an empty member (schema and footer, no rows) fits, the ladder is not
+climbed at all (a short recording's archive: every rung would be built and
+encoded for nothing).  A segment
 given explicitly (``--segment``) wins over the budget: that index is kept as
 built.
 """
@@ -57,6 +60,8 @@ def fit_index(index: list[ChannelIndex], payload_bytes: int, to_bytes: Callable)
     to_bytes`).  Indexes built without a source or with an explicit segment are kept."""
     if not index or any(ci.source is None or ci.source.asked is not None for ci in index):
         return index
+    if not fits(len(to_bytes([])), payload_bytes):     # not even an empty member fits: no rung can
+        return []
     for longer, codes, bits in LADDER:
         if any(ci.segment * longer > MAX_SEGMENT or ci.n_samples < MIN_SEGMENTS * ci.segment * longer
                for ci in index):

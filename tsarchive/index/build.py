@@ -111,10 +111,12 @@ def _lengths(n_samples: int, S: int, a: int, b: int) -> np.ndarray:
 
 def build_channel(column, name: str, n_samples: int, segment: int | None = None, seed: int = 0,
                   itemsize: int = 8, try_nonlinear: bool = True, *, longer: int = 1,
-                  max_codes: int | None = None, basis_bits: int = 7) -> ChannelIndex:
+                  max_codes: int | None = None, basis_bits: int = 7, coder: learn.Coder | None = None) -> ChannelIndex:
     """The index of one channel; ``column(a, b)`` returns its samples ``a..b-1``.  ``longer`` multiplies
     the default segment (not an explicit ``segment``), ``max_codes`` caps the codes per segment (0: facts
-    only), ``basis_bits`` (< 7) stores a linear basis coarser; all three are how :mod:`tsarchive.index.budget` makes an index smaller."""
+    only), ``basis_bits`` (< 7) stores a linear basis coarser; all three are how :mod:`tsarchive.index.budget` makes an index smaller.
+    ``coder``: one learned elsewhere (a batch's shared model), used instead of learning one where its segment
+    and code size are this channel's."""
     S = choose_segment(n_samples, segment) * (1 if segment else longer)
     n_seg = -(-n_samples // S)
     step = max(1, BLOCK_SAMPLES // S)
@@ -145,8 +147,9 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
     X = np.concatenate(sample) / ref if sample else np.zeros((0, S))
     K = learn.code_size_for(n_seg, n_samples, S)
     K = K if max_codes is None else min(K, max_codes)
-    coder = learn.choose(X, K, n_samples * itemsize, seed, try_nonlinear, basis_bits) if K else \
-        learn.facts_only(S, "facts only: codes did not fit the index's byte budget")
+    if coder is None or coder.segment != S or coder.code_size != K or basis_bits != 7:
+        coder = learn.choose(X, K, n_samples * itemsize, seed, try_nonlinear, basis_bits) if K else \
+            learn.facts_only(S, "facts only: codes did not fit the index's byte budget")
     codes = np.zeros((n_seg, coder.code_size), dtype=np.int16)
     worst = 0.0
     for a in range(0, n_seg, step):                  # pass 2: codes and what they miss
@@ -172,15 +175,16 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
                         Source(column, itemsize, seed, try_nonlinear, segment))
 
 
-def build_index(rec, segment: int | None = None, seed: int = 0, try_nonlinear: bool = True) -> list[ChannelIndex]:
+def build_index(rec, segment: int | None = None, seed: int = 0, try_nonlinear: bool = True,
+                coders=()) -> list[ChannelIndex]:
     """The index of every channel of a :class:`~tsarchive.recording.Recording` (``segment=0``: none, an
-    empty list)."""
+    empty list); ``coders``: per channel (in order) a coder learned elsewhere, or none."""
     out = []
     if segment == 0:
         return out
     for j, ch in enumerate(rec.channels):
         def column(a: int, b: int, j=j):
             return rec.rows(a, b)[:, j]
-        out.append(build_channel(column, ch.name, rec.n_samples, segment, seed,
-                                 np.dtype(ch.dtype).itemsize, try_nonlinear))
+        out.append(build_channel(column, ch.name, rec.n_samples, segment, seed, np.dtype(ch.dtype).itemsize,
+                                 try_nonlinear, coder=coders[j] if j < len(coders) else None))
     return out
