@@ -144,18 +144,23 @@ def latent(ci: ChannelIndex) -> np.ndarray:
         return np.stack([_log2(ci.fact("slope")), _log2(ci.fact("miss"))], axis=1).astype(np.float32)
     if ci.coder.kind == "nonlinear":
         return ci.codes.astype(np.float32)
-    return with_miss(ci.codes.astype(np.float32) * np.float32(ci.coder.step), ci.fact("miss"), ci.segment)
+    return with_miss(ci.codes, ci.coder.step, ci.fact("miss"), ci.segment)
 
 
-def with_miss(lat: np.ndarray, miss: np.ndarray, segment: int) -> np.ndarray:
-    """Linear latents (n, K) and one more column: the norm of what the code misses, in the same units.
+def with_miss(codes: np.ndarray, step: float, miss: np.ndarray, segment: int) -> np.ndarray:
+    """A linear coder's codes (n, K) times their ``step`` and one more column: the norm of what the code
+    misses (the stored ``miss`` fact), in the same units; float32, made in place (ten million rows).
 
     A segment is its projection onto the basis plus a rest orthogonal to it, so the distance of two
     segments is at least the distance of their projections and of their rests' norms together
     (Pythagoras and the triangle inequality): a lower bound from the index alone, tight where the code
     holds the segment and telling quiet from loud where it does not (noise-like recordings)."""
-    rest = log_value(miss, 1.0) * np.sqrt(segment)        # the stored RMS miss over ``ref``, as a norm
-    return np.concatenate([lat, rest.astype(np.float32)[:, None]], axis=1)
+    n, K = codes.shape
+    out = np.empty((n, K + 1), dtype=np.float32)
+    out[:, :K] = codes
+    out[:, :K] *= np.float32(step)
+    out[:, K] = log_value(miss, 1.0) * np.sqrt(segment)     # the stored RMS miss over ``ref``, as a norm
+    return out
 
 
 class CodeCache:
@@ -163,7 +168,7 @@ class CodeCache:
 
     A query is then one thin matrix-vector product and a partial sort: the distance is
     ``|c|^2 - 2 c.q + |q|^2`` (the last term is the same for every row and left out).  Ten million
-    codes of 8 take 320 MB of latents and 40 MB of norms; the query's temporaries stay near ``CHUNK``
+    codes of 8 and their miss take 360 MB of latents and 40 MB of norms; the query's temporaries stay near ``CHUNK``
     rows.
     """
 
