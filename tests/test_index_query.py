@@ -176,3 +176,13 @@ def test_alike_decodes_at_most_the_cap():
     asked = []
     Q.alike(ci, 3, 5, lambda ids: asked.append(len(ids)) or rows[ids], most=100)
     assert sum(asked) <= 1 + 100
+
+
+def test_stored_edge_codes_hold_the_numpy_counts_on_the_log_scale():
+    S, x = 64, np.round(4 * _wavy(40, 64, 11))
+    ci = build_channel(lambda a, b: x[a:b], "x", len(x), segment=S, try_nonlinear=False)
+    rows = x.reshape(-1, S)
+    count = (rows == rows.max(axis=1, keepdims=True)).sum(axis=1) + (rows == rows.min(axis=1, keepdims=True)).sum(axis=1)
+    k = ci.fact("edge").astype(np.float64)
+    # the log scale of segments.log_code: code k covers [2**((k-1)/8 - 16), 2**(k/8 - 16)) (numpy exp2)
+    assert np.all(np.exp2((k - 1) / 8 - 16) <= count * (1 + 1e-12)) and np.all(count < np.exp2(k / 8 - 16))
