@@ -37,6 +37,7 @@ from .segments import STEPS_PER_OCTAVE, log_value
 
 SHORTLIST = 64               # segments re-ranked on decoded samples per look-alike query, at least
 MOST_DECODED = 512           # and at most (the shortlist doubles up to this while a nearer one may be outside)
+REST_ALIGNED = 0.5           # how aligned two segments' rests are taken to be when ordering the shortlist (alike)
 CHUNK = 1 << 20              # codes compared per step (bounded temporaries)
 TYPICAL = 0.97               # each part is scaled by its own 97th percentile: a part whose extremes are common
                              # (a wandering baseline's jumps) cannot drown a part that is rarely high
@@ -204,15 +205,20 @@ def alike(ci: ChannelIndex, seg: int, k: int, segments_of, m: int = SHORTLIST,
           most: int = MOST_DECODED) -> list[tuple[int, float]]:
     """The ``k`` segments most like segment ``seg``: a shortlist by code (:func:`latent`), re-ranked by the
     Euclidean distance of the decoded segments with their means removed; ``segments_of(ids)`` returns
-    those segments' samples (len(ids), S).  The first ``m`` are decoded; for a linear coder, whose
-    shortlist distance is a lower bound of the decoded one (:func:`with_miss`, less the codes' rounding),
-    the shortlist doubles, up to ``most``, while its next segment could still be nearer than the ``k``-th
-    found.  Returns ``(segment, distance)`` nearest first."""
+    those segments' samples (len(ids), S).  The first ``m`` are decoded.  For a linear coder the shortlist
+    is ordered by the projections' distance with the rests' norms taken as half aligned (REST_ALIGNED:
+    between fully aligned, the lower bound of :func:`with_miss`, and unrelated, as noise is: recall@5 0.82
+    against 0.59 for the lower bound on seismo_karc_lhz cut into 1350 segments), and it doubles, up to
+    ``most``, while a segment left in it has a lower bound (less the codes' rounding) below the ``k``-th
+    distance found.  Returns ``(segment, distance)`` nearest first."""
     if not 0 <= seg < ci.n_segments:
         raise BadInput(f"segment {seg} is out of range 0..{ci.n_segments - 1}; pick one the index lists")
     lat = latent(ci)
     widen = ci.coder.kind == "linear"
-    cand = shortlist(lat, lat[seg], max(most if widen else m, k), exclude=seg)
+    point = lat[seg].copy()
+    if widen:           # |c - q|^2 + r^2 + r_q^2 - 2 a r r_q is the distance to (q, a r_q), up to a constant
+        point[-1] *= np.float32(REST_ALIGNED)
+    cand = shortlist(lat, point, max(most if widen else m, k), exclude=seg)
     low = (np.sqrt(((lat[cand].astype(np.float64) - lat[seg]) ** 2).sum(axis=1))
            - np.sqrt(ci.coder.code_size / 6.0) * ci.coder.step) * ci.ref    # less two codes' rounding (RMS)
     query = centred(segments_of(np.array([seg])))[0]
@@ -221,7 +227,7 @@ def alike(ci: ChannelIndex, seg: int, k: int, segments_of, m: int = SHORTLIST,
     while True:
         rows = centred(segments_of(cand[len(d):n]))
         d = np.concatenate([d, np.sqrt(((rows - query) ** 2).sum(axis=1))])
-        if not widen or n >= len(cand) or low[n] > np.sort(d)[min(k, len(d)) - 1]:
+        if not widen or n >= len(cand) or low[n:].min() > np.sort(d)[min(k, len(d)) - 1]:
             break
         n = min(len(cand), 2 * n)
     ids = cand[:n]
