@@ -93,3 +93,31 @@ def test_pack_segment_option(tmp_path, capsys):
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "segment 1" in err[0]
     assert not bad.exists() and [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []
+
+
+def test_segment_samples_equal_the_full_decode(archives):
+    arc = open_archive(archives[0])
+    ci = look.member.read(arc, arc.channels[0].name)
+    ids = np.array([156, 0, 3, 4, 60, 61, 62, ci.n_segments - 1, 3])     # repeats, runs, the short last one
+    got = look.segment_samples(arc, arc.channels[0].name, ci, ids)
+    full = np.asarray(arc.read(arc.channels[0].name), dtype=np.float64)  # the reader's whole-channel decode
+    S = ci.segment
+    for row, s in zip(got, ids.tolist()):
+        own = full[s * S:(s + 1) * S]
+        assert np.array_equal(row[:len(own)], own) and np.all(row[len(own):] == own[-1])
+
+
+def test_alike_text_names_the_widened_shortlist(archives, capsys):
+    d = _json(capsys, ["alike", str(archives[0]), "10", "-k", "4", "--json"])
+    assert "by how much the code misses" in d["based_on"] and "up to 512" in d["based_on"]
+
+
+def test_an_index_packed_before_the_edge_fact_says_it_lacks_it():
+    # tests/golden/v5/coders5 was packed before the "edge" column existed: it reads as zeros and the
+    # ranking's text says the fact is not in this archive's index
+    from pathlib import Path
+    arc = open_archive(Path(__file__).parent / "golden" / "v5" / "coders5")
+    name = arc.channels[1].name
+    ci = look.member.read(arc, name)
+    assert not ci.fact("edge").any() and ci.fact("slope").any()
+    assert "not in this archive's index" in look.unusual(arc, name, k=3).based_on

@@ -79,3 +79,110 @@ def test_preview_of_a_range_and_refusal():
     from tsarchive.errors import BadInput
     with pytest.raises(BadInput, match="out of range"):
         Q.alike(ci, ci.n_segments, 3, lambda ids: None)
+
+
+def test_edge_fact_counts_samples_at_the_extremes_like_numpy():
+    from tsarchive.index.segments import facts
+    rng = np.random.default_rng(5)
+    rows = rng.integers(-3, 4, size=(40, 16)).astype(np.float64)     # small integers: many ties
+    lengths = rng.integers(2, 17, size=40)
+    got = facts(rows, lengths).edge
+    for r, L, g in zip(rows, lengths, got):                        # numpy, segment by segment (own samples only)
+        own = r[:L]
+        assert g == np.count_nonzero(own == own.max()) + np.count_nonzero(own == own.min()) \
+            - (np.count_nonzero(own == own.max()) if own.max() == own.min() else 0)
+
+
+def _wavy(n_seg: int, S: int, seed: int) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    t = np.arange(n_seg * S)
+    return np.sin(2 * np.pi * t / 37.0) + 0.5 * np.sin(2 * np.pi * t / 91.0) + 0.1 * rng.normal(size=len(t))
+
+
+def test_unusual_finds_clipped_segments():
+    S, x = 256, np.round(8 * _wavy(96, 256, 7))              # logged in whole steps: ties and flat runs are common
+    truth = [20, 45, 70]
+    for s in truth:                                            # clipped at 60 % of the segment's largest swing
+        seg = x[s * S:(s + 1) * S]
+        m = np.median(seg)
+        c = 0.6 * np.max(np.abs(seg - m))
+        np.clip(seg, m - c, m + c, out=seg)
+    ci = build_channel(lambda a, b: x[a:b], "x", len(x), segment=S, try_nonlinear=False)
+    u = Q.unusual_scores(ci)
+    assert set(Q.ranked(u.score, 3).tolist()) == set(truth)
+    assert {u.because[s] for s in truth} <= {"held at its extremes", "repeated samples"}
+
+
+def test_unusual_finds_noise_bursts_over_a_slowly_rougher_recording():
+    S, x = 256, _wavy(96, 256, 8)
+    rng = np.random.default_rng(9)
+    x *= np.linspace(1.0, 6.0, len(x))                         # the recording's roughness drifts by 6x
+    truth = [15, 50, 80]
+    for s in truth:                                            # noise over half the segment, 0.2 x the std
+        x[s * S + 64:s * S + 192] += rng.normal(0.0, 0.2 * np.std(x), 128)
+    ci = build_channel(lambda a, b: x[a:b], "x", len(x), segment=S, try_nonlinear=False)
+    assert set(Q.ranked(Q.unusual_scores(ci).score, 3).tolist()) == set(truth)
+
+
+def _loud_and_quiet(n_seg: int, S: int, seed: int) -> np.ndarray:
+    """Noise-like segments, a few of them loud events: the channel's spread is the events', the quiet
+    segments' shapes are noise the codes cannot hold (a long-period seismometer, seismo_karc_lhz)."""
+    rng = np.random.default_rng(seed)
+    x = 0.05 * rng.normal(size=n_seg * S)
+    x = np.convolve(x, np.ones(3) / 3, mode="same")            # a little colour, as recorded noise has
+    t = np.arange(S)
+    for s in rng.choice(n_seg, n_seg // 20, replace=False):
+        x[s * S:(s + 1) * S] += 20 * np.exp(-t / 40.0) * np.sin(2 * np.pi * t / 25.0)
+    return x
+
+
+def test_alike_recall_against_brute_force_on_noise_like_segments():
+    S, n_seg = 128, 300
+    x = _loud_and_quiet(n_seg, S, 4)
+    ci = build_channel(lambda a, b: x[a:b], "x", len(x), segment=S, try_nonlinear=False)
+    rows = x.reshape(n_seg, S)
+    cen = rows - rows.mean(axis=1, keepdims=True)
+    hits = total = 0
+    for q in range(0, n_seg, 11):
+        d = np.sqrt(((cen - cen[q]) ** 2).sum(axis=1))         # exact search, numpy brute force
+        d[q] = np.inf
+        exact = set(np.argsort(d, kind="stable")[:5].tolist())
+        hits += len(exact & {s for s, _ in Q.alike(ci, q, 5, lambda ids: rows[ids])})
+        total += 5
+    assert hits / total >= 0.9
+
+
+def test_shortlist_distance_is_a_lower_bound_of_the_decoded_distance():
+    # Pythagoras and the triangle inequality (see query.with_miss): checked against numpy distances
+    S, n_seg = 128, 200
+    x = _loud_and_quiet(n_seg, S, 6) + _wavy(n_seg, S, 6)
+    ci = build_channel(lambda a, b: x[a:b], "x", len(x), segment=S, try_nonlinear=False)
+    rows = x.reshape(n_seg, S)
+    cen = rows - rows.mean(axis=1, keepdims=True)
+    lat = Q.latent(ci).astype(np.float64)
+    slack = np.sqrt(ci.coder.code_size) * ci.coder.step       # each code rounds by at most step / 2
+    for q in range(0, n_seg, 17):
+        low = np.sqrt(((lat - lat[q]) ** 2).sum(axis=1)) * ci.ref
+        true = np.sqrt(((cen - cen[q]) ** 2).sum(axis=1))
+        # the stored miss is log-coded within 2**(1/16) (segments.log_code): at most that much over
+        assert np.all(low <= true * 2 ** (1 / 16) + slack * ci.ref)
+
+
+def test_alike_decodes_at_most_the_cap():
+    S, n_seg = 64, 900
+    x = _loud_and_quiet(n_seg, S, 2)
+    ci = build_channel(lambda a, b: x[a:b], "x", len(x), segment=S, try_nonlinear=False)
+    rows = x.reshape(n_seg, S)
+    asked = []
+    Q.alike(ci, 3, 5, lambda ids: asked.append(len(ids)) or rows[ids], most=100)
+    assert sum(asked) <= 1 + 100
+
+
+def test_stored_edge_codes_hold_the_numpy_counts_on_the_log_scale():
+    S, x = 64, np.round(4 * _wavy(40, 64, 11))
+    ci = build_channel(lambda a, b: x[a:b], "x", len(x), segment=S, try_nonlinear=False)
+    rows = x.reshape(-1, S)
+    count = (rows == rows.max(axis=1, keepdims=True)).sum(axis=1) + (rows == rows.min(axis=1, keepdims=True)).sum(axis=1)
+    k = ci.fact("edge").astype(np.float64)
+    # the log scale of segments.log_code: code k covers [2**((k-1)/8 - 16), 2**(k/8 - 16)) (numpy exp2)
+    assert np.all(np.exp2((k - 1) / 8 - 16) <= count * (1 + 1e-12)) and np.all(count < np.exp2(k / 8 - 16))

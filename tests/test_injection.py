@@ -54,3 +54,11 @@ def test_reported_seeds_never_include_the_tuning_seeds():
     # common practice (no source): figures are reported on data the design was not chosen on
     for n in (1, 3, 10, 200):
         assert not set(I.reported_seeds(n)) & set(I.TUNING_SEEDS) and len(I.reported_seeds(n)) == n
+
+
+def test_tuning_runs_on_the_tuning_seeds_only():
+    got = realdata.load("ppg_heartpy")
+    if isinstance(got, str):
+        pytest.skip(got)
+    res = I.run(["ppg_heartpy"], kinds=("clipping",), severities=("strong",), tuning=True)
+    assert len(res.precision[("clipping", "strong", "index")]) == len(I.TUNING_SEEDS)

@@ -24,8 +24,10 @@ from .segments import as_segments, choose_segment, facts, log_code, squares
 LEARN_SEGMENTS = 20000
 BLOCK_SAMPLES = 1 << 20
 
-# the per-segment byte columns, in order
-FACT_NAMES = ("slope", "flat", "miss", "miss_peak")
+# the per-segment byte columns, in order; "edge" (samples at the segment's extremes, log-coded against 1) came
+# later: archives packed before it have no such column, and it reads as zeros there (OPTIONAL_FACTS)
+FACT_NAMES = ("slope", "flat", "miss", "miss_peak", "edge")
+OPTIONAL_FACTS = ("edge",)
 LEVEL_PARTS = 16             # a segment's mean is kept on a power-of-two grid of at most ref / 16
 
 
@@ -44,7 +46,7 @@ class Source:
 @dataclass(frozen=True, eq=False)
 class ChannelIndex:
     """The index of one channel: ``level`` (n,) int64 (segment means in units of ``level_step``), ``codes``
-    (n, K) int16, ``facts`` (n, 4) uint8 (FACT_NAMES; magnitudes log-coded against ``ref``, the channel's
+    (n, K) int16, ``facts`` (n, 5) uint8 (FACT_NAMES; magnitudes log-coded against ``ref``, the channel's
     spread), ``worst`` the code-only preview's worst error (channel units, measured when packing)."""
 
     name: str
@@ -132,6 +134,7 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
         L = _lengths(n_samples, S, a, b)
         fa = facts(rows, L)
         mean[a:b], mags[:, a:b], f[a:b, 1] = fa.mean, (fa.spread, fa.slope), fa.flat
+        f[a:b, 4] = log_code(fa.edge, 1.0)
         keep = [i - a for i in range(a, b) if i in pick]
         sample.append(rows[keep] - fa.mean[keep, None])
     ref = float(np.sqrt(exact.total(squares(mags[0])) / max(n_seg, 1))) or 1.0

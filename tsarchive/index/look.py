@@ -20,16 +20,20 @@ from . import query as Q
 from .segments import as_segments
 
 BASED_ON_INDEX = {
-    "unusual": "the learned index: segments whose stored facts (what the code misses, swing, roughness, sharp peaks, "
-               "repeated samples, level jumps) stand out most from the rest of the channel",
-    "alike": "the learned index: a shortlist of the {m} nearest codes, re-ranked by the distance between the "
-             "decoded segments with their means removed",
+    "unusual": "the learned index: segments whose stored facts stand out most from the rest of the channel or "
+               "from their neighbours (each segment's largest weighted robust z-score of: what the code misses, "
+               "swing, roughness, sharp peaks, repeated samples, samples held at the segment's extremes, level "
+               "jumps)",
+    "alike": "the learned index: a shortlist of at least {m} segments nearest by code and by how much the code "
+             "misses, widened (up to {most}) while a nearer segment could lie outside it, re-ranked by the distance "
+             "between the decoded segments with their means removed",
     "glance": "the learned index's codes alone (approximate: within {worst} of the recording, measured when "
               "it was packed)",
 }
 BASED_ON_FACTS = {    # kind "facts": the byte budget kept no codes (tsarchive/index/budget.py)
     "unusual": "the index's facts only (no codes fitted its byte budget): segments whose swing, roughness, "
-               "repeated samples or level jumps stand out most from the rest of the channel",
+               "repeated samples, samples held at the segment's extremes or level jumps stand out most from the "
+               "rest of the channel or from their neighbours",
     "alike": "the index's facts only (no codes fitted its byte budget): a shortlist of the {m} segments "
              "nearest in roughness and swing, re-ranked by the distance between the decoded segments with "
              "their means removed",
@@ -79,9 +83,21 @@ class Glance:
     based_on: str
 
 
+NONLINEAR_ALIKE = ("the learned index: a shortlist of the {m} nearest codes of its autoencoder, re-ranked by the "
+                   "distance between the decoded segments with their means removed")
+NO_EDGE = ("samples held at the segment's extremes", "(samples held at the segment's extremes: not in this "
+           "archive's index, packed before that fact was kept)")
+
+
 def based_on(ci, kind: str) -> str:
-    """What a ranking of ``kind`` on index ``ci`` is based on: codes and facts, or facts only."""
-    return (BASED_ON_FACTS if ci.coder.kind == "facts" else BASED_ON_INDEX)[kind]
+    """What a ranking of ``kind`` on index ``ci`` is based on: codes and facts, or facts only; the facts this
+    archive's index lacks and the coder's shortlist are named as they are."""
+    if kind == "alike" and ci.coder.kind == "nonlinear":
+        return NONLINEAR_ALIKE
+    text = (BASED_ON_FACTS if ci.coder.kind == "facts" else BASED_ON_INDEX)[kind]
+    if kind == "unusual" and ci.n_segments and not ci.fact("edge").any():   # a stored count is at least 1
+        text = text.replace(*NO_EDGE)
+    return text
 
 
 def channel_name(arc, channel: str | None) -> str:
@@ -107,15 +123,22 @@ def unusual(arc, channel: str | None = None, k: int = 20) -> Ranking:
 
 
 def segment_samples(arc, name: str, ci, ids: np.ndarray) -> np.ndarray:
-    """The decoded samples of segments ``ids`` (len, S), filled as the index filled them."""
-    meta = arc.channel(name)
-    W, S = meta.window, ci.segment
+    """The decoded samples of segments ``ids`` (len, S), filled as the index filled them; each window they
+    need is decoded once (runs of consecutive windows in one call)."""
+    W, S = arc.channel(name).window, ci.segment
+    ids = np.asarray(ids, dtype=np.int64)
+    a, b = ids * S, np.minimum(ci.n_samples, (ids + 1) * S)
+    need = np.unique(np.concatenate([np.arange(x // W, -(-y // W)) for x, y in zip(a.tolist(), b.tolist())]
+                                    or [np.zeros(0, np.int64)]))
+    got = {}
+    for run in np.split(need, np.flatnonzero(np.diff(need) > 1) + 1) if len(need) else []:
+        x = np.ma.filled(np.ma.asarray(arc.decode_windows(name, int(run[0]), int(run[-1]) + 1)[0], np.float64), np.nan)
+        got.update({int(w): x[(w - run[0]) * W:(w - run[0] + 1) * W] for w in run.tolist()})
     out = np.empty((len(ids), S))
-    for j, s in enumerate(np.asarray(ids).tolist()):
-        a, b = s * S, min(ci.n_samples, (s + 1) * S)
-        w0, w1 = a // W, -(-b // W)
-        x = arc.decode_windows(name, w0, w1)[0]
-        out[j] = as_segments(x[a - w0 * W:b - w0 * W], S, 0.0)[0]
+    for j, (x, y) in enumerate(zip(a.tolist(), b.tolist())):
+        w0, w1 = x // W, -(-y // W)
+        seg = np.concatenate([got[w] for w in range(w0, w1)])[x - w0 * W:y - w0 * W]
+        out[j] = as_segments(seg, S, 0.0)[0]
     return out
 
 
@@ -125,7 +148,8 @@ def alike(arc, number: int, channel: str | None = None, k: int = 10) -> Ranking:
         ci = member.read(arc, name)
         found = Q.alike(ci, int(number), k, lambda ids: segment_samples(arc, name, ci, ids))
         rows = tuple(Row(s, s * ci.segment, d) for s, d in found)
-        return Ranking(name, "alike", "segment", ci.segment, based_on(ci, "alike").format(m=Q.SHORTLIST), rows)
+        text = based_on(ci, "alike").format(m=Q.SHORTLIST, most=Q.MOST_DECODED)
+        return Ranking(name, "alike", "segment", ci.segment, text, rows)
     W = arc.channel(name).window
     rows = tuple(Row(int(w), int(w) * W, float(d)) for w, d in arc.similar(name, int(number), k=k))
     return Ranking(name, "alike", "window", W, BASED_ON_FALLBACK["alike"], rows)

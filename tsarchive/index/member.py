@@ -8,7 +8,8 @@ The index of a channel is a table of one row per segment: ``level`` (the
 segment's mean in units of ``level_step``), the code ``c0`` .. ``c{K-1}``
 (int8 range) and the facts :data:`tsarchive.index.build.FACT_NAMES` (uint8,
 magnitudes on the log scale of :func:`tsarchive.index.segments.log_code`
-against the channel's ``ref``).  Each of those columns (a *part*) is stored
+against the channel's ``ref``, counts against 1; a fact of ``OPTIONAL_FACTS``
+came later and reads as zeros from archives without its column).  Each of those columns (a *part*) is stored
 in blocks of :data:`BLOCK` segments, one Parquet row per (channel, part,
 block): ``channel``, ``part``, ``first`` (first segment), ``n``, ``table``
 (a :class:`tsarchive.entropy.FreqTable`'s bytes) and ``payload`` (the block's
@@ -51,7 +52,7 @@ from tsarchive.model.intnet import IntDecoder
 from tsarchive.store.members import Findings, open_parquet
 
 from .budget import fit_index, staged_bytes
-from .build import FACT_NAMES, ChannelIndex
+from .build import FACT_NAMES, OPTIONAL_FACTS, ChannelIndex
 from .learn import Coder
 
 NAME = "index.zst"            # format 6 (to_bytes); format 5 wrote PARQUET_NAME
@@ -285,7 +286,9 @@ def read(archive, channel: str, *, facts: bool = True) -> ChannelIndex:
     n = _number(d, "n_samples", 0, 1 << 62, True)
     n_seg = -(-n // coder.segment)
     wanted = ["level", *CODE_COLUMNS[:coder.code_size]] + (list(FACT_NAMES) if facts else [])
-    got = {p: _decode_part(t, channel, p, n_seg) for p in wanted}
+    stored = set(t["part"].to_pylist())
+    got = {p: np.zeros(n_seg, np.int64) if p in OPTIONAL_FACTS and p not in stored else
+           _decode_part(t, channel, p, n_seg) for p in wanted}     # a fact added later: zeros where absent
     codes = np.stack([got[c] for c in CODE_COLUMNS[:coder.code_size]], axis=1) if n_seg and coder.code_size else \
         np.zeros((n_seg, coder.code_size))
     if codes.size and (codes.min() < -127 or codes.max() > 127) or \

@@ -10,7 +10,9 @@ everything else elementwise IEEE operations):
 * ``spread`` -- RMS deviation from the mean;
 * ``slope`` -- RMS of the first difference (noise and sharpness);
 * ``peak`` -- largest distance of a sample from the mean;
-* ``flat`` -- share of first differences that are exactly zero (a stuck sensor), in 1/16ths.
+* ``flat`` -- share of first differences that are exactly zero (a stuck sensor), in 1/16ths;
+* ``edge`` -- how many samples equal the segment's largest or smallest value (a clipped signal
+  holds its extremes: counting equal values is exact on every machine).
 
 Magnitudes are stored as one byte each on a logarithmic scale of 8 steps
 per octave relative to the channel's spread (:func:`log_code`): about 9 %
@@ -106,13 +108,14 @@ def squares(a: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True, eq=False)
 class Facts:
-    """Per-segment facts of one channel block (see module doc), float64 except ``flat`` (uint8)."""
+    """Per-segment facts of one channel block (see module doc), float64 except ``flat`` (uint8) and ``edge`` (int64)."""
 
     mean: np.ndarray
     spread: np.ndarray
     slope: np.ndarray
     peak: np.ndarray
     flat: np.ndarray
+    edge: np.ndarray
 
 
 def facts(rows: np.ndarray, lengths: np.ndarray) -> Facts:
@@ -128,4 +131,7 @@ def facts(rows: np.ndarray, lengths: np.ndarray) -> Facts:
     slope = np.sqrt(exact.total(squares(d), axis=1) / pairs)
     still = ((d == 0) & inside[:, 1:]).sum(axis=1).astype(np.int64)
     flat = ((still * 16 + pairs // 2) // pairs).astype(np.uint8)
-    return Facts(mean=mean, spread=spread, slope=slope, peak=np.abs(dev).max(axis=1), flat=flat)
+    top = np.where(inside, rows, -np.inf).max(axis=1, keepdims=True)
+    low = np.where(inside, rows, np.inf).min(axis=1, keepdims=True)
+    edge = (inside & ((rows == top) | (rows == low))).sum(axis=1).astype(np.int64)
+    return Facts(mean=mean, spread=spread, slope=slope, peak=np.abs(dev).max(axis=1), flat=flat, edge=edge)
