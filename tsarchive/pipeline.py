@@ -35,7 +35,7 @@ import numpy as np
 import pyarrow as pa
 
 from .channelcodec import ChannelCodec
-from .encoder import choose_coder, coded_bytes, sample_windows
+from .encoder import choose_coder, coded_bytes, coder_tables, sample_windows
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .gridphase import choose_phase
 from .ingest import read_recording
@@ -180,6 +180,7 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
     for n, g, sc, p, w in zip(names, grids, sample.scales, choice.plans, sample.windows):
         tables = p.tables if model is not None else p.tables_plain
         coder = choose_coder(w, sample.nwin, g, sample.W, model, sc, p.lpc, tables)    # plan: the residual coder
+        tables = coder_tables(coder, tables)
         codecs.append(ChannelCodec.for_tables(n, sample.W, g, sc, p.lpc, tables, residual_coder=coder))
     with ArchiveWriter(job.archive, names, force=job.force, with_code=decoder is not None) as writer:
         summaries = _encode(writer, rec, names, codecs, sample.W, model, emit)
