@@ -89,11 +89,12 @@ def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: 
 
 def coded_bytes(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int) -> int:
     """Bytes the residuals of ``windows`` (k, W) take when planned and range coded on their own,
-    without a model: the size estimate behind the choice of the window length."""
+    without a model, or classic coded if that is smaller (:func:`~tsarchive.coding.fallback.classic_bytes`,
+    whose repeats longer windows hold more of): the size estimate behind the choice of the window length."""
     plan = plan_channel(windows, None, n_total_windows, grid, W, None, 1)
     q, _, _, lv, _, _ = predict_windows(windows, grid, W, None, 1)
     modes, classes, res, _ = choose_modes(q, Context(lv, None, plan.lpc), plan.tables)
-    return sum(len(p) for p in code_windows(modes, classes, res, plan.tables))
+    return min(sum(len(p) for p in code_windows(modes, classes, res, plan.tables)), fallback.classic_bytes(q, lv))
 
 
 def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, model, scale: int,

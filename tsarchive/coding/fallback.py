@@ -79,6 +79,18 @@ def classic_choice(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat:
     return coder if size < beat else None
 
 
+def classic_bytes(q: np.ndarray, level: np.ndarray) -> int:
+    """Estimated bytes of windows ``q`` (k, W) with levels ``level`` in a classic channel, cheaply (the
+    window length's choice): the best of zstd and bzip2 unshuffled on at most ``SETTING_SAMPLES`` of
+    them, scaled to the ``k`` windows."""
+    if not len(q):
+        return 0
+    res = prev_residuals(q, level)
+    sub = res[spread(len(res), max(1, SETTING_SAMPLES // res.shape[1]))]
+    size = min(sum(map(len, ClassicCoder(_FAST, (order,), (False,)).encode_many(sub))) for order in ORDERS)
+    return size * len(res) // len(sub)
+
+
 def _setting(res: np.ndarray, promising: Callable[[int], bool]) -> tuple[ClassicCoder | None, list[bytes]]:
     """The one-combination coder with the fewest bytes on windows ``res`` and their payloads, or
     ``(None, [])`` when not even its payload bytes are ``promising``."""
