@@ -15,7 +15,6 @@ The rows themselves are made by :func:`tsarchive.windowcodec.encode_windows`.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 
 import numpy as np
