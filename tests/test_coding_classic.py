@@ -112,3 +112,47 @@ def test_registry():
         assert codecs.from_config("coder", config["id"], config) == c
     with pytest.raises(UnknownCodec):
         codecs.from_config("coder", "lz4", {"id": "lz4"})
+
+
+@given(arrays(np.int64, st.integers(0, 200),
+              elements=st.one_of(st.integers(-100, 100), st.integers(I64_MIN, I64_MAX))),
+       st.sampled_from([-1, 0, 1, 2]), st.booleans())
+def test_one_combination_round_trips(x, order, shuffled):
+    c = ClassicCoder(("bzip2",), (order,), (shuffled,))
+    p = c.encode(x)
+    assert np.array_equal(c.decode(p, len(x)), x)
+    if len(x):
+        assert ({3: -1}.get(p[0] & 3, p[0] & 3), (p[0] >> 2) & 3) == (order, 2)     # header: order (-1 is 3), bzip2
+
+
+def test_order_minus_one_is_one_running_sum():
+    # reference: numpy's cumsum; the body is the running sum of the values, once
+    x = np.array([3, -1, 4, 1, -5, 9, 2, -6], np.int64)
+    p = ClassicCoder(("zstd",), (-1,), (False,)).encode(x)
+    assert p[0] & 3 == 3 and _body(p) == np.cumsum(x).astype("<i1").tobytes()
+
+
+def test_decode_flat_reads_windows_from_one_buffer():
+    rng = np.random.default_rng(4)
+    c = ClassicCoder(("zstd", "bzip2"), (-1, 0), (False, True))
+    windows = [np.cumsum(rng.integers(-300, 300, 500)) for _ in range(5)]
+    parts = c.encode_many(windows)
+    ends = np.cumsum([len(p) for p in parts])
+    buf = np.frombuffer(b"".join(parts), np.uint8)
+    flat = c.decode_flat(buf, ends - [len(p) for p in parts], ends, 500)
+    assert np.array_equal(flat, np.concatenate(windows))
+    with pytest.raises(ArchiveCorrupt):
+        c.decode_flat(buf, np.array([0]), np.array([len(buf) + 1]), 500)     # outside the column
+    with pytest.raises(ArchiveCorrupt):
+        c.decode_flat(buf, ends - [len(p) for p in parts], ends, 1 << 30)  # a garbled length
+
+
+def test_config_of_one_combination_and_an_older_config():
+    c = ClassicCoder(("xz",), (-1,), (True,))
+    cfg = json.loads(json.dumps(c.get_config()))
+    assert cfg == {"id": "classic", "compressors": ["xz"], "orders": [-1], "shuffles": [True]}
+    assert ClassicCoder.from_config(cfg) == c
+    assert ClassicCoder.from_config({"id": "classic", "compressors": ["zstd"]}) == ClassicCoder(("zstd",))
+    for bad in ({"orders": [3]}, {"orders": []}, {"shuffles": ["yes"]}):
+        with pytest.raises(ArchiveCorrupt):
+            ClassicCoder.from_config({"id": "classic", **bad})

@@ -251,7 +251,7 @@ CASES = [
     ("coder-init-garbled", _coder_field("init", "%%not base64%%"), r"initial state is not base64", (2, 2, 2)),
     ("coder-init-short", _coder_field("init", "AAAA"), r"initial state is malformed", (2, 2, 2)),
     ("coder-range", _coder({"id": "range"}), r"residual coder 'range' cannot code a whole channel", (2, 2, 2)),
-    ("coder-classic", _coder({"id": "classic"}), r"residual coder 'classic' cannot code a whole channel",
+    ("coder-classic-order", _coder({"id": "classic", "orders": [3]}), r"classic coder orders must be among",
      (2, 2, 2)),
     ("coder-huge", _coder_field("init", "A" * (1 << 17)), r"residual coder is malformed", (2, 2, 2)),
     ("lpc-empty", _ch("lpc", []), r"linear-prediction sets are missing or malformed", (2, 2, 2)),

@@ -15,13 +15,14 @@ The rows themselves are made by :func:`tsarchive.windowcodec.encode_windows`.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 
 import numpy as np
 
 from . import entropy
+from .coding import fallback
 from .coding.adaptive import AdaptiveCoder
+from .coding.classic import ClassicCoder
 from .codec import TableSet, choose_modes, proxy_bits
 from .predict import Context
 from .predict import lpc as lpc_mod
@@ -87,23 +88,27 @@ def plan_channel(windows: np.ndarray, tail: np.ndarray | None, n_total_windows: 
 
 def coded_bytes(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int) -> int:
     """Bytes the residuals of ``windows`` (k, W) take when planned and range coded on their own,
-    without a model: the size estimate behind the choice of the window length."""
+    without a model, or classic coded if that is smaller (:func:`~tsarchive.coding.fallback.classic_bytes`,
+    whose repeats longer windows hold more of): the size estimate behind the choice of the window length."""
     plan = plan_channel(windows, None, n_total_windows, grid, W, None, 1)
     q, _, _, lv, _, _ = predict_windows(windows, grid, W, None, 1)
     modes, classes, res, _ = choose_modes(q, Context(lv, None, plan.lpc), plan.tables)
-    return sum(len(p) for p in code_windows(modes, classes, res, plan.tables))
+    return min(sum(len(p) for p in code_windows(modes, classes, res, plan.tables)), fallback.classic_bytes(q, lv))
 
 
 def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, model, scale: int,
                  lpc, tables: TableSet):
-    """The channel's residual coder: None (range coding under ``tables``, stored in the manifest) or an
-    :class:`~tsarchive.coding.adaptive.AdaptiveCoder`, whichever gives the fewest bytes.
+    """The channel's residual coder: None (range coding under ``tables``, stored in the manifest), an
+    :class:`~tsarchive.coding.adaptive.AdaptiveCoder` or a one-combination
+    :class:`~tsarchive.coding.classic.ClassicCoder` (every window then predicted by the previous
+    sample: :func:`coder_tables`), whichever gives the fewest bytes.
 
-    Each candidate codes the same spread sample of the full ``windows`` (k, W) with the predictors
-    ``tables`` choose; its payload bytes are scaled to the channel's windows (integer arithmetic,
-    so the choice, and the archive, are the same on every machine) and what it adds to the manifest
-    is added: the tables' JSON text, or the coder's config (a fitted initial state in base64).  A tie
-    keeps the range coder.
+    Each candidate codes the same spread sample of the full ``windows`` (k, W), the range and adaptive
+    coders with the predictors ``tables`` choose, the classic coder with the previous sample
+    (:mod:`tsarchive.coding.fallback`); its payload bytes are scaled to the channel's windows (integer
+    arithmetic, so the choice, and the archive, are the same on every machine) and what it adds to the
+    manifest is added: the tables' JSON text, or the coder's config (a fitted initial state in base64).
+    A tie keeps the range coder, and the classic coder must be strictly smaller than the best of the others.
     """
     if not len(windows):
         return None
@@ -113,7 +118,7 @@ def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, 
     k = len(res)
 
     def total(payload_bytes: int, stored) -> int:
-        return payload_bytes * n_total_windows // k + len(json.dumps(stored, separators=(",", ":")))
+        return fallback.estimate(payload_bytes, k, n_total_windows, stored)
 
     entries = [{"mode": int(m), "table": int(c), "coder": entropy.RangeCoder.id,
                 **entropy.RangeCoder(t).get_config()} for (m, c), t in sorted(tables.tables.items())]
@@ -128,7 +133,16 @@ def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, 
                      coder.get_config())
         if size < best_bytes:
             best, best_bytes = coder, size
-    return best
+    return fallback.classic_choice(q, lv, n_total_windows, best_bytes) or best
+
+
+def coder_tables(coder, tables: TableSet) -> TableSet:
+    """The tables that steer a channel's choice of predictor under its residual ``coder``: ``tables``
+    themselves, except for the classic coder, whose windows all take the previous-sample predictor
+    (one table of it, any: a channel with a coder stores no tables)."""
+    if not isinstance(coder, ClassicCoder) or not tables.tables:
+        return tables
+    return TableSet({(fallback.PREV, 0): tables.tables[min(tables.tables)]})
 
 
 def _tables(batches, lpc, use_ae: bool) -> tuple[TableSet, float]:

@@ -35,7 +35,7 @@ import numpy as np
 import pyarrow as pa
 
 from .channelcodec import ChannelCodec
-from .encoder import choose_coder, coded_bytes, sample_windows
+from .encoder import choose_coder, coded_bytes, coder_tables, sample_windows
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .gridphase import choose_phase
 from .ingest import read_recording
@@ -192,6 +192,7 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
         tables = p.tables if model is not None else p.tables_plain
         coder = choose_coder(sample.windows[j], sample.nwin, grids[j], sample.W, model, sample.scales[j], p.lpc,
                              tables)
+        tables = coder_tables(coder, tables)
         return ChannelCodec.for_tables(names[j], sample.W, grids[j], sample.scales[j], p.lpc, tables,
                                        residual_coder=coder)
     with ThreadPoolExecutor(worker_count(len(names))) as pool:     # channels side by side

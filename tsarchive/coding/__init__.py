@@ -12,7 +12,8 @@ package registers them, so ``codecs.from_config("coder", id, config)`` finds the
   the packer chooses it per channel where it is smaller (:func:`tsarchive.encoder.choose_coder`);
 * :class:`~tsarchive.coding.classic.ClassicCoder` (``"classic"``): difference + the
   smallest of zstd -19 / xz -9e / bzip2 -9, the fallback that is never worse than
-  a general-purpose compressor on the same integers.
+  a general-purpose compressor on the same integers; the packer codes a whole channel
+  with it where it is smaller (:mod:`tsarchive.coding.fallback`, not imported here).
 
 Importing this package imports neither numba (compiled on first use) nor torch.
 """

@@ -3,15 +3,28 @@
 What a technician would do by hand, as a coder: the int64 values (samples on
 the grid, or residuals) are differenced ``order`` times (0, 1 or 2; ``r[t] =
 q[t] - q[t-1]`` with ``q[-1] = 0``, applied again for 2: wrap-around int64,
-so the running sums undo it exactly modulo 2**64), stored in the narrowest of
+so the running sums undo it exactly modulo 2**64), or for order -1 summed once
+(``r[t] = q[0] + ... + q[t]``, undone by one difference: residuals of the
+previous-sample predictor back to the samples, the "quantized" baseline of a
+channel coded by that predictor), stored in the narrowest of
 1, 2, 4 or 8 bytes little-endian that holds them, optionally byte-shuffled
 (byte plane k = byte k of every value, as Blosc's shuffle filter), and
-compressed by zstd level 19, xz (LZMA2, ``preset 9 | PRESET_EXTREME``) or
-bzip2 level 9.  :meth:`ClassicCoder.encode` tries every combination and keeps
-the smallest, so on any input it is at most the best of them plus its header.
+compressed by zstd level 19, xz (LZMA2, ``preset 9 | PRESET_EXTREME``, the dictionary cut to the input) or
+bzip2 level 9.  :meth:`ClassicCoder.encode` tries every combination of its
+``compressors``, ``orders`` and ``shuffles`` and keeps the smallest, so on any
+input it is at most the best of them plus its header.  A coder of one
+combination (what the packer stores for a channel, :mod:`.fallback`) compresses
+each window once.
 
-Payload: one header byte ``order | compressor << 2 | shuffle << 4 | log2(width) << 5``
-(compressor 0 zstd, 1 xz, 2 bzip2; a zero-length window is ``b""``), then the
+Determinism: the bytes of zstd, xz and bzip2 at fixed settings are the same for
+a fixed version of each library (zstandard's bundled libzstd, the system's
+liblzma and libbz2 behind Python's ``lzma`` and ``bz2``); another version may
+compress differently, which changes an archive's bytes (and can change which
+combination is smallest) but never what it decodes to: decompression is
+specified by each stream format.
+
+Payload: one header byte ``order & 3 | compressor << 2 | shuffle << 4 | log2(width) << 5``
+(order -1 is 3; compressor 0 zstd, 1 xz, 2 bzip2; a zero-length window is ``b""``), then the
 compressor's own stream.  Decoding never inflates past ``n * width`` bytes and
 raises :class:`ArchiveCorrupt` on any header or stream that does not give
 exactly ``n`` values.
@@ -37,14 +50,19 @@ import zstandard
 from tsarchive.errors import ArchiveCorrupt, BadInput
 
 COMPRESSORS = ("zstd", "xz", "bzip2")
-ORDERS = (0, 1, 2)
+ORDERS = (0, 1, 2)          # what ClassicCoder() tries
+ALL_ORDERS = (-1, 0, 1, 2)  # what a coder may try (-1: one running sum)
+SHUFFLES = (False, True)
+MAX_N = 1 << 24           # longest window (values) a channel's reader decodes: a garbled length cannot allocate more
 _WIDTHS = {1: np.int8, 2: np.int16, 4: np.int32, 8: np.int64}
 _XZ_PRESET = 9 | lzma.PRESET_EXTREME
 
 
 def difference(q: np.ndarray, order: int) -> np.ndarray:
-    """``order`` first differences with ``q[-1] = 0`` (wrap-around int64)."""
+    """``order`` first differences with ``q[-1] = 0``, or for -1 one running sum (wrap-around int64)."""
     r = np.asarray(q, dtype=np.int64)
+    if order < 0:
+        return _sum(r)
     with np.errstate(over="ignore"):
         for _ in range(order):
             r = np.diff(r, prepend=np.int64(0))
@@ -52,12 +70,19 @@ def difference(q: np.ndarray, order: int) -> np.ndarray:
 
 
 def integrate(r: np.ndarray, order: int) -> np.ndarray:
-    """Inverse of :func:`difference` (running sums, wrap-around int64)."""
+    """Inverse of :func:`difference` (running sums, or for -1 one difference; wrap-around int64)."""
     q = np.asarray(r, dtype=np.int64)
-    with np.errstate(over="ignore"):
-        for _ in range(order):
-            q = np.cumsum(q, dtype=np.int64)
+    if order < 0:
+        with np.errstate(over="ignore"):
+            return np.diff(q, prepend=np.int64(0))
+    for _ in range(order):
+        q = _sum(q)
     return q
+
+
+def _sum(r: np.ndarray) -> np.ndarray:
+    with np.errstate(over="ignore"):
+        return np.cumsum(r, dtype=np.int64)
 
 
 def _narrowest(r: np.ndarray) -> int:
@@ -78,8 +103,12 @@ def _unshuffle(raw: bytes, width: int) -> bytes:
 def _compress(raw: bytes, kind: int) -> bytes:
     if kind == 0:
         return zstandard.ZstdCompressor(level=19).compress(raw)
-    if kind == 1:
-        return lzma.compress(raw, preset=_XZ_PRESET)
+    if kind == 1:       # xz -9e with a dictionary no bigger than the input: the same matches and size (a dictionary
+        # the input fits in finds the same matches), without allocating 64 MiB of dictionary and
+        # ~600 MiB of match finder per window (65x faster on a window of 4 KiB)
+        dict_size = max(4096, 1 << (len(raw) - 1).bit_length())
+        return lzma.compress(raw, format=lzma.FORMAT_XZ,
+                             filters=[{"id": lzma.FILTER_LZMA2, "preset": _XZ_PRESET, "dict_size": dict_size}])
     return bz2.compress(raw, 9)
 
 
@@ -104,15 +133,25 @@ def expect_id(config: dict, coder_id: str) -> None:
 
 @dataclass(frozen=True)
 class ClassicCoder:
-    """Difference + byte width + shuffle + the smallest of zstd -19 / xz -9e / bzip2 -9 (module docstring)."""
+    """Difference + byte width + shuffle + the smallest of zstd -19 / xz -9e / bzip2 -9 (module docstring).
+
+    ``orders``, ``shuffles`` and ``compressors`` are the combinations :meth:`encode` tries (a shuffle
+    applies to values wider than a byte only); decoding reads the combination from each payload's header.
+    """
 
     compressors: tuple[str, ...] = COMPRESSORS
+    orders: tuple[int, ...] = ORDERS
+    shuffles: tuple[bool, ...] = SHUFFLES
     id: ClassVar[str] = "classic"
 
     def __post_init__(self) -> None:
         if not self.compressors or any(c not in COMPRESSORS for c in self.compressors):
             raise BadInput(f"classic coder compressors must be among {', '.join(COMPRESSORS)}; "
                            f"got {', '.join(map(str, self.compressors)) or 'none'}")
+        if not self.orders or any(o not in ALL_ORDERS for o in self.orders) or \
+                not self.shuffles or any(not isinstance(f, bool) for f in self.shuffles):
+            raise BadInput(f"classic coder orders must be among {ALL_ORDERS} and shuffles true or false; "
+                           f"got {self.orders} and {self.shuffles}")
 
     def encode(self, values) -> bytes:
         x = np.asarray(values)
@@ -121,15 +160,15 @@ class ClassicCoder:
         if not len(x):
             return b""
         best = None
-        for order in ORDERS:
+        for order in self.orders:
             r = difference(x, order)
             width = _narrowest(r)
             raw = r.astype(_WIDTHS[width]).astype(f"<i{width}").tobytes()
-            for shuf in ((False, True) if width > 1 else (False,)):
+            for shuf in sorted({f and width > 1 for f in self.shuffles}):
                 data = _shuffle(raw, width) if shuf else raw
                 for name in self.compressors:
                     kind = COMPRESSORS.index(name)
-                    head = order | kind << 2 | int(shuf) << 4 | (width.bit_length() - 1) << 5
+                    head = order & 3 | kind << 2 | int(shuf) << 4 | (width.bit_length() - 1) << 5
                     blob = bytes([head]) + _compress(data, kind)
                     if best is None or len(blob) < len(best):
                         best = blob
@@ -144,7 +183,7 @@ class ClassicCoder:
             raise ArchiveCorrupt("a classic-coded window has no bytes; the archive is damaged")
         head = payload[0]
         order, kind, shuf, width = head & 3, (head >> 2) & 3, (head >> 4) & 1, 1 << (head >> 5)
-        if order > 2 or kind > 2 or width > 8:
+        if kind > 2 or width > 8:
             raise ArchiveCorrupt("a classic-coded window's header is unknown; the archive is damaged")
         raw = _decompress(bytes(payload[1:]), kind, n * width)
         if len(raw) != n * width:
@@ -152,7 +191,7 @@ class ClassicCoder:
                                  "the archive is damaged")
         if shuf:
             raw = _unshuffle(raw, width)
-        return integrate(np.frombuffer(raw, f"<i{width}").astype(np.int64), order)
+        return integrate(np.frombuffer(raw, f"<i{width}").astype(np.int64), -1 if order == 3 else order)
 
     def encode_many(self, windows) -> list[bytes]:
         return [self.encode(w) for w in windows]
@@ -163,17 +202,38 @@ class ClassicCoder:
             raise BadInput(f"{len(payloads)} payloads but {len(lens)} lengths; give one length per payload")
         return [self.decode(p, n) for p, n in zip(payloads, lens)]
 
+    def decode_flat(self, buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, n: int,
+                    strict: bool = False) -> np.ndarray:
+        """Windows of ``n`` values each from ``buf[starts[w]:ends[w]]`` (a Parquet binary column's data
+        buffer and offsets), as one flat int64 array.  ``strict`` asks nothing more here: every stream
+        is checked to give exactly ``n`` values, and the reader checks each window's CRC."""
+        starts, ends = np.asarray(starts, np.int64), np.asarray(ends, np.int64)
+        if not 0 <= n <= MAX_N:
+            raise ArchiveCorrupt(f"a window length is outside 0..{MAX_N}; the archive is damaged")
+        if len(starts) != len(ends) or (len(starts) and (np.any(ends < starts) or starts.min() < 0
+                                                         or ends.max() > len(buf))):
+            raise ArchiveCorrupt("classic-coded windows point outside their column; the archive is damaged")
+        view = memoryview(np.ascontiguousarray(buf, np.uint8))
+        out = np.empty(len(starts) * n, np.int64)
+        for w, (a, b) in enumerate(zip(starts.tolist(), ends.tolist())):
+            out[w * n:(w + 1) * n] = self.decode(view[a:b], n)
+        return out
+
     def cost_bits(self, values) -> float:
         """Exact: the bytes of :meth:`encode` (the compressors have no cheaper estimate)."""
         return 8.0 * len(self.encode(values))
 
     def get_config(self) -> dict:
-        return {"id": self.id, "compressors": list(self.compressors)}
+        return {"id": self.id, "compressors": list(self.compressors), "orders": list(self.orders),
+                "shuffles": list(self.shuffles)}
 
     @classmethod
     def from_config(cls, config: dict) -> "ClassicCoder":
+        """The coder of ``config``; ``orders`` and ``shuffles`` are optional (every one when absent)."""
         expect_id(config, cls.id)
         try:
-            return cls(tuple(str(c) for c in config.get("compressors", COMPRESSORS)))
+            return cls(tuple(str(c) for c in config.get("compressors", COMPRESSORS)),
+                       tuple(int(o) for o in config.get("orders", ORDERS)),
+                       tuple(f if isinstance(f, bool) else str(f) for f in config.get("shuffles", SHUFFLES)))
         except BadInput as exc:
             raise ArchiveCorrupt(f"{exc}; the archive is damaged") from None

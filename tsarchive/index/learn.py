@@ -160,6 +160,9 @@ def _total_py(v, bits):
     return s / scale
 
 
+_total = _total_py       # the kernel's helper; compile_kernels puts the compiled one in its place
+
+
 def _orthonormal_kernel(V, bits):
     """:func:`_orthonormal_numpy`, the same operations one element at a time: (columns, every sum finite)."""
     S, K = V.shape

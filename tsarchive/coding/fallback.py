@@ -1,0 +1,121 @@
+"""A whole channel in the classic coder, where it is smaller than the entropy coders (issue 12).
+
+Where a quantized channel repeats itself exactly (an appliance's power
+cycles, breaths, machine rotations), the long matches of zstd and xz and the
+Burrows–Wheeler transform of bzip2 find the repeats, which neither the
+range coder's order-0 tables nor the adaptive coder's short contexts see.
+They find them only in one steady stream: residuals of predictors chosen
+window by window (LPC here, previous sample there) break the repeats.  So a
+*classic channel* codes every window with the previous-sample predictor
+(``prev``, id 0: the window's first sample against its stored level, then
+first differences) and its residuals with one :class:`ClassicCoder`
+combination: its order -1 sums them back to the samples less the level, 0
+keeps the first differences, 1 takes second differences (the "quant", "prev"
+and "prev2" of the bench's classic baselines).
+Each window is still coded alone: any window decodes without the others, and
+its CRC is checked as every window's.
+
+:func:`classic_choice` decides on the packer's spread sample of the channel's
+windows, the one the other coders are measured on (:func:`tsarchive.encoder.choose_coder`):
+
+1. the combination (order -1, 0 or 1, shuffled or not, zstd or bzip2) with the
+   fewest bytes on at most ``SETTING_SAMPLES`` samples of it; xz (slow) is
+   tried with the order and shuffle zstd liked best, only where the best so
+   far is within ``XZ_WITHIN`` of the bytes to beat;
+2. that one combination codes the rest of the sample, and the channel takes
+   it only if its estimate (payload bytes scaled to the channel, plus its
+   config in the manifest) is strictly below the best other coder's.
+
+Every quantity is an integer count of bytes, so the choice is the same on
+every machine with the same compressor libraries (see :mod:`.classic` on
+their versions).
+"""
+
+from __future__ import annotations
+
+import json
+from typing import Callable
+
+import numpy as np
+
+from tsarchive.predict import Context, get_predictor
+from tsarchive.windows import spread
+
+from .classic import ClassicCoder
+
+PREV = 0                    # the predictor of every window of a classic channel (predict.PREDICTORS)
+SETTING_SAMPLES = 1 << 16   # bound on the samples the combination is chosen on
+ORDERS = (-1, 0, 1)         # the classic coder's orders a channel may take (see the module docstring)
+XZ_WITHIN = (5, 4)          # xz is tried where the best so far is at most 5/4 of the bytes to beat
+_FAST = ("zstd", "bzip2")
+
+
+def estimate(payload_bytes: int, count: int, n_total_windows: int, stored) -> int:
+    """Bytes of a channel of ``n_total_windows`` windows whose ``count`` sampled windows take
+    ``payload_bytes``, plus ``stored`` (what the coder adds to the manifest) as compact JSON."""
+    return payload_bytes * n_total_windows // max(count, 1) + len(json.dumps(stored, separators=(",", ":")))
+
+
+def prev_residuals(q: np.ndarray, level: np.ndarray) -> np.ndarray:
+    """Residuals of windows ``q`` (k, W) under the previous-sample predictor, as a classic channel codes them."""
+    return get_predictor(PREV).residuals(q, Context(level))
+
+
+def classic_choice(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int) -> ClassicCoder | None:
+    """The classic coder of one combination for a channel whose sampled windows are ``q`` (k, W) with
+    levels ``level``, if its estimate is below ``beat`` bytes (the best other coder's :func:`estimate`
+    on the same windows); else None."""
+    if not len(q):
+        return None
+    res = prev_residuals(q, level)
+    sub = spread(len(res), max(1, SETTING_SAMPLES // res.shape[1]))
+    coder, sub_payloads = _setting(res[sub], lambda size: estimate(size, len(sub), n_total_windows, {}) < beat)
+    if coder is None:
+        return None
+    payloads = dict(zip(sub.tolist(), sub_payloads))
+    rest = [i for i in range(len(res)) if i not in payloads]
+    payloads.update(zip(rest, coder.encode_many(res[rest])))
+    size = estimate(sum(map(len, payloads.values())), len(res), n_total_windows, coder.get_config())
+    return coder if size < beat else None
+
+
+def classic_bytes(q: np.ndarray, level: np.ndarray) -> int:
+    """Estimated bytes of windows ``q`` (k, W) with levels ``level`` in a classic channel, cheaply (the
+    window length's choice): the best of zstd and bzip2 unshuffled on at most ``SETTING_SAMPLES`` of
+    them, scaled to the ``k`` windows."""
+    if not len(q):
+        return 0
+    res = prev_residuals(q, level)
+    sub = res[spread(len(res), max(1, SETTING_SAMPLES // res.shape[1]))]
+    size = min(sum(map(len, ClassicCoder(_FAST, (order,), (False,)).encode_many(sub))) for order in ORDERS)
+    return size * len(res) // len(sub)
+
+
+def _setting(res: np.ndarray, promising: Callable[[int], bool]) -> tuple[ClassicCoder | None, list[bytes]]:
+    """The one-combination coder with the fewest bytes on windows ``res`` and their payloads, or
+    ``(None, [])`` when not even its payload bytes are ``promising``."""
+    tried: dict[tuple[str, int, bool], list[bytes]] = {}
+    for order in ORDERS:
+        for shuf in (False, True):
+            for name in _FAST:
+                tried[(name, order, shuf)] = ClassicCoder((name,), (order,), (shuf,)).encode_many(res)
+
+    def size(key) -> int:
+        return sum(map(len, tried[key]))
+
+    def best() -> tuple[str, int, bool]:    # ties: the first in this fixed order
+        return min(tried, key=lambda k: (size(k), _rank(k)))
+
+    to_beat = size(best())
+    if promising(to_beat * XZ_WITHIN[1] // XZ_WITHIN[0]):
+        _, order, shuf = min((k for k in tried if k[0] == "zstd"), key=lambda k: (size(k), _rank(k)))
+        tried[("xz", order, shuf)] = ClassicCoder(("xz",), (order,), (shuf,)).encode_many(res)
+    name, order, shuf = best()
+    if not promising(size((name, order, shuf))):
+        return None, []
+    return ClassicCoder((name,), (order,), (shuf,)), tried[(name, order, shuf)]
+
+
+def _rank(key: tuple[str, int, bool]) -> tuple[int, int, bool]:
+    name, order, shuf = key
+    return ("zstd", "bzip2", "xz").index(name), order, shuf
