@@ -49,4 +49,4 @@ def test_dask_batch_with_a_shared_model_matches_the_local_one(tmp_path, capsys):
     text = capsys.readouterr().out
     assert code == 0 and text.count("shared model\n") == 3
     want = archive_files(local)
-    assert len(want) >= 3 * 2 and archive_files(remote) == want      # every file of every archive, byte for byte
+    assert len({k.rsplit("/", 1)[0] for k in want}) == 3 and archive_files(remote) == want   # every archive, byte for byte
