@@ -1,4 +1,4 @@
-"""Format 6 (the manifest inside windows.parquet) frozen: ``tests/golden/v6/golden6`` and ``coders6`` are
+"""Format 6 (the manifest inside windows.parquet) frozen: ``tests/golden/v6/golden6``, ``coders6`` and ``classic6`` are
 decoded bit for bit on every run.
 
 A failure here means the archive format changed.  Changing it is deliberate:
@@ -89,3 +89,27 @@ def test_golden_text_column_and_gap_come_back():
 
 def test_coders_golden_decodes_bit_for_bit_with_both_residual_coders_and_its_index():
     golden_checks.coders_bit_for_bit(HERE, HERE / "coders6", "index.zst")
+
+
+def test_classic_golden_decodes_bit_for_bit_and_its_payloads_with_the_libraries():
+    # classic6: channel 0 in the classic fallback coder (format 6 on); the expected samples were decoded when
+    # it was made; each of its windows also inflates with the library its header names (zstd / xz / bzip2)
+    from coder_kit import coder_ids
+    from test_classic_channel import _library_decompress
+
+    arc_path = HERE / "classic6"
+    ids = coder_ids(arc_path)
+    assert ids[0] == "classic" and ids[1] != "classic"
+    expected = np.load(HERE / "expected_classic.npz")
+    arc = tsarchive.open(arc_path)
+    for c in arc.channels:
+        got = np.asarray(arc.read(c.name))
+        assert got.dtype == expected[c.name].dtype
+        assert np.array_equal(got.view(np.uint8), expected[c.name].view(np.uint8))
+    assert tsarchive.verify(arc_path).ok
+    ch = arc.channels[0]
+    payloads = arc.rows(ch.name, 0, ch.n_windows, ["residual"]).column("residual").to_pylist()
+    assert len(payloads) == 5                                   # 20 000 samples in windows of 4096
+    for w, payload in enumerate(payloads):
+        order, raw, shuffled, width = _library_decompress(payload)
+        assert order in (-1, 0, 1) and width in (1, 2, 4, 8) and len(raw) == min(4096, 20_000 - 4096 * w) * width

@@ -7,7 +7,8 @@ the integer decoder, naive times with a gap and jitter (``time.parquet``), notes
 (``extra.parquet``) and an integer channel beyond 2**53 with an empty cell.  It is packed into
 ``golden6`` and its decoded samples saved in ``expected.npz``, which ``tests/test_golden_v6.py``
 reproduces bit for bit; ``coders6`` (one range-coded and one adaptive-coded channel, no model) with
-``expected_coders.npz`` likewise.
+``expected_coders.npz`` likewise; ``classic6`` (one channel in the classic fallback coder) with
+``expected_classic.npz``.
 
 What format 6 adds is frozen too (``store/inside.py``, ``store/lean6.py``): no ``manifest.json``, the
 manifest zstd-compressed with ``manifest6.zdict`` in ``windows.parquet``'s footer with the footer's
@@ -64,6 +65,7 @@ def main() -> None:
     assert not missing, f"the golden archive does not freeze: {missing}"
     _expect(arc, "expected.npz", times=arc.times().values)
     coders()
+    classic()
 
 
 def _expect(arc, name: str, **more) -> None:
@@ -87,6 +89,26 @@ def coders() -> None:
     out.with_suffix(".npy").unlink()
     assert set(coder_ids(out)) == {None, "adaptive"}, "the coders archive does not freeze both coders"
     _expect(tsarchive.open(out), "expected_coders.npz")
+
+
+def classic() -> None:
+    """The small archive whose first channel is coded by the classic fallback (a pattern repeated exactly:
+    the compressors' long matches find it) and whose second is not (white noise), with its decoded
+    samples in ``expected_classic.npz`` (tests/test_classic_channel.py's recording, no model, no index)."""
+    import tsarchive
+    sys.path.insert(0, str(HERE.parents[1]))
+    from coder_kit import coder_ids
+    from test_classic_channel import BUDGET, repetitive_and_noise
+
+    out = HERE / "classic6"
+    shutil.rmtree(out, ignore_errors=True)
+    src = out.with_suffix(".npy")
+    np.save(src, repetitive_and_noise(20_000))
+    tsarchive.pack(src, out, BUDGET, rate=100.0, window=4096, code_size=0, segment=0)
+    src.unlink()
+    ids = coder_ids(out)
+    assert ids[0] == "classic" and ids[1] != "classic", f"the classic archive does not freeze the coder: {ids}"
+    _expect(tsarchive.open(out), "expected_classic.npz")
 
 
 if __name__ == "__main__":
