@@ -52,6 +52,20 @@ def format_4_fields(manifest: dict) -> None:
     assert manifest["extra"]["columns"] == ["status"]
 
 
+def decodes_as_expected(arc_path: Path, expected_npz: Path):
+    """Every channel of the archive at ``arc_path`` read back bit for bit as saved in ``expected_npz`` when the
+    golden archive was made (numpy array_equal on the raw bytes), and every member's checksum passing; returns
+    the open archive."""
+    expected = np.load(expected_npz)
+    arc = tsarchive.open(arc_path)
+    for c in arc.channels:
+        got = np.asarray(arc.read(c.name))
+        assert got.dtype == expected[c.name].dtype
+        assert np.array_equal(got.view(np.uint8), expected[c.name].view(np.uint8))
+    assert tsarchive.verify(arc_path).ok                                  # every member's checksum
+    return arc
+
+
 def coders_bit_for_bit(here: Path, arc_path: Path, index_member: str) -> None:
     """The coders golden archive (test_golden_v5.py, test_golden_v6.py): channel 0 range coded under its
     tables, channel 1 adaptive coded (the packer's own choice, tests/coder_kit.py); the expected samples were
@@ -61,12 +75,6 @@ def coders_bit_for_bit(here: Path, arc_path: Path, index_member: str) -> None:
     from tsarchive.index import look
 
     assert coder_ids(arc_path) == [None, "adaptive"]
-    expected = np.load(here / "expected_coders.npz")
-    arc = tsarchive.open(arc_path)
-    for c in arc.channels:
-        got = np.asarray(arc.read(c.name))
-        assert got.dtype == expected[c.name].dtype
-        assert np.array_equal(got.view(np.uint8), expected[c.name].view(np.uint8))
-    assert tsarchive.verify(arc_path).ok                                  # every member's checksum
+    arc = decodes_as_expected(arc_path, here / "expected_coders.npz")
     assert index_member in arc.manifest["members"]
     assert len(look.unusual(arc, arc.channels[1].name, k=3).rows) == 3

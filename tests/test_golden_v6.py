@@ -100,13 +100,7 @@ def test_classic_golden_decodes_bit_for_bit_and_its_payloads_with_the_libraries(
     arc_path = HERE / "classic6"
     ids = coder_ids(arc_path)
     assert ids[0] == "classic" and ids[1] != "classic"
-    expected = np.load(HERE / "expected_classic.npz")
-    arc = tsarchive.open(arc_path)
-    for c in arc.channels:
-        got = np.asarray(arc.read(c.name))
-        assert got.dtype == expected[c.name].dtype
-        assert np.array_equal(got.view(np.uint8), expected[c.name].view(np.uint8))
-    assert tsarchive.verify(arc_path).ok
+    arc = golden_checks.decodes_as_expected(arc_path, HERE / "expected_classic.npz")
     ch = arc.channels[0]
     payloads = arc.rows(ch.name, 0, ch.n_windows, ["residual"]).column("residual").to_pylist()
     assert len(payloads) == 5                                   # 20 000 samples in windows of 4096
