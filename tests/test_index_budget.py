@@ -94,3 +94,26 @@ def test_no_rung_is_built_when_not_even_an_empty_member_fits():
     payload = (100 * floor) // 3 - 1                          # one byte short of letting an empty member in
     assert budget.fit_index([ci], payload, counting) == []
     assert asked == [0]                                       # only the empty member was measured
+
+
+def test_when_the_coarsest_rung_does_not_fit_no_other_rung_is_built():
+    # an empty member fits but no rung does (a short or very compressible recording's archive): the coarsest
+    # rung is the smallest, so it is measured first and nothing else is built or encoded (each rung costs its
+    # range-coding tables: most of a one-hour log's pack)
+    ci = _channel(n=20_000)
+    coarsest = None
+    for longer, codes, bits in budget.LADDER:
+        if ci.segment * longer <= budget.MAX_SEGMENT and ci.n_samples >= budget.MIN_SEGMENTS * ci.segment * longer:
+            coarsest = (longer, codes, bits)
+    smallest = len(member.to_bytes([budget.rebuild(ci, *coarsest)]))
+    asked = []
+
+    def counting(index):
+        asked.append(len(index))
+        return member.to_bytes(index)
+    payload = (100 * smallest) // 3 - 1                        # one byte short of letting the smallest rung in
+    assert budget.fits(len(member.to_bytes([])), payload)     # the empty member fits: the ladder is tried
+    assert budget.fit_index([ci], payload, counting) == []
+    assert asked == [0, 1]                                     # the empty member, then the coarsest rung only
+    # and where the coarsest fits, the first rung that fits is still the one kept (the ladder's order)
+    assert budget.fit_index([ci], (100 * smallest) // 3 + 1, member.to_bytes)

@@ -17,8 +17,9 @@ the member, which the queries and the app name), at longer and longer
 segments.  When not even the coarsest rung fits, the archive gets no index
 (the queries then fall back to the archive's windows and say so); when not
 even an empty member (schema and footer, no rows) fits, the ladder is not
-climbed at all (a short recording's archive: every rung would be built and
-encoded for nothing).  A segment
+climbed at all, and the coarsest rung (the smallest) is measured before the
+others, so that when it does not fit nothing else is built (a short
+recording's archive: every rung would be built and encoded for nothing).  A segment
 given explicitly (``--segment``) wins over the budget: that index is kept as
 built.
 """
@@ -62,13 +63,26 @@ def fit_index(index: list[ChannelIndex], payload_bytes: int, to_bytes: Callable)
         return index
     if not fits(len(to_bytes([])), payload_bytes):     # not even an empty member fits: no rung can
         return []
-    for longer, codes, bits in LADDER:
-        if any(ci.segment * longer > MAX_SEGMENT or ci.n_samples < MIN_SEGMENTS * ci.segment * longer
-               for ci in index):
-            continue
-        if codes is not None and codes >= max(ci.coder.code_size for ci in index) and longer == 1 and bits == 4:
-            continue                                  # the same as the rung before
-        got = index if (longer, codes, bits) == (1, None, 7) else [rebuild(ci, longer, codes, bits) for ci in index]
+    rungs = [r for r in LADDER if _open(index, *r)]
+    if not rungs:
+        return []
+    coarsest = _build(index, *rungs[-1])
+    if not fits(len(to_bytes(coarsest)), payload_bytes):  # the smallest rung does not fit: none will
+        return []
+    for rung in rungs[:-1]:
+        got = _build(index, *rung)
         if fits(len(to_bytes(got)), payload_bytes):
             return got
-    return []
+    return coarsest
+
+
+def _open(index: list[ChannelIndex], longer: int, codes: int | None, bits: int) -> bool:
+    """Whether a rung of :data:`LADDER` applies to ``index``: its segments within bounds and enough of them,
+    and not the same as the rung before it."""
+    if any(ci.segment * longer > MAX_SEGMENT or ci.n_samples < MIN_SEGMENTS * ci.segment * longer for ci in index):
+        return False
+    return not (codes is not None and codes >= max(ci.coder.code_size for ci in index) and longer == 1 and bits == 4)
+
+
+def _build(index: list[ChannelIndex], longer: int, codes: int | None, bits: int) -> list[ChannelIndex]:
+    return index if (longer, codes, bits) == (1, None, 7) else [rebuild(ci, longer, codes, bits) for ci in index]
