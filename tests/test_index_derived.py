@@ -190,3 +190,17 @@ async def test_the_shortlist_names_the_derived_index_and_ranks_segments(tmp_path
         await pilot.press("enter")
         await settle(app, pilot)
         assert app.screen is strip and strip.current == want.rows[0].start // WINDOW
+
+
+def test_the_packed_bench_counts_precision_in_segments_and_in_windows():
+    from tsarchive.bench.injection_packed import segment_precision, unit_precision
+    # precision@k = share of the top k that are relevant (common practice (no source)); hand-counted cases:
+    # 100 samples in segments of 10, faulty segments 2 and 7 (samples 20..29 and 70..79)
+    truth = np.array([2, 7])
+    assert segment_precision(10, 100, truth, 10, [20, 70, 0]) == 1.0
+    assert segment_precision(10, 100, truth, 10, [20, 0, 70]) == 0.5
+    assert segment_precision(10, 100, truth, 40, [40, 0]) == 0.0          # window 40..79 points at 4, 5 first
+    assert segment_precision(10, 100, truth, 20, [60, 20]) == 0.5         # 6, 7 first
+    spans = [(20, 30), (70, 80)]                                           # windows of 40: 0, 40 faulty; 80 not
+    assert unit_precision(100, 40, spans, [40, 80, 0]) == 0.5
+    assert unit_precision(100, 40, spans, [0, 40, 80]) == 1.0

@@ -250,6 +250,7 @@ def run_all(args, out, log) -> dict:
     """The ``--injection`` mode of ``python -m tsarchive.bench``: both tables; returns them for ``--json``."""
     import tempfile
     sets = [t.strip() for t in args.injection_sets.split(",")] if args.injection_sets else None
+    packed = ([], [])
     if args.injection:
         res = run(sets, seeds=args.injection_seeds, log=log)
         out(f"\ninjection: {N_INJECT} faulty segments per recording and run, {args.injection_seeds} seed(s); "
@@ -257,6 +258,12 @@ def run_all(args, out, log) -> dict:
             f"{REPORTED_FROM}..{REPORTED_FROM + args.injection_seeds - 1} (the score was designed on seeds "
             f"{', '.join(map(str, TUNING_SEEDS))} only)")
         out(table(res))
+        from . import injection_packed as P
+        packed = P.run(res.sets, log=log)
+        out(f"\npacked with the defaults at {P.BUDGET} (seed {REPORTED_FROM}, the cases above): what `tsarchive "
+            "unusual` answers (look: stored or derived index, or windows) against the per-window outlier score; "
+            "precision@k in segments, and the fallback's in windows (tsarchive/bench/injection_packed.py)")
+        out(P.table(*packed))
     else:
         res = InjectionResult(sets=[n for n in (sets or realdata.names()) if _long_enough(n)])
     with tempfile.TemporaryDirectory(prefix="tsbench-index-") as tmp:
@@ -266,4 +273,5 @@ def run_all(args, out, log) -> dict:
         f"preview = codes only, best of {REPEATS}; worst/eps = the preview's worst error over the budget):")
     out(cost_table(q, costs))
     return {"precision": {"|".join(k): v for k, v in res.precision.items()}, "recall_at_5": res.recall,
+            "packed": [c.__dict__ for c in packed[1]],
             "query": q.__dict__, "archives": [c.__dict__ for c in costs]}
