@@ -204,3 +204,21 @@ def test_the_packed_bench_counts_precision_in_segments_and_in_windows():
     spans = [(20, 30), (70, 80)]                                           # windows of 40: 0, 40 faulty; 80 not
     assert unit_precision(100, 40, spans, [40, 80, 0]) == 0.5
     assert unit_precision(100, 40, spans, [0, 40, 80]) == 1.0
+
+
+def test_a_masked_integer_channel_is_indexed_as_its_samples_with_nan_where_missing(tmp_path):
+    rng = np.random.default_rng(0)
+    v = (1000 * np.sin(np.arange(6000) / 9.0)).astype(int) + rng.integers(-5, 5, 6000)
+    cells = [f"{i / 10},{'' if 3000 <= i < 3020 else v[i]}" for i in range(6000)]      # 20 empty cells
+    (tmp_path / "c.csv").write_text("time,count\n" + "\n".join(cells) + "\n")
+    tsarchive.pack(tmp_path / "c.csv", tmp_path / "c.tsarchive", "lossless", code_size=0)
+    arc = open_archive(tmp_path / "c.tsarchive")
+    y = arc.read("count")
+    assert isinstance(y, np.ma.MaskedArray) and np.ma.count_masked(y) == 20 and not member.has_index(arc)
+    z = np.where(y.mask, np.nan, y.data.astype(np.float64))                    # numpy: NaN where missing
+    want = build_channel(lambda a, b: z[a:b], "count", len(z), None, 0, 8, try_nonlinear=False)
+    got = derived.derive(arc, "count")
+    for a, b in [(got.level, want.level), (got.codes, want.codes), (got.facts, want.facts)]:
+        assert np.array_equal(a, b)
+    r = look.unusual(arc, "count", k=1)
+    assert r.rows[0].start < 3020 and 3000 < r.rows[0].start + r.size        # the gap's segment ranks first
