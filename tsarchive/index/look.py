@@ -6,8 +6,8 @@ the channel is short enough, one computed on opening from the decoded
 samples (:mod:`tsarchive.index.derived`).  Longer channels without a stored
 index fall back to what the archive itself holds, per compression *window*:
 the stored outlier score, the nearest window codes or coarse shapes, and the
-level-only preview (``glance`` always falls back so: a preview should not
-decode the channel whole).
+level-only preview (``glance`` without a stored index always falls back
+so: a preview should not decode the channel whole).
 """
 
 from __future__ import annotations
