@@ -28,7 +28,7 @@ from pathlib import Path
 import numpy as np
 
 from . import realdata
-from .injection import KINDS, MAX_SAMPLES, N_INJECT, SEVERITIES, inject, pick_segments, reported_seeds
+from .injection_faults import KINDS, MAX_SAMPLES, N_INJECT, SEVERITIES, inject, pick_segments, reported_seeds
 
 BUDGET = "1%"
 TRAIN_SECONDS = 6.0          # as the index-cost table packs (tsarchive/bench/index_costs.py)
