@@ -122,7 +122,10 @@ def has_segments(arc, name: str) -> bool:
 
 
 def _label(ci, kind: str, made: bool) -> str:
-    return DERIVED + based_on(ci, kind).replace("stored facts", "facts") if made else based_on(ci, kind)
+    """What a ranking is based on; a derived index (``made``) says so first, then the usual description."""
+    if not made:
+        return based_on(ci, kind)
+    return DERIVED + based_on(ci, kind).replace("the learned index: ", "").replace("stored facts", "facts")
 
 
 def channel_name(arc, channel: str | None) -> str:
