@@ -9,7 +9,7 @@ import pytest
 
 import tsarchive
 from tsarchive.app.screens.shortlist import ShortlistScreen
-from tsarchive.index import look
+from tsarchive.index import derived, look
 
 from app_helpers import SPIKE_AT, WINDOW, NotedApp, open_strip, settle, write_stream
 
@@ -32,7 +32,8 @@ async def _about(app, pilot, key: str) -> str:
     return str(app.screen.query_one("#shortlist-about").render())
 
 
-async def test_without_index_or_codes_the_rankings_say_so(tmp_path):
+async def test_without_index_or_codes_the_rankings_say_so(tmp_path, monkeypatch):
+    monkeypatch.setattr(derived, "MAX_SAMPLES", 0)        # every channel counts as too long to derive an index
     folder = _shelf(tmp_path, code_size=0, segment=0)
     app = NotedApp(folder)
     async with app.run_test(size=(100, 40)) as pilot:
@@ -46,7 +47,8 @@ async def test_without_index_or_codes_the_rankings_say_so(tmp_path):
         assert "shape" in about and "no learned codes" in about
 
 
-async def test_with_window_codes_but_no_index_the_rankings_name_the_window_codes(tmp_path):
+async def test_with_window_codes_but_no_index_the_rankings_name_the_window_codes(tmp_path, monkeypatch):
+    monkeypatch.setattr(derived, "MAX_SAMPLES", 0)        # every channel counts as too long to derive an index
     if not GOLDEN_V4.is_dir():
         pytest.skip("golden v4 archive missing")
     folder = tmp_path / "old"

@@ -11,7 +11,7 @@ import zstandard
 
 import tsarchive
 from tsarchive.errors import ArchiveCorrupt
-from tsarchive.index import build_channel, look, member
+from tsarchive.index import build_channel, derived, look, member
 from tsarchive.index.query import preview
 from tsarchive.archive import open_archive
 
@@ -71,7 +71,8 @@ def test_preview_is_within_the_stored_worst_error(packed):
     assert np.array_equal(part.values, g.values[1000:1500])
 
 
-def test_pack_with_segment_zero_has_no_index_and_the_answers_fall_back(tmp_path):
+def test_pack_with_segment_zero_has_no_index_and_longer_channels_fall_back(tmp_path, monkeypatch):
+    monkeypatch.setattr(derived, "MAX_SAMPLES", 3999)      # this channel counts as too long to derive an index
     src, _ = _source(tmp_path, n=4000)
     out = tmp_path / "plain.tsarchive"
     tsarchive.pack(src, out, "0.5%", rate=RATE, code_size=0, segment=0)

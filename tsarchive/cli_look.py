@@ -1,8 +1,9 @@
 """The look commands: ``unusual``, ``alike`` and ``glance`` (argument parsing and printing only).
 
 Each asks :mod:`tsarchive.index.look` and says what its answer is based on:
-the archive's learned index, or, for archives packed without one, the
-fallback the archive itself allows.
+the archive's learned index, one computed on opening from the decoded samples
+where the archive keeps none (:mod:`tsarchive.index.derived`), or, for long
+channels without one, the fallback the archive itself allows.
 """
 
 from __future__ import annotations
@@ -28,7 +29,7 @@ def add_commands(sub) -> None:
     al = sub.add_parser("alike", help="list the segments most like a given one (from the index)")
     al.add_argument("archive")
     al.add_argument("segment", type=_number, help="segment number (as 'unusual' lists them; a window number "
-                    "for archives without an index)")
+                    "where 'unusual' lists windows)")
     al.add_argument("--channel", metavar="NAME", help="channel (default: the first)")
     al.add_argument("-k", type=_count, default=10, metavar="N", help="how many to list (default 10)")
     al.add_argument("--json", action="store_true", help="print the ranking as JSON")

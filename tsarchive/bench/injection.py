@@ -24,6 +24,10 @@ removed (on the recording's samples: a decoded archive is within its budget
 of them); ours = :func:`tsarchive.index.query.alike` (shortlist by code,
 re-ranked on those segments).
 
+The same cases packed with the defaults, ranked by what ``tsarchive unusual`` answers there (a stored
+or derived index, or windows): :mod:`tsarchive.bench.injection_packed`; the faults themselves:
+:mod:`tsarchive.bench.injection_faults`.
+
 Which coder (linear or nonlinear) a recording gets is decided once, on the
 unchanged recording, as ``pack`` decides it; the changed copies retrain the
 nonlinear coder only where it won there (training it for every run would
@@ -40,68 +44,12 @@ from tsarchive.index import build_channel
 from tsarchive.index import query as Q
 
 from . import realdata
+from .injection_faults import (KINDS, MAX_SAMPLES, N_INJECT, REPORTED_FROM, SEVERITIES, TUNING_SEEDS,
+                               inject, pick_segments, reported_seeds)
 from .index_costs import BUDGETS, REPEATS, archive_cost, cost_table, query_cost
 
-KINDS = ("spike", "flatline", "level_shift", "noise_burst", "clipping", "dropout", "shape")
-SEVERITIES = ("mild", "strong")
 METHODS = ("index", "diff-rms", "pca8", "mad-z")
-N_INJECT = 6
-MAX_SAMPLES = 1 << 18
 MIN_SAMPLES = 4096
-TUNING_SEEDS = (0, 1)        # the score's design was chosen on these seeds only (tsarchive/index/query.py)
-REPORTED_FROM = 100          # the bench reports seeds 100, 101, ...: never the ones the design was tuned on
-
-
-def _span(S: int, frac: float, rng: np.random.Generator) -> tuple[int, int]:
-    L = max(1, int(S * frac))
-    a = int(rng.integers(0, S - L + 1))
-    return a, a + L
-
-
-def inject(x: np.ndarray, seg: int, S: int, kind: str, severity: str, sigma: float,
-           rng: np.random.Generator) -> None:
-    """Put one fault of ``kind`` into segment ``seg`` of ``x`` (in place); ``sigma`` = the channel's std."""
-    strong = severity == "strong"
-    s = x[seg * S:(seg + 1) * S]
-    sign = 1.0 if rng.random() < 0.5 else -1.0
-    if kind == "spike":
-        s[int(rng.integers(0, S))] += sign * (8.0 if strong else 3.0) * sigma
-    elif kind == "flatline":
-        a, b = _span(S, 1.0 if strong else 0.25, rng)
-        s[a:b] = s[a]
-    elif kind == "level_shift":
-        s += sign * (2.0 if strong else 0.5) * sigma
-    elif kind == "noise_burst":
-        a, b = _span(S, 0.5, rng)
-        s[a:b] += rng.normal(0.0, (1.0 if strong else 0.3) * sigma, b - a)
-    elif kind == "clipping":
-        m = np.median(s)
-        c = (0.3 if strong else 0.6) * np.max(np.abs(s - m))
-        np.clip(s, m - c, m + c, out=s)
-    elif kind == "dropout":
-        a, b = _span(S, 0.5 if strong else 0.125, rng)
-        s[a:b] = 0.0
-    elif kind == "shape":
-        m, sd = s.mean(), s.std() or sigma
-        t = np.arange(S)
-        if strong:
-            new = np.sign(np.sin(2 * np.pi * t / max(S / 4, 2)) + 1e-9)
-        else:
-            new = np.convolve(s - m, np.ones(9) / 9, mode="same")
-        s[:] = m + sd * (new - new.mean()) / (new.std() or 1.0)
-    else:
-        raise ValueError(kind)
-
-
-def pick_segments(n_seg: int, k: int, rng: np.random.Generator) -> np.ndarray:
-    """``k`` distinct segments, no two neighbours, not the first or the last."""
-    free = np.arange(1, n_seg - 1)
-    out: list[int] = []
-    while len(out) < k and len(free):
-        c = int(rng.choice(free))
-        out.append(c)
-        free = free[np.abs(free - c) > 1]
-    return np.sort(np.array(out, dtype=np.int64))
 
 
 def precision_at_k(score: np.ndarray, truth: np.ndarray) -> float:
@@ -187,11 +135,6 @@ def _long_enough(name: str) -> bool:
     return not isinstance(got, str) and len(got.data) >= MIN_SAMPLES
 
 
-def reported_seeds(n: int) -> range:
-    """The ``n`` seeds the bench reports (disjoint from :data:`TUNING_SEEDS`)."""
-    return range(REPORTED_FROM, REPORTED_FROM + n)
-
-
 def run(sets=None, seeds: int = 3, kinds=KINDS, severities=SEVERITIES, try_nonlinear: bool = True,
         log=lambda m: None, tuning: bool = False) -> InjectionResult:
     """The bench on the reported seeds, or (``tuning``) on :data:`TUNING_SEEDS`, where a change of the
@@ -250,6 +193,7 @@ def run_all(args, out, log) -> dict:
     """The ``--injection`` mode of ``python -m tsarchive.bench``: both tables; returns them for ``--json``."""
     import tempfile
     sets = [t.strip() for t in args.injection_sets.split(",")] if args.injection_sets else None
+    packed = ([], [])
     if args.injection:
         res = run(sets, seeds=args.injection_seeds, log=log)
         out(f"\ninjection: {N_INJECT} faulty segments per recording and run, {args.injection_seeds} seed(s); "
@@ -257,6 +201,12 @@ def run_all(args, out, log) -> dict:
             f"{REPORTED_FROM}..{REPORTED_FROM + args.injection_seeds - 1} (the score was designed on seeds "
             f"{', '.join(map(str, TUNING_SEEDS))} only)")
         out(table(res))
+        from . import injection_packed as P
+        packed = P.run(res.sets, log=log)
+        out(f"\npacked with the defaults at {P.BUDGET} (seed {REPORTED_FROM}, the cases above): what `tsarchive "
+            "unusual` answers (look: stored or derived index, or windows) against the per-window outlier score; "
+            "precision@k in segments, and the fallback's in windows (tsarchive/bench/injection_packed.py)")
+        out(P.table(*packed))
     else:
         res = InjectionResult(sets=[n for n in (sets or realdata.names()) if _long_enough(n)])
     with tempfile.TemporaryDirectory(prefix="tsbench-index-") as tmp:
@@ -266,4 +216,5 @@ def run_all(args, out, log) -> dict:
         f"preview = codes only, best of {REPEATS}; worst/eps = the preview's worst error over the budget):")
     out(cost_table(q, costs))
     return {"precision": {"|".join(k): v for k, v in res.precision.items()}, "recall_at_5": res.recall,
+            "packed": [c.__dict__ for c in packed[1]],
             "query": q.__dict__, "archives": [c.__dict__ for c in costs]}

@@ -1,10 +1,13 @@
 """Looking through an archive: the rankings and the preview that the CLI and the app both show.
 
-Each answer says what it is based on.  With the learned index (archives
-packed with it) the unit is the browse *segment*; without it (archives
-packed before the index) the answers fall back to what the archive itself
-holds, per compression *window*: the stored outlier score, the nearest
-window codes or coarse shapes, and the level-only preview.
+Each answer says what it is based on.  With the learned index the unit is
+the browse *segment*: the stored one, or, where the archive keeps none and
+the channel is short enough, one computed on opening from the decoded
+samples (:mod:`tsarchive.index.derived`).  Longer channels without a stored
+index fall back to what the archive itself holds, per compression *window*:
+the stored outlier score, the nearest window codes or coarse shapes, and the
+level-only preview (``glance`` without a stored index always falls back
+so: a preview should not decode the channel whole).
 """
 
 from __future__ import annotations
@@ -15,7 +18,7 @@ import numpy as np
 
 from tsarchive.errors import BadInput
 
-from . import member
+from . import derived, member
 from . import query as Q
 from .segments import as_segments
 
@@ -46,8 +49,11 @@ BASED_ON_FALLBACK = {
     "alike": "no learned index in this archive: windows whose stored codes (or, without codes, coarse shapes "
              "of the decoded window) are nearest",
     "glance": "no learned index in this archive: each window's code-only reconstruction, or its stored level "
-              "where the archive has no codes (approximate, error not measured)",
+              "where the archive has no codes (approximate, error not measured; a preview never computes "
+              "the index)",
 }
+DERIVED = ("the index computed on opening from the decoded samples (this archive keeps none: it did not fit "
+           "its byte budget, or the archive was packed without one); ")
 
 
 @dataclass(frozen=True)
@@ -100,6 +106,28 @@ def based_on(ci, kind: str) -> str:
     return text
 
 
+def index_of(arc, name: str):
+    """``(index, derived)`` of channel ``name``: the stored index, else one computed from the decoded samples
+    (:mod:`tsarchive.index.derived`); ``(None, False)`` when the rankings fall back to windows."""
+    if member.has_index(arc):
+        return member.read(arc, name), False
+    if derived.can_derive(arc, name):
+        return derived.derive(arc, name), True
+    return None, False
+
+
+def has_segments(arc, name: str) -> bool:
+    """Whether ``unusual`` and ``alike`` rank segments of channel ``name`` (a stored or a derived index)."""
+    return member.has_index(arc) or derived.can_derive(arc, name)
+
+
+def _label(ci, kind: str, made: bool) -> str:
+    """What a ranking is based on; a derived index (``made``) says so first, then the usual description."""
+    if not made:
+        return based_on(ci, kind)
+    return DERIVED + based_on(ci, kind).replace("the learned index: ", "").replace("stored facts", "facts")
+
+
 def channel_name(arc, channel: str | None) -> str:
     if channel is None:
         if not arc.channels:
@@ -110,11 +138,11 @@ def channel_name(arc, channel: str | None) -> str:
 
 def unusual(arc, channel: str | None = None, k: int = 20) -> Ranking:
     name = channel_name(arc, channel)
-    if member.has_index(arc):
-        ci = member.read(arc, name)
+    ci, made = index_of(arc, name)
+    if ci is not None:
         u = Q.unusual_scores(ci)
         rows = tuple(Row(int(i), int(i) * ci.segment, float(u.score[i]), u.because[i]) for i in Q.ranked(u.score, k))
-        return Ranking(name, "unusual", "segment", ci.segment, based_on(ci, "unusual"), rows)
+        return Ranking(name, "unusual", "segment", ci.segment, _label(ci, "unusual", made), rows)
     w = arc.windows(name)
     ids = arc.outliers(name, k=k)
     where = {int(x): p for p, x in enumerate(w.index)}
@@ -144,11 +172,11 @@ def segment_samples(arc, name: str, ci, ids: np.ndarray) -> np.ndarray:
 
 def alike(arc, number: int, channel: str | None = None, k: int = 10) -> Ranking:
     name = channel_name(arc, channel)
-    if member.has_index(arc):
-        ci = member.read(arc, name)
+    ci, made = index_of(arc, name)
+    if ci is not None:
         found = Q.alike(ci, int(number), k, lambda ids: segment_samples(arc, name, ci, ids))
         rows = tuple(Row(s, s * ci.segment, d) for s, d in found)
-        text = based_on(ci, "alike").format(m=Q.SHORTLIST, most=Q.MOST_DECODED)
+        text = _label(ci, "alike", made).format(m=Q.SHORTLIST, most=Q.MOST_DECODED)
         return Ranking(name, "alike", "segment", ci.segment, text, rows)
     W = arc.channel(name).window
     rows = tuple(Row(int(w), int(w) * W, float(d)) for w, d in arc.similar(name, int(number), k=k))

@@ -3,7 +3,8 @@
 Three rankings, each straight from the library (:mod:`tsarchive.index.look`, the same
 functions as the ``unusual`` and ``alike`` commands):
 
-* ``unusual`` -- with the archive's learned index, segments whose stored facts stand out
+* ``unusual`` -- with the archive's learned index (stored, or computed on opening for a
+  channel short enough: :mod:`tsarchive.index.derived`), segments whose facts stand out
   most; without one, windows by the stored outlier score (the peak error of the code-only
   preview, or the peak distance of a sample from its window's mean);
 * ``alike`` -- with the index, segments nearest to the selected one by code, re-ranked on
@@ -33,7 +34,7 @@ from tsarchive.app.screens.base import Notices
 from tsarchive.app.timing import TimeLabels, elapsed_at
 from tsarchive.app.widgets.pick_table import PickTable
 from tsarchive.errors import TsArchiveError
-from tsarchive.index import look, member
+from tsarchive.index import look
 
 TOP_K = 20
 WITH_INDEX = {
@@ -83,7 +84,7 @@ class ShortlistScreen(Notices, ModalScreen[int | None]):
         self.rows: list[tuple[int, float]] = []      # (window, figure), best first
         self.starts_of: list[int] = []               # first sample of each row's segment or window
         self.has_codes = table.codes.shape[1] > 0 and archive.decoder is not None
-        self.has_index = member.has_index(archive)
+        self.has_index = look.has_segments(archive, meta.name)      # a stored or a derived index
         self.segment = None
         self.labels = TimeLabels(archive.timeline, meta.duration)
 
@@ -134,7 +135,7 @@ class ShortlistScreen(Notices, ModalScreen[int | None]):
             return look.unusual(self.archive, name, k=TOP_K)
         if mode == "alike":
             if self.has_index and self.segment is None:
-                self.segment = member.read(self.archive, name, facts=False).segment
+                self.segment = look.index_of(self.archive, name)[0].segment
             start = self._segment() if self.has_index else self.window
             return look.alike(self.archive, start, name, k=TOP_K)
         order = np.lexsort((np.asarray(self.table.index), -np.asarray(self.table.worst_error)))[:TOP_K]
