@@ -41,11 +41,12 @@ import numpy as np
 from tsarchive.predict import Context, get_predictor
 from tsarchive.windows import spread
 
-from .classic import ClassicCoder
+from .classic import MAX_BLOCK, ClassicCoder
 
 PREV = 0                    # the predictor of every window of a classic channel (predict.PREDICTORS)
 SETTING_SAMPLES = 1 << 16   # bound on the samples the combination is chosen on
 ORDERS = (-1, 0, 1)         # the classic coder's orders a channel may take (see the module docstring)
+BLOCK_SAMPLES = 1 << 18     # bound on the samples of a block of windows coded as one payload
 XZ_WITHIN = (5, 4)          # xz is tried where the best so far is at most 5/4 of the bytes to beat
 _FAST = ("zstd", "bzip2")
 
@@ -61,21 +62,55 @@ def prev_residuals(q: np.ndarray, level: np.ndarray) -> np.ndarray:
     return get_predictor(PREV).residuals(q, Context(level))
 
 
-def classic_choice(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int) -> ClassicCoder | None:
+def block_windows(W: int) -> int:
+    """Windows of ``W`` samples in a block: the most, a power of two, whose samples fit in
+    ``BLOCK_SAMPLES`` (1: no block mode, windows that long already reach as far back)."""
+    k = max(1, BLOCK_SAMPLES // max(W, 1))
+    return min(MAX_BLOCK, 1 << (k.bit_length() - 1))
+
+
+def classic_choice(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int,
+                   blocks: tuple[np.ndarray, np.ndarray] | None = None) -> ClassicCoder | None:
     """The classic coder of one combination for a channel whose sampled windows are ``q`` (k, W) with
     levels ``level``, if its estimate is below ``beat`` bytes (the best other coder's :func:`estimate`
-    on the same windows); else None."""
+    on the same windows); else None.  ``blocks``: windows (m, W) and levels of whole blocks of
+    consecutive windows (:func:`block_windows` each, the channel's last block maybe shorter), on which
+    coding in blocks is measured; it is taken where its estimate is below both ``beat`` and the
+    per-window coder's (a tie keeps the per-window coder)."""
     if not len(q):
         return None
+    coder, size = _per_window(q, level, n_total_windows, beat)
+    if blocks is not None and len(blocks[0]) and block_windows(q.shape[1]) > 1:
+        coder = _per_block(*blocks, n_total_windows, size) or coder
+    return coder
+
+
+def _per_window(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int) -> tuple[ClassicCoder | None, int]:
+    """The per-window coder and its estimate if below ``beat``; else ``(None, beat)``."""
     res = prev_residuals(q, level)
     sub = spread(len(res), max(1, SETTING_SAMPLES // res.shape[1]))
     coder, sub_payloads = _setting(res[sub], lambda size: estimate(size, len(sub), n_total_windows, {}) < beat)
     if coder is None:
-        return None
+        return None, beat
     payloads = dict(zip(sub.tolist(), sub_payloads))
     rest = [i for i in range(len(res)) if i not in payloads]
     payloads.update(zip(rest, coder.encode_many(res[rest])))
     size = estimate(sum(map(len, payloads.values())), len(res), n_total_windows, coder.get_config())
+    return (coder, size) if size < beat else (None, beat)
+
+
+def _per_block(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int) -> ClassicCoder | None:
+    """The block coder of one combination, chosen on the first block of windows ``q`` (m, W) and measured
+    on all of them, if its estimate is below ``beat``; else None."""
+    B = block_windows(q.shape[1])
+    res = prev_residuals(q, level)
+    rows = [res[i:i + B].reshape(-1) for i in range(0, len(res), B)]
+    first = len(rows[0]) // q.shape[1]
+    coder, payloads = _setting(rows[:1], lambda size: estimate(size, first, n_total_windows, {}) < beat, B)
+    if coder is None:
+        return None
+    size = estimate(sum(map(len, payloads + coder.encode_many(rows[1:]))), len(res), n_total_windows,
+                    coder.get_config())
     return coder if size < beat else None
 
 
@@ -91,9 +126,9 @@ def classic_bytes(q: np.ndarray, level: np.ndarray) -> int:
     return size * len(res) // len(sub)
 
 
-def _setting(res: np.ndarray, promising: Callable[[int], bool]) -> tuple[ClassicCoder | None, list[bytes]]:
-    """The one-combination coder with the fewest bytes on windows ``res`` and their payloads, or
-    ``(None, [])`` when not even its payload bytes are ``promising``."""
+def _setting(res, promising: Callable[[int], bool], block: int = 1) -> tuple[ClassicCoder | None, list[bytes]]:
+    """The one-combination coder (of ``block`` windows a payload) with the fewest bytes on windows (or
+    blocks) ``res`` and their payloads, or ``(None, [])`` when not even its payload bytes are ``promising``."""
     tried: dict[tuple[str, int, bool], list[bytes]] = {}
     for order in ORDERS:
         for shuf in (False, True):
@@ -113,7 +148,7 @@ def _setting(res: np.ndarray, promising: Callable[[int], bool]) -> tuple[Classic
     name, order, shuf = best()
     if not promising(size((name, order, shuf))):
         return None, []
-    return ClassicCoder((name,), (order,), (shuf,)), tried[(name, order, shuf)]
+    return ClassicCoder((name,), (order,), (shuf,), block), tried[(name, order, shuf)]
 
 
 def _rank(key: tuple[str, int, bool]) -> tuple[int, int, bool]:
