@@ -97,7 +97,7 @@ def test_blocks_of_the_set_length_and_empty_cells_inside(archive):
 def test_payloads_decode_with_the_libraries_alone(archive):
     ch = read_manifest(archive)["channels"][0]
     whole = tsarchive.open(archive).read(ch["name"])
-    np.testing.assert_array_equal(library_samples(ch, _rows(archive, 0), W), whole)
+    np.testing.assert_array_equal(library_samples(ch, _rows(archive, 0)), whole)
 
 
 def test_every_sample_within_eps_and_random_access_is_the_full_read(archive):
@@ -209,6 +209,24 @@ def test_blocks_round_trip_exactly(block, first_block, k, n, tail, seed, name, o
         last = rng.integers(-9, 9, (1, tail))
         cell = coder.encode_blocks(last, block_heads([first + k], block, False))
         assert np.array_equal(_through_column(coder, cell, np.array([first + k]), tail, False), last[0])
+
+
+@settings(max_examples=60, deadline=None)
+@given(block=st.integers(1, 6), k=st.integers(1, 20), n=st.integers(1, 30), seed=st.integers(0, 2 ** 32 - 1))
+def test_a_block_stream_is_the_first_differences_of_its_samples(block, k, n, seed):
+    # what a block codes, by its definition: the block's samples flattened, first differences (numpy diff)
+    # with the block's first level before its first sample; and back exactly to each window's residuals
+    rng = np.random.default_rng(seed)
+    q = rng.integers(-2 ** 62, 2 ** 62, (k, n)) >> rng.integers(0, 62)
+    level = rng.integers(-2 ** 62, 2 ** 62, k) >> rng.integers(0, 62)
+    heads = np.arange(k) % block == 0
+    res = fallback.prev_residuals(q, level)
+    values = fallback.joined(q, res, heads)
+    for a in range(0, k, block):
+        with np.errstate(over="ignore"):
+            want = np.diff(q[a:a + block].reshape(-1), prepend=level[a])
+        assert np.array_equal(values[a:a + block].reshape(-1), want)
+    assert np.array_equal(fallback.unjoined(values, level, heads), res)
 
 
 def _through_column(coder, cells, windows, n, full):

@@ -18,7 +18,7 @@ import pyarrow as pa
 
 from . import checksum, entropy
 from .channelcodec import ChannelCodec
-from .coding import classic
+from .coding import classic, fallback
 from .codec import FRAC_SAFE_SCALE, TableSet, ae_prediction, choose_modes, reconstruct
 from .errors import ArchiveCorrupt
 from .exact import max_errors
@@ -69,7 +69,8 @@ def encode_windows(x: np.ndarray, first_window: int, codec: ChannelCodec, model=
     q, pos, bits, lv, codes, ae = predict_windows(x, grid, codec.window, model, codec.scale)
     modes, classes, res, sets = choose_modes(q, Context(lv, ae, codec.lpc), tables)
     heads = block_heads(codec, np.arange(first_window, first_window + nb), L)
-    payloads = code_windows(modes, classes, res, tables, codec.residual_coder, heads)
+    payloads = code_windows(modes, classes, res if heads is None else fallback.joined(q, res, heads), tables,
+                            codec.residual_coder, heads)
     if codec.residual_coder is not None:      # no table is named: the column stays constant (and tiny)
         classes = np.zeros_like(classes)
     xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
@@ -153,9 +154,11 @@ def decode_windows(rows: pa.Table, lens: np.ndarray, held: dict, codec: ChannelC
             heads = block_heads(codec, windows[at], int(L))
             coder = codec.coder(m, c)
             # strict=False: the per-window CRC below catches what a range code cannot
-            flat = coder.decode_flat(pbuf, poffs[at], poffs[at + 1], int(L), strict=False) if heads is None \
-                else coder.decode_blocks(pbuf, poffs[at], poffs[at + 1], int(L), heads)
-            res[pick] = flat.reshape(len(pick), int(L))
+            if heads is None:
+                res[pick] = coder.decode_flat(pbuf, poffs[at], poffs[at + 1], int(L), strict=False).reshape(-1, L)
+            else:
+                flat = coder.decode_blocks(pbuf, poffs[at], poffs[at + 1], int(L), heads)
+                res[pick] = fallback.unjoined(flat.reshape(-1, L), level[at], heads)
         ae = code_prediction(codec, codes[sel], level[sel], int(L))
         x = grid.decode(reconstruct(modes[sel], Context(level[sel], ae, codec.lpc, lpc_set[sel]), res))
         _put_verbatim(x, windows[sel], held, offs[sel], missing, codec)

@@ -62,6 +62,29 @@ def prev_residuals(q: np.ndarray, level: np.ndarray) -> np.ndarray:
     return get_predictor(PREV).residuals(q, Context(level))
 
 
+def joined(q: np.ndarray, res: np.ndarray, heads: np.ndarray) -> np.ndarray:
+    """What a block codes: the previous-sample residuals ``res`` of windows ``q`` (k, L), except that a
+    window not starting a block (``heads``) takes its first sample against the previous window's last
+    (not against its level): one steady stream of first differences over the block, whose running sum
+    from the block's first level is the samples on the grid."""
+    out = np.array(res, dtype=np.int64)
+    inner = np.flatnonzero(~np.asarray(heads, bool))
+    with np.errstate(over="ignore"):
+        out[inner, 0] = q[inner, 0] - q[inner - 1, -1]
+    return out
+
+
+def unjoined(values: np.ndarray, level: np.ndarray, heads: np.ndarray) -> np.ndarray:
+    """Inverse of :func:`joined`: the previous-sample residuals of windows (k, L) whose block streams
+    are ``values`` (k, L), given each window's ``level`` (wrap-around int64, so any values undo)."""
+    first = np.flatnonzero(np.asarray(heads, bool)).tolist()
+    q = np.empty(values.shape, np.int64)
+    with np.errstate(over="ignore"):
+        for a, b in zip(first, first[1:] + [len(values)]):
+            q[a:b] = (np.int64(level[a]) + np.cumsum(values[a:b].reshape(-1), dtype=np.int64)).reshape(b - a, -1)
+    return prev_residuals(q, level)
+
+
 def block_windows(W: int) -> int:
     """Windows of ``W`` samples in a block: the most, a power of two, whose samples fit in
     ``BLOCK_SAMPLES`` (1: no block mode, windows that long already reach as far back)."""
@@ -103,7 +126,7 @@ def _per_block(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int
     """The block coder of one combination, chosen on the first block of windows ``q`` (m, W) and measured
     on all of them, if its estimate is below ``beat``; else None."""
     B = block_windows(q.shape[1])
-    res = prev_residuals(q, level)
+    res = joined(q, prev_residuals(q, level), np.arange(len(q)) % B == 0)
     rows = [res[i:i + B].reshape(-1) for i in range(0, len(res), B)]
     first = len(rows[0]) // q.shape[1]
     coder, payloads = _setting(rows[:1], lambda size: estimate(size, first, n_total_windows, {}) < beat, B)
