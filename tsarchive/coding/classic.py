@@ -23,6 +23,13 @@ compress differently, which changes an archive's bytes (and can change which
 combination is smallest) but never what it decodes to: decompression is
 specified by each stream format.
 
+Blocks: a coder with ``block`` B > 1 codes runs of consecutive windows as one
+payload (:meth:`ClassicCoder.encode_blocks`: a block starts at each window
+number that is a multiple of B, and at a channel's short last window), so the
+compressors reach back over the whole block; the payload sits in the block's
+first window's cell and the others are empty.  ``block`` is stored in the
+config only when above 1 (absent: one window a payload).
+
 Payload: one header byte ``order & 3 | compressor << 2 | shuffle << 4 | log2(width) << 5``
 (order -1 is 3; compressor 0 zstd, 1 xz, 2 bzip2; a zero-length window is ``b""``), then the
 compressor's own stream.  Decoding never inflates past ``n * width`` bytes and

@@ -12,8 +12,10 @@ first differences) and its residuals with one :class:`ClassicCoder`
 combination: its order -1 sums them back to the samples less the level, 0
 keeps the first differences, 1 takes second differences (the "quant", "prev"
 and "prev2" of the bench's classic baselines).
-Each window is still coded alone: any window decodes without the others, and
-its CRC is checked as every window's.
+Each window is coded alone, or (``"block": B``) each run of ``B`` consecutive
+windows as one stream (:func:`joined`: the block's first differences, so a
+repeat longer than a window is within the compressor's reach; a window then
+decodes with its block); every window's CRC is checked as every window's.
 
 :func:`classic_choice` decides on the packer's spread sample of the channel's
 windows, the one the other coders are measured on (:func:`tsarchive.encoder.choose_coder`):
@@ -24,7 +26,11 @@ windows, the one the other coders are measured on (:func:`tsarchive.encoder.choo
    far is within ``XZ_WITHIN`` of the bytes to beat;
 2. that one combination codes the rest of the sample, and the channel takes
    it only if its estimate (payload bytes scaled to the channel, plus its
-   config in the manifest) is strictly below the best other coder's.
+   config in the manifest) is strictly below the best other coder's;
+3. in blocks: step 1 on the first of up to two whole blocks read
+   contiguously (the packer's ``_block_sample``), that combination on the
+   other, taken only where its estimate is strictly below both the best other
+   coder's and the per-window classic coder's.
 
 Every quantity is an integer count of bytes, so the choice is the same on
 every machine with the same compressor libraries (see :mod:`.classic` on
