@@ -151,14 +151,7 @@ def decode_windows(rows: pa.Table, lens: np.ndarray, held: dict, codec: ChannelC
         for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
             pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
             at = sel[pick]
-            heads = block_heads(codec, windows[at], int(L))
-            coder = codec.coder(m, c)
-            # strict=False: the per-window CRC below catches what a range code cannot
-            if heads is None:
-                res[pick] = coder.decode_flat(pbuf, poffs[at], poffs[at + 1], int(L), strict=False).reshape(-1, L)
-            else:
-                flat = coder.decode_blocks(pbuf, poffs[at], poffs[at + 1], int(L), heads)
-                res[pick] = fallback.unjoined(flat.reshape(-1, L), level[at], heads)
+            res[pick] = window_residuals(codec, m, c, pbuf, poffs[at], poffs[at + 1], int(L), windows[at], level[at])
         ae = code_prediction(codec, codes[sel], level[sel], int(L))
         x = grid.decode(reconstruct(modes[sel], Context(level[sel], ae, codec.lpc, lpc_set[sel]), res))
         _put_verbatim(x, windows[sel], held, offs[sel], missing, codec)
@@ -172,6 +165,18 @@ def decode_windows(rows: pa.Table, lens: np.ndarray, held: dict, codec: ChannelC
         out[offs[sel[0]]:offs[sel[-1] + 1]] = x.ravel()
     bad.sort()
     return (out if missing is None else np.ma.MaskedArray(out, mask=missing)), bad
+
+
+def window_residuals(codec: ChannelCodec, mode: int, cls: int, buf: np.ndarray, starts: np.ndarray,
+                     ends: np.ndarray, L: int, windows: np.ndarray, level: np.ndarray) -> np.ndarray:
+    """Residuals (k, ``L``) of consecutive ``windows`` of predictor ``mode`` and class ``cls`` (levels
+    ``level``) from their cells ``buf[starts:ends]`` of the ``residual`` column; a block-coded channel's
+    rows must cover whole blocks."""
+    heads = block_heads(codec, windows, L)
+    coder = codec.coder(mode, cls)
+    if heads is None:        # strict=False: the per-window CRC catches what a range code cannot
+        return coder.decode_flat(buf, starts, ends, L, strict=False).reshape(-1, L)
+    return fallback.unjoined(coder.decode_blocks(buf, starts, ends, L, heads).reshape(-1, L), level, heads)
 
 
 def block_windows(codec: ChannelCodec) -> int:
