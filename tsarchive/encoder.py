@@ -135,10 +135,11 @@ def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, 
                      coder.get_config())
         if size < best_bytes:
             best, best_bytes = coder, size
+    on_grid = None
     if blocks is not None and len(blocks):
         bq, _, _, blv, _, _ = predict_windows(blocks, grid, W, None, scale)
-        blocks = (bq, blv)
-    return fallback.classic_choice(q, lv, n_total_windows, best_bytes, blocks) or best
+        on_grid = (bq, blv)
+    return fallback.classic_choice(q, lv, n_total_windows, best_bytes, on_grid) or best
 
 
 def coder_tables(coder, tables: TableSet) -> TableSet:
