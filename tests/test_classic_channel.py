@@ -88,15 +88,17 @@ def test_repetitive_channel_is_classic_noise_is_not_and_all_within_budget(archiv
             np.testing.assert_array_equal(got, xh[w * 4096:(w + 1) * 4096])
 
 
-def test_payloads_decode_with_the_libraries_alone(archive):
-    # each window independently: library inflate -> numpy unshuffle / integrate -> previous-sample inverse
-    # -> offset + q * step; bit for bit what the archive reads
-    ch = _manifest(archive)["channels"][0]
-    grid, rows = ch["grid"], _rows(archive, 0)
-    whole = tsarchive.open(archive).read(ch["name"])
-    parts = []
-    for payload, level in zip(rows["residual"], rows["level"]):
-        order, raw, shuffled, width = _library_decompress(payload)
+def library_samples(ch: dict, rows: dict) -> np.ndarray:
+    """A classic channel's samples from its stored rows by the libraries alone: each non-empty payload
+    starts a block (one window when the coder has no ``block``; an empty cell continues the block), its
+    body inflated by the library its header names -> numpy unshuffle / integrate -> first differences of
+    the block's samples (the first against the block's first level: the previous-sample predictor's
+    inverse over the block, DEVELOPERS.md) -> running sum from that level -> offset + q * step."""
+    grid, parts = ch["grid"], []
+    payloads, levels = rows["residual"], rows["level"]
+    starts = [i for i, p in enumerate(payloads) if p] + [len(payloads)]
+    for a, b in zip(starts, starts[1:]):
+        order, raw, shuffled, width = _library_decompress(payloads[a])
         n = len(raw) // width
         if shuffled:
             raw = np.frombuffer(raw, np.uint8).reshape(width, n).T.tobytes()
@@ -104,10 +106,17 @@ def test_payloads_decode_with_the_libraries_alone(archive):
         r = np.diff(v, prepend=0) if order == -1 else v
         for _ in range(max(order, 0)):
             r = np.cumsum(r)
-        q = level + np.cumsum(r)
-        step = grid.get("step", 2 * grid["eps"])    # format 6 leaves out a step of exactly 2 eps (DEVELOPERS.md)
+        q = levels[a] + np.cumsum(r)           # a block is one stream of first differences from its first level
+        step = grid.get("step", 2 * grid["eps"])   # format 6 leaves out a step of exactly 2 eps (DEVELOPERS.md)
         parts.append((grid["offset"] + q.astype(np.float64) * step).astype(np.float32))
-    np.testing.assert_array_equal(np.concatenate(parts), whole)
+    return np.concatenate(parts)
+
+
+def test_payloads_decode_with_the_libraries_alone(archive):
+    # each block (or window) independently: bit for bit what the archive reads
+    ch = _manifest(archive)["channels"][0]
+    whole = tsarchive.open(archive).read(ch["name"])
+    np.testing.assert_array_equal(library_samples(ch, _rows(archive, 0)), whole)
 
 
 def _library_sizes(res: np.ndarray) -> dict[tuple[str, int, bool], int]:

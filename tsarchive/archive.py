@@ -33,7 +33,7 @@ from .store.parse import ChannelMeta
 from .store.rows import lengths as _lengths
 from .store import sidecar
 from .store.timeaxis import Times, Timeline, load_timeline
-from .windowcodec import decode_windows
+from .windowcodec import block_span, decode_windows
 from .windows import CHUNK_SAMPLES
 
 
@@ -194,7 +194,17 @@ class Archive:
         without, the mismatching windows are returned for reporting
         (see :func:`tsarchive.windowcodec.decode_windows`).
         """
-        meta = self.channel(channel)
+        meta, codec = self.channel(channel), self.codec(channel)
+        a0, a1 = block_span(codec, w0, w1, meta.n_windows)      # a block-coded channel decodes whole blocks
+        if (a0, a1) != (max(w0, 0), min(w1, meta.n_windows)):
+            x, windows, bad = self.decode_windows(channel, a0, a1, check=False)
+            keep = (windows >= w0) & (windows < w1)
+            bad = [w for w in bad if w0 <= w < w1]
+            if check and bad:
+                raise ArchiveCorrupt(f"channel {channel} window {bad[0]}: checksum mismatch; "
+                                     "the archive is damaged — restore it from a copy")
+            lo = int(np.argmax(keep)) * meta.window
+            return x[lo:lo + int(_lengths(meta, windows[keep]).sum())], windows[keep], bad
         t = self.rows(channel, w0, w1)
         if any(c.null_count for c in t.columns):
             raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} have empty (null) fields; "
@@ -204,8 +214,7 @@ class Archive:
         if nrow != max(0, min(w1, meta.n_windows) - max(w0, 0)) or \
                 (nrow and not np.array_equal(windows, np.arange(windows[0], windows[0] + nrow))):
             raise ArchiveCorrupt(f"channel {channel}: windows {w0}..{w1 - 1} are missing rows; the archive is damaged")
-        x, bad = decode_windows(t, _lengths(meta, windows), self._held(channel, w0, w1), self.codec(channel),
-                                check=check)
+        x, bad = decode_windows(t, _lengths(meta, windows), self._held(channel, w0, w1), codec, check=check)
         return x, windows, bad
 
     @property

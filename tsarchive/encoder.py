@@ -97,7 +97,7 @@ def coded_bytes(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int) -
 
 
 def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, model, scale: int,
-                 lpc, tables: TableSet):
+                 lpc, tables: TableSet, blocks: np.ndarray | None = None):
     """The channel's residual coder: None (range coding under ``tables``, stored in the manifest), an
     :class:`~tsarchive.coding.adaptive.AdaptiveCoder` or a one-combination
     :class:`~tsarchive.coding.classic.ClassicCoder` (every window then predicted by the previous
@@ -109,6 +109,8 @@ def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, 
     arithmetic, so the choice, and the archive, are the same on every machine) and what it adds to the
     manifest is added: the tables' JSON text, or the coder's config (a fitted initial state in base64).
     A tie keeps the range coder, and the classic coder must be strictly smaller than the best of the others.
+    ``blocks``: whole blocks of consecutive full windows (:func:`~tsarchive.coding.fallback.block_windows`
+    each), on which the classic coder in blocks is measured.
     """
     if not len(windows):
         return None
@@ -133,7 +135,11 @@ def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, 
                      coder.get_config())
         if size < best_bytes:
             best, best_bytes = coder, size
-    return fallback.classic_choice(q, lv, n_total_windows, best_bytes) or best
+    on_grid = None
+    if blocks is not None and len(blocks):
+        bq, _, _, blv, _, _ = predict_windows(blocks, grid, W, None, scale)
+        on_grid = (bq, blv)
+    return fallback.classic_choice(q, lv, n_total_windows, best_bytes, on_grid) or best
 
 
 def coder_tables(coder, tables: TableSet) -> TableSet:

@@ -35,6 +35,7 @@ import numpy as np
 import pyarrow as pa
 
 from .channelcodec import ChannelCodec
+from .coding import fallback
 from .encoder import choose_coder, coded_bytes, coder_tables, sample_windows
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .gridphase import choose_phase
@@ -52,7 +53,7 @@ from .store.sidecar import stage_sidecar
 from .store.timeaxis import check_axis
 from .index import build_index
 from .store.writer import ArchiveWriter, check_target
-from .windowcodec import encode_windows
+from .windowcodec import block_windows, encode_windows
 from .windows import CHUNK_SAMPLES, DEFAULT_WINDOW, batches, n_windows, spread
 from .workers import workers as worker_count
 
@@ -191,10 +192,11 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
         p = choice.plans[j]
         tables = p.tables if model is not None else p.tables_plain
         coder = choose_coder(sample.windows[j], sample.nwin, grids[j], sample.W, model, sample.scales[j], p.lpc,
-                             tables)
+                             tables, blocks[j])
         tables = coder_tables(coder, tables)
         return ChannelCodec.for_tables(names[j], sample.W, grids[j], sample.scales[j], p.lpc, tables,
                                        residual_coder=coder)
+    blocks = _block_sample(sample)
     with ThreadPoolExecutor(worker_count(len(names))) as pool:     # channels side by side
         codecs = list(pool.map(codec, range(len(names))))
     with ArchiveWriter(job.archive, names, force=job.force, with_code=decoder is not None) as writer:
@@ -274,6 +276,18 @@ def _phase_sample(rec: Recording) -> list[np.ndarray]:
     return _gather(rec, spread(rec.n_samples // L, PHASE_STRETCHES), L)
 
 
+def _block_sample(sample: PackSample) -> list:
+    """Per channel, up to two whole blocks of consecutive full windows (a third and two thirds in), on
+    which the classic coder in blocks is measured (:func:`tsarchive.coding.fallback.block_windows`)."""
+    W, C = sample.W, len(sample.rec.channels)
+    B, full = fallback.block_windows(W), sample.rec.n_samples // W
+    if B == 1 or not full:
+        return [None] * C
+    n_blocks = -(-full // B)
+    picks = sorted({n_blocks * k // 3 for k in (1, 2)}) if n_blocks > 2 else range(n_blocks)
+    return _gather(sample.rec, np.concatenate([np.arange(k * B, min(full, k * B + B)) for k in picks]), W)
+
+
 def _grid_note(budget, grid: Grid) -> str:
     """Why a lossy budget ended up exact, in words for reports."""
     if budget.kind == "lossless" or grid.eps > 0:
@@ -289,7 +303,8 @@ def _encode(writer, rec: Recording, names, codecs, W, model, emit) -> list[Chann
     """Stream row blocks; every channel's windows of a block become row groups of their own."""
     n = rec.n_samples
     nw = n_windows(n, W)
-    per_block = max(1, CHUNK_SAMPLES // W)
+    align = math.lcm(*(block_windows(c) for c in codecs)) if codecs else 1    # whole blocks of every channel
+    per_block = max(align, CHUNK_SAMPLES // W // align * align)
     stats = [ChannelTally() for _ in names]
     code_bytes = 8 + (model.code_size if model is not None else 0)
     # channels are encoded side by side (numba and numpy release the GIL); rows are written in order
@@ -310,7 +325,8 @@ def _channel_rows(x, w0: int, w1: int, n: int, codec: ChannelCodec, model) -> tu
     """One channel's rows of windows ``w0..w1-1`` (samples ``x`` from window ``w0`` on), encoded in calls
     of at most ``BATCH_SAMPLES`` samples (bounded temporaries per thread); its worst error."""
     W = codec.window
-    per_call = max(1, BATCH_SAMPLES // W)
+    B = block_windows(codec)                 # a block-coded channel's calls hold whole blocks
+    per_call = max(B, BATCH_SAMPLES // W // B * B)
     rows, held, worst = [], [], 0.0
     for a0, b0, L in batches(n, W, w0, w1):
         for a in range(a0, b0, per_call):

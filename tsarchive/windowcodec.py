@@ -18,6 +18,7 @@ import pyarrow as pa
 
 from . import checksum, entropy
 from .channelcodec import ChannelCodec
+from .coding import classic, fallback
 from .codec import FRAC_SAFE_SCALE, TableSet, ae_prediction, choose_modes, reconstruct
 from .errors import ArchiveCorrupt
 from .exact import max_errors
@@ -41,9 +42,12 @@ def predict_windows(x: np.ndarray, grid: Grid, W: int, model, scale: int):
 
 
 def code_windows(modes: np.ndarray, classes: np.ndarray, res: np.ndarray, tables: TableSet,
-                 residual_coder=None) -> list[bytes]:
+                 residual_coder=None, heads=None) -> list[bytes]:
     """Each window's residuals range coded under its (predictor, class) table, in window order (or all
-    by ``residual_coder``, the channel's one coder, when given)."""
+    by ``residual_coder``, the channel's one coder, when given; in blocks starting at ``heads`` when the
+    coder codes blocks of windows: :func:`block_heads`)."""
+    if heads is not None:
+        return residual_coder.encode_blocks(res, heads)
     if residual_coder is not None:
         return residual_coder.encode_many(res)
     payloads: list[bytes] = [b""] * len(res)
@@ -64,7 +68,9 @@ def encode_windows(x: np.ndarray, first_window: int, codec: ChannelCodec, model=
     grid, name, tables = codec.grid, codec.name, codec.table_set
     q, pos, bits, lv, codes, ae = predict_windows(x, grid, codec.window, model, codec.scale)
     modes, classes, res, sets = choose_modes(q, Context(lv, ae, codec.lpc), tables)
-    payloads = code_windows(modes, classes, res, tables, codec.residual_coder)
+    heads = block_heads(codec, np.arange(first_window, first_window + nb), L)
+    payloads = code_windows(modes, classes, res if heads is None else fallback.joined(q, res, heads), tables,
+                            codec.residual_coder, heads)
     if codec.residual_coder is not None:      # no table is named: the column stays constant (and tiny)
         classes = np.zeros_like(classes)
     xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
@@ -145,9 +151,7 @@ def decode_windows(rows: pa.Table, lens: np.ndarray, held: dict, codec: ChannelC
         for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
             pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
             at = sel[pick]
-            # strict=False: the per-window CRC below catches what a range code cannot
-            res[pick] = codec.coder(m, c).decode_flat(pbuf, poffs[at], poffs[at + 1], int(L),
-                                                      strict=False).reshape(len(pick), int(L))
+            res[pick] = window_residuals(codec, m, c, pbuf, poffs[at], poffs[at + 1], int(L), windows[at], level[at])
         ae = code_prediction(codec, codes[sel], level[sel], int(L))
         x = grid.decode(reconstruct(modes[sel], Context(level[sel], ae, codec.lpc, lpc_set[sel]), res))
         _put_verbatim(x, windows[sel], held, offs[sel], missing, codec)
@@ -161,6 +165,40 @@ def decode_windows(rows: pa.Table, lens: np.ndarray, held: dict, codec: ChannelC
         out[offs[sel[0]]:offs[sel[-1] + 1]] = x.ravel()
     bad.sort()
     return (out if missing is None else np.ma.MaskedArray(out, mask=missing)), bad
+
+
+def window_residuals(codec: ChannelCodec, mode: int, cls: int, buf: np.ndarray, starts: np.ndarray,
+                     ends: np.ndarray, L: int, windows: np.ndarray, level: np.ndarray) -> np.ndarray:
+    """Residuals (k, ``L``) of consecutive ``windows`` of predictor ``mode`` and class ``cls`` (levels
+    ``level``) from their cells ``buf[starts:ends]`` of the ``residual`` column; a block-coded channel's
+    rows must cover whole blocks."""
+    heads = block_heads(codec, windows, L)
+    coder = codec.coder(mode, cls)
+    if heads is None:        # strict=False: the per-window CRC catches what a range code cannot
+        return coder.decode_flat(buf, starts, ends, L, strict=False).reshape(-1, L)
+    return fallback.unjoined(coder.decode_blocks(buf, starts, ends, L, heads).reshape(-1, L), level, heads)
+
+
+def block_windows(codec: ChannelCodec) -> int:
+    """Windows per payload of the channel's coder: 1, or a classic coder's ``block``."""
+    return getattr(codec.residual_coder, "block", 1)
+
+
+def block_heads(codec: ChannelCodec, windows: np.ndarray, L: int) -> np.ndarray | None:
+    """Which of consecutive ``windows`` (``L`` samples each) start a payload of a block-coded channel, or
+    None for a channel whose every window is its own payload."""
+    B = block_windows(codec)
+    return None if B == 1 else classic.block_heads(windows, B, L == codec.window)
+
+
+def block_span(codec: ChannelCodec, w0: int, w1: int, n_windows: int) -> tuple[int, int]:
+    """Windows ``w0..w1-1`` (clipped to the channel's ``n_windows``) widened to whole blocks: what must be
+    decoded to give them (random access costs one block)."""
+    B = block_windows(codec)
+    w0, w1 = max(w0, 0), min(w1, n_windows)
+    if B == 1 or w1 <= w0:
+        return w0, w1
+    return w0 // B * B, min(n_windows, -(-w1 // B) * B)
 
 
 def _put_verbatim(x: np.ndarray, windows: np.ndarray, held: dict, offs: np.ndarray, missing, codec) -> None:

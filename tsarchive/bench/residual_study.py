@@ -122,7 +122,8 @@ def channel_streams(archive: Path) -> dict[str, ChannelStreams]:
             for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
                 pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
                 at = sel[pick]
-                res[pick] = residuals(m, c, pbuf, poffs[at], poffs[at + 1], int(L)).reshape(len(pick), int(L))
+                res[pick] = residuals(m, c, pbuf, poffs[at], poffs[at + 1], int(L), windows[at],
+                                      level[at]).reshape(len(pick), int(L))
             q = reconstruct(modes[sel], Context(level[sel], prediction(code[sel], level[sel], int(L)), lpc,
                                                 sets[sel]), res)
             for k, i in enumerate(sel.tolist()):           # back in window order (the short last window too)
@@ -136,16 +137,16 @@ def _reader_parts(arc, meta):
     """(rows, residual decoder, autoencoder prediction, LPC sets) of a channel, from the reader of
     either layout: the codec-contract one (``Archive.codec``) or the earlier one (``Archive._table``)."""
     if hasattr(arc, "codec"):
-        from tsarchive.windowcodec import code_prediction
+        from tsarchive.windowcodec import code_prediction, window_residuals
 
         codec = arc.codec(meta.name)
         return (arc.rows,
-                lambda m, c, buf, a, b, L: codec.coder(m, c).decode_flat(buf, a, b, L, strict=False),
+                lambda m, c, buf, a, b, L, windows, level: window_residuals(codec, m, c, buf, a, b, L, windows, level),
                 lambda codes, level, L: code_prediction(codec, codes, level, L), codec.lpc)
     from tsarchive import entropy
 
     return (arc._rows,
-            lambda m, c, buf, a, b, L: entropy.decode_flat(buf, a, b, L, arc._table(meta.name, m, c)),
+            lambda m, c, buf, a, b, L, *_: entropy.decode_flat(buf, a, b, L, arc._table(meta.name, m, c)),
             lambda codes, level, L: arc._ae(meta, codes, level, L) if arc.decoder is not None else None, meta.lpc)
 
 

@@ -23,6 +23,13 @@ compress differently, which changes an archive's bytes (and can change which
 combination is smallest) but never what it decodes to: decompression is
 specified by each stream format.
 
+Blocks: a coder with ``block`` B > 1 codes runs of consecutive windows as one
+payload (:meth:`ClassicCoder.encode_blocks`: a block starts at each window
+number that is a multiple of B, and at a channel's short last window), so the
+compressors reach back over the whole block; the payload sits in the block's
+first window's cell and the others are empty.  ``block`` is stored in the
+config only when above 1 (absent: one window a payload).
+
 Payload: one header byte ``order & 3 | compressor << 2 | shuffle << 4 | log2(width) << 5``
 (order -1 is 3; compressor 0 zstd, 1 xz, 2 bzip2; a zero-length window is ``b""``), then the
 compressor's own stream.  Decoding never inflates past ``n * width`` bytes and
@@ -54,6 +61,7 @@ ORDERS = (0, 1, 2)          # what ClassicCoder() tries
 ALL_ORDERS = (-1, 0, 1, 2)  # what a coder may try (-1: one running sum)
 SHUFFLES = (False, True)
 MAX_N = 1 << 24           # longest window (values) a channel's reader decodes: a garbled length cannot allocate more
+MAX_BLOCK = 1 << 12       # most windows one payload may hold (a block; the reader caps a block's values at MAX_N too)
 _WIDTHS = {1: np.int8, 2: np.int16, 4: np.int32, 8: np.int64}
 _XZ_PRESET = 9 | lzma.PRESET_EXTREME
 
@@ -124,6 +132,24 @@ def _decompress(blob: bytes, kind: int, size: int) -> bytes:
         raise ArchiveCorrupt("a classic-coded window's compressed stream is damaged; the archive is damaged") from None
 
 
+def block_heads(windows, block: int, full: bool) -> np.ndarray:
+    """Which of consecutive window numbers ``windows`` start a block of ``block`` windows: each multiple of
+    ``block``; a channel's short last window (``full`` false) is a block of its own."""
+    w = np.asarray(windows, np.int64)
+    return w % block == 0 if full else np.ones(len(w), bool)
+
+
+def _cells(buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, n: int) -> memoryview:
+    """``buf`` as bytes once the cells ``starts``..``ends`` (int64) are checked to lie inside it and the
+    window length ``n`` within ``MAX_N``."""
+    if not 0 <= n <= MAX_N:
+        raise ArchiveCorrupt(f"a window length is outside 0..{MAX_N}; the archive is damaged")
+    if len(starts) != len(ends) or (len(starts) and (np.any(ends < starts) or starts.min() < 0
+                                                     or ends.max() > len(buf))):
+        raise ArchiveCorrupt("classic-coded windows point outside their column; the archive is damaged")
+    return memoryview(np.ascontiguousarray(buf, np.uint8))
+
+
 def expect_id(config: dict, coder_id: str) -> None:
     """Raise :class:`ArchiveCorrupt` unless ``config`` is a config of the coder ``coder_id``."""
     if config.get("id") != coder_id:
@@ -142,6 +168,7 @@ class ClassicCoder:
     compressors: tuple[str, ...] = COMPRESSORS
     orders: tuple[int, ...] = ORDERS
     shuffles: tuple[bool, ...] = SHUFFLES
+    block: int = 1
     id: ClassVar[str] = "classic"
 
     def __post_init__(self) -> None:
@@ -152,6 +179,9 @@ class ClassicCoder:
                 not self.shuffles or any(not isinstance(f, bool) for f in self.shuffles):
             raise BadInput(f"classic coder orders must be among {ALL_ORDERS} and shuffles true or false; "
                            f"got {self.orders} and {self.shuffles}")
+        if type(self.block) is not int or not 1 <= self.block <= MAX_BLOCK:
+            raise BadInput(f"a classic coder's block must be a whole number of windows in 1..{MAX_BLOCK}; "
+                           f"got {str(self.block)[:20]}")
 
     def encode(self, values) -> bytes:
         x = np.asarray(values)
@@ -208,15 +238,45 @@ class ClassicCoder:
         buffer and offsets), as one flat int64 array.  ``strict`` asks nothing more here: every stream
         is checked to give exactly ``n`` values, and the reader checks each window's CRC."""
         starts, ends = np.asarray(starts, np.int64), np.asarray(ends, np.int64)
-        if not 0 <= n <= MAX_N:
-            raise ArchiveCorrupt(f"a window length is outside 0..{MAX_N}; the archive is damaged")
-        if len(starts) != len(ends) or (len(starts) and (np.any(ends < starts) or starts.min() < 0
-                                                         or ends.max() > len(buf))):
-            raise ArchiveCorrupt("classic-coded windows point outside their column; the archive is damaged")
-        view = memoryview(np.ascontiguousarray(buf, np.uint8))
+        view = _cells(buf, starts, ends, n)
         out = np.empty(len(starts) * n, np.int64)
         for w, (a, b) in enumerate(zip(starts.tolist(), ends.tolist())):
             out[w * n:(w + 1) * n] = self.decode(view[a:b], n)
+        return out
+
+    def encode_blocks(self, windows, heads) -> list[bytes]:
+        """One payload per block of consecutive ``windows`` (k, n): a block starts at each true ``heads[i]``
+        (``heads[0]`` must be one) and its windows' values, concatenated, are coded as one; the block's
+        first window holds the payload, its other windows ``b""``."""
+        starts = np.flatnonzero(heads).tolist()
+        if not starts or starts[0] != 0:
+            raise ValueError("a batch of block-coded windows must start a block")
+        out = [b""] * len(windows)
+        for a, b in zip(starts, starts[1:] + [len(windows)]):
+            out[a] = self.encode(np.asarray(windows[a:b]).reshape(-1))
+        return out
+
+    def decode_blocks(self, buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, n: int, heads) -> np.ndarray:
+        """Inverse of :meth:`encode_blocks` over a Parquet binary column (``buf``, ``starts``, ``ends`` as
+        :meth:`decode_flat`): windows of ``n`` values each as one flat int64 array.  A window inside a block
+        with bytes, a block longer than ``block`` windows or than ``MAX_N`` values, or windows that do not
+        start a block, are damage (:class:`ArchiveCorrupt`); nothing is inflated past the block's values."""
+        starts, ends = np.asarray(starts, np.int64), np.asarray(ends, np.int64)
+        heads = np.asarray(heads, bool)
+        if len(heads) != len(starts):
+            raise BadInput(f"{len(starts)} cells but {len(heads)} block starts; give one per cell")
+        first = np.flatnonzero(heads)
+        count = np.diff(first, append=len(heads))
+        if len(heads) and (not heads[0] or np.any(ends[~heads] != starts[~heads])):
+            raise ArchiveCorrupt("classic-coded windows inside a block have bytes of their own, or a block "
+                                 "lost its first window; the archive is damaged")
+        if len(count) and (int(count.max()) > self.block or int(count.max()) * n > MAX_N):
+            raise ArchiveCorrupt(f"a classic-coded block holds more than {self.block} windows or {MAX_N} values; "
+                                 "the archive is damaged")
+        view = _cells(buf, starts, ends, n)
+        out = np.empty(len(heads) * n, np.int64)
+        for i, k in zip(first.tolist(), count.tolist()):
+            out[i * n:(i + k) * n] = self.decode(view[starts[i]:ends[i]], k * n)
         return out
 
     def cost_bits(self, values) -> float:
@@ -224,16 +284,19 @@ class ClassicCoder:
         return 8.0 * len(self.encode(values))
 
     def get_config(self) -> dict:
-        return {"id": self.id, "compressors": list(self.compressors), "orders": list(self.orders),
-                "shuffles": list(self.shuffles)}
+        d = {"id": self.id, "compressors": list(self.compressors), "orders": list(self.orders),
+             "shuffles": list(self.shuffles)}
+        return d if self.block == 1 else {**d, "block": self.block}
 
     @classmethod
     def from_config(cls, config: dict) -> "ClassicCoder":
-        """The coder of ``config``; ``orders`` and ``shuffles`` are optional (every one when absent)."""
+        """The coder of ``config``; ``orders`` and ``shuffles`` are optional (every one when absent), and
+        ``block`` (1 when absent: every window its own payload, as archives written before blocks)."""
         expect_id(config, cls.id)
         try:
             return cls(tuple(str(c) for c in config.get("compressors", COMPRESSORS)),
                        tuple(int(o) for o in config.get("orders", ORDERS)),
-                       tuple(f if isinstance(f, bool) else str(f) for f in config.get("shuffles", SHUFFLES)))
+                       tuple(f if isinstance(f, bool) else str(f) for f in config.get("shuffles", SHUFFLES)),
+                       config.get("block", 1))
         except BadInput as exc:
             raise ArchiveCorrupt(f"{exc}; the archive is damaged") from None

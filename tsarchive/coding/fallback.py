@@ -12,8 +12,10 @@ first differences) and its residuals with one :class:`ClassicCoder`
 combination: its order -1 sums them back to the samples less the level, 0
 keeps the first differences, 1 takes second differences (the "quant", "prev"
 and "prev2" of the bench's classic baselines).
-Each window is still coded alone: any window decodes without the others, and
-its CRC is checked as every window's.
+Each window is coded alone, or (``"block": B``) each run of ``B`` consecutive
+windows as one stream (:func:`joined`: the block's first differences, so a
+repeat longer than a window is within the compressor's reach; a window then
+decodes with its block); every window's CRC is checked as every window's.
 
 :func:`classic_choice` decides on the packer's spread sample of the channel's
 windows, the one the other coders are measured on (:func:`tsarchive.encoder.choose_coder`):
@@ -24,7 +26,11 @@ windows, the one the other coders are measured on (:func:`tsarchive.encoder.choo
    far is within ``XZ_WITHIN`` of the bytes to beat;
 2. that one combination codes the rest of the sample, and the channel takes
    it only if its estimate (payload bytes scaled to the channel, plus its
-   config in the manifest) is strictly below the best other coder's.
+   config in the manifest) is strictly below the best other coder's;
+3. in blocks: step 1 on the first of up to two whole blocks read
+   contiguously (the packer's ``_block_sample``), that combination on the
+   other, taken only where its estimate is strictly below both the best other
+   coder's and the per-window classic coder's.
 
 Every quantity is an integer count of bytes, so the choice is the same on
 every machine with the same compressor libraries (see :mod:`.classic` on
@@ -41,11 +47,12 @@ import numpy as np
 from tsarchive.predict import Context, get_predictor
 from tsarchive.windows import spread
 
-from .classic import ClassicCoder
+from .classic import MAX_BLOCK, ClassicCoder
 
 PREV = 0                    # the predictor of every window of a classic channel (predict.PREDICTORS)
 SETTING_SAMPLES = 1 << 16   # bound on the samples the combination is chosen on
 ORDERS = (-1, 0, 1)         # the classic coder's orders a channel may take (see the module docstring)
+BLOCK_SAMPLES = 1 << 18     # bound on the samples of a block of windows coded as one payload
 XZ_WITHIN = (5, 4)          # xz is tried where the best so far is at most 5/4 of the bytes to beat
 _FAST = ("zstd", "bzip2")
 
@@ -61,21 +68,78 @@ def prev_residuals(q: np.ndarray, level: np.ndarray) -> np.ndarray:
     return get_predictor(PREV).residuals(q, Context(level))
 
 
-def classic_choice(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int) -> ClassicCoder | None:
+def joined(q: np.ndarray, res: np.ndarray, heads: np.ndarray) -> np.ndarray:
+    """What a block codes: the previous-sample residuals ``res`` of windows ``q`` (k, L), except that a
+    window not starting a block (``heads``) takes its first sample against the previous window's last
+    (not against its level): one steady stream of first differences over the block, whose running sum
+    from the block's first level is the samples on the grid."""
+    out = np.array(res, dtype=np.int64)
+    inner = np.flatnonzero(~np.asarray(heads, bool))
+    with np.errstate(over="ignore"):
+        out[inner, 0] = q[inner, 0] - q[inner - 1, -1]
+    return out
+
+
+def unjoined(values: np.ndarray, level: np.ndarray, heads: np.ndarray) -> np.ndarray:
+    """Inverse of :func:`joined`: the previous-sample residuals of windows (k, L) whose block streams
+    are ``values`` (k, L), given each window's ``level`` (wrap-around int64, so any values undo)."""
+    first = np.flatnonzero(np.asarray(heads, bool)).tolist()
+    q = np.empty(values.shape, np.int64)
+    with np.errstate(over="ignore"):
+        for a, b in zip(first, first[1:] + [len(values)]):
+            q[a:b] = (np.int64(level[a]) + np.cumsum(values[a:b].reshape(-1), dtype=np.int64)).reshape(b - a, -1)
+    return prev_residuals(q, level)
+
+
+def block_windows(W: int) -> int:
+    """Windows of ``W`` samples in a block: the most, a power of two, whose samples fit in
+    ``BLOCK_SAMPLES`` (1: no block mode, windows that long already reach as far back)."""
+    k = max(1, BLOCK_SAMPLES // max(W, 1))
+    return min(MAX_BLOCK, 1 << (k.bit_length() - 1))
+
+
+def classic_choice(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int,
+                   blocks: tuple[np.ndarray, np.ndarray] | None = None) -> ClassicCoder | None:
     """The classic coder of one combination for a channel whose sampled windows are ``q`` (k, W) with
     levels ``level``, if its estimate is below ``beat`` bytes (the best other coder's :func:`estimate`
-    on the same windows); else None."""
+    on the same windows); else None.  ``blocks``: windows (m, W) and levels of whole blocks of
+    consecutive windows (:func:`block_windows` each, the channel's last block maybe shorter), on which
+    coding in blocks is measured; it is taken where its estimate is below both ``beat`` and the
+    per-window coder's (a tie keeps the per-window coder)."""
     if not len(q):
         return None
+    coder, size = _per_window(q, level, n_total_windows, beat)
+    if blocks is not None and len(blocks[0]) and block_windows(q.shape[1]) > 1:
+        coder = _per_block(*blocks, n_total_windows, size) or coder
+    return coder
+
+
+def _per_window(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int) -> tuple[ClassicCoder | None, int]:
+    """The per-window coder and its estimate if below ``beat``; else ``(None, beat)``."""
     res = prev_residuals(q, level)
     sub = spread(len(res), max(1, SETTING_SAMPLES // res.shape[1]))
     coder, sub_payloads = _setting(res[sub], lambda size: estimate(size, len(sub), n_total_windows, {}) < beat)
     if coder is None:
-        return None
+        return None, beat
     payloads = dict(zip(sub.tolist(), sub_payloads))
     rest = [i for i in range(len(res)) if i not in payloads]
     payloads.update(zip(rest, coder.encode_many(res[rest])))
     size = estimate(sum(map(len, payloads.values())), len(res), n_total_windows, coder.get_config())
+    return (coder, size) if size < beat else (None, beat)
+
+
+def _per_block(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int) -> ClassicCoder | None:
+    """The block coder of one combination, chosen on the first block of windows ``q`` (m, W) and measured
+    on all of them, if its estimate is below ``beat``; else None."""
+    B = block_windows(q.shape[1])
+    res = joined(q, prev_residuals(q, level), np.arange(len(q)) % B == 0)
+    rows = [res[i:i + B].reshape(-1) for i in range(0, len(res), B)]
+    first = len(rows[0]) // q.shape[1]
+    coder, payloads = _setting(rows[:1], lambda size: estimate(size, first, n_total_windows, {}) < beat, B)
+    if coder is None:
+        return None
+    size = estimate(sum(map(len, payloads + coder.encode_many(rows[1:]))), len(res), n_total_windows,
+                    coder.get_config())
     return coder if size < beat else None
 
 
@@ -91,9 +155,9 @@ def classic_bytes(q: np.ndarray, level: np.ndarray) -> int:
     return size * len(res) // len(sub)
 
 
-def _setting(res: np.ndarray, promising: Callable[[int], bool]) -> tuple[ClassicCoder | None, list[bytes]]:
-    """The one-combination coder with the fewest bytes on windows ``res`` and their payloads, or
-    ``(None, [])`` when not even its payload bytes are ``promising``."""
+def _setting(res, promising: Callable[[int], bool], block: int = 1) -> tuple[ClassicCoder | None, list[bytes]]:
+    """The one-combination coder (of ``block`` windows a payload) with the fewest bytes on windows (or
+    blocks) ``res`` and their payloads, or ``(None, [])`` when not even its payload bytes are ``promising``."""
     tried: dict[tuple[str, int, bool], list[bytes]] = {}
     for order in ORDERS:
         for shuf in (False, True):
@@ -113,7 +177,7 @@ def _setting(res: np.ndarray, promising: Callable[[int], bool]) -> tuple[Classic
     name, order, shuf = best()
     if not promising(size((name, order, shuf))):
         return None, []
-    return ClassicCoder((name,), (order,), (shuf,)), tried[(name, order, shuf)]
+    return ClassicCoder((name,), (order,), (shuf,), block), tried[(name, order, shuf)]
 
 
 def _rank(key: tuple[str, int, bool]) -> tuple[int, int, bool]:
