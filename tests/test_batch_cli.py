@@ -115,7 +115,7 @@ def test_quiet_keeps_failures_and_the_summary(tmp_path, capsys):
 
 def test_kill_9_partway_keeps_finished_archives_and_the_next_run_finishes_the_rest(tmp_path, capsys):
     lab = tmp_path / "lab"
-    srcs = [write_logger(lab / f"log{i:02d}.csv", n=3000, seed=i) for i in range(8)]
+    srcs = [write_logger(lab / f"log{i:02d}.csv", n=3000, seed=i) for i in range(20)]   # enough that the kill lands partway even on a loaded machine
     out = tmp_path / "out"
     cmd = [PYTHON, "-m", "tsarchive", "pack", str(lab), "--into", str(out), "--jobs", "2", "--quiet"]
     proc = subprocess.Popen(cmd, cwd=ROOT, env=child_env(), start_new_session=True,
