@@ -169,3 +169,12 @@ def test_a_checksums_only_check_is_kept_and_a_failure_forgets_a_pass(tmp_path, p
     out = capsys.readouterr().out
     assert "last check: unverified" in out                     # a failure writes nothing and forgets the pass
     assert not any((tmp_path / ".tsarchive-checks").iterdir())
+
+
+def test_a_format_6_record_names_its_digest_as_the_footers_not_a_manifest_files(packed):
+    # format 6 keeps no manifest.json: its identity is the SHA-256 of windows.parquet's footer (DEVELOPERS.md)
+    out = packed["dir"] / "record-digest"
+    assert main(["verify", str(packed["arc"]), "--record", str(out), "--quiet"]) == 0
+    assert not (packed["arc"] / "manifest.json").exists()
+    md = (out / "record.md").read_text(encoding="utf-8")
+    assert "manifest SHA-256" not in md and "SHA-256 of the windows.parquet footer" in md

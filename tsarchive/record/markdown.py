@@ -13,6 +13,13 @@ def _who(d: dict | None) -> str:
     return f"`{d.get('name') or '(unnamed)'}`, {d.get('bytes')} bytes, SHA-256 `{d.get('sha256') or 'not recorded'}`"
 
 
+def _digest_name(version) -> str:
+    """What the archive's identity digest is a SHA-256 of, by format (DEVELOPERS.md, archive format)."""
+    if isinstance(version, int) and version >= 6:
+        return "digest (SHA-256 of the windows.parquet footer that holds the manifest)"
+    return "manifest SHA-256"
+
+
 def record_markdown(rec) -> str:
     """``rec``: a :class:`tsarchive.record.document.VerificationRecord`."""
     a = rec.archive
@@ -21,7 +28,8 @@ def record_markdown(rec) -> str:
         f"# Verification record: {a['name']}", "",
         f"**{outcome}**: {rec.checked}.", "",
         "| | |", "| --- | --- |",
-        f"| archive | `{a['name']}` ({a['path']}), {a['bytes']} bytes, manifest SHA-256 `{a['manifest_sha256']}` |",
+        f"| archive | `{a['name']}` ({a['path']}), {a['bytes']} bytes, {_digest_name(rec.format_version)} "
+        f"`{a['manifest_sha256']}` |",
         f"| packed from | {_who(rec.source)} |",
         f"| compared with | {_who(rec.compared_with)}"
         + ("" if not rec.compared_with else
