@@ -222,3 +222,24 @@ def test_a_masked_integer_channel_is_indexed_as_its_samples_with_nan_where_missi
         assert np.array_equal(a, b)
     r = look.unusual(arc, "count", k=1)
     assert r.rows[0].start < 3020 and 3000 < r.rows[0].start + r.size        # the gap's segment ranks first
+
+
+def test_a_stored_index_of_facts_only_gives_way_to_a_derived_one(tmp_path, monkeypatch):
+    # a stored facts-only index (no codes fitted the byte budget) at a coarse segment: the spike is found in a
+    # segment of the default length from a derived index instead, and the label says why (the outside truth:
+    # the injected position)
+    x = _wave(15000, 4)
+    p = 7013
+    x[p] += 6.0 * float(np.std(x))
+    arc = open_archive(_pack(tmp_path, "facts", x))
+    decoded = np.ma.filled(np.ma.asarray(arc.read(arc.channels[0].name), np.float64), np.nan)
+    facts = build_channel(lambda a, b: decoded[a:b], arc.channels[0].name, len(decoded), 2048,
+                          try_nonlinear=False, max_codes=0)
+    assert facts.coder.kind == "facts" and facts.segment == 2048
+    monkeypatch.setattr(member, "has_index", lambda a: True)
+    monkeypatch.setattr(member, "read", lambda a, name, facts=True, ci=facts: ci)
+    r = look.unusual(arc, k=3)
+    assert r.size < 2048 and r.based_on.startswith(look.DERIVED_OVER_FACTS)
+    top = r.rows[0]
+    assert top.start <= p < top.start + r.size
+    assert look.alike(arc, top.number, k=3).size == r.size

@@ -54,6 +54,8 @@ BASED_ON_FALLBACK = {
 }
 DERIVED = ("the index computed on opening from the decoded samples (this archive keeps none: it did not fit "
            "its byte budget, or the archive was packed without one); ")
+DERIVED_OVER_FACTS = ("the index computed on opening from the decoded samples (this archive keeps only the facts "
+                      "of a coarse index, without codes: that is all that fitted its byte budget); ")
 
 
 @dataclass(frozen=True)
@@ -108,12 +110,17 @@ def based_on(ci, kind: str) -> str:
 
 def index_of(arc, name: str):
     """``(index, derived)`` of channel ``name``: the stored index, else one computed from the decoded samples
-    (:mod:`tsarchive.index.derived`); ``(None, False)`` when the rankings fall back to windows."""
+    (:mod:`tsarchive.index.derived`), also in place of a stored index of facts only (no codes fitted its
+    byte budget: a derived one has codes and the default segment); ``derived`` is None (stored), ``"none"``
+    or ``"facts"`` (why it was computed); ``(None, None)`` when the rankings fall back to windows."""
     if member.has_index(arc):
-        return member.read(arc, name), False
+        ci = member.read(arc, name)
+        if ci.coder.kind == "facts" and derived.short_enough(arc, name):
+            return derived.derive(arc, name), "facts"
+        return ci, None
     if derived.can_derive(arc, name):
-        return derived.derive(arc, name), True
-    return None, False
+        return derived.derive(arc, name), "none"
+    return None, None
 
 
 def has_segments(arc, name: str) -> bool:
@@ -121,11 +128,12 @@ def has_segments(arc, name: str) -> bool:
     return member.has_index(arc) or derived.can_derive(arc, name)
 
 
-def _label(ci, kind: str, made: bool) -> str:
-    """What a ranking is based on; a derived index (``made``) says so first, then the usual description."""
-    if not made:
+def _label(ci, kind: str, made: str | None) -> str:
+    """What a ranking is based on; a derived index (``made``: why) says so first, then the usual description."""
+    if made is None:
         return based_on(ci, kind)
-    return DERIVED + based_on(ci, kind).replace("the learned index: ", "").replace("stored facts", "facts")
+    head = DERIVED_OVER_FACTS if made == "facts" else DERIVED
+    return head + based_on(ci, kind).replace("the learned index: ", "").replace("stored facts", "facts")
 
 
 def channel_name(arc, channel: str | None) -> str:
