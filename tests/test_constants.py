@@ -14,7 +14,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 import tsarchive
-from tsarchive import modelrun, pipeline
+from tsarchive import modelrun, windowchoice
 from tsarchive.store import schema as S
 
 MARGIN = 0.5
@@ -44,6 +44,6 @@ def test_measured_size_constants_still_hold(tmp_path):
     per_row = ((out / S.WINDOWS).stat().st_size - code_bytes - payload) / rows
     measured = {"BYTES_PER_PARAM": (per_param, modelrun.BYTES_PER_PARAM),
                 "BITS_PER_CODE": (per_code, modelrun.BITS_PER_CODE),
-                "WINDOW_ROW_BYTES": (per_row, pipeline.WINDOW_ROW_BYTES)}
+                "WINDOW_ROW_BYTES": (per_row, windowchoice.WINDOW_ROW_BYTES)}
     drifted = {k: v for k, v in measured.items() if not _near(*v)}
     assert not drifted, f"re-measure and update these constants (measured, constant): {drifted}"

@@ -12,7 +12,7 @@ import pyarrow.parquet as pq
 import pytest
 
 import tsarchive
-from tsarchive import modelrun, pipeline
+from tsarchive import modelrun, pipeline, windowchoice
 from tsarchive.options import DEFAULT_CODE_SIZE
 from tsarchive.errors import ArchiveExists, BadInput, BoundViolation, BudgetError, SourceNotFound
 from tsarchive.quantize import values_to_bits
@@ -340,7 +340,7 @@ def test_window_length_is_chosen_where_longer_windows_pay(tmp_path):
     events = []
     _, out, res = _pack(tmp_path, x, budget="1%", window=None, progress=events.append)
     arc = tsarchive.open(out)
-    assert arc.window in pipeline.WINDOW_CHOICES and arc.window > pipeline.DEFAULT_WINDOW
+    assert arc.window in windowchoice.WINDOW_CHOICES and arc.window > pipeline.DEFAULT_WINDOW
     assert any(e.message.startswith(f"window {arc.window} (estimated") for e in events)
     _, _, fixed = _pack(tmp_path, x, budget="1%", window=pipeline.DEFAULT_WINDOW, name="fixed")
     assert res.archive_bytes < fixed.archive_bytes

@@ -55,7 +55,7 @@ from .index import build_index
 from .store.writer import ArchiveWriter, check_target
 from .windowcodec import block_windows, encode_windows
 from .windows import CHUNK_SAMPLES, DEFAULT_WINDOW, batches, n_windows, spread
-from .windowchoice import WINDOW_CHOICES, WINDOW_ROW_BYTES, choose_window  # noqa: F401 (tests read both)
+from .windowchoice import choose_window
 from .workers import workers as worker_count
 
 BATCH_SAMPLES = 1 << 18      # samples per encoder call within a step (bounds each thread's temporaries)
