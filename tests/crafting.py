@@ -60,7 +60,8 @@ def _rewrite_windows(arc: Path, m: dict | None, rows=None, dictionary: bool = Fa
     if inside:
         from tsarchive.store import inside as I
         tail = I._tail(arc / S.WINDOWS)
-        old_slot = tail[1][I._slot_in(tail[1]):][:32]
+        at, place = I._slot_in(tail[1])
+        old_slot = tail[1][at:at + place.slot]
     if nullable:
         schema = pa.schema([x.with_nullable(True) for x in schema])
     if "facts" in schema.names:           # format 6's columns (format 5's are no longer written)
@@ -91,7 +92,7 @@ def _rewrite_windows(arc: Path, m: dict | None, rows=None, dictionary: bool = Fa
     elif inside:
         start, footer = I._tail(arc / S.WINDOWS)
         with open(arc / S.WINDOWS, "r+b") as fh:
-            fh.seek(start + I._slot_in(footer))
+            fh.seek(start + I._slot_in(footer)[0])
             fh.write(old_slot)
 
 
@@ -143,8 +144,24 @@ def replace_column(table: pa.Table, name: str, values) -> pa.Table:
 
 def archive_identity(arc: Path) -> str:
     """The archive's identity as a lab system files it, read without tsarchive: the SHA-256 of manifest.json
-    (formats 3 to 5; hashlib, FIPS 180-4) or the footer digest format 6 stores in windows.parquet's footer
-    (read by pyarrow)."""
+    (formats 3 to 5; hashlib, FIPS 180-4) or the footer digest formats 6 and 7 store in windows.parquet's footer
+    (read by pyarrow; format 7 as 7-bit text)."""
     if (arc / S.MANIFEST).exists():
         return hashlib.sha256((arc / S.MANIFEST).read_bytes()).hexdigest()
-    return pq.read_metadata(arc / S.WINDOWS).metadata[b"tsarchive.sha256"].hex()
+    kv = pq.read_metadata(arc / S.WINDOWS).metadata
+    if b"tsarchive.digest" in kv:
+        return from_seven_bit(kv[b"tsarchive.digest"]).hex()
+    return kv[b"tsarchive.sha256"].hex()
+
+
+def to_seven_bit(data: bytes) -> bytes:
+    """Bytes as format 7's 7-bit text (DEVELOPERS.md), in plain Python: the bits in groups of seven."""
+    bits = "".join(format(c, "08b") for c in data)
+    bits += "0" * (-len(bits) % 7)
+    return bytes(int(bits[i:i + 7], 2) for i in range(0, len(bits), 7))
+
+
+def from_seven_bit(text: bytes) -> bytes:
+    """Inverse of :func:`to_seven_bit`."""
+    bits = "".join(format(c, "08b")[1:] for c in text)
+    return bytes(int(bits[i:i + 8], 2) for i in range(0, len(bits) // 8 * 8, 8))

@@ -415,11 +415,11 @@ def test_archive_bytes_add_up_and_footers_follow_the_parquet_layout(tmp_path):
     b = breakdown(tmp_path / "s.tsa")
     files = {str(p.relative_to(tmp_path / "s.tsa")): p for p in (tmp_path / "s.tsa").rglob("*") if p.is_file()}
     assert b.total == sum(os.stat(p).st_size for p in files.values())
-    # format 6: the manifest is windows.parquet's footer key "tsarchive" (pyarrow reads it) with its Thrift
-    # compact framing (two field headers, a stop byte, the key's 1-byte length, the value's 2-byte varint length
-    # for 128..16383 bytes: Apache Thrift compact protocol); the rest of the footer is "footers"
-    blob = pq.read_metadata(files["windows.parquet"]).metadata[b"tsarchive"]
-    assert 128 <= len(blob) < 16384 and b.manifest == len(blob) + len(b"tsarchive") + 3 + 1 + 2
+    # format 7: the manifest is windows.parquet's footer key "tsarchive.manifest" (pyarrow reads it) with its
+    # Thrift compact framing (two field headers, a stop byte, the key's 1-byte length, the value's 2-byte varint
+    # length for 128..16383 bytes: Apache Thrift compact protocol); the rest of the footer is "footers"
+    blob = pq.read_metadata(files["windows.parquet"]).metadata[b"tsarchive.manifest"]
+    assert 128 <= len(blob) < 16384 and b.manifest == len(blob) + len(b"tsarchive.manifest") + 3 + 1 + 2
     footers = -b.manifest
     for p in files.values():
         raw = p.read_bytes()

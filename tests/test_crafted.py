@@ -25,7 +25,8 @@ from tsarchive.cli import main
 from tsarchive.store import schema as S
 
 from conftest import make_signal
-from crafting import copy, first_window, manifest, rebind, replace_column, snapshot, write_blob, write_manifest
+from crafting import (copy, first_window, manifest, rebind, replace_column, snapshot, to_seven_bit, write_blob,
+                      write_manifest)
 
 
 @pytest.fixture(scope="module")
@@ -150,11 +151,12 @@ def _footer_cut(a):     # the footer's last 100 bytes gone (format 6: the manife
 
 
 def _blob(data: bytes, dictionary: bool = True):
-    """Format 6: ``data`` as the manifest's JSON text, zstd-compressed (with the format's dictionary)."""
+    """Format 7: ``data`` as the manifest's JSON text, zstd-compressed (with the format's dictionary), as 7-bit
+    text."""
     import zstandard
     from tsarchive.store import inside
     z = zstandard.ZstdCompressor(level=1, dict_data=inside._dictionary() if dictionary else None)
-    return lambda a: write_blob(a, z.compress(data))
+    return lambda a: write_blob(a, to_seven_bit(z.compress(data)))
 
 
 def _edited_unsealed(a):      # a valid edit of the manifest, the file digest left as it was

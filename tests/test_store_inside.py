@@ -1,5 +1,5 @@
-"""Format 6: the manifest inside windows.parquet's footer (store/inside.py) and the row-group map of the
-window rows (store/lean6.py).  References: SHA-256 is FIPS 180-4 (hashlib); the Parquet file's tail is
+"""Formats 6 and 7: the manifest inside windows.parquet's footer (store/inside.py) and the row-group map of
+the window rows (store/lean6.py).  References: SHA-256 is FIPS 180-4 (hashlib); the Parquet file's tail is
 ``<footer> <4-byte little-endian length> PAR1`` (Apache Parquet file format); the manifest is read back with
 pyarrow and zstandard alone, as DEVELOPERS.md documents."""
 
@@ -13,6 +13,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 import tsarchive
 from tsarchive.errors import ArchiveCorrupt
@@ -23,10 +25,25 @@ from tsarchive.store.binding import read_manifest
 from crafting import copy
 
 
-def test_the_dictionary_is_the_one_format_6_shipped_with():
-    # every format-6 manifest is compressed with this file: it may never change (hashlib: FIPS 180-4 SHA-256)
-    got = hashlib.sha256(inside.DICT_FILE.read_bytes()).hexdigest()
+def test_the_dictionaries_are_the_ones_their_formats_shipped_with():
+    # every format-6 (format-7) manifest is compressed with this file: it may never change (hashlib: FIPS 180-4)
+    got = hashlib.sha256((inside.HERE / "manifest6.zdict").read_bytes()).hexdigest()
     assert got == "f3d5c435459f2e7235559b4a8da5571d0d63d02fbd292a1a09a98fba9ed61c37"
+    got = hashlib.sha256((inside.HERE / "manifest7.zdict").read_bytes()).hexdigest()
+    assert got == "6b9f5b652db5d3109ff79a2bbdddd752284039930c190ccefb77dbabe5cfb1c1"
+
+
+def _seven_bit(text: bytes) -> bytes:
+    # DEVELOPERS.md's 7-bit text, decoded bit by bit in plain Python (not the module's numpy code)
+    bits = "".join(format(c, "08b")[1:] for c in text)
+    return bytes(int(bits[i:i + 8], 2) for i in range(0, len(bits) // 8 * 8, 8))
+
+
+@given(st.binary(max_size=300))
+def test_seven_bit_text_is_ascii_and_round_trips(b):
+    t = inside.to_text(b)
+    assert all(c < 0x80 for c in t) and len(t) == -(-8 * len(b) // 7)
+    assert _seven_bit(t) == b and inside.from_text(t) == b
 
 
 @pytest.fixture(scope="module")
@@ -57,15 +74,15 @@ def test_the_documented_one_liner_reads_the_manifest_with_pyarrow_and_zstandard_
 
 def test_the_footer_digest_and_the_rows_digest_are_sha256_of_what_they_cover(arc):
     start, footer = _tail(arc / S.WINDOWS)
-    key = S.DIGEST_KEY + b"\x18\x20"          # Thrift compact: KeyValue field 2 (binary), length 32
+    key = S.DIGEST_KEY + b"\x18\x25"          # Thrift compact: KeyValue field 2 (binary), length 37
     at = footer.rindex(key) + len(key)
-    zeroed = footer[:at] + bytes(32) + footer[at + 32:]
-    assert footer[at:at + 32] == hashlib.sha256(zeroed).digest()
+    zeroed = footer[:at] + bytes(37) + footer[at + 37:]      # 32 zero bytes as 7-bit text: 37 zero bytes
+    assert _seven_bit(footer[at:at + 37]) == hashlib.sha256(zeroed).digest()
     m = read_manifest(arc)
     rows = (arc / S.WINDOWS).read_bytes()[:start]
     assert m["data"] == {"bytes": start, "sha256": hashlib.sha256(rows).hexdigest()}
     assert m["members"] == {}                 # nothing else in this folder
-    assert inside.identity(arc) == footer[at:at + 32].hex()
+    assert inside.identity(arc) == _seven_bit(footer[at:at + 37]).hex()
 
 
 @pytest.mark.parametrize("where", ["manifest", "slot", "schema"])
@@ -74,7 +91,7 @@ def test_a_changed_footer_byte_is_refused_at_opening(arc, tmp_path, where):
     p = a / S.WINDOWS
     data = bytearray(p.read_bytes())
     start, footer = _tail(p)
-    blob = read_manifest(arc) and footer.index(b"tsarchive\x18")      # the manifest's key, then its value
+    blob = read_manifest(arc) and footer.index(S.MANIFEST_KEY + b"\x18")      # the manifest's key, then its value
     at = {"manifest": start + blob + 40, "slot": start + footer.rindex(S.DIGEST_KEY) + len(S.DIGEST_KEY) + 5,
           "schema": start + footer.index(b"residual") + 2}[where]
     data[at] ^= 0x01
@@ -105,7 +122,7 @@ def test_report_prints_the_manifest_as_stored(arc, capsys):
     code = inside.one_liner(str(arc))                 # the same manifest as pyarrow + zstandard read it
     r = subprocess.run([sys.executable, "-c", code], cwd=inside.DICT_FILE.parent, capture_output=True, text=True,
                        timeout=120)
-    assert shown == json.loads(r.stdout) and shown["format_version"] == 6 and "groups" in shown
+    assert shown == json.loads(r.stdout) and shown["format_version"] == 7 and "groups" in shown
 
 
 def test_an_index_member_that_declares_too_much_or_runs_short_is_refused(tmp_path, monkeypatch):

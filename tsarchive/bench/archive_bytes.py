@@ -107,8 +107,9 @@ def breakdown(archive: Path) -> ArchiveBytes:
             continue
         meta = pq.ParquetFile(p).metadata
         footer = meta.serialized_size + 4 + 2 * len(_PARQUET_MAGIC)
-        inside = (meta.metadata or {}).get(b"tsarchive")     # format 6: the manifest in the footer's metadata
-        held = 0 if inside is None else _key_value_bytes(b"tsarchive", inside)
+        kv = meta.metadata or {}                           # formats 6 and 7: the manifest in the footer's metadata
+        key = next((k for k in (b"tsarchive.manifest", b"tsarchive") if k in kv), None)
+        held = 0 if key is None else _key_value_bytes(key, kv[key])
         manifest += held
         footers += footer - held
         other_cols += size - footer          # less the column chunks below: page indexes, if any

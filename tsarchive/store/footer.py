@@ -209,7 +209,7 @@ def _footer(meta: dict) -> Footer | str:
         chunks = []
         for c, (name, typ, d, r) in zip(cols, leaves):           # ColumnChunk: 1 file_path, 3 meta_data, 8/9 crypto
             md = c.get(3) if isinstance(c, dict) else None
-            if not isinstance(md, dict) or 1 in c or 8 in c or 9 in c or md.get(1) != typ:
+            if not isinstance(md, dict) or 1 in c or 8 in c or 9 in c or type(typ) is not int or md.get(1) != typ:
                 return "a column chunk's type differs from its schema leaf"
             sizes = md.get(16, {})                               # SizeStatistics: 2 rep, 3 def level histograms
             if not isinstance(sizes, dict) or len(sizes.get(2, ())) not in (0, r + 1) or \

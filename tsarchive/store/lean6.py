@@ -43,8 +43,10 @@ SCHEMA = pa.schema([        # required columns: no definition levels in the page
 ])
 WRITER_OPTS = dict(
     compression={"facts": "zstd", "code.list.element": "zstd", "residual": "none"},
-    compression_level={"facts": 9, "code.list.element": 9}, store_schema=False, write_statistics=False,
-    use_dictionary=False, column_encoding={"facts": "BYTE_STREAM_SPLIT", "residual": "DELTA_LENGTH_BYTE_ARRAY"})
+    compression_level={"facts": 19, "code.list.element": 9}, store_schema=False, write_statistics=False,
+    use_dictionary=False, column_encoding={"facts": "PLAIN", "residual": "DELTA_LENGTH_BYTE_ARRAY"})
+# Format 7 stores ``facts`` PLAIN: BYTE_STREAM_SPLIT on a fixed-size binary column (format 6) is refused by
+# readers that split only FLOAT, DOUBLE, INT32 and INT64 (DuckDB among them); it cost ~10 % more bytes.
 
 
 def lean6_schema(with_code: bool) -> pa.Schema:
@@ -56,7 +58,7 @@ def writer_opts(schema: pa.Schema) -> dict:
     if "code" in schema.names:
         return WRITER_OPTS
     return dict(WRITER_OPTS, compression={k: v for k, v in WRITER_OPTS["compression"].items() if "code" not in k},
-                compression_level={"facts": 9})
+                compression_level={"facts": 19})
 
 
 def pack(rows: pa.Table, with_code: bool) -> pa.Table:

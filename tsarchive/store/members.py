@@ -29,7 +29,7 @@ from . import lean, lean6
 from . import schema as S
 from .binding import file_sha256, footer_digest, manifest_digest, member_size
 from .footer import BYTE_ARRAY, DICTIONARY_ENCODINGS, Footer, read_footer
-from .inside import footer_problem, prefix_sha256, stored_in
+from .inside import V6, V7, digest_ok, footer_problem, place_of, prefix_sha256, stored_in
 from .parse import ChannelMeta, Member, ModelSpec
 
 
@@ -154,8 +154,11 @@ def check_binding(path: Path, footer: Footer, manifest: dict, version: int, foun
     """True when the manifest is bound to windows.parquet (False: an unbound version-3 archive).  Format 6
     keeps it inside that file, under the file's digest (checked with the members: :func:`member_problems`)."""
     if version >= S.INSIDE_FROM_VERSION:
-        if stored_in(footer) is None or len((footer.key_value or {}).get(S.DIGEST_KEY, b"")) != 32:
+        if stored_in(footer) is None or not digest_ok(footer):
             found.add(f"{S.WINDOWS} does not carry the manifest and its digest; the archive is damaged", True)
+        elif place_of(footer.key_value) is not (V7 if version >= S.TEXT_FROM_VERSION else V6):
+            found.add(f"{S.WINDOWS} keeps its manifest as another format version than {version} does; "
+                      "the archive is damaged or crafted", True)
         else:
             data = manifest.get("data", {})
             problem = footer_problem(path / S.WINDOWS, data.get("bytes") if isinstance(data, dict) else None)

@@ -47,14 +47,16 @@ from __future__ import annotations
 import pyarrow as pa
 
 FORMAT_NAME = "tsarchive"
-FORMAT_VERSION = 6
+FORMAT_VERSION = 7
 OLDEST_READABLE = 3                    # the oldest format version this tool still reads
 LEAN_FROM_VERSION = 5                  # from this version on, windows.parquet has the lean columns (lean.py)
 BOUND_FROM_VERSION = 4                 # from this version on, the manifest must be bound to windows.parquet
 BINDING_KEY = b"tsarchive.manifest_sha256"   # windows.parquet footer key: SHA-256 of the manifest (binding.py)
 INSIDE_FROM_VERSION = 6                # from this version on, the manifest is inside windows.parquet (inside.py)
-MANIFEST_KEY = b"tsarchive"            # windows.parquet footer key of format 6: the manifest, zstd (inside.py)
-DIGEST_KEY = b"tsarchive.sha256"       # ... and the footer's SHA-256, taken with these 32 bytes zeroed
+MANIFEST_KEY = b"tsarchive.manifest"   # windows.parquet footer key of format 7: the manifest, zstd, 7-bit text
+DIGEST_KEY = b"tsarchive.digest"       # ... and the footer's SHA-256, taken with its value zeroed (inside.py;
+                                       # format 6: b"tsarchive" and b"tsarchive.sha256", raw bytes)
+TEXT_FROM_VERSION = 7                  # from this version on, footer values are 7-bit text, the footer slimmed
 
 MANIFEST = "manifest.json"             # formats 3 to 5 (format 6 keeps it inside windows.parquet)
 WINDOWS = "windows.parquet"

@@ -27,6 +27,7 @@ from . import schema as S
 from . import lean, lean6
 from . import inside
 from .compact import compact
+from .slim import slim
 from .claim import check_target, claim_target, is_archive_dir, move_into_place, staging_name  # noqa: F401
 
 class ArchiveWriter:
@@ -165,6 +166,8 @@ class ArchiveWriter:
         manifest = json.loads(json.dumps(compact(manifest)))  # the values exactly as a reader will see them
         members = {}
         for p in sorted(self.stage.iterdir()):               # every member, whoever added it, is listed
+            if p.suffix == ".parquet" and p.name != S.WINDOWS:
+                slim(p)
             if p.name != S.WINDOWS:
                 members[p.name] = {"bytes": p.stat().st_size, "sha256": file_sha256(p)}
         data = self._sink.tell()                              # the window rows, before the footer
@@ -172,6 +175,7 @@ class ArchiveWriter:
                         data={"bytes": data, "sha256": inside.prefix_sha256(self.stage / S.WINDOWS, data)})
         self._windows.add_key_value_metadata({S.MANIFEST_KEY: inside.compress(manifest), S.DIGEST_KEY: inside.ZERO})
         self._close()
+        slim(self.stage / S.WINDOWS)                          # the pages stay: the rows' digest holds
         inside.seal(self.stage / S.WINDOWS)
         for p in self.stage.iterdir():
             with open(p, "rb") as fh:

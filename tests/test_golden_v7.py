@@ -1,0 +1,125 @@
+"""Format 7 (7-bit text footer values, slimmed footers) frozen: ``tests/golden/v7/golden7``, ``coders7`` and
+``classic7`` are decoded bit for bit on every run.
+
+A failure here means the archive format changed.  Changing it is deliberate:
+a new FORMAT_VERSION, this archive still read, a new golden archive beside
+it (DEVELOPERS.md, "Changing the format") and a CHANGELOG entry.
+"""
+
+import hashlib
+import json
+from pathlib import Path
+
+import golden_checks
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+import zstandard
+
+import tsarchive
+from tsarchive.predict import PREDICTORS
+from tsarchive.store import schema as S
+
+HERE = Path(__file__).resolve().parent / "golden" / "v7"
+ARC = HERE / "golden7"
+SOURCE = HERE.parent / "v5" / "source.csv"        # format 5's source, packed again
+DICTIONARY = Path(tsarchive.__file__).parent / "store" / "manifest7.zdict"
+
+
+def _seven_bit(text: bytes) -> bytes:
+    # DEVELOPERS.md's 7-bit text, decoded bit by bit in plain Python
+    bits = "".join(format(c, "08b")[1:] for c in text)
+    return bytes(int(bits[i:i + 8], 2) for i in range(0, len(bits) // 8 * 8, 8))
+
+
+def _stored(arc: Path) -> dict:
+    """The manifest with pyarrow and zstandard only, as DEVELOPERS.md documents it."""
+    blob = _seven_bit(pq.read_metadata(arc / S.WINDOWS).metadata[b"tsarchive.manifest"])
+    d = zstandard.ZstdCompressionDict(DICTIONARY.read_bytes(), dict_type=zstandard.DICT_TYPE_RAWCONTENT)
+    return json.loads(zstandard.ZstdDecompressor(dict_data=d).decompress(blob))
+
+
+def test_golden_decodes_bit_for_bit_and_within_budget_of_its_source():
+    golden_checks.decodes_bit_for_bit(HERE, ARC)
+    rep = tsarchive.verify(ARC, against=SOURCE)
+    assert rep.ok and rep.checksums_ok and rep.compared, rep.problems
+    arc = tsarchive.open(ARC)
+    assert arc.channel("strain").eps == 0.5 and arc.channel("temp").eps == 0.0 and arc.channel("serial").eps == 3
+    assert arc.manifest["model"] is not None  # the golden archive exercises the integer decoder
+
+
+def test_golden_layout_and_manifest_are_version_7():
+    assert not (ARC / "manifest.json").exists()
+    manifest = _stored(ARC)
+    assert manifest["format"] == "tsarchive" and manifest["format_version"] == 7 == S.FORMAT_VERSION
+    assert set(manifest["members"]) == {"index.zst", "exceptions.parquet", "model.parquet", "time.parquet",
+                                        "extra.parquet"}
+    # every byte bound: the rows before the footer and each member by SHA-256 (hashlib, FIPS 180-4), the
+    # footer by the digest in its slot (Thrift compact: KeyValue field 2, binary, length 37: 7-bit text)
+    raw = (ARC / S.WINDOWS).read_bytes()
+    n = int.from_bytes(raw[-8:-4], "little")
+    footer = raw[len(raw) - 8 - n:-8]
+    assert manifest["data"] == {"bytes": len(raw) - 8 - n, "sha256": hashlib.sha256(raw[:len(raw) - 8 - n]).hexdigest()}
+    at = footer.rindex(b"tsarchive.digest\x18\x25") + 18
+    assert _seven_bit(footer[at:at + 37]) == hashlib.sha256(footer[:at] + bytes(37) + footer[at + 37:]).digest()
+    # slimmed footers (parquet.thrift's optional created_by left out) and UTF-8 key-value values
+    assert all(not pq.read_metadata(p).created_by for p in ARC.glob("*.parquet"))
+    assert all(v.decode("utf-8") for v in pq.read_metadata(ARC / S.WINDOWS).metadata.values())
+    for name, m in manifest["members"].items():
+        assert m == {"bytes": (ARC / name).stat().st_size,
+                     "sha256": hashlib.sha256((ARC / name).read_bytes()).hexdigest()}
+    # the columns, by name and type as DEVELOPERS.md lists them (formats 6 and 7), no statistics
+    assert [(f.name, str(f.type), f.nullable) for f in pq.read_schema(ARC / S.WINDOWS).remove_metadata()] == [
+        ("facts", "fixed_size_binary[20]", False), ("code", "list<element: int8>", True),
+        ("residual", "binary", False)]
+    meta = pq.ParquetFile(ARC / S.WINDOWS).metadata
+    rows = [meta.row_group(g).num_rows for g in range(meta.num_row_groups)]
+    # 264 windows a channel: a full row group of 256 each, and one group of the 4 x 8 left over
+    assert sorted(zip(map(tuple, manifest["groups"]), rows)) == [
+        ((0, 0), 256), ((0, 256), 32), ((1, 0), 256), ((2, 0), 256), ((3, 0), 256)]
+    assert not any(meta.row_group(g).column(c).is_stats_set for g in range(len(rows)) for c in range(3))
+    layout = np.dtype([("crc32", "<u4"), ("level", "<i8"), ("score", "<f4"), ("worst", "u1"), ("table", "i1"),
+                       ("lpc_set", "i1"), ("mode", "i1")])
+    col = pq.read_table(ARC / S.WINDOWS, columns=["facts"])["facts"].combine_chunks()
+    assert col.type == pa.binary(20)
+    facts = np.frombuffer(col.buffers()[1], np.uint8)[:20 * len(col)].view(layout)
+    # every predictor but ae+prev (golden6 freezes it; the classic fallback takes its channels here)
+    assert set(facts["mode"].tolist()) == set(PREDICTORS) - {p.id for p in PREDICTORS.values() if p.name == "ae+prev"}
+    assert len(set(facts["lpc_set"].tolist())) >= 2                 # and more than one LPC set
+    # the compact manifest: shared facts once, eps in the grid only, no step = 2 eps
+    assert manifest["channel_defaults"]["rate"] == 50.0 and manifest["channel_defaults"]["n_samples"] == 8440
+    assert all("eps" not in c and "rate" not in c for c in manifest["channels"])
+    assert any(c["grid"]["kind"] == "step" and "step" not in c["grid"] for c in manifest["channels"])
+    golden_checks.format_4_fields(manifest)
+
+
+def test_golden_text_column_and_gap_come_back():
+    golden_checks.text_column_and_gap_come_back(ARC)
+
+
+def test_coders_golden_decodes_bit_for_bit_with_both_residual_coders_and_its_index():
+    golden_checks.coders_bit_for_bit(HERE, HERE / "coders7", "index.zst")
+
+
+def test_classic_golden_decodes_bit_for_bit_and_its_payloads_with_the_libraries():
+    # classic7: channel 0 in the classic fallback coder (format 6 on); the expected samples were decoded when
+    # it was made; each of its windows also inflates with the library its header names (zstd / xz / bzip2)
+    from coder_kit import coder_ids
+    from test_classic_channel import _library_decompress
+
+    arc_path = HERE / "classic7"
+    ids = coder_ids(arc_path)
+    assert ids[0] == "classic" and ids[1] != "classic"
+    arc = golden_checks.decodes_as_expected(arc_path, HERE / "expected_classic.npz")
+    ch = arc.channels[0]
+    payloads = arc.rows(ch.name, 0, ch.n_windows, ["residual"]).column("residual").to_pylist()
+    assert len(payloads) == 5                                   # 20 000 samples in windows of 4096
+    # block mode (DEVELOPERS.md): the 4 whole windows are one block, its payload in the first window's cell and
+    # the other cells empty; the short last window is a block of its own
+    assert [len(p) > 0 for p in payloads] == [True, False, False, False, True]
+    lengths = []
+    for payload in (payloads[0], payloads[4]):
+        order, raw, shuffled, width = _library_decompress(payload)
+        assert order in (-1, 0, 1) and width in (1, 2, 4, 8)
+        lengths.append(len(raw) // width)
+    assert lengths == [4 * 4096, 20_000 - 4 * 4096]
