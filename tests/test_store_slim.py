@@ -86,3 +86,18 @@ def test_polars_reads_windows_parquet(arc):
     assert frame["facts"].to_list() == ref["facts"].to_pylist()
     meta = pq.read_metadata(arc / S.WINDOWS).metadata
     assert all(v.decode("utf-8") for v in meta.values())
+
+
+def test_every_member_of_the_format_7_golden_archive_opens_in_duckdb_and_polars():
+    # golden7 holds every optional Parquet member (time, extra, exceptions, model): each reads with the same
+    # row count in pyarrow, DuckDB and polars
+    from pathlib import Path
+    duckdb = pytest.importorskip("duckdb")
+    polars = pytest.importorskip("polars")
+    members = sorted((Path(__file__).parent / "golden" / "v7" / "golden7").glob("*.parquet"))
+    assert {p.name for p in members} == {"windows.parquet", "time.parquet", "extra.parquet", "exceptions.parquet",
+                                         "model.parquet"}
+    for p in members:
+        n = pq.read_metadata(p).num_rows
+        assert duckdb.sql(f"SELECT count(*) FROM '{p}'").fetchall()[0][0] == n, p.name
+        assert polars.read_parquet(p).height == n, p.name
