@@ -164,26 +164,29 @@ def test_a_flipped_byte_in_a_block_names_its_windows(archive, tmp_path):
                                                                               SMALL_BLOCK + 1)[0])
 
 
-@pytest.mark.parametrize("change, why", [
-    (lambda c: [b""] + c[1:], "an empty cell where the block's payload should be"),
-    (lambda c: c[:1] + [b"\x00"] + c[2:], "bytes in a cell inside a block"),
-    (lambda c: [c[0][:1] + zstandard.ZstdCompressor().compress(bytes(64 << 20))] + c[1:],
-     "a stream inflating past the block's values (64 MiB of zeros)"),
-])
-def test_damage_in_a_block_is_one_error_not_a_traceback(archive, tmp_path, change, why):
-    a = _damaged(archive, tmp_path, change)
-    arc = tsarchive.open(a)
-    with pytest.raises(ArchiveCorrupt, match="damaged"):
-        arc.decode_windows(arc.channels[0].name, 2, 3)
-    assert not tsarchive.verify(a).ok, why
-
-
 TAIL_N = 10 * W + W // 2     # 10.5 windows: the short last window (10) falls in block 0 of the default length
 
 
 @pytest.fixture(scope="module")
 def tail_archive(tmp_path_factory) -> Path:
     return _pack(tmp_path_factory.mktemp("tail") / "t.tsa", long_repeats_and_noise(TAIL_N), None)
+
+
+@pytest.mark.parametrize("which, window, change, why", [
+    ("archive", 2, lambda c: [b""] + c[1:], "an empty cell where the block's payload should be"),
+    ("archive", 2, lambda c: c[:1] + [b"\x00"] + c[2:], "bytes in a cell inside a block"),
+    ("archive", 2, lambda c: [c[0][:1] + zstandard.ZstdCompressor().compress(bytes(64 << 20))] + c[1:],
+     "a stream inflating past the block's values (64 MiB of zeros)"),
+    ("tail_archive", 10, lambda c: [b""] + c[1:], "the head cell of a block with the short window emptied"),
+    ("tail_archive", 10, lambda c: c[:10] + [b"\x00"] + c[11:], "bytes in the joined short window's cell"),
+    ("tail_archive", 10, lambda c: c[:10] + [c[0]] + c[11:], "a whole payload in the joined short window's cell"),
+])
+def test_damage_in_a_block_is_one_error_not_a_traceback(request, tmp_path, which, window, change, why):
+    a = _damaged(request.getfixturevalue(which), tmp_path, change)
+    arc = tsarchive.open(a)
+    with pytest.raises(ArchiveCorrupt, match="damaged"):
+        arc.decode_windows(arc.channels[0].name, window, window + 1)
+    assert not tsarchive.verify(a).ok, why
 
 
 def test_the_short_last_window_joins_its_block_and_decodes_with_the_libraries_alone(tail_archive):
@@ -232,19 +235,6 @@ def test_every_sample_of_the_joined_tail_within_eps(tail_archive):
     a = tsarchive.open(tail_archive)
     for j, ch in enumerate(a.channels):
         assert np.all(np.abs(a.read(ch.name).astype(np.float64) - x[:, j].astype(np.float64)) <= ch.eps), ch.name
-
-
-@pytest.mark.parametrize("change, why", [
-    (lambda c: [b""] + c[1:], "the block's head cell emptied"),
-    (lambda c: c[:10] + [b"\x00"] + c[11:], "bytes in the joined short window's cell"),
-    (lambda c: c[:10] + [c[0]] + c[11:], "a whole payload in the joined short window's cell"),
-])
-def test_damage_to_a_block_with_its_tail_is_one_error(tail_archive, tmp_path, change, why):
-    a = _damaged(tail_archive, tmp_path, change)
-    arc = tsarchive.open(a)
-    with pytest.raises(ArchiveCorrupt, match="damaged"):
-        arc.decode_windows(arc.channels[0].name, 10, 11)
-    assert not tsarchive.verify(a).ok, why
 
 
 _BLOCK8 = {"id": "classic", "compressors": ["zstd"], "orders": [0], "shuffles": [False], "block": 8}

@@ -341,7 +341,7 @@ def _calls(n: int, W: int, w0: int, w1: int, per_call: int, join: int) -> list[t
     out = [(a, min(b0, a + per_call), L, 0) for a0, b0, L in batches(n, W, w0, w1) for a in range(a0, b0, per_call)]
     if join and len(out) > 1 and out[-1][2] < W and out[-1][0] % join:
         s, _, L, _ = out.pop()
-        a, b, _, _ = out.pop()               # its block's full windows end this call: it starts a block too
+        a, b, _, _ = out.pop()      # the full windows' last call: from a multiple of the block up to s
         head = s // join * join
         out += ([(a, head, W, 0)] if a < head else []) + [(head, s, W, L)]
     return out

@@ -145,7 +145,8 @@ def _reader_parts(arc, meta):
             for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
                 pick = (modes[sel] == m) & (classes[sel] == c)
                 at = sel[pick]
-                res[pick] = entropy.decode_flat(buf, offs[at], offs[at + 1], L, arc._table(meta.name, m, c)).reshape(-1, L)
+                table = arc._table(meta.name, m, c)
+                res[pick] = entropy.decode_flat(buf, offs[at], offs[at + 1], L, table).reshape(-1, L)
             yield sel, res
 
     return (arc._rows, residuals,
