@@ -201,6 +201,15 @@ def test_the_short_last_window_joins_its_block_and_decodes_with_the_libraries_al
     np.testing.assert_array_equal(library_samples(ch, rows), tsarchive.open(tail_archive).read(ch["name"]))
 
 
+@pytest.mark.parametrize("n, starts", [(16 * W, [0, 8]), (16 * W + 300, [0, 8, 16])])
+def test_without_a_short_window_to_join_nothing_changes(tmp_path, n, starts):
+    # no short window, or one that starts a block itself (window 16 of blocks of 8): both rules code the
+    # channel alike, so the config says nothing new ("tail" absent: the bytes archives had before it)
+    a = _pack(tmp_path / "n.tsa", long_repeats_and_noise(n), SMALL_BLOCK * W)
+    assert _coder(a, 0)["block"] == SMALL_BLOCK and "tail" not in _coder(a, 0)
+    assert [w for w, p in enumerate(_rows(a, 0)["residual"]) if p] == starts
+
+
 def test_the_joined_tail_takes_fewer_bytes_than_the_tail_alone(tail_archive):
     # the channel's own coder on both: the block's first differences (numpy diff) with the short window,
     # and without it plus the short window's own (as the rule before "tail" codes it)

@@ -188,7 +188,7 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
         tables = p.tables if model is not None else p.tables_plain
         coder = choose_coder(sample.windows[j], sample.nwin, grids[j], sample.W, model, sample.scales[j], p.lpc,
                              tables, blocks[j])
-        tables = coder_tables(coder, tables)
+        coder, tables = fallback.tail_rule(coder, rec.n_samples, sample.W), coder_tables(coder, tables)
         return ChannelCodec.for_tables(names[j], sample.W, grids[j], sample.scales[j], p.lpc, tables,
                                        residual_coder=coder)
     blocks = _block_sample(sample)

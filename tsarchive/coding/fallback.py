@@ -41,6 +41,7 @@ their versions).
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 from typing import Callable
 
 import numpy as np
@@ -155,6 +156,14 @@ def _per_block(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int
     size = estimate(sum(map(len, payloads + coder.encode_many(rows[1:]))), k, n_total_windows,
                     coder.get_config())
     return coder if size < beat else None
+
+
+def tail_rule(coder, n_samples: int, W: int):
+    """A channel's ``coder`` with a block coder's ``tail`` only where it changes the coding: a short last
+    window that does not start a block (elsewhere both rules code alike, and the config is shorter)."""
+    if not isinstance(coder, ClassicCoder) or coder.block == 1:
+        return coder
+    return replace(coder, tail=bool(n_samples % W and n_samples // W % coder.block))
 
 
 def classic_bytes(q: np.ndarray, level: np.ndarray) -> int:
