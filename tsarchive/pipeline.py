@@ -53,7 +53,7 @@ from .store.sidecar import stage_sidecar
 from .store.timeaxis import check_axis
 from .index import build_index
 from .store.writer import ArchiveWriter, check_target
-from .windowcodec import block_windows, encode_windows
+from .windowcodec import block_windows, encode_windows, joins_tail
 from .windows import CHUNK_SAMPLES, DEFAULT_WINDOW, batches, n_windows, spread
 from .windowchoice import choose_window
 from .workers import workers as worker_count
@@ -188,7 +188,7 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
         tables = p.tables if model is not None else p.tables_plain
         coder = choose_coder(sample.windows[j], sample.nwin, grids[j], sample.W, model, sample.scales[j], p.lpc,
                              tables, blocks[j])
-        tables = coder_tables(coder, tables)
+        coder, tables = fallback.tail_rule(coder, rec.n_samples, sample.W), coder_tables(coder, tables)
         return ChannelCodec.for_tables(names[j], sample.W, grids[j], sample.scales[j], p.lpc, tables,
                                        residual_coder=coder)
     blocks = _block_sample(sample)
@@ -323,14 +323,28 @@ def _channel_rows(x, w0: int, w1: int, n: int, codec: ChannelCodec, model) -> tu
     B = block_windows(codec)                 # a block-coded channel's calls hold whole blocks
     per_call = max(B, BATCH_SAMPLES // W // B * B)
     rows, held, worst = [], [], 0.0
-    for a0, b0, L in batches(n, W, w0, w1):
-        for a in range(a0, b0, per_call):
-            b = min(b0, a + per_call)
-            t, e, wb = encode_windows(x[(a - w0) * W:(a - w0) * W + (b - a) * L].reshape(b - a, L), a, codec, model)
-            rows.append(t)
-            held.append(e)
-            worst = max(worst, wb)
+    for a, b, L, tail in _calls(n, W, w0, w1, per_call, B if joins_tail(codec) else 0):
+        lo = (a - w0) * W
+        hi = lo + (b - a) * L
+        t, e, wb = encode_windows(x[lo:hi].reshape(b - a, L), a, codec, model, x[hi:hi + tail] if tail else None)
+        rows.append(t)
+        held.append(e)
+        worst = max(worst, wb)
     return pa.concat_tables(rows), pa.concat_tables(held), worst
+
+
+def _calls(n: int, W: int, w0: int, w1: int, per_call: int, join: int) -> list[tuple[int, int, int, int]]:
+    """Windows ``w0..w1-1`` as encoder calls ``(first, end, length, tail)`` of at most ``per_call`` windows
+    of equal length (calls start at multiples of ``per_call`` from ``w0``).  With ``join`` (the channel's
+    block, when its short last window is coded with the block its number falls in), that window, unless
+    it starts a block, comes as the ``tail`` samples of the call of its block's full windows."""
+    out = [(a, min(b0, a + per_call), L, 0) for a0, b0, L in batches(n, W, w0, w1) for a in range(a0, b0, per_call)]
+    if join and len(out) > 1 and out[-1][2] < W and out[-1][0] % join:
+        s, _, L, _ = out.pop()
+        a, b, _, _ = out.pop()      # the full windows' last call: from a multiple of the block up to s
+        head = s // join * join
+        out += ([(a, head, W, 0)] if a < head else []) + [(head, s, W, L)]
+    return out
 
 
 def _add_rows(writer, table: pa.Table, held: pa.Table, s: ChannelTally, code_bytes: int) -> None:

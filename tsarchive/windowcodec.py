@@ -13,12 +13,14 @@ the bytes is integer arithmetic, so decoding is bit-exact on any machine.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import pyarrow as pa
 
 from . import checksum, entropy
 from .channelcodec import ChannelCodec
-from .coding import classic, fallback
+from .coding import fallback
 from .codec import FRAC_SAFE_SCALE, TableSet, ae_prediction, choose_modes, reconstruct
 from .errors import ArchiveCorrupt
 from .exact import max_errors
@@ -42,12 +44,9 @@ def predict_windows(x: np.ndarray, grid: Grid, W: int, model, scale: int):
 
 
 def code_windows(modes: np.ndarray, classes: np.ndarray, res: np.ndarray, tables: TableSet,
-                 residual_coder=None, heads=None) -> list[bytes]:
+                 residual_coder=None) -> list[bytes]:
     """Each window's residuals range coded under its (predictor, class) table, in window order (or all
-    by ``residual_coder``, the channel's one coder, when given; in blocks starting at ``heads`` when the
-    coder codes blocks of windows: :func:`block_heads`)."""
-    if heads is not None:
-        return residual_coder.encode_blocks(res, heads)
+    by ``residual_coder``, the channel's one coder, when given)."""
     if residual_coder is not None:
         return residual_coder.encode_many(res)
     payloads: list[bytes] = [b""] * len(res)
@@ -58,21 +57,49 @@ def code_windows(modes: np.ndarray, classes: np.ndarray, res: np.ndarray, tables
     return payloads
 
 
-def encode_windows(x: np.ndarray, first_window: int, codec: ChannelCodec, model=None
+@dataclass(frozen=True)
+class _Batch:
+    """Equal-length windows from ``first`` on, between the samples and their rows: grid integers ``q``,
+    levels, codes, predictors, residuals, decoded samples ``xh`` and what the rows say of them."""
+
+    first: int
+    q: np.ndarray
+    lv: np.ndarray
+    codes: np.ndarray
+    modes: np.ndarray
+    classes: np.ndarray
+    res: np.ndarray
+    sets: np.ndarray
+    xh: np.ndarray
+    pos: np.ndarray
+    bits: np.ndarray
+    score: np.ndarray
+    worst: np.ndarray
+
+
+def encode_windows(x: np.ndarray, first_window: int, codec: ChannelCodec, model=None, tail=None
                    ) -> tuple[pa.Table, pa.Table, float]:
     """Window rows for ``windows.parquet`` from a batch of equal-length windows ``x`` (their first is
     window ``first_window``), the rows of those with verbatim samples (exceptions), and the batch's
-    worst error in float64.  ``model`` (a trained autoencoder, pack side) gives the codes; the inverse
-    is :func:`decode_windows`."""
+    worst error in float64.  ``tail``: the channel's short last window (its samples, 1-D) right after
+    ``x``, where its coder joins it to the block of ``x``'s last windows (:func:`joins_tail`): its row
+    follows theirs and the block is one payload.  ``model`` (a trained autoencoder, pack side) gives
+    the codes; the inverse is :func:`decode_windows`."""
+    parts = [_predicted(x, first_window, codec, model)]
+    if tail is not None:
+        parts.append(_predicted(tail[None, :], first_window + len(x), codec, model))
+    payloads = _payloads(parts, codec)
+    out = [_rows(p, codec, payloads[p.first - first_window:p.first - first_window + len(p.q)]) for p in parts]
+    return (pa.concat_tables([t for t, _ in out]), pa.concat_tables([e for _, e in out]),
+            max(float(p.worst.max(initial=0.0)) for p in parts))
+
+
+def _predicted(x: np.ndarray, first: int, codec: ChannelCodec, model) -> _Batch:
+    """Equal-length windows ``x`` quantized, predicted and decoded again, with their worst errors and scores."""
     nb, L = x.shape
-    grid, name, tables = codec.grid, codec.name, codec.table_set
+    grid = codec.grid
     q, pos, bits, lv, codes, ae = predict_windows(x, grid, codec.window, model, codec.scale)
-    modes, classes, res, sets = choose_modes(q, Context(lv, ae, codec.lpc), tables)
-    heads = block_heads(codec, np.arange(first_window, first_window + nb), L)
-    payloads = code_windows(modes, classes, res if heads is None else fallback.joined(q, res, heads), tables,
-                            codec.residual_coder, heads)
-    if codec.residual_coder is not None:      # no table is named: the column stays constant (and tiny)
-        classes = np.zeros_like(classes)
+    modes, classes, res, sets = choose_modes(q, Context(lv, ae, codec.lpc), codec.table_set)
     xh = grid.dequantize(q.ravel(), pos, bits).reshape(nb, L)
     x64 = np.asarray(x).astype(np.float64)
     with np.errstate(invalid="ignore", over="ignore"):
@@ -80,29 +107,50 @@ def encode_windows(x: np.ndarray, first_window: int, codec: ChannelCodec, model=
         preview = grid.to_out(grid.values(lv[:, None] + np.zeros((1, L), np.int64) if ae is None else ae))
         # peak, not RMS: a short transient must not be diluted by the rest of its window
         score = np.where(fin, np.abs(x64 - preview.astype(np.float64)), 0.0).max(axis=1, initial=0.0)
-    wpos = pos // L
     worst = max_errors(np.ma.getdata(x), np.ma.getdata(xh), fin)   # exact (rounded up), integers in integers
+    return _Batch(first, q, lv, codes, modes, classes, res, sets, xh, pos, bits, score, worst)
+
+
+def _payloads(parts: list[_Batch], codec: ChannelCodec) -> list[bytes]:
+    """The ``residual`` cells of consecutive batches: window by window, or a block-coded channel's blocks
+    (:func:`block_heads`) as one stream each (:func:`tsarchive.coding.fallback.joined`)."""
+    lens = np.concatenate([np.full(len(p.q), p.q.shape[1]) for p in parts])
+    heads = block_heads(codec, np.arange(parts[0].first, parts[0].first + len(lens)), lens)
+    if heads is None:
+        return [c for p in parts for c in code_windows(p.modes, p.classes, p.res, codec.table_set,
+                                                       codec.residual_coder)]
+    stream = fallback.joined(np.concatenate([p.q.reshape(-1) for p in parts]),
+                             np.concatenate([p.lv for p in parts]), lens, heads)
+    return codec.residual_coder.encode_blocks(stream, lens, heads)
+
+
+def _rows(p: _Batch, codec: ChannelCodec, payloads: list[bytes]) -> tuple[pa.Table, pa.Table]:
+    """A batch's window rows and the rows of its verbatim samples (exceptions)."""
+    nb, L = p.q.shape
+    windows = np.arange(p.first, p.first + nb, dtype=np.int32)
     rows = pa.table({
-        "channel": [name] * nb,
-        "window": np.arange(first_window, first_window + nb, dtype=np.int32),
-        "mode": modes.astype(np.int8),
-        "lpc_set": sets.astype(np.int8),
-        "table": classes.astype(np.int8),
-        "level": lv,
-        "code": list(codes.astype(np.int8)),
+        "channel": [codec.name] * nb,
+        "window": windows,
+        "mode": p.modes.astype(np.int8),
+        "lpc_set": p.sets.astype(np.int8),
+        # a channel with one coder names no table: the column stays constant (and tiny)
+        "table": (p.classes if codec.residual_coder is None else np.zeros_like(p.classes)).astype(np.int8),
+        "level": p.lv,
+        "code": list(p.codes.astype(np.int8)),
         "residual": payloads,
-        "crc32": np.array([checksum.window_crc(xh[i]) for i in range(nb)], dtype=np.uint32),
-        "worst": worst_steps(worst, grid.eps),
-        "score": score_bf16(score),
+        "crc32": np.array([checksum.window_crc(p.xh[i]) for i in range(nb)], dtype=np.uint32),
+        "worst": worst_steps(p.worst, codec.grid.eps),
+        "score": score_bf16(p.score),
     }, schema=S.windows_schema(True))
+    wpos = p.pos // L
     held = np.unique(wpos)
     exceptions = pa.table({
-        "channel": [name] * len(held),
-        "window": (first_window + held).astype(np.int32),
-        "pos": [(pos[wpos == i] % L).astype(np.int32) for i in held],
-        "bits": [bits[wpos == i] for i in held],
+        "channel": [codec.name] * len(held),
+        "window": (p.first + held).astype(np.int32),
+        "pos": [(p.pos[wpos == i] % L).astype(np.int32) for i in held],
+        "bits": [p.bits[wpos == i] for i in held],
     }, schema=S.EXCEPTIONS_SCHEMA)
-    return rows, exceptions, float(worst.max(initial=0.0))
+    return rows, exceptions
 
 
 def worst_steps(worst: np.ndarray, eps: float) -> np.ndarray:
@@ -145,14 +193,9 @@ def decode_windows(rows: pa.Table, lens: np.ndarray, held: dict, codec: ChannelC
     missing = None if grid.missing is None else np.zeros(len(out), dtype=bool)
     offs = np.concatenate([[0], np.cumsum(lens)])
     bad = []
-    for L in np.unique(lens):
-        sel = np.flatnonzero(lens == L)
-        res = np.empty((len(sel), int(L)), dtype=np.int64)
-        for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
-            pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
-            at = sel[pick]
-            res[pick] = window_residuals(codec, m, c, pbuf, poffs[at], poffs[at + 1], int(L), windows[at], level[at])
-        ae = code_prediction(codec, codes[sel], level[sel], int(L))
+    for sel, res in row_residuals(codec, modes, classes, pbuf, poffs, lens, windows, level):
+        L = res.shape[1]
+        ae = code_prediction(codec, codes[sel], level[sel], L)
         x = grid.decode(reconstruct(modes[sel], Context(level[sel], ae, codec.lpc, lpc_set[sel]), res))
         _put_verbatim(x, windows[sel], held, offs[sel], missing, codec)
         got = np.array([checksum.window_crc(row) for row in x], dtype=np.int64)
@@ -167,16 +210,34 @@ def decode_windows(rows: pa.Table, lens: np.ndarray, held: dict, codec: ChannelC
     return (out if missing is None else np.ma.MaskedArray(out, mask=missing)), bad
 
 
-def window_residuals(codec: ChannelCodec, mode: int, cls: int, buf: np.ndarray, starts: np.ndarray,
-                     ends: np.ndarray, L: int, windows: np.ndarray, level: np.ndarray) -> np.ndarray:
-    """Residuals (k, ``L``) of consecutive ``windows`` of predictor ``mode`` and class ``cls`` (levels
-    ``level``) from their cells ``buf[starts:ends]`` of the ``residual`` column; a block-coded channel's
-    rows must cover whole blocks."""
-    heads = block_heads(codec, windows, L)
-    coder = codec.coder(mode, cls)
-    if heads is None:        # strict=False: the per-window CRC catches what a range code cannot
-        return coder.decode_flat(buf, starts, ends, L, strict=False).reshape(-1, L)
-    return fallback.unjoined(coder.decode_blocks(buf, starts, ends, L, heads).reshape(-1, L), level, heads)
+def row_residuals(codec: ChannelCodec, modes: np.ndarray, classes: np.ndarray, buf: np.ndarray,
+                  cells: np.ndarray, lens: np.ndarray, windows: np.ndarray, level: np.ndarray
+                  ) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Residuals of consecutive window rows (predictors ``modes``, classes ``classes``, ``lens`` samples
+    and levels ``level`` each; row i's cell is ``buf[cells[i]:cells[i + 1]]`` of the ``residual``
+    column) as ``(rows, residuals (k, L))`` per window length L.  A block-coded channel's rows must
+    cover whole blocks (:func:`block_span`), its short last window with its block where the coder
+    joins it: the blocks are decoded once, across both lengths."""
+    lens = np.asarray(lens, np.int64)
+    heads = block_heads(codec, windows, lens)
+    flat = None
+    if heads is not None:
+        values = codec.residual_coder.decode_blocks(buf, cells[:-1], cells[1:], lens, heads)
+        flat = fallback.unjoined(values, level, lens, heads)
+    offs = np.concatenate([[0], np.cumsum(lens)])
+    out = []
+    for L in np.unique(lens).tolist():
+        sel = np.flatnonzero(lens == L)
+        if flat is not None:
+            out.append((sel, flat[offs[sel][:, None] + np.arange(L)]))
+            continue
+        res = np.empty((len(sel), L), dtype=np.int64)
+        for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
+            pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
+            at = sel[pick]          # strict=False: the per-window CRC catches what a range code cannot
+            res[pick] = codec.coder(m, c).decode_flat(buf, cells[at], cells[at + 1], L, strict=False).reshape(-1, L)
+        out.append((sel, res))
+    return out
 
 
 def block_windows(codec: ChannelCodec) -> int:
@@ -184,16 +245,24 @@ def block_windows(codec: ChannelCodec) -> int:
     return getattr(codec.residual_coder, "block", 1)
 
 
-def block_heads(codec: ChannelCodec, windows: np.ndarray, L: int) -> np.ndarray | None:
-    """Which of consecutive ``windows`` (``L`` samples each) start a payload of a block-coded channel, or
-    None for a channel whose every window is its own payload."""
-    B = block_windows(codec)
-    return None if B == 1 else classic.block_heads(windows, B, L == codec.window)
+def joins_tail(codec: ChannelCodec) -> bool:
+    """Whether the channel's short last window is coded with the block its number falls in (a classic
+    coder's ``tail``), not as a block of its own."""
+    return getattr(codec.residual_coder, "tail", False)
+
+
+def block_heads(codec: ChannelCodec, windows: np.ndarray, lens) -> np.ndarray | None:
+    """Which of consecutive ``windows`` (``lens`` samples each, or all) start a payload of a block-coded
+    channel, or None for a channel whose every window is its own payload."""
+    if block_windows(codec) == 1:
+        return None
+    return codec.residual_coder.block_heads(windows, np.asarray(lens) != codec.window)
 
 
 def block_span(codec: ChannelCodec, w0: int, w1: int, n_windows: int) -> tuple[int, int]:
     """Windows ``w0..w1-1`` (clipped to the channel's ``n_windows``) widened to whole blocks: what must be
-    decoded to give them (random access costs one block)."""
+    decoded to give them (random access costs one block; the last block runs to the channel's last window,
+    so it holds the short last window that may be coded with it)."""
     B = block_windows(codec)
     w0, w1 = max(w0, 0), min(w1, n_windows)
     if B == 1 or w1 <= w0:

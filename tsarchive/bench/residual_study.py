@@ -116,14 +116,8 @@ def channel_streams(archive: Path) -> dict[str, ChannelStreams]:
         code = codes(t, len(windows))
         q_parts: list = [None] * len(windows)
         r_parts: list = [None] * len(windows)
-        for L in np.unique(lens):
-            sel = np.flatnonzero(lens == L)
-            res = np.empty((len(sel), int(L)), np.int64)
-            for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
-                pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
-                at = sel[pick]
-                res[pick] = residuals(m, c, pbuf, poffs[at], poffs[at + 1], int(L), windows[at],
-                                      level[at]).reshape(len(pick), int(L))
+        for sel, res in residuals(modes, classes, pbuf, poffs, lens, windows, level):
+            L = res.shape[1]
             q = reconstruct(modes[sel], Context(level[sel], prediction(code[sel], level[sel], int(L)), lpc,
                                                 sets[sel]), res)
             for k, i in enumerate(sel.tolist()):           # back in window order (the short last window too)
@@ -137,16 +131,25 @@ def _reader_parts(arc, meta):
     """(rows, residual decoder, autoencoder prediction, LPC sets) of a channel, from the reader of
     either layout: the codec-contract one (``Archive.codec``) or the earlier one (``Archive._table``)."""
     if hasattr(arc, "codec"):
-        from tsarchive.windowcodec import code_prediction, window_residuals
+        from tsarchive.windowcodec import code_prediction, row_residuals
 
         codec = arc.codec(meta.name)
-        return (arc.rows,
-                lambda m, c, buf, a, b, L, windows, level: window_residuals(codec, m, c, buf, a, b, L, windows, level),
+        return (arc.rows, lambda *rows: row_residuals(codec, *rows),
                 lambda codes, level, L: code_prediction(codec, codes, level, L), codec.lpc)
     from tsarchive import entropy
 
-    return (arc._rows,
-            lambda m, c, buf, a, b, L, *_: entropy.decode_flat(buf, a, b, L, arc._table(meta.name, m, c)),
+    def residuals(modes, classes, buf, offs, lens, *_):
+        for L in np.unique(lens).tolist():
+            sel = np.flatnonzero(lens == L)
+            res = np.empty((len(sel), L), np.int64)
+            for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
+                pick = (modes[sel] == m) & (classes[sel] == c)
+                at = sel[pick]
+                table = arc._table(meta.name, m, c)
+                res[pick] = entropy.decode_flat(buf, offs[at], offs[at + 1], L, table).reshape(-1, L)
+            yield sel, res
+
+    return (arc._rows, residuals,
             lambda codes, level, L: arc._ae(meta, codes, level, L) if arc.decoder is not None else None, meta.lpc)
 
 

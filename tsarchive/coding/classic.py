@@ -25,10 +25,13 @@ specified by each stream format.
 
 Blocks: a coder with ``block`` B > 1 codes runs of consecutive windows as one
 payload (:meth:`ClassicCoder.encode_blocks`: a block starts at each window
-number that is a multiple of B, and at a channel's short last window), so the
-compressors reach back over the whole block; the payload sits in the block's
-first window's cell and the others are empty.  ``block`` is stored in the
-config only when above 1 (absent: one window a payload).
+number that is a multiple of B), so the compressors reach back over the whole
+block; the payload sits in the block's first window's cell and the others are
+empty.  A channel's short last window belongs to the block its number falls
+in when the coder has ``tail`` (config ``"tail": 1``, what the packer writes);
+without it (archives written before) the short window is a block of its own
+(:meth:`ClassicCoder.block_heads`).  ``block`` is stored in the config only
+when above 1 (absent: one window a payload), ``tail`` only when set.
 
 Payload: one header byte ``order & 3 | compressor << 2 | shuffle << 4 | log2(width) << 5``
 (order -1 is 3; compressor 0 zstd, 1 xz, 2 bzip2; a zero-length window is ``b""``), then the
@@ -64,6 +67,7 @@ MAX_N = 1 << 24           # longest window (values) a channel's reader decodes: 
 MAX_BLOCK = 1 << 12       # most windows one payload may hold (a block; the reader caps a block's values at MAX_N too)
 _WIDTHS = {1: np.int8, 2: np.int16, 4: np.int32, 8: np.int64}
 _XZ_PRESET = 9 | lzma.PRESET_EXTREME
+_CONFIG_KEYS = {"id", "compressors", "orders", "shuffles", "block", "tail"}
 
 
 def difference(q: np.ndarray, order: int) -> np.ndarray:
@@ -132,13 +136,6 @@ def _decompress(blob: bytes, kind: int, size: int) -> bytes:
         raise ArchiveCorrupt("a classic-coded window's compressed stream is damaged; the archive is damaged") from None
 
 
-def block_heads(windows, block: int, full: bool) -> np.ndarray:
-    """Which of consecutive window numbers ``windows`` start a block of ``block`` windows: each multiple of
-    ``block``; a channel's short last window (``full`` false) is a block of its own."""
-    w = np.asarray(windows, np.int64)
-    return w % block == 0 if full else np.ones(len(w), bool)
-
-
 def _cells(buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, n: int) -> memoryview:
     """``buf`` as bytes once the cells ``starts``..``ends`` (int64) are checked to lie inside it and the
     window length ``n`` within ``MAX_N``."""
@@ -148,6 +145,15 @@ def _cells(buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, n: int) -> mem
                                                      or ends.max() > len(buf))):
         raise ArchiveCorrupt("classic-coded windows point outside their column; the archive is damaged")
     return memoryview(np.ascontiguousarray(buf, np.uint8))
+
+
+def window_offsets(lens, k: int) -> np.ndarray:
+    """Where each of ``k`` windows of ``lens`` values (one length or one per window) starts in their flat
+    values, and the end (k + 1 int64); a length outside 0..``MAX_N`` is damage."""
+    lens = np.broadcast_to(np.asarray(lens, np.int64), (k,))
+    if k and not (0 <= lens.min() and lens.max() <= MAX_N):
+        raise ArchiveCorrupt(f"a window length is outside 0..{MAX_N}; the archive is damaged")
+    return np.concatenate([[0], np.cumsum(lens)]).astype(np.int64)
 
 
 def expect_id(config: dict, coder_id: str) -> None:
@@ -169,6 +175,7 @@ class ClassicCoder:
     orders: tuple[int, ...] = ORDERS
     shuffles: tuple[bool, ...] = SHUFFLES
     block: int = 1
+    tail: bool = False      # the short last window joins its block (else, as before it, a block of its own)
     id: ClassVar[str] = "classic"
 
     def __post_init__(self) -> None:
@@ -182,6 +189,9 @@ class ClassicCoder:
         if type(self.block) is not int or not 1 <= self.block <= MAX_BLOCK:
             raise BadInput(f"a classic coder's block must be a whole number of windows in 1..{MAX_BLOCK}; "
                            f"got {str(self.block)[:20]}")
+        if type(self.tail) is not bool or (self.tail and self.block == 1):
+            raise BadInput("a classic coder's tail is true or false, and true only with a block of several windows; "
+                           f"got {str(self.tail)[:20]} with block {self.block}")
 
     def encode(self, values) -> bytes:
         x = np.asarray(values)
@@ -244,39 +254,52 @@ class ClassicCoder:
             out[w * n:(w + 1) * n] = self.decode(view[a:b], n)
         return out
 
-    def encode_blocks(self, windows, heads) -> list[bytes]:
-        """One payload per block of consecutive ``windows`` (k, n): a block starts at each true ``heads[i]``
-        (``heads[0]`` must be one) and its windows' values, concatenated, are coded as one; the block's
-        first window holds the payload, its other windows ``b""``."""
+    def block_heads(self, windows, short) -> np.ndarray:
+        """Which of consecutive window numbers ``windows`` start a block: each multiple of ``block``, and a
+        channel's short last window (``short``: true for it, per window or for all) unless ``tail`` joins
+        it to the block its number falls in."""
+        w = np.asarray(windows, np.int64)
+        return (w % self.block == 0) | (np.asarray(short, bool) & (not self.tail))
+
+    def encode_blocks(self, values, lens, heads) -> list[bytes]:
+        """One payload per block of consecutive windows, whose ``lens`` values each (one length or one per
+        window; a channel's short last window may end the last block) are ``values`` (flat, in window
+        order): a block starts at each true ``heads[i]`` (``heads[0]`` must be one) and its windows'
+        values are coded as one; the block's first window holds the payload, its other windows ``b""``."""
+        heads = np.asarray(heads, bool)
+        offs = window_offsets(lens, len(heads))
         starts = np.flatnonzero(heads).tolist()
-        if not starts or starts[0] != 0:
-            raise ValueError("a batch of block-coded windows must start a block")
-        out = [b""] * len(windows)
-        for a, b in zip(starts, starts[1:] + [len(windows)]):
-            out[a] = self.encode(np.asarray(windows[a:b]).reshape(-1))
+        if not starts or starts[0] != 0 or offs[-1] != len(values):
+            raise ValueError("a batch of block-coded windows must start a block and hold its windows' values")
+        out = [b""] * len(heads)
+        for a, b in zip(starts, starts[1:] + [len(heads)]):
+            out[a] = self.encode(np.asarray(values[offs[a]:offs[b]]))
         return out
 
-    def decode_blocks(self, buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, n: int, heads) -> np.ndarray:
+    def decode_blocks(self, buf: np.ndarray, starts: np.ndarray, ends: np.ndarray, lens, heads) -> np.ndarray:
         """Inverse of :meth:`encode_blocks` over a Parquet binary column (``buf``, ``starts``, ``ends`` as
-        :meth:`decode_flat`): windows of ``n`` values each as one flat int64 array.  A window inside a block
-        with bytes, a block longer than ``block`` windows or than ``MAX_N`` values, or windows that do not
-        start a block, are damage (:class:`ArchiveCorrupt`); nothing is inflated past the block's values."""
+        :meth:`decode_flat`): windows of ``lens`` values each (one length or one per window) as one flat
+        int64 array.  A window inside a block with bytes, a block longer than ``block`` windows or than
+        ``MAX_N`` values, or windows that do not start a block, are damage (:class:`ArchiveCorrupt`);
+        nothing is inflated past the block's values."""
         starts, ends = np.asarray(starts, np.int64), np.asarray(ends, np.int64)
         heads = np.asarray(heads, bool)
         if len(heads) != len(starts):
             raise BadInput(f"{len(starts)} cells but {len(heads)} block starts; give one per cell")
+        offs = window_offsets(lens, len(heads))
         first = np.flatnonzero(heads)
         count = np.diff(first, append=len(heads))
+        values = np.diff(offs[np.append(first, len(heads))])      # values of each block
         if len(heads) and (not heads[0] or np.any(ends[~heads] != starts[~heads])):
             raise ArchiveCorrupt("classic-coded windows inside a block have bytes of their own, or a block "
                                  "lost its first window; the archive is damaged")
-        if len(count) and (int(count.max()) > self.block or int(count.max()) * n > MAX_N):
+        if len(count) and (int(count.max()) > self.block or int(values.max()) > MAX_N):
             raise ArchiveCorrupt(f"a classic-coded block holds more than {self.block} windows or {MAX_N} values; "
                                  "the archive is damaged")
-        view = _cells(buf, starts, ends, n)
-        out = np.empty(len(heads) * n, np.int64)
-        for i, k in zip(first.tolist(), count.tolist()):
-            out[i * n:(i + k) * n] = self.decode(view[starts[i]:ends[i]], k * n)
+        view = _cells(buf, starts, ends, 0)
+        out = np.empty(int(offs[-1]), np.int64)
+        for i, k, n in zip(first.tolist(), count.tolist(), values.tolist()):
+            out[offs[i]:offs[i + k]] = self.decode(view[starts[i]:ends[i]], n)
         return out
 
     def cost_bits(self, values) -> float:
@@ -286,17 +309,28 @@ class ClassicCoder:
     def get_config(self) -> dict:
         d = {"id": self.id, "compressors": list(self.compressors), "orders": list(self.orders),
              "shuffles": list(self.shuffles)}
-        return d if self.block == 1 else {**d, "block": self.block}
+        if self.block > 1:
+            d["block"] = self.block
+        return {**d, "tail": 1} if self.tail else d
 
     @classmethod
     def from_config(cls, config: dict) -> "ClassicCoder":
-        """The coder of ``config``; ``orders`` and ``shuffles`` are optional (every one when absent), and
-        ``block`` (1 when absent: every window its own payload, as archives written before blocks)."""
+        """The coder of ``config``; ``orders`` and ``shuffles`` are optional (every one when absent),
+        ``block`` (1 when absent: every window its own payload, as archives written before blocks) and
+        ``tail`` (only 1 when present; absent: a short last window is a block of its own, as archives
+        written before it).  A key this version does not know is refused: its rule is unknown here."""
         expect_id(config, cls.id)
+        unknown = sorted(set(config) - _CONFIG_KEYS)
+        if unknown:
+            raise ArchiveCorrupt(f"the classic coder's {', '.join(map(str, unknown))[:60]} is unknown to this "
+                                 "tsarchive version; upgrade tsarchive to read the archive")
+        tail = config.get("tail")
+        if tail is not None and (type(tail) is not int or tail != 1):
+            raise ArchiveCorrupt(f"the classic coder's tail is {str(tail)[:20]}, not 1; the archive is damaged")
         try:
             return cls(tuple(str(c) for c in config.get("compressors", COMPRESSORS)),
                        tuple(int(o) for o in config.get("orders", ORDERS)),
                        tuple(f if isinstance(f, bool) else str(f) for f in config.get("shuffles", SHUFFLES)),
-                       config.get("block", 1))
+                       config.get("block", 1), tail is not None)
         except BadInput as exc:
             raise ArchiveCorrupt(f"{exc}; the archive is damaged") from None

@@ -15,7 +15,8 @@ and "prev2" of the bench's classic baselines).
 Each window is coded alone, or (``"block": B``) each run of ``B`` consecutive
 windows as one stream (:func:`joined`: the block's first differences, so a
 repeat longer than a window is within the compressor's reach; a window then
-decodes with its block); every window's CRC is checked as every window's.
+decodes with its block; the channel's short last window ends the block its
+number falls in, ``"tail": 1``); every window's CRC is checked as every window's.
 
 :func:`classic_choice` decides on the packer's spread sample of the channel's
 windows, the one the other coders are measured on (:func:`tsarchive.encoder.choose_coder`):
@@ -40,6 +41,7 @@ their versions).
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 from typing import Callable
 
 import numpy as np
@@ -47,7 +49,7 @@ import numpy as np
 from tsarchive.predict import Context, get_predictor
 from tsarchive.windows import spread
 
-from .classic import MAX_BLOCK, ClassicCoder
+from .classic import MAX_BLOCK, ClassicCoder, window_offsets
 
 PREV = 0                    # the predictor of every window of a classic channel (predict.PREDICTORS)
 SETTING_SAMPLES = 1 << 16   # bound on the samples the combination is chosen on
@@ -68,27 +70,39 @@ def prev_residuals(q: np.ndarray, level: np.ndarray) -> np.ndarray:
     return get_predictor(PREV).residuals(q, Context(level))
 
 
-def joined(q: np.ndarray, res: np.ndarray, heads: np.ndarray) -> np.ndarray:
-    """What a block codes: the previous-sample residuals ``res`` of windows ``q`` (k, L), except that a
-    window not starting a block (``heads``) takes its first sample against the previous window's last
-    (not against its level): one steady stream of first differences over the block, whose running sum
-    from the block's first level is the samples on the grid."""
-    out = np.array(res, dtype=np.int64)
-    inner = np.flatnonzero(~np.asarray(heads, bool))
+def joined(q: np.ndarray, level: np.ndarray, lens, heads: np.ndarray) -> np.ndarray:
+    """What the blocks code, flat: the samples on the grid ``q`` (flat) of consecutive windows of ``lens``
+    samples each (one length, or one per window: a channel's short last window may end a block) as one
+    steady stream of first differences per block, its first sample against the block's first window's
+    ``level`` (the previous-sample residuals, except that a window inside a block takes its first sample
+    against the previous window's last); its running sum from that level is the samples again."""
+    heads = np.asarray(heads, bool)
+    first = window_offsets(lens, len(heads))[np.flatnonzero(heads)]
+    q = np.asarray(q, np.int64)
+    out = np.empty(len(q), np.int64)
     with np.errstate(over="ignore"):
-        out[inner, 0] = q[inner, 0] - q[inner - 1, -1]
+        out[1:] = np.diff(q)
+        out[first] = q[first] - np.asarray(level, np.int64)[heads]
     return out
 
 
-def unjoined(values: np.ndarray, level: np.ndarray, heads: np.ndarray) -> np.ndarray:
-    """Inverse of :func:`joined`: the previous-sample residuals of windows (k, L) whose block streams
-    are ``values`` (k, L), given each window's ``level`` (wrap-around int64, so any values undo)."""
-    first = np.flatnonzero(np.asarray(heads, bool)).tolist()
-    q = np.empty(values.shape, np.int64)
+def unjoined(values: np.ndarray, level: np.ndarray, lens, heads: np.ndarray) -> np.ndarray:
+    """Inverse of :func:`joined`: the previous-sample residuals (flat) of windows of ``lens`` samples
+    each whose block streams are ``values`` (flat), given each window's ``level`` (wrap-around int64,
+    so any values undo)."""
+    heads = np.asarray(heads, bool)
+    offs = window_offsets(lens, len(heads))
+    first = offs[np.flatnonzero(heads)].tolist()
+    q = np.empty(len(values), np.int64)
     with np.errstate(over="ignore"):
-        for a, b in zip(first, first[1:] + [len(values)]):
-            q[a:b] = (np.int64(level[a]) + np.cumsum(values[a:b].reshape(-1), dtype=np.int64)).reshape(b - a, -1)
-    return prev_residuals(q, level)
+        for a, b, lv in zip(first, first[1:] + [len(values)], np.asarray(level, np.int64)[heads].tolist()):
+            q[a:b] = np.int64(lv) + np.cumsum(values[a:b], dtype=np.int64)
+    out = np.empty(len(values), np.int64)
+    for n in np.unique(offs[1:] - offs[:-1]).tolist():      # windows of each length through the predictor
+        sel = np.flatnonzero(offs[1:] - offs[:-1] == n)
+        at = offs[sel][:, None] + np.arange(n)
+        out[at] = prev_residuals(q[at], np.asarray(level)[sel])
+    return out
 
 
 def block_windows(W: int) -> int:
@@ -131,16 +145,25 @@ def _per_window(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: in
 def _per_block(q: np.ndarray, level: np.ndarray, n_total_windows: int, beat: int) -> ClassicCoder | None:
     """The block coder of one combination, chosen on the first block of windows ``q`` (m, W) and measured
     on all of them, if its estimate is below ``beat``; else None."""
-    B = block_windows(q.shape[1])
-    res = joined(q, prev_residuals(q, level), np.arange(len(q)) % B == 0)
-    rows = [res[i:i + B].reshape(-1) for i in range(0, len(res), B)]
-    first = len(rows[0]) // q.shape[1]
+    k, W = q.shape
+    B = block_windows(W)
+    stream = joined(q.reshape(-1), level, W, np.arange(k) % B == 0)
+    rows = [stream[i * W:(i + B) * W] for i in range(0, k, B)]
+    first = len(rows[0]) // W
     coder, payloads = _setting(rows[:1], lambda size: estimate(size, first, n_total_windows, {}) < beat, B)
     if coder is None:
         return None
-    size = estimate(sum(map(len, payloads + coder.encode_many(rows[1:]))), len(res), n_total_windows,
+    size = estimate(sum(map(len, payloads + coder.encode_many(rows[1:]))), k, n_total_windows,
                     coder.get_config())
     return coder if size < beat else None
+
+
+def tail_rule(coder, n_samples: int, W: int):
+    """A channel's ``coder`` with a block coder's ``tail`` only where it changes the coding: a short last
+    window that does not start a block (elsewhere both rules code alike, and the config is shorter)."""
+    if not isinstance(coder, ClassicCoder) or coder.block == 1:
+        return coder
+    return replace(coder, tail=bool(n_samples % W and n_samples // W % coder.block))
 
 
 def classic_bytes(q: np.ndarray, level: np.ndarray) -> int:
@@ -177,7 +200,7 @@ def _setting(res, promising: Callable[[int], bool], block: int = 1) -> tuple[Cla
     name, order, shuf = best()
     if not promising(size((name, order, shuf))):
         return None, []
-    return ClassicCoder((name,), (order,), (shuf,), block), tried[(name, order, shuf)]
+    return ClassicCoder((name,), (order,), (shuf,), block, block > 1), tried[(name, order, shuf)]
 
 
 def _rank(key: tuple[str, int, bool]) -> tuple[int, int, bool]:
