@@ -113,6 +113,8 @@ def classic() -> None:
     src.unlink()
     ids = coder_ids(out)
     assert ids[0] == "classic" and ids[1] != "classic", f"the classic archive does not freeze the coder: {ids}"
+    from tsarchive.store.binding import read_manifest
+    assert read_manifest(out)["channels"][0]["coder"].get("tail") == 1, "the short last window does not join its block"
     _expect(tsarchive.open(out), "expected_classic.npz")
 
 
