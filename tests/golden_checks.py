@@ -78,3 +78,33 @@ def coders_bit_for_bit(here: Path, arc_path: Path, index_member: str) -> None:
     arc = decodes_as_expected(arc_path, here / "expected_coders.npz")
     assert index_member in arc.manifest["members"]
     assert len(look.unusual(arc, arc.channels[1].name, k=3).rows) == 3
+
+
+def lean6_windows(arc: Path, manifest: dict, modes: set[int]) -> None:
+    """windows.parquet of the format-6 and format-7 golden archives (the rig log packed in windows of 32): the
+    columns by name and type as DEVELOPERS.md lists them, no statistics, the row groups as the manifest's
+    ``groups`` map them, the 20-byte facts decoded with numpy (``modes`` the predictors frozen, more than one
+    LPC set), and the compact manifest (shared facts once, eps in the grid only, no step = 2 eps)."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    assert [(f.name, str(f.type), f.nullable) for f in pq.read_schema(arc / "windows.parquet").remove_metadata()] == [
+        ("facts", "fixed_size_binary[20]", False), ("code", "list<element: int8>", True),
+        ("residual", "binary", False)]
+    meta = pq.ParquetFile(arc / "windows.parquet").metadata
+    rows = [meta.row_group(g).num_rows for g in range(meta.num_row_groups)]
+    # 264 windows a channel: a full row group of 256 each, and one group of the 4 x 8 left over
+    assert sorted(zip(map(tuple, manifest["groups"]), rows)) == [
+        ((0, 0), 256), ((0, 256), 32), ((1, 0), 256), ((2, 0), 256), ((3, 0), 256)]
+    assert not any(meta.row_group(g).column(c).is_stats_set for g in range(len(rows)) for c in range(3))
+    layout = np.dtype([("crc32", "<u4"), ("level", "<i8"), ("score", "<f4"), ("worst", "u1"), ("table", "i1"),
+                       ("lpc_set", "i1"), ("mode", "i1")])
+    col = pq.read_table(arc / "windows.parquet", columns=["facts"])["facts"].combine_chunks()
+    assert col.type == pa.binary(20)
+    facts = np.frombuffer(col.buffers()[1], np.uint8)[:20 * len(col)].view(layout)
+    assert set(facts["mode"].tolist()) == modes
+    assert len(set(facts["lpc_set"].tolist())) >= 2
+    assert manifest["channel_defaults"]["rate"] == 50.0 and manifest["channel_defaults"]["n_samples"] == 8440
+    assert all("eps" not in c and "rate" not in c for c in manifest["channels"])
+    assert any(c["grid"]["kind"] == "step" and "step" not in c["grid"] for c in manifest["channels"])
+    format_4_fields(manifest)

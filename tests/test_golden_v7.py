@@ -11,8 +11,6 @@ import json
 from pathlib import Path
 
 import golden_checks
-import numpy as np
-import pyarrow as pa
 import pyarrow.parquet as pq
 import zstandard
 
@@ -68,29 +66,9 @@ def test_golden_layout_and_manifest_are_version_7():
     for name, m in manifest["members"].items():
         assert m == {"bytes": (ARC / name).stat().st_size,
                      "sha256": hashlib.sha256((ARC / name).read_bytes()).hexdigest()}
-    # the columns, by name and type as DEVELOPERS.md lists them (formats 6 and 7), no statistics
-    assert [(f.name, str(f.type), f.nullable) for f in pq.read_schema(ARC / S.WINDOWS).remove_metadata()] == [
-        ("facts", "fixed_size_binary[20]", False), ("code", "list<element: int8>", True),
-        ("residual", "binary", False)]
-    meta = pq.ParquetFile(ARC / S.WINDOWS).metadata
-    rows = [meta.row_group(g).num_rows for g in range(meta.num_row_groups)]
-    # 264 windows a channel: a full row group of 256 each, and one group of the 4 x 8 left over
-    assert sorted(zip(map(tuple, manifest["groups"]), rows)) == [
-        ((0, 0), 256), ((0, 256), 32), ((1, 0), 256), ((2, 0), 256), ((3, 0), 256)]
-    assert not any(meta.row_group(g).column(c).is_stats_set for g in range(len(rows)) for c in range(3))
-    layout = np.dtype([("crc32", "<u4"), ("level", "<i8"), ("score", "<f4"), ("worst", "u1"), ("table", "i1"),
-                       ("lpc_set", "i1"), ("mode", "i1")])
-    col = pq.read_table(ARC / S.WINDOWS, columns=["facts"])["facts"].combine_chunks()
-    assert col.type == pa.binary(20)
-    facts = np.frombuffer(col.buffers()[1], np.uint8)[:20 * len(col)].view(layout)
-    # every predictor but ae+prev (golden6 freezes it; the classic fallback takes its channels here)
-    assert set(facts["mode"].tolist()) == set(PREDICTORS) - {p.id for p in PREDICTORS.values() if p.name == "ae+prev"}
-    assert len(set(facts["lpc_set"].tolist())) >= 2                 # and more than one LPC set
-    # the compact manifest: shared facts once, eps in the grid only, no step = 2 eps
-    assert manifest["channel_defaults"]["rate"] == 50.0 and manifest["channel_defaults"]["n_samples"] == 8440
-    assert all("eps" not in c and "rate" not in c for c in manifest["channels"])
-    assert any(c["grid"]["kind"] == "step" and "step" not in c["grid"] for c in manifest["channels"])
-    golden_checks.format_4_fields(manifest)
+    # the columns and facts as DEVELOPERS.md lists them (formats 6 and 7), every predictor but ae+prev frozen here
+    # (golden6 freezes it; the classic fallback takes its channels here)
+    golden_checks.lean6_windows(ARC, manifest, set(PREDICTORS) - {p.id for p in PREDICTORS.values() if p.name == "ae+prev"})
 
 
 def test_golden_text_column_and_gap_come_back():

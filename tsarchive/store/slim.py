@@ -25,6 +25,8 @@ import os
 import struct
 from pathlib import Path
 
+from .footer import _Bad, _Reader
+
 MAGIC = b"PAR1"
 
 # parquet.thrift field ids left out: FileMetaData 6 created_by, 7 column_orders; RowGroup 5 file_offset,
@@ -36,31 +38,13 @@ _FILE_ROW_GROUPS, _GROUP_COLUMNS, _CHUNK_META = 4, 1, 3
 _STRUCT, _LIST, _SET, _BINARY, _DOUBLE = 12, 9, 10, 8, 7
 
 
-class _In:
-    def __init__(self, buf: bytes) -> None:
-        self.buf, self.pos = buf, 0
-
-    def byte(self) -> int:
-        self.pos += 1
-        if self.pos > len(self.buf):
-            raise ValueError("footer ends early")
-        return self.buf[self.pos - 1]
-
-    def varint(self) -> int:
-        out = shift = 0
-        while True:
-            b = self.byte()
-            out |= (b & 0x7F) << shift
-            if not b & 0x80:
-                return out
-            shift += 7
-            if shift > 70:
-                raise ValueError("varint too long")
+class _In(_Reader):
+    """The compact protocol with each field's Thrift type kept (footer.py's reader keeps values only)."""
 
     def take(self, n: int) -> bytes:
         self.pos += n
         if self.pos > len(self.buf):
-            raise ValueError("footer ends early")
+            raise _Bad("footer ends early")
         return self.buf[self.pos - n:self.pos]
 
     def value(self, kind: int):
@@ -69,8 +53,7 @@ class _In:
         if kind == 3:
             return self.byte()
         if kind in (4, 5, 6):
-            n = self.varint()
-            return (n >> 1) ^ -(n & 1)
+            return self.zigzag()
         if kind == _DOUBLE:
             return self.take(8)
         if kind == _BINARY:
@@ -83,13 +66,13 @@ class _In:
             return elem, [self.byte() == 1 if elem in (1, 2) else self.value(elem) for _ in range(n)]
         if kind == _STRUCT:
             return self.struct()
-        raise ValueError(f"Thrift type {kind} is not in a Parquet footer")
+        raise _Bad(f"Thrift type {kind} is not in a Parquet footer")
 
     def struct(self) -> list:
         out, last = [], 0
         while (head := self.byte()) != 0:
             delta, kind = head >> 4, head & 0x0F
-            fid = last + delta if delta else self.value(4)
+            fid = last + delta if delta else self.zigzag()
             out.append((fid, kind, self.value(kind)))
             last = fid
         return out
@@ -98,7 +81,10 @@ class _In:
 def parse(footer: bytes) -> list:
     """A footer's ``FileMetaData`` as ``[(field id, Thrift type, value), ...]`` (structs nested alike)."""
     r = _In(footer)
-    out = r.struct()
+    try:
+        out = r.struct()
+    except _Bad as exc:
+        raise ValueError(str(exc)) from None
     if r.pos != len(footer):
         raise ValueError("bytes after the footer's end")
     return out
