@@ -101,3 +101,25 @@ def test_every_member_of_the_format_7_golden_archive_opens_in_duckdb_and_polars(
         n = pq.read_metadata(p).num_rows
         assert duckdb.sql(f"SELECT count(*) FROM '{p}'").fetchall()[0][0] == n, p.name
         assert polars.read_parquet(p).height == n, p.name
+
+
+def test_parse_and_encode_are_inverse_on_every_compact_type():
+    # Apache Thrift compact protocol, by hand: field 1 bool true (type 1), field 2 i32 -3 (zigzag 5), field 3
+    # double 1.5 (8 bytes LE), field 4 map<i32, bool> {1: false} (size 1, key/value types 0x51, 2, bool byte 2),
+    # field 5 list<bool> [true, false] (0x21, bytes 1 2), field 21 (a delta over 15: the long form, type byte
+    # then zigzag 42) binary b"ab", field 22 uuid (type 13, 16 bytes), stop
+    import struct
+    raw = (b"\x11" + b"\x15\x05" + b"\x17" + struct.pack("<d", 1.5) + b"\x1b\x01\x51\x02\x02" + b"\x19\x21\x01\x02"
+           + b"\x08\x2a\x02ab" + b"\x1d" + bytes(range(16)) + b"\x00")
+    fields = slim.parse(raw)
+    assert [(f, k) for f, k, _ in fields] == [(1, 1), (2, 5), (3, 7), (4, 11), (5, 9), (21, 8), (22, 13)]
+    assert fields[3][2] == (0x51, [(1, False)]) and fields[4][2] == (1, [True, False])
+    assert slim.encode(fields) == raw
+
+
+def test_a_footer_that_does_not_parse_is_left_as_written(tmp_path):
+    p = tmp_path / "odd.parquet"
+    footer = b"\x1e\x00"                       # a field of Thrift type 14, which the compact protocol lacks
+    p.write_bytes(b"PAR1" + footer + len(footer).to_bytes(4, "little") + b"PAR1")
+    before = p.read_bytes()
+    assert slim.slim(p) == 0 and p.read_bytes() == before

@@ -35,7 +35,7 @@ DROP_FILE = frozenset({6, 7})
 DROP_GROUP = frozenset({5, 6, 7})
 DROP_COLUMN_META = frozenset({13, 16})
 _FILE_ROW_GROUPS, _GROUP_COLUMNS, _CHUNK_META = 4, 1, 3
-_STRUCT, _LIST, _SET, _BINARY, _DOUBLE = 12, 9, 10, 8, 7
+_STRUCT, _LIST, _SET, _BINARY, _DOUBLE, _MAP, _UUID = 12, 9, 10, 8, 7, 11, 13
 
 
 class _In(_Reader):
@@ -63,10 +63,20 @@ class _In(_Reader):
             n, elem = head >> 4, head & 0x0F
             if n == 15:
                 n = self.varint()
-            return elem, [self.byte() == 1 if elem in (1, 2) else self.value(elem) for _ in range(n)]
+            return elem, [self.element(elem) for _ in range(n)]
+        if kind == _MAP:
+            n = self.varint()
+            kinds = self.byte() if n else 0
+            return kinds, [(self.element(kinds >> 4), self.element(kinds & 0x0F)) for _ in range(n)]
+        if kind == _UUID:
+            return self.take(16)
         if kind == _STRUCT:
             return self.struct()
-        raise _Bad(f"Thrift type {kind} is not in a Parquet footer")
+        raise _Bad(f"unknown Thrift type {kind}")
+
+    def element(self, kind: int):
+        """A container's element: a bool is a byte there (1 true, 2 false), not a field type."""
+        return self.byte() == 1 if kind in (1, 2) else self.value(kind)
 
     def struct(self) -> list:
         out, last = [], 0
@@ -115,10 +125,20 @@ def _value(kind: int, v) -> bytes:
     if kind in (_LIST, _SET):
         elem, items = v
         head = bytes([len(items) << 4 | elem]) if len(items) < 15 else bytes([0xF0 | elem]) + _varint(len(items))
-        return head + b"".join(bytes([1 if x else 2]) if elem in (1, 2) else _value(elem, x) for x in items)
+        return head + b"".join(_element(elem, x) for x in items)
+    if kind == _MAP:
+        kinds, items = v
+        return _varint(len(items)) + (bytes([kinds]) if items else b"") + b"".join(
+            _element(kinds >> 4, a) + _element(kinds & 0x0F, b) for a, b in items)
+    if kind == _UUID:
+        return v
     if kind == _STRUCT:
         return encode(v)
-    raise ValueError(f"Thrift type {kind} is not in a Parquet footer")
+    raise ValueError(f"unknown Thrift type {kind}")
+
+
+def _element(kind: int, v) -> bytes:
+    return bytes([1 if v else 2]) if kind in (1, 2) else _value(kind, v)
 
 
 def encode(fields: list) -> bytes:
@@ -150,7 +170,8 @@ def slimmed(fields: list) -> list:
 
 
 def slim(path: Path) -> int:
-    """Rewrite a closed Parquet file's footer without the fields ``DROP_*`` name; returns the bytes saved."""
+    """Rewrite a closed Parquet file's footer without the fields ``DROP_*`` name; returns the bytes saved (0,
+    the file untouched, if its footer does not parse: slimming only saves bytes)."""
     size = os.path.getsize(path)
     with open(path, "r+b") as fh:
         fh.seek(size - 8)
@@ -159,7 +180,10 @@ def slim(path: Path) -> int:
         if tail[4:] != MAGIC or not 0 < n <= size - 12:
             raise ValueError(f"{path.name} is not a Parquet file")
         fh.seek(size - 8 - n)
-        new = encode(slimmed(parse(fh.read(n))))
+        try:
+            new = encode(slimmed(parse(fh.read(n))))
+        except ValueError:
+            return 0
         fh.seek(size - 8 - n)
         fh.write(new + struct.pack("<I", len(new)) + MAGIC)
         fh.truncate()
