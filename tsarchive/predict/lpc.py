@@ -227,8 +227,8 @@ def reconstruct(r: np.ndarray, level: np.ndarray, lpc: LpcCoefs) -> np.ndarray:
     q = np.empty(r.shape, dtype=np.int64)
     # int64 and C order always, so numba compiles (or loads) one specialisation only; the kernel adds the
     # level as it writes ``q`` (no second pass over a fresh array)
-    kernels[0](np.ascontiguousarray(r, dtype=np.int64), _reversed(lpc), lpc.shift,
-               np.ascontiguousarray(level, dtype=np.int64), q)
+    lv = np.ascontiguousarray(np.broadcast_to(np.asarray(level, dtype=np.int64), r.shape[:1]))  # one per window
+    kernels[0](np.ascontiguousarray(r, dtype=np.int64), _reversed(lpc), lpc.shift, lv, q)
     return q
 
 
