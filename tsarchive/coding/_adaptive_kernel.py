@@ -386,7 +386,9 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
             a2 = a1
             a1 = _mag(v)
             i += 1
-        if ds[0] - 1 < ends[w] - starts[w]:   # bytes the code never reached
+        # as adaptive_ref: a code reads past its stored end (its final point's low bytes are zeros, dropped);
+        # one that stops on its last stored byte or before is not what the encoder writes
+        if ds[0] - 1 <= ends[w] - starts[w]:
             return w, ERR_TRAILING
     return -1, ERR_NONE
 
