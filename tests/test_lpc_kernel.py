@@ -220,3 +220,19 @@ def test_fitted_predictor_on_a_smooth_signal_round_trips():
     r = lpc.residuals(q, level, c)
     _same(r, lpc._residuals_numpy(q - level[:, None], c))
     _same(lpc.reconstruct(r, level, c), q)
+
+
+def test_levels_broadcast_and_mismatch_as_in_numpy():
+    # The kernel adds each window's level itself; the levels must broadcast exactly as numpy's
+    # ``level[:, None] + y`` does in the reference (numpy broadcasting rules), and a mismatch must raise
+    # rather than read past the levels.
+    rng = np.random.default_rng(9)
+    c = _coefs(rng, 6)
+    r = _residuals(rng, 5, 40)
+    one = np.array([123456789], dtype=np.int64)
+    _same(lpc.reconstruct(r, one, c), lpc._reconstruct_numpy(r, one, c))
+    _same(lpc.reconstruct(r, one.astype(np.int32), c), lpc._reconstruct_numpy(r, one, c))
+    with pytest.raises(ValueError):
+        lpc._reconstruct_numpy(r, np.zeros(3, np.int64), c)
+    with pytest.raises(ValueError):
+        lpc.reconstruct(r, np.zeros(3, np.int64), c)

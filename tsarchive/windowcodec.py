@@ -231,11 +231,16 @@ def row_residuals(codec: ChannelCodec, modes: np.ndarray, classes: np.ndarray, b
         if flat is not None:
             out.append((sel, flat[offs[sel][:, None] + np.arange(L)]))
             continue
-        res = np.empty((len(sel), L), dtype=np.int64)
-        for m, c in set(zip(modes[sel].tolist(), classes[sel].tolist())):
+        groups = set(zip(modes[sel].tolist(), classes[sel].tolist()))
+        res = None if len(groups) == 1 else np.empty((len(sel), L), dtype=np.int64)
+        for m, c in groups:
             pick = np.flatnonzero((modes[sel] == m) & (classes[sel] == c))
             at = sel[pick]          # strict=False: the per-window CRC catches what a range code cannot
-            res[pick] = codec.coder(m, c).decode_flat(buf, cells[at], cells[at + 1], L, strict=False).reshape(-1, L)
+            got = codec.coder(m, c).decode_flat(buf, cells[at], cells[at + 1], L, strict=False).reshape(-1, L)
+            if res is None:         # one coder for every row: its output is the batch, no copy
+                res = got
+            else:
+                res[pick] = got
         out.append((sel, res))
     return out
 

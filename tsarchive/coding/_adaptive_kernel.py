@@ -260,15 +260,16 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
 
     def bit(idx, code, rng):
         p = P[idx]
+        n = N[idx]
         bound = (rng >> np.uint64(PROB_BITS)) * np.uint64(p)
-        if code < bound:
-            rng = bound
-            b = 0
-        else:
-            code -= bound
-            rng -= bound
-            b = 1
-        P[idx], N[idx] = _adapt(p, N[idx], b)
+        b = np.int64(code >= bound)
+        m = np.uint64(0) - np.uint64(b)                  # all ones after a 1: no branch on the bit here
+        code -= bound & m
+        rng = bound + ((rng - bound - bound) & m)         # a 1 keeps range - bound, a 0 bound (mod 2**64)
+        s = SHIFT_OF[n]
+        up = p + ((PROB_ONE - p) >> s)                    # _adapt's two outcomes, picked by mask
+        P[idx] = up + (((p - (p >> s)) - up) & -b)
+        N[idx] = min(n + 1, COUNT_CAP)
         while rng < np.uint64(TOP):
             rng = rng << np.uint64(8)
             code = ((code << np.uint64(8)) | next_byte()) & np.uint64(0xFFFFFFFF)
@@ -385,7 +386,9 @@ def _decode_kernel(buf, starts, ends, bounds, P0, N0, values):
             a2 = a1
             a1 = _mag(v)
             i += 1
-        if ds[0] - 1 < ends[w] - starts[w]:   # bytes the code never reached
+        # as adaptive_ref: a code reads past its stored end (its final point's low bytes are zeros, dropped);
+        # one that stops on its last stored byte or before is not what the encoder writes
+        if ds[0] - 1 <= ends[w] - starts[w]:
             return w, ERR_TRAILING
     return -1, ERR_NONE
 

@@ -224,10 +224,12 @@ def reconstruct(r: np.ndarray, level: np.ndarray, lpc: LpcCoefs) -> np.ndarray:
     kernels = _kernels()
     if kernels is None:
         return _reconstruct_numpy(r, level, lpc)
-    y = np.empty(r.shape, dtype=np.int64)
-    # int64 and C order always, so numba compiles (or loads) one specialisation only
-    kernels[0](np.ascontiguousarray(r, dtype=np.int64), _reversed(lpc), lpc.shift, y)
-    return level[:, None] + y
+    q = np.empty(r.shape, dtype=np.int64)
+    # int64 and C order always, so numba compiles (or loads) one specialisation only; the kernel adds the
+    # level as it writes ``q`` (no second pass over a fresh array)
+    lv = np.ascontiguousarray(np.broadcast_to(np.asarray(level, dtype=np.int64), r.shape[:1]))  # one per window
+    kernels[0](np.ascontiguousarray(r, dtype=np.int64), _reversed(lpc), lpc.shift, lv, q)
+    return q
 
 
 def _reconstruct_numpy(r: np.ndarray, level: np.ndarray, lpc: LpcCoefs) -> np.ndarray:
@@ -262,8 +264,9 @@ def _reversed(lpc: LpcCoefs) -> np.ndarray:
     return np.concatenate([np.zeros(max(0, SCALAR_LAGS + 1 - len(rev)), np.int64), rev])
 
 
-def _reconstruct_kernel(r, rev, shift, y):
-    """``y[w, i] = r[w, i] + ((half + Σ_{k<=min(p,i)} A_k y[w, i-k]) >> shift)``, windows outer (numba).
+def _reconstruct_kernel(r, rev, shift, level, q):
+    """``q[w, i] = level[w] + y[w, i]`` with ``y[w, i] = r[w, i] + ((half + Σ_{k<=min(p,i)} A_k y[w, i-k]) >> shift)``,
+    windows outer (numba).
 
     ``rev`` holds the coefficients reversed (``rev[p-k] = A_k``, ``p > SCALAR_LAGS``) and
     the history ``h`` has ``p`` zeros before the window's ``y``, so the sum
@@ -287,6 +290,7 @@ def _reconstruct_kernel(r, rev, shift, y):
     h32 = np.zeros(p + n, dtype=np.int32)            # h32[p + i] = y[w, i]; h32[:p] stays 0
     h = np.zeros(p + n, dtype=np.int64)
     for w in range(r.shape[0]):
+        lv = level[w]
         narrow = True
         y1 = y2 = y3 = y4 = np.int64(0)
         for i in range(n):
@@ -300,7 +304,7 @@ def _reconstruct_kernel(r, rev, shift, y):
                 narrow = False
                 break
             h32[p + i] = np.int32(v)
-            y[w, i] = v
+            q[w, i] = lv + v
             y4, y3, y2, y1 = y3, y2, y1, v
         if narrow:
             continue
@@ -309,7 +313,7 @@ def _reconstruct_kernel(r, rev, shift, y):
             for j in range(p):
                 acc += rev[j] * h[i + j]
             h[p + i] = r[w, i] + (acc >> shift)
-            y[w, i] = h[p + i]
+            q[w, i] = lv + h[p + i]
 
 
 def _residuals_kernel(y, rev, shift, r):
