@@ -2,8 +2,9 @@
 
 Two passes over each channel in blocks of whole segments (bounded memory on
 long recordings): the first computes the segment facts and keeps an evenly
-spaced sample of at most :data:`LEARN_SEGMENTS` segments to learn the coder
-from (:mod:`tsarchive.index.learn`); the second codes every segment and
+spaced sample of at most :data:`LEARN_SEGMENTS` segments and
+:data:`LEARN_SAMPLES` samples to learn the coder from
+(:mod:`tsarchive.index.learn`); the second codes every segment and
 measures what the codes miss (per segment, and the preview's worst error per
 channel).  The same recording, settings and tool version give the same bits.
 """
@@ -22,6 +23,7 @@ from . import learn
 from .segments import as_segments, choose_segment, facts, log_code, squares
 
 LEARN_SEGMENTS = 20000
+LEARN_SAMPLES = LEARN_SEGMENTS * 256   # and samples: the byte budget's long segments must not take a whole channel
 BLOCK_SAMPLES = 1 << 20
 
 # the per-segment byte columns, in order; "edge" (samples at the segment's extremes, log-coded against 1) came
@@ -122,8 +124,8 @@ def build_channel(column, name: str, n_samples: int, segment: int | None = None,
     S = choose_segment(n_samples, segment) * (1 if segment else longer)
     n_seg = -(-n_samples // S)
     step = max(1, BLOCK_SAMPLES // S)
-    pick = set(np.unique(np.linspace(0, n_seg - 1, min(n_seg, LEARN_SEGMENTS)).round().astype(np.int64)).tolist()) \
-        if n_seg else set()
+    n_pick = min(n_seg, LEARN_SEGMENTS, max(1, LEARN_SAMPLES // S))
+    pick = set(np.unique(np.linspace(0, n_seg - 1, n_pick).round().astype(np.int64)).tolist()) if n_seg else set()
     mean = np.zeros(n_seg, dtype=np.float64)
     f = np.zeros((n_seg, len(FACT_NAMES)), dtype=np.uint8)
     mags = np.zeros((2, n_seg))                      # spread, slope in channel units
