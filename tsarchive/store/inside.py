@@ -52,10 +52,18 @@ class Place:
     dictionary: str          # file name beside this module
     text: bool               # values as 7-bit text (format 7) or raw bytes (format 6)
 
+    def stored(self, raw: bytes) -> bytes:
+        """Bytes as this version stores them in the footer: 7-bit text (format 7) or as they are."""
+        return to_text(raw) if self.text else raw
+
+    def raw(self, stored: bytes) -> bytes:
+        """Inverse of :meth:`stored` (ValueError on a byte that is not 7-bit text, format 7)."""
+        return from_text(stored) if self.text else stored
+
     @property
     def slot(self) -> int:
         """Bytes of the digest's value: 32, or 37 as 7-bit text."""
-        return len(to_text(bytes(32))) if self.text else 32
+        return len(self.stored(bytes(32)))
 
 
 V6 = Place(b"tsarchive", b"tsarchive.sha256", "manifest6.zdict", False)
@@ -94,15 +102,14 @@ def compress(manifest: dict, place: Place = WRITE) -> bytes:
                                                             write_checksum=True, write_content_size=True,
                                                             write_dict_id=False)
     frame = zstandard.ZstdCompressor(dict_data=zd, compression_params=params).compress(text)
-    return to_text(frame) if place.text else frame
+    return place.stored(frame)
 
 
 def decompress(blob: bytes, place: Place = WRITE) -> dict:
     """The manifest from its stored value, its declared size checked against the cap before anything is
     allocated; any failure is one ArchiveCorrupt line."""
     try:
-        if place.text:
-            blob = from_text(blob)
+        blob = place.raw(blob)
         size = zstandard.frame_content_size(blob)
         if size < 0 or size > S.MAX_MANIFEST_BYTES:
             raise ArchiveCorrupt(f"the manifest in {S.WINDOWS} declares {size} bytes (at most "
@@ -170,34 +177,29 @@ def _slot_in(footer: bytes) -> tuple[int, Place] | None:
     return None
 
 
-def _zero(place: Place) -> bytes:
-    return to_text(bytes(32)) if place.text else bytes(32)
-
-
-ZERO = _zero(WRITE)
+ZERO = WRITE.stored(bytes(32))
 
 
 def footer_digest(footer: bytes, at: int, place: Place = WRITE) -> bytes:
     """SHA-256 of the footer's bytes with its digest slot's value read as zeros."""
-    return hashlib.sha256(footer[:at] + _zero(place) + footer[at + place.slot:]).digest()
+    return hashlib.sha256(footer[:at] + place.stored(bytes(32)) + footer[at + place.slot:]).digest()
 
 
 def _stored_digest(footer: bytes, at: int, place: Place) -> bytes:
-    value = footer[at:at + place.slot]
-    return from_text(value) if place.text else value
+    return place.raw(footer[at:at + place.slot])
 
 
 def seal(path: Path) -> bytes:
     """Write the footer's digest into the zeroed slot of a just-closed ``windows.parquet``; returns it."""
     start, footer = _tail(path)
     found = _slot_in(footer)
-    if found is None or footer[found[0]:found[0] + found[1].slot] != _zero(found[1]):
+    if found is None or footer[found[0]:found[0] + found[1].slot] != found[1].stored(bytes(32)):
         raise RuntimeError(f"{path.name} has no empty digest slot")   # the writer's own slip, never the user's
     at, place = found
     digest = footer_digest(footer, at, place)
     with open(path, "r+b") as fh:
         fh.seek(start + at)
-        fh.write(to_text(digest) if place.text else digest)
+        fh.write(place.stored(digest))
     return digest
 
 
