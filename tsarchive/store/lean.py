@@ -54,8 +54,12 @@ EXCEPTIONS_SCHEMA = pa.schema([
     pa.field("pos", pa.list_(pa.int32())),   # positions within the window of the samples stored verbatim
     pa.field("bits", pa.list_(pa.int64())),  # their raw IEEE-754 bits (floats) or values (integers)
 ])
+# Positions and bits are DELTA_BINARY_PACKED (parquet-format's Encodings.md): a run of gaps is positions
+# k, k+1, ... and one NaN's bits over and over, deltas 1 and 0 that pack into no bits at all.  PLAIN + zstd
+# took 1.1 B per gap sample (a year at 15 min, nights empty: 19 864 B); delta-packed, 800 B.
 EXCEPTIONS_OPTS = dict(compression="zstd", compression_level=9, store_schema=False, write_statistics=["key"],
-                       use_dictionary=False)
+                       use_dictionary=False, column_encoding={"pos.list.element": "DELTA_BINARY_PACKED",
+                                                              "bits.list.element": "DELTA_BINARY_PACKED"})
 
 
 def pack_exceptions(rows: pa.Table, channel: int) -> pa.Table:
