@@ -8,6 +8,8 @@ import math
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
+from decimal import Decimal
+
 import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -68,8 +70,37 @@ def test_grid_integers_nan_inf_and_none():
     assert detect_decimals(np.array([0.5, np.nan, -np.inf, 2.25])) == 2
     assert detect_decimals(np.array([np.nan, np.nan])) == 0  # vacuous, documented
     assert detect_decimals(np.random.default_rng(3).standard_normal(1000)) is None
-    # "%.7f" values need 7 decimals, beyond MAX_DECIMALS (= 6)
-    assert detect_decimals(np.array([float("%.7f" % (1 + 1e-7 * k)) for k in range(1, 500, 7)])) is None
+    # "%.7f" values need 7 decimals (MAX_DECIMALS was 6: they had no grid)
+    assert detect_decimals(np.array([float("%.7f" % (1 + 1e-7 * k)) for k in range(1, 500, 7)])) == 7
+    # beyond 6 decimals, no grid finer than an eighth of the floats' spacing (2**50 points for float64):
+    # "%.8f" of values near 2e7 (2e7 * 1e8 > 2**50) has none
+    assert detect_decimals(np.array([float("%.8f" % (2e7 + 1e-8 * k)) for k in range(1, 500, 7)])) is None
+    # float32 has 24 significand bits: every float32 near 1 is the rounding of some 8-decimal number, so
+    # 8 decimals would fit any float32 column; a grid is found only where it is coarser than 2**21 points
+    noise = np.random.default_rng(5).uniform(0.5, 1.0, 1000).astype(np.float32)
+    assert detect_decimals(noise, np.float32) is None
+    assert detect_decimals(np.float32([1.234e-7, 5.5e-6, 2.001e-4]), np.float32) == 10
+
+
+def _decimals_written(text: str) -> int:
+    """Decimals a number as written needs (Python's decimal module: the exponent after dropping trailing
+    zeros), the outside reference for the detected grid."""
+    return max(0, -Decimal(text).normalize().as_tuple().exponent)
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.tuples(st.integers(1000, 9999), st.integers(-12, -3)), min_size=1, max_size=40),
+       st.booleans())
+def test_grid_of_values_in_scientific_notation_spanning_decades(mantissas, upper):
+    # A logger writing "%.3e" (an X-ray flux, a vacuum gauge's pressure): "1.234e-07" is 1234 / 10**10.
+    # Reference: Python's float() of the text and the decimal module's count of the decimals written.
+    text = [f"{m // 1000}.{m % 1000:03d}{'E' if upper else 'e'}{e:+03d}" for m, e in mantissas]
+    values = np.array([float(t) for t in text])
+    want = max(_decimals_written(t) for t in text)
+    found = detect_decimals(values)
+    assert found == want
+    scale = 10.0 ** found
+    assert np.array_equal(np.round(values * scale) / scale, values)
 
 
 def test_grid_checks_a_strided_sample_of_long_columns(monkeypatch):
