@@ -266,8 +266,13 @@ def test_model_left_out_when_it_does_not_pay(tmp_path):
     _assert_within(x, arc)
 
 
-def test_probe_model_decides_before_a_long_training(tmp_path):
-    # With a long training budget and no explicit code size, only the probe run trains on white noise.
+def test_a_scout_decides_before_the_probe_and_a_long_training(tmp_path, monkeypatch):
+    # With a long training budget and no explicit code size, only a short scout trains on white noise: no
+    # model can predict it, so the probe does not run either (it did before the scout: 3 times the work).
+    import tsarchive.model.train as train
+    works = []
+    real = train.train_autoencoder
+    monkeypatch.setattr(train, "train_autoencoder", lambda *a, **kw: works.append(kw["work"]) or real(*a, **kw))
     x = np.random.default_rng(5).standard_normal(40000).astype(np.float32)
     src = tmp_path / "x.npy"
     np.save(src, x[:, None])
@@ -276,8 +281,9 @@ def test_probe_model_decides_before_a_long_training(tmp_path):
                    progress=events.append)
     arc = tsarchive.open(tmp_path / "x.tsa")
     assert arc.manifest["model"] is None
-    assert f"after a {modelrun.PROBE_SECONDS:g} s probe" in arc.manifest["model_note"]
-    assert not any("training it fully" in e.message for e in events)
+    assert f"after a {modelrun.SCOUT_SECONDS:g} s probe" in arc.manifest["model_note"]
+    assert works == [modelrun.SCOUT_SECONDS * modelrun.TRAIN_WORK_PER_SECOND]
+    assert not any("training it fully" in e.message or "training the probe" in e.message for e in events)
 
 
 @pytest.mark.parametrize("probe", [False, True])

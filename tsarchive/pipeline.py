@@ -80,9 +80,10 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
     multiply-adds each, about a second of one core) whatever the recording's
     length, and never by the clock: the same source, settings and tool
     version give the same archive bytes on any machine; without an explicit
-    code size a probe model is trained for ``PROBE_SECONDS`` first and the
-    full run happens only if the probe already saves ``PROBE_SHARE`` of the
-    model's own bytes.  ``window=None`` picks the window length of
+    code size a scout is trained for ``SCOUT_SECONDS``, a probe for
+    ``PROBE_SECONDS`` only if the scout saves ``SCOUT_SHARE`` of the model's
+    own bytes, and the full run only if the probe already saves
+    ``PROBE_SHARE`` of them.  ``window=None`` picks the window length of
     ``WINDOW_CHOICES`` that a planned and coded sample says is smallest
     (``DEFAULT_WINDOW`` when a code size > 0 is given: codes are asked for to
     browse by them, in the finer segments).  ``read_options``
