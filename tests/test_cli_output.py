@@ -71,7 +71,7 @@ def test_json_of_pack_verify_and_report_carries_what_a_lab_files(tmp_path, capsy
     for d in outs:
         ident = d["identity"]
         assert ident["archive"] == str(arc.resolve()) and ident["source"]["sha256"] == sha
-        assert ident["source"]["name"] == "chamber.csv" and ident["format_version"] == 7
+        assert ident["source"]["name"] == "chamber.csv" and ident["format_version"] == 8
         assert ident["written_by"] == ident["read_by"] and ident["start"] == "2024-03-05T14:00:00"
         assert ident["channels"] == [{"name": "temp", "unit": "degC", "rate": 1.0, "n_samples": 60}]
 

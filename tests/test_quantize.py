@@ -139,3 +139,35 @@ def test_decimal_grid_with_a_multiplier_gives_back_the_parsed_doubles(k, decimal
     np.testing.assert_array_equal(q, k)
     np.testing.assert_array_equal(values_to_bits(g.dequantize(q, pos, bits)), values_to_bits(x))
     assert Grid.from_dict(g.to_dict()) == g
+
+
+# --- the scaled grid (format 8): x = (digital + offset) * step, an EDF reader's arithmetic -----------------
+
+
+@given(st.floats(-1e4, 1e4), st.floats(1e-3, 1e4), st.sampled_from([(-32768, 32767), (-2048, 2047), (0, 4095),
+                                                                   (-8388608, 8388607)]),
+       st.lists(st.floats(0, 1), min_size=1, max_size=60))
+def test_a_scaled_grid_gives_back_an_edf_reader_s_values_bit_for_bit(pmin, width, digital_range, picks):
+    # Reference: EDFlib's conversion as pyedflib computes it (bitvalue = (pmax - pmin) / (dmax - dmin),
+    # offset = pmax / bitvalue - dmax, value = bitvalue * (offset + digital)), done here in numpy.
+    dmin, dmax = digital_range
+    pmax = pmin + width
+    bitvalue = (pmax - pmin) / (dmax - dmin)
+    offset = pmax / bitvalue - dmax
+    digital = np.array([dmin + round(p * (dmax - dmin)) for p in picks], dtype=np.float64)
+    x = (digital + offset) * bitvalue
+    grid = make_grid(0.0, None, np.float64, scaled=(bitvalue, offset))
+    assert grid.kind == "scaled"
+    q, pos, bits = quantize(x, grid)
+    assert len(pos) == 0                                     # every value on the grid, none kept verbatim
+    assert np.array_equal(grid.decode(q).view(np.uint64), x.view(np.uint64))
+    assert np.array_equal(q, digital.astype(np.int64))       # the file's own integers
+
+
+def test_a_scaled_grid_is_lossless_only_and_a_coarser_budget_takes_a_step_grid():
+    assert make_grid(0.004, None, np.float64, scaled=(0.01, 0.5)).kind == "scaled"   # below half a step: exact
+    assert make_grid(0.02, None, np.float64, scaled=(0.01, 0.5)).kind == "step"
+    with pytest.raises(Exception, match="exact only"):
+        Grid("scaled", 0.1, "float64", step=0.01, offset=0.5)
+    with pytest.raises(Exception, match="positive and finite"):
+        Grid("scaled", 0.0, "float64", step=float("nan"), offset=0.5)

@@ -122,7 +122,7 @@ def test_report_prints_the_manifest_as_stored(arc, capsys):
     code = inside.one_liner(str(arc))                 # the same manifest as pyarrow + zstandard read it
     r = subprocess.run([sys.executable, "-c", code], cwd=inside.DICT_FILE.parent, capture_output=True, text=True,
                        timeout=120)
-    assert shown == json.loads(r.stdout) and shown["format_version"] == 7 and "groups" in shown
+    assert shown == json.loads(r.stdout) and shown["format_version"] == S.FORMAT_VERSION and "groups" in shown
 
 
 def test_an_index_member_that_declares_too_much_or_runs_short_is_refused(tmp_path, monkeypatch):

@@ -94,7 +94,7 @@ def test_the_manifest_stores_shared_facts_once(lean_arc):
     out, x = lean_arc
     assert sorted(p.name for p in out.iterdir()) == [S.WINDOWS]     # the manifest is inside it
     stored = _stored(out)
-    assert stored["format_version"] == 7 == S.FORMAT_VERSION
+    assert stored["format_version"] == 8 == S.FORMAT_VERSION
     assert stored["channel_defaults"]["n_samples"] == len(x) and stored["channel_defaults"]["rate"] == 10.0
     assert "time" not in stored              # seconds from 0 at the rate: what a reader assumes without one
     for c in stored["channels"]:

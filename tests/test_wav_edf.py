@@ -178,3 +178,93 @@ def test_files_written_by_the_standard_library_wave_module(tmp_path, width):
         w.writeframes(raw)
     rec = read_recording(p)
     assert rec.rate == 22050.0 and rec.data.tolist() == x.tolist()
+
+
+# --- EDF kept lossless: the scaled grid (format 8) ---------------------------------------------------
+
+
+@pytest.mark.parametrize("name, rate", [("test_generator.edf", None), ("test_generator.bdf", 800)])
+def test_lossless_edf_and_bdf_come_back_bit_for_bit_as_pyedflib_reads_them(tmp_path, name, rate):
+    # failed before format 8: physical values are no decimal grid, so 'lossless' was refused ("channel
+    # squarewave is not on an integer or decimal grid"). Reference: pyedflib's reader, compared bitwise.
+    path = EDF_DATA / name                      # ships with pyedflib (pyedflib/tests/data)
+    out = tmp_path / "e.tsa"
+    assert main(["pack", str(path), "-o", str(out), "--budget", "lossless"] + (["--rate", str(rate)] if rate else [])) == 0
+    from tsarchive import open as open_archive
+    arc = open_archive(out)
+    f = pyedflib.EdfReader(str(path))
+    try:
+        rates = [f.getSampleFrequency(j) for j in range(f.signals_in_file)]
+        signals = [j for j in range(f.signals_in_file) if rate is None or rates[j] == rate]
+        assert [c.name for c in arc.channels] == [f.getSignalLabels()[j].strip() for j in signals]
+        for c, j in zip(arc.channels, signals):
+            assert c.grid.kind == "scaled" and c.eps == 0
+            assert np.array_equal(arc.read(c.name).view(np.uint64), f.readSignal(j).view(np.uint64)), c.name
+    finally:
+        f.close()
+    assert arc.format_version == 8
+
+
+def test_the_scaled_grid_is_the_header_s_step_and_keeps_the_file_s_integers(tmp_path):
+    # Reference: the EDF specification (Kemp et al. 1992), read by hand from the file's bytes: the grid's step
+    # is (pmax - pmin) / (dmax - dmin) and the integers behind the samples are the stored 16-bit values.
+    path = EDF_DATA / "test_generator.edf"
+    raw = path.read_bytes()
+    ns = int(raw[252:256])
+    at = 256 + ns * (16 + 80 + 8)
+    pmin, pmax, dmin, dmax = ([float(raw[at + (k * ns + j) * 8: at + (k * ns + j + 1) * 8]) for j in range(ns)]
+                              for k in range(4))
+    rec = read_recording(path)
+    for j, c in enumerate(rec.channels):
+        step, offset = c.scaled
+        assert step == (pmax[j] - pmin[j]) / (dmax[j] - dmin[j])
+        digital = np.rint(rec.column(j) / step - offset)
+        assert digital.min() >= dmin[j] and digital.max() <= dmax[j]
+        assert np.array_equal(((digital + offset) * step).view(np.uint64), rec.column(j).view(np.uint64))
+
+
+def test_an_edf_written_by_pyedflib_with_uneven_ranges_packs_lossless(tmp_path):
+    # A file not written by tsarchive: pyedflib's writer, a climate-chamber log's kinds of ranges (a skin
+    # temperature of 30..42 degC on 12 bits, a pressure of 950..1050 hPa on 16 bits); offsets not 0.5.
+    path = tmp_path / "chamber.edf"
+    rng = np.random.default_rng(8)
+    n = 2560
+    temp = np.round(36.5 + 0.3 * np.sin(np.arange(n) / 90.0) + rng.normal(0, 0.02, n), 3)
+    press = 1013 + np.cumsum(rng.normal(0, 0.01, n))
+    heads = [dict(label="skin_temp", dimension="degC", sample_frequency=256, physical_min=30.0, physical_max=42.0,
+                  digital_min=-2048, digital_max=2047),
+             dict(label="press", dimension="hPa", sample_frequency=256, physical_min=950.0, physical_max=1050.0,
+                  digital_min=-32768, digital_max=32767)]
+    w = pyedflib.EdfWriter(str(path), 2, file_type=pyedflib.FILETYPE_EDFPLUS)
+    try:
+        w.setSignalHeaders(heads)
+        w.writeSamples([temp, press])
+    finally:
+        w.close()
+    out = tmp_path / "c.tsa"
+    assert main(["pack", str(path), "-o", str(out), "--budget", "skin_temp=lossless,press=lossless"]) == 0
+    from tsarchive import open as open_archive
+    arc = open_archive(out)
+    f = pyedflib.EdfReader(str(path))
+    try:
+        for j, c in enumerate(arc.channels):
+            assert c.grid.kind == "scaled" and c.grid.offset != 0.5
+            assert np.array_equal(arc.read(c.name).view(np.uint64), f.readSignal(j).view(np.uint64))
+    finally:
+        f.close()
+
+
+def test_a_scaled_grid_in_an_archive_that_says_format_7_is_refused(tmp_path):
+    # format 7 has no scaled grid: an archive claiming 7 with one was crafted or mixed (a format-7 reader
+    # would say "unknown grid kind"); the version check names it in one line
+    from crafting import manifest, write_manifest
+
+    from tsarchive import open as open_archive
+    from tsarchive.errors import ArchiveCorrupt
+    out = tmp_path / "e.tsa"
+    assert main(["pack", str(EDF_DATA / "test_generator.edf"), "-o", str(out), "--budget", "lossless"]) == 0
+    m = manifest(out)
+    m["format_version"] = 7
+    write_manifest(out, m)
+    with pytest.raises(ArchiveCorrupt, match="scaled grid in a format 7 archive"):
+        open_archive(out)

@@ -76,6 +76,7 @@ class Archive:
         P.facts(m)
         chans = P.channel_list(m)
         self.channels = tuple(_channel_meta(c, self.window) for c in chans)
+        P.grids_of_version(self.channels, v)
         P.budget_spec_agrees(m, self.channels)
         self._by_name = {c.name: c for c in self.channels}
         self._index = {c.name: i for i, c in enumerate(self.channels)}     # a channel's key in lean rows

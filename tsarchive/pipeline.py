@@ -240,11 +240,11 @@ def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
     stretches = _phase_sample(rec)
     for ch, r, x in zip(rec.channels, ranges, stretches):
         budget = spec.for_channel(ch.name)
-        if budget.kind == "lossless" and ch.decimals is None:
+        if budget.kind == "lossless" and ch.decimals is None and ch.scaled is None:
             raise BudgetError(f"channel {ch.name} is not on an integer or decimal grid, so 'lossless' is "
                               f"unavailable; give it a budget such as {ch.name}=0.1%")
         eps = budget.resolve(r.span, ch.name)
-        g = make_grid(eps, ch.decimals, np.dtype(ch.dtype), r.anchor, r.mult, origin=r.origin)
+        g = make_grid(eps, ch.decimals, np.dtype(ch.dtype), r.anchor, r.mult, origin=r.origin, scaled=ch.scaled)
         if r.no_mark:
             raise BadInput(f"channel {ch.name} has missing samples but no value of {ch.dtype} is free to mark "
                            "them; fill the gaps or store the column in a wider integer type")
@@ -288,9 +288,9 @@ def _grid_note(budget, grid: Grid) -> str:
     """Why a lossy budget ended up exact, in words for reports."""
     if budget.kind == "lossless" or grid.eps > 0:
         return ""
-    if grid.kind == "decimal":
-        return (f"budget {budget.spec} cannot merge distinct logged values (resolution "
-                f"{grid.mult * 10.0 ** -grid.decimals:g}), "
+    if grid.kind in ("decimal", "scaled"):
+        step = grid.step if grid.kind == "scaled" else grid.mult * 10.0 ** -grid.decimals
+        return (f"budget {budget.spec} cannot merge distinct logged values (resolution {step:g}), "
                 "so the channel is stored exactly")
     return f"budget {budget.spec} of a zero range is 0, so the channel is stored exactly"
 

@@ -3,7 +3,7 @@
 This is where the error bound is made.  Everything after this stage codes
 the integers ``q`` losslessly, so the bound cannot be lost downstream.
 
-Two grids:
+Three grids:
 
 * ``step``: ``x̂ = offset + q * step`` with ``step = 2ε`` (uniform
   quantization; a uniform quantizer's maximum error is Δ/2 = ε).
@@ -13,6 +13,13 @@ Two grids:
   a 0.005 mV resolution is 5 units of 0.001).  Dividing two exactly
   representable integers is correctly rounded by IEEE-754, so this gives back
   the very double a decimal parser produced.
+* ``scaled`` (format 8): ``x̂ = (q + offset) * step`` for lossless channels
+  whose values a file format computes from stored integers that way: an EDF
+  or BDF signal's physical value is ``bitvalue * (offset + digital)``, with
+  ``bitvalue = (physical max - min) / (digital max - min)`` and ``offset =
+  physical max / bitvalue - digital max`` (the arithmetic of EDFlib, which
+  pyedflib wraps).  The same two roundings in the same order give back the
+  very double the reader produced; ``q`` is the stored integer.
 
 Integer channels (int8 … uint64) whose grid has an integer origin and step
 never go through float64: ``q`` is found by exact integer division, the
@@ -45,6 +52,7 @@ _MAX_Q = float(2**50)
 MAX_MULT = 1 << 20
 MAX_DECIMALS = 15              # decimal grids: at most this many decimals (what a manifest may hold)
 MAX_INT_STEP = 1 << 53          # integer grids: steps above this (absurd budgets) are clamped, exactly representable
+KINDS = ("step", "decimal", "scaled")
 
 
 class InvalidGrid(ArchiveCorrupt):
@@ -59,7 +67,7 @@ class InvalidGrid(ArchiveCorrupt):
 class Grid:
     """How integers map back to sample values for one channel."""
 
-    kind: str  # "step" or "decimal"
+    kind: str  # "step", "decimal" or "scaled"
     eps: float  # the bound; 0.0 means bit-exact
     out_dtype: str  # numpy dtype name of the decoded samples
     step: float = 1.0
@@ -81,10 +89,12 @@ class Grid:
             raise InvalidGrid(problem)
 
     def _problem(self) -> str | None:
-        if self.kind not in ("step", "decimal"):
+        if self.kind not in KINDS:
             return f"unknown grid kind {self.kind!r}"
-        if self.kind == "step" and not (math.isfinite(self.step) and self.step > 0 and math.isfinite(self.offset)):
+        if self.kind != "decimal" and not (math.isfinite(self.step) and self.step > 0 and math.isfinite(self.offset)):
             return "grid step must be positive and finite"
+        if self.kind == "scaled" and self.eps != 0:
+            return "a scaled grid is exact only"
         if self.kind == "decimal" and not 0 <= self.decimals <= MAX_DECIMALS:
             return f"grid decimals {self.decimals} out of range 0..{MAX_DECIMALS}"
         if not 1 <= self.mult <= MAX_MULT:
@@ -179,6 +189,10 @@ class Grid:
                 qf *= float(self.mult)
             qf /= float(10**self.decimals)
             return qf
+        if self.kind == "scaled":
+            qf += self.offset                    # the file format's order: add, then scale
+            qf *= self.step
+            return qf
         qf *= self.step                          # offset + q * step, the same two roundings
         qf += self.offset
         return qf
@@ -213,9 +227,16 @@ class Grid:
 
 
 def make_grid(eps: float, decimals: int | None, dtype: np.dtype, anchor: float = 0.0, mult: int = 1,
-              origin: int | None = None) -> Grid:
+              origin: int | None = None, scaled: tuple[float, float] | None = None) -> Grid:
     """Choose the grid for a channel (see :func:`_make_grid`); a channel no grid can serve is the
-    caller's input error (:class:`BadInput`), never archive damage."""
+    caller's input error (:class:`BadInput`), never archive damage.  ``scaled``: ``(step, offset)`` of
+    a channel whose values are ``(integer + offset) * step`` (an EDF signal's physical values); it is
+    stored exactly on that grid when ``eps`` is below half of ``step``."""
+    if scaled is not None and float(eps) < 0.5 * float(scaled[0]) and np.dtype(dtype) == np.float64:
+        try:
+            return Grid("scaled", 0.0, "float64", step=float(scaled[0]), offset=float(scaled[1]))
+        except InvalidGrid as exc:
+            raise BadInput(f"{exc.problem}: the channel's scale {scaled} cannot be stored") from None
     try:
         return _make_grid(eps, decimals, dtype, anchor, mult, origin)
     except InvalidGrid as exc:
@@ -320,7 +341,8 @@ def _quantize(x: np.ndarray, grid: Grid) -> tuple[np.ndarray, np.ndarray, np.nda
     # The source column may be held wider than its own dtype: exactness is judged in the channel's dtype.
     raw_bits = values_to_bits(x.astype(grid.out_dtype)) if grid.eps == 0 else None
     with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-        scaled = x64 * float(10**grid.decimals) / grid.mult if grid.kind == "decimal" else (x64 - grid.offset) / grid.step
+        scaled = x64 * float(10**grid.decimals) / grid.mult if grid.kind == "decimal" else \
+            x64 / grid.step - grid.offset if grid.kind == "scaled" else (x64 - grid.offset) / grid.step
         finite = np.isfinite(scaled) & (np.abs(scaled) < _MAX_Q)
         qf = np.where(finite, np.rint(scaled), 0.0)
     q = qf.astype(np.int64)
@@ -391,5 +413,5 @@ def fill_from_previous(q: np.ndarray, bad: np.ndarray) -> None:
     q[:] = q[idx]
 
 
-for _kind in ("step", "decimal"):
+for _kind in KINDS:
     codecs.register("grid", _kind, Grid.from_config)

@@ -27,7 +27,7 @@ class ChannelInfo:
     ``decimals`` is the detected logging resolution: ``0`` for an
     integer-valued column, ``2`` for a logger writing two decimals, and
     ``None`` when the column is on no decimal grid (then ``lossless`` is
-    not available for it).
+    not available for it, unless the channel is ``scaled``).
     """
 
     name: str
@@ -37,6 +37,10 @@ class ChannelInfo:
     #: numeric values that mean "no measurement" in this channel (a logger's -9999): kept exactly,
     #: left out of %-of-range budgets
     sentinels: tuple[float, ...] = ()
+    #: ``(step, offset)`` when every value is ``(integer + offset) * step`` in float64, as an EDF/BDF
+    #: reader computes physical values from the stored integers: ``lossless`` is then available on
+    #: that grid (:class:`tsarchive.quantize.Grid` kind ``scaled``; the manifest keeps it in the grid)
+    scaled: tuple[float, float] | None = None
 
     @property
     def resolution(self) -> float | None:

@@ -75,7 +75,8 @@ def read_edf(path: Path, options: ReadOptions) -> Recording:
             seen.add(name)
             columns.append(x)
             channels.append(ChannelInfo(name=name, unit=f.getPhysicalDimension(i).strip(), dtype="float64",
-                                        decimals=detect_decimals(x), sentinels=options.sentinels))
+                                        decimals=detect_decimals(x), sentinels=options.sentinels,
+                                        scaled=_scale(f, i, x)))
         lengths = {len(c) for c in columns}
         if len(lengths) != 1 or 0 in lengths:
             raise BadInput(f"{path.name}: the {rate:g} Hz signals have different or no lengths; the file is damaged")
@@ -85,6 +86,24 @@ def read_edf(path: Path, options: ReadOptions) -> Recording:
         f.close()
     return Recording.from_columns(columns, rate=float(rate), channels=channels, start=start, source=path,
                                   notes=notes)
+
+
+def _scale(f, i: int, physical: np.ndarray) -> tuple[float, float] | None:
+    """``(bitvalue, offset)`` when every physical value of signal ``i`` is ``bitvalue * (offset +
+    digital)`` bit for bit, the arithmetic of EDFlib (which pyedflib wraps): ``bitvalue = (physical max
+    - physical min) / (digital max - digital min)``, ``offset = physical max / bitvalue - digital max``.
+    Checked on every sample; None when a sample differs (then ``lossless`` needs a decimal grid)."""
+    pmax, pmin = float(f.getPhysicalMaximum(i)), float(f.getPhysicalMinimum(i))
+    dmax, dmin = float(f.getDigitalMaximum(i)), float(f.getDigitalMinimum(i))
+    if dmax == dmin or pmax == pmin:
+        return None
+    bitvalue = (pmax - pmin) / (dmax - dmin)
+    offset = pmax / bitvalue - dmax
+    if not (np.isfinite(bitvalue) and bitvalue > 0 and np.isfinite(offset)):
+        return None
+    digital = np.asarray(f.readSignal(i, digital=True), dtype=np.float64)
+    again = (digital + offset) * bitvalue
+    return (bitvalue, offset) if np.array_equal(again.view(np.uint64), physical.view(np.uint64)) else None
 
 
 def _refuse_discontinuous(path: Path) -> None:

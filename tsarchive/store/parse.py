@@ -231,6 +231,14 @@ def channel_list(m: dict) -> list[dict]:
     return chans
 
 
+def grids_of_version(channels, version: int) -> None:
+    """Refuse a grid kind that the archive's format version does not have (a crafted or mixed archive)."""
+    for c in channels:
+        if c.grid.kind == "scaled" and version < S.SCALED_FROM_VERSION:
+            raise corrupt(f"channel {c.name[:40]!r}: a scaled grid in a format {version} archive (scaled grids "
+                          f"are format {S.SCALED_FROM_VERSION} on)")
+
+
 def channel_meta(d: dict, W: int) -> ChannelMeta:
     """One validated channel entry (see the module doc for what is checked)."""
     name = text(d, "name", "channels[].", limit=1024)
