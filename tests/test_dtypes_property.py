@@ -71,10 +71,10 @@ def test_every_dtype_round_trips_within_budget(tmp_path_factory, x, kind, absolu
     rec = Recording(data=x[:, None], rate=10.0, channels=(ChannelInfo("s", dtype=dt.name, decimals=decimals),),
                     shape=x.shape)
     out = tmp_path_factory.mktemp("p") / "p.tsa"
-    if kind == "lossless" and decimals is None:
-        with pytest.raises(BudgetError):          # floats off a decimal grid have no lossless budget
+    if kind == "lossless" and decimals is None and dt == np.float64:
+        with pytest.raises(BudgetError):          # float64 off a decimal grid has no lossless budget
             tsarchive.pack(rec, out, budget, window=16, code_size=0)
-        return
+        return                                    # (float32 and float16 take the ordered grid, format 8)
     tsarchive.pack(rec, out, budget, window=16, code_size=0)
     arc = tsarchive.open(out)
     xh = arc.read("s")

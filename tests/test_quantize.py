@@ -171,3 +171,35 @@ def test_a_scaled_grid_is_lossless_only_and_a_coarser_budget_takes_a_step_grid()
         Grid("scaled", 0.1, "float64", step=0.01, offset=0.5)
     with pytest.raises(Exception, match="positive and finite"):
         Grid("scaled", 0.0, "float64", step=float("nan"), offset=0.5)
+
+
+# --- the ordered grid (format 8): lossless float32 / float16 -----------------------------------------------
+
+
+@given(hnp.arrays(np.float32, st.integers(1, 200), elements=st.floats(width=32, allow_nan=False)))
+def test_the_ordered_grid_s_integers_follow_ieee_total_order(x):
+    # Reference: IEEE 754-2008 section 5.10 totalOrder on non-NaN floats: -0.0 before +0.0, then by value;
+    # numpy's sort with -0.0/+0.0 split by the sign bit (np.signbit) is that order.
+    from tsarchive.quantize import ordered_ints
+    key = np.lexsort((~np.signbit(x), x))           # by value, then -0.0 before +0.0
+    s = x[key]
+    q = ordered_ints(s, "float32")
+    same = s.view(np.uint32)[1:] == s.view(np.uint32)[:-1]
+    assert np.all((np.diff(q) > 0) | same)
+
+
+@pytest.mark.parametrize("dtype", ["float32", "float16"])
+def test_the_ordered_grid_gives_back_every_float_bit_for_bit(dtype):
+    # every bit pattern of float16, and float32 patterns with NaN payloads, infinities, -0.0 and subnormals;
+    # compared on the raw bits (numpy views), the IEEE 754 interchange encoding
+    if dtype == "float16":
+        x = np.arange(1 << 16, dtype=np.uint32).astype(np.uint16).view(np.float16)
+    else:
+        bits = np.random.default_rng(3).integers(0, 1 << 32, 50_000, dtype=np.uint64).astype(np.uint32)
+        special = np.array([0x00000000, 0x80000000, 0x7F800000, 0xFF800000, 0x7FC00001, 0xFFFFFFFF, 0x00000001,
+                            0x807FFFFF, 0x7F7FFFFF], dtype=np.uint32)
+        x = np.concatenate([bits, special]).view(np.float32)
+    grid = Grid("ordered", 0.0, dtype)
+    q, pos, bits_kept = quantize(x, grid)
+    assert len(pos) == 0 and q.dtype == np.int64
+    assert np.array_equal(grid.dequantize(q, pos, bits_kept).view(f"u{x.itemsize}"), x.view(f"u{x.itemsize}"))

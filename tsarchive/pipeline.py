@@ -43,7 +43,7 @@ from .ingest import read_recording
 from .modelrun import Choice, GivenModel, ModelRun, PackSample, _gather, _release_memory
 from .options import DEFAULT_TRAIN_SECONDS, PackOptions
 from .predict import PREDICTORS
-from .quantize import Grid, make_grid
+from .quantize import ORDERED_DTYPES, Grid, make_grid
 from .ranges import finite_ranges
 from .recording import Recording
 from .results import ChannelSummary, ChannelTally, PackResult, Progress, ProgressFn
@@ -240,11 +240,13 @@ def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
     stretches = _phase_sample(rec)
     for ch, r, x in zip(rec.channels, ranges, stretches):
         budget = spec.for_channel(ch.name)
-        if budget.kind == "lossless" and ch.decimals is None and ch.scaled is None:
-            raise BudgetError(f"channel {ch.name} is not on an integer or decimal grid, so 'lossless' is "
-                              f"unavailable; give it a budget such as {ch.name}=0.1%")
+        exact_floats = budget.kind == "lossless" and ch.decimals is None and ch.scaled is None
+        if exact_floats and ch.dtype not in ORDERED_DTYPES:
+            raise BudgetError(f"channel {ch.name} holds {ch.dtype} values on no integer or decimal grid, so "
+                              f"'lossless' is unavailable; give it a budget such as {ch.name}=0.1%")
         eps = budget.resolve(r.span, ch.name)
-        g = make_grid(eps, ch.decimals, np.dtype(ch.dtype), r.anchor, r.mult, origin=r.origin, scaled=ch.scaled)
+        g = Grid("ordered", 0.0, ch.dtype) if exact_floats else \
+            make_grid(eps, ch.decimals, np.dtype(ch.dtype), r.anchor, r.mult, origin=r.origin, scaled=ch.scaled)
         if r.no_mark:
             raise BadInput(f"channel {ch.name} has missing samples but no value of {ch.dtype} is free to mark "
                            "them; fill the gaps or store the column in a wider integer type")

@@ -3,7 +3,7 @@
 This is where the error bound is made.  Everything after this stage codes
 the integers ``q`` losslessly, so the bound cannot be lost downstream.
 
-Three grids:
+Four grids:
 
 * ``step``: ``x̂ = offset + q * step`` with ``step = 2ε`` (uniform
   quantization; a uniform quantizer's maximum error is Δ/2 = ε).
@@ -20,6 +20,13 @@ Three grids:
   physical max / bitvalue - digital max`` (the arithmetic of EDFlib, which
   pyedflib wraps).  The same two roundings in the same order give back the
   very double the reader produced; ``q`` is the stored integer.
+* ``ordered`` (format 8): lossless float32 and float16 channels on no other
+  grid.  ``q`` is the float's bit pattern as a signed integer with the
+  negative floats' magnitude bits flipped (``b ^ ((b >> 31) & 0x7fffffff)``
+  for float32), an order-preserving map (-0.0 is -1, +0.0 is 0) that is its
+  own inverse: every float, NaN payloads and infinities included, comes back
+  bit for bit, and neighbouring values are neighbouring integers that the
+  predictors can follow.
 
 Integer channels (int8 … uint64) whose grid has an integer origin and step
 never go through float64: ``q`` is found by exact integer division, the
@@ -52,7 +59,8 @@ _MAX_Q = float(2**50)
 MAX_MULT = 1 << 20
 MAX_DECIMALS = 15              # decimal grids: at most this many decimals (what a manifest may hold)
 MAX_INT_STEP = 1 << 53          # integer grids: steps above this (absurd budgets) are clamped, exactly representable
-KINDS = ("step", "decimal", "scaled")
+KINDS = ("step", "decimal", "scaled", "ordered")
+ORDERED_DTYPES = {"float32": (np.int32, 31), "float16": (np.int16, 15)}   # the ordered grid's float -> int views
 
 
 class InvalidGrid(ArchiveCorrupt):
@@ -91,10 +99,12 @@ class Grid:
     def _problem(self) -> str | None:
         if self.kind not in KINDS:
             return f"unknown grid kind {self.kind!r}"
-        if self.kind != "decimal" and not (math.isfinite(self.step) and self.step > 0 and math.isfinite(self.offset)):
+        if self.kind in ("step", "scaled") and not (math.isfinite(self.step) and self.step > 0 and math.isfinite(self.offset)):
             return "grid step must be positive and finite"
-        if self.kind == "scaled" and self.eps != 0:
-            return "a scaled grid is exact only"
+        if self.kind in ("scaled", "ordered") and self.eps != 0:
+            return f"a {self.kind} grid is exact only"
+        if self.kind == "ordered" and self.out_dtype not in ORDERED_DTYPES:
+            return f"an ordered grid holds float32 or float16 samples, not {self.out_dtype}"
         if self.kind == "decimal" and not 0 <= self.decimals <= MAX_DECIMALS:
             return f"grid decimals {self.decimals} out of range 0..{MAX_DECIMALS}"
         if not 1 <= self.mult <= MAX_MULT:
@@ -182,6 +192,8 @@ class Grid:
     # -- the two directions ---------------------------------------------------
     def values(self, q: np.ndarray) -> np.ndarray:
         """float64 x̂ for integers ``q`` (before conversion to the output dtype)."""
+        if self.kind == "ordered":
+            return ordered_floats(q, self.out_dtype).astype(np.float64)
         qf = q.astype(np.float64)               # a new array: the operations below run in place
         if self.kind == "decimal":
             # q * mult is an exact integer below 2**53, and the division is correctly rounded
@@ -211,6 +223,8 @@ class Grid:
         ip = self.int_params()
         if ip is not None:
             return self._int_decode(q, *ip)
+        if self.kind == "ordered":
+            return ordered_floats(q, self.out_dtype)
         return self.to_out(self.values(q))
 
     def dequantize(self, q: np.ndarray, exc_pos: np.ndarray | None = None,
@@ -333,7 +347,24 @@ def quantize(x: np.ndarray, grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndar
     return q, pos.astype(np.int64), all_bits[pos]
 
 
+def ordered_ints(x: np.ndarray, dtype: str) -> np.ndarray:
+    """The ordered grid's integers (int64) of samples ``x`` in float ``dtype`` (see the module doc)."""
+    view, top = ORDERED_DTYPES[dtype]
+    b = np.ascontiguousarray(x, dtype=dtype).view(view)
+    return (b ^ ((b >> top) & view(np.iinfo(view).max))).astype(np.int64)
+
+
+def ordered_floats(q: np.ndarray, dtype: str) -> np.ndarray:
+    """Samples in float ``dtype`` from the ordered grid's integers ``q`` (the map is its own inverse)."""
+    view, top = ORDERED_DTYPES[dtype]
+    with np.errstate(over="ignore"):
+        b = np.asarray(q, dtype=np.int64).astype(view)
+    return (b ^ ((b >> top) & view(np.iinfo(view).max))).view(dtype)
+
+
 def _quantize(x: np.ndarray, grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    if grid.kind == "ordered":
+        return ordered_ints(x, grid.out_dtype), np.zeros(0, np.int64), np.zeros(0, np.int64)
     ip = grid.int_params()
     if ip is not None and x.dtype.kind in "iu":
         return _quantize_int(x.astype(grid.out_dtype, copy=False), grid, *ip)

@@ -234,9 +234,10 @@ def channel_list(m: dict) -> list[dict]:
 def grids_of_version(channels, version: int) -> None:
     """Refuse a grid kind that the archive's format version does not have (a crafted or mixed archive)."""
     for c in channels:
-        if c.grid.kind == "scaled" and version < S.SCALED_FROM_VERSION:
-            raise corrupt(f"channel {c.name[:40]!r}: a scaled grid in a format {version} archive (scaled grids "
-                          f"are format {S.SCALED_FROM_VERSION} on)")
+        since = S.GRIDS_OF_VERSION.get(c.grid.kind, S.OLDEST_READABLE)
+        if version < since:
+            raise corrupt(f"channel {c.name[:40]!r}: a {c.grid.kind} grid in a format {version} archive "
+                          f"({c.grid.kind} grids are format {since} on)")
 
 
 def channel_meta(d: dict, W: int) -> ChannelMeta:

@@ -38,8 +38,9 @@ sharing a row group, and the compact manifest (compact.py).  Version 6
 keeps that manifest zstd-compressed inside ``windows.parquet``'s footer with
 its footer's digest and the rows' digest (inside.py): no ``manifest.json``, and
 the window rows in lean6.py's columns.  Version 7 writes the footer values as
-7-bit text and slims every footer (slim.py).  Version 8 adds the grid kind
-``scaled`` (``x̂ = (q + offset) * step``, quantize.py), nothing else.  The columns
+7-bit text and slims every footer (slim.py).  Version 8 adds the grid kinds
+``scaled`` (``x̂ = (q + offset) * step``: EDF) and ``ordered`` (lossless float32 and float16),
+quantize.py, nothing else.  The columns
 below (``WINDOWS_SCHEMA``, ``EXCEPTIONS_SCHEMA``) are the logical rows every
 version is read as, and those stored by versions 3 and 4.
 """
@@ -59,7 +60,7 @@ MANIFEST_KEY = b"tsarchive.manifest"   # windows.parquet footer key of format 7:
 DIGEST_KEY = b"tsarchive.digest"       # ... and the footer's SHA-256, taken with its value zeroed (inside.py;
                                        # format 6: b"tsarchive" and b"tsarchive.sha256", raw bytes)
 TEXT_FROM_VERSION = 7                  # from this version on, footer values are 7-bit text, the footer slimmed
-SCALED_FROM_VERSION = 8                # from this version on, a grid may be "scaled" (quantize.py: EDF's arithmetic)
+GRIDS_OF_VERSION = {"scaled": 8, "ordered": 8}   # grid kinds added after version 3, and the version that added them
 
 MANIFEST = "manifest.json"             # formats 3 to 5 (format 6 keeps it inside windows.parquet)
 WINDOWS = "windows.parquet"

@@ -1,13 +1,16 @@
 """Make the golden archive of format 8: ``python tests/golden/v8/make_golden.py`` (once; never again after
 format 8 has shipped).
 
-Format 8 is format 7 plus one grid kind, ``scaled`` (``x̂ = (q + offset) * step``: an EDF or BDF reader's
-physical values kept bit for bit).  The source is an EDF+ file written here with pyedflib (an invented bench
+Format 8 is format 7 plus two grid kinds: ``scaled`` (``x̂ = (q + offset) * step``: an EDF or BDF reader's
+physical values kept bit for bit) and ``ordered`` (lossless float32 and float16 on no other grid: the float's
+bits as an order-preserving integer).  The source is an EDF+ file written here with pyedflib (an invented bench
 test of a three-channel amplifier on a phantom, 20 s at 256 Hz) and committed as ``source.edf``: an EEG-like
 signal (a symmetric range) and an ECG-like one (an uneven range) on 16 bits kept ``lossless`` on their scaled grids, and a skin
 temperature on 12 bits (30..42 degC) within 0.05 degC on a step grid.  ``golden8`` holds the
 archive and ``expected.npz`` its decoded samples, which ``tests/test_golden_v8.py`` reproduces bit for bit
-(and, for the lossless signals, against pyedflib's own reading of ``source.edf``).  What formats 3 to 7 froze
+(and, for the lossless signals, against pyedflib's own reading of ``source.edf``).  ``ordered8`` holds
+``floats.npy`` (numpy's writer: an invented shaker accelerometer in float32 after a calibration factor, with a
+dropout of NaN, both infinities, -0.0 and a subnormal) packed lossless, with ``expected_ordered.npz``.  What formats 3 to 7 froze
 stays frozen by their golden archives; the reading code behind them is the same for format 8.
 """
 
@@ -77,6 +80,28 @@ def main() -> None:
     x = {c.name: arc.read(c.name) for c in arc.channels}
     np.savez_compressed(HERE / "expected.npz", **x)
     print(f"wrote {out} ({arc.archive_bytes} bytes) and expected.npz")
+    ordered()
+
+
+def ordered() -> None:
+    """``ordered8``: a float32 channel kept lossless on the ordered grid, and a float16 one."""
+    import tsarchive
+    src = HERE / "floats.npy"
+    if not src.exists():
+        rng = np.random.default_rng(21)
+        t = np.arange(6000) / 5000.0
+        a = (2.0 * np.sin(2 * np.pi * 120 * t) + rng.normal(0, 0.05, t.size)) * 1.0137
+        x = a.astype(np.float32)
+        x[1000:1040] = np.nan
+        x[2000], x[2001], x[3000], x[3001] = np.inf, -np.inf, -0.0, np.float32(1e-45)
+        np.save(src, x[:, None])
+    out = HERE / "ordered8"
+    shutil.rmtree(out, ignore_errors=True)
+    tsarchive.pack(src, out, "lossless", rate=5000.0, code_size=0, segment=0)
+    arc = tsarchive.open(out)
+    assert [c.grid.kind for c in arc.channels] == ["ordered"], "the archive does not freeze the ordered grid"
+    np.savez_compressed(HERE / "expected_ordered.npz", **{c.name: arc.read(c.name) for c in arc.channels})
+    print(f"wrote {out} ({arc.archive_bytes} bytes) and expected_ordered.npz")
 
 
 if __name__ == "__main__":

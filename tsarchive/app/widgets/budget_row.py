@@ -9,11 +9,15 @@ from textual.widgets import Input, Label
 from tsarchive.budget import DEFAULT_SPEC as DEFAULT_BUDGET
 
 
-def resolution_text(decimals: int | None) -> str:
-    """The detected logging step in words (``None``: no grid, so no lossless)."""
-    if decimals is None:
-        return "no fixed step (lossless not offered)"
-    return f"step {10.0 ** (-decimals):g}"
+def resolution_text(channel) -> str:
+    """The detected logging step in words, and whether ``lossless`` is offered (pipeline._grids' rule)."""
+    if channel.decimals is not None:
+        return f"step {10.0 ** (-channel.decimals):g}"
+    if getattr(channel, "scaled", None) is not None:
+        return f"step {channel.scaled[0]:g} (the file's integers)"
+    if channel.dtype in ("float32", "float16"):
+        return f"no fixed step (lossless keeps the {channel.dtype} bits)"
+    return "no fixed step (lossless not offered)"
 
 
 class BudgetRow(Horizontal):
@@ -31,7 +35,7 @@ class BudgetRow(Horizontal):
         yield Input(value=self._spec, placeholder=DEFAULT_BUDGET, id=f"budget-{self.index}",
                     classes="budget-input", compact=True,
                     tooltip="error budget: 0.02 (channel units), 0.1% (of range) or lossless")
-        yield Label(resolution_text(self.channel.decimals), classes="budget-step", markup=False)
+        yield Label(resolution_text(self.channel), classes="budget-step", markup=False)
 
     @property
     def spec(self) -> str:
