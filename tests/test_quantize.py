@@ -203,3 +203,14 @@ def test_the_ordered_grid_gives_back_every_float_bit_for_bit(dtype):
     q, pos, bits_kept = quantize(x, grid)
     assert len(pos) == 0 and q.dtype == np.int64
     assert np.array_equal(grid.dequantize(q, pos, bits_kept).view(f"u{x.itemsize}"), x.view(f"u{x.itemsize}"))
+
+
+def test_an_ordered_grid_read_from_a_manifest_must_be_exact_and_hold_float32_or_float16():
+    # a manifest's grid is checked before any decoding: damage (ArchiveCorrupt), in one line
+    from tsarchive.errors import ArchiveCorrupt
+    with pytest.raises(ArchiveCorrupt, match="float32 or float16 samples, not float64"):
+        Grid.from_dict({"kind": "ordered", "eps": 0.0, "out_dtype": "float64", "step": 1.0, "offset": 0.0,
+                        "decimals": 0})
+    with pytest.raises(ArchiveCorrupt, match="exact only"):
+        Grid.from_dict({"kind": "ordered", "eps": 0.5, "out_dtype": "float32", "step": 1.0, "offset": 0.0,
+                        "decimals": 0})
