@@ -26,6 +26,7 @@ from .coding.classic import ClassicCoder
 from .codec import TableSet, choose_modes, proxy_bits
 from .predict import Context
 from .predict import lpc as lpc_mod
+from .gridphase import candidates
 from .quantize import Grid
 from .windows import spread
 from .windowcodec import code_windows, predict_windows  # noqa: F401  (code_windows: the plan codes too)
@@ -33,6 +34,7 @@ from .windowcodec import code_windows, predict_windows  # noqa: F401  (code_wind
 TABLE_SAMPLES = 1 << 20      # bound on the samples used to plan each channel (and to sample training windows)
 MIN_TABLE_SAMPLES = 8192     # a table class with fewer samples is merged into its neighbour
 CHOICE_SAMPLES = 1 << 18     # bound on the samples per channel the coder choice codes each way
+EXCEPTION_BYTES = 12         # what a sample stored verbatim costs, roughly (position and raw value)
 FIT_MIN_SAMPLES = 1 << 17    # channels shorter than this never try a fitted initial state (its bytes
                              # pay only on about 1e5 samples or more: bench --study residuals)
 
@@ -140,6 +142,33 @@ def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, 
         bq, _, _, blv, _, _ = predict_windows(blocks, grid, W, None, scale)
         on_grid = (bq, blv)
     return fallback.classic_choice(q, lv, n_total_windows, best_bytes, on_grid) or best
+
+
+def classic_phase(windows: np.ndarray, blocks: np.ndarray | None, n_total_windows: int, grid: Grid, W: int,
+                  coder):
+    """The grid (``grid`` or a shifted copy of it, :func:`~tsarchive.gridphase.candidates`) on which a
+    classic channel's ``coder`` codes the same windows :func:`choose_coder` measured it on in the fewest
+    bytes, and the coder; ``grid`` itself for any other coder or a grid that holds values verbatim.
+
+    :func:`~tsarchive.gridphase.choose_phase` placed the grid by the first differences' cost before the
+    coder was known; a general-purpose compressor finds repeats that cost does not see (appliance_acsf1
+    at 1 %: xz takes 2844 B of the channel at offset 0, 3072 B at the offset chosen by that cost).  Each
+    candidate costs one pass of the chosen combination (not the full choice), counted as
+    :func:`~tsarchive.coding.fallback.measure` counts it plus ``EXCEPTION_BYTES`` a verbatim sample,
+    scaled alike; a tie keeps the earlier candidate (``grid`` first)."""
+    options = [grid] if grid.verbatim or grid.missing is not None else candidates(grid, grid.mult)
+    if not isinstance(coder, ClassicCoder) or len(options) == 1 or not len(windows):
+        return grid, coder
+    pick = spread(len(windows), max(1, CHOICE_SAMPLES // W))
+
+    def size(g: Grid) -> int:
+        q, pos, _, lv, _, _ = predict_windows(windows[pick], g, W, None, 1)
+        on = None if coder.block == 1 else predict_windows(blocks, g, W, None, 1)[::3]   # (windows, levels)
+        held = len(pos) * n_total_windows // len(q)
+        return fallback.measure(coder, q, lv, n_total_windows, on) + EXCEPTION_BYTES * held
+
+    sizes = [size(g) for g in options]
+    return options[min(range(len(options)), key=lambda i: (sizes[i], i))], coder
 
 
 def coder_tables(coder, tables: TableSet) -> TableSet:

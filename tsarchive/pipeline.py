@@ -36,7 +36,7 @@ import pyarrow as pa
 
 from .channelcodec import ChannelCodec
 from .coding import fallback
-from .encoder import choose_coder, coder_tables
+from .encoder import choose_coder, classic_phase, coder_tables
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
 from .gridphase import choose_phase
 from .ingest import read_recording
@@ -188,8 +188,9 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
         tables = p.tables if model is not None else p.tables_plain
         coder = choose_coder(sample.windows[j], sample.nwin, grids[j], sample.W, model, sample.scales[j], p.lpc,
                              tables, blocks[j])
+        grid, coder = classic_phase(sample.windows[j], blocks[j], sample.nwin, grids[j], sample.W, coder)
         coder, tables = fallback.tail_rule(coder, rec.n_samples, sample.W), coder_tables(coder, tables)
-        return ChannelCodec.for_tables(names[j], sample.W, grids[j], sample.scales[j], p.lpc, tables,
+        return ChannelCodec.for_tables(names[j], sample.W, grid, sample.scales[j], p.lpc, tables,
                                        residual_coder=coder)
     blocks = _block_sample(sample)
     with ThreadPoolExecutor(worker_count(len(names))) as pool:     # channels side by side
