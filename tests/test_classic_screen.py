@@ -127,3 +127,20 @@ def test_screen_bytes_are_zstd_at_that_level_with_the_header_byte():
     assert classic.screen_bytes(x, 1, True, 9) == 1 + len(zstandard.ZstdCompressor(level=9).compress(shuffled))
     assert classic.screen_bytes(x, 1, False, 3) == 1 + len(zstandard.ZstdCompressor(level=3).compress(raw))
     assert classic.screen_bytes(np.zeros(0, np.int64), 0, False, 9) == 0
+
+
+@pytest.mark.parametrize("make", SIGNALS)
+@pytest.mark.parametrize("order", [-1, 0, 1])
+def test_the_window_estimate_is_the_smaller_of_zstd_19_and_bzip2(make, order, monkeypatch):
+    # what the window length's choice counts a window: 1 header byte + the smaller of the libraries' zstd -19
+    # and bzip2 -9 bodies of the unshuffled values, zstd -19 left out only where bzip2 is smaller anyway
+    import bz2
+    import zstandard
+    runs = _counting(monkeypatch)
+    for w in make():
+        v = np.cumsum(w) if order == -1 else (np.diff(w, prepend=0) if order == 1 else w)
+        width = next(b for b in (1, 2, 4, 8) if -(2 ** (8 * b - 1)) <= v.min() and v.max() < 2 ** (8 * b - 1))
+        raw = v.astype(f"<i{width}").tobytes()
+        want = 1 + min(len(zstandard.ZstdCompressor(level=19).compress(raw)), len(bz2.compress(raw, 9)))
+        assert fallback._fewer_fast(w, order) == want
+    assert runs[2] == len(make()) and runs[0] <= len(make())

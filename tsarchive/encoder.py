@@ -8,6 +8,8 @@
   range coder under the plan's tables, or the adaptive coder (from rest or from
   a fitted initial state), whichever codes the sample smallest, counted in
   whole bytes with what each adds to the manifest;
+* :func:`classic_phase` — for a channel the classic coder takes, the grid's
+  phase its compressor codes the same sample smallest in;
 * :func:`code_windows` — residuals -> payloads under the plan's tables.
 
 The rows themselves are made by :func:`tsarchive.windowcodec.encode_windows`.
@@ -24,9 +26,9 @@ from .coding import fallback
 from .coding.adaptive import AdaptiveCoder
 from .coding.classic import ClassicCoder
 from .codec import TableSet, choose_modes, proxy_bits
+from .gridphase import candidates
 from .predict import Context
 from .predict import lpc as lpc_mod
-from .gridphase import candidates
 from .quantize import Grid
 from .windows import spread
 from .windowcodec import code_windows, predict_windows  # noqa: F401  (code_windows: the plan codes too)
@@ -156,9 +158,8 @@ def classic_phase(windows: np.ndarray, blocks: np.ndarray | None, n_total_window
 
     :func:`~tsarchive.gridphase.choose_phase` placed the grid by the first differences' cost before the
     coder was known; a general-purpose compressor finds repeats that cost does not see (appliance_acsf1
-    at 1 %: xz in blocks takes 3.3 % fewer bytes of the channel a quarter step up, the archive 3852 ->
-    3562 B).  Each
-    candidate costs one pass of the chosen combination (not the full choice), counted as
+    at 1 %: xz in blocks takes 2577 B of the channel a quarter step up, 2801 B where that cost put the
+    grid).  Each candidate costs one pass of the chosen combination (not the full choice), counted as
     :func:`~tsarchive.coding.fallback.measure` counts it plus ``EXCEPTION_BYTES`` a verbatim sample,
     scaled alike; the grid moves to the smallest (the earliest of a tie) only where it takes fewer than
     ``PHASE_GAIN`` of the bytes ``grid`` takes."""

@@ -71,7 +71,6 @@ SCREEN_LEVEL = 9            # zstd level standing in for zstd -19 in the choice 
 SCREEN_GAIN = (3, 4)        # zstd -19 takes at least 3/4 of what zstd SCREEN_LEVEL takes: 0.74 at least on the
                             # real cases' samples at 1, 0.1, 0.01 % (828 combinations) but one, 0.57
                             # (resp_pyphysio at 0.01 %, where bzip2 takes 28 % less anyway); 0.91 on bench --speed
-_FAST = ("zstd", "bzip2")
 
 
 def estimate(payload_bytes: int, count: int, n_total_windows: int, stored) -> int:
@@ -208,8 +207,18 @@ def classic_bytes(q: np.ndarray, level: np.ndarray) -> int:
         return 0
     res = prev_residuals(q, level)
     sub = res[spread(len(res), max(1, SETTING_SAMPLES // res.shape[1]))]
-    size = min(sum(map(len, ClassicCoder(_FAST, (order,), (False,)).encode_many(sub))) for order in ORDERS)
+    size = min(sum(_fewer_fast(w, order) for w in sub) for order in ORDERS)
     return size * len(res) // len(sub)
+
+
+def _fewer_fast(values: np.ndarray, order: int) -> int:
+    """Bytes of ``values`` unshuffled with ``order`` by the smaller of zstd -19 and bzip2 -9 (what
+    ``ClassicCoder(("zstd", "bzip2"), (order,), (False,))`` takes), zstd -19 screened as in
+    :func:`_setting`: not run where its bound is at least bzip2's bytes."""
+    bz = len(ClassicCoder(("bzip2",), (order,), (False,)).encode(values))
+    if screen_bytes(values, order, False, SCREEN_LEVEL) * SCREEN_GAIN[0] // SCREEN_GAIN[1] >= bz:
+        return bz
+    return min(bz, len(ClassicCoder(("zstd",), (order,), (False,)).encode(values)))
 
 
 def _setting(res, promising: Callable[[int], bool], block: int = 1) -> tuple[ClassicCoder | None, list[bytes]]:
