@@ -26,7 +26,6 @@ from .coding import fallback
 from .coding.adaptive import AdaptiveCoder
 from .coding.classic import ClassicCoder
 from .codec import TableSet, choose_modes, proxy_bits
-from .gridphase import candidates
 from .predict import Context
 from .predict import lpc as lpc_mod
 from .quantize import Grid
@@ -150,11 +149,12 @@ def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, 
     return fallback.classic_choice(q, lv, n_total_windows, best_bytes, on_grid) or best
 
 
-def classic_phase(windows: np.ndarray, blocks: np.ndarray | None, n_total_windows: int, grid: Grid, W: int,
+def classic_phase(windows: np.ndarray, blocks: np.ndarray | None, n_total_windows: int, options, W: int,
                   coder):
-    """The grid (``grid`` or a shifted copy of it, :func:`~tsarchive.gridphase.candidates`) on which a
-    classic channel's ``coder`` codes the same windows :func:`choose_coder` measured it on in the fewest
-    bytes, and the coder; ``grid`` itself for any other coder or a grid that holds values verbatim.
+    """The grid of ``options`` (the channel's grid first, then its other phases:
+    :func:`~tsarchive.gridphase.ranked_phases`) on which a classic channel's ``coder`` codes the same
+    windows :func:`choose_coder` measured it on in the fewest bytes, and the coder; the first for any
+    other coder.
 
     :func:`~tsarchive.gridphase.choose_phase` placed the grid by the first differences' cost before the
     coder was known; a general-purpose compressor finds repeats that cost does not see (appliance_acsf1
@@ -162,8 +162,8 @@ def classic_phase(windows: np.ndarray, blocks: np.ndarray | None, n_total_window
     grid).  Each candidate costs one pass of the chosen combination (not the full choice), counted as
     :func:`~tsarchive.coding.fallback.measure` counts it plus ``EXCEPTION_BYTES`` a verbatim sample,
     scaled alike; the grid moves to the smallest (the earliest of a tie) only where it takes fewer than
-    ``PHASE_GAIN`` of the bytes ``grid`` takes."""
-    options = [grid] if grid.verbatim or grid.missing is not None else candidates(grid, grid.mult)
+    ``PHASE_GAIN`` of the bytes the first takes."""
+    grid = options[0]
     if not isinstance(coder, ClassicCoder) or len(options) == 1 or not len(windows):
         return grid, coder
     pick = spread(len(windows), max(1, CHOICE_SAMPLES // W))
