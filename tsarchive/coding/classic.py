@@ -112,6 +112,11 @@ def _packed(x: np.ndarray, order: int) -> tuple[bytes, int]:
     return r.astype(_WIDTHS[width]).astype(f"<i{width}").tobytes(), width
 
 
+def value_width(values, order: int) -> int:
+    """Bytes a value of ``values`` (one window) takes differenced ``order`` times, as the coder stores it."""
+    return _narrowest(difference(np.asarray(values), order))
+
+
 def screen_bytes(values, order: int, shuffle: bool, level: int) -> int:
     """Bytes of one window ``values`` under the combination (zstd, ``order``, ``shuffle``) were zstd run
     at ``level`` instead of 19: a quick stand-in for the packer's choice (:mod:`.fallback`)."""

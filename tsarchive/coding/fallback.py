@@ -60,7 +60,7 @@ import numpy as np
 from tsarchive.predict import Context, get_predictor
 from tsarchive.windows import spread
 
-from .classic import MAX_BLOCK, ClassicCoder, screen_bytes, window_offsets
+from .classic import MAX_BLOCK, ClassicCoder, screen_bytes, value_width, window_offsets
 
 PREV = 0                    # the predictor of every window of a classic channel (predict.PREDICTORS)
 SETTING_SAMPLES = 1 << 16   # bound on the samples the combination is chosen on
@@ -232,10 +232,16 @@ def _setting(res, promising: Callable[[int], bool], block: int = 1) -> tuple[Cla
     module docstring)."""
     tried: dict[tuple[str, int, bool], list[bytes]] = {}
     bound: dict[tuple[str, int, bool], int] = {}
+    narrow = {order: all(value_width(r, order) == 1 for r in res) for order in ORDERS}
+
+    def run(name: str, order: int, shuf: bool) -> list[bytes]:     # one-byte values: shuffling changes nothing
+        same = tried.get((name, order, False)) if shuf and narrow[order] else None
+        return same if same is not None else ClassicCoder((name,), (order,), (shuf,)).encode_many(res)
+
     for order in ORDERS:
         for shuf in (False, True):
-            tried[("bzip2", order, shuf)] = ClassicCoder(("bzip2",), (order,), (shuf,)).encode_many(res)
-            quick = sum(screen_bytes(r, order, shuf, SCREEN_LEVEL) for r in res)
+            tried[("bzip2", order, shuf)] = run("bzip2", order, shuf)
+            quick = sum(screen_bytes(r, order, shuf and not narrow[order], SCREEN_LEVEL) for r in res)
             bound[("zstd", order, shuf)] = quick * SCREEN_GAIN[0] // SCREEN_GAIN[1]
 
     def size(key) -> int:
@@ -252,12 +258,12 @@ def _setting(res, promising: Callable[[int], bool], block: int = 1) -> tuple[Cla
         if not pending or bound[pending[0]] > size(best()):
             break               # zstd -19 takes more than the best wherever it has not run: none is chosen
         key = pending.pop(0)
-        tried[key] = ClassicCoder(("zstd",), key[1:2], key[2:]).encode_many(res)
+        tried[key] = run(*key)
     to_beat = size(best())
     if promising(to_beat * XZ_WITHIN[1] // XZ_WITHIN[0]):
         for order in ORDERS:     # every order and shuffle: xz's best is not always zstd's (appliance_acsf1)
             for shuf in (False, True):
-                tried[("xz", order, shuf)] = ClassicCoder(("xz",), (order,), (shuf,)).encode_many(res)
+                tried[("xz", order, shuf)] = run("xz", order, shuf)
     name, order, shuf = best()
     if not promising(size((name, order, shuf))):
         return None, []
