@@ -32,10 +32,12 @@ windows, the one the other coders are measured on (:func:`tsarchive.encoder.choo
    best so far, and nothing more runs (no zstd -19, no xz) where the bounds
    and the bzip2 bytes together are out of xz's reach.  Where zstd -19 takes
    at least that bound, this is the choice trying every combination makes,
-   with fewer zstd -19 runs (measured against the full search: the 8
-   channels of ``bench --speed`` at 0.05 h, the same 16 choices with 6
-   instead of 432 runs of a window or block; the real cases at 1, 0.1 and
-   0.01 %, the same 138 choices with 3164 instead of 4338);
+   with fewer runs (one-byte values are not coded again shuffled: the same
+   bytes).  Measured against the full search: the 8 channels of ``bench
+   --speed`` at 0.05 h, the same 16 choices with 3 instead of 432 zstd -19
+   runs of a window or block; the real cases at 1, 0.1 and 0.01 %, the same
+   138 choices with 2622 instead of 4338 zstd -19 runs, 3518 instead of 4338
+   bzip2, 1948 instead of 2196 xz;
 2. that one combination codes the rest of the sample, and the channel takes
    it only if its estimate (payload bytes scaled to the channel, plus its
    config in the manifest) is strictly below the best other coder's;
