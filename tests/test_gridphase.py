@@ -65,3 +65,18 @@ def test_lossless_and_decimal_grids_do_not_move():
     assert candidates(g) == [g]
     x = np.arange(100.0).reshape(1, 100)
     assert choose_phase(g, x) is g
+
+
+def test_ranked_phases_are_every_shift_the_cheapest_first():
+    # the boundary signal above: the shifts are the grid's offset plus k/4 of a step and the step's multiple
+    # below it (the module docstring); the grid as made (on the boundary) flips about half its samples and
+    # comes last, the first flips at most once (flips counted with numpy)
+    from tsarchive.gridphase import ranked_phases
+    rng = np.random.default_rng(4)
+    x = np.concatenate([[0.3], 0.5 + rng.uniform(-0.05, 0.05, 8191)])
+    g0 = make_grid(0.5, None, np.dtype(np.float64), 0.3)           # step 1.0, offset 0.3
+    ranked = ranked_phases(g0, x.reshape(8, 1024))
+    assert sorted(g.offset for g in ranked) == sorted({0.3 + k * 1.0 / 4 for k in range(4)} | {0.0})
+    flips = [int(np.count_nonzero(np.diff(quantize(x, g)[0]))) for g in ranked]
+    assert flips[0] <= 1 and ranked[0] == choose_phase(g0, x.reshape(8, 1024))
+    assert max(flips) == flips[-1] > 1000 and ranked[-1].offset == 0.0    # 0.5 sits on its boundary

@@ -460,7 +460,7 @@ def test_quick_gain_estimate_counts_with_and_without_the_model_on_the_same_windo
     t = np.arange(W * nw)
     x = (np.sin(t / 3.0) + 0.3 * np.sin(t / 17.0) + 0.01 * np.random.default_rng(2).standard_normal(t.size))
     rec = Recording(data=x.astype(np.float32)[:, None], rate=100.0, channels=(ChannelInfo("a", "", "float32"),))
-    grids, _ = pipeline._grids(rec, parse_budget_spec("0.5%"))
+    grids = pipeline._grids(rec, parse_budget_spec("0.5%"))[0]
     sampled = modelrun._gather(rec, np.arange(nw), W)
     scales, xs = modelrun._training_set(sampled, grids, W, 1)
     model = train_autoencoder(np.concatenate(xs), 4, max_epochs=5, seed=0)

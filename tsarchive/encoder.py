@@ -8,6 +8,8 @@
   range coder under the plan's tables, or the adaptive coder (from rest or from
   a fitted initial state), whichever codes the sample smallest, counted in
   whole bytes with what each adds to the manifest;
+* :func:`classic_phase` — for a channel the classic coder takes, the grid's
+  phase its compressor codes the same sample smallest in;
 * :func:`code_windows` — residuals -> payloads under the plan's tables.
 
 The rows themselves are made by :func:`tsarchive.windowcodec.encode_windows`.
@@ -36,6 +38,11 @@ CHOICE_SAMPLES = 1 << 18     # bound on the samples per channel the coder choice
 ADAPTIVE_GAIN = (127, 128)   # the adaptive coder is taken only where it codes the sample in fewer than 127/128
                              # of the range coder's bytes: it decodes at about half its speed (bench --speed's
                              # recording: 50 against 24 ms a 900 000-sample channel, for 0.18 % fewer bytes)
+PHASE_GAIN = (127, 128)      # a classic channel's grid moves where the sample's bytes drop below 127/128 of them:
+                             # a sample's smaller gains do not hold on the channel (seismo_kw1 at 1 %: 0.05 %
+                             # fewer bytes on two blocks, 0.5 % more on the channel; appliance_acsf1 at 0.01 %:
+                             # 1.0 % fewer on both)
+EXCEPTION_BYTES = 12         # what a sample stored verbatim costs, roughly (position and raw value)
 FIT_MIN_SAMPLES = 1 << 17    # channels shorter than this never try a fitted initial state (its bytes
                              # pay only on about 1e5 samples or more: bench --study residuals)
 
@@ -147,6 +154,36 @@ def choose_coder(windows: np.ndarray, n_total_windows: int, grid: Grid, W: int, 
         bq, _, _, blv, _, _ = predict_windows(blocks, grid, W, None, scale)
         on_grid = (bq, blv)
     return fallback.classic_choice(q, lv, n_total_windows, best_bytes, on_grid) or best
+
+
+def classic_phase(windows: np.ndarray, blocks: np.ndarray | None, n_total_windows: int, options, W: int,
+                  coder):
+    """The grid of ``options`` (the channel's grid first, then its other phases:
+    :func:`~tsarchive.gridphase.ranked_phases`) on which a classic channel's ``coder`` codes the same
+    windows :func:`choose_coder` measured it on in the fewest bytes, and the coder; the first for any
+    other coder.
+
+    :func:`~tsarchive.gridphase.choose_phase` placed the grid by the first differences' cost before the
+    coder was known; a general-purpose compressor finds repeats that cost does not see (appliance_acsf1
+    at 1 %: xz in blocks takes 2577 B of the channel a quarter step up, 2801 B where that cost put the
+    grid).  Each candidate costs one pass of the chosen combination (not the full choice), counted as
+    :func:`~tsarchive.coding.fallback.measure` counts it plus ``EXCEPTION_BYTES`` a verbatim sample,
+    scaled alike; the grid moves to the smallest (the earliest of a tie) only where it takes fewer than
+    ``PHASE_GAIN`` of the bytes the first takes."""
+    grid = options[0]
+    if not isinstance(coder, ClassicCoder) or len(options) == 1 or not len(windows):
+        return grid, coder
+    pick = spread(len(windows), max(1, CHOICE_SAMPLES // W))
+
+    def size(g: Grid) -> int:
+        q, pos, _, lv, _, _ = predict_windows(windows[pick], g, W, None, 1)
+        on = None if coder.block == 1 else predict_windows(blocks, g, W, None, 1)[::3]   # (windows, levels)
+        held = len(pos) * n_total_windows // len(q)
+        return fallback.measure(coder, q, lv, n_total_windows, on) + EXCEPTION_BYTES * held
+
+    sizes = [size(g) for g in options]
+    i = min(range(len(options)), key=lambda i: (sizes[i], i))
+    return (options[i] if sizes[i] * PHASE_GAIN[1] < sizes[0] * PHASE_GAIN[0] else grid), coder
 
 
 def coder_tables(coder, tables: TableSet) -> TableSet:

@@ -11,8 +11,10 @@ offset"), and keeps the shift whose first differences cost the fewest bits:
 verbatim.  Every cost is an integer, so the choice is the same on every
 machine; a tie keeps the first candidate (the grid as made).
 
-The offset (and an integer channel's ``origin``) is already part of the grid
-in the manifest, so a chosen phase needs no new field.
+A channel the classic coder takes may move on to another of the candidates, the
+one its compressor codes smallest (:func:`tsarchive.encoder.classic_phase`,
+given :func:`ranked_phases`).  The offset (and an integer channel's ``origin``)
+is already part of the grid in the manifest, so a chosen phase needs no new field.
 """
 
 from __future__ import annotations
@@ -72,15 +74,19 @@ def cost_units(q: np.ndarray, n_verbatim: int) -> int:
     return units + n_verbatim * VERBATIM_BITS * fixedlog.ONE
 
 
-def choose_phase(grid: Grid, stretches: np.ndarray, mult: int = 1) -> Grid:
-    """The candidate grid whose quantized ``stretches`` (k, n) of the channel cost the fewest bits."""
+def ranked_phases(grid: Grid, stretches: np.ndarray, mult: int = 1) -> list[Grid]:
+    """The candidate grids, those whose quantized ``stretches`` (k, n) of the channel cost the fewest bits
+    first (a tie in candidate order); unranked where there is no sample."""
     options = candidates(grid, mult)
     if len(options) == 1 or not stretches.size:
-        return grid
-    best, best_cost = grid, None
+        return options
+    costs = []
     for g in options:
         q, pos, _ = quantize(stretches.ravel(), g)
-        cost = cost_units(q.reshape(stretches.shape), len(pos))
-        if best_cost is None or cost < best_cost:
-            best, best_cost = g, cost
-    return best
+        costs.append(cost_units(q.reshape(stretches.shape), len(pos)))
+    return [options[i] for i in sorted(range(len(options)), key=lambda i: (costs[i], i))]
+
+
+def choose_phase(grid: Grid, stretches: np.ndarray, mult: int = 1) -> Grid:
+    """The candidate grid whose quantized ``stretches`` (k, n) of the channel cost the fewest bits."""
+    return ranked_phases(grid, stretches, mult)[0]

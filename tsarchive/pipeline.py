@@ -36,9 +36,9 @@ import pyarrow as pa
 
 from .channelcodec import ChannelCodec
 from .coding import fallback
-from .encoder import choose_coder, coder_tables
+from .encoder import choose_coder, classic_phase, coder_tables
 from .errors import BadInput, BoundViolation, BudgetError, Cancelled
-from .gridphase import choose_phase
+from .gridphase import ranked_phases
 from .ingest import read_recording
 from .modelrun import Choice, GivenModel, ModelRun, PackSample, _gather, _release_memory
 from .options import DEFAULT_TRAIN_SECONDS, PackOptions
@@ -109,16 +109,16 @@ def pack(source, archive, budget=None, *, rate: float | None = None, window: int
                given)
     with claim_target(archive, force), ModelRun(rec, opts, emit, given) as run:   # no other run writes this target
         emit("read", 0, 1, "placing each channel's grid")
-        grids, notes = _grids(rec, opts.budget)                           # budget -> ε -> integer grid
+        grids, notes, phases = _grids(rec, opts.budget)                   # budget -> ε -> integer grid
         emit("read", 1, 1, f"{len(rec.channels)} channel(s), {rec.n_samples} samples")
         W = _window(rec, grids, opts, emit, given)                         # windows
         sample = PackSample.take(rec, grids, W)                            # a bounded sample -> scales
         run.start(sample)                                                  # codes: training on a helper thread
         emit("encode", 0, 1, "choosing predictors and entropy tables")
         run.plain()                                                        # plan: LPC sets, tables
-        manifest = _write(job, sample, grids, notes, run.first(), run)     # residuals -> entropy -> Parquet
+        manifest = _write(job, sample, phases, notes, run.first(), run)    # residuals -> entropy -> Parquet
         if manifest is None:                                               # the model pays: encode again with it
-            manifest = _write(job, sample, grids, notes, run.second())
+            manifest = _write(job, sample, phases, notes, run.second())
     from .archive import open_archive
     arc = open_archive(archive)
     return PackResult(archive=archive, channels=tuple(_summary(m) for m in arc.channels),
@@ -173,8 +173,9 @@ def _window(rec: Recording, grids: list[Grid], opts: PackOptions, emit, given=No
     return W
 
 
-def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: ModelRun | None = None) -> dict | None:
-    """Encode every channel, write model and manifest, decode the staged archive and move it into place.
+def _write(job: _Job, sample: PackSample, phases, notes, choice: Choice, run: ModelRun | None = None) -> dict | None:
+    """Encode every channel (on the first of its grids ``phases``, or where classic coded on the one its
+    compressor codes smallest), write model and manifest, decode the staged archive and move it into place.
 
     Without a final note (a speculative encoding without the model), ``run.verdict()`` gives it once
     the channels are encoded, or None: the model pays, and the staging is dropped (returns None).
@@ -187,10 +188,11 @@ def _write(job: _Job, sample: PackSample, grids, notes, choice: Choice, run: Mod
     def codec(j: int) -> ChannelCodec:                   # plan: the residual coder
         p = choice.plans[j]
         tables = p.tables if model is not None else p.tables_plain
-        coder = choose_coder(sample.windows[j], sample.nwin, grids[j], sample.W, model, sample.scales[j], p.lpc,
+        coder = choose_coder(sample.windows[j], sample.nwin, phases[j][0], sample.W, model, sample.scales[j], p.lpc,
                              tables, blocks[j])
+        grid, coder = classic_phase(sample.windows[j], blocks[j], sample.nwin, phases[j], sample.W, coder)
         coder, tables = fallback.tail_rule(coder, rec.n_samples, sample.W), coder_tables(coder, tables)
-        return ChannelCodec.for_tables(names[j], sample.W, grids[j], sample.scales[j], p.lpc, tables,
+        return ChannelCodec.for_tables(names[j], sample.W, grid, sample.scales[j], p.lpc, tables,
                                        residual_coder=coder)
     blocks = _block_sample(sample)
     with ThreadPoolExecutor(worker_count(len(names))) as pool:     # channels side by side
@@ -234,9 +236,10 @@ def _self_check(stage: Path, rec: Recording, progress, emit) -> None:
 
 
 # -- stages --------------------------------------------------------------------
-def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
+def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str], list[list[Grid]]]:
+    """Per channel its grid, a note on it, and its grids of every phase, its grid first (ranked_phases)."""
     ranges = finite_ranges(rec)
-    grids, notes = [], []
+    notes, phases = [], []
     stretches = _phase_sample(rec)
     for ch, r, x in zip(rec.channels, ranges, stretches):
         budget = spec.for_channel(ch.name)
@@ -251,10 +254,10 @@ def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
             raise BadInput(f"channel {ch.name} has missing samples but no value of {ch.dtype} is free to mark "
                            "them; fill the gaps or store the column in a wider integer type")
         if r.kept or r.missing is not None:
-            g = replace(g, verbatim=r.kept, missing=r.missing)
+            phases.append([replace(g, verbatim=r.kept, missing=r.missing)])
         else:                                   # where the grid sits: the cheapest phase on a sample
-            g = choose_phase(g, x, int(r.mult) if ch.decimals is not None else 1)
-        grids.append(g)
+            phases.append(ranked_phases(g, x, int(r.mult) if ch.decimals is not None else 1))
+        g = phases[-1][0]
         note = _grid_note(budget, g)
         if budget.kind == "pct" and r.kept and r.span_all != r.span:
             left = ", ".join(f"{v:g}" for v in r.kept)
@@ -262,7 +265,7 @@ def _grids(rec: Recording, spec) -> tuple[list[Grid], list[str]]:
                 f"{left} left out of the range: {budget.spec} is {eps:.6g} {ch.unit}".rstrip() +
                 f", not {budget.resolve(r.span_all, ch.name):.6g} {ch.unit}".rstrip())]))
         notes.append(note)
-    return grids, notes
+    return [p[0] for p in phases], notes, phases
 
 
 def _phase_sample(rec: Recording) -> list[np.ndarray]:

@@ -104,6 +104,30 @@ def _narrowest(r: np.ndarray) -> int:
     return next(w for w, t in _WIDTHS.items() if np.iinfo(t).min <= lo and hi <= np.iinfo(t).max)
 
 
+def _packed(x: np.ndarray, order: int) -> tuple[bytes, int]:
+    """The values ``x`` differenced ``order`` times as the coder stores them before compressing: the
+    narrowest width that holds them, little-endian; and that width."""
+    r = difference(x, order)
+    width = _narrowest(r)
+    return r.astype(_WIDTHS[width]).astype(f"<i{width}").tobytes(), width
+
+
+def value_width(values, order: int) -> int:
+    """Bytes a value of ``values`` (one window) takes differenced ``order`` times, as the coder stores it."""
+    return _narrowest(difference(np.asarray(values), order))
+
+
+def screen_bytes(values, order: int, shuffle: bool, level: int) -> int:
+    """Bytes of one window ``values`` under the combination (zstd, ``order``, ``shuffle``) were zstd run
+    at ``level`` instead of 19: a quick stand-in for the packer's choice (:mod:`.fallback`)."""
+    x = np.asarray(values)
+    if not len(x):
+        return 0
+    raw, width = _packed(x, order)
+    data = _shuffle(raw, width) if shuffle and width > 1 else raw
+    return 1 + len(zstandard.ZstdCompressor(level=level).compress(data))
+
+
 def _shuffle(raw: bytes, width: int) -> bytes:
     return np.frombuffer(raw, np.uint8).reshape(-1, width).T.tobytes()
 
@@ -201,9 +225,7 @@ class ClassicCoder:
             return b""
         best = None
         for order in self.orders:
-            r = difference(x, order)
-            width = _narrowest(r)
-            raw = r.astype(_WIDTHS[width]).astype(f"<i{width}").tobytes()
+            raw, width = _packed(x, order)
             for shuf in sorted({f and width > 1 for f in self.shuffles}):
                 data = _shuffle(raw, width) if shuf else raw
                 for name in self.compressors:
