@@ -54,13 +54,13 @@ import numpy as np
 from . import codecs
 from .errors import ArchiveCorrupt, BadInput
 from .exact import _as_u, bits_to_values, values_to_bits, within  # noqa: F401  (the bits API is used from here)
+from .floatbits import ORDERED_DTYPES, ordered_floats, ordered_ints  # noqa: F401  (the ordered grid's map)
 
 _MAX_Q = float(2**50)
 MAX_MULT = 1 << 20
 MAX_DECIMALS = 15              # decimal grids: at most this many decimals (what a manifest may hold)
 MAX_INT_STEP = 1 << 53          # integer grids: steps above this (absurd budgets) are clamped, exactly representable
 KINDS = ("step", "decimal", "scaled", "ordered")
-ORDERED_DTYPES = {"float32": (np.int32, 31), "float16": (np.int16, 15)}   # the ordered grid's float -> int views
 
 
 class InvalidGrid(ArchiveCorrupt):
@@ -345,21 +345,6 @@ def quantize(x: np.ndarray, grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndar
     fill_from_previous(q, bad)
     pos = np.flatnonzero(bad)
     return q, pos.astype(np.int64), all_bits[pos]
-
-
-def ordered_ints(x: np.ndarray, dtype: str) -> np.ndarray:
-    """The ordered grid's integers (int64) of samples ``x`` in float ``dtype`` (see the module doc)."""
-    view, top = ORDERED_DTYPES[dtype]
-    b = np.ascontiguousarray(x, dtype=dtype).view(view)
-    return (b ^ ((b >> top) & view(np.iinfo(view).max))).astype(np.int64)
-
-
-def ordered_floats(q: np.ndarray, dtype: str) -> np.ndarray:
-    """Samples in float ``dtype`` from the ordered grid's integers ``q`` (the map is its own inverse)."""
-    view, top = ORDERED_DTYPES[dtype]
-    with np.errstate(over="ignore"):
-        b = np.asarray(q, dtype=np.int64).astype(view)
-    return (b ^ ((b >> top) & view(np.iinfo(view).max))).view(dtype)
 
 
 def _quantize(x: np.ndarray, grid: Grid) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
