@@ -75,3 +75,16 @@ def test_the_packing_screen_says_where_lossless_is_offered():
     assert resolution_text(ChannelInfo("eeg", scaled=(0.5, 0.5))) == "step 0.5 (the file's integers)"
     assert "lossless keeps the float32 bits" in resolution_text(ChannelInfo("a", dtype="float32"))
     assert "lossless not offered" in resolution_text(ChannelInfo("d", dtype="float64"))
+
+
+def test_the_dry_run_says_where_lossless_is_available(tmp_path, capsys):
+    src = tmp_path / "shaker.npy"
+    np.save(src, _vibration()[:, None])
+    assert main(["pack", str(src), "--rate", "5000", "--dry-run"]) == 0
+    assert "none found (lossless keeps the float32 bits)" in capsys.readouterr().out
+    pyedflib = pytest.importorskip("pyedflib")
+    from pathlib import Path
+    edf = Path(pyedflib.__file__).parent / "tests" / "data" / "test_generator.edf"   # ships with pyedflib
+    assert main(["pack", str(edf), "--dry-run"]) == 0
+    out = capsys.readouterr().out
+    assert out.count("0.030518 (the file's integers)") == 11

@@ -80,8 +80,8 @@ def read_detailed(path: str | Path, rate: float | None = None, options: ReadOpti
 
 def _plain_reports(rec: Recording):
     from .columns import ColumnReport
-    return tuple(ColumnReport(c.name, "channel", name=c.name, unit=c.unit, dtype=c.dtype, decimals=c.decimals)
-                 for c in rec.channels)
+    return tuple(ColumnReport(c.name, "channel", name=c.name, unit=c.unit, dtype=c.dtype, decimals=c.decimals,
+                              scaled=c.scaled) for c in rec.channels)
 
 
 def read_recording(path: str | Path, rate: float | None = None, *, options: ReadOptions | None = None) -> Recording:

@@ -44,12 +44,21 @@ class ColumnReport:
     missing: int = 0            # cells read as "no measurement" (tokens or nulls)
     tokens: tuple[str, ...] = ()  # the missing-value tokens seen in the column
     sentinels: int = 0          # cells equal to a user-named sentinel
+    scaled: tuple[float, float] | None = None   # an EDF signal's (bitvalue, offset): ChannelInfo.scaled
 
     @property
     def resolution(self) -> str:
+        """The logging step in words, and where none is found whether ``lossless`` still is (the
+        pipeline's rule: EDF signals on their integers, float32/float16 on their bits)."""
         if self.role != "channel":
             return ""
-        return "none found" if self.decimals is None else f"{10.0 ** -self.decimals:g}"
+        if self.decimals is not None:
+            return f"{10.0 ** -self.decimals:g}"
+        if self.scaled is not None:
+            return f"{self.scaled[0]:g} (the file's integers)"
+        if self.dtype in ("float32", "float16"):
+            return f"none found (lossless keeps the {self.dtype} bits)"
+        return "none found"
 
 
 def split_header(header: str) -> tuple[str, str]:
